@@ -1,0 +1,3 @@
+from refit.cli import main
+
+main()

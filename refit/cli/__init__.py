@@ -1,0 +1,38 @@
+"""refit's command line: a thin shell over the library.
+
+Each verb lives in its own module (``refit/cli/<verb>.py``); this module only builds the
+group. Heavy libraries (pandas, pandera, statsmodels, ...) are imported inside the command
+bodies, never at module level, so ``refit --help`` answers at once.
+"""
+
+from __future__ import annotations
+
+import click
+
+from refit import __version__
+from refit.cli.admit import admit
+from refit.cli.check import check
+from refit.cli.demo import demo
+
+CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
+
+
+@click.group(context_settings=CONTEXT)
+@click.version_option(__version__, prog_name="refit")
+def main() -> None:
+    """refit: curate modern-soil calibration sets and refit paleosol transfer functions.
+
+    \b
+    Exit codes: 0 success, 1 invalid data or failure, 2 usage error or unreadable input.
+    Estimates carry wide intervals; they are for research use, not for engineering,
+    hazard or regulatory decisions.
+
+    \b
+    Example:
+      refit check calib_demo/incoming_soils.csv
+    """
+
+
+main.add_command(check)
+main.add_command(admit)
+main.add_command(demo)
