@@ -1,0 +1,96 @@
+"""The demo: refit's whole job, as far as it exists, on the bundled invented scenario.
+
+Everything is written under one output folder; the bundled ``calib_demo/`` is never
+modified (its store is copied first).
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+from refit._resources import demo_dir
+from refit.errors import UsageError
+
+MARKER = ".refit-demo"
+
+
+@dataclass
+class DemoResult:
+    """What the demo did: labelled output paths, and the admit accounting."""
+
+    outputs: dict[str, Path] = field(default_factory=dict)
+    rows_read: int = 0
+    accepted: int = 0
+    rejected: int = 0
+
+
+def prepare_out_dir(out: Path) -> None:
+    """Create ``out``; replace it only if it holds an earlier demo (never other files)."""
+    if out.exists():
+        if not out.is_dir():
+            raise UsageError(f"--out {out} is a file; give a folder for the demo output.")
+        if (out / MARKER).exists():
+            shutil.rmtree(out)
+        elif any(out.iterdir()):
+            raise UsageError(
+                f"--out {out} exists and is not an earlier refit demo folder; "
+                "give a new or empty folder so nothing of yours is overwritten."
+            )
+    out.mkdir(parents=True, exist_ok=True)
+    (out / MARKER).write_text("written by `refit demo`; safe to delete\n", encoding="utf-8")
+
+
+def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult:
+    """Run check and admit on the demo scenario into ``out``.
+
+    Parameters
+    ----------
+    out : Path
+        Output folder (created; an earlier demo output there is replaced).
+    echo : callable, optional
+        Where to print progress lines (``None``: silent).
+    """
+    from refit.checks import check_file, load_vocabularies
+    from refit.store import admit
+
+    say = echo or (lambda *_: None)
+    src = demo_dir()
+    prepare_out_dir(out)
+    result = DemoResult()
+
+    store = out / "store"
+    shutil.copytree(src / "store", store)
+    result.outputs["calibration store"] = store
+    incoming = src / "incoming_soils.csv"
+
+    say(f"[bold]1. Check[/bold] the incoming soils: {incoming.name}")
+    vocab_files = [p for p in [store / "vocabularies.json"] if p.exists()]
+    report = check_file(incoming, vocabularies=load_vocabularies(*vocab_files))
+    check_json = out / "check-incoming.json"
+    check_json.write_text(json.dumps(report.to_dict(), indent=2, default=str) + "\n", encoding="utf-8")
+    result.outputs["check report (json)"] = check_json
+    for note in report.notes:
+        say(f"   {note}")
+    say(
+        f"   {report.n_rows} rows: {len(report.errors)} errors in "
+        f"{len(report.bad_rows())} rows, {len(report.warnings)} warnings"
+    )
+
+    say(f"[bold]2. Admit[/bold] them into a copy of the demo store: {store}")
+    adm = admit(incoming, store, vocabularies=load_vocabularies(*vocab_files))
+    result.rows_read, result.accepted, result.rejected = adm.rows_read, adm.accepted, adm.rejected
+    say(f"   rows read {adm.rows_read} = accepted {adm.accepted} + rejected {adm.rejected}")
+    for line in adm.describe():
+        say(f"   {line}")
+    if adm.quarantine_file is not None:
+        result.outputs["rejected rows (quarantine)"] = adm.quarantine_file
+    result.outputs["manifest"] = store / "manifest.json"
+    say(
+        "[dim]Fitting, cross-validation, publishing, apply and the report arrive with the next "
+        "issues; this demo runs the curation steps that exist.[/dim]"
+    )
+    return result
