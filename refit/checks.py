@@ -1,0 +1,558 @@
+"""Check a modern-soil calibration table: every problem at once, with row, column and fix.
+
+The column rules (types, ranges, required columns and values, unique ``profile_id``,
+closed vocabularies) come from ``schemas/calibration.table.json`` and run through pandera
+(:mod:`refit.schema`) with lazy validation; this module parses the cells first (so text in
+a numeric column is reported as such, with the text), then adds the rules that span
+columns, the controlled vocabularies, plausibility warnings and the sequence checks
+(:mod:`refit.sequences`), and gathers everything in one problems table
+(:class:`CheckReport`).
+
+Rules (``rule`` ids; severity error unless noted):
+
+``required-column``  a required column is absent (all absent ones are listed)
+``duplicate-column`` two columns share a name
+``climate-column``   none of ``map_mm``, ``mat_c``, ``mar_mm`` is present
+``required-value``   an empty cell in a required column
+``climate-missing``  a row without any climate value
+``unique-id``        a ``profile_id`` used more than once
+``not-a-number``     text in a numeric column
+``not-finite``       infinity in a numeric column (empty cells and NaN mean "missing")
+``not-a-date``       a date that is not ISO 8601 ``YYYY-MM-DD``
+``range``            a number outside its column's range
+``vocabulary``       a term outside the controlled vocabulary
+``vocabulary-form``  (warning) a known term written in another case, separator or number
+``mar-above-map``    ``mar_mm`` larger than ``map_mm``
+``bk-depth-without-thickness``  a Bk depth without a positive Bk thickness
+``oxide-total``      the sum of the ``*_wt`` oxides above 101 wt%
+``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
+``sequence-*``       (warnings) see :mod:`refit.sequences`
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable
+
+import numpy as np
+import pandas as pd
+
+from refit import schema as _schema
+from refit._problems import (
+    PROBLEM_COLUMNS, Problems, column_hint, fmt_values,
+)
+from refit.errors import UnreadableInputError, UsageError
+
+KINDS = ("calibration",)
+
+#: A Bk horizon in a soil wetter than this warns [mm]. Common practice: carbonate soils are
+#: mostly drier than about 760 mm MAP (Royer 1999, Geology 27, 1123-1126); the boundary
+#: varies by region, so this is a warning, not an error.
+CARBONATE_WET_LIMIT_MM = 760.0
+
+
+@dataclass
+class CheckReport:
+    """The outcome of checking one table (see the module docstring for the rules)."""
+
+    problems: pd.DataFrame
+    frame: pd.DataFrame
+    n_rows: int
+    path: str | None = None
+    notes: list[str] = field(default_factory=list)
+    source_rows: np.ndarray | None = field(default=None, repr=False)
+
+    @property
+    def errors(self) -> pd.DataFrame:
+        return self.problems[self.problems["severity"] == "error"]
+
+    @property
+    def warnings(self) -> pd.DataFrame:
+        return self.problems[self.problems["severity"] == "warning"]
+
+    @property
+    def ok(self) -> bool:
+        """True when there is no error (warnings allowed)."""
+        return not (self.problems["severity"] == "error").any()
+
+    def table_errors(self) -> pd.DataFrame:
+        """Errors about the whole table (row <NA>), e.g. missing required columns."""
+        err = self.errors
+        return err[err["row"].isna()]
+
+    def bad_rows(self) -> pd.Index:
+        """Index labels of ``frame`` rows that carry at least one row-level error."""
+        rows = self.errors["row"].dropna().astype("int64").unique()
+        source = self.source_rows if self.source_rows is not None else _default_rows(
+            self.n_rows)
+        return self.frame.index[np.isin(source, rows)]
+
+    def summary(self) -> pd.DataFrame:
+        """Count of problems per rule: columns ``rule``, ``severity``, ``count``."""
+        if self.problems.empty:
+            return pd.DataFrame({"rule": [], "severity": [], "count": []}).astype(
+                {"rule": "str", "severity": "str", "count": "int64"})
+        out = (self.problems.groupby(["severity", "rule"], sort=False).size()
+               .rename("count").reset_index())
+        return out[["rule", "severity", "count"]].sort_values(
+            ["severity", "count", "rule"], ascending=[True, False, True],
+            ignore_index=True)
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready dict: path, counts, summary, every problem and the notes."""
+        probs = self.problems.astype(object).where(self.problems.notna(), None)
+        return {
+            "path": self.path,
+            "kind": "calibration",
+            "n_rows": int(self.n_rows),
+            "ok": bool(self.ok),
+            "n_errors": int(len(self.errors)),
+            "n_warnings": int(len(self.warnings)),
+            "n_bad_rows": int(len(self.bad_rows())),
+            "summary": [
+                {"rule": r, "severity": s, "count": int(c)}
+                for r, s, c in self.summary().itertuples(index=False)
+            ],
+            "problems": [
+                {k: (int(v) if k == "row" and v is not None else v) for k, v in rec.items()}
+                for rec in probs.to_dict(orient="records")
+            ],
+            "notes": list(self.notes),
+        }
+
+
+def _default_rows(n: int) -> np.ndarray:
+    # without a reader: a csv whose header is on row 1, so data start on row 2
+    return np.arange(n, dtype="int64") + 2
+
+
+# --- vocabularies ---------------------------------------------------------------------
+
+def load_vocabularies(*extra_files: str | Path | None) -> dict[str, set[str]]:
+    """The controlled vocabularies, extended by any extra files.
+
+    Parameters
+    ----------
+    *extra_files : str or Path or None
+        Extension files (``None`` entries are skipped). Each is a JSON object mapping an
+        open vocabulary to a list of new terms, for example::
+
+            {"vegetation": ["sagebrush steppe"], "parent_material": ["ignimbrite"]}
+
+        Keys starting with ``$`` (e.g. ``"$comment"``) are ignored. Put it in a store as
+        ``STORE/vocabularies.json`` (used by ``refit admit``) or pass it to
+        ``refit check --vocab FILE``. The closed vocabularies (``soil_order``: the twelve
+        USDA Soil Taxonomy orders; ``sequence_kind``) cannot be extended.
+
+    Returns
+    -------
+    dict of str to set of str
+        ``soil_order``, ``sequence_kind``, ``vegetation``, ``parent_material``.
+
+    Raises
+    ------
+    UnreadableInputError
+        An extension file is missing or not JSON.
+    UsageError
+        An extension file names an unknown or closed vocabulary, or terms are not text.
+    """
+    base = _read_json(_schema_file("vocabularies.json"))
+    closed = set(base.get("closed", []))
+    vocab = {k: set(v) for k, v in base.items() if not k.startswith("$") and k != "closed"}
+    for path in extra_files:
+        if path is None:
+            continue
+        for key, terms in _read_json(Path(path)).items():
+            if key.startswith("$"):
+                continue
+            if key in closed or key not in vocab:
+                raise UsageError(
+                    f"{path}: {key!r} cannot be extended; an extension file may add terms "
+                    f"to {', '.join(sorted(set(vocab) - closed))} only "
+                    f"({', '.join(sorted(closed))} are closed lists).")
+            if not isinstance(terms, list) or not all(
+                    isinstance(t, str) and t.strip() for t in terms):
+                raise UsageError(
+                    f"{path}: {key!r} must be a list of non-empty texts, e.g. "
+                    f'{{"{key}": ["new term"]}}.')
+            vocab[key] |= {t.strip() for t in terms}
+    return vocab
+
+
+def _schema_file(name: str) -> Path:
+    from refit._resources import schemas_dir
+
+    return schemas_dir() / name
+
+
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise UnreadableInputError(
+            f"{path}: vocabulary file not found; check the path.") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UnreadableInputError(
+            f"{path}: cannot read the vocabulary file as JSON ({exc}); it must be a JSON "
+            'object such as {"vegetation": ["new term"]}.') from None
+    if not isinstance(data, dict):
+        raise UnreadableInputError(
+            f"{path}: a vocabulary file must hold a JSON object such as "
+            '{"vegetation": ["new term"]}.')
+    return data
+
+
+def vocab_key(term: str) -> str:
+    """Loose form of a term: lower case, '_'/'-' as space, single spaces, no plural 's'."""
+    key = " ".join(term.lower().replace("_", " ").replace("-", " ").split())
+    return key[:-1] if len(key) > 3 and key.endswith("s") else key
+
+
+def match_vocabulary(values: pd.Series, terms: Iterable[str]):
+    """Match text values to a vocabulary.
+
+    Returns
+    -------
+    canonical : pandas.Series
+        The vocabulary term for each value (NaN for missing or unknown values).
+    variant : pandas.Series of bool
+        Known term written in another form (case, separator, plural).
+    unknown : pandas.Series of bool
+        Value not in the vocabulary in any form.
+    """
+    terms = set(terms)
+    by_key = {}
+    for t in sorted(terms):
+        by_key.setdefault(vocab_key(t), t)
+    seen = values.dropna().unique()
+    mapping = {v: (v if v in terms else by_key.get(vocab_key(v))) for v in seen}
+    canonical = values.map({k: v for k, v in mapping.items() if v is not None})
+    present = values.notna()
+    unknown = present & canonical.isna()
+    variant = present & ~unknown & (canonical != values)
+    return canonical, variant, unknown
+
+
+# --- checking ---------------------------------------------------------------------------
+
+def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckReport:
+    """Read a table (csv/tsv/xlsx/parquet), map its units and column names, and check it.
+
+    Parameters
+    ----------
+    path : str or Path
+        The table.
+    kind : {"calibration"}
+        Table kind.
+    vocabularies : dict, optional
+        From :func:`load_vocabularies`; default the shipped vocabularies.
+
+    Returns
+    -------
+    CheckReport
+        With the reader's and the unit mapping's notes in ``notes``.
+
+    Raises
+    ------
+    UnreadableInputError
+        Missing, empty or unparseable file (exit code 2).
+    """
+    _check_kind(kind)
+    from refit.tables import read_table
+    from refit.units import normalise_columns
+
+    table = read_table(path, as_text=False)
+    frame, mapped = normalise_columns(table.frame)
+    return check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
+                       path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
+
+
+def _check_kind(kind: str) -> None:
+    if kind == "fossil":
+        raise UsageError("--kind fossil is not available yet: fossil tables arrive with "
+                         "the apply issue. Use --kind calibration.")
+    if kind not in KINDS:
+        raise UsageError(f"unknown table kind {kind!r}; use one of: {', '.join(KINDS)}.")
+
+
+def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, path=None,
+                kind: str = "calibration", notes=None) -> CheckReport:
+    """Check a calibration table held in a DataFrame against every rule.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Canonical column names (see ``schemas/calibration.table.json``); values as read.
+    source_rows : array_like of int, optional
+        File row number of each frame row; default ``2, 3, ...`` (header on row 1).
+    vocabularies : dict, optional
+        From :func:`load_vocabularies`; default the shipped vocabularies.
+    path : str, optional
+        Shown in the report.
+    kind : {"calibration"}
+        Table kind.
+    notes : list of str, optional
+        Reader and unit-mapping notes to pass through.
+
+    Returns
+    -------
+    CheckReport
+        ``frame`` holds the checked data with the same index as the input: numeric
+        columns as float64 (cells that failed to parse, and infinities, become NaN),
+        text stripped (empty text becomes missing), known vocabulary variants replaced by
+        their canonical term, dates kept as ISO text.
+    """
+    _check_kind(kind)
+    from refit import sequences
+
+    n = len(frame)
+    rows = _default_rows(n) if source_rows is None else np.asarray(source_rows, "int64")
+    if len(rows) != n:
+        raise ValueError(f"source_rows has {len(rows)} entries for {n} rows")
+    vocab = load_vocabularies() if vocabularies is None else vocabularies
+    desc = _schema.load_descriptor()
+    work, probs = _prepare(frame, rows, desc)
+    _check_vocabularies(work, probs, vocab)
+    _run_pandera(work, probs, desc)
+    _check_climate(work, probs, desc)
+    _check_cross_columns(work, probs, desc)
+    probs.add_frame(sequences.sequence_problems(work))
+    out_frame = work.set_axis(frame.index, axis=0)
+    return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
+                       path=None if path is None else str(path),
+                       notes=list(notes or []), source_rows=rows)
+
+
+def _dup_mask(columns: pd.Index) -> np.ndarray:
+    return np.asarray(columns.duplicated())
+
+
+def _prepare(frame: pd.DataFrame, rows: np.ndarray, desc: dict):
+    """Copy with a RangeIndex, parsed cells and the problems collector."""
+    work = frame.loc[:, ~_dup_mask(frame.columns)].copy(deep=False)
+    work.index = pd.RangeIndex(len(work))
+    ids = work["profile_id"] if "profile_id" in work.columns else None
+    probs = Problems(rows, None)
+    for name in pd.unique(frame.columns[_dup_mask(frame.columns)]):
+        probs.add_table("error", "duplicate-column", str(name),
+                        f"two or more columns are named {name!r}; refit checked the "
+                        "first one. Rename or remove the others.")
+    fields = _schema.fields(desc)
+    missing_tokens = list(desc.get("missingValues", [""]))
+    if ids is not None:
+        work["profile_id"] = _parse_text(ids, missing_tokens)
+        probs.ids = work["profile_id"]
+    for name in work.columns:
+        if name not in fields or name == "profile_id":
+            continue
+        kind = fields[name].get("type", "string")
+        if kind in ("number", "integer"):
+            work[name] = _parse_number_column(work[name], name, missing_tokens, probs)
+        elif kind == "date":
+            work[name] = _parse_date_column(work[name], name, missing_tokens, probs)
+        else:
+            work[name] = _parse_text(work[name], missing_tokens)
+    return work, probs
+
+
+def _parse_text(s: pd.Series, missing_tokens: list[str]) -> pd.Series:
+    """Text with surrounding spaces removed; missing tokens become NaN."""
+    if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
+        vals = s.astype("float64")
+        finite = vals.dropna()
+        if (finite == np.floor(finite)).all() and (finite.abs() < 2**53).all():
+            return vals.astype("Int64").astype("str")
+        return vals.astype("str").where(vals.notna())
+    text = s.astype("str").str.strip()
+    return text.where(~text.isin(missing_tokens))
+
+
+def _parse_number_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
+    """float64 values; reports text ('not-a-number') and infinity ('not-finite')."""
+    if pd.api.types.is_numeric_dtype(s):
+        num = s.astype("float64")
+    else:
+        text = s.astype("str").str.strip()
+        empty = text.isna() | text.isin(missing_tokens)
+        num = pd.to_numeric(text.where(~empty), errors="coerce").astype("float64")
+        bad = ~empty & num.isna()
+        if bad.any():
+            pos = np.flatnonzero(bad.to_numpy())
+            vals = text.iloc[pos]
+            probs.add("error", "not-a-number", pos, name, vals,
+                      "'" + vals + f"' in {name} is not a number. " + _number_fix(name))
+            probs.flag(pos, name)
+    inf = np.isinf(num.to_numpy())
+    if inf.any():
+        pos = np.flatnonzero(inf)
+        probs.add("error", "not-finite", pos, name, fmt_values(num.iloc[pos]),
+                  f"{name} is infinite; a measurement must be a finite number. Enter the "
+                  "value, or leave the cell empty if it was not measured.")
+        probs.flag(pos, name)
+        num = num.where(~inf)
+    return num
+
+
+def _number_fix(name: str) -> str:
+    return ("Write the number alone with a decimal point (e.g. 12.5, not '12,5' or "
+            f"'12.5 cm'), put the unit in the column name. {column_hint(name)}Leave the "
+            "cell empty if it was not measured.")
+
+
+def _parse_date_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
+    """ISO text; reports cells that are not a YYYY-MM-DD date ('not-a-date')."""
+    if pd.api.types.is_datetime64_any_dtype(s):
+        return s.dt.strftime("%Y-%m-%d")
+    text = _parse_text(s, missing_tokens)
+    parsed = pd.to_datetime(text, format="%Y-%m-%d", errors="coerce")
+    bad = text.notna() & parsed.isna()
+    if bad.any():
+        pos = np.flatnonzero(bad.to_numpy())
+        vals = text.iloc[pos]
+        probs.add("error", "not-a-date", pos, name, vals,
+                  "'" + vals + f"' in {name} is not a date; write it as YYYY-MM-DD "
+                  "(ISO 8601), e.g. 2024-05-31.")
+        probs.flag(pos, name)
+    return text
+
+
+def _check_vocabularies(work: pd.DataFrame, probs: Problems, vocab: dict) -> None:
+    closed = {"soil_order", "sequence_kind"}
+    for name in ("soil_order", "vegetation", "parent_material", "sequence_kind"):
+        if name not in work.columns or name not in vocab:
+            continue
+        values = work[name]
+        canonical, variant, unknown = match_vocabulary(values, vocab[name])
+        if variant.any():
+            pos = np.flatnonzero(variant.to_numpy())
+            vals, canon = values.iloc[pos], canonical.iloc[pos]
+            # common practice: accept spelling variants of a known term, but say so
+            probs.add("warning", "vocabulary-form", pos, name, vals,
+                      "'" + vals + f"' in {name} is read as the vocabulary term '"
+                      + canon + "'; write '" + canon + "' to silence this warning.")
+            work[name] = values.where(~variant, canonical)
+        if unknown.any():
+            pos = np.flatnonzero(unknown.to_numpy())
+            vals = values.iloc[pos]
+            allowed = ", ".join(sorted(vocab[name], key=str.lower))
+            if name in closed:
+                how = "this list is closed and cannot be extended."
+            else:
+                how = ("use one of these, or if the term is right add it to the store's "
+                       "vocabularies.json or a file passed with --vocab, e.g. "
+                       f'{{"{name}": ["new term"]}}.')
+            probs.add("error", "vocabulary", pos, name, vals,
+                      "'" + vals + f"' is not in the {name} vocabulary. Allowed: "
+                      f"{allowed}; {how}")
+            probs.flag(pos, name)
+
+
+def _run_pandera(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    """Column rules from the descriptor, via pandera lazy validation."""
+    import pandera.errors as pe
+
+    from refit._problems import translate_failures
+
+    schema = _schema.build_schema(desc, columns=work.columns)
+    present = [c for c in schema.columns if c in work.columns]
+    try:
+        schema.validate(work[present], lazy=True)
+    except pe.SchemaErrors as exc:
+        translate_failures(exc.failure_cases, work, probs, _schema.fields(desc))
+
+
+def _check_climate(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    climate = _schema.refit_rules(desc).get("climate_columns_any_of",
+                                            ["map_mm", "mat_c", "mar_mm"])
+    present = [c for c in climate if c in work.columns]
+    if not present:
+        probs.add_table("error", "climate-column", "|".join(climate),
+                        f"no climate column: a calibration table needs at least one of "
+                        f"{', '.join(climate)}. Add the column (a unit in its name, e.g. "
+                        "map_in, is converted).")
+        return
+    empty = np.ones(len(work), dtype=bool)
+    for c in present:
+        empty &= work[c].isna().to_numpy() & ~probs.flagged_mask(c, len(work))
+    if empty.any():
+        pos = np.flatnonzero(empty)
+        probs.add("error", "climate-missing", pos, "|".join(present), [""] * len(pos),
+                  f"no climate value in this row ({', '.join(present)} all empty); a "
+                  "calibration profile needs at least one. Fill one in or remove the row.")
+
+
+def _check_cross_columns(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    cols = work.columns
+    if "mar_mm" in cols and "map_mm" in cols:
+        mar, mapp = work["mar_mm"], work["map_mm"]
+        pos = np.flatnonzero((mar > mapp).to_numpy())
+        if len(pos):
+            probs.add("error", "mar-above-map", pos, "mar_mm", fmt_values(mar.iloc[pos]),
+                      "MAR " + fmt_values(mar.iloc[pos]) + " mm is larger than MAP "
+                      + fmt_values(mapp.iloc[pos]) + " mm; the range of monthly "
+                      "precipitation cannot exceed the annual total. Check that both are "
+                      "in mm and not swapped.")
+    if "bk_depth_cm" in cols:
+        depth = work["bk_depth_cm"]
+        thick = work["bk_thickness_cm"] if "bk_thickness_cm" in cols else pd.Series(
+            np.nan, index=work.index)
+        # a negative thickness is already a range error; here: missing or zero
+        pos = np.flatnonzero((depth.notna() & (thick.isna() | (thick == 0))).to_numpy())
+        if len(pos):
+            probs.add("error", "bk-depth-without-thickness", pos, "bk_thickness_cm",
+                      fmt_values(thick.iloc[pos]),
+                      "a Bk depth (" + fmt_values(depth.iloc[pos]) + " cm) is given but "
+                      "no positive Bk thickness; enter bk_thickness_cm, or leave "
+                      "bk_depth_cm empty if the profile has no Bk horizon.")
+    _check_oxide_total(work, probs, desc)
+    _warn_horizons(work, probs)
+
+
+def _check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    oxides = [c for c in _schema.fields(desc) if c.endswith("_wt") and c in work.columns]
+    if not oxides:
+        return
+    limit = float(_schema.refit_rules(desc).get("oxide_total_max_wt", 101.0))
+    total = work[oxides].sum(axis=1, min_count=1)
+    pos = np.flatnonzero((total > limit).to_numpy())
+    if len(pos):
+        probs.add("error", "oxide-total", pos, "+".join(oxides),
+                  fmt_values(total.iloc[pos]),
+                  "the oxides add up to " + fmt_values(total.iloc[pos].round(2))
+                  + f" wt% (more than {limit:g}); check for a value in ppm or a "
+                  "misplaced decimal point, and that the oxides are weight percent.")
+
+
+def _warn_horizons(work: pd.DataFrame, probs: Problems) -> None:
+    cols = work.columns
+    if "bk_depth_cm" in cols and "by_depth_cm" in cols:
+        bk, by = work["bk_depth_cm"], work["by_depth_cm"]
+        # common practice: gypsic (By) horizons normally lie below the calcic (Bk)
+        # horizon (gypsum is more soluble and is leached deeper; Bockheim 2014)
+        pos = np.flatnonzero((by < bk).to_numpy())
+        if len(pos):
+            probs.add("warning", "gypsum-above-carbonate", pos, "by_depth_cm",
+                      fmt_values(by.iloc[pos]),
+                      "the gypsic (By) horizon at " + fmt_values(by.iloc[pos])
+                      + " cm lies above the Bk at " + fmt_values(bk.iloc[pos])
+                      + " cm; gypsum normally lies deeper. Check the depths and the "
+                      "horizon names.")
+    if "bk_depth_cm" in cols and "map_mm" in cols:
+        bk, mapp = work["bk_depth_cm"], work["map_mm"]
+        # common practice: carbonate soils are mostly drier than ~760 mm MAP (Royer 1999)
+        pos = np.flatnonzero((bk.notna() & (mapp > CARBONATE_WET_LIMIT_MM)).to_numpy())
+        if len(pos):
+            probs.add("warning", "carbonate-in-wet-climate", pos, "map_mm",
+                      fmt_values(mapp.iloc[pos]),
+                      "a Bk horizon in a soil with MAP " + fmt_values(mapp.iloc[pos])
+                      + f" mm; carbonate soils are mostly drier than about "
+                      f"{CARBONATE_WET_LIMIT_MM:g} mm (Royer 1999). Check MAP and the "
+                      "horizon; keep the row if the region is known for it.")
+
+
+__all__ = [
+    "CheckReport", "check_file", "check_frame", "load_vocabularies", "match_vocabulary",
+    "vocab_key", "PROBLEM_COLUMNS", "CARBONATE_WET_LIMIT_MM",
+]
