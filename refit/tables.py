@@ -1,0 +1,469 @@
+"""Reading incoming tables: csv/tsv/txt, xlsx and parquet, into one :class:`Table` shape.
+
+A researcher's table rarely arrives clean: semicolons instead of commas, a Windows code
+page, a byte-order mark, a title row or two above the header, blank lines at the end.
+:func:`read_table` finds its way through those and says what it did in ``Table.notes``.
+
+Two reading modes serve two jobs:
+
+* ``as_text=True`` keeps every cell as the exact string in the file (``""`` for an empty
+  cell). ``admit`` uses it so that a rejected row goes to quarantine unchanged.
+* ``as_text=False`` lets pandas infer column types. On the common case (UTF-8, header on the
+  first row, one delimiter, no blank lines inside) this is one ``pandas.read_csv`` call, so
+  ``check`` on a million rows costs little more than reading the file.
+
+Row numbers (``Table.source_rows``) are the 1-based rows a spreadsheet shows for the file:
+with the header on row 1, the first data row is row 2. Empty rows are dropped from the frame
+but keep their numbers counted.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from refit.errors import UnreadableInputError
+
+TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
+EXCEL_SUFFIXES = {".xlsx", ".xlsm"}
+PARQUET_SUFFIXES = {".parquet", ".pq"}
+DELIMITERS = (",", ";", "\t", "|")
+MISSING_TEXT = ("", "NA", "NaN", "nan", "null")  # as in schemas/calibration.table.json
+_SAMPLE_BYTES = 256 * 1024
+_SAMPLE_ROWS = 200
+_BOMS = (
+    (b"\xef\xbb\xbf", "utf-8-sig"),
+    (b"\xff\xfe\x00\x00", "utf-32"),
+    (b"\x00\x00\xfe\xff", "utf-32"),
+    (b"\xff\xfe", "utf-16"),
+    (b"\xfe\xff", "utf-16"),
+)
+
+
+@dataclass
+class Table:
+    """A table read from a file.
+
+    Attributes
+    ----------
+    frame : pandas.DataFrame
+        Data rows; column names stripped of surrounding spaces; values as read.
+    path : pathlib.Path
+        The file.
+    source_rows : numpy.ndarray
+        For each frame row, its 1-based row number in the file as a spreadsheet shows it.
+    sha256 : str
+        Hex SHA-256 of the file's bytes.
+    notes : list of str
+        What the reader did (format, encoding, delimiter, skipped rows, sheet).
+    """
+
+    frame: pd.DataFrame
+    path: Path
+    source_rows: np.ndarray
+    sha256: str
+    notes: list[str] = field(default_factory=list)
+
+
+def read_table(path, *, as_text: bool = False, sheet: str | int | None = None) -> Table:
+    """Read a csv/tsv/txt, xlsx or parquet table.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The file to read.
+    as_text : bool
+        Keep every cell as its original string (``""`` when empty) instead of inferring types.
+    sheet : str or int, optional
+        Worksheet of an xlsx file (name or 0-based index); default the first sheet.
+
+    Returns
+    -------
+    Table
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is missing, a folder, empty, has a header but no rows, cannot be decoded,
+        has an unknown extension, is a corrupt workbook or parquet file, or uses a delimiter
+        refit does not read.
+    """
+    path = Path(path)
+    _check_exists(path)
+    suffix = path.suffix.lower()
+    if suffix in TEXT_SUFFIXES:
+        return _read_text_table(path, as_text)
+    if suffix in EXCEL_SUFFIXES:
+        rows, notes, digest = _read_excel_rows(path, sheet)
+        return _table_from_rows(path, rows, as_text, notes, digest)
+    if suffix in PARQUET_SUFFIXES:
+        return _read_parquet(path, as_text)
+    if suffix == ".xls":
+        raise UnreadableInputError(
+            f"{path}: the old binary Excel format (.xls) is not read; open it in a spreadsheet "
+            "program and save it as .xlsx or .csv"
+        )
+    raise UnreadableInputError(
+        f"{path}: unknown file type {suffix or '(no extension)'!r}; refit reads .csv, .tsv, "
+        ".txt, .xlsx and .parquet tables; rename or re-save the file with one of those"
+    )
+
+
+def _check_exists(path: Path) -> None:
+    if not path.exists():
+        raise UnreadableInputError(f"{path}: no such file; check the path and spelling")
+    if path.is_dir():
+        raise UnreadableInputError(f"{path} is a folder, not a table; give the path of a file")
+    if path.stat().st_size == 0:
+        raise UnreadableInputError(
+            f"{path} is empty (0 bytes); export the table again with a header row and data rows"
+        )
+
+
+# ---------------------------------------------------------------------------------------
+# text tables
+
+
+def _scan(path: Path) -> tuple[str, bytes, int, bytes]:
+    """One pass over the file: sha256, a sample of the head, newline count, the tail."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    head = b""
+    tail = b""
+    newlines = 0
+    with open(path, "rb") as fh:
+        while block := fh.read(1 << 22):
+            digest.update(block)
+            newlines += block.count(b"\n")
+            if len(head) < _SAMPLE_BYTES:
+                head += block[: _SAMPLE_BYTES - len(head)]
+            tail = (tail + block)[-4096:]
+    return digest.hexdigest(), head, newlines, tail
+
+
+def detect_encoding(sample: bytes, path: Path) -> tuple[str, str]:
+    """Return (python codec, note) for a sample of a text file's bytes."""
+    for bom, codec in _BOMS:
+        if sample.startswith(bom):
+            return codec, f"encoding {codec.replace('-sig', '')} with a byte-order mark"
+    try:
+        _utf8_prefix(sample)
+        return "utf-8", "encoding utf-8"
+    except UnicodeDecodeError:
+        pass
+    from charset_normalizer import from_bytes
+
+    best = from_bytes(sample, cp_isolation=["cp1252", "latin_1", "utf_16", "utf_32"]).best()
+    if best is None:
+        raise UnreadableInputError(
+            f"{path}: the bytes are not text in any encoding refit recognises (utf-8, utf-16, "
+            "cp1252/latin-1); is it a table at all? Save it as CSV in UTF-8"
+        )
+    return best.encoding, f"encoding {best.encoding} (detected; not utf-8)"
+
+
+def _utf8_prefix(sample: bytes) -> str:
+    import codecs
+
+    return codecs.getincrementaldecoder("utf-8")().decode(sample, final=False)
+
+
+def _decode(data: bytes, codec: str, path: Path) -> str:
+    try:
+        return data.decode(codec)
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        raise UnreadableInputError(
+            f"{path}: cannot decode byte {data[exc.start:exc.start + 1]!r} on line {line} as "
+            f"{codec}; the file mixes encodings. Re-save it as CSV in UTF-8"
+        ) from None
+
+
+def sniff_delimiter(lines: list[str], path: Path) -> str:
+    """Pick the delimiter (comma, semicolon, tab, pipe) that splits lines most consistently."""
+    best, best_key = ",", (-1.0, 0)
+    for delim in DELIMITERS:
+        widths = [len(r) for r in csv.reader(lines, delimiter=delim) if r]
+        if not widths:
+            continue
+        modal, count = Counter(widths).most_common(1)[0]
+        if modal < 2:
+            continue
+        key = (round(count / len(widths), 1), modal)
+        if key > best_key:
+            best, best_key = delim, key
+    if best_key[0] < 0:
+        _refuse_single_column(lines, path)
+    return best
+
+
+def _refuse_single_column(lines: list[str], path: Path) -> None:
+    """A one-column file is fine unless its lines are clearly split by another character."""
+    body = [ln for ln in lines if ln.strip()][:50]
+    if len(body) < 2:
+        return
+    for char, label in ((":", "colon ':'"), ("  ", "runs of spaces"), (" ", "spaces"),
+                        ("/", "slash '/'"), ("~", "tilde '~'"), ("^", "caret '^'")):
+        counts = [ln.count(char) for ln in body]
+        modal, n = Counter(counts).most_common(1)[0]
+        if modal >= 1 and n >= 0.8 * len(body):
+            raise UnreadableInputError(
+                f"{path}: found no comma, semicolon, tab or pipe between values, but every line "
+                f"holds {label}; refit reads tables delimited by comma, semicolon, tab or pipe. "
+                "Re-save the table as CSV (comma-separated)"
+            )
+
+
+def _read_text_table(path: Path, as_text: bool) -> Table:
+    digest, head, newlines, tail = _scan(path)
+    codec, enc_note = detect_encoding(head, path)
+    text = None
+    if codec.startswith("utf-8"):
+        head_text = _utf8_prefix(head).lstrip("\ufeff")
+    else:
+        text = _decode(path.read_bytes(), codec, path).lstrip("\ufeff")
+        head_text = text[:_SAMPLE_BYTES]
+    if not head_text.strip():
+        raise UnreadableInputError(f"{path} holds only blank lines; export the table again")
+    lines = head_text.splitlines()[:_SAMPLE_ROWS]
+    if len(head) == _SAMPLE_BYTES and len(lines) > 1:
+        lines = lines[:-1]  # the last sampled line may be cut
+    delim = sniff_delimiter(lines, path)
+    rows = list(csv.reader(lines, delimiter=delim))
+    header_at = find_header(rows)
+    notes = [f"read {path.name} as delimited text", enc_note, f"delimiter {_DELIM_NAMES[delim]}"]
+    if not as_text and codec.startswith("utf-8") and header_at == 0:
+        fast = _fast_typed(path, codec, delim, newlines, tail, digest, notes)
+        if fast is not None:
+            return fast
+    if text is None:
+        text = _decode(path.read_bytes(), codec, path).lstrip("\ufeff")
+    all_rows = list(csv.reader(io.StringIO(text, newline=""), delimiter=delim))
+    return _table_from_rows(path, all_rows, as_text, notes, digest, delim=delim)
+
+
+_DELIM_NAMES = {",": "comma ','", ";": "semicolon ';'", "\t": "tab", "|": "pipe '|'"}
+
+
+def _fast_typed(path, codec, delim, newlines, tail, digest, notes) -> Table | None:
+    """One ``read_csv`` call for the common case; None when the file needs the careful path."""
+    try:
+        frame = pd.read_csv(path, sep=delim, encoding=codec, low_memory=False)
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError):
+        return None
+    stripped = tail.rstrip(b"\r\n \t")
+    trailing = tail[len(stripped):].count(b"\n")
+    content_lines = newlines - trailing + 1
+    if len(frame) != content_lines - 1 or len(frame) == 0:
+        return None  # blank lines inside or line breaks inside quoted values: count exactly
+    frame.columns = [str(c).strip() for c in frame.columns]
+    if any(c.startswith("Unnamed: ") for c in frame.columns) or _has_dupes(frame.columns):
+        return None
+    rows = np.arange(2, len(frame) + 2)
+    empty = frame.isna().all(axis=1).to_numpy()
+    if empty.any():
+        frame, rows = frame.loc[~empty].reset_index(drop=True), rows[~empty]
+        notes.append(f"skipped {int(empty.sum())} empty row(s)")
+    notes.append("header on row 1")
+    return Table(frame, path, rows, digest, notes)
+
+
+def _has_dupes(names) -> bool:
+    return len(set(names)) != len(list(names))
+
+
+# ---------------------------------------------------------------------------------------
+# rows -> frame (text tables on the careful path and workbooks)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text.replace(",", "."))
+    except ValueError:
+        return False
+    return True
+
+
+def _effective_width(row) -> int:
+    for j in range(len(row) - 1, -1, -1):
+        if str(row[j]).strip():
+            return j + 1
+    return 0
+
+
+def find_header(rows: list[list[str]]) -> int:
+    """Index of the header row among ``rows`` (title rows above it are skipped).
+
+    The header is the first row that is as wide as the body's modal width and either names a
+    column refit knows (e.g. ``profile_id``, ``Latitude``, ``MAP (mm)``) or is mostly
+    non-numeric text filling at least half of its cells.
+    """
+    from refit.units import canonical_for
+
+    sample = rows[:_SAMPLE_ROWS]
+    widths = [_effective_width(r) for r in sample]
+    filled = [w for w in widths if w > 0]
+    if not filled:
+        return 0
+    modal = Counter(filled).most_common(1)[0][0]
+    for i, row in enumerate(sample):
+        if widths[i] < max(modal, 1) or widths[i] == 0:
+            continue
+        cells = [str(c).strip() for c in row[: widths[i]]]
+        non_empty = [c for c in cells if c]
+        if any(canonical_for(c) is not None for c in non_empty):
+            return i
+        text = [c for c in non_empty if not _is_number(c)]
+        if len(non_empty) >= 0.5 * len(cells) and len(text) >= 0.75 * len(non_empty):
+            return i
+    return next(i for i, w in enumerate(widths) if w > 0)
+
+
+def _table_from_rows(path, rows, as_text, notes, digest, delim=",") -> Table:
+    header_at = find_header(rows)
+    if header_at > 0:
+        notes.append(f"skipped {header_at} row(s) above the header (title or notes)")
+    header = [str(c).strip() for c in rows[header_at]]
+    width = max([_effective_width(header)] + [_effective_width(r) for r in rows[header_at + 1:]])
+    header = (header + [""] * width)[:width]
+    body, numbers = [], []
+    for k, row in enumerate(rows[header_at + 1:], start=header_at + 2):
+        if _effective_width(row) == 0:
+            continue
+        body.append((list(row) + [""] * width)[:width])
+        numbers.append(k)
+    header = _name_columns(header, body, path)
+    if not body:
+        raise UnreadableInputError(
+            f"{path} has a header (row {header_at + 1}) but no data rows; add the soil profiles "
+            "below the header"
+        )
+    notes.append(f"header on row {header_at + 1}")
+    frame = pd.DataFrame(body, columns=header, dtype=object)
+    keep = [c for c in frame.columns if not (c.startswith("_unnamed_") and _blank(frame[c]))]
+    frame = frame[keep]
+    frame.columns = [c[1:] if c.startswith("_unnamed_") else c for c in frame.columns]
+    frame = frame.astype(str) if as_text else infer_types(frame)
+    return Table(frame.reset_index(drop=True), path, np.asarray(numbers, dtype=np.int64),
+                 digest, notes)
+
+
+def _blank(col: pd.Series) -> bool:
+    return bool(col.astype(str).str.strip().eq("").all())
+
+
+def _name_columns(header: list[str], body, path: Path) -> list[str]:
+    names = [h if h else f"_unnamed_{j + 1}" for j, h in enumerate(header)]
+    seen: dict[str, int] = {}
+    for j, name in enumerate(names):
+        if name in seen:
+            raise UnreadableInputError(
+                f"{path}: column name {name!r} appears twice (columns {seen[name] + 1} and "
+                f"{j + 1}); rename one of them"
+            )
+        seen[name] = j
+    return names
+
+
+def infer_types(frame: pd.DataFrame) -> pd.DataFrame:
+    """Numbers where a whole column parses as numbers, else text; missing markers -> NaN."""
+    out = {}
+    for name in frame.columns:
+        col = frame[name].astype(object).map(lambda v: v.strip() if isinstance(v, str) else v)
+        col = col.where(~col.isin(MISSING_TEXT) & col.notna(), None)
+        try:
+            out[name] = pd.to_numeric(col)
+        except (ValueError, TypeError):
+            out[name] = col.astype("str").where(col.notna(), np.nan)
+    return pd.DataFrame(out, index=frame.index)
+
+
+# ---------------------------------------------------------------------------------------
+# workbooks
+
+
+def _read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]:
+    """Rows of one worksheet as display text, the reader's notes and the file's sha256."""
+    import zipfile
+
+    from openpyxl import load_workbook
+    from openpyxl.utils.exceptions import InvalidFileException
+
+    from refit._atomic import sha256_file
+
+    try:
+        book = load_workbook(path, read_only=True, data_only=True)
+    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as exc:
+        raise UnreadableInputError(
+            f"{path}: not a readable xlsx workbook ({type(exc).__name__}: {exc}); open it in a "
+            "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
+        ) from None
+    try:
+        names = book.sheetnames
+        if sheet is None:
+            ws = book.worksheets[0]
+        elif isinstance(sheet, int) and 0 <= sheet < len(names):
+            ws = book.worksheets[sheet]
+        elif isinstance(sheet, str) and sheet in names:
+            ws = book[sheet]
+        else:
+            raise UnreadableInputError(
+                f"{path}: no worksheet {sheet!r}; the workbook has {', '.join(map(repr, names))}"
+            )
+        rows = [[_cell_text(v) for v in row] for row in ws.iter_rows(values_only=True)]
+        title = ws.title
+    finally:
+        book.close()
+    if not any(_effective_width(r) for r in rows):
+        raise UnreadableInputError(f"{path}: worksheet {title!r} is empty; put the table there")
+    notes = [f"read {path.name} as an xlsx workbook", f"sheet {title!r}"]
+    return rows, notes, sha256_file(path)
+
+
+# ---------------------------------------------------------------------------------------
+# parquet
+
+
+def _read_parquet(path: Path, as_text: bool) -> Table:
+    from refit._atomic import sha256_file
+
+    try:
+        frame = pd.read_parquet(path)
+    except Exception as exc:  # pyarrow raises many kinds for a damaged file
+        raise UnreadableInputError(
+            f"{path}: not a readable parquet file ({type(exc).__name__}: {exc}); "
+            "export it again or save the table as CSV"
+        ) from None
+    if len(frame) == 0:
+        raise UnreadableInputError(f"{path} has columns but no data rows; add the soil profiles")
+    frame.columns = [str(c).strip() for c in frame.columns]
+    if as_text:
+        frame = frame.astype(object).map(_cell_text)
+    rows = np.arange(2, len(frame) + 2)
+    notes = [f"read {path.name} as parquet", "row 1 stands for the column names, data from row 2"]
+    return Table(frame.reset_index(drop=True), path, rows, sha256_file(path), notes)
+
+
+def _cell_text(value) -> str:
+    """The text a spreadsheet would show for a typed cell ("" when missing)."""
+    import datetime as dt
+    import math
+
+    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA:
+        return ""
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, float) and value.is_integer() and abs(value) < 1e15:
+        return str(int(value))
+    if isinstance(value, dt.datetime):
+        return value.date().isoformat() if value.time() == dt.time(0) else value.isoformat()
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    return str(value)
