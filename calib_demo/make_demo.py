@@ -312,7 +312,7 @@ INCOMING_REGION = dict(code="OR", lon=(53.4, 54.8), map=(240, 1300), elev=(300, 
 SPREADSHEET = {  # canonical column -> (spreadsheet header, factor from canonical, digits)
     "profile_id": ("Profile ID", None, None), "latitude": ("Lat", None, None),
     "longitude": ("Long", None, None), "source": ("Source", None, None),
-    "region": ("Region", None, None), "map_mm": ("MAP (in)", 1 / 25.4, 2),
+    "region": ("region", None, None), "map_mm": ("MAP (in)", 1 / 25.4, 2),
     "mat_c": ("MAT (°F)", "degF", 1), "mar_mm": ("MAR (in)", 1 / 25.4, 2),
     "bk_depth_cm": ("Depth to Bk (in)", 1 / 2.54, 1),
     "bk_thickness_cm": ("Bk thickness (in)", 1 / 2.54, 1),
@@ -340,6 +340,9 @@ BAD_ROWS = [
     ("oxide total above 101 wt%", "oxide-total"),
     ("duplicated id within the file (both copies)", "unique-id"),
 ]
+STORE_ID_REUSED = "LP-042"  # an id the store already holds
+STORE_PLACE = "LP-025"      # a store record whose source and coordinates are reused
+STORE_TWIN = "LP-003"       # a store record (with a Bk and oxides) whose measurements are copied
 WARNING_ROW = ("Bk horizon above 760 mm MAP (warning only, admitted)",
                "carbonate-in-wet-climate")
 
@@ -375,9 +378,8 @@ def make_incoming(base: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
 
 def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:
     """Break one thing in each valid row (and add the second copy of the duplicate id)."""
-    with_all = base.dropna(subset=["bk_depth_cm", "sio2_wt"])
-    twin_of = with_all[with_all["map_mm"].between(450, 650)].iloc[0]  # identical measurements
-    same_place = base.iloc[len(base) // 3]                             # same source and place
+    by_id = base.set_index("profile_id", drop=False)
+    twin_of, same_place = by_id.loc[STORE_TWIN], by_id.loc[STORE_PLACE]
     out = []
     for row, (label, _) in zip(rows, BAD_ROWS):
         row = row.copy()
@@ -393,7 +395,7 @@ def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:
         elif label.startswith("latitude"):
             row["latitude"] = -94.2
         elif label.startswith("profile_id"):
-            row["profile_id"] = base["profile_id"].iloc[41]
+            row["profile_id"] = STORE_ID_REUSED
         elif label.startswith("same source"):
             row[["source", "latitude", "longitude"]] = same_place[
                 ["source", "latitude", "longitude"]].to_list()
@@ -417,22 +419,29 @@ def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:
 
 
 def to_spreadsheet(table: pd.DataFrame) -> pd.DataFrame:
-    """Canonical columns -> the campaign's headers and units, as the cells would read."""
+    """Canonical columns -> the campaign's headers and units, as the cells would read.
+
+    Converted values are rounded as a field sheet would hold them, except in the copy of a
+    store record (``exact``), which keeps every digit so that it converts back unchanged.
+    """
+    exact = table["notes"].str.contains("identical", na=False).to_numpy()
     sheet = {}
     for col, (header, factor, digits) in SPREADSHEET.items():
         values = table[col] if col in table.columns else pd.Series("", index=table.index)
         if factor is not None:
-            values = values.map(lambda v: _convert(v, factor, digits))
+            values = pd.Series([_convert(v, factor, None if keep else digits)
+                                for v, keep in zip(values, exact)], index=table.index,
+                               dtype=object)
         sheet[header] = values
     return pd.DataFrame(sheet)
 
 
-def _convert(value, factor, digits: int):
+def _convert(value, factor, digits: int | None):
     """One cell from canonical units to the sheet's unit; text and blanks pass unchanged."""
     if isinstance(value, str) or pd.isna(value):
         return value
-    out = value * 9 / 5 + 32 if factor == "degF" else value * factor
-    return round(out, digits)
+    out = float(value) * 9 / 5 + 32 if factor == "degF" else float(value) * factor
+    return out if digits is None else round(out, digits)
 
 
 def write_incoming(sheet: pd.DataFrame, path: Path) -> None:
