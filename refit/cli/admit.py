@@ -1,11 +1,100 @@
-"""`refit admit` (being written this session; owner replaces this module)."""
+"""`refit admit`: add the rows of a table to a calibration store (thin shell over refit.store)."""
 
 from __future__ import annotations
 
 import click
 
+from refit.cli._common import guarded
+
+MAX_LISTED = 40
+
 
 @click.command("admit")
-def admit() -> None:
-    """Not ready yet."""
-    raise click.ClickException("refit admit is not ready yet")
+@click.argument("table", type=click.Path(dir_okay=True, path_type=str))
+@click.option("--into", "store", required=True, metavar="STORE", type=click.Path(path_type=str),
+              help="Store folder; created (named after the folder) if it does not exist.")
+@click.option("--dry-run", is_flag=True, help="Show what would happen; write nothing.")
+@click.option("--vocab", metavar="FILE", type=click.Path(path_type=str),
+              help="Extra vocabulary terms (JSON), on top of STORE/vocabularies.json.")
+@click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="Report for people (text) or programs (json).")
+@click.option("--strict", is_flag=True,
+              help="Exit with code 1 when any row was rejected (the admit still lands).")
+@guarded
+def admit(table: str, store: str, dry_run: bool, vocab: str | None, fmt: str,
+          strict: bool) -> None:
+    """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
+
+    Column names and units are mapped to the canonical ones (e.g. 'MAP (in)' -> map_mm),
+    every row is checked, duplicates of stored soils are caught, accepted rows are appended
+    as a new dataset version, and every rejected row is kept unchanged, with its reasons, in
+    STORE/quarantine/. The whole admit lands or nothing does.
+
+    \b
+    Exit codes: 0 admitted (rejected rows are in quarantine; see --strict), 1 invalid
+    table (nothing written) or busy store, 2 unreadable input or usage error.
+
+    \b
+    Example:
+      refit admit calib_demo/incoming_soils.csv --into my_store --dry-run
+    """
+    import json
+
+    from refit.store import admit as run_admit
+
+    result = run_admit(table, store, dry_run=dry_run, vocab_files=[vocab] if vocab else [])
+    if fmt == "json":
+        click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+    else:
+        click.echo("\n".join(render(result)))
+    if strict and result.rejected:
+        raise SystemExit(1)
+
+
+def render(result) -> list[str]:
+    """The text report of an admit, one line per item."""
+    from pathlib import Path
+
+    store = Path(result.store)
+    out = [f"Note: {m}." for m in result.recovered]
+    if result.created:
+        verb = "would create" if result.dry_run else "created"
+        out.append(f"New store: {verb} the store '{store.name}' in {store}.")
+    out.append(f"Read {result.table}: {result.rows_read} rows ({'; '.join(result.reader_notes[1:])}).")
+    if result.mappings:
+        out.append("Columns mapped:")
+        out += [f"  {line}" for line in result.mappings]
+    out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
+               f"{result.rejected}.")
+    would = "would go" if result.dry_run else "went"
+    version = result.version_before + 1
+    out.append(f"  accepted {result.accepted} {would} to {store / result.records_file} "
+               f"(version {version}, {result.row_count_after} rows)")
+    if result.quarantine_file:
+        out.append(f"  rejected {result.rejected} {would} to {store / result.quarantine_file} "
+                   "(each row unchanged, with _reasons and _source_row)")
+    if result.problems_file:
+        out.append(f"  every problem {would} to {store / result.problems_file}")
+    if result.reasons:
+        out.append("Rejected rows by reason (a row may have several):")
+        width = max(len(k) for k in result.reasons)
+        out += [f"  {k:<{width}}  {v}" for k, v in result.reasons.items()]
+        out.append("Rejected rows:")
+        for item in result.rejected_rows[:MAX_LISTED]:
+            pid = f" ({item['profile_id']})" if item["profile_id"] else ""
+            for reason in item["reasons"] or ["rejected"]:
+                out.append(f"  row {item['row']}{pid}: {reason}")
+        if len(result.rejected_rows) > MAX_LISTED:
+            out.append(f"  ... and {len(result.rejected_rows) - MAX_LISTED} more rows; see "
+                       "the quarantine file")
+    if result.warnings:
+        out.append("Warnings (rows admitted anyway; see the problems file):")
+        width = max(len(k) for k in result.warnings)
+        out += [f"  {k:<{width}}  {v}" for k, v in result.warnings.items()]
+    if result.dry_run:
+        out.append("Dry run: nothing was written.")
+    else:
+        out.append(f"Store '{store.name}' is now at version {result.version_after} "
+                   f"({result.row_count_after} rows, records sha256 "
+                   f"{result.records_sha256[:12]}...).")
+    return out
