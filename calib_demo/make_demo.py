@@ -332,7 +332,7 @@ BAD_ROWS = [
     ("negative depth", "range"),
     ("latitude out of range", "range"),
     ("profile_id already in the store", "duplicate-id"),
-    ("same source and coordinates as a store record", "duplicate-location"),
+    ("same source and coordinates as a store record", "duplicate-site"),
     ("measurements identical to a store record", "duplicate-measurements"),
     ("unknown vegetation term", "vocabulary"),
     ("MAR above MAP", "mar-above-map"),
@@ -550,11 +550,13 @@ def build_store(here: Path = HERE) -> str:
     if store.exists():
         shutil.rmtree(store)
     result = admit(here / "base_soils.csv", store, today=ADMITTED_ON)
+    (store / ".lock").unlink(missing_ok=True)  # the lock file of the finished admit
     quarantine = store / "quarantine"
     quarantine.mkdir(exist_ok=True)
     if not any(quarantine.iterdir()):
         (quarantine / ".gitkeep").write_text("", encoding="utf-8")
-    return f"store built: {store.name}/ ({result!r})"
+    return (f"store built: {store.name}/ version {result.version_after}, "
+            f"{result.accepted} records admitted, {result.rejected} rejected")
 
 
 def main() -> int:

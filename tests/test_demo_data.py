@@ -224,22 +224,26 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
     assert result.rows_read == 40 and result.accepted == 26 and result.rejected == 14
     added = after.records.iloc[300:]
     assert after.version == 2 and len(after.records) == 326
-    assert not added["notes"].fillna("").str.startswith("demo: bad row").any()
-    reasons = _quarantine_reasons(store)
+    notes = added["notes"].fillna("")
+    assert (notes == "").sum() == 25 and notes.str.startswith("demo: warning row").sum() == 1
+    assert result.warnings == {"carbonate-in-wet-climate": 1}
+    # inches -> mm by the exact inch (NIST SP 811: 1 in = 25.4 mm): the warning row's 32.99 in
+    warned = added[notes.str.startswith("demo: warning row")].iloc[0]
+    assert warned["map_mm"] == pytest.approx(32.99 * 25.4, abs=1e-9)
+    reasons = _rejected_rules(store / result.quarantine_file, store / result.problems_file)
     for label, rule in gen.BAD_ROWS:
         mine = reasons[reasons["notes"] == "demo: bad row - " + label]
         assert len(mine) >= 1, label
-        assert mine["reasons"].str.contains(rule, regex=False).all(), (label, mine)
+        assert all(r == {rule} for r in mine["rules"]), (label, mine["rules"].to_list())
 
 
-def _quarantine_reasons(store) -> pd.DataFrame:
-    """Rejected rows with their notes and reasons, from the store's quarantine folder."""
-    files = sorted((store / "quarantine").glob("*.csv"))
-    assert files, "no quarantine file written"
-    frame = pd.read_csv(files[-1], dtype=str, keep_default_na=False)
-    notes = next(c for c in frame.columns if c.lower() == "notes")
-    reason = next(c for c in frame.columns if "reason" in c.lower() or "rule" in c.lower())
-    return pd.DataFrame({"notes": frame[notes], "reasons": frame[reason]})
+def _rejected_rules(quarantine, problems) -> pd.DataFrame:
+    """Each quarantined row's Notes cell and the set of error rules the store gave it."""
+    rows = pd.read_csv(quarantine, dtype=str, keep_default_na=False)
+    probs = pd.read_csv(problems, dtype={"row": "Int64"}, keep_default_na=False)
+    errors = probs[probs["severity"] == "error"].groupby("row")["rule"].agg(set)
+    return pd.DataFrame({"notes": rows["Notes"],
+                         "rules": rows["_source_row"].astype(int).map(errors)})
 
 
 # --- recipe and fossils ----------------------------------------------------------------------
