@@ -211,28 +211,36 @@ def vocab_key(term: str) -> str:
 
 
 def match_vocabulary(values: pd.Series, terms: Iterable[str]):
-    """Match text values to a vocabulary.
+    """Match text values to a vocabulary (work is done once per distinct value).
 
     Returns
     -------
     canonical : pandas.Series
-        The vocabulary term for each value (NaN for missing or unknown values).
+        ``values`` with known variants replaced by their vocabulary term.
     variant : pandas.Series of bool
         Known term written in another form (case, separator, plural).
     unknown : pandas.Series of bool
         Value not in the vocabulary in any form.
     """
     terms = set(terms)
-    by_key = {}
+    by_key: dict[str, str] = {}
     for t in sorted(terms):
         by_key.setdefault(vocab_key(t), t)
-    seen = values.dropna().unique()
-    mapping = {v: (v if v in terms else by_key.get(vocab_key(v))) for v in seen}
-    canonical = values.map({k: v for k, v in mapping.items() if v is not None})
-    present = values.notna()
-    unknown = present & canonical.isna()
-    variant = present & ~unknown & (canonical != values)
+    seen = [v for v in values.unique() if isinstance(v, str)]
+    variants = {v: by_key[vocab_key(v)] for v in seen
+                if v not in terms and vocab_key(v) in by_key}
+    unknowns = [v for v in seen if v not in terms and v not in variants]
+    variant = values.isin(list(variants)) if variants else _false(values)
+    unknown = values.isin(unknowns) if unknowns else _false(values)
+    canonical = values
+    if variants:
+        canonical = values.copy()
+        canonical[variant] = values[variant].map(variants)
     return canonical, variant, unknown
+
+
+def _false(values: pd.Series) -> pd.Series:
+    return pd.Series(np.zeros(len(values), dtype=bool), index=values.index)
 
 
 # --- checking ---------------------------------------------------------------------------
@@ -345,7 +353,7 @@ def _prepare(frame: pd.DataFrame, rows: np.ndarray, desc: dict):
         work["profile_id"] = _parse_text(ids, missing_tokens)
         probs.ids = work["profile_id"]
     for name in work.columns:
-        if name not in fields or name == "profile_id":
+        if name not in fields or name in ("profile_id", "notes"):  # notes: free text
             continue
         kind = fields[name].get("type", "string")
         if kind in ("number", "integer"):
@@ -365,8 +373,25 @@ def _parse_text(s: pd.Series, missing_tokens: list[str]) -> pd.Series:
         if (finite == np.floor(finite)).all() and (finite.abs() < 2**53).all():
             return vals.astype("Int64").astype("str")
         return vals.astype("str").where(vals.notna())
-    text = s.astype("str").str.strip()
+    text = s.astype("str")
+    if _few_distinct(text):  # clean the distinct values only (fast for vocabularies)
+        seen = [v for v in text.unique() if isinstance(v, str)]
+        fix = {v: (None if v.strip() in missing_tokens else v.strip()) for v in seen
+               if v.strip() != v or v in missing_tokens}
+        if not fix:
+            return text
+        mask = text.isin(list(fix))
+        text = text.copy()
+        text[mask] = text[mask].map(fix)
+        return text
+    text = text.str.strip()
     return text.where(~text.isin(missing_tokens))
+
+
+def _few_distinct(text: pd.Series, sample: int = 10_000) -> bool:
+    """True when a column looks like a vocabulary (few distinct values in a sample)."""
+    head = text.iloc[:sample]
+    return len(text) > sample and head.nunique() < sample // 20
 
 
 def _parse_number_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
@@ -406,8 +431,9 @@ def _parse_date_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
     if pd.api.types.is_datetime64_any_dtype(s):
         return s.dt.strftime("%Y-%m-%d")
     text = _parse_text(s, missing_tokens)
-    parsed = pd.to_datetime(text, format="%Y-%m-%d", errors="coerce")
-    bad = text.notna() & parsed.isna()
+    seen = pd.Series([v for v in text.unique() if isinstance(v, str)], dtype="str")
+    parsed = pd.to_datetime(seen, format="%Y-%m-%d", errors="coerce")
+    bad = text.isin(seen[parsed.isna().to_numpy()].tolist())
     if bad.any():
         pos = np.flatnonzero(bad.to_numpy())
         vals = text.iloc[pos]
@@ -432,7 +458,7 @@ def _check_vocabularies(work: pd.DataFrame, probs: Problems, vocab: dict) -> Non
             probs.add("warning", "vocabulary-form", pos, name, vals,
                       "'" + vals + f"' in {name} is read as the vocabulary term '"
                       + canon + "'; write '" + canon + "' to silence this warning.")
-            work[name] = values.where(~variant, canonical)
+            work[name] = canonical
         if unknown.any():
             pos = np.flatnonzero(unknown.to_numpy())
             vals = values.iloc[pos]
@@ -450,15 +476,30 @@ def _check_vocabularies(work: pd.DataFrame, probs: Problems, vocab: dict) -> Non
 
 
 def _run_pandera(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
-    """Column rules from the descriptor, via pandera lazy validation."""
+    """Column rules from the descriptor, via pandera lazy validation.
+
+    For speed, two checks whose outcome is already known are dropped at run time (the
+    schema itself keeps them): ``unique`` when a hash count finds no duplicate, and the
+    closed-list ``isin`` checks, which :func:`_check_vocabularies` has already run.
+    """
     import pandera.errors as pe
 
     from refit._problems import translate_failures
 
     schema = _schema.build_schema(desc, columns=work.columns)
-    present = [c for c in schema.columns if c in work.columns]
+    updates = {}
+    for name, col in schema.columns.items():
+        if name not in work.columns:
+            continue
+        if col.unique and pd.Index(work[name]).is_unique:
+            updates.setdefault(name, {})["unique"] = False
+        if any(str(c.name) == "isin" for c in col.checks):
+            updates.setdefault(name, {})["checks"] = [
+                c for c in col.checks if str(c.name) != "isin"]
+    if updates:
+        schema = schema.update_columns(updates)
     try:
-        schema.validate(work[present], lazy=True)
+        schema.validate(work, lazy=True, inplace=True)
     except pe.SchemaErrors as exc:
         translate_failures(exc.failure_cases, work, probs, _schema.fields(desc))
 
@@ -515,7 +556,10 @@ def _check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
     if not oxides:
         return
     limit = float(_schema.refit_rules(desc).get("oxide_total_max_wt", 101.0))
-    total = work[oxides].sum(axis=1, min_count=1)
+    total = np.zeros(len(work))
+    for c in oxides:
+        total += np.nan_to_num(work[c].to_numpy(dtype="float64"), nan=0.0)
+    total = pd.Series(total, index=work.index)
     pos = np.flatnonzero((total > limit).to_numpy())
     if len(pos):
         probs.add("error", "oxide-total", pos, "+".join(oxides),
