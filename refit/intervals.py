@@ -139,11 +139,16 @@ def _one_blas_thread(func):
     where extra threads gain nothing and, on a busy machine, spin-wait for milliseconds."""
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
-        from threadpoolctl import threadpool_limits  # a scikit-learn dependency
-
-        with threadpool_limits(limits=1, user_api="blas"):
+        with _blas_controller().limit(limits=1, user_api="blas"):
             return func(*args, **kwargs)
     return wrapper
+
+
+@functools.cache
+def _blas_controller():
+    from threadpoolctl import ThreadpoolController  # a scikit-learn dependency
+
+    return ThreadpoolController()
 
 
 def _qr(X: np.ndarray, who: str) -> tuple[np.ndarray, np.ndarray]:
@@ -488,7 +493,7 @@ def split_conformal(X, y, x0, *, level=0.95, seed=0, calib_fraction=0.5) -> Pred
     est = x0 @ b
     return PredictionInterval(est, est - q, est + q, {
         "method": "split-conformal", "level": float(level), "seed": seed,
-        "n_train": int(n - n_cal), "n_calib": n_cal, "quantile": q,
+        "n_train": int(n - n_cal), "n_calib": n_cal, "quantile": q, "calib_rows": cal,
         "unbounded": bool(np.isinf(q))})
 
 
