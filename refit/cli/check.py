@@ -1,11 +1,123 @@
-"""`refit check` (being written this session; owner replaces this module)."""
+"""`refit check`: validate a table and report every problem at once."""
 
 from __future__ import annotations
 
 import click
 
+from refit.cli._common import guarded, stdout_console
+
+MAX_ROWS_DEFAULT = 50
+
 
 @click.command("check")
-def check() -> None:
-    """Not ready yet."""
-    raise click.ClickException("refit check is not ready yet")
+@click.argument("table", type=click.Path(dir_okay=False, path_type=str))
+@click.option("--kind", type=click.Choice(["calibration", "fossil"]), default="calibration",
+              show_default=True, help="What the table holds.")
+@click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
+              show_default=True, help="text for people, json (one document) for programs.")
+@click.option("--vocab", "vocab_files", multiple=True, type=click.Path(dir_okay=False),
+              metavar="FILE",
+              help='Extra vocabulary terms, a JSON file like {"vegetation": ["new term"]}; '
+                   "repeatable.")
+@click.option("--max-rows", type=click.IntRange(min=0), default=MAX_ROWS_DEFAULT,
+              show_default=True, help="Problems listed per severity in text mode.")
+@click.pass_context
+@guarded
+def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
+    """Check a calibration table (csv, tsv, xlsx or parquet) against refit's schema.
+
+    Every problem is reported at once with its file row, profile_id, column, value,
+    rule and how to fix it; warnings are listed apart from errors, then a count per
+    rule. Column names with another unit or a known synonym are mapped first.
+
+    \b
+    Exit codes: 0 valid (warnings allowed), 1 invalid, 2 unreadable input or usage error.
+
+    \b
+    Examples:
+      refit check calib_demo/incoming_soils.csv
+      refit check soils.xlsx --format json > problems.json
+      refit check soils.csv --vocab my_terms.json
+    """
+    import json
+
+    from refit.checks import check_file, load_vocabularies
+
+    vocab = load_vocabularies(*vocab_files)
+    report = check_file(table, kind=kind, vocabularies=vocab)
+    if fmt == "json":
+        click.echo(json.dumps(report.to_dict(), ensure_ascii=False, indent=1))
+    else:
+        print_report(report, max_rows=max_rows)
+    ctx.exit(0 if report.ok else 1)
+
+
+def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> None:
+    """Print a CheckReport for people: notes, errors, warnings, summary, verdict."""
+    from rich.text import Text
+
+    console = console or stdout_console()
+    console.print(Text(f"Checked {report.path}: {report.n_rows} rows", style="bold"))
+    for note in report.notes:
+        console.print(Text(f"  - {note}", style="dim"))
+    for severity, frame, style in (("errors", report.errors, "red"),
+                                   ("warnings", report.warnings, "yellow")):
+        if len(frame):
+            _problem_table(console, frame, severity, style, max_rows)
+    if len(report.problems):
+        _summary_table(console, report.summary())
+    n_err, n_warn = len(report.errors), len(report.warnings)
+    if report.ok:
+        verdict = Text(f"VALID: no errors, {n_warn} warning(s).", style="bold green")
+    else:
+        verdict = Text(f"INVALID: {n_err} error(s) in {len(report.bad_rows())} row(s) "
+                       f"and {len(report.table_errors())} about the whole table; "
+                       f"{n_warn} warning(s).", style="bold red")
+    console.print(verdict)
+
+
+def _problem_table(console, frame, title, style, max_rows) -> None:
+    """One entry per problem: a line locating it, then the reason and fix, indented.
+
+    (A list rather than a grid: the reasons are sentences and stay readable in a narrow
+    terminal or a log file.)
+    """
+    from rich.padding import Padding
+    from rich.text import Text
+
+    console.print(Text(f"{len(frame)} {title}", style=f"bold {style}"))
+    shown = frame.head(max_rows)
+    for rec in shown.itertuples(index=False):
+        where = Text("  ")
+        where.append(f"row {_text(rec.row)}" if _text(rec.row) else "table", style="bold")
+        if _text(rec.profile_id):
+            where.append(f"  profile_id {rec.profile_id}")
+        where.append(f"  {rec.column}")
+        if _text(rec.value):
+            where.append(f" = {rec.value!r}")
+        where.append(f"  [{rec.rule}]", style=style)
+        console.print(where)
+        console.print(Padding(Text(_text(rec.message)), (0, 0, 0, 4)), soft_wrap=False)
+    if len(frame) > len(shown):
+        console.print(Text(f"... {len(frame) - len(shown)} more {title} "
+                           "(use --format json for all)", style=style))
+    console.print()
+
+
+def _text(value) -> str:
+    import pandas as pd
+
+    return "" if value is None or pd.isna(value) else str(value)
+
+
+def _summary_table(console, summary) -> None:
+    from rich.table import Table
+    from rich.text import Text
+
+    table = Table(title="summary per rule", title_justify="left", title_style="bold")
+    table.add_column("rule")
+    table.add_column("severity")
+    table.add_column("count", justify="right")
+    for rule, severity, count in summary.itertuples(index=False):
+        table.add_row(Text(rule), Text(severity), Text(str(count)))
+    console.print(table)
