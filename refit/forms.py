@@ -84,7 +84,7 @@ class Form:
         if x.ndim == 1:
             x = x[:, None]
         n, k = x.shape
-        out = np.empty((n, self.n_params))
+        out = np.empty((n, self.n_params), order="F")  # columns contiguous: fast
         j = 0
         if not self.through_origin:
             out[:, 0] = 1.0

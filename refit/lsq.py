@@ -57,8 +57,10 @@ class LSQFactor:
 
     Attributes
     ----------
-    r : ndarray, shape (q, q)
-        Upper-triangular factor of the centred, scaled, weighted slope terms.
+    r, r_inv : ndarray, shape (q, q)
+        Upper-triangular factor of the centred, scaled, weighted slope terms, and its
+        inverse (q is small: the inverse of the triangular factor is cheap and exact
+        enough; X'X itself is never formed).
     centre, scale : ndarray, shape (q,)
         Column means (weighted) and norms used for centring and scaling.
     sum_weights : float
@@ -68,6 +70,7 @@ class LSQFactor:
     """
 
     r: np.ndarray
+    r_inv: np.ndarray
     centre: np.ndarray
     scale: np.ndarray
     sum_weights: float
@@ -86,16 +89,35 @@ class LSQFactor:
         ndarray, shape (m,)
             Multiply by the residual variance to get the variance of the fitted mean.
         """
-        from scipy.linalg import solve_triangular
-
         x0 = np.atleast_2d(np.asarray(x0, dtype=float))
         slopes = x0[:, 1:] if self.intercept else x0
-        z0 = (slopes - self.centre) / self.scale
-        v = solve_triangular(self.r, z0.T, trans="T", lower=False, check_finite=False)
-        out = np.einsum("ij,ij->j", v, v)
+        # (z0 R^-1) row by row: R^-1 is q x q, so this is one small matrix product
+        with _few_threads():
+            v = ((slopes - self.centre) / self.scale) @ self.r_inv
+        out = np.einsum("ij,ij->i", v, v)
         if self.intercept:
             out = out + 1.0 / self.sum_weights
         return out
+
+
+_CONTROLLER = []
+
+
+def _few_threads():
+    """Context that runs BLAS single-threaded (tall, narrow designs gain nothing from
+    threads, and on a busy machine thread hand-offs cost more than the work)."""
+    import contextlib
+
+    if not _CONTROLLER:
+        try:
+            import scipy.linalg  # noqa: F401  (load its BLAS before taking stock)
+            from threadpoolctl import ThreadpoolController
+
+            _CONTROLLER.append(ThreadpoolController())
+        except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
+            _CONTROLLER.append(None)
+    ctl = _CONTROLLER[0]
+    return contextlib.nullcontext() if ctl is None else ctl.limit(limits=1, user_api="blas")
 
 
 def _column_names(p: int, names) -> list[str]:
@@ -104,6 +126,7 @@ def _column_names(p: int, names) -> list[str]:
 
 def _centre_scale(x: np.ndarray, w: np.ndarray | None, intercept: bool):
     """Centre (weighted mean, two passes for accuracy) and scale columns to unit norm."""
+    x = np.asfortranarray(x)
     if intercept:
         if w is None:
             centre = x.mean(axis=0)
@@ -183,10 +206,14 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
     terms (Longley, Pontius). Reliability is judged by the log relative error (LRE) against
     the NIST StRD certified values (McCullough 1998, The American Statistician 52:358).
     """
+    with _few_threads():
+        return _solve(np.asarray(x, dtype=float), np.asarray(y, dtype=float), weights,
+                      intercept, names, rank_tol)
+
+
+def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
     from .errors import InvalidDataError
 
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
     n, p = x.shape
     names = _column_names(p, names)
     w = None if weights is None else np.asarray(weights, dtype=float)
@@ -210,7 +237,9 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
                                "cannot be estimated: drop it or choose rows where it varies")
     if q_dim:
         zs = z / scale
-        qmat, r = np.linalg.qr(zs, mode="reduced")
+        from scipy.linalg import qr
+
+        qmat, r = qr(zs, mode="economic", check_finite=False)
         sv = np.linalg.svd(r, compute_uv=False)
         tol = rank_tol if rank_tol is not None else max(n, p) * 1e3 * np.finfo(float).eps
         if sv[-1] <= tol * sv[0]:
@@ -227,7 +256,7 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
         b_slopes = bz / scale
         cov_slopes = cov_z / np.outer(scale, scale)
     else:  # intercept-only model
-        qmat, r = np.zeros((n, 0)), np.zeros((0, 0))
+        qmat, r, rinv = np.zeros((n, 0)), np.zeros((0, 0)), np.zeros((0, 0))
         cond, resid_z = 1.0, yz
         b_slopes, cov_slopes = np.zeros(0), np.zeros((0, 0))
     df = n - p
@@ -248,7 +277,8 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
     cov = cov * s2
     resid = resid_z if sqw is None else resid_z / sqw
     fitted = y - resid
-    factor = LSQFactor(r=r, centre=centre, scale=scale, sum_weights=sw, intercept=intercept)
+    factor = LSQFactor(r=r, r_inv=rinv, centre=centre, scale=scale, sum_weights=sw,
+                       intercept=intercept)
     details = {"condition_number": cond, "r_squared": 1.0 - rss / tss if tss > 0 else np.nan,
                "rss": rss, "tss": tss, "factor": factor, "q": qmat, "method": "qr"}
     return EstimatorResult(coefficients=coef, covariance=cov,
