@@ -13,18 +13,21 @@ Run from the repository root::
 
 Every random draw comes from ``numpy.random.default_rng`` with a fixed seed, so a rerun
 rewrites the same bytes. Files written beside this script: ``base_soils.csv``,
-``incoming_soils.csv``, ``fossils.csv``, ``recipe.toml`` and, when ``refit.store`` is
-available, the store ``store/`` built from ``base_soils.csv`` by ``refit.store.admit``.
+``incoming_soils.csv``, ``fossils.csv`` and the store ``store/``, built from
+``base_soils.csv`` by refit's own ``refit.store.admit``. ``recipe.toml`` is written by hand.
 """
 
 from __future__ import annotations
 
+import json
 import shutil
 import sys
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from refit._resources import schemas_dir
 
 
 SEED = 20261201
@@ -42,8 +45,8 @@ REGIONS = {
         code="LP", lon=(53.0, 54.2), map=(360, 880), elev=(380, 800), n=76,
         parents={"loess": .75, "alluvium": .15, "colluvium": .1},
         sources=["VBSS-2008", "CLPT-2013", "VBSS-2022"]),
-    "Orrin Piedmont": dict(
-        code="OP", lon=(54.2, 55.0), map=(620, 1120), elev=(650, 1100), n=46,
+    "Brasketh Piedmont": dict(
+        code="BP", lon=(54.2, 55.0), map=(620, 1120), elev=(650, 1100), n=46,
         parents={"alluvium": .35, "colluvium": .2, "loess": .25, "shale": .2},
         sources=["PFP-2019", "VBSS-2022"]),
     "Tolmarch Uplands": dict(
@@ -52,8 +55,8 @@ REGIONS = {
         sources=["TUGP-2016", "PFP-2019"]),
 }
 # Regional offset of the Bk top [cm] (dust supply, texture): invented.
-REGION_OFFSET_CM = {"Veskaran Flats": 6.0, "Central Loess Plain": -6.0, "Orrin Piedmont": 14.0,
-                    "Tolmarch Uplands": -12.0, "Ostrel Reach": 4.0}
+REGION_OFFSET_CM = {"Veskaran Flats": 6.0, "Central Loess Plain": -6.0,
+                    "Brasketh Piedmont": 14.0, "Tolmarch Uplands": -12.0, "Ostrel Reach": 4.0}
 LAT_BOX = (-41.5, -39.0)
 
 # Invented sequences: each is one study holding the other state factors constant.
@@ -75,20 +78,16 @@ SEQUENCES = [
          vegetation="grassland", parent_material="loess", landform="catena",
          slope=(0.5, 18.0), age=(18, 22)),
     dict(sequence_id="PFP-TERRACE-CHRONO", sequence_kind="chronosequence", n=7,
-         region="Orrin Piedmont", source="PFP-2019", map=(680, 700),
+         region="Brasketh Piedmont", source="PFP-2019", map=(680, 700),
          vegetation="grassland", parent_material="alluvium", landform="river terrace",
          slope=(0.5, 2.0), age=(0.5, 130)),
 ]
 
 
-CANONICAL = [
-    "profile_id", "latitude", "longitude", "source", "map_mm", "mat_c", "mar_mm",
-    "bk_depth_cm", "bk_thickness_cm", "by_depth_cm", "sio2_wt", "tio2_wt", "al2o3_wt",
-    "fe2o3_wt", "mno_wt", "mgo_wt", "cao_wt", "na2o_wt", "k2o_wt", "p2o5_wt", "vegetation",
-    "parent_material", "landform", "slope_deg", "age_ka", "soil_order", "elevation_m",
-    "sequence_id", "sequence_kind", "notes",
-]
-OXIDES = CANONICAL[10:20]
+# The canonical columns, in order, from refit's schema (the single source of the names).
+CANONICAL = [f["name"] for f in json.loads(
+    (schemas_dir() / "calibration.table.json").read_text(encoding="utf-8"))["fields"]]
+OXIDES = [c for c in CANONICAL if c.endswith("_wt")]
 MOLAR_MASS = {"al2o3_wt": 101.96, "cao_wt": 56.08, "na2o_wt": 61.98}  # [g/mol]
 
 # How each survey placed the top of the Bk [cm] (describers differ) and which analysed
@@ -159,7 +158,7 @@ def draw_region_sites(name: str, spec: dict, lat_box: tuple,
         "vegetation": vegetation_for(map_mm, rng), "parent_material": parents,
         "landform": landform, "slope_deg": slope,
         "age_ka": np.clip(rng.lognormal(np.log(20), 0.8, n), 0.8, 300),
-        "sequence_id": "", "sequence_kind": "", "notes": "",
+        "sequence_id": "", "sequence_kind": "", "notes": "", "mat_sd": 0.7,
     })
 
 
@@ -195,8 +194,8 @@ def add_soil_properties(sites: pd.DataFrame, rng: np.random.Generator) -> pd.Dat
     """Climate details, carbonate and gypsum horizons, soil order and oxides of each site."""
     soils = sites.copy()
     n, map_mm, age = len(soils), soils["map_mm"].to_numpy(), soils["age_ka"].to_numpy()
-    mat_sd = soils["mat_sd"].fillna(0.7).to_numpy() if "mat_sd" in soils else 0.7  # [degC]
-    mat = np.clip(22.8 - 0.0078 * soils["elevation_m"].to_numpy() + rng.normal(0, mat_sd), 8, 22)
+    lapse = 22.8 - 0.0078 * soils["elevation_m"].to_numpy()  # [degC]
+    mat = np.clip(lapse + rng.normal(0, soils["mat_sd"].to_numpy()), 8, 22)
     mar = map_mm * np.clip(0.30 - 0.00015 * map_mm + rng.normal(0, 0.03, n), 0.05, 0.4)
     offset = (soils["region"].map(lambda r: REGION_OFFSET_CM.get(r, 0.0))
               + soils["source"].map(lambda s: SOURCE_OFFSET_CM.get(s, 0.0))).to_numpy()
@@ -309,40 +308,43 @@ INCOMING_TITLE = f"{CAMPAIGN} - depths in inches, MAP in inches, MAT in degF"
 INCOMING_REGION = dict(code="OR", lon=(53.4, 54.8), map=(240, 1300), elev=(300, 1000),
                        n=40, parents={"loess": .6, "alluvium": .25, "colluvium": .15},
                        sources=[CAMPAIGN_SOURCE])
-SPREADSHEET = {  # canonical column -> (spreadsheet header, factor from canonical, digits)
-    "profile_id": ("Profile ID", None, None), "latitude": ("Lat", None, None),
-    "longitude": ("Long", None, None), "source": ("Source", None, None),
-    "region": ("region", None, None), "map_mm": ("MAP (in)", 1 / 25.4, 2),
-    "mat_c": ("MAT (°F)", "degF", 1), "mar_mm": ("MAR (in)", 1 / 25.4, 2),
-    "bk_depth_cm": ("Depth to Bk (in)", 1 / 2.54, 1),
-    "bk_thickness_cm": ("Bk thickness (in)", 1 / 2.54, 1),
-    "by_depth_cm": ("Depth to By (in)", 1 / 2.54, 1),
-    **{ox: (f"{name} (wt%)", None, None) for ox, name in zip(OXIDES, [
-        "SiO2", "TiO2", "Al2O3", "Fe2O3", "MnO", "MgO", "CaO", "Na2O", "K2O", "P2O5"])},
-    "vegetation": ("Vegetation", None, None), "parent_material": ("Parent material", None, None),
-    "landform": ("Landform", None, None), "slope_deg": ("Slope (deg)", None, None),
-    "age_ka": ("Age (ka)", None, None), "soil_order": ("Soil order", None, None),
-    "elevation_m": ("Elevation (m)", None, None), "notes": ("Notes", None, None),
+SHEET_HEADERS = {  # canonical column -> the campaign's header (refit.units maps them back)
+    "profile_id": "Profile ID", "latitude": "Lat", "longitude": "Long", "source": "Source",
+    "region": "region", "map_mm": "MAP (in)", "mat_c": "MAT (°F)", "mar_mm": "MAR (in)",
+    "bk_depth_cm": "Depth to Bk (in)", "bk_thickness_cm": "Bk thickness (in)",
+    "by_depth_cm": "Depth to By (in)",
+    **{f"{f.lower()}_wt": f"{f} (wt%)" for f in "SiO2 TiO2 Al2O3 Fe2O3 MnO MgO CaO Na2O K2O "
+       "P2O5".split()},
+    "vegetation": "Vegetation", "parent_material": "Parent material", "landform": "Landform",
+    "slope_deg": "Slope (deg)", "age_ka": "Age (ka)", "soil_order": "Soil order",
+    "elevation_m": "Elevation (m)", "notes": "Notes",
 }
-# Each deliberately bad row: (label in the Notes column, rule the check or admit reports).
-BAD_ROWS = [
-    ("text in a numeric column", "not-a-number"),
-    ("empty required value (source)", "required-value"),
-    ("infinity in a numeric column", "not-finite"),
-    ("negative depth", "range"),
-    ("latitude out of range", "range"),
-    ("profile_id already in the store", "duplicate-id"),
-    ("same source and coordinates as a store record", "duplicate-site"),
-    ("measurements identical to a store record", "duplicate-measurements"),
-    ("unknown vegetation term", "vocabulary"),
-    ("MAR above MAP", "mar-above-map"),
-    ("Bk depth without a Bk thickness", "bk-depth-without-thickness"),
-    ("oxide total above 101 wt%", "oxide-total"),
-    ("duplicated id within the file (both copies)", "unique-id"),
-]
+SHEET_UNITS = {  # canonical column -> (factor from the canonical unit or "degF", digits kept)
+    "map_mm": (1 / 25.4, 2), "mar_mm": (1 / 25.4, 2), "mat_c": ("degF", 1),
+    "bk_depth_cm": (1 / 2.54, 1), "bk_thickness_cm": (1 / 2.54, 1), "by_depth_cm": (1 / 2.54, 1),
+}
 STORE_ID_REUSED = "LP-042"  # an id the store already holds
 STORE_PLACE = "LP-025"      # a store record whose source and coordinates are reused
 STORE_TWIN = "LP-003"       # a store record (with a Bk and oxides) whose measurements are copied
+# Each deliberately bad row: label in its Notes cell, the rule check or admit reports, and
+# what is changed in an otherwise valid row (canonical units; "place"/"twin": see _bad_rows).
+BAD_ROWS = [
+    ("text in a numeric column", "not-a-number", {"map_mm": "about 19"}),
+    ("empty required value (source)", "required-value", {"source": ""}),
+    ("infinity in a numeric column", "not-finite", {"mat_c": "inf"}),
+    ("negative depth", "range", {"bk_depth_cm": -10.16, "bk_thickness_cm": 50.8}),
+    ("latitude out of range", "range", {"latitude": -94.2}),
+    ("profile_id already in the store", "duplicate-id", {"profile_id": STORE_ID_REUSED}),
+    ("same source and coordinates as a store record", "duplicate-site", "place"),
+    ("measurements identical to a store record", "duplicate-measurements", "twin"),
+    ("unknown vegetation term", "vocabulary", {"vegetation": "alpine meadow"}),
+    ("MAR above MAP", "mar-above-map", {"mar_mm": 760.0}),
+    ("Bk depth without a Bk thickness", "bk-depth-without-thickness",
+     {"bk_depth_cm": 40.64, "bk_thickness_cm": np.nan}),
+    ("oxide total above 101 wt%", "oxide-total",
+     dict(zip(OXIDES, [72.4, 1.1, 17.8, 6.2, 0.12, 1.9, 2.1, 1.6, 2.4, 0.2]))),
+    ("duplicated id within the file (both copies)", "unique-id", {"profile_id": "OST25-DUP"}),
+]
 WARNING_ROW = ("Bk horizon above 760 mm MAP (warning only, admitted)",
                "carbonate-in-wet-climate")
 
@@ -379,42 +381,17 @@ def make_incoming(base: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
 def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:
     """Break one thing in each valid row (and add the second copy of the duplicate id)."""
     by_id = base.set_index("profile_id", drop=False)
-    twin_of, same_place = by_id.loc[STORE_TWIN], by_id.loc[STORE_PLACE]
+    measured = [c for c in base.columns if c not in
+                ("profile_id", "latitude", "longitude", "source", "notes", "region")]
+    from_store = {"place": by_id.loc[STORE_PLACE, ["source", "latitude", "longitude"]],
+                  "twin": by_id.loc[STORE_TWIN, measured]}
     out = []
-    for row, (label, _) in zip(rows, BAD_ROWS):
+    for row, (label, _, change) in zip(rows, BAD_ROWS):
         row = row.copy()
+        changes = from_store[change] if isinstance(change, str) else pd.Series(change)
+        row[changes.index] = changes.to_list()
         row["notes"] = "demo: bad row - " + label
-        if label.startswith("text"):
-            row["map_mm"] = "about 19"
-        elif label.startswith("empty"):
-            row["source"] = ""
-        elif label.startswith("infinity"):
-            row["mat_c"] = "inf"
-        elif label.startswith("negative"):
-            row[["bk_depth_cm", "bk_thickness_cm"]] = [-10.16, 50.8]
-        elif label.startswith("latitude"):
-            row["latitude"] = -94.2
-        elif label.startswith("profile_id"):
-            row["profile_id"] = STORE_ID_REUSED
-        elif label.startswith("same source"):
-            row[["source", "latitude", "longitude"]] = same_place[
-                ["source", "latitude", "longitude"]].to_list()
-        elif label.startswith("measurements"):
-            copied = [c for c in row.index if c in twin_of.index and c not in
-                      ("profile_id", "latitude", "longitude", "source", "notes", "region")]
-            row[copied] = twin_of[copied].to_list()
-        elif label.startswith("unknown"):
-            row["vegetation"] = "alpine meadow"
-        elif label.startswith("MAR"):
-            row["mar_mm"] = round(row["map_mm"] * 1.15)
-        elif label.startswith("Bk depth"):
-            row[["bk_depth_cm", "bk_thickness_cm"]] = [40.64, np.nan]
-        elif label.startswith("oxide"):
-            row[OXIDES] = [72.4, 1.1, 17.8, 6.2, 0.12, 1.9, 2.1, 1.6, 2.4, 0.2]
-        elif label.startswith("duplicated"):
-            row["profile_id"] = "OST25-DUP"
-            out.append(row.copy())
-        out.append(row)
+        out += [row, row.copy()] if label.startswith("duplicated") else [row]
     return out
 
 
@@ -426,9 +403,10 @@ def to_spreadsheet(table: pd.DataFrame) -> pd.DataFrame:
     """
     exact = table["notes"].str.contains("identical", na=False).to_numpy()
     sheet = {}
-    for col, (header, factor, digits) in SPREADSHEET.items():
-        values = table[col] if col in table.columns else pd.Series("", index=table.index)
-        if factor is not None:
+    for col, header in SHEET_HEADERS.items():
+        values = table[col]
+        if col in SHEET_UNITS:
+            factor, digits = SHEET_UNITS[col]
             values = pd.Series([_convert(v, factor, None if keep else digits)
                                 for v, keep in zip(values, exact)], index=table.index,
                                dtype=object)
@@ -450,81 +428,51 @@ def write_incoming(sheet: pd.DataFrame, path: Path) -> None:
     path.write_bytes(("\ufeff" + INCOMING_TITLE + "\n" + body).encode("utf-8"))
 
 
+FOSSIL_SECTIONS = [("Murrenhal Bluff", "MB", 7, 2.4), ("Coldstave Gorge", "CG", 5, 1.6)]
+
+
 def make_fossils(seed: int = SEED) -> pd.DataFrame:
-    """Twelve invented paleosols from two invented measured sections."""
+    """Twelve invented paleosols of two measured sections (compacted depths, burial depth).
+
+    Levels [m] are measured up from the base of each section, so burial depth [km]
+    decreases upwards; shallow Bk horizons (< 45 cm) mark dry Aridisols with a By below.
+    """
     rng = rng_for("fossils", seed)
-    rows = []
-    for section, prefix, n, base_km in [("Murrenhal Bluff", "MB", 7, 2.4),
-                                        ("Coldstave Gorge", "CG", 5, 1.6)]:
-        levels = np.sort(rng.uniform(5, 180, n))
-        for k, level in enumerate(levels, start=1):
-            depth = rng.uniform(25, 140)
-            dry = depth < 45
-            row = dict(
-                paleosol_id=f"{prefix}-P{k:02d}", section=section, level_m=round(level, 1),
-                bk_depth_cm=round(depth), bk_depth_sd_cm=round(rng.uniform(4, 15)),
-                bk_thickness_cm=round(rng.uniform(20, 90)),
-                bk_thickness_sd_cm=round(rng.uniform(4, 12)),
-                by_depth_cm=round(depth + rng.uniform(60, 110)) if dry else np.nan,
-                burial_depth_km=round(base_km - level / 1000 * rng.uniform(0.9, 1.1), 2),
-                soil_order="Aridisols" if dry else str(rng.choice(["Mollisols", "Alfisols",
-                                                                   "Vertisols"], p=[.6, .2, .2])),
-                vegetation="shrubland" if dry else "grassland",
-                parent_material=str(rng.choice(["loess", "alluvium"], p=[.7, .3])),
-                notes="",
-            )
-            rows.append(row)
-    fossils = pd.DataFrame(rows)
-    fossils = as_whole_numbers(_fossil_oxides(fossils, rng), ["by_depth_cm"])
-    fossils.loc[fossils["soil_order"] == "Vertisols", "notes"] = "slickensides; check Vertisol caveats"
+    parts = []
+    for section, prefix, n, base_km in FOSSIL_SECTIONS:
+        level = np.round(np.sort(rng.uniform(5, 180, n)), 1)
+        depth = np.round(rng.uniform(25, 140, n))
+        dry = depth < 45
+        parts.append(pd.DataFrame({
+            "paleosol_id": [f"{prefix}-P{k:02d}" for k in range(1, n + 1)],
+            "section": section, "level_m": level, "bk_depth_cm": depth,
+            "bk_depth_sd_cm": np.round(rng.uniform(4, 15, n)),
+            "bk_thickness_cm": np.round(rng.uniform(20, 90, n)),
+            "bk_thickness_sd_cm": np.round(rng.uniform(4, 12, n)),
+            "by_depth_cm": np.where(dry, depth + np.round(rng.uniform(60, 110, n)), np.nan),
+            "burial_depth_km": np.round(base_km - level / 1000 * rng.uniform(0.9, 1.1, n), 2),
+            "soil_order": np.where(dry, "Aridisols", rng.choice(
+                ["Mollisols", "Alfisols", "Vertisols"], n, p=[.6, .2, .2])),
+            "vegetation": np.where(dry, "shrubland", "grassland"),
+            "parent_material": rng.choice(["loess", "alluvium"], n, p=[.7, .3]),
+        }))
+    fossils = pd.concat(parts, ignore_index=True)
+    fossils = as_whole_numbers(fossils, ["bk_depth_cm", "bk_depth_sd_cm", "bk_thickness_cm",
+                                         "bk_thickness_sd_cm", "by_depth_cm"])
+    fossils = _fossil_oxides(fossils, rng)
+    fossils["notes"] = np.where(fossils["soil_order"] == "Vertisols",
+                                "slickensides; check Vertisol caveats", "")
     return fossils
 
 
 def _fossil_oxides(fossils: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
     """Whole-rock B-horizon oxides for every other paleosol (the rest were not analysed)."""
     analysed = np.arange(len(fossils)) % 2 == 0
-    cia_k = 55 + 0.2 * fossils["bk_depth_cm"].to_numpy() + rng.normal(0, 3, len(fossils))
+    cia_k = 55 + 0.2 * fossils["bk_depth_cm"].to_numpy(float) + rng.normal(0, 3, len(fossils))
     ox = oxides_for_cia_k(cia_k, np.full(len(fossils), 650.0), rng)
     for name in OXIDES:
         fossils[name] = np.where(analysed, ox[name], np.nan)
-    front = [c for c in fossils.columns if c not in ("notes",)]
-    return fossils[front + ["notes"]]
-
-
-RECIPE = """\
-# Recipe for the fitting issues, on the invented demo store (see README.md).
-# Depth to the Bk horizon -> mean annual precipitation, refitted on loess soils under
-# open vegetation that are old enough for the Bk depth to have settled.
-
-[data]
-store = "store"
-
-[subset]
-vegetation = ["grassland", "shrubland", "savanna"]
-parent_material = "loess"
-age_ka = { min = 5 }
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols", "huber", "theil-sen"]
-directions = ["inverse", "forward"]
-
-[validation]
-scheme = "group-kfold"
-folds = 5
-repeats = 1
-groups = "source"
-seed = 20261201
-
-[intervals]
-level = 0.95
-methods = ["analytic", "split-conformal", "jackknife+"]
-"""
+    return fossils
 
 
 def generate(seed: int = SEED) -> dict[str, pd.DataFrame]:
@@ -564,7 +512,6 @@ def main() -> int:
     write_csv(tables["base_soils"], HERE / "base_soils.csv")
     write_incoming(tables["incoming_soils"], HERE / "incoming_soils.csv")
     write_csv(tables["fossils"], HERE / "fossils.csv")
-    (HERE / "recipe.toml").write_bytes(RECIPE.encode("utf-8"))
     for name, frame in tables.items():
         print(f"{name}: {len(frame)} rows")
     print(build_store())
