@@ -320,3 +320,80 @@ def test_numeric_profile_ids_become_text():
 def test_fossil_kind_is_a_usage_error():
     with pytest.raises(UsageError, match="apply issue"):
         check_frame(base(), kind="fossil")
+
+
+# --- sequences (thresholds are common practice, see refit/sequences.py) -------------------
+
+def sequence_frame(kind: str, n: int = 4) -> pd.DataFrame:
+    frame = base(n)
+    frame["sequence_id"] = "S1"
+    frame["sequence_kind"] = kind
+    return frame
+
+
+def seq_warnings(report, rule="sequence-factor-varies"):
+    got = only(report, rule)
+    assert got["row"].isna().all() and got["severity"].eq("warning").all()
+    return list(zip(got["column"], got["value"]))
+
+
+def test_clean_climosequence_has_no_warning():
+    # MAP varies 300..700 mm along it; everything else is held constant
+    report = check_frame(sequence_frame("climosequence"))
+    assert report.problems.empty
+
+
+def test_climosequence_with_varying_vegetation_and_age():
+    frame = sequence_frame("climosequence")
+    frame.loc[3, "vegetation"] = "woodland"
+    frame.loc[2, "age_ka"] = 25.0  # 10 and 25 ka: more than twice the youngest
+    report = check_frame(frame)
+    assert seq_warnings(report) == [("vegetation", "grassland, woodland"),
+                                    ("age_ka", "10 to 25 ka over 4 profiles")]
+    message = only(report, "sequence-factor-varies")["message"].iloc[0]
+    assert "'S1'" in message and "climosequence" in message
+    assert report.ok
+
+
+def test_age_within_a_factor_of_two_is_held_constant():
+    frame = sequence_frame("climosequence")
+    frame.loc[2, "age_ka"] = 19.0
+    assert check_frame(frame).problems.empty
+
+
+def test_biosequence_with_a_wide_rainfall_range():
+    frame = sequence_frame("biosequence")
+    frame["vegetation"] = ["grassland", "savanna", "woodland", "forest"]
+    report = check_frame(frame)
+    assert seq_warnings(report) == [("map_mm", "300 to 700 mm over 4 profiles")]
+
+
+def test_biosequence_within_200_mm_is_held_constant():
+    frame = sequence_frame("biosequence")
+    frame["vegetation"] = ["grassland", "savanna", "woodland", "forest"]
+    frame["map_mm"] = [500.0, 550.0, 600.0, 700.0]
+    assert check_frame(frame).problems.empty
+
+
+def test_sequence_whose_own_factor_does_not_vary():
+    frame = sequence_frame("lithosequence")
+    frame["map_mm"] = 500.0
+    report = check_frame(frame)
+    assert seq_warnings(report, "sequence-factor-constant") == [("parent_material", "")]
+
+
+def test_sequence_mixing_kinds_and_without_kind():
+    frame = sequence_frame("climosequence")
+    frame.loc[3, "sequence_kind"] = "toposequence"
+    frame.loc[0, "sequence_id"] = "S0"
+    frame.loc[0, "sequence_kind"] = None
+    report = check_frame(frame)
+    assert seq_warnings(report, "sequence-mixed-kinds") == [
+        ("sequence_kind", "climosequence, toposequence")]
+    assert "'S0'" in only(report, "sequence-kind-missing")["message"].iloc[0]
+
+
+def test_sequence_kind_without_id_is_a_row_warning():
+    frame = base()
+    frame["sequence_kind"] = [None, "chronosequence", None, None]
+    assert cells(check_frame(frame), "sequence-id-missing") == [(3, "sequence_id", "")]
