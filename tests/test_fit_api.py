@@ -233,3 +233,71 @@ def test_bad_predict_arguments(kwargs, pattern):
         f.predict([1.0], **kwargs)
     with pytest.raises(InvalidDataError, match="not a number"):
         f.predict(["abc"])
+
+
+# ----------------------------------------------------------------------------- estimators
+STACKLOSS = pd.DataFrame({  # R datasets::stackloss (Brownlee 1965), from memory; it
+    # reproduces the R MASS::rlm values below, which the reference notes confirm
+    "air": [80, 80, 75, 62, 62, 62, 62, 62, 58, 58, 58, 58, 58, 58, 50, 50, 50, 50, 50, 56, 70],
+    "water": [27, 27, 25, 24, 22, 23, 24, 24, 23, 18, 18, 17, 18, 19, 18, 18, 19, 19, 20, 20,
+              20],
+    "acid": [89, 88, 90, 87, 87, 87, 93, 93, 87, 80, 89, 88, 82, 93, 89, 86, 72, 79, 80, 82,
+             91],
+    "loss": [42, 37, 37, 28, 18, 18, 19, 20, 15, 14, 14, 13, 11, 12, 8, 7, 8, 8, 9, 15, 15],
+})
+
+
+def test_huber_through_fit_matches_r_mass_rlm():
+    # R MASS::rlm stack-loss Huber fit (k = 1.345, MAD scale), as stored in statsmodels'
+    # robust/tests/results/results_rlm.py (class Huber): rtol 1e-3, rlm's own tolerance.
+    f = fit(STACKLOSS, response="loss", predictors=["air", "water", "acid"],
+            estimator="huber")
+    np.testing.assert_allclose(f.coefficients[["air", "water", "acid", "intercept"]],
+                               [0.82937387, 0.92610818, -0.12784916, -41.02653105], rtol=1e-3)
+    assert f.residual_std_error == pytest.approx(2.4407137948148447, rel=1e-3)
+    p = f.predict(STACKLOSS[["air", "water", "acid"]].iloc[[0]])
+    assert p.lower[0] < p.estimate[0] < p.upper[0]
+
+
+def test_theil_sen_through_fit_matches_sen_1968_example():
+    # Sen (1968) example as in scipy's theilslopes tests: slope 4.0; intercept 6.0 with
+    # the 'joint' convention (median of y - b x), refit's default.
+    d = pd.DataFrame({"x": [1, 2, 3, 4, 10, 12, 18], "y": [9, 15, 19, 20, 45, 55, 78]})
+    f = fit(d, response="y", predictors="x", estimator="theil-sen")
+    assert f.coefficients.to_dict() == pytest.approx({"intercept": 6.0, "x": 4.0})
+    with pytest.raises(UsageError, match="no coefficient covariance"):
+        f.predict(5.0)
+    assert f.predict(5.0, interval="none").estimate[0] == pytest.approx(26.0)
+
+
+def test_york_through_fit_matches_pearson_york_benchmark():
+    # Pearson (1901) data with York (1966) weights; Williamson/Reed solution a =
+    # 5.47991022, b = -0.48053341 (kmpfit tutorial table, reference notes 1.5).
+    pytest.importorskip("refit.eiv")
+    wx = np.array([1000, 1000, 500, 800, 200, 80, 60, 20, 1.8, 1])
+    wy = np.array([1, 1.8, 4, 8, 20, 20, 70, 70, 100, 500])
+    d = pd.DataFrame({"x": [0.0, 0.9, 1.8, 2.6, 3.3, 4.4, 5.2, 6.1, 6.5, 7.4],
+                      "y": [5.9, 5.4, 4.4, 4.6, 3.5, 3.7, 2.8, 2.8, 2.4, 1.5],
+                      "sx": 1 / np.sqrt(wx), "sy": 1 / np.sqrt(wy)})
+    f = fit(d, response="y", predictors="x", estimator="york", x_sd="sx", y_sd="sy")
+    assert f.coefficients["intercept"] == pytest.approx(5.47991022, abs=1e-7)
+    assert f.coefficients["x"] == pytest.approx(-0.48053341, abs=1e-7)
+
+
+def test_quantile_curves_match_statsmodels_quantreg():
+    # statsmodels QuantReg at 0.025 / 0.5 / 0.975 is the reference for the curves.
+    pytest.importorskip("refit.quantile")
+    rng = np.random.default_rng(21)
+    x = rng.uniform(0, 10, 200)
+    y = 1 + 2 * x + rng.normal(0, 1 + 0.2 * x)
+    f = fit(pd.DataFrame({"x": x, "y": y}), response="y", predictors="x",
+            estimator="quantile")
+    X = sm.add_constant(x)
+    x0 = sm.add_constant(np.array([2.0, 8.0]))
+    ref = {q: sm.QuantReg(y, X).fit(q=q).params for q in (0.025, 0.5, 0.975)}
+    p = f.predict([2.0, 8.0])
+    np.testing.assert_allclose(p.estimate, x0 @ ref[0.5], rtol=1e-6)
+    np.testing.assert_allclose(p.lower, x0 @ ref[0.025], rtol=1e-6)
+    np.testing.assert_allclose(p.upper, x0 @ ref[0.975], rtol=1e-6)
+    with pytest.raises(UsageError, match="ask for level=0.95"):
+        f.predict([2.0], level=0.9)
