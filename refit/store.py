@@ -262,6 +262,7 @@ def _commit(store_dir: Path, files: dict[str, bytes], info: dict) -> None:
 
 def _move_into_place(store_dir: Path, stage: Path, order: list[str]) -> None:
     """Move staged files over the store's (idempotent), then remove the staging folder."""
+    (store_dir / "quarantine").mkdir(exist_ok=True)
     for rel in order:
         src = stage / rel
         if src.exists():
