@@ -3,8 +3,6 @@ share-below property."""
 
 from __future__ import annotations
 
-import warnings
-
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
