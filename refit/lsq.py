@@ -211,6 +211,27 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
                       intercept, names, rank_tol)
 
 
+def _qr_slopes(z, scale, yz, names, intercept, rank_tol):
+    """QR of the centred, scaled slope terms: slopes, their unscaled covariance, rank check."""
+    from scipy.linalg import qr, solve_triangular
+
+    from .errors import InvalidDataError
+
+    n, q_dim = z.shape
+    qmat, r = qr(z / scale, mode="economic", check_finite=False)
+    sv = np.linalg.svd(r, compute_uv=False)
+    tol = rank_tol if rank_tol is not None else max(n, q_dim + 1) * 1e3 * np.finfo(float).eps
+    if sv[-1] <= tol * sv[0]:
+        _, sv_full, vt = np.linalg.svd(r)
+        raise InvalidDataError(_rank_message(sv_full, vt, names, intercept))
+    qty = qmat.T @ yz
+    bz = solve_triangular(r, qty, lower=False, check_finite=False)
+    resid_z = yz - qmat @ qty
+    rinv = solve_triangular(r, np.eye(q_dim), lower=False, check_finite=False)
+    cov_slopes = (rinv @ rinv.T) / np.outer(scale, scale)
+    return qmat, r, rinv, float(sv[0] / sv[-1]), resid_z, bz / scale, cov_slopes
+
+
 def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
     from .errors import InvalidDataError
 
@@ -236,25 +257,8 @@ def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
         raise InvalidDataError(f"term '{nm}' is constant (zero after centring); a slope "
                                "cannot be estimated: drop it or choose rows where it varies")
     if q_dim:
-        zs = z / scale
-        from scipy.linalg import qr
-
-        qmat, r = qr(zs, mode="economic", check_finite=False)
-        sv = np.linalg.svd(r, compute_uv=False)
-        tol = rank_tol if rank_tol is not None else max(n, p) * 1e3 * np.finfo(float).eps
-        if sv[-1] <= tol * sv[0]:
-            _, sv_full, vt = np.linalg.svd(r)
-            raise InvalidDataError(_rank_message(sv_full, vt, names, intercept))
-        cond = float(sv[0] / sv[-1])
-        qty = qmat.T @ yz
-        from scipy.linalg import solve_triangular
-
-        bz = solve_triangular(r, qty, lower=False, check_finite=False)
-        resid_z = yz - qmat @ qty
-        rinv = solve_triangular(r, np.eye(q_dim), lower=False, check_finite=False)
-        cov_z = rinv @ rinv.T
-        b_slopes = bz / scale
-        cov_slopes = cov_z / np.outer(scale, scale)
+        qmat, r, rinv, cond, resid_z, b_slopes, cov_slopes = _qr_slopes(
+            z, scale, yz, names, intercept, rank_tol)
     else:  # intercept-only model
         qmat, r, rinv = np.zeros((n, 0)), np.zeros((0, 0)), np.zeros((0, 0))
         cond, resid_z = 1.0, yz
