@@ -14,6 +14,7 @@ Every command is timed in a fresh process (see ``measure.py``); generated data o
 from __future__ import annotations
 
 import json
+import statistics
 import sys
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -213,14 +214,14 @@ def check_table(ctx: Context) -> CaseResult:
 
 
 def _in_process_row(ctx: Context, n: int, path: Path) -> Row:
-    """check_file vs read_csv inside Python, imports excluded (best of the repeats)."""
+    """check_file vs read_csv inside Python, imports excluded (median of the repeats)."""
     lib, naive = [], []
     for _ in range(ctx.repeats_for(n)):
         lib.append(_probe(ctx, "check_file", path))
         naive.append(_probe(ctx, "read_csv", path))
     lib_ok = [info for _, info in lib if "work_s" in info]
     naive_ok = [info for _, info in naive if "work_s" in info]
-    med = lambda xs, key: sorted(x[key] for x in xs)[len(xs) // 2] if xs else None  # noqa: E731
+    med = lambda xs, key: statistics.median(x[key] for x in xs) if xs else None  # noqa: E731
     note_bits = []
     if lib_ok:
         info = lib_ok[-1]

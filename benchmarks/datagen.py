@@ -15,6 +15,7 @@ Run as a script to write one table::
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import sys
@@ -149,17 +150,20 @@ def generate_frame(n: int, *, seed: int = 20261201, vocab: dict[str, list[str]] 
     return frame
 
 
-def table_path(data_dir: Path, n: int, seed: int) -> Path:
-    return data_dir / f"calibration_n{n}_seed{seed}_v{GENERATOR_VERSION}.csv"
+def table_path(data_dir: Path, n: int, seed: int, vocab: dict[str, list[str]]) -> Path:
+    """Cache file name: size, seed, generator version and a digest of the vocabulary terms."""
+    digest = hashlib.sha256(json.dumps(vocab, sort_keys=True).encode()).hexdigest()[:8]
+    return data_dir / f"calibration_n{n}_seed{seed}_v{GENERATOR_VERSION}_{digest}.csv"
 
 
 def ensure_table(data_dir: Path, n: int, *, seed: int, schemas_dir: Path) -> Path:
     """Write the table for ``n`` rows unless an identical one is cached; return its path."""
-    path = table_path(data_dir, n, seed)
+    vocab = vocabularies(schemas_dir)
+    path = table_path(data_dir, n, seed, vocab)
     if path.is_file():
         return path
     data_dir.mkdir(parents=True, exist_ok=True)
-    frame = generate_frame(n, seed=seed, vocab=vocabularies(schemas_dir))
+    frame = generate_frame(n, seed=seed, vocab=vocab)
     tmp = path.with_suffix(".csv.part")
     frame.to_csv(tmp, index=False)
     os.replace(tmp, path)

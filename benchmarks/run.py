@@ -141,7 +141,15 @@ def machine() -> dict:
     except (ValueError, OSError, AttributeError):
         pass
     return {"cores": os.cpu_count(), "cpu": cpu, "memory_gb": mem_gb,
+            "load_average_1min_at_start": _load(),
             "platform": platform.platform(), "python": platform.python_version()}
+
+
+def _load() -> float | None:
+    try:
+        return round(os.getloadavg()[0], 2)
+    except (OSError, AttributeError):
+        return None
 
 
 def versions() -> dict:
@@ -161,8 +169,10 @@ def report_text(result: dict) -> str:
     targets = [Target(**{k: v for k, v in t.items() if k != "status"}) for t in result["targets"]]
     m = result["machine"]
     head = (f"Run {result['date']} on {m['cores']} cores ({m['cpu']}), Python {m['python']}, "
-            f"sizes {', '.join(fmt_n(s) for s in result['sizes'])}, "
-            f"{result['total_s']:.0f} s in all.")
+            f"pandas {result['versions']['pandas']}; sizes "
+            f"{', '.join(fmt_n(s) for s in result['sizes'])}; {result['total_s']:.0f} s in all; "
+            f"1-minute load average {m['load_average_1min_at_start']} at start, "
+            f"{m['load_average_1min_at_end']} at end.")
     parts = [head, "", rows_table(rows), "", targets_table(targets)]
     notes = notes_list(rows)
     if notes:
@@ -194,9 +204,10 @@ def main(argv: list[str] | None = None) -> int:
         got = fn(ctx)
         rows += got.rows
         targets += got.targets
+    info = machine()  # before the cases run, so the load average is the background load
     result = {
         "date": dt.datetime.now().astimezone().isoformat(timespec="seconds"),
-        "machine": machine(), "versions": versions(), "sizes": args.sizes,
+        "machine": {**info, "load_average_1min_at_end": _load()}, "versions": versions(), "sizes": args.sizes,
         "quick": args.quick, "seed": args.seed, "cases": chosen,
         "total_s": time.perf_counter() - start,
         "rows": [r.to_dict() for r in rows], "targets": [t.to_dict() for t in targets],
