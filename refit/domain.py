@@ -62,9 +62,25 @@ class Domain:
                "turning_point_kind": self.turning_point_kind,
                "cautions": list(self.cautions)}
         if self.broken_stick is not None:
-            out["broken_stick"] = {k: v for k, v in self.broken_stick.items()
-                                   if isinstance(v, (int, float, str, bool, type(None)))}
+            out["broken_stick"] = {k: _plain(v) for k, v in self.broken_stick.items()
+                                   if _plain(v) is not _SKIP}
         return out
+
+
+_SKIP = object()
+
+
+def _plain(v):
+    """A JSON-ready scalar or list of scalars, or _SKIP (arrays such as covariances)."""
+    if isinstance(v, (str, type(None))):
+        return v
+    if isinstance(v, (bool, np.bool_)):
+        return bool(v)
+    if isinstance(v, (int, float, np.integer, np.floating)):
+        return float(v) if np.isfinite(v) else str(float(v))
+    if isinstance(v, tuple) and all(isinstance(e, (int, float, np.floating)) for e in v):
+        return [_plain(e) for e in v]
+    return _SKIP
 
 
 def variable_ranges(columns: dict[str, np.ndarray]) -> dict[str, tuple[float, float]]:

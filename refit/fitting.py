@@ -349,7 +349,9 @@ class Fit:
             ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags`` (';'-
             separated: ``outside-calibration-range``, ``beyond-turning-point``,
             ``two-roots``, ``unbounded``, ``missing-value``, ``invalid-value``,
-            ``quantiles-cross``; empty when none).
+            ``quantiles-cross``; empty when none). Read the flags as ``result["flags"]``
+            (``DataFrame.flags`` is a pandas attribute). The index is that of ``values``
+            when it is a Series or DataFrame.
         """
         from .calibrate import predict_fit
 

@@ -81,3 +81,24 @@ def test_domain_to_dict_is_json_ready():
     out = json.loads(json.dumps(f._core_domain().to_dict()))
     assert out["turning_point_location"] == "near"
     assert out["ranges"]["bk_depth_cm"] == [20.0, 115.0]
+
+
+def test_saturation_is_reported_by_the_broken_stick_comparison():
+    # A feature that stops responding beyond a climate threshold (invented generating
+    # process, seeded): Bk depth deepens with MAP up to 700 mm, then flattens. The
+    # two-segment fit (refit.stats_segmented) must be clearly better and its break near
+    # 700 mm; a plain line with the same noise must not trigger the caution.
+    rng = np.random.default_rng(12)
+    mapmm = np.linspace(200, 1200, 60)
+    depth = np.where(mapmm < 700, 0.1 * mapmm, 70.0) + rng.normal(0, 2, mapmm.size)
+    d = pd.DataFrame({"map_mm": mapmm, "bk_depth_cm": depth})
+    f = fit(d, response="map_mm", predictors="bk_depth_cm", direction="forward")
+    dom = f.domain
+    assert dom.broken_stick["clearly_better"]
+    assert dom.broken_stick["breakpoint"] == pytest.approx(700, abs=40)
+    assert any("no longer tells climate apart" in c for c in dom.cautions)
+    assert dom.to_dict()["broken_stick"]["clearly_better"] is True
+    d["bk_depth_cm"] = 0.1 * mapmm + rng.normal(0, 2, mapmm.size)
+    line = fit(d, response="map_mm", predictors="bk_depth_cm", direction="forward")
+    assert not line.domain.broken_stick["clearly_better"]
+    assert line.domain.cautions == []
