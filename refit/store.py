@@ -393,6 +393,7 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
     bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
     dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
     problems = _all_problems(report, dups, table.source_rows)
+    problems["file_column"] = _file_columns(problems["column"], incoming.columns)
     rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
     version = store.version + 1
     stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
@@ -568,11 +569,23 @@ def _warning_counts(problems: pd.DataFrame) -> dict[str, int]:
     return {str(k): int(v) for k, v in counts.items()}
 
 
+def _file_columns(columns: pd.Series, original) -> list[str]:
+    """The incoming file's own name(s) of each problem's column ('' when not in the file)."""
+    from refit.units import canonical_for
+
+    names = {canonical_for(str(c)) or str(c): str(c) for c in original}
+    return ["|".join(names[p] for p in str(c).split("|") if p in names) if c == c else ""
+            for c in columns]
+
+
 def _row_reasons(problems: pd.DataFrame) -> dict[int, list[str]]:
+    """Source row -> "rule (column 'name in the file'): message" for each of its errors."""
     out: dict[int, list[str]] = {}
     err = problems[(problems["severity"] == "error") & problems["row"].notna()]
-    for row, rule, message in zip(err["row"], err["rule"], err["message"]):
-        out.setdefault(int(row), []).append(f"{rule}: {message}")
+    for row, rule, col, message in zip(err["row"], err["rule"], err["file_column"],
+                                       err["message"]):
+        where = f" (column {col!r})" if col else ""
+        out.setdefault(int(row), []).append(f"{rule}{where}: {message}")
     return out
 
 

@@ -134,12 +134,13 @@ def test_rejected_rows_go_to_quarantine_unchanged(tmp_path, base_store):
     assert quarantined[0] == header + ["_reasons", "_source_row"]
     assert [r[:-2] for r in quarantined[1:]] == rows[1:]  # original text, original names
     assert [r[-1] for r in quarantined[1:]] == ["4", "5", "6"]  # title 1, header 2
-    assert quarantined[1][-2].startswith("not-a-number:")
-    assert "range:" in quarantined[2][-2]
-    assert "range:" in quarantined[3][-2] and "vocabulary:" in quarantined[3][-2]
+    assert quarantined[1][-2].startswith("not-a-number (column 'MAP (in)'): 'about 19'")
+    assert quarantined[2][-2].startswith("range (column 'Lat'): latitude -95.5")
+    assert "range (column 'Depth to Bk (in)')" in quarantined[3][-2]
+    assert "vocabulary (column 'Vegetation')" in quarantined[3][-2]
     problems = read_rows(base_store / result.problems_file)
     assert problems[0] == ["severity", "rule", "row", "profile_id", "column", "value",
-                           "message", "outcome"]
+                           "message", "file_column", "outcome"]
     assert {r[1] for r in problems[1:]} >= {"not-a-number", "range", "vocabulary"}
     store = open_store(base_store)
     assert store.records["profile_id"].tolist()[-1] == "N-1"
@@ -160,9 +161,10 @@ def test_duplicates_against_store_and_within_batch(tmp_path, base_store):
     result = admit(write_csv(tmp_path / "new.csv", rows), base_store, today=DAY)
     rejected = {r["profile_id"]: r["reasons"] for r in result.rejected_rows}
     assert set(rejected) == {"B-2", "N-1", "N-4", "N-6"}
-    assert rejected["B-2"][0].startswith("duplicate-id:")
-    assert rejected["N-1"][0].startswith("duplicate-site:") and "'B-1'" in rejected["N-1"][0]
-    assert rejected["N-4"][0].startswith("duplicate-measurements:")
+    assert rejected["B-2"][0].startswith("duplicate-id (column 'profile_id'):")
+    assert rejected["N-1"][0].startswith("duplicate-site (column 'latitude|longitude'):")
+    assert "'B-1'" in rejected["N-1"][0]
+    assert rejected["N-4"][0].startswith("duplicate-measurements (column 'map_mm|")
     assert "'B-2'" in rejected["N-4"][0]
     assert "'N-5'" in rejected["N-6"][0]
     assert result.accepted == 3
