@@ -22,6 +22,11 @@ Weights (WLS) are relative inverse variances, ``var(e_i) = sigma^2 / w_i``. A ne
 observation's variance is ``sigma^2 / w0`` with ``w0 = 1`` unless ``predict(weights=...)``
 says otherwise (the convention of statsmodels ``get_prediction``); ``w0 = m`` gives the
 interval for the mean of m replicate measurements.
+
+The analytic interval for a new observation is ``estimate +- t(df) sqrt(s^2 / w0 +
+x0' V x0)`` with V the estimator's coefficient covariance and s its residual scale: exact
+for OLS/WLS under normal errors; for Huber it uses the robust scale and the ``rlm``
+covariance, for York the descriptive scatter about the line (both approximations).
 """
 
 from __future__ import annotations

@@ -151,3 +151,18 @@ def test_rank_deficient_design_is_refused_with_the_terms_named():
     with pytest.raises(InvalidDataError, match="'a' is constant"):
         solve_lsq(np.column_stack([np.ones(10), np.full(10, 3.0)]), x,
                   names=["intercept", "a"])
+
+
+def test_wls_leverages_match_statsmodels_influence():
+    # statsmodels OLS influence (general-purpose reference) on the whitened problem
+    # sqrt(w) X, sqrt(w) y, which is WLS by definition; Longley with seeded weights:
+    # h_ii = w_i x_i'(X'WX)^-1 x_i.
+    import statsmodels.api as sm
+
+    d = parse_strd("Longley")
+    X, _ = design("Longley", d)
+    w = np.random.default_rng(8).uniform(0.5, 2.0, len(d["y"]))
+    res = solve_lsq(X, d["y"], weights=w)
+    sw = np.sqrt(w)
+    ref = sm.OLS(d["y"] * sw, X * sw[:, None]).fit().get_influence().hat_matrix_diag
+    np.testing.assert_allclose(leverages(res, w), ref, rtol=1e-7)
