@@ -31,10 +31,8 @@ Rules (``rule`` ids; severity error unless noted):
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
-from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -43,7 +41,10 @@ from refit import schema as _schema
 from refit._problems import (
     PROBLEM_COLUMNS, Problems, column_hint, fmt_values,
 )
-from refit.errors import UnreadableInputError, UsageError
+from refit.errors import UsageError
+from refit.vocabularies import (  # noqa: F401  (re-exported: part of the checks API)
+    check_vocabularies, load_vocabularies, match_vocabulary, vocab_key,
+)
 
 KINDS = ("calibration",)
 
@@ -128,121 +129,6 @@ def _default_rows(n: int) -> np.ndarray:
     return np.arange(n, dtype="int64") + 2
 
 
-# --- vocabularies ---------------------------------------------------------------------
-
-def load_vocabularies(*extra_files: str | Path | None) -> dict[str, set[str]]:
-    """The controlled vocabularies, extended by any extra files.
-
-    Parameters
-    ----------
-    *extra_files : str or Path or None
-        Extension files (``None`` entries are skipped). Each is a JSON object mapping an
-        open vocabulary to a list of new terms, for example::
-
-            {"vegetation": ["sagebrush steppe"], "parent_material": ["ignimbrite"]}
-
-        Keys starting with ``$`` (e.g. ``"$comment"``) are ignored. Put it in a store as
-        ``STORE/vocabularies.json`` (used by ``refit admit``) or pass it to
-        ``refit check --vocab FILE``. The closed vocabularies (``soil_order``: the twelve
-        USDA Soil Taxonomy orders; ``sequence_kind``) cannot be extended.
-
-    Returns
-    -------
-    dict of str to set of str
-        ``soil_order``, ``sequence_kind``, ``vegetation``, ``parent_material``.
-
-    Raises
-    ------
-    UnreadableInputError
-        An extension file is missing or not JSON.
-    UsageError
-        An extension file names an unknown or closed vocabulary, or terms are not text.
-    """
-    base = _read_json(_schema_file("vocabularies.json"))
-    closed = set(base.get("closed", []))
-    vocab = {k: set(v) for k, v in base.items() if not k.startswith("$") and k != "closed"}
-    for path in extra_files:
-        if path is None:
-            continue
-        for key, terms in _read_json(Path(path)).items():
-            if key.startswith("$"):
-                continue
-            if key in closed or key not in vocab:
-                raise UsageError(
-                    f"{path}: {key!r} cannot be extended; an extension file may add terms "
-                    f"to {', '.join(sorted(set(vocab) - closed))} only "
-                    f"({', '.join(sorted(closed))} are closed lists).")
-            if not isinstance(terms, list) or not all(
-                    isinstance(t, str) and t.strip() for t in terms):
-                raise UsageError(
-                    f"{path}: {key!r} must be a list of non-empty texts, e.g. "
-                    f'{{"{key}": ["new term"]}}.')
-            vocab[key] |= {t.strip() for t in terms}
-    return vocab
-
-
-def _schema_file(name: str) -> Path:
-    from refit._resources import schemas_dir
-
-    return schemas_dir() / name
-
-
-def _read_json(path: Path) -> dict[str, Any]:
-    try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise UnreadableInputError(
-            f"{path}: vocabulary file not found; check the path.") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise UnreadableInputError(
-            f"{path}: cannot read the vocabulary file as JSON ({exc}); it must be a JSON "
-            'object such as {"vegetation": ["new term"]}.') from None
-    if not isinstance(data, dict):
-        raise UnreadableInputError(
-            f"{path}: a vocabulary file must hold a JSON object such as "
-            '{"vegetation": ["new term"]}.')
-    return data
-
-
-def vocab_key(term: str) -> str:
-    """Loose form of a term: lower case, '_'/'-' as space, single spaces, no plural 's'."""
-    key = " ".join(term.lower().replace("_", " ").replace("-", " ").split())
-    return key[:-1] if len(key) > 3 and key.endswith("s") else key
-
-
-def match_vocabulary(values: pd.Series, terms: Iterable[str]):
-    """Match text values to a vocabulary (work is done once per distinct value).
-
-    Returns
-    -------
-    canonical : pandas.Series
-        ``values`` with known variants replaced by their vocabulary term.
-    variant : pandas.Series of bool
-        Known term written in another form (case, separator, plural).
-    unknown : pandas.Series of bool
-        Value not in the vocabulary in any form.
-    """
-    terms = set(terms)
-    by_key: dict[str, str] = {}
-    for t in sorted(terms):
-        by_key.setdefault(vocab_key(t), t)
-    seen = [v for v in values.unique() if isinstance(v, str)]
-    variants = {v: by_key[vocab_key(v)] for v in seen
-                if v not in terms and vocab_key(v) in by_key}
-    unknowns = [v for v in seen if v not in terms and v not in variants]
-    variant = values.isin(list(variants)) if variants else _false(values)
-    unknown = values.isin(unknowns) if unknowns else _false(values)
-    canonical = values
-    if variants:
-        canonical = values.copy()
-        canonical[variant] = values[variant].map(variants)
-    return canonical, variant, unknown
-
-
-def _false(values: pd.Series) -> pd.Series:
-    return pd.Series(np.zeros(len(values), dtype=bool), index=values.index)
-
-
 # --- checking ---------------------------------------------------------------------------
 
 def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckReport:
@@ -322,7 +208,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     vocab = load_vocabularies() if vocabularies is None else vocabularies
     desc = _schema.load_descriptor()
     work, probs = _prepare(frame, rows, desc)
-    _check_vocabularies(work, probs, vocab)
+    check_vocabularies(work, probs, vocab)
     _run_pandera(work, probs, desc)
     _check_climate(work, probs, desc)
     _check_cross_columns(work, probs, desc)
@@ -442,37 +328,6 @@ def _parse_date_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
                   "(ISO 8601), e.g. 2024-05-31.")
         probs.flag(pos, name)
     return text
-
-
-def _check_vocabularies(work: pd.DataFrame, probs: Problems, vocab: dict) -> None:
-    closed = {"soil_order", "sequence_kind"}
-    for name in ("soil_order", "vegetation", "parent_material", "sequence_kind"):
-        if name not in work.columns or name not in vocab:
-            continue
-        values = work[name]
-        canonical, variant, unknown = match_vocabulary(values, vocab[name])
-        if variant.any():
-            pos = np.flatnonzero(variant.to_numpy())
-            vals, canon = values.iloc[pos], canonical.iloc[pos]
-            # common practice: accept spelling variants of a known term, but say so
-            probs.add("warning", "vocabulary-form", pos, name, vals,
-                      "'" + vals + f"' in {name} is read as the vocabulary term '"
-                      + canon + "'; write '" + canon + "' to silence this warning.")
-            work[name] = canonical
-        if unknown.any():
-            pos = np.flatnonzero(unknown.to_numpy())
-            vals = values.iloc[pos]
-            allowed = ", ".join(sorted(vocab[name], key=str.lower))
-            if name in closed:
-                how = "this list is closed and cannot be extended."
-            else:
-                how = ("use one of these, or if the term is right add it to the store's "
-                       "vocabularies.json or a file passed with --vocab, e.g. "
-                       f'{{"{name}": ["new term"]}}.')
-            probs.add("error", "vocabulary", pos, name, vals,
-                      "'" + vals + f"' is not in the {name} vocabulary. Allowed: "
-                      f"{allowed}; {how}")
-            probs.flag(pos, name)
 
 
 def _run_pandera(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
