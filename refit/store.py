@@ -355,7 +355,11 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     table = read_table(table_path, as_text=True)
     original = table.frame
     incoming = original.drop(columns=[c for c in QUARANTINE_EXTRA if c in original.columns])
-    frame, mappings = normalise_columns(incoming)
+    try:
+        frame, mappings = normalise_columns(incoming)
+    except InvalidDataError as exc:
+        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
+                               f"{exc}") from None
     if state == "missing" and dry_run:
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
                              True, vocabularies, vocab_files, today, tolerance_deg)
