@@ -105,33 +105,7 @@ def fit_york(x, y, sx, sy, *, r=0.0, sigma="known", tol=1e-15,
     if (np.abs(ri) >= 1).any():
         raise InvalidDataError(f"{who}: error correlations r must lie strictly between -1 "
                                f"and 1.")
-    alpha = np.sqrt(wx * wy)
-    b = np.polyfit(x, y, 1)[0]
-    for iteration in range(1, max_iter + 1):
-        W = wx * wy / (wx + b**2 * wy - 2 * b * ri * alpha)
-        xbar, ybar = np.sum(W * x) / W.sum(), np.sum(W * y) / W.sum()
-        U, V = x - xbar, y - ybar
-        beta = W * (U / wy + b * V / wx - (b * U + V) * ri / alpha)
-        b_new = np.sum(W * beta * V) / np.sum(W * beta * U)
-        done = abs(b_new - b) <= tol * max(abs(b_new), 1e-300)
-        b = b_new
-        if done:
-            break
-    else:
-        raise InvalidDataError(f"{who}: the slope did not converge in {max_iter} iterations; "
-                               f"check the stated errors sx, sy (are they in the units of "
-                               f"x and y?).")
-    W = wx * wy / (wx + b**2 * wy - 2 * b * ri * alpha)
-    xbar, ybar = np.sum(W * x) / W.sum(), np.sum(W * y) / W.sum()
-    U, V = x - xbar, y - ybar
-    beta = W * (U / wy + b * V / wx - (b * U + V) * ri / alpha)
-    a = ybar - b * xbar
-    x_adj = xbar + beta
-    x_adj_bar = np.sum(W * x_adj) / W.sum()
-    var_b = 1.0 / np.sum(W * (x_adj - x_adj_bar) ** 2)
-    var_a = 1.0 / W.sum() + x_adj_bar**2 * var_b
-    cov = np.array([[var_a, -x_adj_bar * var_b], [-x_adj_bar * var_b, var_b]])
-    S = float(np.sum(W * (y - b * x - a) ** 2))
+    a, b, cov, S, W, x_adj, iteration = _york_solve(x, y, wx, wy, ri, tol, max_iter)
     if sigma == "scaled":
         cov = cov * S / (n - 2)
     from scipy import stats
@@ -144,6 +118,41 @@ def fit_york(x, y, sx, sy, *, r=0.0, sigma="known", tol=1e-15,
         details={"method": "york", "sigma": sigma, "chi2": S, "reduced_chi2": S / (n - 2),
                  "p_value": float(stats.chi2.sf(S, n - 2)), "iterations": iteration,
                  "x_adjusted": x_adj, "y_adjusted": a + b * x_adj})
+
+
+def _york_terms(b, x, y, wx, wy, ri, alpha):
+    """W_i, the W-weighted means and beta_i of York et al. (2004) at slope b."""
+    W = wx * wy / (wx + b**2 * wy - 2 * b * ri * alpha)
+    xbar, ybar = np.sum(W * x) / W.sum(), np.sum(W * y) / W.sum()
+    U, V = x - xbar, y - ybar
+    beta = W * (U / wy + b * V / wx - (b * U + V) * ri / alpha)
+    return W, xbar, ybar, U, V, beta
+
+
+def _york_solve(x, y, wx, wy, ri, tol, max_iter):
+    """Iterate York's slope to convergence; a, b, known-weight covariance, S and extras."""
+    alpha = np.sqrt(wx * wy)
+    b = np.polyfit(x, y, 1)[0]
+    for iteration in range(1, max_iter + 1):
+        W, xbar, ybar, U, V, beta = _york_terms(b, x, y, wx, wy, ri, alpha)
+        b_new = np.sum(W * beta * V) / np.sum(W * beta * U)
+        done = abs(b_new - b) <= tol * max(abs(b_new), 1e-300)
+        b = b_new
+        if done:
+            break
+    else:
+        raise InvalidDataError(f"fit_york: the slope did not converge in {max_iter} "
+                               f"iterations; check the stated errors sx, sy (are they in "
+                               f"the units of x and y?).")
+    W, xbar, ybar, U, V, beta = _york_terms(b, x, y, wx, wy, ri, alpha)
+    a = ybar - b * xbar
+    x_adj = xbar + beta
+    x_adj_bar = np.sum(W * x_adj) / W.sum()
+    var_b = 1.0 / np.sum(W * (x_adj - x_adj_bar) ** 2)
+    var_a = 1.0 / W.sum() + x_adj_bar**2 * var_b
+    cov = np.array([[var_a, -x_adj_bar * var_b], [-x_adj_bar * var_b, var_b]])
+    S = float(np.sum(W * (y - b * x - a) ** 2))
+    return a, b, cov, S, W, x_adj, iteration
 
 
 def fit_deming(x, y, *, ratio=1.0) -> EstimatorResult:

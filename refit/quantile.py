@@ -15,7 +15,7 @@ import warnings
 
 import numpy as np
 
-from refit.errors import InvalidDataError, UsageError
+from refit.errors import UsageError
 from refit.intervals import PredictionInterval, _alpha, _as_design, _as_rows, _qr
 from refit.lsq import EstimatorResult
 

@@ -162,7 +162,7 @@ def test_bootstrap_prediction_limits_match_statsmodels_analytic_interval():
 
 
 def test_weighted_residual_bootstrap_matches_statsmodels_wls():
-    X, y0 = quadratic_problem(500, 10)
+    X, _ = quadratic_problem(500, 10)
     rng = np.random.default_rng(10)
     w = rng.uniform(0.2, 5, 500)
     y = X @ [40, 3, -0.02] + rng.normal(0, 1, 500) * 4 / np.sqrt(w)
@@ -170,6 +170,10 @@ def test_weighted_residual_bootstrap_matches_statsmodels_wls():
     wls = sm.WLS(y, X, weights=w).fit()
     assert_allclose(res.estimate, wls.predict(X[:3]), rtol=1e-12)
     assert_allclose(res.details["coefficients"].std(axis=0), wls.bse, rtol=0.06)
+    # case resampling of (x, y, w) triples: spread near statsmodels' WLS sandwich (HC0)
+    pairs = bootstrap_pairs(X, y, X[:3], n_boot=4000, seed=2, weights=w)
+    hc0 = sm.WLS(y, X, weights=w).fit(cov_type="HC0").bse
+    assert_allclose(pairs.details["coefficients"].std(axis=0), hc0, rtol=0.06)
     frame = wls.get_prediction(X[:3], weights=1.0).summary_frame(alpha=0.05)
     half = (frame["obs_ci_upper"] - frame["obs_ci_lower"]).to_numpy() / 2
     assert_allclose(res.upper - res.lower, 2 * half, rtol=0.08)
