@@ -148,9 +148,19 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
         raise UsageError(f"{store_dir} is not a refit store (no manifest.json); give the "
                          "folder of a store, or create one with 'refit admit TABLE --into "
                          f"{store_dir}'")
-    with _locked(store_dir, lock_timeout):
-        recovered = recover(store_dir)
-        return _load(store_dir, recovered)
+    try:
+        lock = _locked(store_dir, lock_timeout)
+        lock.__enter__()
+    except PermissionError:  # a read-only store (e.g. installed with the package)
+        if list(store_dir.glob(".pending-*")):
+            raise InvalidDataError(
+                f"{store_dir} holds an interrupted admit but is read-only; open it once with "
+                "write access so refit can finish or undo it") from None
+        return _load(store_dir, [])
+    try:
+        return _load(store_dir, recover(store_dir))
+    finally:
+        lock.__exit__()
 
 
 def _load(store_dir: Path, recovered: list[str]) -> Store:

@@ -323,6 +323,9 @@ def find_header(rows: list[list[str]]) -> int:
         text = [c for c in non_empty if not _is_number(c)]
         if len(non_empty) >= 0.5 * len(cells) and len(text) >= 0.75 * len(non_empty):
             return i
+    for i, row in enumerate(sample):  # narrower than the body, but names known columns
+        if sum(canonical_for(str(c).strip()) is not None for c in row if str(c).strip()) >= 2:
+            return i
     return next(i for i, w in enumerate(widths) if w > 0)
 
 

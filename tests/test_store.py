@@ -444,3 +444,16 @@ def test_accounting_property(base_rows):
                 assert q[-2]  # with its reasons
         else:
             assert result.quarantine_file is None
+
+
+def test_read_only_store_opens_without_its_lock(base_store, monkeypatch):
+    import refit.store as store_module
+
+    def refuse(self):
+        raise PermissionError(13, "Permission denied", str(base_store / ".lock"))
+
+    monkeypatch.setattr(store_module._locked, "__enter__", refuse)
+    assert open_store(base_store).version == 1
+    (base_store / ".pending-x").mkdir()
+    with pytest.raises(InvalidDataError, match="read-only"):
+        open_store(base_store)

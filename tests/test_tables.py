@@ -168,3 +168,12 @@ def test_ragged_rows_are_padded(tmp_path):
     path.write_text("profile_id,map_mm,notes\nA,1\nB,2,x\n", encoding="utf-8")
     t = read_table(path, as_text=True)
     assert t.frame.values.tolist() == [["A", "1", ""], ["B", "2", "x"]]
+
+
+def test_header_narrower_than_body_is_found_by_its_names(tmp_path):
+    path = tmp_path / "t.csv"
+    path.write_text("Campaign 2025\nprofile_id,map_mm\nA,1,extra\nB,2,extra\n",
+                    encoding="utf-8")
+    t = read_table(path, as_text=True)
+    assert list(t.frame.columns) == ["profile_id", "map_mm", "unnamed_3"]
+    assert t.source_rows.tolist() == [3, 4]
