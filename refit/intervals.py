@@ -204,11 +204,14 @@ def _check_n_boot(n_boot, who):
 
 
 # ----------------------------------------------------------------------------- bootstrap
-def _prepare(X, y, x0, weights, who, min_extra=2):
+def _prepare(X, y, x0, weights, who, min_extra=2, weight0=1.0):
     X, y = _as_design(X, y, min_extra=min_extra, who=who)
     x0 = _as_rows(x0, X.shape[1], who)
     w = _as_weights(weights, X.shape[0], who)
     sw = np.ones(X.shape[0]) if w is None else np.sqrt(w)
+    if not (np.ndim(weight0) == 0 and np.isfinite(weight0) and weight0 > 0):
+        raise InvalidDataError(f"{who}: weight0 (weight of the new observation) must be one "
+                               f"positive number; got {weight0!r}.")
     return X, y, x0, sw
 
 
@@ -291,7 +294,7 @@ def bootstrap_pairs(X, y, x0, *, n_boot=1000, level=0.95, seed=0, weights=None,
     .. [1] Davison & Hinkley (1997), Bootstrap Methods and their Application, sect. 6.2-6.3.
     """
     who = "bootstrap_pairs"
-    X, y, x0, sw = _prepare(X, y, x0, weights, who)
+    X, y, x0, sw = _prepare(X, y, x0, weights, who, weight0=weight0)
     alpha = _alpha(level, who)
     n_boot = _check_n_boot(n_boot, who)
     Xw, yw = X * sw[:, None], y * sw
@@ -341,7 +344,7 @@ def bootstrap_residual(X, y, x0, *, n_boot=1000, level=0.95, seed=0, weights=Non
     .. [1] Davison & Hinkley (1997), Bootstrap Methods and their Application, sect. 6.2-6.3.
     """
     who = "bootstrap_residual"
-    X, y, x0, sw = _prepare(X, y, x0, weights, who)
+    X, y, x0, sw = _prepare(X, y, x0, weights, who, weight0=weight0)
     alpha = _alpha(level, who)
     n_boot = _check_n_boot(n_boot, who)
     Xw, yw = X * sw[:, None], y * sw

@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import statsmodels.api as sm
+from hypothesis import given
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import stats
 from sklearn.model_selection import KFold
@@ -54,6 +56,19 @@ def test_loo_residuals_equal_statsmodels_press_and_refits():
     assert_allclose(loo, OLSInfluence(sm.OLS(y, X).fit()).resid_press, rtol=0, atol=1e-9)
     _, r = explicit_loo_predictions(X, y, X[:1])
     assert_allclose(np.abs(loo), r, rtol=0, atol=1e-9)
+
+
+@given(st.integers(min_value=6, max_value=40), st.integers(min_value=1, max_value=4),
+       st.integers(min_value=0, max_value=2**32 - 1))
+def test_loo_residuals_closed_form_on_random_designs(n, p, seed):
+    # e_i/(1 - h_ii) equals the residual of an explicit numpy lstsq refit without row i
+    rng = np.random.default_rng(seed)
+    X = np.column_stack([np.ones(n), rng.normal(size=(n, p - 1)) * rng.uniform(0.1, 1e3)])
+    y = X @ rng.normal(size=p) + rng.normal(size=n)
+    expected = [y[i] - X[i] @ np.linalg.lstsq(np.delete(X, i, 0), np.delete(y, i),
+                                              rcond=None)[0] for i in range(n)]
+    loo = loo_residuals(X, y)
+    assert_allclose(loo, expected, rtol=1e-7, atol=1e-9 * np.abs(y).max())
 
 
 def test_jackknife_plus_equals_explicit_leave_one_out_refits():
@@ -177,6 +192,15 @@ def test_weighted_residual_bootstrap_matches_statsmodels_wls():
     frame = wls.get_prediction(X[:3], weights=1.0).summary_frame(alpha=0.05)
     half = (frame["obs_ci_upper"] - frame["obs_ci_lower"]).to_numpy() / 2
     assert_allclose(res.upper - res.lower, 2 * half, rtol=0.08)
+
+
+def test_pairs_bootstrap_drops_singular_resamples():
+    # quadratic on 5 rows: a resample with fewer than 3 distinct rows is singular;
+    # P = (5 + C(5,2)(2^5 - 2)) / 5^5 = 305/3125, about 10% of resamples
+    X, y = quadratic_problem(5, 15)
+    res = bootstrap_pairs(X, y, X[:1], n_boot=2000, seed=0)
+    assert 0.07 < res.details["dropped"] / 2000 < 0.13
+    assert res.details["coefficients"].shape == (2000 - res.details["dropped"], 3)
 
 
 def test_bootstrap_is_reproducible_with_a_seed():
