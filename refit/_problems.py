@@ -145,7 +145,7 @@ def translate_failures(fc: pd.DataFrame, work: pd.DataFrame, probs: Problems,
     for name in missing:
         probs.add_table("error", "required-column", name,
                         f"required column {name!r} is missing (missing: {missing_list}); "
-                        f"add it ({fields.get(name, {}).get('description', '')}). A column "
+                        f"add it ({fields.get(name, {}).get('description', '').rstrip('.')}). A column "
                         "under another name or unit (e.g. 'Latitude', 'lat') is mapped "
                         "when it is a known synonym.")
     cells = fc[(fc["check"] != "column_in_dataframe") & fc["index"].notna()]

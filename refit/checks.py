@@ -27,6 +27,7 @@ Rules (``rule`` ids; severity error unless noted):
 ``oxide-total``      the sum of the ``*_wt`` oxides above 101 wt%
 ``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
 ``sequence-*``       (warnings) see :mod:`refit.sequences`
+``no-rows``          (warning) a header without data rows
 """
 
 from __future__ import annotations
@@ -213,6 +214,9 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     _check_climate(work, probs, desc)
     _check_cross_columns(work, probs, desc)
     probs.add_frame(sequences.sequence_problems(work))
+    if n == 0:
+        probs.add_table("warning", "no-rows", "", "the table has a header but no data "
+                        "rows; check that the export holds the data.")
     out_frame = work.set_axis(frame.index, axis=0)
     return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
                        path=None if path is None else str(path),
@@ -315,8 +319,10 @@ def _number_fix(name: str) -> str:
 def _parse_date_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
     """ISO text; reports cells that are not a YYYY-MM-DD date ('not-a-date')."""
     if pd.api.types.is_datetime64_any_dtype(s):
-        return s.dt.strftime("%Y-%m-%d")
+        return s.dt.strftime("%Y-%m-%d").where(s.notna())
     text = _parse_text(s, missing_tokens)
+    if s.dtype == object:  # date or datetime objects from a spreadsheet or parquet
+        text = text.str.replace(r"^(\d{4}-\d{2}-\d{2})[ T]00:00:00$", r"\1", regex=True)
     seen = pd.Series([v for v in text.unique() if isinstance(v, str)], dtype="str")
     parsed = pd.to_datetime(seen, format="%Y-%m-%d", errors="coerce")
     bad = text.isin(seen[parsed.isna().to_numpy()].tolist())

@@ -397,3 +397,20 @@ def test_sequence_kind_without_id_is_a_row_warning():
     frame = base()
     frame["sequence_kind"] = [None, "chronosequence", None, None]
     assert cells(check_frame(frame), "sequence-id-missing") == [(3, "sequence_id", "")]
+
+
+def test_dates_from_a_spreadsheet_are_kept_as_iso_text():
+    import datetime as dt
+
+    frame = base()
+    frame["added_on"] = [dt.date(2024, 1, 2), dt.datetime(2024, 1, 3), None, "2024-01-05"]
+    report = check_frame(frame)
+    assert report.ok
+    assert report.frame["added_on"].tolist()[:2] == ["2024-01-02", "2024-01-03"]
+    assert pd.isna(report.frame.loc[2, "added_on"])
+
+
+def test_header_without_rows_is_valid_with_a_warning():
+    report = check_frame(base().iloc[:0])
+    assert report.ok and report.n_rows == 0
+    assert cells(report, "no-rows") == [(None, "", "")]
