@@ -16,6 +16,10 @@ _API = {
     "CheckReport": "refit.checks",
     "admit": "refit.store",
     "open_store": "refit.store",
+    # fitting
+    "fit": "refit.fitting",
+    "Fit": "refit.fitting",
+    "TransferFunctionRegressor": "refit.sklearn_api",
     # derived indices
     "cia": "refit.indices",
     "cia_k": "refit.indices",

@@ -23,9 +23,8 @@ class DemoResult:
     """What the demo did: labelled output paths, and the admit accounting."""
 
     outputs: dict[str, Path] = field(default_factory=dict)
-    rows_read: int = 0
-    accepted: int = 0
-    rejected: int = 0
+    check: object = None   # refit.checks.CheckReport of the incoming table
+    admit: object = None   # refit.store.AdmitResult
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -70,6 +69,7 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult
     say(f"[bold]1. Check[/bold] the incoming soils: {incoming.name}")
     vocab_files = [p for p in [store / "vocabularies.json"] if p.exists()]
     report = check_file(incoming, vocabularies=load_vocabularies(*vocab_files))
+    result.check = report
     check_json = out / "check-incoming.json"
     check_json.write_text(json.dumps(report.to_dict(), indent=2, default=str) + "\n", encoding="utf-8")
     result.outputs["check report (json)"] = check_json
@@ -81,16 +81,8 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult
     )
 
     say(f"[bold]2. Admit[/bold] them into a copy of the demo store: {store}")
-    adm = admit(incoming, store, vocabularies=load_vocabularies(*vocab_files))
-    result.rows_read, result.accepted, result.rejected = adm.rows_read, adm.accepted, adm.rejected
-    say(f"   rows read {adm.rows_read} = accepted {adm.accepted} + rejected {adm.rejected}")
-    for line in adm.describe():
-        say(f"   {line}")
-    if adm.quarantine_file is not None:
-        result.outputs["rejected rows (quarantine)"] = adm.quarantine_file
-    result.outputs["manifest"] = store / "manifest.json"
-    say(
-        "[dim]Fitting, cross-validation, publishing, apply and the report arrive with the next "
-        "issues; this demo runs the curation steps that exist.[/dim]"
-    )
+    result.admit = admit(incoming, store, vocab_files=vocab_files)
+    if result.admit.quarantine_file:
+        result.outputs["rejected rows (quarantine)"] = store / result.admit.quarantine_file
+    result.outputs["store manifest"] = store / "manifest.json"
     return result

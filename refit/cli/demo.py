@@ -35,8 +35,17 @@ def demo(out_dir: str, quiet: bool) -> None:
 
     from refit.cli._common import stdout_console
 
+    from refit.cli.admit import render
+
     console = stdout_console()
     result = run_demo(Path(out_dir), echo=None if quiet else console.print)
+    if not quiet:
+        for line in render(result.admit):
+            console.print(f"   {line}", markup=False)
+        console.print(
+            "[dim]Fitting, cross-validation, publishing, apply and the report arrive with the "
+            "next issues; this demo runs the curation steps that exist.[/dim]"
+        )
     console.print()
     console.print("[bold]Where everything went[/bold]")
     for label, path in result.outputs.items():
