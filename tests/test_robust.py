@@ -12,8 +12,8 @@ from statsmodels.robust import norms
 from refit.errors import InvalidDataError, UsageError
 from refit.robust import fit_huber, fit_theil_sen
 
-# Stack loss data (Brownlee 1965), as R `datasets::stackloss` (n = 21); the values below
-# reproduce the published R fits, which confirms them.
+# Stack loss data (Brownlee 1965), as R `datasets::stackloss` (n = 21). Typed from memory;
+# they reproduce the stored R fits below to 5 digits, which confirms them.
 AIR = [80, 80, 75, 62, 62, 62, 62, 62, 58, 58, 58, 58, 58, 58, 50, 50, 50, 50, 50, 56, 70]
 WATER = [27, 27, 25, 24, 22, 23, 24, 24, 23, 18, 18, 17, 18, 19, 18, 18, 19, 19, 20, 20, 20]
 ACID = [89, 88, 90, 87, 87, 87, 93, 93, 87, 80, 89, 88, 82, 93, 89, 86, 72, 79, 80, 82, 91]
