@@ -131,7 +131,7 @@ def _check_exists(path: Path) -> None:
 
 
 def _scan(path: Path) -> tuple[str, bytes, int, bytes]:
-    """One pass over the file: sha256, a sample of the head, newline count, the tail."""
+    """One pass over the file: sha256, the head, the number of newlines, the tail."""
     import hashlib
 
     digest = hashlib.sha256()
@@ -222,7 +222,17 @@ def _refuse_single_column(lines: list[str], path: Path) -> None:
 
 
 def _read_text_table(path: Path, as_text: bool) -> Table:
-    digest, head, newlines, tail = _scan(path)
+    from concurrent.futures import ThreadPoolExecutor
+
+    with open(path, "rb") as fh:
+        head = fh.read(_SAMPLE_BYTES)
+    # hashing runs beside the parsing (hashlib releases the GIL): the sha256 costs no time
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        scan = pool.submit(_scan, path)
+        return _parse_text_table(path, as_text, head, scan)
+
+
+def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
     codec, enc_note = detect_encoding(head, path)
     text = None
     if codec.startswith("utf-8"):
@@ -240,24 +250,30 @@ def _read_text_table(path: Path, as_text: bool) -> Table:
     header_at = find_header(rows)
     notes = [f"read {path.name} as delimited text", enc_note, f"delimiter {_DELIM_NAMES[delim]}"]
     if not as_text and codec.startswith("utf-8") and header_at == 0:
-        fast = _fast_typed(path, codec, delim, newlines, tail, digest, notes)
+        fast = _fast_typed(path, codec, delim, scan, notes)
         if fast is not None:
             return fast
     if text is None:
         text = _decode(path.read_bytes(), codec, path).lstrip("\ufeff")
     all_rows = list(csv.reader(io.StringIO(text, newline=""), delimiter=delim))
-    return _table_from_rows(path, all_rows, as_text, notes, digest, delim=delim)
+    return _table_from_rows(path, all_rows, as_text, notes, scan.result()[0], delim=delim)
 
 
 _DELIM_NAMES = {",": "comma ','", ";": "semicolon ';'", "\t": "tab", "|": "pipe '|'"}
 
 
-def _fast_typed(path, codec, delim, newlines, tail, digest, notes) -> Table | None:
-    """One ``read_csv`` call for the common case; None when the file needs the careful path."""
+def _fast_typed(path, codec, delim, scan, notes) -> Table | None:
+    """One ``read_csv`` call for the common case; None when the file needs the careful path.
+
+    The row count is checked against the file's line count: blank lines inside the table or
+    line breaks inside quoted values send the file to the careful path, which numbers rows
+    exactly.
+    """
     try:
-        frame = pd.read_csv(path, sep=delim, encoding=codec, low_memory=False)
+        frame = pd.read_csv(path, sep=delim, encoding=codec)
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError):
         return None
+    digest, _, newlines, tail = scan.result()
     stripped = tail.rstrip(b"\r\n \t")
     trailing = tail[len(stripped):].count(b"\n")
     content_lines = newlines - trailing + 1
@@ -267,7 +283,9 @@ def _fast_typed(path, codec, delim, newlines, tail, digest, notes) -> Table | No
     if any(c.startswith("Unnamed: ") for c in frame.columns) or _has_dupes(frame.columns):
         return None
     rows = np.arange(2, len(frame) + 2)
-    empty = frame.isna().all(axis=1).to_numpy()
+    empty = frame.iloc[:, 0].isna().to_numpy()
+    if empty.any():
+        empty[empty] = frame.loc[empty].isna().all(axis=1).to_numpy()
     if empty.any():
         frame, rows = frame.loc[~empty].reset_index(drop=True), rows[~empty]
         notes.append(f"skipped {int(empty.sum())} empty row(s)")
