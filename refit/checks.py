@@ -423,9 +423,9 @@ def _check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
     total = pd.Series(total, index=work.index)
     pos = np.flatnonzero((total > limit).to_numpy())
     if len(pos):
-        probs.add("error", "oxide-total", pos, "+".join(oxides),
-                  fmt_values(total.iloc[pos]),
-                  "the oxides add up to " + fmt_values(total.iloc[pos].round(2))
+        shown = fmt_values(total.iloc[pos].round(6))  # no float noise such as ...00001
+        probs.add("error", "oxide-total", pos, "+".join(oxides), shown,
+                  "the oxides add up to " + shown
                   + f" wt% (more than {limit:g}); check for a value in ppm or a "
                   "misplaced decimal point, and that the oxides are weight percent.")
 

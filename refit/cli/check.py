@@ -85,7 +85,8 @@ def _problem_table(console, frame, title, style, max_rows) -> None:
     from rich.padding import Padding
     from rich.text import Text
 
-    console.print(Text(f"{len(frame)} {title}", style=f"bold {style}"))
+    label = title if len(frame) != 1 else title.rstrip("s")
+    console.print(Text(f"{len(frame)} {label}", style=f"bold {style}"))
     shown = frame.head(max_rows)
     for rec in shown.itertuples(index=False):
         where = Text("  ")
