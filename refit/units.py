@@ -275,7 +275,6 @@ def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
         A declared unit cannot be converted to the canonical one (naming the column, the
         unit and the accepted units), or two columns map to the same canonical column.
     """
-    reg = ureg()
     plan: dict[str, str] = {}
     lines, problems = [], []
     claimed: dict[str, str] = {}
@@ -301,7 +300,7 @@ def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
             if str(name) != target:
                 lines.append(f"column {name!r} -> {target} (renamed)")
             continue
-        dst = reg.parse_units(dst_name)
+        dst = ureg().parse_units(dst_name)
         src = _pint_unit(unit_text, target)
         if src is None or src.dimensionality != dst.dimensionality:
             dim = str(dst.dimensionality) if str(dst.dimensionality) != "dimensionless" \
