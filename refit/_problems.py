@@ -15,16 +15,21 @@ PROBLEM_COLUMNS = ["severity", "rule", "row", "profile_id", "column", "value", "
 
 
 def fmt_values(values) -> pd.Series:
-    """Numbers as short text: 95 not 95.0, 12.5 stays 12.5, NaN as ''."""
+    """Numbers as short text: 95 not 95.0, 12.5 stays 12.5, NaN as ''.
+
+    Each distinct value is formatted once, so long runs of repeated values are cheap.
+    """
     s = pd.Series(values) if not isinstance(values, pd.Series) else values
-    v = pd.to_numeric(s, errors="coerce").astype("float64")
-    arr = v.to_numpy()
-    integral = np.isfinite(arr) & (arr == np.round(arr)) & (np.abs(arr) < 2**53)
-    text = v.astype("str").to_numpy(dtype=object)
-    ints = np.where(integral, arr, 0).astype("int64").astype("str").astype(object)
-    out = np.where(integral, ints, text)
-    out = np.where(np.isnan(arr), "", out)
-    return pd.Series(out, index=s.index, dtype=object)
+    v = pd.to_numeric(s, errors="coerce").to_numpy(dtype="float64")
+    codes, uniques = pd.factorize(v)  # NaN gets code -1
+    texts = np.array([_fmt_number(x) for x in uniques] + [""], dtype=object)
+    return pd.Series(texts[codes], index=s.index, dtype=object)
+
+
+def _fmt_number(x: float) -> str:
+    if np.isfinite(x) and x == round(x) and abs(x) < 2**53:
+        return str(int(x))
+    return repr(float(x))
 
 
 def column_hint(name: str) -> str:

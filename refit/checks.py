@@ -288,14 +288,13 @@ def _parse_number_column(s, name, missing_tokens, probs: Problems) -> pd.Series:
     """float64 values; reports text ('not-a-number') and infinity ('not-finite')."""
     if pd.api.types.is_numeric_dtype(s):
         num = s.astype("float64")
-    else:
-        text = s.astype("str").str.strip()
-        empty = text.isna() | text.isin(missing_tokens)
-        num = pd.to_numeric(text.where(~empty), errors="coerce").astype("float64")
-        bad = ~empty & num.isna()
+    else:  # parse everything, then look closer only at the cells that failed
+        num = pd.to_numeric(s, errors="coerce").astype("float64")
+        failed = np.flatnonzero((num.isna() & s.notna()).to_numpy())
+        text = s.iloc[failed].astype("str").str.strip()
+        bad = ~text.isin(missing_tokens).to_numpy()
         if bad.any():
-            pos = np.flatnonzero(bad.to_numpy())
-            vals = text.iloc[pos]
+            pos, vals = failed[bad], text[bad]
             probs.add("error", "not-a-number", pos, name, vals,
                       "'" + vals + f"' in {name} is not a number. " + _number_fix(name))
             probs.flag(pos, name)
