@@ -332,7 +332,8 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     store_dir : str or Path
         The store folder; created (named after the folder) when it does not exist.
     dry_run : bool
-        Work out and return the same accounting, but write nothing.
+        Work out and return the same accounting, but write nothing. (An interrupted earlier
+        admit is still finished or undone first, as by any store operation.)
     vocabularies : dict, optional
         Vocabularies (from :func:`refit.checks.load_vocabularies`); default the shipped ones
         extended by ``STORE/vocabularies.json`` and ``vocab_files``.
@@ -370,7 +371,7 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     except InvalidDataError as exc:
         raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
                                f"{exc}") from None
-    if state == "missing" and dry_run:
+    if state != "store" and dry_run:  # nothing to lock or recover; create nothing
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
                              True, vocabularies, vocab_files, today, tolerance_deg)
     store_dir.mkdir(parents=True, exist_ok=True)
