@@ -374,14 +374,19 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     if state != "store" and dry_run:  # nothing to lock or recover; create nothing
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
                              True, vocabularies, vocab_files, today, tolerance_deg)
+    was_missing = state == "missing"
     store_dir.mkdir(parents=True, exist_ok=True)
-    with _locked(store_dir, lock_timeout):
-        recovered = recover(store_dir)
-        state = _state(store_dir)
-        store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
-        store.recovered = recovered
-        return _admit_locked(table, incoming, frame, mappings, store, state != "store",
-                             dry_run, vocabularies, vocab_files, today, tolerance_deg)
+    try:
+        with _locked(store_dir, lock_timeout):
+            recovered = recover(store_dir)
+            state = _state(store_dir)
+            store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
+            store.recovered = recovered
+            return _admit_locked(table, incoming, frame, mappings, store, state != "store",
+                                 dry_run, vocabularies, vocab_files, today, tolerance_deg)
+    finally:
+        if was_missing and not (store_dir / "manifest.json").exists():
+            shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
 
 
 def _iso_day(today) -> str:

@@ -457,3 +457,10 @@ def test_read_only_store_opens_without_its_lock(base_store, monkeypatch):
     (base_store / ".pending-x").mkdir()
     with pytest.raises(InvalidDataError, match="read-only"):
         open_store(base_store)
+
+
+def test_failed_first_admit_leaves_no_folder(tmp_path):
+    table = write_csv(tmp_path / "t.csv", [["X", "1"]], ["profile_id", "bk_depth_cm"])
+    with pytest.raises(InvalidDataError):
+        admit(table, tmp_path / "new")
+    assert not (tmp_path / "new").exists()

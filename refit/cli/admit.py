@@ -14,21 +14,25 @@ MAX_LISTED = 40
 @click.option("--into", "store", required=True, metavar="STORE", type=click.Path(path_type=str),
               help="Store folder; created (named after the folder) if it does not exist.")
 @click.option("--dry-run", is_flag=True, help="Show what would happen; write nothing.")
-@click.option("--vocab", metavar="FILE", type=click.Path(path_type=str),
-              help="Extra vocabulary terms (JSON), on top of STORE/vocabularies.json.")
+@click.option("--vocab", "vocab_files", metavar="FILE", multiple=True,
+              type=click.Path(dir_okay=False, path_type=str),
+              help='Extra vocabulary terms, a JSON file like {"vegetation": ["new term"]}, '
+                   "on top of STORE/vocabularies.json; repeatable.")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Report for people (text) or programs (json).")
 @click.option("--strict", is_flag=True,
               help="Exit with code 1 when any row was rejected (the admit still lands).")
 @guarded
-def admit(table: str, store: str, dry_run: bool, vocab: str | None, fmt: str,
+def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
           strict: bool) -> None:
     """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
 
     Column names and units are mapped to the canonical ones (e.g. 'MAP (in)' -> map_mm),
     every row is checked, duplicates of stored soils are caught, accepted rows are appended
     as a new dataset version, and every rejected row is kept unchanged, with its reasons, in
-    STORE/quarantine/. The whole admit lands or nothing does.
+    STORE/quarantine/. The whole admit lands or nothing does; an interrupted admit is
+    finished or undone by the next command that opens the store. A second admit into the
+    same store waits up to 5 s for the first, then stops with a 'busy' error.
 
     \b
     Exit codes: 0 admitted (rejected rows are in quarantine; see --strict), 1 invalid
@@ -42,7 +46,7 @@ def admit(table: str, store: str, dry_run: bool, vocab: str | None, fmt: str,
 
     from refit.store import admit as run_admit
 
-    result = run_admit(table, store, dry_run=dry_run, vocab_files=[vocab] if vocab else [])
+    result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files))
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
     else:
