@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
+import functools
 import io
 import json
 import os
@@ -76,7 +77,7 @@ class Store:
     def name(self) -> str:
         return str(self.manifest["name"])
 
-    @property
+    @functools.cached_property
     def records(self) -> pd.DataFrame:
         """Records with schema number columns as float64 and empty cells as missing."""
         return typed_records(self.records_text)
