@@ -411,18 +411,12 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written:\n"
                                + "\n".join(lines))
     n = len(frame)
-    bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
-    dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
-    problems = _all_problems(report, dups, table.source_rows)
-    problems["file_column"] = _file_columns(problems["column"], incoming.columns)
-    rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
+    rejected, problems = _split_rows(report, frame, store, table.source_rows,
+                                     incoming.columns, tolerance_deg)
     version = store.version + 1
     stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
     q_rel = f"quarantine/{version:04d}-{stem}.csv" if rejected.any() else None
     p_rel = f"quarantine/{version:04d}-{stem}.problems.csv" if len(problems) else None
-    problems["outcome"] = np.where(
-        problems["row"].isna(), "",
-        np.where(problems["row"].isin(table.source_rows[rejected]), "quarantined", "admitted"))
     records = _new_records(store.records_text, report.frame.loc[~rejected], today)
     data = records_bytes(records)
     reasons = _reason_counts(problems, table.source_rows[rejected])
@@ -452,6 +446,20 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         files[p_rel] = problems.to_csv(index=False, lineterminator="\n").encode("utf-8")
     _commit(store.path, files, {"version": version, "source_file": entry["source_file"]})
     return result
+
+
+def _split_rows(report, frame, store, source_rows, file_columns, tolerance_deg):
+    """(rejected mask, problems table with file_column and outcome) for a checked batch."""
+    n = len(frame)
+    bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
+    dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
+    problems = _all_problems(report, dups, source_rows)
+    problems["file_column"] = _file_columns(problems["column"], file_columns)
+    rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
+    problems["outcome"] = np.where(
+        problems["row"].isna(), "",
+        np.where(problems["row"].isin(source_rows[rejected]), "quarantined", "admitted"))
+    return rejected, problems
 
 
 # --------------------------------------------------------------------------------------
