@@ -323,7 +323,7 @@ class AdmitResult:
 
 def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
           today: str | dt.date | None = None, tolerance_deg: float = DUPLICATE_TOLERANCE_DEG,
-          lock_timeout: float = LOCK_TIMEOUT_S) -> AdmitResult:
+          lock_timeout: float | None = None) -> AdmitResult:
     """Admit the rows of a table into a store: check, split, append, quarantine, version.
 
     Parameters
@@ -344,8 +344,9 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
         Date for ``added_on`` and the changelog (ISO); default today.
     tolerance_deg : float
         Same-site tolerance of the duplicate check [degree].
-    lock_timeout : float
-        Seconds to wait for another process to release the store [s].
+    lock_timeout : float, optional
+        Seconds to wait for another process to release the store [s]; default
+        ``LOCK_TIMEOUT_S``.
 
     Returns
     -------
@@ -378,7 +379,7 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     was_missing = state == "missing"
     store_dir.mkdir(parents=True, exist_ok=True)
     try:
-        with _locked(store_dir, lock_timeout):
+        with _locked(store_dir, LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout):
             recovered = recover(store_dir)
             state = _state(store_dir)
             store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
