@@ -30,12 +30,23 @@ def fsync_dir(folder: Path) -> None:
         os.close(fd)
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def write_bytes_atomic(path: Path | str, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically (temporary file, fsync, rename)."""
+    """Write ``data`` to ``path`` atomically (temporary file, fsync, rename).
+
+    The file gets the usual permissions for a new file (0666 minus the umask), not the
+    private 0600 that temporary files start with.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=TMP_PREFIX + path.name + ".", dir=path.parent)
     try:
+        os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
