@@ -414,3 +414,32 @@ def test_header_without_rows_is_valid_with_a_warning():
     report = check_frame(base().iloc[:0])
     assert report.ok and report.n_rows == 0
     assert cells(report, "no-rows") == [(None, "", "")]
+
+
+# values around every bound, text, infinity and gaps, for the shortcut test below
+_cell = st.one_of(
+    st.sampled_from([np.nan, np.inf, -np.inf, -1000.5, -180.0, -90.0, -40.5, -1e-9, 0.0,
+                     40.0, 90.0, 90.01, 100.0, 180.5, 1000.0, 12000.0, 12000.5]),
+    st.floats(min_value=-200, max_value=13000, allow_nan=False),
+    st.sampled_from(["", "NA", " 12 ", "abc"]),
+)
+_COLUMNS = ["latitude", "longitude", "map_mm", "mat_c", "mar_mm", "bk_depth_cm",
+            "bk_thickness_cm", "al2o3_wt", "slope_deg"]
+
+
+@given(st.lists(st.tuples(*[_cell] * len(_COLUMNS)), min_size=1, max_size=8),
+       st.lists(st.sampled_from(["T1", "T2", "T3", None]), min_size=8, max_size=8))
+def test_prescan_shortcut_gives_the_same_problems_as_full_pandera(rows, ids):
+    # reference: pandera validating every column of the schema (PRESCREEN off)
+    import refit.checks as checks
+
+    frame = pd.DataFrame(rows, columns=_COLUMNS, dtype=object)
+    frame["profile_id"] = ids[: len(frame)]
+    frame["source"] = "survey_alder_2020"
+    fast = checks.check_frame(frame).problems
+    checks.PRESCREEN = False
+    try:
+        full = checks.check_frame(frame).problems
+    finally:
+        checks.PRESCREEN = True
+    pd.testing.assert_frame_equal(fast, full)
