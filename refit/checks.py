@@ -472,7 +472,7 @@ def _warn_horizons(work: pd.DataFrame, probs: Problems) -> None:
     if "bk_depth_cm" in cols and "by_depth_cm" in cols:
         bk, by = work["bk_depth_cm"], work["by_depth_cm"]
         # common practice: gypsic (By) horizons normally lie below the calcic (Bk)
-        # horizon (gypsum is more soluble and is leached deeper; Bockheim 2014)
+        # horizon (gypsum is more soluble and is leached deeper; Bockheim 2014, from memory)
         pos = np.flatnonzero((by < bk).to_numpy())
         if len(pos):
             probs.add("warning", "gypsum-above-carbonate", pos, "by_depth_cm",
