@@ -160,8 +160,13 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
 
     table = read_table(path, as_text=False)
     frame, mapped = normalise_columns(table.frame)
-    return check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
-                       path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
+    report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
+                         path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
+    if mapped and not report.problems.empty:
+        from refit.units import add_file_context
+
+        report.problems = add_file_context(report.problems, table.frame, table.source_rows)
+    return report
 
 
 def _check_kind(kind: str) -> None:

@@ -413,7 +413,7 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
                                + "\n".join(lines))
     n = len(frame)
     rejected, problems = _split_rows(report, frame, store, table.source_rows,
-                                     incoming.columns, tolerance_deg)
+                                     incoming, tolerance_deg)
     version = store.version + 1
     stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
     q_rel = f"quarantine/{version:04d}-{stem}.csv" if rejected.any() else None
@@ -449,13 +449,15 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
     return result
 
 
-def _split_rows(report, frame, store, source_rows, file_columns, tolerance_deg):
+def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
     """(rejected mask, problems table with file_column and outcome) for a checked batch."""
+    from refit.units import add_file_context
+
     n = len(frame)
     bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
     dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
-    problems = _all_problems(report, dups, source_rows)
-    problems["file_column"] = _file_columns(problems["column"], file_columns)
+    problems = add_file_context(_all_problems(report, dups, source_rows), original,
+                                source_rows)
     rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
     problems["outcome"] = np.where(
         problems["row"].isna(), "",
@@ -597,15 +599,6 @@ def _reason_counts(problems: pd.DataFrame, rejected_rows: np.ndarray) -> dict[st
 def _warning_counts(problems: pd.DataFrame) -> dict[str, int]:
     counts = problems.loc[problems["severity"] == "warning", "rule"].value_counts()
     return {str(k): int(v) for k, v in counts.items()}
-
-
-def _file_columns(columns: pd.Series, original) -> list[str]:
-    """The incoming file's own name(s) of each problem's column ('' when not in the file)."""
-    from refit.units import canonical_for
-
-    names = {canonical_for(str(c)) or str(c): str(c) for c in original}
-    return ["|".join(names[p] for p in str(c).split("|") if p in names) if c == c else ""
-            for c in columns]
 
 
 def _row_reasons(problems: pd.DataFrame) -> dict[int, list[str]]:

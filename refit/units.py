@@ -324,3 +324,83 @@ def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
     for name, values in converted.items():
         out[name] = values
     return out.rename(columns=plan), lines
+
+
+def column_origins(columns) -> dict[str, tuple[str, str | None]]:
+    """Where each canonical column came from in a file: ``{canonical: (file column, unit)}``.
+
+    ``unit`` is the unit text declared in the file's column name when the values were
+    converted (e.g. ``('Depth to Bk (in)', 'in')``), ``None`` when they were only renamed or
+    kept. Columns refit does not know map to themselves.
+    """
+    out: dict[str, tuple[str, str | None]] = {}
+    for name in columns:
+        parsed = parse_name(str(name))
+        if parsed is None:
+            out.setdefault(str(name), (str(name), None))
+            continue
+        target, unit_text = parsed
+        dst_name = _canonical_unit(target)
+        converted = None
+        if unit_text is not None and dst_name is not None:
+            src = _pint_unit(unit_text, target)
+            if src is not None and src != ureg().parse_units(dst_name):
+                converted = unit_text
+        out.setdefault(target, (str(name), converted))
+    return out
+
+
+def add_file_context(problems: pd.DataFrame, original: pd.DataFrame,
+                     source_rows) -> pd.DataFrame:
+    """Say, for each problem, which column of the file it is about and what the file held.
+
+    Adds a ``file_column`` column (the file's own column name, '' when the problem is not
+    about a column of the file; ``a|b`` for problems about several columns) and, where the
+    values were converted to canonical units, appends the file's original cell to the
+    message, so a researcher sees the number they typed, not only the converted one.
+
+    Parameters
+    ----------
+    problems : pandas.DataFrame
+        A problems table (see :class:`refit.checks.CheckReport`).
+    original : pandas.DataFrame
+        The table as read, with the file's own column names, rows in file order.
+    source_rows : array of int
+        File row number of each row of ``original``.
+    """
+    out = problems.copy()
+    origins = column_origins(original.columns)
+    if out.empty:
+        out["file_column"] = pd.Series(dtype=object)
+        return out
+    position = {int(r): i for i, r in enumerate(np.asarray(source_rows))}
+    file_cols, messages = [], []
+    for col, row, msg in zip(out["column"], out["row"], out["message"]):
+        parts = str(col).split("|") if isinstance(col, str) and col else []
+        file_cols.append("|".join(origins[p][0] for p in parts if p in origins))
+        if row is not pd.NA and row == row and int(row) in position:
+            msg = _with_original(msg, parts, origins, original, position[int(row)])
+        messages.append(msg)
+    out["file_column"] = file_cols
+    out["message"] = messages
+    return out
+
+
+def _with_original(message: str, parts, origins, original, i: int) -> str:
+    """Append the file's own number and unit for cells that were converted."""
+    from refit._problems import column_hint
+
+    said = []
+    for canon in parts:
+        fcol, unit = origins.get(canon, (None, None))
+        if not unit:
+            continue
+        cell = original[fcol].iloc[i]
+        number = pd.to_numeric(pd.Series([cell]), errors="coerce").iloc[0]
+        if number != number:  # text stays text: the message already quotes it
+            continue
+        message = message.replace(column_hint(canon), "")
+        suffix = canon.rsplit("_", 1)[-1]
+        said.append(f"the file's column {fcol!r} holds {number:g} {unit}, which refit "
+                    f"converted to {suffix if suffix != 'c' else '°C'}")
+    return message if not said else f"{message} (Note: {'; '.join(said)}.)"

@@ -139,3 +139,25 @@ def test_renames_are_reported_and_values_untouched():
     assert list(out.columns) == ["latitude", "map_mm"]
     assert out["latitude"].iloc[0] == "-40.5"
     assert lines == ["column 'Latitude' -> latitude (renamed)"]
+
+
+def test_problems_name_the_file_column_and_the_number_as_typed(tmp_path):
+    """A range error on a converted column quotes the file's own value and unit."""
+    from refit.checks import check_file
+
+    path = tmp_path / "inches.csv"
+    path.write_text(
+        "Profile ID,Lat,Long,Source,MAP (in),Depth to Bk (in),Bk thickness (in)\n"
+        "P-1,-40,54,S1,20,-4,10\n"
+        "P-2,-40,54.1,S1,21,8,10\n",
+        encoding="utf-8",
+    )
+    report = check_file(path)
+    err = report.errors[report.errors["rule"] == "range"]
+    assert list(err["row"]) == [2]
+    assert list(err["file_column"]) == ["Depth to Bk (in)"]
+    # -4 in x 2.54 cm/in = -10.16 cm (1 in = 2.54 cm exactly, NIST SP 811)
+    assert list(err["value"]) == ["-10.16"]
+    message = err["message"].iloc[0]
+    assert "holds -4 in" in message and "converted to cm" in message
+    assert "needs that unit in the column name" not in message
