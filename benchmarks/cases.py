@@ -52,7 +52,7 @@ class Context:
             return self.repeats
         if self.quick:
             return 1
-        return 5 if n <= 10_000 else 3 if n <= 100_000 else 2
+        return 5 if n <= 10_000 else 3
 
 
 @dataclass
@@ -68,6 +68,8 @@ class Row:
     refit_mb: float | None = None
     naive_mb: float | None = None
     note: str = ""
+    refit_runs: list[float] = field(default_factory=list)  # every wall time behind the median
+    naive_runs: list[float] = field(default_factory=list)
 
     @property
     def ratio(self) -> float | None:
@@ -140,7 +142,8 @@ def help_startup(ctx: Context) -> CaseResult:
         if bad:
             note += f"; exit codes {got.returncodes}: {got.last.stderr.strip()[-200:]}"
         result.rows.append(Row("help", None, label, NAIVE_LABEL,
-                               got.wall_s, naive.wall_s, got.peak_mb, naive.peak_mb, note))
+                               got.wall_s, naive.wall_s, got.peak_mb, naive.peak_mb, note,
+                               _walls(got), _walls(naive)))
         result.targets.append(Target(f"`{label}` wall time", None if bad else got.wall_s,
                                      HELP_LIMIT_S, "s"))
     return result
@@ -195,7 +198,8 @@ def check_table(ctx: Context) -> CaseResult:
         if any(c != 0 for c in codes):
             note += f"; EXIT {codes} (expected 0): {_first_lines(refit_s.last)}"
         result.rows.append(Row("check", n, "refit check FILE", naive_label, refit_s.wall_s,
-                               got["naive"].wall_s, refit_s.peak_mb, got["naive"].peak_mb, note))
+                               got["naive"].wall_s, refit_s.peak_mb, got["naive"].peak_mb, note,
+                               _walls(refit_s), _walls(got["naive"])))
         result.rows.append(_in_process_row(ctx, n, path))
         if n == TARGET_ROWS:
             result.targets += [
@@ -234,7 +238,11 @@ def _in_process_row(ctx: Context, n: int, path: Path) -> Row:
     return Row("check (in-process)", n, "refit.checks.check_file(FILE)",
                "pandas.read_csv(FILE)", med(lib_ok, "work_s"), med(naive_ok, "work_s"),
                max(r.peak_mb for r, _ in lib), max(r.peak_mb for r, _ in naive),
-               "; ".join(note_bits))
+               "; ".join(note_bits), [x["work_s"] for x in lib_ok], [x["work_s"] for x in naive_ok])
+
+
+def _walls(summary: measure.Summary) -> list[float]:
+    return [round(r.wall_s, 4) for r in summary.runs]
 
 
 def _first_lines(run: measure.Run, k: int = 3) -> str:
