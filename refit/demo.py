@@ -73,11 +73,10 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult
     check_json = out / "check-incoming.json"
     check_json.write_text(json.dumps(report.to_dict(), indent=2, default=str) + "\n", encoding="utf-8")
     result.outputs["check report (json)"] = check_json
-    for note in report.notes:
-        say(f"   {note}")
     say(
-        f"   {report.n_rows} rows: {len(report.errors)} errors in "
-        f"{len(report.bad_rows())} rows, {len(report.warnings)} warnings"
+        f"   {report.n_rows} rows: {len(report.errors)} error(s) in "
+        f"{len(report.bad_rows())} row(s), {len(report.warnings)} warning(s) "
+        f"(every problem in {check_json.name}; `refit check` prints them)"
     )
 
     say(f"[bold]2. Admit[/bold] them into a copy of the demo store: {store}")

@@ -59,7 +59,7 @@ def test_invalid_table_text_report():
     assert "8 errors" in out and "2 warnings" in out
     assert "row 5  profile_id VX-13  map_mm = 'dry'  [not-a-number]" in out
     assert "summary per rule" in out and "mar-above-map" in out
-    assert "INVALID: 8 error(s) in 3 row(s)" in out
+    assert "INVALID: 8 errors in 3 rows" in out
     assert out.index("8 errors") < out.index("2 warnings") < out.index("summary per rule")
 
 

@@ -59,3 +59,32 @@ def stdout_console():
     from rich.console import Console
 
     return Console(highlight=False, soft_wrap=True)
+
+
+def plural(n: int, word: str) -> str:
+    """'1 row', '2 rows'."""
+    return f"{n} {word}" if n == 1 else f"{n} {word}s"
+
+
+def compact_notes(notes: list[str], width: int = 96) -> list[str]:
+    """Reader and mapping notes for people: plain renames folded into a few lines.
+
+    Unit conversions keep a line each (they change numbers, so they must stand out);
+    columns that were only renamed are listed together.
+    """
+    import re
+    import textwrap
+
+    renamed, out = [], []
+    for note in notes:
+        m = re.match(r"column '(.*)' -> (\w+) \(renamed(?:; already in [^)]*)?\)$", note)
+        if m:
+            renamed.append(f"'{m.group(1)}'->{m.group(2)}")
+        else:
+            out.append(note)
+    if renamed:
+        text = f"renamed {plural(len(renamed), 'column')}: " + ", ".join(renamed)
+        lines = textwrap.wrap(text.replace(" ", "\0").replace(",\0", ", "), width=width,
+                              break_long_words=False, break_on_hyphens=False)
+        out.append("\n    ".join(line.replace("\0", " ") for line in lines))
+    return out

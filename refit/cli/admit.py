@@ -66,8 +66,10 @@ def render(result) -> list[str]:
         out.append(f"New store: {verb} the store '{store.name}' in {store}.")
     out.append(f"Read {result.table}: {result.rows_read} rows ({'; '.join(result.reader_notes[1:])}).")
     if result.mappings:
+        from refit.cli._common import compact_notes
+
         out.append("Columns mapped:")
-        out += [f"  {line}" for line in result.mappings]
+        out += [f"  {line}" for line in compact_notes(result.mappings)]
     out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
                f"{result.rejected}.")
     would = "would go" if result.dry_run else "went"

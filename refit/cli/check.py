@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded, stdout_console
+from refit.cli._common import compact_notes, guarded, plural, stdout_console
 
 MAX_ROWS_DEFAULT = 50
 
@@ -57,8 +57,8 @@ def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> N
     from rich.text import Text
 
     console = console or stdout_console()
-    console.print(Text(f"Checked {report.path}: {report.n_rows} rows", style="bold"))
-    for note in report.notes:
+    console.print(Text(f"Checked {report.path}: {plural(report.n_rows, 'row')}", style="bold"))
+    for note in compact_notes(report.notes):
         console.print(Text(f"  - {note}", style="dim"))
     for severity, frame, style in (("errors", report.errors, "red"),
                                    ("warnings", report.warnings, "yellow")):
@@ -68,11 +68,12 @@ def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> N
         _summary_table(console, report.summary())
     n_err, n_warn = len(report.errors), len(report.warnings)
     if report.ok:
-        verdict = Text(f"VALID: no errors, {n_warn} warning(s).", style="bold green")
+        verdict = Text(f"VALID: no errors, {plural(n_warn, 'warning')}.", style="bold green")
     else:
-        verdict = Text(f"INVALID: {n_err} error(s) in {len(report.bad_rows())} row(s) "
-                       f"and {len(report.table_errors())} about the whole table; "
-                       f"{n_warn} warning(s).", style="bold red")
+        verdict = Text(f"INVALID: {plural(n_err, 'error')} in "
+                       f"{plural(len(report.bad_rows()), 'row')} and "
+                       f"{len(report.table_errors())} about the whole table; "
+                       f"{plural(n_warn, 'warning')}.", style="bold red")
     console.print(verdict)
 
 
