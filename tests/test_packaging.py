@@ -1,0 +1,43 @@
+"""The wheel ships what the installed CLI needs: schemas and the demo scenario.
+
+Checked against pyproject.toml's package-data patterns (globbed like setuptools does: '*' stays in one folder), so a new
+file under schemas/ or calib_demo/ that the patterns miss fails here, not on a user's machine.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _shipped(package: str, folder: str) -> tuple[list[str], list[str]]:
+    config = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
+    patterns = config["tool"]["setuptools"]["package-data"][package]
+    files = [p.relative_to(ROOT / folder).as_posix() for p in (ROOT / folder).rglob("*")
+             if p.is_file() and "__pycache__" not in p.parts and p.name != ".lock"]
+    matched = {m.relative_to(ROOT / folder).as_posix()
+               for pat in patterns for m in (ROOT / folder).glob(pat)}
+    missing = [f for f in files if f not in matched]
+    return files, missing
+
+
+def test_every_schema_file_is_shipped():
+    files, missing = _shipped("refit.schemas", "schemas")
+    assert "calibration.table.json" in files
+    assert missing == []
+
+
+def test_every_demo_file_is_shipped():
+    files, missing = _shipped("refit.calib_demo", "calib_demo")
+    assert {"incoming_soils.csv", "recipe.toml", "store/records.csv",
+            "store/manifest.json"} <= set(files)
+    assert missing == []
+
+
+def test_package_dirs_point_at_the_top_level_folders():
+    config = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
+    assert config["tool"]["setuptools"]["package-dir"] == {
+        "refit.schemas": "schemas", "refit.calib_demo": "calib_demo"}
+    assert config["project"]["scripts"]["refit"] == "refit.cli:main"
