@@ -263,3 +263,66 @@ def check_enough(n: int, need: int, what: str, result: SubsetResult | None = Non
     raise InvalidDataError(f"{where + ': ' if where else ''}the subset keeps {n} row(s), but "
                            f"{what} needs at least {need}{trail}; widen the [subset] filters "
                            "or add records")
+
+
+# ----------------------------------------------------------------------------- the data
+def load_data(recipe):
+    """The records a recipe names, and where they came from.
+
+    A store is read at its current version (its name, version and records hash are
+    returned); a table is read, its units and column names normalised and checked, and
+    refused if the check finds errors.
+
+    Returns
+    -------
+    (pandas.DataFrame, dict, str)
+        The records, the provenance (``kind``, ``path``, ``name``, ``version``,
+        ``sha256``, ``rows``) and a short description for messages.
+    """
+    from .errors import UnreadableInputError
+
+    if recipe.store is not None:
+        from .store import open_store
+
+        if not (recipe.store / "manifest.json").is_file():
+            raise UnreadableInputError(f"{recipe.where('data.store')}: [data] store "
+                                       f"{str(recipe.store)!r} is not a refit store (no "
+                                       "manifest.json); check the path, relative to the recipe")
+        store = open_store(recipe.store)
+        info = {"kind": "store", "path": str(recipe.store), "name": store.name,
+                "version": store.version, "sha256": store.manifest.get("records_sha256"),
+                "rows": int(len(store.records))}
+        return store.records, info, f"store {store.name!r} (version {store.version})"
+    from .checks import check_file
+
+    report = check_file(recipe.table)
+    if not report.ok:
+        raise InvalidDataError(
+            f"{recipe.where('data.table')}: table {str(recipe.table)!r} has "
+            f"{len(report.errors)} error(s) in {len(report.bad_rows())} row(s); run "
+            f"`refit check {recipe.table}` to see them, then fix the table or admit it to "
+            "a store (bad rows are quarantined there)")
+    from ._atomic import sha256_file
+
+    info = {"kind": "table", "path": str(recipe.table), "name": recipe.table.name,
+            "version": None, "sha256": sha256_file(recipe.table),
+            "rows": int(report.n_rows)}
+    return report.frame, info, f"table {recipe.table.name!r}"
+
+
+def select(recipe, frame, source: str) -> SubsetResult:
+    """Apply a recipe's filters and keep rows with every column the fit needs.
+
+    The needed columns are the response, the predictors, the group column of a grouped
+    scheme and latitude/longitude for spatial blocks.
+    """
+    from .recipe import check_columns
+
+    check_columns(recipe, frame.columns, source=source)
+    result = apply_filters(frame, recipe.subset, source=source)
+    needed = [recipe.response, *recipe.predictors]
+    if recipe.groups:
+        needed.append(recipe.groups)
+    if recipe.scheme == "spatial-block":
+        needed += ["latitude", "longitude"]
+    return drop_incomplete(result, needed)

@@ -1,0 +1,149 @@
+"""`refit fit`: run a recipe's fit matrix, print the leaderboard, write a run folder."""
+
+from __future__ import annotations
+
+import sys
+
+import click
+
+from refit.cli._common import guarded, stderr_console, stdout_console
+
+SHOWN = 20  # leaderboard rows printed (all are in the files)
+
+
+@click.command("fit")
+@click.argument("recipe", type=click.Path(dir_okay=False, path_type=str))
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=str), default=None,
+              metavar="RUN", help="Run folder to write [default: runs/<function id>-<time>].")
+@click.option("--overwrite", is_flag=True, help="Replace an existing run folder.")
+@click.option("--jobs", type=click.IntRange(min=-1), default=1, show_default=True,
+              help="Parallel workers for the folds (-1: all cores).")
+@click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
+@guarded
+def fit(recipe, out, overwrite, jobs, quiet) -> None:
+    """Cross-validate every candidate of a RECIPE and rank them.
+
+    Reads the recipe (TOML), selects the subset of the store or table it names, fits
+    every valid form x estimator x direction x interval method, scores each under the
+    recipe's validation scheme and under random k-fold side by side, prints the
+    leaderboard and writes the run folder: leaderboard.csv/.json, oof_predictions.csv,
+    fits/<candidate>.json and run.json.
+
+    \b
+    Exit codes: 0 done, 1 invalid data (missing column, too few rows, a scheme that
+    cannot split the subset), 2 unreadable or invalid recipe, usage error.
+
+    \b
+    Examples:
+      refit fit calib_demo/recipe.toml
+      refit fit my_recipe.toml --out runs/bk-map --jobs 2
+    """
+    import datetime as dt
+    from pathlib import Path
+
+    from refit.matrix import run_recipe
+    from refit.recipe import read_recipe
+    from refit.runfolder import check_target, write_run
+
+    rec = read_recipe(recipe)
+    if out is None:
+        stamp = dt.datetime.now().strftime("%Y%m%d-%H%M%S")
+        out = Path("runs") / f"{rec.function_id}-{stamp}"
+    check_target(Path(out), overwrite=overwrite)
+    err = stderr_console(quiet=quiet or not sys.stderr.isatty())
+    with _Progress(err) as progress:
+        run = run_recipe(rec, n_jobs=jobs, progress=progress)
+    written = write_run(run, out, argv=["refit", "fit", *sys.argv[2:]], overwrite=overwrite)
+    print_run(run, written)
+
+
+class _Progress:
+    """A rich progress bar on stderr driven by ``progress(total=...)`` / ``(advance=1)``."""
+
+    def __init__(self, console):
+        self.console = console
+        self.bar = None
+        self.task = None
+
+    def __enter__(self):
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+        self.bar = Progress(TextColumn("{task.description}"), BarColumn(),
+                            MofNCompleteColumn(), console=self.console, transient=True)
+        self.bar.__enter__()
+        self.task = self.bar.add_task("cross-validating", total=None)
+        return self
+
+    def __call__(self, *, total=None, advance=0, label=None):
+        if total is not None:
+            self.bar.update(self.task, total=total)
+        if advance:
+            self.bar.update(self.task, advance=advance, description=label or "")
+
+    def __exit__(self, *exc):
+        self.bar.__exit__(*exc)
+        return False
+
+
+def _num(v, fmt="{:.1f}") -> str:
+    import math
+
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return "-"
+    return fmt.format(v)
+
+
+def print_run(run, out, console=None) -> None:
+    """Print the data, the subset, the leaderboard, the verdict and the cautions."""
+    from rich.table import Table
+    from rich.text import Text
+
+    from refit.coefficients import CAUTION
+
+    c = console or stdout_console()
+    d, m, r = run.data, run.matrix, run.recipe
+    version = f", version {d['version']}" if d.get("version") is not None else ""
+    c.print(Text(f"Data: {d['kind']} {d['name']}{version}, sha256 {d['sha256']}", style="bold"))
+    c.print(f"Subset: {run.subset.n_start} records")
+    for s in run.subset.steps:
+        c.print(f"  {s['step']}: {s['kept']} kept ({s['removed']} removed)")
+    for note in run.subset.notes:
+        c.print(Text(f"  note: {note}", style="yellow"))
+    main, kf = m.schemes["main"], m.schemes["kfold"]
+    c.print(f"Validation: {_scheme_text(main)}"
+            + (f"; beside it random {_scheme_text(kf)}" if kf is not None else ""))
+    c.print(f"Candidates: {len(m.specs)} fitted, {len(m.skipped)} skipped; interval level "
+            f"{r.level:g}")
+    table = Table(title=f"Leaderboard: {r.function_id} ({main.name})", title_justify="left")
+    heads = ["#", "candidate", "RMSEP", "bias", "coverage", "width", "score", "k-fold RMSEP",
+             "k-fold score", "R² in", "AIC"]
+    for h in heads:
+        table.add_column(h, justify="left" if h == "candidate" else "right")
+    for row in m.leaderboard.head(SHOWN).itertuples(index=False):
+        table.add_row(str(row.rank), row.candidate + ("" if row.coverage_ok else " *"),
+                      _num(row.rmsep), _num(row.bias), _num(row.coverage, "{:.3f}"),
+                      _num(row.mean_width), _num(row.interval_score),
+                      _num(row.kfold_rmsep), _num(row.kfold_interval_score),
+                      _num(row.r2_in_sample, "{:.3f}"), _num(row.aic))
+    c.print(table)
+    if len(m.leaderboard) > SHOWN:
+        c.print(f"({len(m.leaderboard) - SHOWN} more in leaderboard.csv)")
+    c.print(f"* coverage more than {m.tolerance:.1%} from {r.level:.0%}: ranked after the "
+            "others")
+    c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
+    c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
+    if m.verdict["simpler"]:
+        c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
+    for s in m.skipped:
+        c.print(Text(f"  skipped {s['candidate']}: {s['reason']}", style="dim"))
+    c.print(Text(f"Caution: {CAUTION}", style="yellow"))
+    c.print(f"Run written to {out}")
+
+
+def _scheme_text(s) -> str:
+    if s.name == "loo":
+        return "leave-one-out"
+    if s.name == "leave-one-group-out":
+        return f"leave-one-group-out by {s.groups}"
+    by = f" by {s.groups}" if s.groups else ""
+    return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
