@@ -165,6 +165,7 @@ class MatrixResult:
     cv: dict                     # label -> {"main": CVResult, "kfold": CVResult | None}
     verdict: dict
     schemes: dict                # "main"/"kfold" -> Scheme (kfold None if main is kfold)
+    split_details: dict          # "main"/"kfold" -> the splits' details (groups, blocks)
     tolerance: float
     n: int
     timings: dict = field(default_factory=dict)
@@ -190,15 +191,15 @@ def _candidate(recipe: Recipe, spec: Spec):
                      direction=spec.direction, interval=spec.interval)
 
 
-def _check_scheme(frame, scheme, recipe: Recipe) -> None:
-    """Make the splits once, so scheme errors stop the run with the recipe's line."""
+def _make_splits(frame, scheme, recipe: Recipe):
+    """Make the splits once (every candidate sees the same folds); scheme errors stop the
+    run with the recipe's line."""
     from .crossval import make_splits
 
     try:
-        make_splits(frame, scheme)
+        return make_splits(frame, scheme)
     except RefitError as exc:
-        raise type(exc)(f"{recipe.where('validation.scheme')}: [validation] scheme "
-                        f"{scheme.name!r}: {exc}") from None
+        raise type(exc)(f"{recipe.where('validation.scheme')}: [validation] {exc}") from None
 
 
 def _row(spec: Spec, main, kfold, insample: dict) -> dict:
@@ -221,7 +222,7 @@ def _oof(res, spec: Spec):
     return p
 
 
-def _one(frame, recipe, spec, schemes, n_jobs, tick):
+def _one(frame, recipe, spec, schemes, splits, n_jobs, tick):
     """Fit, cross-validate (both schemes); returns (fit, results) or raises RefitError."""
     from .crossval import cross_validate
 
@@ -233,7 +234,7 @@ def _one(frame, recipe, spec, schemes, n_jobs, tick):
             out[key] = None
             continue
         out[key] = cross_validate(frame, cand, scheme, level=recipe.level, seed=recipe.seed,
-                                  n_jobs=n_jobs)
+                                  n_jobs=n_jobs, splits=splits[key])
         tick(f"{spec.label} ({scheme.name})")
     return f, insample, out
 
@@ -263,9 +264,8 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
     specs, skipped = candidate_grid(recipe)
     main, kfold = schemes_for(recipe, len(frame))
     schemes = {"main": main, "kfold": kfold}
-    for s in schemes.values():
-        if s is not None:
-            _check_scheme(frame, s, recipe)
+    splits = {k: None if s is None else _make_splits(frame, s, recipe)
+              for k, s in schemes.items()}
     per = sum(s is not None for s in schemes.values())
     tick = (lambda label: progress(advance=1, label=label)) if progress else (lambda label: None)
     if progress:
@@ -274,7 +274,7 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
     for spec in specs:
         t = time.perf_counter()
         try:
-            f, insample, res = _one(frame, recipe, spec, schemes, n_jobs, tick)
+            f, insample, res = _one(frame, recipe, spec, schemes, splits, n_jobs, tick)
         except RefitError as exc:
             skipped.append({"candidate": spec.label, "reason": f"failed: {exc}"})
             for _ in range(per):
@@ -287,10 +287,12 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
         preds += [_oof(r, spec) for r in res.values() if r is not None]
     board, tol = rank_candidates(pd.DataFrame(rows), recipe.level, len(frame))
     verdict = explain(board, recipe.level, tol, main.name)
+    verdict["optimism"] = optimism(board)
     predictions = pd.concat(preds, ignore_index=True) if preds else pd.DataFrame()
     times["total"] = round(time.perf_counter() - t0, 4)
+    details = {k: None if v is None else dict(v.details) for k, v in splits.items()}
     return MatrixResult(valid, skipped, board, predictions, fits, cvs, verdict, schemes,
-                        tol, len(frame), times)
+                        details, tol, len(frame), times)
 
 
 # ----------------------------------------------------------------------------- ranking
@@ -345,20 +347,38 @@ def explain(board, level: float, tol: float, scheme: str) -> dict:
                f"{top['candidate']} has the lowest mean interval score "
                f"({top['interval_score']:.4g}) but its coverage is {_pct(top['coverage'])}: "
                "treat every interval here as unreliable")
-    simpler, simpler_why = None, None
-    pool = board[(board["coverage_ok"] == top["coverage_ok"])
-                 & (board["n_params"] < top["n_params"])
-                 & (board["interval_score"] <= top["interval_score"] * (1 + NEAR_FRACTION))]
-    if len(pool):
-        s = pool.iloc[0]
-        simpler = str(s["candidate"])
-        gap = s["interval_score"] / top["interval_score"] - 1
-        simpler_why = (f"{simpler} has {int(top['n_params'] - s['n_params'])} fewer "
-                       f"coefficient(s) and scores within {_pct(gap)} of the winner "
-                       f"({s['interval_score']:.4g}); prefer it unless the difference "
-                       "matters to you")
+    simpler, simpler_why = _simpler(board, top)
     return {"rule": rule, "winner": str(top["candidate"]), "why": why,
             "simpler": simpler, "simpler_why": simpler_why}
+
+
+def _simpler(board, top) -> tuple[str | None, str | None]:
+    """A candidate with fewer coefficients within 5 % of the winner's score, if any."""
+    fewer = board[(board["coverage_ok"] == top["coverage_ok"])
+                  & (board["n_params"] < top["n_params"])]
+    if not len(fewer):
+        return None, None
+    s = fewer.iloc[0]
+    gap = s["interval_score"] / top["interval_score"] - 1
+    if not s["interval_score"] <= top["interval_score"] * (1 + NEAR_FRACTION):
+        return None, (f"no candidate with fewer coefficients comes within "
+                      f"{_pct(NEAR_FRACTION)} of the winner's score; the best of them, "
+                      f"{s['candidate']}, scores {_pct(gap)} worse ({s['interval_score']:.4g})")
+    return str(s["candidate"]), (
+        f"{s['candidate']} has {int(top['n_params'] - s['n_params'])} fewer coefficient(s) "
+        f"and scores within {_pct(gap)} of the winner ({s['interval_score']:.4g}); prefer "
+        "it unless the difference matters to you")
+
+
+def optimism(board) -> dict | None:
+    """How much random k-fold flatters: median ratio of the scheme's RMSEP and interval
+    score to random k-fold's over the candidates (None without a k-fold run beside)."""
+    if "kfold_rmsep" not in board or board["kfold_rmsep"].isna().all():
+        return None
+    r = (board["rmsep"] / board["kfold_rmsep"]).replace([np.inf, -np.inf], np.nan)
+    s = (board["interval_score"] / board["kfold_interval_score"]).replace(
+        [np.inf, -np.inf], np.nan)
+    return {"median_rmsep_ratio": float(r.median()), "median_score_ratio": float(s.median())}
 
 
 # ----------------------------------------------------------------------------- a recipe

@@ -69,6 +69,7 @@ def _leaderboard_json(run) -> dict:
     return {"function_id": run.recipe.function_id, "level": run.recipe.level,
             "scheme": _scheme_dict(m.schemes["main"]),
             "compared_with": _scheme_dict(m.schemes["kfold"]),
+            "split_details": m.split_details,
             "coverage_tolerance": m.tolerance, "n": m.n, "verdict": m.verdict,
             "dataset": run.data, "rows": m.leaderboard.to_dict(orient="records"),
             "skipped": m.skipped, "cautions": [CAUTION]}
@@ -81,13 +82,12 @@ def _run_json(run, argv, created: str) -> dict:
     import refit
 
     m = run.matrix
-    details = {label: r["main"].details for label, r in m.cv.items()}
     return {"created": created, "command": list(argv or []),
             "recipe": {**run.recipe.to_dict(), "text": run.recipe.path.read_text("utf-8")},
             "dataset": run.data, "seed": run.recipe.seed,
             "subset": run.subset.to_dict(),
             "schemes": {k: _scheme_dict(v) for k, v in m.schemes.items()},
-            "scheme_details": next(iter(details.values()), {}),
+            "split_details": m.split_details,
             "candidates": len(m.specs), "skipped": m.skipped,
             "timings": {**run.timings, "per_candidate_s": m.timings},
             "software": {"refit": refit.__version__, "numpy": np.__version__,

@@ -27,7 +27,8 @@ from refit.runfolder import fit_filename, write_run
 
 
 # ----------------------------------------------------------------------------- stand-in
-def _standin_cross_validate(frame, candidate, scheme, *, level=0.95, seed=0, n_jobs=1):
+def _standin_cross_validate(frame, candidate, scheme, *, level=0.95, seed=0, n_jobs=1,
+                            splits=None):
     """Used only while refit.crossval has no cross_validate yet: fit on each training part,
     predict the test part with the candidate's interval, score with refit.skill."""
     from refit.fitting import fit
@@ -193,7 +194,9 @@ def test_ties_go_to_fewer_coefficients_and_no_simpler_when_far():
     assert list(board.candidate[:2]) == ["C", "B"]
     far = _board().assign(interval_score=[10.0, 20.0, 22.0, 30.0, 25.0])
     board, tol = rank_candidates(far, 0.95, 100)
-    assert explain(board, 0.95, tol, "kfold")["simpler"] is None
+    v = explain(board, 0.95, tol, "kfold")
+    # C, the best with fewer coefficients, is 22 / 20 - 1 = 10 % worse
+    assert v["simpler"] is None and "C, scores 10.0% worse" in v["simpler_why"]
 
 
 def test_coverage_tolerance_grows_for_small_sets():

@@ -9,6 +9,7 @@ import click
 from refit.cli._common import guarded, stderr_console, stdout_console
 
 SHOWN = 20  # leaderboard rows printed (all are in the files)
+WIDTH = 150  # columns of the printed leaderboard when stdout is not a terminal
 
 
 @click.command("fit")
@@ -101,9 +102,12 @@ def print_run(run, out, console=None) -> None:
     from refit.coefficients import CAUTION
 
     c = console or stdout_console()
+    if not c.is_terminal:
+        c.width = max(c.width, WIDTH)  # files and pipes: no truncated columns
     d, m, r = run.data, run.matrix, run.recipe
-    version = f", version {d['version']}" if d.get("version") is not None else ""
-    c.print(Text(f"Data: {d['kind']} {d['name']}{version}, sha256 {d['sha256']}", style="bold"))
+    version = f", dataset version {d['version']}" if d.get("version") is not None else ""
+    c.print(Text(f"Data: {d['kind']} {d['name']!r} ({d['path']}){version}, sha256 "
+                 f"{d['sha256']}", style="bold"))
     c.print(f"Subset: {run.subset.n_start} records")
     for s in run.subset.steps:
         c.print(f"  {s['step']}: {s['kept']} kept ({s['removed']} removed)")
@@ -132,12 +136,32 @@ def print_run(run, out, console=None) -> None:
             "others")
     c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
     c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
-    if m.verdict["simpler"]:
+    if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
-    for s in m.skipped:
-        c.print(Text(f"  skipped {s['candidate']}: {s['reason']}", style="dim"))
+    opt = m.verdict.get("optimism")
+    if opt:
+        c.print(f"Optimism: random k-fold flatters; {main.name}'s RMSEP is "
+                f"{opt['median_rmsep_ratio']:.2f}x and its interval score "
+                f"{opt['median_score_ratio']:.2f}x random k-fold's (median over candidates).")
+    _print_skipped(c, m.skipped)
     c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
+
+
+def _print_skipped(c, skipped) -> None:
+    """Skipped combinations grouped by reason (all of them are in leaderboard.json)."""
+    from rich.text import Text
+
+    if not skipped:
+        return
+    by_reason: dict[str, list[str]] = {}
+    for s in skipped:
+        by_reason.setdefault(s["reason"], []).append(s["candidate"])
+    c.print(f"Skipped {len(skipped)} combination(s):")
+    for reason, labels in by_reason.items():
+        shown = ", ".join(labels[:3]) + (f" and {len(labels) - 3} more" if len(labels) > 3
+                                         else "")
+        c.print(Text(f"  {reason}: {shown}", style="dim"))
 
 
 def _scheme_text(s) -> str:
