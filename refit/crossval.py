@@ -38,6 +38,7 @@ EARTH_RADIUS_KM = 6371.0088
 #: per fold so folds can be balanced)
 BLOCKS_PER_FOLD = 5
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
+_KMEANS_SITES = 10_000  # k-means runs on at most this many distinct sites (seeded sample)
 
 
 # ----------------------------------------------------------------------------- schemes
@@ -208,7 +209,8 @@ def spatial_blocks(latitude, longitude, *, block_km=None, n_blocks=25, seed=0):
         Side of the square grid cells in the projected plane [km] (:func:`project_km`).
     n_blocks : int
         Number of k-means clusters when ``block_km`` is None (at most the number of
-        distinct locations).
+        distinct locations; clustered on a seeded sample of 10,000 sites when there are
+        more, then every row joins its nearest centre).
     seed : int
         Seed of k-means.
 
@@ -230,14 +232,22 @@ def spatial_blocks(latitude, longitude, *, block_km=None, n_blocks=25, seed=0):
                        "block_km": float(block_km)}
     from sklearn.cluster import KMeans
 
-    k = min(int(n_blocks), len(np.unique(xy, axis=0)))
+    sites = np.unique(xy, axis=0)
+    k = min(int(n_blocks), len(sites))
     if k < 2:
         return np.zeros(len(xy), dtype=int), {"block_method": "kmeans", "n_blocks": 1,
                                               "block_km": 0.0}
-    km = KMeans(n_clusters=k, random_state=seed, n_init=10).fit(xy)
-    codes = km.labels_.astype(int)
-    dist = np.linalg.norm(xy - km.cluster_centers_[codes], axis=1)
-    diam = 2.0 * np.array([dist[codes == b].max() for b in range(k)])
+    if len(sites) > _KMEANS_SITES:  # cluster a seeded sample of sites, assign every row
+        pick = np.random.default_rng(seed).choice(len(sites), _KMEANS_SITES, replace=False)
+        sites = sites[np.sort(pick)]
+    with _blas().limit(limits=1):  # small problem: threads only wait on a busy machine
+        km = KMeans(n_clusters=k, random_state=seed, n_init=10).fit(sites)
+        raw = km.predict(xy)
+    dist = np.linalg.norm(xy - km.cluster_centers_[raw], axis=1)
+    _, codes = np.unique(raw, return_inverse=True)  # a cluster may get no rows
+    k = int(codes.max() + 1)
+    diam = np.zeros(k)
+    np.maximum.at(diam, codes, 2.0 * dist)
     return codes, {"block_method": "kmeans", "n_blocks": int(k),
                    "block_km": float(np.median(diam)),
                    "block_km_range": [float(diam.min()), float(diam.max())]}
