@@ -24,8 +24,8 @@ from __future__ import annotations
 import numpy as np
 
 from refit.errors import InvalidDataError, UsageError
+from refit._linalg import _line_xy
 from refit.lsq import EstimatorResult
-from refit.robust import _line_xy
 
 __all__ = ["fit_york", "fit_deming"]
 

@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ._linalg import one_blas_thread
+
 
 @dataclass
 class EstimatorResult:
@@ -92,32 +94,12 @@ class LSQFactor:
         x0 = np.atleast_2d(np.asarray(x0, dtype=float))
         slopes = x0[:, 1:] if self.intercept else x0
         # (z0 R^-1) row by row: R^-1 is q x q, so this is one small matrix product
-        with _few_threads():
+        with one_blas_thread():
             v = ((slopes - self.centre) / self.scale) @ self.r_inv
         out = np.einsum("ij,ij->i", v, v)
         if self.intercept:
             out = out + 1.0 / self.sum_weights
         return out
-
-
-_CONTROLLER = []
-
-
-def _few_threads():
-    """Context that runs BLAS single-threaded (tall, narrow designs gain nothing from
-    threads, and on a busy machine thread hand-offs cost more than the work)."""
-    import contextlib
-
-    if not _CONTROLLER:
-        try:
-            import scipy.linalg  # noqa: F401  (load its BLAS before taking stock)
-            from threadpoolctl import ThreadpoolController
-
-            _CONTROLLER.append(ThreadpoolController())
-        except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
-            _CONTROLLER.append(None)
-    ctl = _CONTROLLER[0]
-    return contextlib.nullcontext() if ctl is None else ctl.limit(limits=1, user_api="blas")
 
 
 def _column_names(p: int, names) -> list[str]:
@@ -206,7 +188,7 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
     terms (Longley, Pontius). Reliability is judged by the log relative error (LRE) against
     the NIST StRD certified values (McCullough 1998, The American Statistician 52:358).
     """
-    with _few_threads():
+    with one_blas_thread():
         return _solve(np.asarray(x, dtype=float), np.asarray(y, dtype=float), weights,
                       intercept, names, rank_tol)
 

@@ -16,7 +16,8 @@ import warnings
 import numpy as np
 
 from refit.errors import UsageError
-from refit.intervals import PredictionInterval, _alpha, _as_design, _as_rows, _qr
+from refit._linalg import _as_design, _qr
+from refit._prediction import PredictionInterval, _alpha, _as_rows
 from refit.lsq import EstimatorResult
 
 __all__ = ["fit_quantile", "fit_quantiles", "quantile_band"]

@@ -24,7 +24,7 @@ import warnings
 import numpy as np
 
 from refit.errors import InvalidDataError, UsageError
-from refit.intervals import _as_design, _chunks, _qr
+from refit._linalg import _as_design, _chunks, _line_xy, _qr
 from refit.lsq import EstimatorResult
 
 __all__ = ["fit_huber", "fit_theil_sen"]
@@ -120,19 +120,6 @@ def _rlm_covariance(e, scale, k, R):
     stddev2 = scale**2 * np.sum(psi**2) / (n - p) * (kappa / m) ** 2
     Rinv = np.linalg.solve(R, np.eye(p))
     return stddev2 * (Rinv @ Rinv.T)
-
-
-def _line_xy(x, y, who):
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    if x.ndim != 1:
-        raise InvalidDataError(f"{who}: fits a straight line; pass one predictor column "
-                               f"(got shape {x.shape}).")
-    X, y = _as_design(np.column_stack([np.ones_like(x), x]), y, min_extra=1, who=who)
-    if np.ptp(x) == 0:
-        raise InvalidDataError(f"{who}: the predictor is constant ({x[0]!r} on every row); "
-                               f"a slope needs at least two different values.")
-    return X[:, 1], y
 
 
 def fit_theil_sen(x, y, *, level=0.95, intercept="joint", n_boot=0,

@@ -22,8 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from refit.errors import InvalidDataError, UsageError
-from refit.intervals import _qr
-from refit.robust import _line_xy
+from refit._linalg import _line_xy, _qr
 
 __all__ = ["BrokenStickResult", "fit_broken_stick"]
 

@@ -20,9 +20,10 @@ from sklearn.model_selection import KFold
 from statsmodels.stats.outliers_influence import OLSInfluence
 
 from refit.errors import InvalidDataError, UsageError
+from refit._bootstrap import _pairs_coefficients
 from refit.intervals import (
-    _pairs_coefficients, bootstrap_pairs, bootstrap_residual, cv_plus, jackknife_plus,
-    loo_residuals, split_conformal,
+    bootstrap_pairs, bootstrap_residual, cv_plus, jackknife_plus, loo_residuals,
+    split_conformal,
 )
 
 

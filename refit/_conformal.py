@@ -1,0 +1,277 @@
+"""Conformal prediction intervals for a new observation: split, jackknife+ and CV+.
+
+Internal; the public names are re-exported by :mod:`refit.intervals` (see its docstring for
+the shared conventions). The leave-one-out fits of jackknife+ come from a closed form.
+
+References
+----------
+.. [1] Lei, J., G'Sell, M., Rinaldo, A., Tibshirani, R. J. & Wasserman, L. (2018).
+   Distribution-free predictive inference for regression. JASA 113:1094-1111.
+.. [2] Barber, R. F., Candes, E. J., Ramdas, A. & Tibshirani, R. J. (2021). Predictive
+   inference with the jackknife+. Annals of Statistics 49(1):486-507.
+.. [3] Allen, D. M. (1974). The relationship between variable selection and data
+   augmentation and a method for prediction. Technometrics 16:125-127 (PRESS).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from refit._linalg import _as_design, _chunks, _ols, with_one_blas_thread
+from refit._prediction import PredictionInterval, _alpha, _prepare
+from refit.errors import InvalidDataError, UsageError
+
+_LEVERAGE_ONE = 1.0 - 1e-10    # h_ii above this: the row fixes its own fit, LOO undefined
+
+
+def _rank_lower(alpha: float, n: int) -> int:
+    """floor(alpha (n + 1)): 1-based rank of the lower jackknife+ quantile (0 = -inf)."""
+    return int(math.floor(alpha * (n + 1) + 1e-9))
+
+
+def _rank_upper(alpha: float, n: int) -> int:
+    """ceil((1 - alpha)(n + 1)): 1-based rank of the upper quantile (> n means +inf)."""
+    return int(math.ceil((1.0 - alpha) * (n + 1) - 1e-9))
+
+
+def _kth_smallest(values: np.ndarray, k: int, axis: int = -1) -> np.ndarray:
+    """k-th smallest (1-based) along ``axis``; -inf for k < 1, +inf for k > size."""
+    size = values.shape[axis]
+    shape = np.delete(np.array(values.shape), axis % values.ndim)
+    if k < 1:
+        return np.full(shape, -np.inf)
+    if k > size:
+        return np.full(shape, np.inf)
+    return np.take(np.partition(values, k - 1, axis=axis), k - 1, axis=axis)
+
+
+@with_one_blas_thread
+def loo_residuals(X, y) -> np.ndarray:
+    """Leave-one-out residuals of an OLS fit, in closed form.
+
+    Parameters
+    ----------
+    X : array_like, shape (n, p)
+        Design matrix.
+    y : array_like, shape (n,)
+        Response [units of y].
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        e_(i) = y_i - yhat_(-i)(x_i) = e_i / (1 - h_ii) [units of y]. PRESS is the sum of
+        their squares [1]_.
+
+    Notes
+    -----
+    h_ii are the leverages (diagonal of the hat matrix, row sums of Q^2 from X = QR); the
+    identity follows from the Sherman-Morrison formula. A row with h_ii = 1 (it alone fixes
+    a coefficient) has no leave-one-out fit and raises InvalidDataError.
+
+    References
+    ----------
+    .. [1] Allen, D. M. (1974). Technometrics 16:125-127.
+    """
+    X, y = _as_design(X, y, min_extra=2, who="loo_residuals")
+    _, e, Q, _ = _ols(X, y, "loo_residuals")
+    return e / _one_minus_h(Q, "loo_residuals")
+
+
+def _one_minus_h(Q, who):
+    h = (Q**2).sum(axis=1)
+    if (h > _LEVERAGE_ONE).any():
+        row = int(np.argmax(h)) + 1
+        raise InvalidDataError(
+            f"{who}: row {row} has leverage 1 (it alone determines the fit there), so its "
+            f"leave-one-out fit does not exist; add rows near it or drop the term it fixes.")
+    return 1.0 - h
+
+
+def _plus_limits(mu_loo: np.ndarray, r: np.ndarray, alpha: float):
+    """Jackknife+/CV+ limits from LOO predictions (m, n) and LOO residual sizes (n,)."""
+    n = r.shape[0]
+    lower = _kth_smallest(mu_loo - r, _rank_lower(alpha, n), axis=1)
+    upper = _kth_smallest(mu_loo + r, _rank_upper(alpha, n), axis=1)
+    return lower, upper
+
+
+def _plus_band(est: np.ndarray, mu_rows, r: np.ndarray, alpha: float):
+    """Jackknife+/CV+ limits for every new row, in batches: ``mu_rows(sl)`` gives the
+    (rows of sl, n) leave-out predictions, ``r`` the (n,) leave-out residual sizes."""
+    lower, upper = np.empty_like(est), np.empty_like(est)
+    for start, size in _chunks(est.shape[0], r.shape[0]):
+        sl = slice(start, start + size)
+        lower[sl], upper[sl] = _plus_limits(mu_rows(sl), r, alpha)
+    return lower, upper
+
+
+def _unbounded(lower: np.ndarray, upper: np.ndarray) -> bool:
+    return bool(np.isinf(lower).any() or np.isinf(upper).any())
+
+
+@with_one_blas_thread
+def split_conformal(X, y, x0, *, level=0.95, seed=0, calib_fraction=0.5) -> PredictionInterval:
+    """Split-conformal prediction interval with an OLS fit.
+
+    Parameters
+    ----------
+    X : array_like, shape (n, p)
+        Design matrix.
+    y : array_like, shape (n,)
+        Response [units of y].
+    x0 : array_like, shape (m, p)
+        Design rows of the new observations.
+    level : float
+        Coverage 1 - alpha.
+    seed : int
+        Seed of the random split.
+    calib_fraction : float
+        Share of rows held out for calibration (the rest fit the model).
+
+    Returns
+    -------
+    PredictionInterval
+        ``estimate`` = prediction of the model fitted on the training part (the centre of
+        the interval); limits ``estimate -/+ q``. ``details['unbounded']`` is True when the
+        calibration part is too small for the level (q = inf).
+
+    Notes
+    -----
+    Scores R_i = |y_i - muhat(x_i)| on the n2 calibration rows; q is the
+    ceil((1 - alpha)(n2 + 1))-th smallest score, +inf if that rank exceeds n2 [1]_.
+    Marginal coverage >= 1 - alpha for exchangeable rows, and <= 1 - alpha + 1/(n2 + 1)
+    when scores are distinct.
+
+    References
+    ----------
+    .. [1] Lei, G'Sell, Rinaldo, Tibshirani & Wasserman (2018), JASA 113:1094-1111.
+    """
+    who = "split_conformal"
+    X, y, x0, _ = _prepare(X, y, x0, None, who)
+    alpha = _alpha(level, who)
+    n, p = X.shape
+    if not 0.0 < calib_fraction < 1.0:
+        raise UsageError(f"{who}: calib_fraction must lie between 0 and 1; got "
+                         f"{calib_fraction!r}.")
+    n_cal = int(round(calib_fraction * n))
+    if n_cal < 1 or n - n_cal < p + 1:
+        raise InvalidDataError(
+            f"{who}: {n} rows cannot be split into a training part of at least {p + 1} rows "
+            f"and a calibration part of at least 1 row; add rows or change calib_fraction.")
+    perm = np.random.default_rng(seed).permutation(n)
+    cal, train = perm[:n_cal], perm[n_cal:]
+    b, _, _, _ = _ols(X[train], y[train], who)
+    scores = np.abs(y[cal] - X[cal] @ b)
+    k = _rank_upper(alpha, n_cal)
+    q = float(_kth_smallest(scores[None, :], k, axis=1)[0])
+    est = x0 @ b
+    return PredictionInterval(est, est - q, est + q, {
+        "method": "split-conformal", "level": float(level), "seed": seed,
+        "n_train": int(n - n_cal), "n_calib": n_cal, "quantile": q, "calib_rows": cal,
+        "unbounded": bool(np.isinf(q))})
+
+
+@with_one_blas_thread
+def jackknife_plus(X, y, x0, *, level=0.95) -> PredictionInterval:
+    """Jackknife+ prediction interval for OLS, with closed-form leave-one-out fits.
+
+    Parameters
+    ----------
+    X : array_like, shape (n, p)
+        Design matrix.
+    y : array_like, shape (n,)
+        Response [units of y].
+    x0 : array_like, shape (m, p)
+        Design rows of the new observations.
+    level : float
+        Nominal level 1 - alpha.
+
+    Returns
+    -------
+    PredictionInterval
+        ``estimate`` = x0'b of the full fit; limits as below (may be infinite when
+        n < 1/alpha - 1, see ``details['unbounded']``).
+
+    Notes
+    -----
+    With X = QR, e the residuals and h_ii the leverages, the leave-one-out predictions are
+    mu_(-i)(x0) = x0'b - (x0'(X'X)^-1 x_i) e_i/(1 - h_ii) (Sherman-Morrison), where
+    x0'(X'X)^-1 x_i = (R^-T x0)' q_i. LOO residuals R_i = |e_i|/(1 - h_ii). Limits [1]_:
+    lower = the floor(alpha(n+1))-th smallest of mu_(-i)(x0) - R_i, upper = the
+    ceil((1-alpha)(n+1))-th smallest of mu_(-i)(x0) + R_i. Coverage >= 1 - 2 alpha for
+    exchangeable rows, usually close to 1 - alpha. Cost O(m n p), no refit.
+
+    References
+    ----------
+    .. [1] Barber, Candes, Ramdas & Tibshirani (2021), Annals of Statistics 49:486-507.
+    """
+    who = "jackknife_plus"
+    X, y, x0, _ = _prepare(X, y, x0, None, who)
+    alpha = _alpha(level, who)
+    b, e, Q, R = _ols(X, y, who)
+    loo = e / _one_minus_h(Q, who)
+    A = np.linalg.solve(R.T, x0.T).T          # rows R^-T x0, shape (m, p)
+    est = x0 @ b
+    lower, upper = _plus_band(
+        est, lambda sl: est[sl, None] - (A[sl] @ Q.T) * loo[None, :], np.abs(loo), alpha)
+    return PredictionInterval(est, lower, upper, {
+        "method": "jackknife+", "level": float(level), "loo_residuals": loo,
+        "unbounded": _unbounded(lower, upper)})
+
+
+@with_one_blas_thread
+def cv_plus(X, y, x0, *, level=0.95, folds=10, seed=0) -> PredictionInterval:
+    """CV+ prediction interval for OLS with K folds.
+
+    Parameters
+    ----------
+    X, y, x0, level
+        As in :func:`jackknife_plus`.
+    folds : int
+        Number of folds K (2 <= K <= n); folds from ``sklearn.model_selection.KFold`` with
+        ``shuffle=True, random_state=seed``.
+    seed : int
+        Seed of the fold assignment.
+
+    Returns
+    -------
+    PredictionInterval
+        ``estimate`` = x0'b of the full fit; ``details['fold']`` the fold of each row.
+
+    Notes
+    -----
+    As jackknife+ with mu_(-i) replaced by the model fitted without the fold k(i) holding
+    row i and R_i = |y_i - mu_(-k(i))(x_i)| [1]_. Guarantee: coverage >= 1 - 2 alpha minus
+    a small term in K and n (see [1]_).
+
+    References
+    ----------
+    .. [1] Barber, Candes, Ramdas & Tibshirani (2021), Annals of Statistics 49:486-507.
+    """
+    from sklearn.model_selection import KFold
+
+    who = "cv_plus"
+    X, y, x0, _ = _prepare(X, y, x0, None, who)
+    alpha = _alpha(level, who)
+    n, p = X.shape
+    if not isinstance(folds, (int, np.integer)) or not 2 <= folds <= n:
+        raise UsageError(f"{who}: folds must be an integer from 2 to n = {n}; got {folds!r}.")
+    fold = np.empty(n, dtype=int)
+    pred0 = np.empty((x0.shape[0], folds))
+    r = np.empty(n)
+    for k, (train, test) in enumerate(KFold(folds, shuffle=True, random_state=seed).split(X)):
+        if train.size < p + 1:
+            raise InvalidDataError(f"{who}: a training part of {train.size} rows is too "
+                                   f"small for {p} coefficients; use more folds or rows.")
+        bk, _, _, _ = _ols(X[train], y[train], f"{who} (fold {k + 1})")
+        fold[test] = k
+        r[test] = np.abs(y[test] - X[test] @ bk)
+        pred0[:, k] = x0 @ bk
+    b, _, _, _ = _ols(X, y, who)
+    est = x0 @ b
+    lower, upper = _plus_band(est, lambda sl: pred0[sl][:, fold], r, alpha)
+    return PredictionInterval(est, lower, upper, {
+        "method": "cv+", "level": float(level), "folds": int(folds), "seed": seed,
+        "fold": fold, "unbounded": _unbounded(lower, upper)})
