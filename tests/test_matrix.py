@@ -10,7 +10,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from refit import crossval
 from refit.matrix import (
     Spec,
     candidate_grid,
@@ -24,40 +23,6 @@ from refit.matrix import (
 )
 from refit.recipe import read_recipe
 from refit.runfolder import fit_filename, write_run
-
-
-# ----------------------------------------------------------------------------- stand-in
-def _standin_cross_validate(frame, candidate, scheme, *, level=0.95, seed=0, n_jobs=1,
-                            splits=None):
-    """Used only while refit.crossval has no cross_validate yet: fit on each training part,
-    predict the test part with the candidate's interval, score with refit.skill."""
-    from refit.fitting import fit
-    from refit.skill import skill_scores
-
-    parts = []
-    for sp in crossval.make_splits(frame, scheme):
-        train, test = frame.iloc[sp.train_idx], frame.iloc[sp.test_idx]
-        f = fit(train, candidate.response, list(candidate.predictors), form=candidate.form,
-                degree=candidate.degree, estimator=candidate.estimator,
-                direction=candidate.direction)
-        p = f.predict(test[list(candidate.predictors)].reset_index(drop=True), level=level,
-                      interval=candidate.interval, seed=seed)
-        parts.append(pd.DataFrame({
-            "row": sp.test_idx, "profile_id": test["profile_id"].to_numpy(),
-            "repeat": sp.repeat, "fold": sp.fold,
-            "observed": test[candidate.response].to_numpy(float),
-            "estimate": p["estimate"].to_numpy(), "lower": p["lower"].to_numpy(),
-            "upper": p["upper"].to_numpy(), "flags": p["flags"].to_numpy()}))
-    pred = pd.concat(parts, ignore_index=True)
-    m = skill_scores(pred.observed, pred.estimate, pred.lower, pred.upper, level)
-    return crossval.CVResult(candidate, scheme, pred, m, {})
-
-
-@pytest.fixture(autouse=True)
-def _cv(monkeypatch):
-    if not hasattr(crossval, "cross_validate"):
-        monkeypatch.setattr(crossval, "cross_validate", _standin_cross_validate,
-                            raising=False)
 
 
 # ----------------------------------------------------------------------------- data
