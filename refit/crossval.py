@@ -38,6 +38,7 @@ EARTH_RADIUS_KM = 6371.0088
 #: per fold so folds can be balanced)
 BLOCKS_PER_FOLD = 5
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
+_CONFORMAL = ("split-conformal", "jackknife+", "cv+")
 _KMEANS_SITES = 10_000  # k-means runs on at most this many distinct sites (seeded sample)
 
 
@@ -277,6 +278,13 @@ def _grouped_kfold(codes, folds, repeats, seed) -> list[Split]:
     return out
 
 
+def _loo_details(n: int, s: Scheme) -> dict:
+    out = {"scheme": s.name, "n_rows": n, "seed": s.seed, "folds": n, "repeats": 1}
+    if s.repeats > 1:
+        out["note"] = "repeats ignored: leave-one-out gives the same folds every time"
+    return out
+
+
 def make_splits(frame, scheme: Scheme) -> Splits:
     """Train/test splits of a table's rows under a scheme.
 
@@ -318,10 +326,7 @@ def make_splits(frame, scheme: Scheme) -> Splits:
         details.update(folds=s.folds, repeats=s.repeats)
         return Splits(_collect(it.split(dummy), s.folds), details)
     if s.name == "loo":
-        details.update(folds=n, repeats=1)
-        if s.repeats > 1:
-            details["note"] = "repeats ignored: leave-one-out gives the same folds every time"
-        return Splits(_collect(LeaveOneOut().split(dummy), None), details)
+        return Splits(_collect(LeaveOneOut().split(dummy), None), _loo_details(n, s))
     if s.name == "spatial-block":
         lat, lon = _coordinates(frame, labels, kind)
         codes, info = spatial_blocks(lat, lon, block_km=s.block_km,
@@ -368,10 +373,17 @@ class Candidate:
     y_sd: str | float | None = None
 
     def __post_init__(self):
-        from .fitting import INTERVALS
+        from .fitting import DIRECTIONS, ESTIMATORS, INTERVALS
+        from .forms import FORMS
 
         preds = (self.predictors,) if isinstance(self.predictors, str) else self.predictors
         object.__setattr__(self, "predictors", tuple(preds))
+        for value, valid, what in ((self.form, FORMS, "form"),
+                                   (self.estimator, ESTIMATORS, "estimator"),
+                                   (self.direction, DIRECTIONS, "direction")):
+            if value not in valid:
+                raise UsageError(f"unknown {what} {value!r}; choose one of: "
+                                 + ", ".join(valid))
         interval = _INTERVAL_ALIASES.get(self.interval, self.interval)
         if interval not in INTERVALS:
             raise UsageError(f"unknown interval method {self.interval!r}; choose one of: "
@@ -535,10 +547,16 @@ def loo_ols(x, y, form, level: float = 0.95, interval: str = "analytic"):
     masks = {"outside-calibration-range": _outside_others(x)}
     if form.degree == 2 and x.shape[1] == 1:
         masks["beyond-turning-point"] = _beyond_turning_loo(x[:, 0], X, res, loo, form)
+    return est, lower, upper, _flag_text(masks)
+
+
+def _flag_text(masks: dict) -> np.ndarray:
+    """';'-joined names of the true masks per row (through bit codes: no per-row loop)."""
     names = list(masks)
-    flags = np.array([";".join(nm for nm, m in zip(names, row) if m)
-                      for row in zip(*masks.values())], dtype=object)
-    return est, lower, upper, flags
+    codes = sum(np.asarray(m, dtype=np.int64) << i for i, m in enumerate(masks.values()))
+    table = np.array([";".join(nm for i, nm in enumerate(names) if c >> i & 1)
+                      for c in range(1 << len(names))], dtype=object)
+    return table[codes]
 
 
 def _outside_others(x: np.ndarray) -> np.ndarray:
@@ -656,12 +674,14 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     _check(frame, candidate, scheme, level, n_jobs)
     frame, labels, kind = _frame_of(frame)
     arrays, usable = _used_columns(frame, labels, kind, candidate)
+    fast = _closed_form_applies(candidate, scheme)
     if splits is None:
-        splits = make_splits(frame, scheme)
+        splits = Splits([], _loo_details(len(frame), scheme)) if fast \
+            else make_splits(frame, scheme)
     details = dict(getattr(splits, "details", {}))
     details.update(level=float(level), seed=int(seed), n_rows_used=int(usable.sum()),
                    n_rows_missing=int((~usable).sum()))
-    if _closed_form_applies(candidate, scheme):
+    if fast:
         parts, folds = _loo_part(arrays, usable, candidate, level), None
         details["method"] = "closed-form"
     else:
@@ -681,11 +701,17 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     obs = arrays[candidate.response][rows]
     pred = pd.DataFrame({"row": rows, "profile_id": ids, "repeat": repeat, "fold": fold,
                          "observed": obs, "estimate": est, "lower": lo, "upper": hi,
-                         "flags": flags})
+                         "flags": pd.Categorical(flags)})
+    if candidate.interval in _CONFORMAL:
+        details["cautions"] = [
+            f"{candidate.interval} intervals assume exchangeable rows; soils clustered by "
+            "region or source are not, so their coverage on new regions can fall short of "
+            "the nominal level: judge it under a grouped or spatial scheme"]
     metrics = skill_scores(obs, est, lo, hi, level) if len(rows) else {}
-    details["by_repeat"] = [skill_scores(obs[repeat == r], est[repeat == r], lo[repeat == r],
-                                         hi[repeat == r], level)
-                            for r in np.unique(repeat)]
+    reps = np.unique(repeat)
+    details["by_repeat"] = [metrics] if len(reps) == 1 else [
+        skill_scores(obs[repeat == r], est[repeat == r], lo[repeat == r], hi[repeat == r],
+                     level) for r in reps]
     return CVResult(candidate, scheme, pred, metrics, details)
 
 

@@ -200,6 +200,19 @@ def test_candidate_label_and_interval_names():
     assert c.label == "polynomial3/ols/inverse/bootstrap-pairs"
     with pytest.raises(UsageError, match="unknown interval"):
         Candidate("map_mm", ("bk_depth_cm",), interval="wide")
+    with pytest.raises(UsageError, match="unknown estimator 'lasso'; choose one of: ols"):
+        Candidate("map_mm", ("bk_depth_cm",), estimator="lasso")
+    with pytest.raises(UsageError, match="unknown form 'cubic'"):
+        Candidate("map_mm", ("bk_depth_cm",), form="cubic")
+
+
+def test_spatial_block_cross_validation_reports_block_size():
+    frame = _table(150, seed=14)
+    res = cross_validate(frame, dataclasses.replace(QUAD, interval="split-conformal"),
+                         Scheme("spatial-block", folds=3, block_km=300.0, seed=1))
+    assert res.details["block_km"] == 300.0 and res.details["n_blocks"] >= 3
+    assert sorted(res.predictions["row"]) == list(range(150))
+    assert "exchangeable" in res.details["cautions"][0]
 
 
 # ----------------------------------------------------------------------------- leave-one-out
