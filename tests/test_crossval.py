@@ -415,3 +415,18 @@ def test_grouped_cv_estimates_error_on_new_regions_better_than_random_kfold():
     assert np.mean(np.abs(grouped - truth)) < np.mean(np.abs(random - truth))
     assert np.mean(random) < 0.85 * np.mean(truth)           # random k-fold flatters
     assert abs(np.mean(grouped) / np.mean(truth) - 1.0) < 0.15  # grouped is about right
+
+
+def test_loo_turning_point_flags_on_a_balanced_design():
+    # x symmetric about the turning point: which side holds "most data" changes when one
+    # row is left out, so the closed form must count the other rows only (as the explicit
+    # refit does, refit.domain.beyond_turning_mask on the fit without that row).
+    rng = np.random.default_rng(15)
+    x = np.linspace(0.0, 100.0, 40)
+    frame = pd.DataFrame({"bk_depth_cm": x,
+                          "map_mm": 1000.0 - 0.1 * (x - 50.0) ** 2 + rng.normal(0, 2.0, 40)})
+    fast = cross_validate(frame, QUAD, Scheme("loo")).predictions.sort_values("row")
+    slow = cross_validate(frame, QUAD, Scheme("kfold"),
+                          splits=make_splits(frame, Scheme("loo"))).predictions
+    assert list(fast["flags"]) == list(slow.sort_values("row")["flags"])
+    assert (fast["flags"] == "beyond-turning-point").sum() >= 10
