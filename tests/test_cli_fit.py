@@ -159,6 +159,7 @@ def test_demo_recipe_on_the_store(demo):
     assert f"dataset version {manifest['version']}" in r.stdout
     assert manifest["records_sha256"] in r.stdout
     assert "age_ka >= 5: 107 kept" in r.stdout and "88 kept" in r.stdout
+    assert "group-kfold 4 folds x 1 repeat(s) by source, seed 20261201 (4 groups)" in r.stdout
     board = pd.read_csv(demo / "run" / "leaderboard.csv")
     assert len(board) >= 12
     rec = json.loads(next((demo / "run" / "fits").glob("*.json")).read_text())

@@ -283,3 +283,19 @@ def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
                            "quadratic/huber/forward/analytic"}
     assert "at least 5 rows are needed" in failed["quadratic/huber/inverse/analytic"]
     assert len(res.specs) == 7 and len(res.leaderboard) == 7
+
+
+@pytest.mark.parametrize("scheme, repeats", [("loo", 1), ("leave-one-group-out", 1),
+                                             ("spatial-block", 2)])
+def test_every_scheme_runs_with_random_kfold_beside(tmp_path, scheme, repeats):
+    # every row is predicted once per repeat under each scheme (leave-one-out and
+    # leave-one-group-out have one repeat by construction)
+    rec = read_recipe(write_case(tmp_path, scheme=scheme, repeats=repeats))
+    m = run_recipe(rec).matrix
+    n = m.n
+    per = m.predictions.groupby(["candidate", "scheme"]).size()
+    assert per.xs(scheme, level="scheme").eq(n * repeats).all()
+    assert per.xs("kfold", level="scheme").eq(n * repeats).all()
+    assert m.schemes["kfold"].folds == 3 and len(m.leaderboard) == 12
+    if scheme == "spatial-block":
+        assert m.split_details["main"]["block_km"] > 0   # the block size is reported

@@ -114,7 +114,7 @@ def print_run(run, out, console=None) -> None:
     for note in run.subset.notes:
         c.print(Text(f"  note: {note}", style="yellow"))
     main, kf = m.schemes["main"], m.schemes["kfold"]
-    c.print(f"Validation: {_scheme_text(main)}"
+    c.print(f"Validation: {_scheme_text(main)}{_split_text(m.split_details['main'])}"
             + (f"; beside it random {_scheme_text(kf)}" if kf is not None else ""))
     c.print(f"Candidates: {len(m.specs)} fitted, {len(m.skipped)} skipped; interval level "
             f"{r.level:g}")
@@ -134,6 +134,8 @@ def print_run(run, out, console=None) -> None:
         c.print(f"({len(m.leaderboard) - SHOWN} more in leaderboard.csv)")
     c.print(f"* coverage more than {m.tolerance:.1%} from {r.level:.0%}: ranked after the "
             "others")
+    c.print("R² in, AIC: fitted on the whole subset, each on its equation's own response "
+            "(forward fits model the feature): compare AIC only within one direction.")
     c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
     c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
     if m.verdict["simpler_why"]:
@@ -164,10 +166,19 @@ def _print_skipped(c, skipped) -> None:
         c.print(Text(f"  {reason}: {shown}", style="dim"))
 
 
+def _split_text(d: dict) -> str:
+    """Groups or blocks of a split, e.g. `` (4 groups)``, `` (25 k-means blocks, ~38 km)``."""
+    if d.get("block_km") is not None:
+        return f" ({d['n_blocks']} {d['block_method']} blocks, ~{d['block_km']:.0f} km)"
+    if d.get("n_groups") is not None:
+        return f" ({d['n_groups']} groups)"
+    return ""
+
+
 def _scheme_text(s) -> str:
     if s.name == "loo":
         return "leave-one-out"
     if s.name == "leave-one-group-out":
         return f"leave-one-group-out by {s.groups}"
-    by = f" by {s.groups}" if s.groups else ""
+    by = f" by {s.groups}" if s.groups and s.name != "spatial-block" else ""
     return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
