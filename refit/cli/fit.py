@@ -72,7 +72,7 @@ class _Progress:
         self.bar = Progress(TextColumn("{task.description}"), BarColumn(),
                             MofNCompleteColumn(), console=self.console, transient=True)
         self.bar.__enter__()
-        self.task = self.bar.add_task("cross-validating", total=None)
+        self.task = self.bar.add_task("reading the data", total=None)
         return self
 
     def __call__(self, *, total=None, advance=0, label=None):
