@@ -21,6 +21,9 @@ An admit lands whole or not at all: the new files are staged in ``STORE/.pending
 a ``COMMIT`` marker is written atomically once all are complete, then each file is moved
 into place with ``os.replace``. Any store operation first finishes a committed staging
 folder (roll forward) or deletes an uncommitted one (roll back), and says so.
+
+Locking, staging, commit and recovery live in ``refit/_store_commit.py``; duplicate detection
+in ``refit/_duplicates.py``.
 """
 
 from __future__ import annotations
@@ -30,31 +33,26 @@ import datetime as dt
 import functools
 import io
 import json
-import os
 import re
 import shutil
-import uuid
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from refit._atomic import TMP_PREFIX, fsync_dir, sha256_bytes, sha256_file, write_bytes_atomic
-from refit.errors import InvalidDataError, StoreBusyError, UsageError
+from refit._atomic import TMP_PREFIX, sha256_bytes, sha256_file
+from refit._duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
+    DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
+)
+from refit._store_commit import _commit, _locked, recover
+from refit.errors import InvalidDataError, UsageError
 
 FORMAT = "refit-store/1"
-#: Two records from the same source closer than this in latitude and in longitude are
-#: taken for the same site [degree]; 0.0005 degree is about 55 m of latitude.
-DUPLICATE_TOLERANCE_DEG = 0.0005
 #: How long an operation waits for another one to release the store [s].
 LOCK_TIMEOUT_S = 5.0
 QUARANTINE_EXTRA = ("_reasons", "_source_row")
-MEASUREMENTS = ("map_mm", "mat_c", "mar_mm", "bk_depth_cm", "bk_thickness_cm", "by_depth_cm",
-                "sio2_wt", "tio2_wt", "al2o3_wt", "fe2o3_wt", "mno_wt", "mgo_wt", "cao_wt",
-                "na2o_wt", "k2o_wt", "p2o5_wt")
 _OWN_ENTRIES = re.compile(r"^(\.lock|\.pending-.*|" + re.escape(TMP_PREFIX) + r".*)$")
-
 
 # --------------------------------------------------------------------------------------
 # the store as read
@@ -204,88 +202,6 @@ def _state(store_dir: Path) -> str:
             f"{', '.join(sorted(others)[:5])}{' ...' if len(others) > 5 else ''}); choose a "
             "new folder name or an empty folder")
     return "new"
-
-
-# --------------------------------------------------------------------------------------
-# lock, staging, commit and recovery
-
-
-class _locked:
-    """Hold ``STORE/.lock`` (filelock); refuse with StoreBusyError after ``timeout`` s."""
-
-    def __init__(self, store_dir: Path, timeout: float):
-        from filelock import FileLock
-
-        self.store_dir = store_dir
-        self.lock = FileLock(str(store_dir / ".lock"), timeout=timeout)
-
-    def __enter__(self):
-        from filelock import Timeout
-
-        try:
-            self.lock.acquire()
-        except Timeout:
-            raise StoreBusyError(
-                f"store {self.store_dir} is busy: another refit process holds its lock "
-                f"({self.store_dir / '.lock'}); wait for it to finish, then run the command "
-                "again") from None
-        return self
-
-    def __exit__(self, *exc):
-        self.lock.release()
-
-
-def recover(store_dir: Path) -> list[str]:
-    """Finish or undo interrupted admits (call with the lock held); say what was done."""
-    messages = []
-    for stage in sorted(store_dir.glob(".pending-*")):
-        if (stage / "COMMIT").is_file():
-            plan = json.loads((stage / "COMMIT").read_text(encoding="utf-8"))
-            _move_into_place(store_dir, stage, plan["files"])
-            messages.append(f"recovered an interrupted admit of {plan['source_file']}: it "
-                            f"had been committed, so it was completed (version "
-                            f"{plan['version']})")
-        else:
-            shutil.rmtree(stage, ignore_errors=True)
-            messages.append("recovered an interrupted admit that had not been committed: "
-                            "it was undone and the store is as it was before it")
-    for leftover in [*store_dir.glob(TMP_PREFIX + "*"),
-                     *(store_dir / "quarantine").glob(TMP_PREFIX + "*")]:
-        leftover.unlink(missing_ok=True)
-    return messages
-
-
-def _commit(store_dir: Path, files: dict[str, bytes], info: dict) -> None:
-    """Stage ``files`` (relative path -> bytes), mark them committed, move them into place."""
-    stage = store_dir / f".pending-{uuid.uuid4().hex[:12]}"
-    stage.mkdir()
-    umask = os.umask(0)
-    os.umask(umask)
-    for rel, data in files.items():
-        write_bytes_atomic(stage / rel, data)
-        os.chmod(stage / rel, 0o666 & ~umask)  # readable like any other file the user makes
-    fsync_dir(stage)
-    order = sorted(files, key=lambda r: (r == "records.csv", r == "manifest.json", r))
-    plan = json.dumps({**info, "files": order}, indent=1).encode("utf-8")
-    write_bytes_atomic(stage / "COMMIT", plan)
-    _move_into_place(store_dir, stage, order)
-
-
-def _move_into_place(store_dir: Path, stage: Path, order: list[str]) -> None:
-    """Move staged files over the store's (idempotent), then remove the staging folder."""
-    (store_dir / "quarantine").mkdir(exist_ok=True)
-    for rel in order:
-        src = stage / rel
-        if src.exists():
-            (store_dir / rel).parent.mkdir(parents=True, exist_ok=True)
-            os.replace(src, store_dir / rel)
-            fsync_dir((store_dir / rel).parent)
-    for path in sorted(stage.rglob("*"), reverse=True):
-        if path.name != "COMMIT":
-            path.rmdir() if path.is_dir() else path.unlink()
-    (stage / "COMMIT").unlink(missing_ok=True)
-    stage.rmdir()
-    fsync_dir(store_dir)
 
 
 # --------------------------------------------------------------------------------------
@@ -463,109 +379,6 @@ def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
         problems["row"].isna(), "",
         np.where(problems["row"].isin(source_rows[rejected]), "quarantined", "admitted"))
     return rejected, problems
-
-
-# --------------------------------------------------------------------------------------
-# duplicates
-
-
-def _measurement_key(row: dict) -> tuple | None:
-    """The present measurements of a record, as a hashable key (None if fewer than two)."""
-    items = tuple((c, float(f"{row[c]:.9g}")) for c in MEASUREMENTS
-                  if c in row and row[c] == row[c] and row[c] is not None)
-    return items if len(items) >= 2 else None
-
-
-def _site_cells(lat: float, lon: float, tol: float):
-    i, j = int(np.floor(lat / tol)), int(np.floor(lon / tol))
-    return [(i + a, j + b) for a in (-1, 0, 1) for b in (-1, 0, 1)]
-
-
-class _Seen:
-    """Ids, sites (source + coordinates) and measurement sets already in the store."""
-
-    def __init__(self, tol: float):
-        self.tol = tol
-        self.ids: dict[str, str] = {}
-        self.sites: dict[tuple, list] = {}
-        self.measurements: dict[tuple, str] = {}
-
-    def add(self, row: dict, where: str) -> None:
-        pid = row.get("profile_id")
-        if isinstance(pid, str):
-            self.ids.setdefault(pid, where)
-        site = self._site(row)
-        if site:
-            src, lat, lon = site
-            cell = (src, *_site_cells(lat, lon, self.tol)[4])
-            self.sites.setdefault(cell, []).append((lat, lon, str(pid)))
-        key = _measurement_key(row)
-        if key:
-            self.measurements.setdefault(key, str(pid))
-
-    def _site(self, row: dict):
-        src, lat, lon = row.get("source"), row.get("latitude"), row.get("longitude")
-        if not isinstance(src, str) or not all(isinstance(v, float) and v == v
-                                               for v in (lat, lon)):
-            return None
-        return src.strip().casefold(), lat, lon
-
-    def same_site(self, row: dict) -> str | None:
-        site = self._site(row)
-        if not site:
-            return None
-        src, lat, lon = site
-        for cell in _site_cells(lat, lon, self.tol):
-            for lat2, lon2, pid in self.sites.get((src, *cell), ()):
-                if abs(lat - lat2) <= self.tol and abs(lon - lon2) <= self.tol:
-                    return pid
-        return None
-
-
-def find_duplicates(batch: pd.DataFrame, stored: pd.DataFrame, bad: np.ndarray,
-                    tolerance_deg: float = DUPLICATE_TOLERANCE_DEG) -> list[dict]:
-    """Rows of ``batch`` that duplicate a stored record or an earlier accepted batch row.
-
-    Three rules: ``duplicate-id`` (same profile_id as a stored record; repeats inside the
-    batch are the check's ``unique-id``), ``duplicate-site`` (same source, latitude and
-    longitude each within ``tolerance_deg``), ``duplicate-measurements`` (the same present
-    climate and feature values, at least two of them, as another record).
-
-    Returns
-    -------
-    list of dict
-        ``pos`` (0-based batch row), ``rule``, ``column``, ``value``, ``message``.
-    """
-    seen = _Seen(tolerance_deg)
-    for row in stored.to_dict("records"):
-        seen.add(row, "the store")
-    out = []
-    for pos, row in enumerate(batch.to_dict("records")):
-        found = []
-        pid = row.get("profile_id")
-        if isinstance(pid, str) and pid in seen.ids and seen.ids[pid] == "the store":
-            found.append(("duplicate-id", "profile_id", pid,
-                          f"profile_id '{pid}' is already in the store; give this profile "
-                          "a new id, or leave the row out if it is the same soil"))
-        other = seen.same_site(row)
-        if other is not None:
-            found.append(("duplicate-site", "latitude|longitude",
-                          f"{row['latitude']}, {row['longitude']}",
-                          f"same source and place as profile '{other}' (within "
-                          f"{tolerance_deg:g} degree); if it is a different soil at the "
-                          "same site, give coordinates that tell them apart"))
-        key = _measurement_key(row)
-        if key and key in seen.measurements:
-            shown = ", ".join(f"{c}={v:g}" for c, v in key[:4])
-            found.append(("duplicate-measurements", "|".join(c for c, _ in key), "",
-                          f"the same {len(key)} measurements as profile "
-                          f"'{seen.measurements[key]}' ({shown}{', ...' if len(key) > 4 else ''}"
-                          "); probably a copy of that record"))
-        out += [{"pos": pos, "rule": r, "column": c, "value": v, "message": m}
-                for r, c, v, m in found]
-        if not found and not bad[pos]:
-            seen.add(row, "this table")
-    return out
 
 
 # --------------------------------------------------------------------------------------

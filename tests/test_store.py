@@ -315,9 +315,10 @@ def test_second_writer_is_refused_while_the_store_is_locked(tmp_path, base_store
 KILLABLE = """
 import os, sys, time
 import refit.store as store
+import refit._store_commit as commit
 import refit.checks, refit.tables, refit.units  # noqa: F401  (imports before the clock starts)
 delay, crash_at = float(sys.argv[3]), int(sys.argv[4])
-real_replace, real_write = os.replace, store.write_bytes_atomic
+real_replace, real_write = os.replace, commit.write_bytes_atomic
 calls = [0]
 def slow_replace(a, b):
     calls[0] += 1
@@ -328,8 +329,8 @@ def slow_replace(a, b):
 def slow_write(path, data):
     time.sleep(delay)
     real_write(path, data)
-store.os.replace = slow_replace
-store.write_bytes_atomic = slow_write
+commit.os.replace = slow_replace
+commit.write_bytes_atomic = slow_write
 print("go", flush=True)
 store.admit(sys.argv[1], sys.argv[2], today="2025-03-01")
 """
