@@ -279,7 +279,7 @@ def _grouped_kfold(codes, folds, repeats, seed) -> list[Split]:
 
 
 def _loo_details(n: int, s: Scheme) -> dict:
-    out = {"scheme": s.name, "n_rows": n, "seed": s.seed, "folds": n, "repeats": 1}
+    out = {"scheme": s.name, "n_rows": n, "split_seed": s.seed, "folds": n, "repeats": 1}
     if s.repeats > 1:
         out["note"] = "repeats ignored: leave-one-out gives the same folds every time"
     return out
@@ -314,7 +314,7 @@ def make_splits(frame, scheme: Scheme) -> Splits:
         raise UsageError(f"scheme must be a refit.crossval.Scheme; got {type(scheme).__name__}")
     frame, labels, kind = _frame_of(frame)
     n, s = len(frame), scheme
-    details = {"scheme": s.name, "n_rows": n, "seed": s.seed}
+    details = {"scheme": s.name, "n_rows": n, "split_seed": s.seed}
     dummy = np.zeros((n, 1))
     need = {"kfold": s.folds, "loo": 3}.get(s.name, 0)
     if n < need:
@@ -417,8 +417,9 @@ class CVResult:
     details : dict
         The split's details (folds, groups, block size), ``method`` (``closed-form`` or
         ``refits``), ``n_rows_used``, ``n_rows_missing`` (rows without a value in a used
-        column, left out of every fold), ``level``, ``seed`` and ``by_repeat`` (the
-        metrics of each repeat, to show their spread).
+        column, left out of every fold), ``level``, ``split_seed``, ``interval_seed``,
+        ``by_repeat`` (the metrics of each repeat, to show their spread) and, for
+        conformal intervals, ``cautions``.
     """
 
     candidate: Candidate
@@ -679,8 +680,12 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
         splits = Splits([], _loo_details(len(frame), scheme)) if fast \
             else make_splits(frame, scheme)
     details = dict(getattr(splits, "details", {}))
-    details.update(level=float(level), seed=int(seed), n_rows_used=int(usable.sum()),
-                   n_rows_missing=int((~usable).sum()))
+    details.update(level=float(level), interval_seed=int(seed),
+                   n_rows_used=int(usable.sum()), n_rows_missing=int((~usable).sum()))
+    if not usable.any():
+        raise InvalidDataError(f"{candidate.label}: no row has values in all of "
+                               + ", ".join(map(repr, candidate.columns()))
+                               + "; fill them or choose other columns")
     if fast:
         parts, folds = _loo_part(arrays, usable, candidate, level), None
         details["method"] = "closed-form"
@@ -690,7 +695,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
         details["method"] = "refits"
     if folds is None:
         rows = np.flatnonzero(usable)
-        repeat, fold = np.zeros(len(rows), dtype=np.int64), np.arange(len(rows))
+        repeat, fold = np.zeros(len(rows), dtype=np.int64), rows.copy()
     else:
         rows = np.concatenate([s.test_idx for s in folds])
         repeat = np.concatenate([np.full(len(s.test_idx), s.repeat) for s in folds])
@@ -721,6 +726,11 @@ def _loo_part(arrays, usable, c: Candidate, level):
     form = make_form(c.form, list(c.predictors), degree=c.degree)
     x = np.column_stack([arrays[p][usable] for p in c.predictors])
     y = arrays[c.response][usable]
+    if len(y) < form.min_rows + 1:
+        raise InvalidDataError(f"{c.label}, leave-one-out: each fit leaves out one of "
+                               f"{len(y)} rows; form {form.name!r} has {form.n_params} "
+                               f"coefficient(s) and needs at least {form.min_rows + 1} rows "
+                               "with values")
     try:
         return [loo_ols(x, y, form, level, c.interval)]
     except RefitError as err:

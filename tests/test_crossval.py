@@ -348,6 +348,11 @@ def test_rows_without_values_take_part_in_no_fold():
     assert sorted(res.predictions["row"]) == [i for i in range(60) if i not in (3, 17, 40)]
     loo = cross_validate(frame, QUAD, Scheme("loo"))
     assert len(loo.predictions) == 57 and not loo.predictions["row"].isin([3, 17, 40]).any()
+    explicit = cross_validate(frame, QUAD, Scheme("kfold"),
+                              splits=make_splits(frame, Scheme("loo")))
+    np.testing.assert_array_equal(loo.predictions["fold"], explicit.predictions["fold"])
+    np.testing.assert_allclose(loo.predictions["upper"], explicit.predictions["upper"],
+                               rtol=1e-9)
 
 
 def test_forward_and_quantile_candidates_run():
@@ -377,6 +382,11 @@ def test_bad_arguments():
         cross_validate(frame, QUAD, Scheme("kfold"), level=95)
     with pytest.raises(UsageError, match="n_jobs"):
         cross_validate(frame, QUAD, Scheme("kfold"), n_jobs=0)
+    with pytest.raises(InvalidDataError, match="needs at least 5 rows"):
+        cross_validate(frame.head(4), QUAD, Scheme("loo"))
+    empty = frame.assign(bk_depth_cm=np.nan)
+    with pytest.raises(InvalidDataError, match="no row has values"):
+        cross_validate(empty, QUAD, Scheme("kfold"))
 
 
 # ----------------------------------------------------------------------------- grouped vs random
