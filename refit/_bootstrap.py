@@ -1,13 +1,8 @@
 """Bootstrap prediction intervals for a new observation: case and residual resampling.
 
 Internal; the public names are re-exported by :mod:`refit.intervals` (see its docstring for
-the shared conventions). Resampled fits are solved in batches with array operations.
-
-References
-----------
-.. [1] Davison, A. C. & Hinkley, D. V. (1997). *Bootstrap Methods and their Application*.
-   Cambridge University Press. Sections 6.2-6.3 (residual and case resampling,
-   modified residuals, prediction error resampling, Algorithm 6.4).
+the shared conventions and the references). Resampled fits are solved in batches with
+array operations.
 """
 
 from __future__ import annotations

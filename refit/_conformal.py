@@ -1,16 +1,8 @@
 """Conformal prediction intervals for a new observation: split, jackknife+ and CV+.
 
 Internal; the public names are re-exported by :mod:`refit.intervals` (see its docstring for
-the shared conventions). The leave-one-out fits of jackknife+ come from a closed form.
-
-References
-----------
-.. [1] Lei, J., G'Sell, M., Rinaldo, A., Tibshirani, R. J. & Wasserman, L. (2018).
-   Distribution-free predictive inference for regression. JASA 113:1094-1111.
-.. [2] Barber, R. F., Candes, E. J., Ramdas, A. & Tibshirani, R. J. (2021). Predictive
-   inference with the jackknife+. Annals of Statistics 49(1):486-507.
-.. [3] Allen, D. M. (1974). The relationship between variable selection and data
-   augmentation and a method for prediction. Technometrics 16:125-127 (PRESS).
+the shared conventions and the references). The leave-one-out fits of jackknife+ come
+from a closed form.
 """
 
 from __future__ import annotations
