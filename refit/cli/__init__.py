@@ -13,6 +13,7 @@ from refit import __version__
 from refit.cli.admit import admit
 from refit.cli.check import check
 from refit.cli.demo import demo
+from refit.cli.fit import fit
 
 CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
 
@@ -35,4 +36,5 @@ def main() -> None:
 
 main.add_command(check)
 main.add_command(admit)
+main.add_command(fit)
 main.add_command(demo)
