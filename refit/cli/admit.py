@@ -9,7 +9,7 @@ from refit.cli._common import guarded
 MAX_LISTED = 40
 
 
-@click.command("admit")
+@click.command("admit", short_help="Admit new soils into a versioned calibration store.")
 @click.argument("table", type=click.Path(dir_okay=True, path_type=str))
 @click.option("--into", "store", required=True, metavar="STORE", type=click.Path(path_type=str),
               help="Store folder; created (named after the folder) if it does not exist.")

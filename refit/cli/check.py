@@ -9,7 +9,7 @@ from refit.cli._common import compact_notes, guarded, plural, stdout_console
 MAX_ROWS_DEFAULT = 50
 
 
-@click.command("check")
+@click.command("check", short_help="Check a calibration table and report every problem.")
 @click.argument("table", type=click.Path(dir_okay=False, path_type=str))
 @click.option("--kind", type=click.Choice(["calibration", "fossil"]), default="calibration",
               show_default=True, help="What the table holds.")

@@ -10,7 +10,7 @@ import click
 from refit.cli._common import guarded
 
 
-@click.command("demo")
+@click.command("demo", short_help="Run the whole job on the bundled invented demo.")
 @click.option(
     "--out", "out_dir", type=click.Path(file_okay=False), default="refit-demo-out",
     show_default=True, help="Folder for everything the demo writes (replaced if it holds an earlier demo).",

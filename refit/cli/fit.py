@@ -12,7 +12,7 @@ SHOWN = 20  # leaderboard rows printed (all are in the files)
 WIDTH = 150  # columns of the printed leaderboard when stdout is not a terminal
 
 
-@click.command("fit")
+@click.command("fit", short_help="Cross-validate a recipe's candidate fits and rank them.")
 @click.argument("recipe", type=click.Path(dir_okay=False, path_type=str))
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=str), default=None,
               metavar="RUN", help="Run folder to write [default: runs/<function id>-<time>].")
