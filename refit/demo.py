@@ -25,6 +25,8 @@ class DemoResult:
     outputs: dict[str, Path] = field(default_factory=dict)
     check: object = None   # refit.checks.CheckReport of the incoming table
     admit: object = None   # refit.store.AdmitResult
+    run: object = None     # refit.matrix.Run of the demo recipe
+    run_dir: Path | None = None
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -43,8 +45,9 @@ def prepare_out_dir(out: Path) -> None:
     (out / MARKER).write_text("written by `refit demo`; safe to delete\n", encoding="utf-8")
 
 
-def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult:
-    """Run check and admit on the demo scenario into ``out``.
+def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
+             progress=None, after_admit: Callable | None = None) -> DemoResult:
+    """Run check, admit and the recipe's fit matrix on the demo scenario into ``out``.
 
     Parameters
     ----------
@@ -52,6 +55,10 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult
         Output folder (created; an earlier demo output there is replaced).
     echo : callable, optional
         Where to print progress lines (``None``: silent).
+    progress : callable, optional
+        Progress callback for the fit matrix (see :func:`refit.matrix.run_recipe`).
+    after_admit : callable, optional
+        Called with the admit result before fitting starts (to print its accounting).
     """
     from refit.checks import check_file, load_vocabularies
     from refit.store import admit
@@ -84,4 +91,19 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None) -> DemoResult
     if result.admit.quarantine_file:
         result.outputs["rejected rows (quarantine)"] = store / result.admit.quarantine_file
     result.outputs["store manifest"] = store / "manifest.json"
+    if after_admit is not None:
+        after_admit(result.admit)
+
+    from refit.matrix import run_recipe
+    from refit.recipe import read_recipe
+    from refit.runfolder import write_run
+
+    recipe_path = out / "recipe.toml"  # its [data] store = "store" now names the copy
+    shutil.copyfile(src / "recipe.toml", recipe_path)
+    result.outputs["recipe"] = recipe_path
+    say(f"[bold]3. Fit[/bold] the demo recipe on the updated store: {recipe_path}")
+    result.run = run_recipe(read_recipe(recipe_path), progress=progress)
+    result.run_dir = write_run(result.run, out / "run",
+                               argv=["refit", "fit", str(recipe_path), "--out", str(out / "run")])
+    result.outputs["fit run (leaderboard, fits)"] = result.run_dir
     return result

@@ -35,16 +35,25 @@ def demo(out_dir: str, quiet: bool) -> None:
 
     from refit.cli._common import stdout_console
 
+    import sys
+
+    from refit.cli._common import stderr_console
     from refit.cli.admit import render
+    from refit.cli.fit import _Progress, print_run
 
     console = stdout_console()
-    result = run_demo(Path(out_dir), echo=None if quiet else console.print)
+    say = None if quiet else console.print
+    err = stderr_console(quiet=quiet or not sys.stderr.isatty())
+    with _Progress(err) as progress:
+        result = run_demo(Path(out_dir), echo=say, progress=progress,
+                          after_admit=None if quiet else (
+                              lambda adm: [console.print(f"   {line}", markup=False)
+                                           for line in render(adm)]))
     if not quiet:
-        for line in render(result.admit):
-            console.print(f"   {line}", markup=False)
+        print_run(result.run, result.run_dir, console=console)
         console.print(
-            "[dim]Fitting, cross-validation, publishing, apply and the report arrive with the "
-            "next issues; this demo runs the curation steps that exist.[/dim]"
+            "[dim]Publishing, apply/compare and the HTML report arrive with the next issues; "
+            "this demo runs the steps that exist (check, admit, fit).[/dim]"
         )
     console.print()
     console.print("[bold]Where everything went[/bold]")
