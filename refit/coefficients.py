@@ -1,12 +1,23 @@
-"""Candidate coefficient records: one JSON document per fitted candidate of a run.
+"""Coefficient files: build, write, load, validate, hash and evaluate them.
 
-Provisional: these records carry the fields of the coefficient-file contract (DESIGN.md)
-with ``version`` ``"0.0.0-candidate"``; they are unpublished candidates. Publishing
-(immutable, versioned files, checked by a JSON Schema) comes with the coefficient-file work.
+A coefficient file is one JSON document per transfer function, described by the JSON
+Schema ``schemas/coefficients.schema.json`` (draft 2020-12) and checked against it on
+write and on read. It carries everything another program needs to evaluate the equation
+*and its prediction interval* without the calibration data (see the README section
+"Evaluating a coefficient file" for the arithmetic, in words any language can follow).
 
-Everything is plain JSON: numbers, text, lists and objects; NaN and infinities become
-``null``. ``sha256`` is the hash of the canonical content (keys sorted, no spaces, UTF-8)
-without the ``sha256`` key itself.
+Consumer API (light: numpy and the standard library; no pandas, scipy, statsmodels or
+scikit-learn at import)::
+
+    from refit.coefficients import load
+    eq = load("map_from_bk_depth/1.0.0.json")      # refuses edited or invalid files
+    res = eq.predict([40.0, 120.0])                # estimate, lower, upper, flags
+    res.to_frame()                                 # a pandas DataFrame, if wanted
+
+Loading never executes anything from the file: it is parsed as JSON (NaN and infinities
+refused), its ``schema_version`` major checked, the schema validated, and the ``sha256`` of
+the canonical content (keys sorted, no whitespace, UTF-8, without the ``sha256`` key)
+compared with the stored one. Any failure names the file and the JSON path of the field.
 """
 
 from __future__ import annotations
@@ -14,15 +25,21 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import math
+from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
-SCHEMA_VERSION = "0.1-candidate"
+from .errors import InvalidDataError, UnreadableInputError, UsageError
+
+SCHEMA_VERSION = "1.0.0"
 CANDIDATE_VERSION = "0.0.0-candidate"
+SCHEMA_FILE = "coefficients.schema.json"
 CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "
            "research, not for engineering, hazard or regulatory decisions.")
 
 
+# ----------------------------------------------------------------------------- plain JSON
 def plain(value):
     """A JSON-ready copy of ``value``: numpy scalars and arrays to Python, NaN/inf to None."""
     if isinstance(value, dict):
@@ -50,11 +67,283 @@ def plain(value):
 
 
 def canonical_bytes(content: dict) -> bytes:
-    """Canonical JSON bytes (keys sorted, compact, UTF-8) used for the hash."""
-    return json.dumps(plain(content), sort_keys=True, separators=(",", ":"),
-                      ensure_ascii=False, allow_nan=False).encode("utf-8")
+    """Canonical JSON bytes of ``content`` without its ``sha256`` key (keys sorted,
+    compact separators, UTF-8, no NaN)."""
+    body = {k: v for k, v in plain(content).items() if k != "sha256"}
+    return json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False).encode("utf-8")
 
 
+def content_sha256(content: dict) -> str:
+    """sha256 (hex) of :func:`canonical_bytes`."""
+    import hashlib
+
+    return hashlib.sha256(canonical_bytes(content)).hexdigest()
+
+
+def with_hash(content: dict) -> dict:
+    """A plain copy of ``content`` with ``sha256`` set to its canonical hash."""
+    out = plain(content)
+    out["sha256"] = content_sha256(out)
+    return out
+
+
+def dumps(content: dict) -> str:
+    """The file text: indented JSON (key order as built), newline at the end."""
+    return json.dumps(plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+# ----------------------------------------------------------------------------- schema
+_VALIDATOR = None
+
+
+def schema() -> dict:
+    """The coefficient-file JSON Schema (``schemas/coefficients.schema.json``)."""
+    from ._resources import schemas_dir
+
+    return json.loads((schemas_dir() / SCHEMA_FILE).read_text("utf-8"))
+
+
+def _validator():
+    global _VALIDATOR
+    if _VALIDATOR is None:
+        from jsonschema import Draft202012Validator
+
+        _VALIDATOR = Draft202012Validator(schema())
+    return _VALIDATOR
+
+
+def json_path(parts) -> str:
+    """``$.interval.level`` / ``$.predictors[0].name`` from a jsonschema path."""
+    out = "$"
+    for p in parts:
+        out += f"[{p}]" if isinstance(p, int) else f".{p}"
+    return out
+
+
+def schema_problems(content: dict) -> list[tuple[str, str]]:
+    """``(json path, message)`` of every schema violation, sorted by path."""
+    errs = sorted(_validator().iter_errors(content), key=lambda e: list(map(str, e.path)))
+    return [(json_path(e.absolute_path), e.message) for e in errs]
+
+
+def check_schema_version(content: dict, where: str) -> None:
+    """Refuse a missing or unknown ``schema_version`` (only major 1 is understood)."""
+    sv = content.get("schema_version") if isinstance(content, dict) else None
+    if not isinstance(sv, str):
+        raise InvalidDataError(f"{where}: $.schema_version is missing or not text; this is "
+                               "not a refit coefficient file (expected e.g. \"1.0.0\")")
+    major = sv.split(".")[0]
+    if major != SCHEMA_VERSION.split(".")[0]:
+        raise InvalidDataError(f"{where}: $.schema_version is {sv!r}; this refit reads "
+                               f"major version {SCHEMA_VERSION.split('.')[0]} "
+                               f"({SCHEMA_VERSION}); upgrade refit or re-export the file")
+
+
+def validate(content: dict, *, where: str = "coefficient record",
+             check_hash: bool = True) -> dict:
+    """Check schema version, schema and (optionally) the content hash; return ``content``.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming ``where`` and the JSON path of the first offending field (and how many
+        more there are).
+    """
+    check_schema_version(content, where)
+    problems = schema_problems(content)
+    if problems:
+        path, msg = problems[0]
+        more = f" (and {len(problems) - 1} more problem(s))" if len(problems) > 1 else ""
+        raise InvalidDataError(f"{where}: {path}: {msg}{more}; the file does not follow "
+                               f"the coefficient-file schema {SCHEMA_VERSION}")
+    if check_hash:
+        actual = content_sha256(content)
+        if actual != content["sha256"]:
+            raise InvalidDataError(
+                f"{where}: $.sha256 does not match the content (stored "
+                f"{content['sha256'][:12]}..., computed {actual[:12]}...): the file was "
+                "edited after it was written; restore the original or re-export it")
+    _check_consistency(content, where)
+    return content
+
+
+def _check_consistency(c: dict, where: str) -> None:
+    """Cross-field rules a schema cannot state: shapes of coefficients and covariance."""
+    p = len(c["terms"])
+    if len(c["coefficients"]) != p:
+        raise InvalidDataError(f"{where}: $.coefficients has {len(c['coefficients'])} "
+                               f"value(s) but $.terms names {p}")
+    cov = c.get("covariance")
+    if cov is not None and (len(cov) != p or any(len(r) != p for r in cov)):
+        raise InvalidDataError(f"{where}: $.covariance must be {p} x {p} (one row and "
+                               "column per term)")
+    for name in c["equation"]["x"]:
+        if not any(name in t for t in c["terms"]):
+            raise InvalidDataError(f"{where}: $.equation.x names {name!r}, which no term "
+                                   "uses")
+
+
+# ----------------------------------------------------------------------------- files
+def _reject_constant(token: str):
+    raise ValueError(f"{token} is not allowed in a coefficient file (use null)")
+
+
+def read_record(path) -> dict:
+    """Parse, validate and hash-check a coefficient file; return its content (a dict).
+
+    Raises
+    ------
+    UnreadableInputError
+        Missing or unreadable file, or text that is not JSON (e.g. truncated).
+    InvalidDataError
+        Unknown schema version, schema violation or hash mismatch (naming the field).
+    """
+    path = Path(path)
+    try:
+        text = path.read_text("utf-8")
+    except FileNotFoundError:
+        raise UnreadableInputError(f"{path}: no such coefficient file; check the path")
+    except (OSError, UnicodeDecodeError) as err:
+        raise UnreadableInputError(f"{path}: cannot be read as UTF-8 text ({err})")
+    try:
+        content = json.loads(text, parse_constant=_reject_constant)
+    except (json.JSONDecodeError, ValueError) as err:
+        raise UnreadableInputError(f"{path}: not valid JSON ({err}); the file may be "
+                                   "truncated or damaged: restore it from its source")
+    if not isinstance(content, dict):
+        raise InvalidDataError(f"{path}: $: expected a JSON object, got "
+                               f"{type(content).__name__}")
+    return validate(content, where=str(path))
+
+
+def write_record(content: dict, path) -> Path:
+    """Validate (schema, hash) and write ``content`` atomically; returns the path."""
+    from ._atomic import write_text_atomic
+
+    path = Path(path)
+    validate(content, where=str(path))
+    write_text_atomic(path, dumps(content))
+    return path
+
+
+# ----------------------------------------------------------------------------- consumer
+@dataclass
+class Prediction:
+    """Estimates and intervals [units of the response] and flags (';'-joined text)."""
+
+    estimate: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    flags: np.ndarray
+    level: float | None
+    method: str
+    exact: bool
+
+    def __len__(self) -> int:
+        return len(self.estimate)
+
+    def to_frame(self, index=None):
+        """The columns ``estimate``, ``lower``, ``upper``, ``flags`` as a pandas DataFrame."""
+        import pandas as pd
+
+        return pd.DataFrame({"estimate": self.estimate, "lower": self.lower,
+                             "upper": self.upper, "flags": self.flags}, index=index)
+
+
+def _values(values, names: list[str]) -> np.ndarray:
+    """New values as an (m, k) float array; a mapping or DataFrame is read by column."""
+    k = len(names)
+    if hasattr(values, "keys") and not isinstance(values, np.ndarray):
+        missing = [n for n in names if n not in values]
+        if missing:
+            raise UsageError(f"values lack column(s) {missing}; the equation needs {names}")
+        cols = [values[n] for n in names]
+        try:
+            return np.column_stack([np.atleast_1d(np.asarray(c, dtype=float)) for c in cols])
+        except (TypeError, ValueError) as err:
+            raise InvalidDataError(f"values for {names} must be numbers ({err})")
+    try:
+        arr = np.asarray(values, dtype=float)
+    except (TypeError, ValueError) as err:
+        raise InvalidDataError(f"values must be numbers; {err}: correct them or leave the "
+                               "cells empty (NaN)")
+    if arr.ndim <= 1:
+        arr = arr.reshape(-1, 1) if k == 1 else arr.reshape(1, -1)
+    if arr.ndim != 2 or arr.shape[1] != k:
+        raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
+    return arr
+
+
+@dataclass
+class Equation:
+    """A loaded coefficient file (:func:`load`); ``record`` is its validated content."""
+
+    record: dict
+    path: Path | None = None
+
+    def __getattr__(self, name):
+        rec = self.__dict__.get("record", {})
+        if name in rec:
+            return rec[name]
+        raise AttributeError(name)
+
+    @property
+    def predictor_names(self) -> list[str]:
+        """Names of the values :meth:`predict` takes, in order."""
+        return [p["name"] for p in self.record["predictors"]]
+
+    def predict(self, values, level: float | None = None, *, weights=None) -> Prediction:
+        """Estimate, interval and flags for new feature values, from the file alone.
+
+        Parameters
+        ----------
+        values : scalar, array_like (m,) or (m, k), mapping or DataFrame
+            The predictor(s) as measured [units of ``predictors[*].unit``]; NaN gives NaN
+            and the flag ``missing-value``.
+        level : float, optional
+            Interval coverage; default the file's ``interval.level``. Another level needs
+            the t quantile (scipy, imported then) or the stored resampling quantities;
+            a quantile-curve or published interval has one level only.
+        weights : float or array_like, optional
+            Weight ``w0`` of each new observation (variance ``s^2 / w0``), analytic and
+            bootstrap intervals; default 1.
+
+        Returns
+        -------
+        Prediction
+            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``.
+        """
+        from ._evaluate import evaluate
+
+        iv = self.record["interval"]
+        if level is None:
+            level = iv.get("level")
+            level = 0.95 if level is None else float(level)
+        if not (isinstance(level, (int, float)) and 0 < level < 1):
+            raise UsageError(f"level must be a number between 0 and 1 (e.g. 0.95); "
+                             f"got {level!r}")
+        if iv["method"] == "published" and iv.get("level") is not None and \
+                abs(level - iv["level"]) > 1e-12:
+            raise UsageError(f"the published interval has level {iv['level']} only")
+        v = _values(values, self.predictor_names)
+        if np.isinf(v).any():
+            raise InvalidDataError("values hold infinite numbers; use finite values or NaN")
+        w0 = np.ones(v.shape[0]) if weights is None else np.broadcast_to(
+            np.asarray(weights, dtype=float), (v.shape[0],))
+        if not np.all(np.isfinite(w0) & (w0 > 0)):
+            raise InvalidDataError("weights of new observations must be finite and > 0")
+        est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+        return Prediction(est, lo, hi, flags, float(level), iv["method"],
+                          bool(iv.get("exact", True)))
+
+
+def load(path) -> Equation:
+    """Load a coefficient file (validated and hash-checked); see :func:`read_record`."""
+    return Equation(read_record(path), Path(path))
+
+
+# ----------------------------------------------------------------------------- building
 def column_units() -> dict[str, str | None]:
     """Unit of each canonical column, from schemas/calibration.table.json."""
     from .units import schema_fields
@@ -62,137 +351,45 @@ def column_units() -> dict[str, str | None]:
     return {f["name"]: f.get("unit") for f in schema_fields()}
 
 
-# ----------------------------------------------------------------------------- interval
-def _t_quantile(level: float, df: float) -> float:
-    from scipy import stats
-
-    return float(stats.t.ppf(0.5 + level / 2, df))
-
-
-def interval_record(fit, method: str, engine: str, level: float, seed: int) -> dict:
-    """What a consumer needs to rebuild the candidate's interval without the data.
-
-    ``analytic``: t quantile and degrees of freedom (with the coefficients' covariance and
-    the residual standard error at the top level). ``split-conformal``: the coefficients
-    fitted on the training part and the conformal quantile (the interval is their
-    prediction +- q). Other resampling methods need the calibration rows; for
-    ``jackknife+`` the half-width from the leave-one-out residuals is given as an
-    approximation.
-    """
-    from . import intervals as iv
-
-    out = {"method": method, "engine_method": engine, "level": level}
-    res = fit.result
-    if method == "analytic":
-        out.update(df=res.df_resid, t_quantile=_t_quantile(level, res.df_resid))
-        out["rebuild"] = (
-            "estimate +- t_quantile * sqrt(residual_std_error^2 + x0' covariance x0), x0 "
-            "the terms at the new value" if fit.direction == "inverse" else
-            "classical calibration: the climate values whose prediction band for the "
-            "feature (t_quantile, residual_std_error, covariance) contains the measured "
-            "feature (Fieller's interval for a line)")
-        return out
-    X = fit.form.design(fit.x)
-    y = fit.y_model
-    if method == "split-conformal":
-        pi = iv.split_conformal(X, y, np.eye(X.shape[1]), level=level, seed=seed)
-        out.update(centre_coefficients=pi.estimate, quantile=pi.details["quantile"],
-                   n_train=pi.details["n_train"], n_calib=pi.details["n_calib"], seed=seed,
-                   rebuild="x0' centre_coefficients +- quantile")
-    elif method == "jackknife+":
-        loo = np.sort(np.abs(iv.loo_residuals(X, y)))
-        k = math.ceil(level * (len(loo) + 1) - 1e-9)
-        out.update(approximate_half_width=loo[k - 1] if k <= len(loo) else None,
-                   rebuild="needs the calibration rows (it combines all n leave-one-out "
-                   "fits); without them, estimate +- approximate_half_width")
-    elif method == "quantile":
-        coefs = fit.extras.get("quantile_coefficients", {})
-        out["quantile_coefficients"] = {str(q): b for q, b in coefs.items()}
-        out["rebuild"] = "lower and upper curves: x0' quantile_coefficients[q]"
-    else:
-        out.update(seed=seed, rebuild="needs the calibration rows: refit the subset and "
-                   "resample with the same seed")
-    return out
-
-
-# ----------------------------------------------------------------------------- record
-def candidate_record(fit, spec, *, function_id: str, level: float, seed: int,
-                     cv: dict, data: dict, subset: dict, recipe_sha256: str,
-                     created: str | None = None) -> dict:
-    """The coefficient record of one candidate fitted on the whole subset.
+def fit_record(fit, *, function_id: str, provenance: dict, cv: dict | None,
+               interval_method: str, level: float, seed: int = 0,
+               candidate: str | None = None, form_label: str | None = None,
+               version: str = CANDIDATE_VERSION, status: str = "candidate",
+               created: str | None = None, cautions=()) -> dict:
+    """The coefficient record of a :class:`refit.fitting.Fit` (validated, with its hash).
 
     Parameters
     ----------
     fit : refit.fitting.Fit
-    spec : refit.matrix.Spec
     function_id : str
+        E.g. ``map_from_bk_depth``.
+    provenance : dict
+        ``dataset`` {kind, name, version, sha256, ...}, ``subset``, ``recipe`` (the
+        recipe's dict, so the fit can be rebuilt), ``recipe_sha256``; ``kind`` and the
+        software versions are added.
+    cv : dict or None
+        Cross-validation summary (scheme settings and skill).
+    interval_method : str
+        The fitting engine's interval name (``analytic``, ``split-conformal``,
+        ``jackknife+``, ``cv+``, ``bootstrap-pairs``, ``bootstrap-residual``,
+        ``quantile``, ``none``).
     level : float
         Interval level.
     seed : int
-        The recipe's seed.
-    cv : dict
-        Cross-validation summary: scheme settings and skill (see :mod:`refit.matrix`).
-    data : dict
-        Dataset provenance: kind, name, version, sha256, path.
-    subset : dict
-        The filters and the rows each kept.
-    recipe_sha256 : str
-    created : str, optional
-        ISO 8601 time; default now (UTC).
+        Seed of the resampling interval (as passed to ``Fit.predict``).
+    candidate, form_label : str, optional
+        The run's candidate label and the recipe's form name.
+    version, status, created : str
+        Semantic version, ``candidate`` or ``published``, ISO 8601 time (default now).
+    cautions : sequence of str
+        Extra cautions.
     """
-    import refit
+    from ._records import build_record
 
-    units = column_units()
-    dom = fit.domain
-    ranges = fit.ranges
-    res = fit.result
-    content = {
-        "schema_version": SCHEMA_VERSION,
-        "function_id": function_id,
-        "version": CANDIDATE_VERSION,
-        "created": created or _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        "candidate": spec.label,
-        "response": {"name": fit.response, "unit": units.get(fit.response)},
-        "predictors": [{"name": p, "unit": units.get(p), "valid_min": ranges[p][0],
-                        "valid_max": ranges[p][1]} for p in fit.predictors],
-        "direction": fit.direction,
-        "form": spec.form_label,
-        "degree": fit.form.degree,
-        "estimator": fit.estimator,
-        "equation": {"y": fit.y_name, "x": list(fit.x_names),
-                     "scale": "log" if fit.form.log_response else "linear",
-                     "smearing": fit.smearing if fit.form.log_response else None},
-        "terms": list(fit.terms),
-        "coefficients": res.coefficients,
-        "covariance": res.covariance,
-        "residual_std_error": fit.residual_std_error,
-        "df_resid": fit.df_resid,
-        "n": fit.n,
-        "r_squared": fit.r_squared,
-        "interval": interval_record(fit, spec.method, spec.interval, level, seed),
-        "cv": cv,
-        "domain": dom.to_dict(),
-        "provenance": {"dataset": data, "subset": subset, "recipe_sha256": recipe_sha256,
-                       "software": {"refit": refit.__version__, "numpy": np.__version__}},
-        "cautions": [CAUTION, *dom.cautions, *_method_cautions(fit, spec)],
-    }
-    content = plain(content)
-    content["sha256"] = _sha(content)
-    return content
-
-
-def _sha(content: dict) -> str:
-    from ._atomic import sha256_bytes
-
-    return sha256_bytes(canonical_bytes(content))
-
-
-def _method_cautions(fit, spec) -> list[str]:
-    out = []
-    if fit.estimator == "huber" and spec.method == "analytic":
-        out.append("The analytic interval of a Huber fit uses its robust scale and "
-                   "covariance: an approximation.")
-    if fit.direction == "forward":
-        out.append("Forward fits are inverted as a classical calibration; where the slope is "
-                   "weak the interval can be very wide or unbounded.")
-    return out
+    content = build_record(fit, function_id=function_id, provenance=provenance, cv=cv,
+                           interval_method=interval_method, level=level, seed=seed,
+                           candidate=candidate, form_label=form_label, version=version,
+                           status=status, created=created or _dt.datetime.now(
+                               _dt.UTC).isoformat(timespec="seconds"), cautions=cautions)
+    content = with_hash(content)
+    return validate(content, where=f"record of {candidate or function_id}")

@@ -24,7 +24,7 @@ import shutil
 from pathlib import Path
 
 from ._atomic import TMP_PREFIX, fsync_dir, write_text_atomic
-from .coefficients import CAUTION, candidate_record, plain
+from .coefficients import CAUTION, fit_record, plain
 from .errors import UsageError
 
 OOF_COLUMNS = ("candidate", "scheme", "row", "profile_id", "repeat", "fold", "observed",
@@ -100,12 +100,14 @@ def fit_records(run, created: str) -> dict[str, dict]:
     m = run.matrix
     out = {}
     for spec in m.specs:
-        rec = candidate_record(
-            m.fits[spec.label], spec, function_id=run.recipe.function_id,
-            level=run.recipe.level, seed=run.recipe.seed, cv=cv_summary(m.cv[spec.label]),
-            data=run.data, subset=run.subset.to_dict() | {
-                "filters": [f.to_dict() for f in run.recipe.subset]},
-            recipe_sha256=run.recipe.sha256, created=created)
+        subset = run.subset.to_dict() | {"filters": [f.to_dict() for f in run.recipe.subset]}
+        rec = fit_record(
+            m.fits[spec.label], function_id=run.recipe.function_id,
+            provenance={"dataset": run.data, "subset": subset,
+                        "recipe": run.recipe.to_dict(), "recipe_sha256": run.recipe.sha256},
+            cv=cv_summary(m.cv[spec.label]), interval_method=spec.interval,
+            level=run.recipe.level, seed=run.recipe.seed, candidate=spec.label,
+            form_label=spec.form_label, created=created)
         out[fit_filename(spec.label)] = rec
     return out
 

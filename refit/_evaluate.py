@@ -1,0 +1,341 @@
+"""Evaluate a coefficient record from its fields alone: numpy only, no data, no fitting.
+
+Internal engine of :meth:`refit.coefficients.Equation.predict`. Everything here works on
+the plain JSON content of a coefficient file (see ``schemas/coefficients.schema.json`` and
+the README section "Evaluating a coefficient file"):
+
+- the design row of each new value from the ordered ``terms`` (``intercept``, ``x``,
+  ``x^k``, ``ln(x)``);
+- the analytic band ``eta +- t sqrt(s^2 / w0 + x0' V x0)``;
+- the stored conformal quantities: split-conformal calibration scores, the leave-one-out
+  coefficient vectors of jackknife+, the fold coefficient vectors of CV+ (all exact), and
+  the bootstrap summary (an approximation, said so in the file);
+- the classical-calibration inversion of forward fits, through the pure functions of
+  :mod:`refit.calibrate` (imported on first use).
+
+Nothing imports pandas, scipy, statsmodels or scikit-learn at module level; the Student t
+quantile for a level other than the file's own comes from scipy, imported only then.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import InvalidDataError, UsageError
+
+FLAG_MISSING = "missing-value"
+FLAG_INVALID = "invalid-value"
+FLAG_CROSS = "quantiles-cross"
+FLAG_UNBOUNDED = "unbounded"
+FLAG_OUTSIDE = "outside-calibration-range"
+FLAG_BEYOND_TP = "beyond-turning-point"
+INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_BEYOND_TP)
+
+
+# ----------------------------------------------------------------------------- terms
+def parse_term(term: str) -> tuple[str, str | None, int]:
+    """``(kind, variable, power)`` of a term name.
+
+    ``intercept`` -> ``("intercept", None, 0)``; ``bk_depth_cm`` -> ``("power", name, 1)``;
+    ``bk_depth_cm^2`` -> ``("power", name, 2)``; ``ln(cia_k)`` -> ``("log", name, 1)``.
+    """
+    if term == "intercept":
+        return "intercept", None, 0
+    if term.startswith("ln(") and term.endswith(")"):
+        return "log", term[3:-1], 1
+    name, sep, power = term.partition("^")
+    if sep:
+        if not power.isdigit() or int(power) < 1:
+            raise InvalidDataError(f"term {term!r}: the power after '^' must be a whole "
+                                   "number >= 1")
+        return "power", name, int(power)
+    return "power", term, 1
+
+
+def design_rows(terms: list[str], x_names: list[str], v: np.ndarray) -> np.ndarray:
+    """Design matrix (m, p) of values ``v`` (m, k), columns in the order of ``terms``.
+
+    Powers are formed by repeated multiplication, as :meth:`refit.forms.Form.design` does,
+    so the numbers agree to the last bit.
+    """
+    v = np.asarray(v, dtype=float)
+    out = np.empty((v.shape[0], len(terms)), order="F")
+    for j, term in enumerate(terms):
+        kind, name, power = parse_term(term)
+        if kind == "intercept":
+            out[:, j] = 1.0
+            continue
+        col = v[:, x_names.index(name)]
+        if kind == "log":
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[:, j] = np.log(col)
+            continue
+        p = col
+        for _ in range(power - 1):
+            p = p * col
+        out[:, j] = p
+    return out
+
+
+# ----------------------------------------------------------------------------- helpers
+def t_quantile(level: float, df: float, stored: dict | None = None) -> float:
+    """Student t quantile ``t(0.5 + level/2; df)``: the file's own value at its level,
+    scipy otherwise (imported here, only when needed)."""
+    if stored and stored.get("t_quantile") is not None and \
+            abs(float(stored["level"]) - level) < 1e-12 and float(stored["df"]) == df:
+        return float(stored["t_quantile"])
+    from scipy import stats
+
+    return float(stats.t.ppf(0.5 + level / 2.0, df))
+
+
+def flag_strings(masks: dict[str, np.ndarray], order, m: int) -> np.ndarray:
+    """';'-joined flag names per row (object array), built through bit codes (fast)."""
+    names = [nm for nm in order if nm in masks]
+    codes = np.zeros(m, dtype=np.int64)
+    for i, nm in enumerate(names):
+        codes |= np.asarray(masks[nm], dtype=bool).astype(np.int64) << i
+    present = np.unique(codes)
+    text = np.array([";".join(nm for i, nm in enumerate(names) if int(code) >> i & 1)
+                     for code in present], dtype=object)
+    return text[np.searchsorted(present, codes)]
+
+
+def kth_smallest(values: np.ndarray, k: int) -> np.ndarray:
+    """k-th smallest (1-based) along the last axis; -inf for k < 1, +inf for k > size."""
+    size = values.shape[-1]
+    if k < 1:
+        return np.full(values.shape[:-1], -np.inf)
+    if k > size:
+        return np.full(values.shape[:-1], np.inf)
+    return np.partition(values, k - 1, axis=-1)[..., k - 1]
+
+
+def _rank_lower(alpha: float, n: int) -> int:
+    return int(math.floor(alpha * (n + 1) + 1e-9))
+
+
+def _rank_upper(alpha: float, n: int) -> int:
+    return int(math.ceil((1.0 - alpha) * (n + 1) - 1e-9))
+
+
+def _matrix(value, what: str) -> np.ndarray:
+    if value is None:
+        raise UsageError(f"the file gives no {what}, so this interval cannot be formed")
+    return np.asarray([[np.nan if c is None else c for c in row] for row in value], float)
+
+
+# ----------------------------------------------------------------------------- bands
+def analytic_band(rec: dict, X0, eta, w0, level):
+    """``eta -+ t sqrt(s^2 / w0 + x0' V x0)`` from the file's covariance and residual SE."""
+    cov = _matrix(rec.get("covariance"), "coefficient covariance")
+    s = rec.get("residual_std_error")
+    if s is None or not np.all(np.isfinite(cov)):
+        raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
+                         "covariance, so there is no analytic interval")
+    q = np.einsum("ij,jk,ik->i", X0, cov, X0)
+    t = t_quantile(level, float(rec["df_resid"]), rec["interval"])
+    half = t * np.sqrt(s * s / w0 + q)
+    return eta - half, eta + half
+
+
+def _plus_band(mu_rows, r: np.ndarray, alpha: float, m: int):
+    """Jackknife+ / CV+ limits: ``mu_rows(sl)`` gives the (rows, n) leave-out predictions."""
+    n = r.shape[0]
+    lower, upper = np.empty(m), np.empty(m)
+    step = max(1, 1_000_000 // max(n, 1))
+    for start in range(0, m, step):
+        sl = slice(start, min(m, start + step))
+        mu = mu_rows(sl)
+        lower[sl] = kth_smallest(mu - r, _rank_lower(alpha, n))
+        upper[sl] = kth_smallest(mu + r, _rank_upper(alpha, n))
+    return lower, upper
+
+
+def resampled_band(iv: dict, X0, ok, w0, level):
+    """Estimate and limits of the stored resampling intervals (rows with values only)."""
+    alpha = 1.0 - level
+    method = iv["method"]
+    b = np.asarray(iv["centre_coefficients"], float)
+    x0 = X0[ok]
+    est = x0 @ b
+    if method == "split-conformal":
+        scores = np.asarray(iv["calibration_scores"], float)
+        q = float(kth_smallest(scores, _rank_upper(alpha, len(scores))))
+        lo, hi = est - q, est + q
+    elif method == "jackknife+":
+        B = np.asarray(iv["loo_coefficients"], float)
+        r = np.asarray(iv["loo_abs_residuals"], float)
+        lo, hi = _plus_band(lambda sl: x0[sl] @ B.T, r, alpha, len(est))
+    elif method == "cv+":
+        B = np.asarray(iv["fold_coefficients"], float)
+        fold = np.asarray(iv["row_folds"], int)
+        r = np.asarray(iv["row_abs_residuals"], float)
+        lo, hi = _plus_band(lambda sl: (x0[sl] @ B.T)[:, fold], r, alpha, len(est))
+    else:  # bootstrap: approximation (see the file's interval.approximation)
+        pool = np.asarray(iv["residual_pool"], float)
+        vb = _matrix(iv["coefficient_covariance"], "bootstrap coefficient covariance")
+        qlo, qhi = np.quantile(pool, [alpha / 2, 1 - alpha / 2])
+        var_e = float(np.var(pool))
+        w = np.broadcast_to(w0, ok.shape)[ok]
+        k = np.sqrt(1.0 + w * np.einsum("ij,jk,ik->i", x0, vb, x0) / var_e) / np.sqrt(w)
+        lo, hi = est + qlo * k, est + qhi * k
+    out = np.full((3, len(ok)), np.nan)
+    out[:, ok] = np.vstack([est, lo, hi])
+    return out
+
+
+def quantile_band(iv: dict, X0, level):
+    """Lower and upper quantile curves ``x0' b_q``."""
+    qlo, qhi = iv["quantiles"]
+    if abs((qhi - qlo) - level) > 1e-9:
+        raise UsageError(f"the quantile curves were fitted at {qlo} and {qhi}, a "
+                         f"{qhi - qlo:g} interval; ask for level={qhi - qlo:g}")
+    return X0 @ np.asarray(iv["lower_coefficients"], float), \
+        X0 @ np.asarray(iv["upper_coefficients"], float)
+
+
+def published_band(iv: dict, eta):
+    """The published +- figure (a regression standard error, not a prediction interval)."""
+    half = float(iv["half_width"])
+    return eta - half, eta + half
+
+
+# ----------------------------------------------------------------------------- directions
+def _ranges(rec: dict) -> dict:
+    return {p["name"]: (p.get("valid_min"), p.get("valid_max")) for p in rec["predictors"]}
+
+
+def _outside(v, lo, hi) -> np.ndarray:
+    with np.errstate(invalid="ignore"):
+        out = np.zeros(v.shape, dtype=bool)
+        if lo is not None:
+            out |= v < lo
+        if hi is not None:
+            out |= v > hi
+    return out
+
+
+def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
+    """Inverse direction (climate on feature): estimate, lower, upper, flags."""
+    eq = rec["equation"]
+    iv = rec["interval"]
+    method = iv["method"]
+    m = v.shape[0]
+    ok = ~np.isnan(v).any(axis=1)
+    X0 = design_rows(rec["terms"], eq["x"], v)
+    eta = X0 @ np.asarray(rec["coefficients"], float)
+    lo = hi = np.full(m, np.nan)
+    masks = {FLAG_MISSING: ~ok}
+    if method == "analytic":
+        lo, hi = analytic_band(rec, X0, eta, w0, level)
+    elif method == "published":
+        lo, hi = published_band(iv, eta)
+    elif method == "quantile":
+        lo, hi = quantile_band(iv, X0, level)
+        masks[FLAG_CROSS] = lo > hi
+    elif method != "none":
+        eta, lo, hi = resampled_band(iv, X0, ok, w0, level)
+        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
+    out = np.zeros(m, dtype=bool)
+    for j, (lo_r, hi_r) in enumerate(_ranges(rec).values()):
+        out |= _outside(v[:, j], lo_r, hi_r)
+    masks[FLAG_OUTSIDE] = out
+    dom = rec.get("domain") or {}
+    if rec.get("degree") == 2 and v.shape[1] == 1 and dom.get("turning_point") is not None:
+        with np.errstate(invalid="ignore"):
+            masks[FLAG_BEYOND_TP] = (v[:, 0] - dom["turning_point"]) * dom["data_side"] < 0
+    elif rec.get("degree") == 2 and v.shape[1] == 1:
+        masks[FLAG_BEYOND_TP] = np.zeros(m, dtype=bool)
+    if eq["scale"] == "log":
+        smear = float(eq.get("smearing") or 1.0) if method in ("analytic", "none") else 1.0
+        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    return eta, lo, hi, flag_strings(masks, INVERSE_FLAG_ORDER, m)
+
+
+def _branch_points(inv: dict) -> np.ndarray | None:
+    """Stand-in calibration x values: ``n`` points inside each monotonic branch, so the
+    inversion picks the same branch as with the real data (only these counts matter)."""
+    branches = inv.get("branches")
+    if not branches:
+        return None
+    pts = []
+    for br in branches:
+        a, b = br["from"], br["to"]
+        if a is None and b is None:
+            x = 0.0
+        elif a is None:
+            x = b - 1.0 - abs(b)
+        elif b is None:
+            x = a + 1.0 + abs(a)
+        else:
+            x = 0.5 * (a + b)
+        pts += [x] * int(br["n_calibration"])
+    return np.asarray(pts, float)
+
+
+def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
+    """Forward direction: invert ``feature = f(climate)`` as a classical calibration."""
+    from . import calibrate as cal
+
+    iv = rec["interval"]
+    method = iv["method"]
+    if method not in ("analytic", "none"):
+        raise UsageError(f"interval {method!r} does not apply to a forward fit")
+    eq = rec["equation"]
+    y0 = v[:, 0].copy()
+    missing = np.isnan(y0)
+    invalid = np.zeros_like(missing)
+    if eq["scale"] == "log":
+        invalid = ~missing & ~(y0 > 0)
+        y0[invalid] = np.nan
+        y0 = np.log(y0)
+    deg, origin = int(rec["degree"]), "intercept" not in rec["terms"]
+    b = np.asarray(rec["coefficients"], float)
+    poly = np.concatenate([[0.0] if origin else [], b])
+    cov = _matrix(rec.get("covariance"), "coefficient covariance")
+    if method != "analytic":
+        cov = np.zeros_like(cov)
+    if not np.all(np.isfinite(cov)):
+        raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
+                         "covariance, so the calibration interval cannot be formed")
+    if origin:
+        cov = np.pad(cov, ((1, 0), (1, 0)))
+    s = float(rec["residual_std_error"])
+    s2new = s * s / w0 if method == "analytic" else 0.0
+    t = t_quantile(level, float(rec["df_resid"]), iv)
+    inv = iv.get("inversion") or {}
+    x_name = eq["x"][0]
+    dom = tuple(inv.get("x_range") or rec["domain"]["ranges"][x_name])
+    if deg == 1:
+        est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, s2new, t)
+        flags = [(cal.FLAG_UNBOUNDED,) if unb and np.isfinite(e) else () for e in est]
+    else:
+        def design(x):
+            return np.vander(x, deg + 1, increasing=True)
+
+        est, lo, hi, flags = cal.invert_polynomial(y0, poly, design, cov, s2new, t, dom,
+                                                   _branch_points(inv))
+    if method == "none":
+        lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
+    outside = cal.range_flags(est, dom)
+    text = []
+    for i, f in enumerate(flags):
+        f = list(f)
+        if outside[i] and cal.FLAG_OUTSIDE not in f:
+            f.insert(0, cal.FLAG_OUTSIDE)
+        if missing[i]:
+            f.append(FLAG_MISSING)
+        if invalid[i]:
+            f.append(FLAG_INVALID)
+        text.append(";".join(f))
+    return est, lo, hi, np.asarray(text, dtype=object)
+
+
+def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:
+    """Estimate, lower, upper [response units] and flags for values ``v`` (m, k)."""
+    if rec["direction"] == "forward":
+        return predict_forward(rec, v, level, w0)
+    return predict_inverse(rec, v, level, w0)

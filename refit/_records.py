@@ -1,0 +1,211 @@
+"""Building the content of a coefficient file from an in-memory Fit.
+
+Internal; the public entry point is :func:`refit.coefficients.fit_record`. The interval
+block holds what a consumer needs to rebuild the interval without the calibration rows:
+
+- ``analytic``: t quantile and degrees of freedom (covariance and residual SE at the top);
+  for forward fits also the inversion's calibration range and how many calibration
+  points lie on each monotonic branch of the curve (to pick the same root).
+- ``split-conformal``: the training-part coefficients and the sorted calibration scores
+  (any level, exact).
+- ``jackknife+``: the n leave-one-out coefficient vectors and |LOO residuals| (exact).
+- ``cv+``: the K fold coefficient vectors, each row's fold and |residual| (exact).
+- ``bootstrap-*``: an approximation (the resampled draws are not carried): the bootstrap
+  covariance of the coefficients and the pool of modified residuals.
+- ``quantile``: the lower and upper quantile curves.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+APPROX_BOOTSTRAP = (
+    "approximation: the in-memory bootstrap draws resampled fits and residuals with a "
+    "seed; the file carries their summary instead. limits = estimate + q(pool, a/2) k and "
+    "estimate + q(pool, 1 - a/2) k with k = sqrt(1/w0 + x0' coefficient_covariance x0 / "
+    "var(pool)), q the linearly interpolated quantile of residual_pool and var its "
+    "population variance; agrees with the in-memory interval to a few percent of its "
+    "width, not to rounding")
+
+
+def _cal():
+    from . import calibrate
+
+    return calibrate
+
+
+def _branches(fit) -> dict:
+    """Calibration range and points per monotonic branch of a forward polynomial."""
+    from numpy.polynomial import polynomial as P
+
+    cal = _cal()
+    lo, hi = fit.ranges[fit.x_names[0]]
+    out = {"x_range": [lo, hi]}
+    if fit.form.degree < 2:
+        return out
+    poly = np.concatenate([[0.0] if fit.form.through_origin else [],
+                           fit.result.coefficients])
+    c, h = 0.5 * (lo + hi), 0.5 * (hi - lo)
+    pu = np.trim_zeros(cal._rescale(poly, c, h), "b")
+    turning = cal._real_roots(P.polyder(pu))
+    edges = np.concatenate([[-np.inf], turning, [np.inf]])
+    counts = np.histogram((fit.x[:, 0] - c) / h, bins=edges)[0]
+    xs = [None if not np.isfinite(e) else float(c + h * e) for e in edges]
+    out["branches"] = [{"from": xs[i], "to": xs[i + 1], "n_calibration": int(counts[i])}
+                       for i in range(len(counts))]
+    return out
+
+
+def _analytic(fit, level: float) -> dict:
+    from ._evaluate import t_quantile
+
+    df = float(fit.df_resid)
+    out = {"df": df, "t_quantile": t_quantile(level, df), "exact": True}
+    if fit.direction == "forward":
+        out["inversion"] = _branches(fit)
+        out["rebuild"] = ("classical calibration: the climate values x whose prediction "
+                          "band b(x) +- t_quantile sqrt(residual_std_error^2 + g(x)' "
+                          "covariance g(x)) contains the measured feature")
+    else:
+        out["rebuild"] = ("estimate +- t_quantile sqrt(residual_std_error^2 + x0' "
+                          "covariance x0), x0 the terms at the new value")
+    return out
+
+
+def _split_conformal(X, y, level, seed) -> dict:
+    from ._linalg import _ols
+
+    n = X.shape[0]
+    n_cal = int(round(0.5 * n))
+    perm = np.random.default_rng(seed).permutation(n)
+    cal, train = perm[:n_cal], perm[n_cal:]
+    b = _ols(X[train], y[train], "split_conformal")[0]
+    scores = np.sort(np.abs(y[cal] - X[cal] @ b))
+    return {"centre_coefficients": b, "calibration_scores": scores, "n_train": n - n_cal,
+            "n_calib": n_cal, "calib_fraction": 0.5, "seed": seed, "exact": True,
+            "rebuild": "x0' centre_coefficients +- q, q the ceil(level (n_calib + 1))-th "
+                       "smallest calibration score (unbounded if that exceeds n_calib)"}
+
+
+def _jackknife_plus(X, y) -> dict:
+    from ._conformal import _one_minus_h
+    from ._linalg import _ols
+
+    b, e, Q, R = _ols(X, y, "jackknife_plus")
+    loo = e / _one_minus_h(Q, "jackknife_plus")
+    B = b[None, :] - (np.linalg.solve(R, Q.T) * loo[None, :]).T
+    return {"centre_coefficients": b, "loo_coefficients": B, "loo_abs_residuals":
+            np.abs(loo), "exact": True,
+            "rebuild": "mu_i = x0' loo_coefficients[i]; lower = the floor((1 - level)(n + 1))"
+                       "-th smallest of mu_i - loo_abs_residuals[i], upper = the "
+                       "ceil(level (n + 1))-th smallest of mu_i + loo_abs_residuals[i]"}
+
+
+def _cv_plus(X, y, seed, folds=10) -> dict:
+    from sklearn.model_selection import KFold
+
+    from ._linalg import _ols
+
+    n = X.shape[0]
+    fold, r, B = np.empty(n, dtype=int), np.empty(n), []
+    for k, (tr, te) in enumerate(KFold(folds, shuffle=True, random_state=seed).split(X)):
+        bk = _ols(X[tr], y[tr], f"cv_plus (fold {k + 1})")[0]
+        fold[te], r[te] = k, np.abs(y[te] - X[te] @ bk)
+        B.append(bk)
+    b = _ols(X, y, "cv_plus")[0]
+    return {"centre_coefficients": b, "fold_coefficients": np.array(B), "row_folds": fold,
+            "row_abs_residuals": r, "folds": folds, "seed": seed, "exact": True,
+            "rebuild": "as jackknife+ with mu_i = x0' fold_coefficients[row_folds[i]] and "
+                       "row_abs_residuals"}
+
+
+def _bootstrap(fit, X, y, method, level, seed, n_boot=1000) -> dict:
+    from . import intervals as iv
+    from ._bootstrap import _weighted_fit
+
+    fun = iv.bootstrap_pairs if method == "bootstrap-pairs" else iv.bootstrap_residual
+    pi = fun(X, y, X[:1], n_boot=n_boot, level=level, seed=seed, weights=fit.weights)
+    wf = _weighted_fit(X, y, X[:1], fit.weights, 1.0, level, n_boot, method)
+    return {"centre_coefficients": wf.b, "coefficient_covariance":
+            np.cov(pi.details["coefficients"], rowvar=False).reshape(X.shape[1], -1),
+            "residual_pool": np.sort(wf.pool), "n_boot": n_boot, "seed": seed,
+            "exact": False, "approximation": APPROX_BOOTSTRAP}
+
+
+def interval_record(fit, method: str, level: float, seed: int) -> dict:
+    """The ``interval`` block (see the module docstring)."""
+    out = {"method": method, "level": float(level)}
+    if method == "analytic":
+        return out | _analytic(fit, level)
+    if method == "none":
+        return out | {"level": None, "exact": True}
+    X, y = fit.form.design(fit.x), fit.y_model
+    if method == "quantile":
+        qlo, qhi = fit.extras["quantiles"]
+        cf = fit.extras["quantile_coefficients"]
+        return out | {"quantiles": [qlo, qhi], "lower_coefficients": cf[float(qlo)],
+                      "upper_coefficients": cf[float(qhi)], "exact": True,
+                      "rebuild": "lower = x0' lower_coefficients, upper = x0' "
+                                 "upper_coefficients"}
+    if method == "split-conformal":
+        return out | _split_conformal(X, y, level, seed)
+    if method == "jackknife+":
+        return out | _jackknife_plus(X, y)
+    if method == "cv+":
+        return out | _cv_plus(X, y, seed)
+    return out | _bootstrap(fit, X, y, method, level, seed)
+
+
+def _method_cautions(fit, method) -> list[str]:
+    out = []
+    if fit.estimator == "huber" and method == "analytic":
+        out.append("The analytic interval of a Huber fit uses its robust scale and "
+                   "covariance: an approximation.")
+    if fit.direction == "forward":
+        out.append("Forward fits are inverted as a classical calibration; where the slope is "
+                   "weak the interval can be very wide or unbounded.")
+    if method.startswith("bootstrap"):
+        out.append("The bootstrap interval rebuilt from this file approximates the "
+                   "in-memory one (see interval.approximation).")
+    return out
+
+
+def _domain(fit) -> dict:
+    dom = fit.domain
+    out = dom.to_dict()
+    out["data_side"] = int(dom.data_side)
+    return out
+
+
+def build_record(fit, *, function_id, provenance, cv, interval_method, level, seed,
+                 candidate, form_label, version, status, created, cautions) -> dict:
+    """Content of a coefficient file (without its hash); see ``fit_record``."""
+    import refit
+
+    from .coefficients import CAUTION, SCHEMA_VERSION, column_units
+
+    units = column_units()
+    res = fit.result
+    dom = _domain(fit)
+    return {
+        "schema_version": SCHEMA_VERSION, "function_id": function_id, "version": version,
+        "status": status, "created": created, "candidate": candidate,
+        "response": {"name": fit.response, "unit": units.get(fit.response)},
+        "predictors": [{"name": p, "unit": units.get(p), "valid_min": fit.ranges[p][0],
+                        "valid_max": fit.ranges[p][1]} for p in fit.predictors],
+        "direction": fit.direction, "form": form_label or fit.form.name,
+        "degree": fit.form.degree, "estimator": fit.estimator,
+        "equation": {"y": fit.y_name, "x": list(fit.x_names),
+                     "scale": "log" if fit.form.log_response else "linear",
+                     "smearing": fit.smearing if fit.form.log_response else None},
+        "terms": list(fit.terms), "coefficients": res.coefficients,
+        "covariance": (res.covariance if np.all(np.isfinite(res.covariance)) else None),
+        "residual_std_error": fit.residual_std_error, "df_resid": fit.df_resid,
+        "n": fit.n, "r_squared": fit.r_squared,
+        "interval": interval_record(fit, interval_method, level, seed),
+        "cv": cv, "domain": dom,
+        "provenance": {"kind": "refit", **provenance,
+                       "software": {"refit": refit.__version__, "numpy": np.__version__}},
+        "cautions": [CAUTION, *dom["cautions"], *_method_cautions(fit, interval_method),
+                     *cautions],
+    }
