@@ -69,9 +69,11 @@ def file_text(content: dict) -> str:
     JSON, keys in the content's order, one-space indent, UTF-8 (no ``\\u`` escapes), a
     final newline: the layout of the run folder's candidate files.
     """
-    from .coefficients import plain
+    from . import coefficients as co
 
-    return json.dumps(plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    if hasattr(co, "dumps"):
+        return co.dumps(content)
+    return json.dumps(co.plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
 
 
 def content_sha256(content: dict) -> str:
@@ -99,6 +101,11 @@ def parse_record(path) -> tuple[dict, bytes]:
                                    "(<function_id>/<version>.json)") from None
     except OSError as exc:
         raise UnreadableInputError(f"{path}: cannot read it ({exc.strerror})") from None
+    return parse_bytes(raw, path), raw
+
+
+def parse_bytes(raw: bytes, path) -> dict:
+    """The JSON object in ``raw`` (see :func:`parse_record`); ``path`` names it in errors."""
     try:
         content = json.loads(raw.decode("utf-8"), parse_constant=_no_constant)
     except UnicodeDecodeError as exc:
@@ -110,7 +117,7 @@ def parse_record(path) -> tuple[dict, bytes]:
     if not isinstance(content, dict):
         raise UnreadableInputError(f"{path}: a coefficient file is a JSON object; found "
                                    f"{type(content).__name__}")
-    return content, raw
+    return content
 
 
 def _no_constant(name: str):
@@ -137,7 +144,7 @@ def validate_schema(content: dict, path) -> None:
 
     validate = getattr(coefficients, "validate", None)
     if validate is not None:
-        validate(content, path=path)
+        validate(content, where=str(path), check_hash=False)
 
 
 def read_record(path) -> dict:
