@@ -231,12 +231,10 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     masks = {FLAG_MISSING: ~ok}
     if method == "analytic":
         lo, hi = analytic_band(rec, X0, eta, w0, level)
-    elif method == "published":
-        lo, hi = published_band(iv, eta)
     elif method == "quantile":
         lo, hi = quantile_band(iv, X0, level)
         masks[FLAG_CROSS] = lo > hi
-    elif method != "none":
+    elif method not in ("none", "published"):
         eta, lo, hi = resampled_band(iv, X0, ok, w0, level)
         masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
     out = np.zeros(m, dtype=bool)
@@ -250,8 +248,11 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     elif rec.get("degree") == 2 and v.shape[1] == 1:
         masks[FLAG_BEYOND_TP] = np.zeros(m, dtype=bool)
     if eq["scale"] == "log":
-        smear = float(eq.get("smearing") or 1.0) if method in ("analytic", "none") else 1.0
+        smear = (float(eq.get("smearing") or 1.0)
+                 if method in ("analytic", "none", "published") else 1.0)
         eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    if method == "published":  # the +- figure is in the response's own units
+        lo, hi = published_band(iv, eta)
     return eta, lo, hi, flag_strings(masks, INVERSE_FLAG_ORDER, m)
 
 

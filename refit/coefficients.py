@@ -334,7 +334,9 @@ class Equation:
         if not np.all(np.isfinite(w0) & (w0 > 0)):
             raise InvalidDataError("weights of new observations must be finite and > 0")
         est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
-        return Prediction(est, lo, hi, flags, float(level), iv["method"],
+        if iv["method"] in ("published", "none"):
+            level = iv.get("level")
+        return Prediction(est, lo, hi, flags, level, iv["method"],
                           bool(iv.get("exact", True)))
 
 
