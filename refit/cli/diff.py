@@ -84,7 +84,7 @@ def render(result: dict, show_all: bool = False) -> None:
 
     from rich.console import Console
 
-    out = Console(highlight=False, soft_wrap=True,
+    out = Console(highlight=False, soft_wrap=True, markup=False,
                   width=None if sys.stdout.isatty() else WIDTH)
     a, b = result["a"], result["b"]
     out.print(f"A: {a['path']} ({a['function_id']} {a['version']})")
