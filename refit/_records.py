@@ -171,7 +171,12 @@ def _method_cautions(fit, method) -> list[str]:
 
 
 def _domain(fit) -> dict:
-    dom = fit.domain
+    from .errors import InvalidDataError
+
+    try:
+        dom = fit.domain
+    except InvalidDataError:  # too few rows for the broken-stick comparison
+        dom = fit._core_domain()
     out = dom.to_dict()
     out["data_side"] = int(dom.data_side)
     return out
