@@ -1,0 +1,124 @@
+"""refit publish / verify / diff through click's runner: exit codes first, then the files."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from refit._resources import demo_dir
+from refit.cli.diff import diff
+from refit.cli.publish import publish
+from refit.cli.verify import verify
+
+RECIPE = """
+[data]
+store = "store"
+
+[subset]
+parent_material = "loess"
+
+[function]
+id = "map_from_bk_depth"
+response = "map_mm"
+predictors = ["bk_depth_cm"]
+
+[candidates]
+forms = ["linear", "quadratic"]
+estimators = ["ols"]
+
+[validation]
+folds = 5
+seed = 11
+"""
+LINEAR = "linear__ols__inverse__analytic.json"
+QUADRATIC = "quadratic__ols__inverse__analytic.json"
+
+
+@pytest.fixture(scope="module")
+def world(tmp_path_factory):
+    from refit.matrix import run_recipe
+    from refit.recipe import read_recipe
+    from refit.runfolder import write_run
+
+    root = tmp_path_factory.mktemp("cli_registry")
+    shutil.copytree(demo_dir() / "store", root / "store")
+    (root / "recipe.toml").write_text(RECIPE, encoding="utf-8")
+    fits = write_run(run_recipe(read_recipe(root / "recipe.toml")), root / "run") / "fits"
+    return root, fits
+
+
+def invoke(cmd, *args):
+    return CliRunner().invoke(cmd, [str(a) for a in args])
+
+
+def test_publish_verify_diff(world, tmp_path):
+    root, fits = world
+    r = tmp_path / "registry"
+    res = invoke(publish, fits / LINEAR, "--to", r)
+    assert res.exit_code == 2 and "--init" in res.output             # missing registry
+    res = invoke(publish, fits / LINEAR, "--to", r, "--init")
+    assert res.exit_code == 0, res.output
+    assert "Published map_from_bk_depth 1.0.0" in res.output
+    res = invoke(publish, fits / QUADRATIC, "--to", r, "--bump", "patch")
+    assert res.exit_code == 1 and "too small" in res.output and "2.0.0" in res.output
+    res = invoke(publish, fits / QUADRATIC, "--to", r, "--format", "json")
+    assert res.exit_code == 0, res.output
+    out = json.loads(res.output)
+    assert (out["version"], out["previous"], out["bump"]) == ("2.0.0", "1.0.0", "major")
+    assert Path(out["path"]).is_file()
+    res = invoke(publish, fits / LINEAR, "--to", r, "--bump", "nope")
+    assert res.exit_code == 2                                         # click usage error
+
+    one = r / "map_from_bk_depth" / "1.0.0.json"
+    res = invoke(verify, one, "--store", root / "store")
+    assert res.exit_code == 0, res.output
+    assert "ok   reproduce" in res.output and "verified" in res.output
+    res = invoke(verify, r, "--format", "json")
+    assert res.exit_code == 0 and json.loads(res.output)["ok"] is True
+
+    res = invoke(diff, one, r / "map_from_bk_depth" / "2.0.0.json")
+    assert res.exit_code == 0, res.output
+    assert "major version bump" in res.output and "bk_depth_cm^2" in res.output
+    res = invoke(diff, one, r / "map_from_bk_depth" / "2.0.0.json", "--format", "json",
+                 "--at", "100")
+    assert res.exit_code == 0
+    d = json.loads(res.output)
+    assert [row["bk_depth_cm"] for row in d["at_reference"]] == [100.0]
+
+
+def test_verify_exit_codes(world, tmp_path):
+    _, fits = world
+    res = invoke(verify, tmp_path / "none.json")
+    assert res.exit_code == 2 and "not found" in res.output
+    edited = tmp_path / "edited.json"
+    edited.write_text((fits / LINEAR).read_text("utf-8").replace('"n": ', '"n": 1', 1))
+    res = invoke(verify, edited)
+    assert res.exit_code == 1 and "FAIL sha256" in res.output
+    res = invoke(verify, fits / LINEAR, "--store", tmp_path / "nostore")
+    assert res.exit_code == 2 and "not found" in res.output
+
+
+def test_verify_reports_a_disagreeing_index(world, tmp_path):
+    _, fits = world
+    r = tmp_path / "registry"
+    assert invoke(publish, fits / LINEAR, "--to", r, "--init").exit_code == 0
+    (r / "map_from_bk_depth" / "1.0.0.json").chmod(0o644)
+    (r / "map_from_bk_depth" / "1.0.0.json").unlink()
+    res = invoke(verify, r)
+    assert res.exit_code == 1
+    assert "index.json lists map_from_bk_depth 1.0.0 but map_from_bk_depth/1.0.0.json is " \
+           "missing" in res.output
+
+
+def test_diff_exit_codes(world, tmp_path):
+    _, fits = world
+    res = invoke(diff, fits / LINEAR, tmp_path / "none.json")
+    assert res.exit_code == 2
+    bad = tmp_path / "bad.json"
+    bad.write_text((fits / LINEAR).read_text("utf-8").replace('"ols"', '"wls"', 1))
+    res = invoke(diff, fits / LINEAR, bad)
+    assert res.exit_code == 1 and "sha256" in res.output
