@@ -13,7 +13,10 @@ from refit import __version__
 from refit.cli.admit import admit
 from refit.cli.check import check
 from refit.cli.demo import demo
+from refit.cli.diff import diff
 from refit.cli.fit import fit
+from refit.cli.publish import publish
+from refit.cli.verify import verify
 
 CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
 
@@ -37,4 +40,7 @@ def main() -> None:
 main.add_command(check)
 main.add_command(admit)
 main.add_command(fit)
+main.add_command(publish)
+main.add_command(verify)
+main.add_command(diff)
 main.add_command(demo)
