@@ -1,23 +1,39 @@
 """Classical calibration: invert a fitted curve ``feature = f(climate)`` for a new feature value.
 
 The forward direction fits the feature on climate (the way the soil responds to climate)
-and reads climate off the curve. Point estimate: solve ``f(x) = y0`` (closed form for a
-line; polynomial roots, polished by a bracketing root finder, for higher degrees).
-Interval: the set of ``x`` whose prediction band for a new observation contains ``y0``
-(Fieller for a line, Fieller 1954 / Eisenhart 1939; the same set found numerically for
-polynomials, as in NIST/SEMATECH e-Handbook section 4.5.2.1).
+and reads climate off the curve. Point estimate: solve ``f(x) = y0`` (closed form for lines
+and quadratics; polynomial roots for higher degrees). Interval: the set of ``x`` whose
+prediction band for a new observation contains ``y0`` (Fieller for a line, Fieller 1954 /
+Eisenhart 1939; the same set found numerically for polynomials, as in NIST/SEMATECH
+e-Handbook section 4.5.2.1).
+
+Search window (polynomials). The band is inverted only on the *monotonic branch* of the
+curve that holds the estimate (between its turning points), and only inside the
+calibration range widened by :data:`refit.domain.SEARCH_MARGIN` (half its width) on each side and cut
+at the physical bounds of the climate variable (e.g. 0 mm for rain; from the schema range
+of the column, :func:`refit.domain.schema_bounds`). Lines need no search; their Fieller
+limits are cut at the physical bounds only.
 
 Flags (a tuple of short strings per value):
 
 - ``two-roots``: ``f(x) = y0`` has more than one solution inside the calibration range
   (the curve is not monotonic there); the root on the branch holding most calibration
   points is reported.
-- ``unbounded``: the band never closes (for a line ``g = t^2 V(b1) / b1^2 >= 1``, i.e. the
-  slope is not significant at the chosen level); the limits are -inf / +inf.
+- ``open-below`` / ``open-above``: the band does not close inside the search window on
+  that side (it runs on past the turning point, past the widened range or past a physical
+  bound); the limit reported is the window edge: read it as "at most" / "at least".
+- ``unbounded``: a line's band never closes (``g = t^2 V(b1) / b1^2 >= 1``, i.e. the slope
+  is not significant at the chosen level); the limits are -inf / +inf (or the bounds).
 - ``outside-calibration-range``: the estimate lies outside the climate range of the data.
-- ``beyond-turning-point``: ``y0`` lies beyond the curve's extreme value (no real root;
-  the equation saturates and cannot be inverted: estimate NaN), or the root lies past a
-  turning point outside the data.
+- ``beyond-turning-point``: ``y0`` lies beyond the curve's extreme value, so no climate on
+  the branch gives it. The estimate is then the turning point's ``x`` (the point of the
+  curve closest to ``y0``) when the prediction band there still holds ``y0`` (the value
+  is consistent with the curve within its scatter; the interval is open on the turning-
+  point side); otherwise NaN (the value contradicts the calibration at this level).
+  Also set when the root lies past a turning point outside the data.
+- ``beyond-search-window``: the root lies outside the search window (far extrapolation
+  or a physically impossible value, e.g. negative rain): estimate NaN; the limits show the
+  part of the band inside the window, if any.
 """
 
 from __future__ import annotations
@@ -25,10 +41,20 @@ from __future__ import annotations
 import numpy as np
 from numpy.polynomial import polynomial as P
 
+from .domain import search_window
+
 FLAG_TWO_ROOTS = "two-roots"
 FLAG_UNBOUNDED = "unbounded"
 FLAG_OUTSIDE = "outside-calibration-range"
 FLAG_BEYOND_TP = "beyond-turning-point"
+FLAG_OPEN_BELOW = "open-below"
+FLAG_OPEN_ABOVE = "open-above"
+FLAG_BEYOND_WINDOW = "beyond-search-window"
+_INTERVAL_FLAGS = (FLAG_UNBOUNDED, "open-below", "open-above")
+
+#: grid nodes over the search window on which the band's sign changes are located
+GRID_POINTS = 257
+_MAX_STEPS = 100
 
 
 def fieller_line(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new: float, t: float):
@@ -92,63 +118,129 @@ def _real_roots(poly_u: np.ndarray) -> np.ndarray:
     return np.sort(r.real[keep])
 
 
-def _polish(fun, u: float, span: float) -> float:
-    """Refine a root of ``fun`` near ``u`` with brentq when a sign change brackets it."""
-    from scipy.optimize import brentq
+def _all_roots(pu: np.ndarray, y0: np.ndarray) -> np.ndarray:
+    """Real roots of ``pu(u) = y0`` for every row, shape (m, degree), NaN-padded.
 
-    for h in (1e-9, 1e-7, 1e-5, 1e-3):
-        a, b = u - h * span, u + h * span
-        fa, fb = fun(a), fun(b)
-        if fa == 0:
-            return a
-        if fb == 0:
-            return b
-        if np.sign(fa) != np.sign(fb):
-            return brentq(fun, a, b, xtol=1e-15 * max(1.0, abs(u)), rtol=1e-15, maxiter=200)
-    return u
-
-
-def _edge(fun, u0: float, direction: int, limit: float) -> float:
-    """Nearest point from ``u0`` (where ``fun < 0``) in ``direction`` where ``fun`` crosses 0."""
-    from scipy.optimize import brentq
-
-    step, inner = 1e-8, u0
-    while step <= limit:
-        outer = u0 + direction * step
-        if fun(outer) > 0:
-            a, b = sorted((inner, outer))
-            return brentq(fun, a, b, xtol=1e-14 * max(1.0, abs(u0)), rtol=1e-15, maxiter=200)
-        inner, step = outer, step * 2.0
-    return direction * np.inf
+    Closed form for degree 1 and 2 (the cancellation-free quadratic formula); numpy's
+    companion-matrix roots per row for higher degrees."""
+    k = len(pu) - 1
+    c0 = pu[0] - y0
+    if k == 1:
+        return (-c0 / pu[1])[:, None]
+    if k == 2:
+        a, b = pu[2], pu[1]
+        disc = b * b - 4.0 * a * c0
+        sq = np.sqrt(np.where(disc >= 0, disc, np.nan))
+        q = -0.5 * (b + np.copysign(sq, b))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r1, r2 = q / a, np.where(q != 0, c0 / q, q / a)
+        return np.sort(np.column_stack([r1, r2]), axis=1)
+    out = np.full((len(y0), k), np.nan)
+    for i, c in enumerate(c0):
+        if np.isfinite(c):
+            r = _real_roots(np.concatenate([[c], pu[1:]]))
+            out[i, :len(r)] = r
+    return out
 
 
-def _choose_root(roots: np.ndarray, poly_u: np.ndarray, u_cal: np.ndarray | None):
-    """Pick the root to report and its flags (roots in scaled units, domain = [-1, 1])."""
-    flags = []
-    inside = roots[np.abs(roots) <= 1.0]
-    turning = _real_roots(P.polyder(poly_u))
-    if len(inside) == 1:
-        return inside[0], flags
-    if len(inside) > 1:
-        flags.append(FLAG_TWO_ROOTS)
-        if u_cal is None or len(turning) == 0:
-            return inside[np.argmin(np.abs(inside))], flags
-        # the branch between turning points that holds most calibration points
-        edges = np.concatenate([[-np.inf], turning, [np.inf]])
-        counts = np.histogram(u_cal, bins=edges)[0]
-        main = int(np.argmax(counts))
-        on_main = inside[(inside >= edges[main]) & (inside <= edges[main + 1])]
-        pick = on_main if len(on_main) else inside
-        return pick[np.argmin(np.abs(pick))], flags
-    flags.append(FLAG_OUTSIDE)
-    best = roots[np.argmin(np.abs(roots) - 1.0)]
-    if np.any((turning > 1.0) & (turning < best)) or np.any((turning < -1.0) & (turning > best)):
-        flags.append(FLAG_BEYOND_TP)
-    return best, flags
+def _choose(roots: np.ndarray, turning: np.ndarray, main: int | None):
+    """Root to report per row (NaN if none) and masks two-roots / outside / beyond-TP.
+
+    One root inside the calibration range ([-1, 1] in scaled units): that one. Several:
+    the one on the branch holding most calibration points (``main``, index between the
+    sorted turning points), nearest the centre. None: the real root nearest the centre."""
+    with np.errstate(invalid="ignore"):
+        inside = np.abs(roots) <= 1.0
+    n_in = inside.sum(axis=1)
+    cand = inside.copy()
+    if main is not None:
+        on_main = inside & (np.searchsorted(turning, np.nan_to_num(roots)) == main)
+        use = (n_in > 1) & on_main.any(axis=1)
+        cand[use] = on_main[use]
+    none = n_in == 0
+    cand[none] = np.isfinite(roots[none])
+    score = np.where(cand, np.abs(roots), np.inf)
+    j = np.argmin(score, axis=1)
+    est = np.where(np.isfinite(score.min(axis=1)), roots[np.arange(len(roots)), j], np.nan)
+    outside = none & np.isfinite(est)
+    beyond = np.zeros(len(est), dtype=bool)
+    for tp in turning:  # a turning point between the data and the reported root
+        beyond |= outside & (((tp > 1.0) & (tp < est)) | ((tp < -1.0) & (tp > est)))
+    return est, n_in > 1, outside, beyond
+
+
+def _extremum_start(pu, y0, turning, counts):
+    """For rows without a real root: the turning point closest to y0 in value and the
+    index of the adjacent branch holding more calibration points."""
+    if len(turning) == 0:
+        return np.full(len(y0), np.nan), np.zeros(len(y0), dtype=int)
+    gap = np.abs(y0[:, None] - P.polyval(turning, pu)[None, :])
+    j = np.argmin(gap, axis=1)
+    branch = np.where(counts[j + 1] > counts[j], j + 1, j)
+    return turning[j], branch
+
+
+def _refine(band, a, b, rows):
+    """Sign change of ``band`` between ``a`` (band <= 0) and ``b`` (band > 0), per row:
+    vectorised Illinois false position (Dowell & Jarratt 1971, BIT 11:168; from memory),
+    with bisection when a step leaves the bracket. A row stops when |b - a| <= 1e-14
+    max(1, |a|) (the tolerance brentq had here) or |band(a)| <= 1e-14 (``band`` is scaled
+    to [-1, 1], so this is rounding level)."""
+    a, b = a.astype(float), b.astype(float)
+    fa, fb = band(a, rows), band(b, rows)
+    side = np.zeros(len(a))
+    act = np.arange(len(a))
+    for _ in range(_MAX_STEPS):
+        aa, bb, fa_, fb_ = a[act], b[act], fa[act], fb[act]
+        busy = (np.abs(bb - aa) > 1e-14 * np.maximum(1.0, np.abs(aa))) & (np.abs(fa_) > 1e-14)
+        act = act[busy]
+        if not len(act):
+            break
+        aa, bb, fa_, fb_, sd = aa[busy], bb[busy], fa_[busy], fb_[busy], side[act]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            c = (aa * fb_ - bb * fa_) / (fb_ - fa_)
+        c = np.where((c > np.minimum(aa, bb)) & (c < np.maximum(aa, bb)), c, 0.5 * (aa + bb))
+        fc = band(c, rows[act])
+        pos = fc > 0
+        # Illinois: halve the kept end's value when the same end is kept twice
+        fa_ = np.where(pos & (sd < 0), 0.5 * fa_, fa_)
+        fb_ = np.where(~pos & (sd > 0), 0.5 * fb_, fb_)
+        a[act], fa[act] = np.where(pos, aa, c), np.where(pos, fa_, fc)
+        b[act], fb[act] = np.where(pos, c, bb), np.where(pos, fc, fb_)
+        side[act] = np.where(pos, -1.0, 1.0)
+    return np.where(np.abs(fa) <= np.abs(fb), a, b)
+
+
+def _crossings(band, grid, pos, start, lo, hi):
+    """Nearest band crossing on each side of ``start`` within [lo, hi], all rows at once.
+
+    ``pos`` (G, m) is band > 0 on the shared ``grid`` (which holds ``lo`` and ``hi``).
+    For each row the first positive node above ``start`` and the last below it bracket
+    the crossings, refined by :func:`_refine`. Returns (lower, upper, open_below,
+    open_above); a side with no positive node is open and its limit is the window edge."""
+    n_grid, m = pos.shape
+    ar = np.arange(n_grid, dtype=np.int32)[:, None]
+    above = np.searchsorted(grid, start, "right")       # first node > start
+    below = np.searchsorted(grid, start, "left") - 1    # last node < start
+    j_up = np.min(np.where(pos & (ar >= above), ar, n_grid), axis=0)
+    j_dn = np.max(np.where(pos & (ar <= below), ar, -1), axis=0)
+    j_up = np.where((j_up < n_grid) & (grid[np.minimum(j_up, n_grid - 1)] <= hi), j_up, -1)
+    j_dn = np.where((j_dn >= 0) & (grid[np.maximum(j_dn, 0)] >= lo), j_dn, -1)
+    out = []
+    for j, edge, step, pick in ((j_dn, lo, 1, np.minimum), (j_up, hi, -1, np.maximum)):
+        limit = edge.astype(float).copy()
+        found = np.flatnonzero(j >= 0)
+        if len(found):
+            inner = pick(grid[np.clip(j[found] + step, 0, n_grid - 1)], start[found])
+            limit[found] = _refine(band, inner, grid[j[found]], found)
+        out += [limit, j < 0]
+    lower, open_lo, upper, open_hi = out
+    return lower, upper, open_lo, open_hi
 
 
 def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new: float,
-                      t: float, domain: tuple[float, float], x_cal: np.ndarray | None = None):
+                      t: float, domain: tuple[float, float], x_cal: np.ndarray | None = None,
+                      *, window: tuple[float, float] | None = None):
     """Invert ``y = sum_j poly[j] x^j`` at each ``y0``: point estimate, band-inversion interval.
 
     Parameters
@@ -169,50 +261,103 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
         Calibration range of x (used for scaling, root choice and flags).
     x_cal : ndarray, optional
         Calibration x values (to find the main branch when there are two roots).
+    window : (float, float), optional
+        Search window [units of x]; default :func:`search_window` of ``domain`` (no
+        physical bounds).
 
     Returns
     -------
     estimate, lower, upper : ndarray
     flags : list of tuple of str
+        See the module notes for the search window and the flags.
+
+    Notes
+    -----
+    All rows at once: the roots in closed form (degree <= 2), the band
+    ``(y0 - f(x))^2 - t^2 (sigma2_new + g(x)' V g(x))`` evaluated on one grid of
+    :data:`GRID_POINTS` nodes over the window (plus the turning points) for every row, the
+    nearest sign change on each side of the estimate located there, then refined by a
+    vectorised bisection to machine precision. A band excursion narrower than the grid
+    spacing (window width / 256) can be missed.
     """
     lo_d, hi_d = map(float, domain)
     c, h = 0.5 * (lo_d + hi_d), 0.5 * (hi_d - lo_d)
-    poly_u = _rescale(np.asarray(poly, float), c, h)
-    u_cal = None if x_cal is None else (np.asarray(x_cal, float) - c) / h
+    poly = np.asarray(poly, float)
+    k = len(np.trim_zeros(poly, "b")) - 1
+    pu = np.trim_zeros(_rescale(poly, c, h), "b")
     y0 = np.atleast_1d(np.asarray(y0, dtype=float))
-    out = np.full((3, len(y0)), np.nan)
-    flags: list[tuple[str, ...]] = []
+    m = len(y0)
     s2 = np.broadcast_to(np.asarray(sigma2_new, dtype=float), y0.shape)
-    k = len(np.trim_zeros(np.asarray(poly, float), "b")) - 1
-    lead_var = cov[-1, -1] if k >= 1 else 0.0
-    bounded = k >= 1 and poly[k] ** 2 > t * t * lead_var
-    for i, yi in enumerate(y0):
-        if not np.isfinite(yi):
-            flags.append(())
-            continue
+    w_lo, w_hi = [(v - c) / h for v in (window or search_window(domain))]
+    turning = _real_roots(P.polyder(pu)) if k >= 2 else np.zeros(0)
+    edges = np.concatenate([[-np.inf], turning, [np.inf]])
+    counts = (np.histogram((np.asarray(x_cal, float) - c) / h, bins=edges)[0]
+              if x_cal is not None else np.zeros(len(edges) - 1))
+    main = int(np.argmax(counts)) if x_cal is not None and len(turning) else None
+    ok = np.isfinite(y0)
+    roots = _all_roots(pu, np.where(ok, y0, np.nan)) if k >= 1 else np.full((m, 1), np.nan)
+    est, two, outside, beyond = _choose(roots, turning, main)
+    branch = np.searchsorted(turning, np.nan_to_num(est))
+    no_root = ok & np.isnan(est)
+    tp_start, tp_branch = _extremum_start(pu, y0[no_root], turning, counts)
+    start = est.copy()
+    start[no_root], branch[no_root] = tp_start, tp_branch
+    lo = np.maximum(edges[branch], w_lo)
+    hi = np.minimum(edges[branch + 1], w_hi)
+    with np.errstate(invalid="ignore"):
+        off_window = np.isfinite(start) & ((start < lo) | (start > hi))
+    start = np.clip(start, lo, hi)
 
-        def band(u, yi=yi, s2i=s2[i]):
-            x = c + h * np.atleast_1d(u)
-            g = design(x)
-            fx = P.polyval(x, poly)
-            q = np.einsum("ij,jk,ik->i", g, cov, g)
-            return float(((yi - fx) ** 2 - t * t * (s2i + q))[0])
+    def band(u, rows):
+        x = c + h * u
+        g = design(x)
+        q = np.einsum("ij,jk,ik->i", g, cov, g)
+        r2, v2 = (y0[rows] - P.polyval(x, poly)) ** 2, t * t * (s2[rows] + q)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (r2 - v2) / (r2 + v2)  # the band's sign, scaled to [-1, 1]
 
-        pu = poly_u.copy()
-        pu[0] -= yi
-        roots = np.array([_polish(lambda u: P.polyval(u, pu), r, 1.0 + abs(r))
-                          for r in _real_roots(pu)])
-        if len(roots) == 0:
-            flags.append((FLAG_BEYOND_TP,))
-            continue
-        u_hat, f = _choose_root(roots, pu, u_cal)
-        limit = 1e12 if bounded else 1e8
-        lo_u, hi_u = _edge(band, u_hat, -1, limit), _edge(band, u_hat, 1, limit)
-        if not np.isfinite(lo_u) or not np.isfinite(hi_u):
-            f.append(FLAG_UNBOUNDED)
-        out[:, i] = c + h * np.array([u_hat, lo_u, hi_u])
-        flags.append(tuple(f))
-    return out[0], out[1], out[2], flags
+    usable = ok & np.isfinite(start)
+    idx = np.flatnonzero(usable)
+    closes = np.zeros(m, dtype=bool)
+    closes[idx] = band(start[idx], idx) <= 0
+    idx = np.flatnonzero(closes)
+    grid = np.unique(np.concatenate([np.linspace(w_lo, w_hi, GRID_POINTS),
+                                     turning[(turning > w_lo) & (turning < w_hi)]]))
+    xg = c + h * grid
+    gg = design(xg)
+    qg = np.einsum("ij,jk,ik->i", gg, cov, gg)
+    fg = P.polyval(xg, poly)
+    if np.ptp(s2[idx]) == 0 if len(idx) else True:  # one new-observation variance: cheaper
+        r = t * np.sqrt((s2[idx[0]] if len(idx) else 0.0) + qg)
+        pos = np.abs(y0[None, idx] - fg[:, None]) > r[:, None]
+    else:
+        pos = (y0[None, idx] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
+    lower, upper = np.full(m, np.nan), np.full(m, np.nan)
+    open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
+    lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
+        lambda u, r: band(u, idx[r]), grid, pos, start[idx], lo[idx], hi[idx])
+    est = np.where(no_root & closes & ~off_window, start, est)
+    est = np.where(off_window & ~no_root, np.nan, est)
+    est_x = c + h * est
+    masks = {FLAG_OUTSIDE: outside | (off_window & ~no_root),
+             FLAG_TWO_ROOTS: two & ok,
+             FLAG_BEYOND_TP: beyond | no_root,
+             FLAG_BEYOND_WINDOW: off_window & ~no_root,
+             FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi}
+    order = [FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
+             FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE]
+    flags = _flag_tuples(masks, order, m)
+    return est_x, c + h * lower, c + h * upper, flags
+
+
+def _flag_tuples(masks: dict, order: list[str], m: int) -> list[tuple[str, ...]]:
+    """Per-row tuples of the flag names whose mask is set (in ``order``)."""
+    codes = np.zeros(m, dtype=np.int64)
+    for i, nm in enumerate(order):
+        codes |= masks[nm].astype(np.int64) << i
+    table = {code: tuple(nm for i, nm in enumerate(order) if code >> i & 1)
+             for code in np.unique(codes).tolist()}
+    return [table[code] for code in codes.tolist()]
 
 
 def range_flags(estimate: np.ndarray, domain: tuple[float, float]) -> np.ndarray:
@@ -410,27 +555,32 @@ def _predict_forward(fit, v, level, interval, w0):
     res = fit.result
     deg, origin = fit.form.degree, fit.form.through_origin
     poly = np.concatenate([[0.0] if origin else [], res.coefficients])
-    cov = res.covariance if interval == "analytic" else np.zeros_like(res.covariance)
-    if not np.all(np.isfinite(cov)):
+    cov_ok = bool(np.all(np.isfinite(res.covariance)))
+    if interval == "analytic" and not cov_ok:
         raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
                          "the calibration interval cannot be formed; use interval='none' for "
                          "the estimate alone, or estimator 'ols'")
+    # the band also decides whether a value beyond the turning point is consistent with
+    # the curve, so it is used for interval='none' too (limits then blanked)
+    cov = res.covariance if cov_ok else np.zeros_like(res.covariance)
     if origin:
         cov = np.pad(cov, ((1, 0), (1, 0)))
-    s2new = res.residual_std_error ** 2 / w0 if interval == "analytic" else 0.0
+    s2new = res.residual_std_error ** 2 / w0 if cov_ok else 0.0
     t = _t(level, res.df_resid)
     dom = fit.ranges[fit.x_names[0]]
+    bounds = physical_bounds(fit)
     if deg == 1:
         est, lo, hi, unb = fieller_line(y0, poly[0], poly[1], cov, s2new, t)
-        flags = [(FLAG_UNBOUNDED,) if unb and np.isfinite(e) else () for e in est]
+        est, lo, hi, flags = _bound_line(est, lo, hi, unb, bounds)
     else:
         def design(x):
             return np.vander(x, deg + 1, increasing=True)
 
         est, lo, hi, flags = invert_polynomial(y0, poly, design, cov, s2new, t, dom,
-                                               fit.x[:, 0])
+                                               fit.x[:, 0], window=search_window(dom, bounds))
     if interval == "none":
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
+        flags = [tuple(f for f in fl if f not in _INTERVAL_FLAGS) for fl in flags]
     outside = range_flags(est, dom)
     text = []
     for i, f in enumerate(flags):
@@ -443,6 +593,30 @@ def _predict_forward(fit, v, level, interval, w0):
             f.append(FLAG_INVALID)
         text.append(";".join(f))
     return est, lo, hi, np.asarray(text, dtype=object)
+
+
+def physical_bounds(fit) -> tuple[float, float]:
+    """Bounds of the forward fit's climate variable: ``fit.extras['bounds']`` if set,
+    else the schema range of the column (:func:`refit.domain.schema_bounds`)."""
+    from .domain import schema_bounds
+
+    given = fit.extras.get("bounds")
+    return tuple(map(float, given)) if given is not None else schema_bounds(fit.x_names[0])
+
+
+def _bound_line(est, lo, hi, unbounded: bool, bounds):
+    """Cut a line's Fieller limits at the physical bounds ('open-below'/'open-above');
+    an estimate beyond a bound is NaN ('beyond-search-window')."""
+    b_lo, b_hi = bounds
+    with np.errstate(invalid="ignore"):
+        off = (est < b_lo) | (est > b_hi)
+        cut_lo, cut_hi = lo < b_lo, hi > b_hi
+    est = np.where(off, np.nan, est)
+    lo, hi = np.where(cut_lo, b_lo, lo), np.where(cut_hi, b_hi, hi)
+    masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.isfinite(est) | off if unbounded
+             else np.zeros(len(est), dtype=bool), FLAG_BEYOND_WINDOW: off,
+             FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
+    return est, lo, hi, _flag_tuples(masks, list(masks), len(est))
 
 
 def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,

@@ -10,6 +10,7 @@ inverted there), a per-prediction extrapolation flag, and a comparison with a tw
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 
@@ -145,6 +146,60 @@ def build_domain(ranges: dict, x_name: str | None, degree: int, coef_by_power,
             f"[{lo:.6g}, {hi:.6g}]: beyond it the equation saturates, one output value "
             f"belongs to two values of {role}, and it cannot be inverted there")
     return dom
+
+
+#: the forward search window extends the calibration range by this fraction of its width
+#: on each side (a convention of this tool: room for mild extrapolation, not for nonsense)
+SEARCH_MARGIN = 0.5
+
+
+def schema_bounds(column: str) -> tuple[float, float]:
+    """``(minimum, maximum)`` of a column in the calibration table schema, +-inf if unset.
+
+    The schema (``schemas/calibration.table.json``, a Frictionless Table Schema) gives the
+    admissible range of each variable, e.g. ``map_mm`` in [0, 12000] mm: no value outside
+    it can be in a calibration table, so no estimate outside it is meaningful.
+    """
+    c = _schema_constraints().get(column, {})
+    lo, hi = c.get("minimum"), c.get("maximum")
+    return (-np.inf if lo is None else float(lo), np.inf if hi is None else float(hi))
+
+
+@lru_cache(maxsize=1)
+def _schema_constraints() -> dict:
+    import json
+
+    from ._resources import schemas_dir
+
+    try:
+        desc = json.loads((schemas_dir() / "calibration.table.json").read_text("utf-8"))
+    except (OSError, ValueError):
+        return {}
+    return {f["name"]: f.get("constraints", {}) for f in desc.get("fields", [])
+            if isinstance(f, dict) and "name" in f}
+
+
+def search_window(domain, bounds=(-np.inf, np.inf), margin: float = SEARCH_MARGIN):
+    """The calibration range widened by ``margin`` x its width per side, cut at ``bounds``.
+
+    Parameters
+    ----------
+    domain : (float, float)
+        Calibration range of x [units of x].
+    bounds : (float, float)
+        Physical bounds of x, e.g. ``(0, inf)`` for rain [units of x].
+    margin : float
+        Fraction of the range width added on each side.
+
+    Returns
+    -------
+    (float, float)
+        The window; the calibration range itself if the bounds would leave nothing.
+    """
+    lo, hi = map(float, domain)
+    w = margin * (hi - lo)
+    a, b = max(lo - w, float(bounds[0])), min(hi + w, float(bounds[1]))
+    return (a, b) if a < b else (lo, hi)
 
 
 def extrapolation_mask(values: np.ndarray, lo: float, hi: float) -> np.ndarray:

@@ -160,3 +160,203 @@ def test_replicates_narrow_the_interval_like_one_over_m():
     p = f.predict(500.0, weights=4)
     assert (p.lower[0], p.upper[0]) == pytest.approx((lo[0], hi[0]), rel=1e-12)
     assert p.upper[0] - p.lower[0] < f.predict(500.0).upper[0] - f.predict(500.0).lower[0]
+
+
+# ----------------------------------------------------------------------------- search window
+# The forward band is inverted only on the monotonic branch holding the estimate, inside
+# the calibration range widened by half its width per side and cut at the schema range of
+# the climate column (map_mm >= 0). Constructed data with a known turning point:
+# bk = 20 + 0.0004 (map - 250)^2, minimum 20 cm at 250 mm, soils at 100..900 mm (most
+# above the turning point), normal noise sd 15 cm (seeded).
+def _turning():
+    rng = np.random.default_rng(3)
+    x = np.linspace(100.0, 900.0, 60)
+    y = 20 + 0.0004 * (x - 250.0) ** 2 + rng.normal(0, 15.0, x.size)
+    return fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), response="map_mm",
+               predictors="bk_depth_cm", form="quadratic", direction="forward")
+
+
+def test_search_window_is_half_the_range_wider_and_cut_at_the_schema_bounds():
+    from refit.domain import schema_bounds, search_window
+
+    # schemas/calibration.table.json: map_mm minimum 0, maximum 12000; mat_c -40..40
+    assert schema_bounds("map_mm") == (0.0, 12000.0)
+    assert schema_bounds("not_a_column") == (-np.inf, np.inf)
+    assert search_window((158.0, 883.0), (0.0, 12000.0)) == (0.0, 1245.5)
+    assert search_window((-10.0, 10.0), (-40.0, 40.0)) == (-20.0, 20.0)
+
+
+def test_band_open_past_the_turning_point_stops_there():
+    f = _turning()
+    tp = f.domain.turning_point
+    b0, b1, b2 = f.result.coefficients
+    p = f.predict(40.0)
+    # estimate: the larger root of the fitted parabola (numpy.roots as outside reference)
+    assert p.estimate[0] == pytest.approx(max(np.roots([b2, b1, b0 - 40.0])).real, rel=1e-12)
+    assert p["flags"][0] == "open-below"
+    assert p.lower[0] == pytest.approx(tp, rel=1e-12)  # not a number beyond the minimum
+    assert tp < p.estimate[0] < p.upper[0] < 900
+    # the band really holds 40 cm at the turning point and not at the upper limit
+    t = stats.t.ppf(0.975, f.df_resid)
+    g = np.array([1.0, tp, tp ** 2])
+    half = t * np.sqrt(f.residual_std_error ** 2 + g @ f.result.covariance @ g)
+    assert abs(40.0 - g @ f.result.coefficients) < half
+
+
+def test_value_below_the_minimum_but_inside_the_band_reads_the_turning_point():
+    f = _turning()
+    tp = f.domain.turning_point
+    p = f.predict([12.0, -60.0])
+    # 12 cm: below the fitted minimum (~20 cm) but within the band there: estimate = the
+    # turning point (the closest point of the curve), interval open on that side
+    assert p.estimate[0] == pytest.approx(tp, rel=1e-12)
+    assert p["flags"][0] == "beyond-turning-point;open-below"
+    assert p.lower[0] == pytest.approx(tp, rel=1e-12) and tp < p.upper[0] < 900
+    # -60 cm: the band excludes it everywhere: no estimate, no interval
+    assert np.isnan(p.estimate[1]) and np.isnan(p.lower[1]) and np.isnan(p.upper[1])
+    assert p["flags"][1] == "beyond-turning-point"
+
+
+def test_root_beyond_the_window_gives_no_estimate_but_the_band_inside():
+    f = _turning()
+    b0, b1, b2 = f.result.coefficients
+    y0 = b0 + b1 * 1320 + b2 * 1320 ** 2  # root at 1320 mm; window ends at 900 + 400
+    p = f.predict(y0)
+    assert np.isnan(p.estimate[0])
+    assert p["flags"][0] == "outside-calibration-range;beyond-search-window;open-above"
+    assert p.upper[0] == 1300.0 and 900 < p.lower[0] < 1300
+
+
+def test_line_limits_are_cut_at_zero_rain():
+    # weak line: the Fieller lower limit (closed form, checked against the textbook form
+    # above) falls below 0 mm; refit reports 0 and 'open-below', the upper limit unchanged
+    rng = np.random.default_rng(8)
+    x = np.linspace(50.0, 400.0, 25)
+    y = 10 + 0.05 * x + rng.normal(0, 5.0, x.size)
+    d = pd.DataFrame({"map_mm": x, "bk_depth_cm": y})
+    f = fit(d, response="map_mm", predictors="bk_depth_cm", direction="forward")
+    res = sm.OLS(y, sm.add_constant(x)).fit()
+    t = stats.t.ppf(0.975, len(x) - 2)
+    est, lo, hi, _ = fieller_line([12.0], *res.params, res.cov_params(), res.scale, t)
+    assert lo[0] < 0 < est[0]
+    p = f.predict(12.0)
+    assert p.lower[0] == 0.0 and p["flags"][0] == "open-below"
+    assert p.upper[0] == pytest.approx(hi[0], rel=1e-10)
+    assert p.estimate[0] == pytest.approx(est[0], rel=1e-10)
+
+
+# ----------------------------------------------------------------------------- vectorised
+# The earlier per-row routine (roots polished by brentq, band edges by doubling steps from
+# the estimate and brentq), kept here as the reference the vectorised inversion must equal.
+def _ref_polish(fun, u, span):
+    from scipy.optimize import brentq
+
+    for h in (1e-9, 1e-7, 1e-5, 1e-3):
+        a, b = u - h * span, u + h * span
+        fa, fb = fun(a), fun(b)
+        if fa == 0:
+            return a
+        if fb == 0:
+            return b
+        if np.sign(fa) != np.sign(fb):
+            return brentq(fun, a, b, xtol=1e-15 * max(1.0, abs(u)), rtol=1e-15, maxiter=200)
+    return u
+
+
+def _ref_edge(fun, u0, direction, limit):
+    from scipy.optimize import brentq
+
+    step, inner = 1e-8, u0
+    while step <= limit:
+        outer = u0 + direction * step
+        if fun(outer) > 0:
+            a, b = sorted((inner, outer))
+            return brentq(fun, a, b, xtol=1e-14 * max(1.0, abs(u0)), rtol=1e-15, maxiter=200)
+        inner, step = outer, step * 2.0
+    return direction * np.inf
+
+
+def _ref_invert(y0, poly, cov, s2, t, domain, x_cal):
+    """Per-row reference: (estimate, lower, upper) or NaN where it found no root."""
+    from numpy.polynomial import Polynomial
+    from numpy.polynomial import polynomial as P
+
+    c, h = 0.5 * (domain[0] + domain[1]), 0.5 * (domain[1] - domain[0])
+    pu0 = Polynomial(poly)(Polynomial([c, h])).coef
+    u_cal = (np.asarray(x_cal) - c) / h
+    turning = np.sort(P.polyroots(P.polyder(pu0)).real)
+    out = []
+    for yi in y0:
+        def band(u, yi=yi):
+            x = c + h * u
+            g = np.array([1.0, x, x * x])
+            return (yi - P.polyval(x, poly)) ** 2 - t * t * (s2 + g @ cov @ g)
+
+        pu = pu0.copy()
+        pu[0] -= yi
+        r = P.polyroots(pu)
+        r = np.sort(r.real[np.abs(r.imag) <= 1e-7 * np.maximum(1.0, np.abs(r.real))])
+        roots = np.array([_ref_polish(lambda u: P.polyval(u, pu), v, 1 + abs(v)) for v in r])
+        if len(roots) == 0:
+            out.append((np.nan, np.nan, np.nan))
+            continue
+        inside = roots[np.abs(roots) <= 1]
+        if len(inside) == 1:
+            u = inside[0]
+        elif len(inside) > 1:
+            edges = np.concatenate([[-np.inf], turning, [np.inf]])
+            main = np.argmax(np.histogram(u_cal, bins=edges)[0])
+            on = inside[(inside >= edges[main]) & (inside <= edges[main + 1])]
+            pick = on if len(on) else inside
+            u = pick[np.argmin(np.abs(pick))]
+        else:
+            u = roots[np.argmin(np.abs(roots))]
+        lo, hi = _ref_edge(band, u, -1, 1e12), _ref_edge(band, u, 1, 1e12)
+        out.append(tuple(c + h * np.array([u, lo, hi])))
+    return np.array(out).T
+
+
+@pytest.mark.parametrize("make", ["turning", "pontius"])
+def test_vectorised_inversion_equals_the_per_row_routine(make):
+    from refit.calibrate import _t, search_window
+    from refit.domain import schema_bounds
+
+    if make == "turning":
+        f = _turning()
+        y0 = np.random.default_rng(1).uniform(-20, 400, 300)
+    else:
+        f = fit(strd("Pontius"), response="x", predictors="y", form="quadratic",
+                direction="forward")
+        y0 = np.random.default_rng(2).uniform(0.0, 3.5, 300)
+    res, dom = f.result, f.ranges[f.x_names[0]]
+    t = _t(0.95, res.df_resid)
+    ref = _ref_invert(y0, res.coefficients, res.covariance, res.residual_std_error ** 2, t,
+                      dom, f.x[:, 0])
+    p = f.predict(y0)
+    w_lo, w_hi = search_window(dom, schema_bounds(f.x_names[0]))
+    # where the old result lies within the window and on one branch, the numbers agree
+    tp = f.domain.turning_point
+    within = (ref[1] >= w_lo) & (ref[2] <= w_hi)
+    if tp is not None:
+        within &= (ref[1] >= tp) | (ref[2] <= tp)
+    assert within.sum() > 100
+    scale = dom[1] - dom[0]
+    for k, col in enumerate(["estimate", "lower", "upper"]):
+        np.testing.assert_allclose(p[col].to_numpy()[within], ref[k][within],
+                                   rtol=0, atol=1e-9 * scale)
+    # elsewhere the limits stay inside the window and the flags say which side is open
+    out = ~within & np.isfinite(p.lower.to_numpy())
+    assert np.all((p.lower[out] >= w_lo) & (p.upper[out] <= w_hi))
+    assert all(("open-" in fl) or ("beyond" in fl) for fl in p["flags"][~within])
+
+
+def test_forward_quadratic_predicts_1000_values_in_under_20_ms():
+    # target of the fitting-engine work: 1,000 forward-quadratic predictions < 20 ms
+    # (best of 7 runs, to be robust against a busy machine)
+    import timeit
+
+    f = _turning()
+    v = np.random.default_rng(4).uniform(0, 300, 1000)
+    f.predict(v)
+    best = min(timeit.repeat(lambda: f.predict(v), number=1, repeat=7))
+    assert best < 0.020
