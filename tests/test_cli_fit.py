@@ -149,17 +149,17 @@ def demo(tmp_path):
 
 
 def test_demo_recipe_on_the_store(demo):
-    # The demo subset (88 soils with a Bk depth) holds 4 sources, so grouped k-fold takes
-    # at most 4 folds; the copy asks for 4.
+    # The demo recipe as shipped (grouped 5-fold by source), with 2 repeats instead of 10 to
+    # keep the test short.
     recipe = demo / "recipe.toml"
-    recipe.write_text(recipe.read_text().replace("folds = 5", "folds = 4"))
+    recipe.write_text(recipe.read_text().replace("repeats = 10", "repeats = 2"))
     r = invoke(recipe, "--out", demo / "run", "-q")
     assert r.exit_code == 0, r.output
     manifest = json.loads((demo / "store" / "manifest.json").read_text())
     assert f"dataset version {manifest['version']}" in r.stdout
     assert manifest["records_sha256"] in r.stdout
-    assert "age_ka >= 5: 107 kept" in r.stdout and "88 kept" in r.stdout
-    assert "group-kfold 4 folds x 1 repeat(s) by source, seed 20261201 (4 groups)" in r.stdout
+    assert "age_ka >= 5: 126 kept" in r.stdout and "113 kept" in r.stdout
+    assert "group-kfold 5 folds x 2 repeat(s) by source, seed 20261201 (8 groups)" in r.stdout
     board = pd.read_csv(demo / "run" / "leaderboard.csv")
     assert len(board) >= 12
     rec = json.loads(next((demo / "run" / "fits").glob("*.json")).read_text())
@@ -169,14 +169,14 @@ def test_demo_recipe_on_the_store(demo):
 
 # ----------------------------------------------------------------------------- bad input
 def test_more_folds_than_groups(demo):
-    # the demo subset has 4 sources; 5 grouped folds cannot be made
+    # the demo subset has 8 sources; 9 grouped folds cannot be made
     recipe = demo / "recipe.toml"
-    recipe.write_text(recipe.read_text().replace("folds = 4", "folds = 5"))
+    recipe.write_text(recipe.read_text().replace("folds = 5", "folds = 9"))
     r = invoke(recipe, "--out", demo / "run", "-q")
     assert r.exit_code == 1
     no_traceback(r)
-    assert "recipe.toml, line 24" in r.output and "5 folds needs at least 5 groups" in r.output
-    assert "holds 4" in r.output and not (demo / "run").exists()
+    assert "recipe.toml, line 24" in r.output and "9 folds needs at least 9 groups" in r.output
+    assert "holds 8" in r.output and not (demo / "run").exists()
 
 
 def test_invalid_toml(tmp_path):
