@@ -312,13 +312,18 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
     dom = tuple(inv.get("x_range") or rec["domain"]["ranges"][x_name])
     if deg == 1:
         est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, s2new, t)
-        flags = [(cal.FLAG_UNBOUNDED,) if unb and np.isfinite(e) else () for e in est]
-    else:
-        def design(x):
-            return np.vander(x, deg + 1, increasing=True)
+        if method == "none":
+            lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
+        masks = {cal.FLAG_OUTSIDE: cal.range_flags(est, dom),
+                 cal.FLAG_UNBOUNDED: np.isfinite(est) & bool(unb),
+                 FLAG_MISSING: missing, FLAG_INVALID: invalid}
+        return est, lo, hi, flag_strings(masks, list(masks), len(est))
 
-        est, lo, hi, flags = cal.invert_polynomial(y0, poly, design, cov, s2new, t, dom,
-                                                   _branch_points(inv))
+    def design(x):
+        return np.vander(x, deg + 1, increasing=True)
+
+    est, lo, hi, flags = cal.invert_polynomial(y0, poly, design, cov, s2new, t, dom,
+                                               _branch_points(inv))
     if method == "none":
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
     outside = cal.range_flags(est, dom)

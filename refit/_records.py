@@ -81,7 +81,9 @@ def _split_conformal(X, y, level, seed) -> dict:
     cal, train = perm[:n_cal], perm[n_cal:]
     b = _ols(X[train], y[train], "split_conformal")[0]
     scores = np.sort(np.abs(y[cal] - X[cal] @ b))
-    return {"centre_coefficients": b, "calibration_scores": scores, "n_train": n - n_cal,
+    k = int(np.ceil(level * (n_cal + 1) - 1e-9))
+    q = float(scores[k - 1]) if k <= n_cal else None
+    return {"centre_coefficients": b, "calibration_scores": scores, "quantile": q, "n_train": n - n_cal,
             "n_calib": n_cal, "calib_fraction": 0.5, "seed": seed, "exact": True,
             "rebuild": "x0' centre_coefficients +- q, q the ceil(level (n_calib + 1))-th "
                        "smallest calibration score (unbounded if that exceeds n_calib)"}
