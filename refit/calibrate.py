@@ -371,6 +371,7 @@ def range_flags(estimate: np.ndarray, domain: tuple[float, float]) -> np.ndarray
 FLAG_MISSING = "missing-value"
 FLAG_INVALID = "invalid-value"
 FLAG_CROSS = "quantiles-cross"
+FLAG_APPROX = "approximate-interval"
 
 
 def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
@@ -450,7 +451,7 @@ def _analytic_band(fit, X0, eta, w0, level):
         raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
                          "there is no analytic interval; use interval='bootstrap-pairs' or a "
                          "conformal interval with an OLS fit, or interval='none'")
-    s2 = res.residual_std_error ** 2
+    s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
     factor = res.details.get("factor")
     if factor is not None:
         q = factor.quad_form(X0) * s2
@@ -531,6 +532,8 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
     for j, name in enumerate(fit.x_names):
         out |= extrapolation_mask(v[:, j], *fit.ranges[name])
     masks[FLAG_OUTSIDE] = out
+    if interval == "analytic" and fit.result.details.get("approximate_interval"):
+        masks[FLAG_APPROX] = ok
     if fit.form.degree == 2 and v.shape[1] == 1:
         masks[FLAG_BEYOND_TP] = beyond_turning_mask(v[:, 0], fit._core_domain())
     if fit.form.log_response:
@@ -565,7 +568,8 @@ def _predict_forward(fit, v, level, interval, w0):
     cov = res.covariance if cov_ok else np.zeros_like(res.covariance)
     if origin:
         cov = np.pad(cov, ((1, 0), (1, 0)))
-    s2new = res.residual_std_error ** 2 / w0 if cov_ok else 0.0
+    s2new = res.details.get("prediction_sd", res.residual_std_error) ** 2 / w0 if cov_ok \
+        else 0.0
     t = _t(level, res.df_resid)
     dom = fit.ranges[fit.x_names[0]]
     bounds = physical_bounds(fit)
@@ -582,6 +586,7 @@ def _predict_forward(fit, v, level, interval, w0):
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
         flags = [tuple(f for f in fl if f not in _INTERVAL_FLAGS) for fl in flags]
     outside = range_flags(est, dom)
+    approx = interval == "analytic" and bool(res.details.get("approximate_interval"))
     text = []
     for i, f in enumerate(flags):
         f = list(f)
@@ -591,6 +596,8 @@ def _predict_forward(fit, v, level, interval, w0):
             f.append(FLAG_MISSING)
         if invalid[i]:
             f.append(FLAG_INVALID)
+        elif approx and not missing[i]:
+            f.append(FLAG_APPROX)
         text.append(";".join(f))
     return est, lo, hi, np.asarray(text, dtype=object)
 
