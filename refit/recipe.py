@@ -88,9 +88,9 @@ class Recipe:
     def to_dict(self) -> dict:
         """JSON-ready content (paths as written relative to the recipe's folder)."""
         return {
-            "path": str(self.path), "sha256": self.sha256,
-            "data": {"table": None if self.table is None else str(self.table),
-                     "store": None if self.store is None else str(self.store)},
+            "path": self.path.name, "sha256": self.sha256,
+            "data": {"table": _relative(self.table, self.path),
+                     "store": _relative(self.store, self.path)},
             "subset": [f.to_dict() for f in self.subset],
             "function": {"id": self.function_id, "response": self.response,
                          "predictors": list(self.predictors)},
@@ -100,6 +100,17 @@ class Recipe:
                            "repeats": self.repeats, "groups": self.groups, "seed": self.seed},
             "intervals": {"level": self.level, "methods": list(self.methods)},
         }
+
+
+def _relative(target: Path | None, recipe_path: Path) -> str | None:
+    """A data path as the recipe would write it: relative to the recipe's folder if inside
+    it, else the folder's name only (no machine paths go into published files)."""
+    if target is None:
+        return None
+    try:
+        return Path(target).relative_to(Path(recipe_path).resolve().parent).as_posix()
+    except ValueError:
+        return Path(target).name
 
 
 # ----------------------------------------------------------------------------- form names
