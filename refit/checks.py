@@ -46,7 +46,7 @@ from refit.vocabularies import (  # noqa: F401  (re-exported: part of the checks
     VOCABULARY_COLUMNS, check_vocabularies, load_vocabularies, match_vocabulary, vocab_key,
 )
 
-KINDS = ("calibration",)
+KINDS = ("calibration", "fossil")
 
 #: A Bk horizon in a soil wetter than this warns [mm]. Common practice: carbonate soils are
 #: mostly drier than about 760 mm MAP (Royer 1999, Geology 27, 1123-1126); the boundary
@@ -154,6 +154,10 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
         Missing, empty or unparseable file (exit code 2).
     """
     _check_kind(kind)
+    if kind == "fossil":
+        from refit.fossils import check_fossil_file
+
+        return check_fossil_file(path, vocabularies=vocabularies)
     from refit.tables import read_table
     from refit.units import normalise_columns
 
@@ -169,9 +173,6 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
 
 
 def _check_kind(kind: str) -> None:
-    if kind == "fossil":
-        raise UsageError("--kind fossil is not available yet: fossil tables arrive with "
-                         "the apply issue. Use --kind calibration.")
     if kind not in KINDS:
         raise UsageError(f"unknown table kind {kind!r}; use one of: {', '.join(KINDS)}.")
 
@@ -204,6 +205,11 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
         their canonical term, dates kept as ISO text.
     """
     _check_kind(kind)
+    if kind == "fossil":
+        from refit.fossils import check_fossil_frame
+
+        return check_fossil_frame(frame, source_rows=source_rows, vocabularies=vocabularies,
+                                  path=path, notes=notes)
     from refit import sequences
 
     n = len(frame)
