@@ -1,0 +1,143 @@
+"""Numbers behind the report's figures: bands of a fitted curve, influence, Q-Q points.
+
+Small pure functions of a :class:`refit.fitting.Fit`; the figures only draw what these
+return. Everything is on the scale of the fitted equation (climate on feature for an
+inverse fit, feature on climate for a forward fit); for the exponential form the bands
+are formed on the log scale and back-transformed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Cook's distance above 4/n marks an influential record (common practice; Bollen &
+#: Jackman 1990, Modern Methods of Data Analysis, from memory)
+COOKS_FACTOR = 4.0
+#: leverage above 2p/n marks a high-leverage record (Hoaglin & Welsch 1978, Am. Stat.
+#: 32:17, common practice)
+LEVERAGE_FACTOR = 2.0
+#: at most this many influential records are labelled by profile_id (the largest first)
+MAX_LABELS = 10
+
+
+def _scale2(fit) -> float:
+    """Variance of a new observation's error [response unit^2], as Fit.predict uses it."""
+    res = fit.result
+    return float(res.details.get("prediction_sd", res.residual_std_error)) ** 2
+
+
+def regression_bands(fit, x, level: float = 0.95) -> dict:
+    """Fitted curve with its confidence band (the mean) and prediction band (a new soil).
+
+    Parameters
+    ----------
+    fit : refit.fitting.Fit
+        A fit with one regressor and a coefficient covariance.
+    x : array_like, shape (m,)
+        Values of the equation's regressor [its unit]: the feature for an inverse fit,
+        climate for a forward fit.
+    level : float
+        Coverage of both bands, 0 < level < 1.
+
+    Returns
+    -------
+    dict of ndarray, shape (m,)
+        ``x``, ``fitted``, ``mean_lower``, ``mean_upper``, ``pred_lower``,
+        ``pred_upper`` [unit of the equation's response].
+
+    Notes
+    -----
+    ``fitted +- t(df) sqrt(x0' V x0)`` for the mean and ``fitted +- t(df) sqrt(s^2 +
+    x0' V x0)`` for a new observation, V the coefficient covariance, s the residual
+    scale (Draper & Smith 1998, Applied Regression Analysis, 3rd ed., sec. 3.1, from
+    memory); the same band ``Fit.predict`` gives for an inverse fit with the analytic
+    interval.
+    """
+    from scipy import stats
+
+    x = np.asarray(x, dtype=float).ravel()
+    X0 = fit.form.design(x[:, None])
+    b = np.asarray(fit.result.coefficients, dtype=float)
+    cov = np.asarray(fit.covariance, dtype=float)
+    eta = X0 @ b
+    q = np.einsum("ij,jk,ik->i", X0, cov, X0)
+    t = float(stats.t.ppf(0.5 + level / 2.0, fit.df_resid))
+    half_mean = t * np.sqrt(q)
+    half_pred = t * np.sqrt(_scale2(fit) + q)
+    back = _back_transform(fit)
+    return {"x": x, "fitted": back(eta, smear=True),
+            "mean_lower": back(eta - half_mean), "mean_upper": back(eta + half_mean),
+            "pred_lower": back(eta - half_pred), "pred_upper": back(eta + half_pred)}
+
+
+def _back_transform(fit):
+    if not fit.form.log_response:
+        return lambda v, smear=False: v
+    return lambda v, smear=False: np.exp(v) * (fit.smearing if smear else 1.0)
+
+
+def influence(fit) -> dict:
+    """Leverage, studentized residuals and Cook's distance of each calibration record.
+
+    Parameters
+    ----------
+    fit : refit.fitting.Fit
+
+    Returns
+    -------
+    dict of ndarray, shape (n,)
+        ``leverage`` h_ii (diagonal of the hat matrix of the weighted design),
+        ``studentized`` e_i / (s sqrt(w_i^-1 (1 - h_ii))) (internally studentized),
+        ``cooks`` = studentized^2 h_ii / (p (1 - h_ii)), ``fitted`` and ``residuals``
+        on the fitting scale; plus ``p`` and ``n``.
+
+    Notes
+    -----
+    Cook (1977), Technometrics 19:15; the definitions of statsmodels'
+    ``OLSInfluence`` (``hat_matrix_diag``, ``resid_studentized``,
+    ``cooks_distance``). For robust estimators (Huber) the residuals and scale are the
+    robust fit's and the figures are descriptive.
+    """
+    res = fit.result
+    X = fit.form.design(fit.x)
+    w = np.ones(len(X)) if fit.weights is None else np.asarray(fit.weights, dtype=float)
+    Q, _ = np.linalg.qr(X * np.sqrt(w)[:, None])
+    h = np.clip((Q ** 2).sum(axis=1), 0.0, 1.0)
+    s = float(res.residual_std_error)
+    e = np.asarray(res.residuals, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = e * np.sqrt(w) / (s * np.sqrt(1.0 - h))
+        d = r ** 2 * h / (X.shape[1] * (1.0 - h))
+    return {"leverage": h, "studentized": r, "cooks": d,
+            "fitted": np.asarray(res.fitted, dtype=float), "residuals": e,
+            "p": int(X.shape[1]), "n": int(len(X))}
+
+
+def influential(cooks, leverage, p: int, *, max_labels: int = MAX_LABELS) -> np.ndarray:
+    """Indices of records to label: Cook's distance > 4/n or leverage > 2p/n, largest
+    Cook's distance first, at most ``max_labels``."""
+    cooks = np.asarray(cooks, dtype=float)
+    leverage = np.asarray(leverage, dtype=float)
+    n = cooks.size
+    mask = (cooks > COOKS_FACTOR / n) | (leverage > LEVERAGE_FACTOR * p / n)
+    idx = np.flatnonzero(mask)
+    order = np.argsort(-np.nan_to_num(cooks[idx], nan=-1.0), kind="stable")
+    return idx[order][:max_labels]
+
+
+def normal_qq(values) -> tuple[np.ndarray, np.ndarray, tuple[float, float]]:
+    """Normal Q-Q points of residuals and the reference line through them.
+
+    Returns
+    -------
+    (theoretical, ordered, (slope, intercept))
+        Theoretical normal quantiles (Filliben's plotting positions), the sorted values,
+        and the least-squares line through the points, as ``scipy.stats.probplot``
+        returns them.
+    """
+    from scipy import stats
+
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    (osm, osr), (slope, intercept, _) = stats.probplot(v, dist="norm")
+    return np.asarray(osm), np.asarray(osr), (float(slope), float(intercept))

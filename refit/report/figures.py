@@ -1,0 +1,340 @@
+"""The report's figures: one small function per figure, each returning a matplotlib Figure.
+
+Every function draws numbers it is given (computed by :mod:`refit.report.diagnostics`,
+``Fit.predict``, the run folder) and computes no science of its own. The artists that
+carry numbers have a ``gid`` (e.g. ``prediction-lower``) so tests and other tools can find
+them and read their data back. Figures are built on the Agg canvas, never through pyplot.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import style as st
+
+
+def _mark_domain(ax, domain, *, label: str = "outside the calibration range") -> None:
+    """Shade the x range beyond ``domain`` = (min, max) and draw its limits."""
+    if domain is None:
+        return
+    lo, hi = domain
+    x0, x1 = ax.get_xlim()
+    if x0 < lo:
+        ax.axvspan(x0, lo, color=st.DOMAIN, alpha=0.12, lw=0, label=label, gid="outside-low")
+        label = None
+    if x1 > hi:
+        ax.axvspan(hi, x1, color=st.DOMAIN, alpha=0.12, lw=0, label=label, gid="outside-high")
+    for v, gid in ((lo, "domain-min"), (hi, "domain-max")):
+        ax.axvline(v, color=st.DOMAIN, lw=0.9, ls=":", gid=gid)
+    ax.set_xlim(x0, x1)
+
+
+def _mark_turning(ax, tp, kind: str | None, what: str) -> None:
+    if tp is None or not np.isfinite(tp):
+        return
+    x0, x1 = ax.get_xlim()
+    if x0 <= tp <= x1:
+        ax.axvline(tp, color=st.TURNING, lw=1.2, ls="-.", gid="turning-point",
+                   label=f"turning point ({kind or 'extremum'}) at {what} = {tp:.4g}")
+
+
+def _band(ax, x, lower, upper, *, color, alpha, gid: str, label: str, edges: str | None):
+    ax.fill_between(x, lower, upper, color=color, alpha=alpha, lw=0, gid=f"{gid}-band",
+                    label=label)
+    if edges:
+        ax.plot(x, lower, color=color, lw=0.9, ls=edges, gid=f"{gid}-lower")
+        ax.plot(x, upper, color=color, lw=0.9, ls=edges, gid=f"{gid}-upper")
+
+
+def _scatter(ax, x, y, label="calibration soils"):
+    ax.plot(x, y, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
+            alpha=0.9, gid="data", label=label)
+
+
+def _curve_panel(ax, points, bands, *, x_label, y_label, domain, turning, level, title):
+    x = np.asarray(bands["x"], dtype=float)
+    pct = f"{100 * level:.0f}%"
+    ax.set_xlim(x.min(), x.max())
+    how = f", {bands['method']}" if bands.get("method") else ""
+    _band(ax, x, bands["pred_lower"], bands["pred_upper"], color=st.PREDICTION_BAND,
+          alpha=st.PREDICTION_ALPHA, gid="prediction", edges="--",
+          label=f"{pct} prediction band (a new soil{how})")
+    if bands.get("mean_lower") is not None:
+        _band(ax, x, bands["mean_lower"], bands["mean_upper"], color=st.MEAN_BAND,
+              alpha=st.MEAN_ALPHA, gid="mean", edges=None,
+              label=f"{pct} confidence band (the mean)")
+    _scatter(ax, points[0], points[1])
+    ax.plot(x, bands["fitted"], color=st.CURVE, lw=1.8, gid="fitted", label="fitted curve")
+    _mark_domain(ax, domain)
+    if turning:
+        _mark_turning(ax, *turning)
+    ax.set_xlabel(x_label)
+    ax.set_ylabel(y_label)
+    ax.set_title(title)
+    ax.legend(loc="best")
+
+
+def calibration(points, bands, *, x_label: str, y_label: str, domain=None, turning=None,
+                level: float = 0.95, title: str = "Calibration fit", inversion=None,
+                inversion_labels=None, inversion_domain=None):
+    """Calibration scatter with the fitted curve, its confidence and prediction bands.
+
+    Parameters
+    ----------
+    points : (array_like, array_like)
+        The calibration records on the equation's axes: (regressor, response).
+    bands : dict
+        ``x``, ``fitted``, ``mean_lower``, ``mean_upper``, ``pred_lower``, ``pred_upper``
+        (e.g. :func:`refit.report.diagnostics.regression_bands`; for an inverse fit the
+        prediction band may be ``Fit.predict``'s interval of another method).
+    x_label, y_label : str
+        Axis labels with units.
+    domain : (float, float), optional
+        The calibration range of the regressor: beyond it is shaded.
+    turning : (float, str, str), optional
+        (turning point, kind, variable name) of a quadratic, marked when in view.
+    level : float
+        Coverage of the bands (for the legend).
+    inversion : dict, optional
+        For a forward fit: ``x`` (feature values), ``estimate``, ``lower``, ``upper``
+        (climate, from ``Fit.predict``) drawn as a second panel with ``inversion_labels``
+        = (feature label, climate label) and the records as ``inversion_points``.
+    inversion_domain : (float, float), optional
+        The feature's calibration range.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    with st.styled():
+        fig, axes = st.figure(2 if inversion is not None else 1)
+        _curve_panel(axes[0], points, bands, x_label=x_label, y_label=y_label,
+                     domain=domain, turning=turning, level=level, title=title)
+        if inversion is not None:
+            _inversion_panel(axes[1], points, inversion, inversion_labels, inversion_domain,
+                             level)
+    return fig
+
+
+def _inversion_panel(ax, points, inv, labels, domain, level):
+    x = np.asarray(inv["x"], dtype=float)
+    pct = f"{100 * level:.0f}%"
+    ax.set_xlim(np.nanmin(x), np.nanmax(x))
+    _band(ax, x, inv["lower"], inv["upper"], color=st.INVERSION, alpha=st.PREDICTION_ALPHA,
+          gid="inversion", edges="--", label=f"{pct} calibration interval (inverted)")
+    _scatter(ax, points[1], points[0])
+    ax.plot(x, inv["estimate"], color=st.INVERSION, lw=1.8, gid="inversion-estimate",
+            label="estimate (inverted fit)")
+    _mark_domain(ax, domain)
+    feature, climate = labels or ("feature", "climate")
+    ax.set_xlabel(feature)
+    ax.set_ylabel(climate)
+    ax.set_title("Inverted: climate from the feature")
+    ax.legend(loc="best")
+
+
+def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
+    """Residuals against fitted values, and a normal Q-Q plot.
+
+    Parameters
+    ----------
+    fitted, resid : array_like
+        Fitted values and residuals on the fitting scale [unit of the response].
+    qq : (array_like, array_like, (float, float))
+        Theoretical quantiles, ordered standardized residuals and the reference line
+        (slope, intercept) (:func:`refit.report.diagnostics.normal_qq`).
+    y_label : str
+        The response's label with its unit.
+    """
+    osm, osr, (slope, intercept) = qq
+    with st.styled():
+        fig, (a, b) = st.figure(2)
+        a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
+        a.plot(fitted, resid, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9,
+               ms=4.2, gid="residuals")
+        a.set_xlabel(f"fitted {y_label}")
+        a.set_ylabel("residual (observed - fitted)")
+        a.set_title("Residuals against fitted values")
+        b.plot(osm, osr, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
+               gid="qq-points")
+        line_x = np.array([np.min(osm), np.max(osm)])
+        b.plot(line_x, slope * line_x + intercept, color=st.CURVE, lw=1.2, gid="qq-line",
+               label="reference line")
+        b.set_xlabel("normal quantile")
+        b.set_ylabel("standardized residual")
+        b.set_title("Normal Q-Q plot")
+        b.legend(loc="upper left")
+    return fig
+
+
+def influence(leverage, cooks, labels, highlight, *, p: int):
+    """Leverage and Cook's distance per record, influential records labelled.
+
+    Parameters
+    ----------
+    leverage, cooks : array_like, shape (n,)
+    labels : sequence of str, shape (n,)
+        ``profile_id`` of each record.
+    highlight : array_like of int
+        Indices of the records to label (:func:`refit.report.diagnostics.influential`).
+    p : int
+        Number of coefficients (for the 2p/n leverage guide).
+    """
+    from .diagnostics import COOKS_FACTOR, LEVERAGE_FACTOR
+
+    h = np.asarray(leverage, dtype=float)
+    d = np.asarray(cooks, dtype=float)
+    n = h.size
+    hi = np.asarray(highlight, dtype=int)
+    with st.styled():
+        fig, (a, b) = st.figure(2)
+        a.plot(h, d, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
+               gid="influence-points")
+        a.plot(h[hi], d[hi], ls="none", marker="o", color=st.FLAGGED, ms=5.5,
+               gid="influential", label="influential (labelled)")
+        a.axhline(COOKS_FACTOR / n, color=st.FLAGGED, lw=0.9, ls="--", gid="cooks-guide",
+                  label=f"Cook's D = {COOKS_FACTOR:g}/n")
+        a.axvline(LEVERAGE_FACTOR * p / n, color=st.DOMAIN, lw=0.9, ls=":",
+                  gid="leverage-guide", label=f"leverage = {LEVERAGE_FACTOR:g}p/n")
+        for i in hi:
+            a.annotate(str(labels[i]), (h[i], d[i]), xytext=(4, 3),
+                       textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
+        a.set_xlabel("leverage (hat value)")
+        a.set_ylabel("Cook's distance")
+        a.set_title("Leverage and Cook's distance")
+        a.legend(loc="upper right")
+        idx = np.arange(1, n + 1)
+        b.vlines(idx, 0, d, color=st.DATA, lw=0.8, gid="cooks-stems")
+        b.plot(idx[hi], d[hi], ls="none", marker="o", color=st.FLAGGED, ms=4.5)
+        b.axhline(COOKS_FACTOR / n, color=st.FLAGGED, lw=0.9, ls="--")
+        for i in hi:
+            b.annotate(str(labels[i]), (idx[i], d[i]), xytext=(3, 2),
+                       textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
+        b.set_xlabel("record (order in the subset)")
+        b.set_ylabel("Cook's distance")
+        b.set_title("Cook's distance by record")
+    return fig
+
+
+def out_of_fold(observed, estimate, *, label: str, scheme: str, metrics: dict | None = None):
+    """Out-of-fold observed against predicted for one scheme, with the 1:1 line.
+
+    Parameters
+    ----------
+    observed, estimate : array_like
+        Every out-of-fold prediction of the scheme (all repeats) [unit of the response].
+    label : str
+        The response's label with its unit.
+    scheme : str
+        The scheme's name (title).
+    metrics : dict, optional
+        ``rmsep``, ``bias``, ``coverage`` to print in the corner.
+    """
+    obs = np.asarray(observed, dtype=float)
+    est = np.asarray(estimate, dtype=float)
+    with st.styled():
+        fig, (a,) = st.figure(1, width=5.0, height=4.6)
+        a.plot(est, obs, ls="none", marker="o", color=st.GROUPED, alpha=0.25, ms=3.5,
+               mew=0, gid="oof-points", label="out-of-fold prediction")
+        both = np.concatenate([obs[np.isfinite(obs)], est[np.isfinite(est)]])
+        lim = (float(both.min()), float(both.max())) if both.size else (0.0, 1.0)
+        pad = 0.04 * (lim[1] - lim[0] or 1.0)
+        lim = (lim[0] - pad, lim[1] + pad)
+        a.plot(lim, lim, color=st.REFERENCE, lw=1.0, gid="one-to-one", label="1:1")
+        a.set_xlim(lim)
+        a.set_ylim(lim)
+        a.set_aspect("equal")
+        a.set_xlabel(f"predicted {label}")
+        a.set_ylabel(f"observed {label}")
+        a.set_title(f"Out-of-fold predictions ({scheme})")
+        if metrics:
+            text = "\n".join(f"{k} {v}" for k, v in metrics.items())
+            a.text(0.98, 0.03, text, transform=a.transAxes, ha="right", va="bottom",
+                   fontsize=8, family="DejaVu Sans Mono")
+        a.legend(loc="upper left")
+    return fig
+
+
+def sites(longitude, latitude, kept, *, n_missing: int = 0):
+    """Calibration sites by longitude and latitude, the subset's records marked.
+
+    Parameters
+    ----------
+    longitude, latitude : array_like [decimal degrees]
+    kept : array_like of bool
+        The subset kept the record.
+    n_missing : int
+        Records without coordinates (not drawn; said in the title).
+    """
+    lon = np.asarray(longitude, dtype=float)
+    lat = np.asarray(latitude, dtype=float)
+    k = np.asarray(kept, dtype=bool)
+    with st.styled():
+        fig, (a,) = st.figure(1, width=6.0, height=4.6)
+        a.plot(lon[~k], lat[~k], ls="none", marker="x", color=st.GREY, ms=4, mew=0.9,
+               gid="sites-removed", label=f"not in the subset ({int((~k).sum())})")
+        a.plot(lon[k], lat[k], ls="none", marker="o", color=st.KEPT, mec="white", mew=0.4,
+               ms=5.5, gid="sites-kept", label=f"kept by the subset ({int(k.sum())})")
+        a.set_xlabel("longitude [°]")
+        a.set_ylabel("latitude [°]")
+        mid = np.nanmean(lat) if lat.size else 0.0
+        a.set_aspect(1.0 / max(np.cos(np.radians(mid)), 0.1))   # equal distances at mid-latitude
+        title = "Calibration sites"
+        if n_missing:
+            title += f" ({n_missing} without coordinates not shown)"
+        a.set_title(title)
+        a.legend(loc="best")
+    return fig
+
+
+def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level: float,
+                   tolerance: float, scheme: str, unit: str = ""):
+    """Out-of-fold coverage against mean interval width for every candidate, the recipe's
+    scheme beside random k-fold: honest candidates sit in the nominal band.
+
+    Parameters
+    ----------
+    ranks : array_like of int
+        Leaderboard rank of each candidate (the point labels).
+    coverage, width : array_like
+        Coverage (fraction) and mean width [unit] under the recipe's scheme.
+    kfold_coverage, kfold_width : array_like or None
+        The same under random k-fold (None when the scheme is k-fold).
+    level, tolerance : float
+        Nominal coverage and the accepted distance from it.
+    scheme : str
+        Name of the recipe's scheme.
+    """
+    r = np.asarray(ranks)
+    cov = np.asarray(coverage, dtype=float)
+    wid = np.asarray(width, dtype=float)
+    with st.styled():
+        fig, (a,) = st.figure(1, width=6.4, height=4.6)
+        a.axhspan(level - tolerance, level + tolerance, color=st.KEPT, alpha=0.12, lw=0,
+                  gid="nominal-band", label=f"within {100 * tolerance:.0f} points of "
+                                            f"{100 * level:.0f}%")
+        a.axhline(level, color=st.REFERENCE, lw=0.9, ls="--", gid="nominal")
+        if kfold_coverage is not None:
+            kc = np.asarray(kfold_coverage, dtype=float)
+            kw = np.asarray(kfold_width, dtype=float)
+            for i in range(r.size):
+                a.plot([kw[i], wid[i]], [kc[i], cov[i]], color=st.GREY, lw=0.7, zorder=1)
+            a.plot(kw, kc, ls="none", marker="s", mfc="white", mec=st.RANDOM, mew=1.2,
+                   ms=5.5, gid="random-kfold", label="random k-fold")
+        a.plot(wid, cov, ls="none", marker="o", color=st.GROUPED, ms=6, gid="scheme",
+               label=scheme)
+        for i in range(r.size):
+            a.annotate(str(r[i]), (wid[i], cov[i]), xytext=(4, 2),
+                       textcoords="offset points", fontsize=7.5)
+        a.set_xlabel(f"mean interval width{f' [{unit}]' if unit else ''}")
+        a.set_ylabel("out-of-fold coverage")
+        a.yaxis.set_major_formatter(_percent())
+        a.set_title("Coverage against width (labels: leaderboard rank)")
+        a.legend(loc="lower right")
+    return fig
+
+
+def _percent():
+    from matplotlib.ticker import PercentFormatter
+
+    return PercentFormatter(xmax=1.0, decimals=0)
