@@ -89,9 +89,9 @@ def impossible_reason(form: str, estimator: str, direction: str, method: str,
                 f"('analytic'); {method!r} does not apply")
     if method == "quantile" and estimator != "quantile":
         return "interval 'quantile' comes from quantile curves: only with estimator 'quantile'"
-    if method == "analytic" and estimator in ("theil-sen", "quantile"):
-        return (f"estimator {estimator!r} gives no coefficient covariance, so there is no "
-                "analytic interval")
+    if method == "analytic" and estimator == "quantile":
+        return ("estimator 'quantile' gives its own interval from the quantile curves; use "
+                "interval 'quantile'")
     if method in RESAMPLING and estimator != "ols":
         return (f"interval {method!r} refits by least squares, so it goes with estimator "
                 f"'ols', not {estimator!r}")

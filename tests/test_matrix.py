@@ -87,7 +87,7 @@ def write_case(folder, *, scheme="group-kfold", repeats=1, n=60):
     (("linear", "ols", "inverse", "quantile", 1), "quantile curves"),
     (("linear", "huber", "inverse", "jackknife+", 1), "least squares"),
     (("linear", "ols", "forward", "split-conformal", 1), "classical-calibration"),
-    (("linear", "theil-sen", "inverse", "analytic", 1), "no coefficient covariance"),
+    (("linear", "quantile", "inverse", "analytic", 1), "own interval from the quantile"),
     (("linear", "ols", "forward", "analytic", 2), "inverts one feature"),
     (("linear", "wls", "inverse", "analytic", 1), "weights column"),
 ])
@@ -96,6 +96,7 @@ def test_impossible_combinations_name_their_reason(combo, fragment):
 
 
 @pytest.mark.parametrize("combo", [
+    ("linear", "theil-sen", "inverse", "analytic", 1),  # bootstrap covariance, approximate
     ("linear", "ols", "inverse", "jackknife+", 1), ("quadratic", "huber", "forward",
                                                    "analytic", 1),
     ("linear", "quantile", "inverse", "quantile", 2), ("exponential", "ols", "inverse",
@@ -184,13 +185,13 @@ def test_run_matrix_columns_and_oof_rows(tmp_path):
     m = run.matrix
     n = len(run.subset.frame)
     assert n == 45  # 60 soils, every 4th under forest
-    assert len(m.specs) == 12 and m.schemes["kfold"] is None
+    assert len(m.specs) == 14 and m.schemes["kfold"] is None
     cols = {"candidate", "form", "estimator", "direction", "interval_method", "rmsep", "mae",
             "bias", "coverage", "mean_width", "interval_score", "n", "r2_in_sample",
             "residual_se", "aic", "bic", "rank", "coverage_ok"}
     assert cols <= set(m.leaderboard.columns)
     per = m.predictions.groupby("candidate").size()
-    assert (per == n * 2).all() and len(per) == 12   # k-fold: n rows x 2 repeats each
+    assert (per == n * 2).all() and len(per) == 14   # k-fold: n rows x 2 repeats each
     assert set(m.leaderboard.n) == {n * 2}
 
 
@@ -220,7 +221,7 @@ def test_run_folder_reopened(tmp_path):
     assert board.interval_score.is_monotonic_increasing or not board.coverage_ok.all()
     doc = json.loads((out / "leaderboard.json").read_text())
     assert doc["verdict"]["winner"] == board.candidate[0]
-    assert len(doc["rows"]) == 12 and len(doc["skipped"]) == 24
+    assert len(doc["rows"]) == 14 and len(doc["skipped"]) == 22
     oof = pd.read_csv(out / "oof_predictions.csv")
     assert list(oof.columns[:11]) == ["candidate", "scheme", "row", "profile_id", "repeat",
                                       "fold", "observed", "estimate", "lower", "upper",
@@ -282,7 +283,7 @@ def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
                            "quadratic/huber/inverse/analytic",
                            "quadratic/huber/forward/analytic"}
     assert "at least 5 rows are needed" in failed["quadratic/huber/inverse/analytic"]
-    assert len(res.specs) == 7 and len(res.leaderboard) == 7
+    assert len(res.specs) == 9 and len(res.leaderboard) == 9
 
 
 @pytest.mark.parametrize("scheme, repeats", [("loo", 1), ("leave-one-group-out", 1),
@@ -296,6 +297,6 @@ def test_every_scheme_runs_with_random_kfold_beside(tmp_path, scheme, repeats):
     per = m.predictions.groupby(["candidate", "scheme"]).size()
     assert per.xs(scheme, level="scheme").eq(n * repeats).all()
     assert per.xs("kfold", level="scheme").eq(n * repeats).all()
-    assert m.schemes["kfold"].folds == 3 and len(m.leaderboard) == 12
+    assert m.schemes["kfold"].folds == 3 and len(m.leaderboard) == 14
     if scheme == "spatial-block":
         assert m.split_details["main"]["block_km"] > 0   # the block size is reported
