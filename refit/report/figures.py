@@ -196,8 +196,8 @@ def influence(leverage, cooks, labels, highlight, *, p: int):
                   label=f"Cook's D = {COOKS_FACTOR:g}/n")
         a.axvline(LEVERAGE_FACTOR * p / n, color=st.DOMAIN, lw=0.9, ls=":",
                   gid="leverage-guide", label=f"leverage = {LEVERAGE_FACTOR:g}p/n")
-        for i in hi:
-            a.annotate(str(labels[i]), (h[i], d[i]), xytext=(4, 3),
+        for j, i in enumerate(hi):
+            a.annotate(str(labels[i]), (h[i], d[i]), xytext=_offset(j),
                        textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
         a.set_xlabel("leverage (hat value)")
         a.set_ylabel("Cook's distance")
@@ -207,13 +207,19 @@ def influence(leverage, cooks, labels, highlight, *, p: int):
         b.vlines(idx, 0, d, color=st.DATA, lw=0.8, gid="cooks-stems")
         b.plot(idx[hi], d[hi], ls="none", marker="o", color=st.FLAGGED, ms=4.5)
         b.axhline(COOKS_FACTOR / n, color=st.FLAGGED, lw=0.9, ls="--")
-        for i in hi:
-            b.annotate(str(labels[i]), (idx[i], d[i]), xytext=(3, 2),
+        for j, i in enumerate(sorted(hi, key=lambda k: idx[k])):
+            b.annotate(str(labels[i]), (idx[i], d[i]), xytext=_offset(j),
                        textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
         b.set_xlabel("record (order in the subset)")
         b.set_ylabel("Cook's distance")
         b.set_title("Cook's distance by record")
     return fig
+
+
+def _offset(j: int) -> tuple[int, int]:
+    """Label offsets [points] that alternate right-up, right-down, left-up, so labels of
+    neighbouring records do not print over each other."""
+    return ((4, 3), (4, -9), (-38, 3), (-38, -9))[j % 4]
 
 
 def out_of_fold(observed, estimate, *, label: str, scheme: str, metrics: dict | None = None):
@@ -283,7 +289,7 @@ def sites(longitude, latitude, kept, *, n_missing: int = 0):
         if n_missing:
             title += f" ({n_missing} without coordinates not shown)"
         a.set_title(title)
-        a.legend(loc="best")
+        a.legend(loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2)
     return fig
 
 

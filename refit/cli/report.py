@@ -1,0 +1,67 @@
+"""`refit report`: one self-contained HTML file with the figures and numbers of a run."""
+
+from __future__ import annotations
+
+import sys
+
+import click
+
+from refit.cli._common import guarded, stderr_console
+
+
+@click.command("report", short_help="Write a self-contained HTML report of a fit run.")
+@click.argument("run", type=click.Path(file_okay=False, path_type=str))
+@click.option("--out", "out", type=click.Path(dir_okay=False, path_type=str), default=None,
+              metavar="FILE.html",
+              help="Report file to write [default: reports/<run folder name>.html].")
+@click.option("--candidate", default=None, metavar="LABEL",
+              help="Report this leaderboard candidate (e.g. quadratic/ols/forward/analytic) "
+                   "instead of the run's top one.")
+@click.option("--store", "store", type=click.Path(path_type=str), default=None,
+              metavar="PATH", help="Where the run's store (or table) is now, if it moved.")
+@click.option("--overwrite", is_flag=True, help="Replace an existing report file.")
+@click.option("--quiet", "-q", is_flag=True, help="No progress messages.")
+@guarded
+def report(run, out, candidate, store, overwrite, quiet) -> None:
+    """Write one HTML file reporting the fit RUN folder (from `refit fit --out RUN`).
+
+    The report reloads the run's calibration data (the store version or table recorded in
+    run.json, checked against its sha256), rebuilds the subset and refits the chosen
+    candidate, then shows: the dataset and its hash, the subset, the leaderboard, the
+    chosen equation with coefficients and standard errors, the recipe's cross-validation
+    against random k-fold, flags and cautions, the figures (embedded; the file needs no
+    network) and the commands that reproduce it.
+
+    \b
+    Exit codes: 0 written, 1 the data are no longer the run's, 2 unreadable run folder,
+    missing data, usage error.
+
+    \b
+    Examples:
+      refit fit calib_demo/recipe.toml --out runs/bk-map
+      refit report runs/bk-map --out reports/bk-map.html
+    """
+    from pathlib import Path
+
+    from refit.errors import UsageError
+    from refit.report.html import write_report
+
+    target = Path(out) if out else Path("reports") / f"{Path(run).resolve().name}.html"
+    if target.is_dir():
+        raise UsageError(f"--out {target} is a folder; name the .html file to write")
+    if target.exists() and not overwrite:
+        raise UsageError(f"{target} already exists; choose another --out or pass "
+                         "--overwrite to replace it")
+    err = stderr_console(quiet=quiet or not sys.stderr.isatty())
+    with err.status("reading the run") as status:
+        written = write_report(run, target, candidate=candidate, store=store,
+                               command=_command(run, target, candidate, store),
+                               progress=lambda text: status.update(text))
+    click.echo(f"Report written to {written}")
+
+
+def _command(run, target, candidate, store) -> list[str]:
+    """The command that rewrites this report (shown in it)."""
+    cmd = ["refit", "report", str(run), "--out", str(target)]
+    cmd += ["--candidate", candidate] if candidate else []
+    return cmd + (["--store", str(store)] if store else [])

@@ -1,0 +1,227 @@
+"""The numbers and words of the report, formatted for the template (no HTML here)."""
+
+from __future__ import annotations
+
+import math
+import os
+import shlex
+from pathlib import Path
+
+import numpy as np
+
+_SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def num(v, digits: int = 4) -> str:
+    """A number with ``digits`` significant digits; blank for missing values."""
+    if v is None:
+        return ""
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return str(v)
+    if math.isnan(f):
+        return ""
+    if math.isinf(f):
+        return "∞" if f > 0 else "-∞"
+    return f"{f:.{digits}g}"
+
+
+def pct(v, digits: int = 1) -> str:
+    """A fraction as a percentage."""
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    return f"{100 * float(v):.{digits}f}%"
+
+
+def shown_path(path) -> str:
+    """A path as a reader should see it: relative to the working folder when inside it
+    (so a report never carries one machine's absolute paths), else as recorded."""
+    if not path:
+        return ""
+    p = Path(str(path))
+    try:
+        rel = os.path.relpath(p.resolve(), Path.cwd().resolve())
+    except ValueError:
+        return str(path)
+    return str(path) if rel.startswith("..") else rel
+
+
+def term_text(term: str) -> str:
+    """``bk_depth_cm^2`` -> ``bk_depth_cm²``."""
+    if "^" in term:
+        name, power = term.rsplit("^", 1)
+        return name + power.translate(_SUPERSCRIPT)
+    return term
+
+
+def equation(record: dict, fit) -> dict:
+    """The chosen fit's equation written out, and one row per coefficient."""
+    terms = list(record["terms"])
+    b = np.asarray(record["coefficients"], dtype=float)
+    se = fit.std_errors.to_numpy(dtype=float)
+    eq = record.get("equation") or {}
+    lhs = eq.get("y") or fit.y_name
+    if eq.get("scale") == "log" or fit.form.log_response:
+        lhs = f"ln({lhs})"
+    parts = []
+    for i, (t, c, s) in enumerate(zip(terms, b, se)):
+        sign = "-" if c < 0 else "+"
+        body = f"{num(abs(c))} (± {num(s, 3)})"
+        if t != "intercept":
+            body += f" × {term_text(t)}"
+        parts.append((("-" if sign == "-" else "") if i == 0 else f" {sign} ") + body)
+    rows = [{"term": term_text(t), "coefficient": num(c, 6), "std_error": num(s, 4),
+             "t": num(c / s, 3) if s > 0 else ""} for t, c, s in zip(terms, b, se)]
+    return {"text": f"{lhs} = " + "".join(parts), "rows": rows,
+            "residual_se": num(record.get("residual_std_error")),
+            "df": num(record.get("df_resid"), 6), "n": record.get("n"),
+            "r_squared": num(record.get("r_squared"), 3),
+            "smearing": num(eq.get("smearing")) if eq.get("smearing") else ""}
+
+
+def direction_words(fit) -> str:
+    """How the equation is used, in one sentence."""
+    if fit.direction == "inverse":
+        return (f"Inverse fit: {fit.response} regressed on {', '.join(fit.predictors)} and "
+                "applied directly (estimates shrink toward the calibration mean).")
+    return (f"Forward fit: {fit.y_name} regressed on {fit.response} (the way the soil "
+            f"responds), inverted as a classical calibration to estimate {fit.response} "
+            "from a measured value, with its own interval.")
+
+
+_BOARD = (("rank", "#", None), ("candidate", "candidate", None), ("rmsep", "RMSEP", num),
+          ("bias", "bias", num), ("coverage", "coverage", pct),
+          ("mean_width", "mean width", num), ("interval_score", "interval score", num),
+          ("r2_prediction", "R² out of fold", lambda v: num(v, 3)),
+          ("r2_in_sample", "R² in sample", lambda v: num(v, 3)), ("aic", "AIC", num),
+          ("direction", "direction", None))
+
+
+def leaderboard(board, chosen: str) -> dict:
+    """Header and formatted rows of the leaderboard (every candidate, ranked)."""
+    rows = []
+    for rec in board.to_dict(orient="records"):
+        cells = [f(rec.get(k)) if f else str(rec.get(k, "")) for k, _, f in _BOARD
+                 if k in board.columns]
+        rows.append({"cells": cells, "chosen": rec["candidate"] == chosen,
+                     "honest": bool(rec.get("coverage_ok"))})
+    return {"header": [h for k, h, _ in _BOARD if k in board.columns], "rows": rows}
+
+
+def cv_comparison(inp) -> dict:
+    """The recipe's scheme beside random k-fold: per-candidate numbers and the optimism."""
+    bj = inp.board_json
+    main, kfold = bj.get("scheme") or {}, bj.get("compared_with")
+    details = (bj.get("split_details") or {}).get("main") or {}
+    opt = (bj.get("verdict") or {}).get("optimism")
+    words = _scheme_words(main, details)
+    out = {"scheme": words, "random": _scheme_words(kfold, {}) if kfold else None,
+           "optimism": None, "rows": [],
+           "scheme_name": main.get("name") or ""}
+    if opt:
+        verb = ("Random k-fold flatters" if opt["median_rmsep_ratio"] > 1
+                else "Random k-fold does not flatter here")
+        out["optimism"] = (f"{verb}: under {main.get('name')} the RMSEP is "
+                           f"{opt['median_rmsep_ratio']:.2f}× and the interval score "
+                           f"{opt['median_score_ratio']:.2f}× random k-fold's (median over "
+                           "candidates).")
+    for r in inp.board.to_dict(orient="records"):
+        out["rows"].append([str(r["rank"]), r["candidate"], num(r.get("rmsep")),
+                            num(r.get("kfold_rmsep")), num(r.get("rmsep_ratio"), 3),
+                            pct(r.get("coverage")), pct(r.get("kfold_coverage")),
+                            num(r.get("interval_score")), num(r.get("kfold_interval_score"))])
+    return out
+
+
+def _scheme_words(s: dict, details: dict) -> str:
+    if not s:
+        return ""
+    text = f"{s.get('name')}, {s.get('folds')} folds × {s.get('repeats')} repeat(s)"
+    if s.get("groups"):
+        text += f", grouped by {s['groups']}"
+        if details.get("n_groups"):
+            text += f" ({details['n_groups']} groups)"
+    if s.get("block_km"):
+        text += f", blocks of {s['block_km']} km"
+    return text + f", seed {s.get('seed')}"
+
+
+def flags(inp, facts: dict) -> list[str]:
+    """Everything a reader should know before using the chosen fit."""
+    out = []
+    row = inp.board[inp.board["candidate"] == inp.candidate].iloc[0]
+    verdict = inp.board_json.get("verdict") or {}
+    if not bool(row.get("coverage_ok")):
+        out.append(f"The chosen candidate's out-of-fold coverage ({pct(row['coverage'])}) is "
+                   f"not within {pct(inp.board_json.get('coverage_tolerance'))} of the "
+                   f"nominal {pct(inp.board_json.get('level'), 0)}: its intervals are not "
+                   "calibrated.")
+    if verdict.get("simpler"):
+        out.append(verdict.get("simpler_why"))
+    n_bad = int((~inp.board["coverage_ok"].astype(bool)).sum())
+    if n_bad:
+        out.append(f"{n_bad} of {len(inp.board)} candidates miss the nominal coverage under "
+                   f"{row['scheme']}; they are ranked after the others.")
+    out += list((inp.record.get("domain") or {}).get("cautions") or [])
+    out += list(((inp.record.get("cv") or {}).get("details") or {}).get("cautions") or [])
+    out += _oof_flags(inp.oof)
+    if facts.get("influential"):
+        out.append("Influential records (Cook's distance or leverage above the guides): "
+                   + ", ".join(facts["influential"]) + ".")
+    out += [f"Subset: {n}" for n in (inp.run.get("subset") or {}).get("notes") or []]
+    return [f for f in out if f]
+
+
+def _oof_flags(oof) -> list[str]:
+    if "flags" not in oof or oof["flags"].isna().all():
+        return []
+    counts = oof["flags"].dropna().astype(str).str.split(";").explode().value_counts()
+    return [f"{int(c)} of {len(oof)} out-of-fold predictions were flagged '{f}'."
+            for f, c in counts.items() if f]
+
+
+def why_chosen(inp) -> str:
+    """Why this candidate is reported: the run's verdict, or that it was asked for."""
+    verdict = inp.board_json.get("verdict") or {}
+    if verdict.get("winner") == inp.candidate:
+        return str(verdict.get("why") or "")
+    rank = int(inp.board.loc[inp.board["candidate"] == inp.candidate, "rank"].iloc[0])
+    return (f"{inp.candidate} (rank {rank}) is reported as asked (--candidate); the run's "
+            f"top candidate is {verdict.get('winner')}: {verdict.get('why')}")
+
+
+def build(inp, figures: list[dict], facts: dict, *, report_command: list[str] | None) -> dict:
+    """The template's context."""
+    ds = inp.run.get("dataset") or {}
+    sub = inp.run.get("subset") or {}
+    rec = inp.record
+    fit_cmd = inp.run.get("command") or []
+    return {
+        "title": f"{rec['function_id']}: {inp.candidate}",
+        "function_id": rec["function_id"], "candidate": inp.candidate,
+        "response": rec["response"], "predictors": rec["predictors"],
+        "dataset": {"kind": ds.get("kind"), "name": ds.get("name"), "version": ds.get("version"),
+                    "sha256": ds.get("sha256"), "rows": ds.get("rows"),
+                    "path": shown_path(ds.get("path"))},
+        "subset": {"before": sub.get("rows_before"), "after": sub.get("rows_after"),
+                   "steps": sub.get("steps") or []},
+        "recipe": {"path": shown_path((inp.run.get("recipe") or {}).get("path")),
+                   "sha256": (inp.run.get("recipe") or {}).get("sha256"),
+                   "text": (inp.run.get("recipe") or {}).get("text")},
+        "verdict": inp.board_json.get("verdict") or {},
+        "why": why_chosen(inp),
+        "leaderboard": leaderboard(inp.board, inp.candidate),
+        "skipped": inp.board_json.get("skipped") or [],
+        "equation": equation(rec, inp.fit), "direction": direction_words(inp.fit),
+        "domain": {k: [num(a), num(b)] for k, (a, b) in inp.fit.ranges.items()},
+        "interval": rec.get("interval", {}).get("method"),
+        "level": pct(rec.get("interval", {}).get("level"), 0),
+        "cv": cv_comparison(inp), "flags": flags(inp, facts),
+        "cautions": list(dict.fromkeys([*(inp.run.get("cautions") or []),
+                                        *(rec.get("cautions") or [])])),
+        "commands": [shlex.join(fit_cmd)] + ([shlex.join(report_command)]
+                                             if report_command else []),
+        "created": inp.run.get("created"), "software": inp.run.get("software") or {},
+        "figures": figures,
+    }
