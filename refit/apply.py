@@ -472,3 +472,42 @@ def _propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> di
             + ", ".join(varied) + "; per-draw interval as a "
             + ("Student t" if df else "split normal") + " with the draw's limits")
     return {"lower": lo, "upper": hi, "propagation": text}
+
+
+def apply_files(coefficient_files, fossils, *, level=None, decompact=False,
+                constants_file=None, seed=0, n_draws=N_DRAWS, combine=False,
+                vocabularies=None) -> ApplyResult:
+    """:func:`apply_equations` from paths: coefficient files, a fossil table (path, or a
+    frame already holding canonical columns) and an optional compaction-constants file.
+
+    Raises
+    ------
+    RefitError
+        The fossil table cannot be read, or no coefficient file could be loaded (the
+        first file's error is raised).
+    """
+    from .decompaction import load_constants
+    from .fossils import check_fossil_frame, read_fossils
+
+    constants = load_constants(constants_file) if constants_file else None
+    equations, problems = load_equations(coefficient_files)
+    if not equations:
+        from .coefficients import load
+
+        load(coefficient_files[0])  # raises the first file's own error
+    if isinstance(fossils, pd.DataFrame):
+        report = check_fossil_frame(fossils, vocabularies=vocabularies, path="--at",
+                                    constants=constants)
+    else:
+        report = read_fossils(fossils, vocabularies=vocabularies, constants=constants)
+    if report.table_errors().shape[0]:
+        from .errors import InvalidDataError
+
+        te = report.table_errors()
+        raise InvalidDataError(f"{report.path}: " + "; ".join(te["message"]) +
+                               " (run `refit check --kind fossil` for every problem)")
+    result = apply_equations(equations, report, level=level, decompact=decompact,
+                             constants=constants, seed=seed, n_draws=n_draws,
+                             combine=combine)
+    result.problems[:0] = problems
+    return result

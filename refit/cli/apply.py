@@ -1,0 +1,139 @@
+"""`refit apply`: estimates, intervals and flags for fossil soils from coefficient files."""
+
+from __future__ import annotations
+
+import click
+
+from refit.cli._common import guarded, plural, stdout_console
+
+
+def _level(ctx, param, value):
+    if value is not None and not 0 < value < 1:
+        raise click.BadParameter("must lie between 0 and 1, e.g. 0.95")
+    return value
+
+
+def fossil_options(fn):
+    """Options shared by `apply` and `compare`."""
+    for opt in reversed([
+        click.option("--level", type=float, default=None, callback=_level,
+                     help="Interval coverage [default: each file's own; a published +- "
+                          "keeps its own]."),
+        click.option("--decompact", is_flag=True,
+                     help="Decompact depths and thicknesses for burial first "
+                          "(Sheldon & Retallack 2001); recorded per row."),
+        click.option("--compaction-constants", "constants_file", metavar="FILE",
+                     type=click.Path(dir_okay=False, path_type=str),
+                     help="Compaction constants per soil order or lithology (JSON or CSV: "
+                          "key, initial_solidity, k_per_km, source)."),
+        click.option("--seed", type=int, default=0, show_default=True,
+                     help="Seed of the Monte Carlo propagation."),
+    ]):
+        fn = opt(fn)
+    return fn
+
+
+@click.command("apply", short_help="Apply coefficient files to fossil soils, with flags.")
+@click.argument("coefficients", nargs=-1, required=True,
+                type=click.Path(dir_okay=False, path_type=str))
+@click.option("--fossils", required=True, metavar="TABLE",
+              type=click.Path(dir_okay=False, path_type=str),
+              help="Fossil measurement table (csv, tsv, xlsx or parquet).")
+@fossil_options
+@click.option("--out", metavar="CSV", type=click.Path(dir_okay=False, path_type=str),
+              help="Write the results (and, with --decompact, CSV.decompaction.csv).")
+@click.option("--overwrite", is_flag=True, help="Replace an existing --out file.")
+@click.option("--combine", is_flag=True,
+              help="Add an inverse-variance combined estimate per paleosol across proxies.")
+@click.pass_context
+@guarded
+def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, out,
+          overwrite, combine) -> None:
+    """Estimate the climate of each paleosol in TABLE with each COEFFICIENTS file.
+
+    For each paleosol and each file whose predictors the table has: estimate, lower and
+    upper limits and flags (outside-calibration-range, beyond-turning-point, unbounded,
+    two-roots, setting-mismatch with the fit's subset, published-plus-minus-only, ...).
+    Measurement SDs (columns like bk_depth_sd_cm) and, with --decompact, the burial
+    depth SD are propagated into the interval by seeded Monte Carlo. Rows with bad
+    values are reported and the others still evaluated.
+
+    \b
+    Exit codes: 0 every row evaluated, 1 some rows or files could not be (the rest is
+    still written), 2 unreadable input or usage error.
+
+    \b
+    Examples:
+      refit apply runs/bk/fits/*.json --fossils calib_demo/fossils.csv
+      refit apply map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
+          --compaction-constants constants.csv --out estimates.csv
+    """
+    from pathlib import Path
+
+    from refit.apply import apply_files
+    from refit.errors import UsageError
+
+    if out and Path(out).exists() and not overwrite:
+        raise UsageError(f"--out {out} exists; pass --overwrite to replace it")
+    result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
+                         constants_file=constants_file, seed=seed, combine=combine)
+    console = stdout_console()
+    print_results(result.results, console)
+    if out:
+        _write(result, out)
+        console.print(f"Results written to {out}")
+    print_problems_and_cautions(result, console)
+    ctx.exit(0 if result.ok else 1)
+
+
+def _write(result, out: str) -> None:
+    from refit._atomic import write_text_atomic
+
+    write_text_atomic(out, result.results.to_csv(index=False))
+    if result.decompaction is not None:
+        write_text_atomic(out + ".decompaction.csv",
+                          result.decompaction.to_csv(index=False))
+
+
+def _num(x) -> str:
+    import math
+
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "-"
+    return f"{x:.4g}" if abs(x) != float("inf") else ("-inf" if x < 0 else "inf")
+
+
+def print_results(results, console) -> None:
+    """The results as a table for people."""
+    from rich.table import Table
+    from rich.text import Text
+
+    table = Table(title="Estimates", title_justify="left", title_style="bold")
+    for col in ("paleosol", "fit", "estimate", "interval", "level", "MC", "CV cov.",
+                "flags / problem"):
+        table.add_column(col, justify="right" if col in ("estimate", "level") else "left")
+    for r in results.itertuples(index=False):
+        fit = f"{r.function_id} {r.version} {r.candidate or r.status}".strip()
+        level = "+-1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
+            else _num(r.level)
+        cov = "-" if r.cv_coverage is None or r.cv_coverage != r.cv_coverage \
+            else f"{r.cv_coverage:.0%}"
+        mc = "yes" if str(r.propagation).startswith("monte-carlo") else ""
+        note = Text(r.problem, style="red") if r.problem else Text(str(r.flags))
+        table.add_row(str(r.paleosol_id), fit, _num(r.estimate),
+                      f"[{_num(r.lower)}, {_num(r.upper)}] {r.unit}", level, mc, cov, note)
+    console.print(table)
+
+
+def print_problems_and_cautions(result, console) -> None:
+    """Problems (file and row level) and the cautions."""
+    from rich.text import Text
+
+    if result.problems:
+        console.print(Text(f"{plural(len(result.problems), 'problem')}:", style="bold red"))
+        for p in result.problems:
+            where = f"row {p['row']} ({p['paleosol_id']}): " if p.get("row") else ""
+            console.print(Text(f"  - {where}{p['message']}"))
+    console.print(Text("Cautions:", style="bold"))
+    for c in result.cautions:
+        console.print(Text(f"  - {c}"))
