@@ -15,6 +15,11 @@ References
    analysis. Proc. Kon. Ned. Akad. Wetensch. A 53.
 .. [5] Sen, P. K. (1968). Estimates of the regression coefficient based on Kendall's tau.
    JASA 63:1379-1389.
+.. [6] Wilcox, R. R. (2012). *Introduction to Robust Estimation and Hypothesis Testing*,
+   3rd ed. Academic Press (approximating Theil-Sen by the median of a random sample of
+   pairwise slopes; from memory).
+.. [7] Bickel, P. J., Goetze, F. & van Zwet, W. R. (1997). Resampling fewer than n
+   observations. Statistica Sinica 7:1-31 (the m-out-of-n bootstrap; from memory).
 """
 
 from __future__ import annotations
@@ -31,6 +36,13 @@ __all__ = ["fit_huber", "fit_theil_sen"]
 
 _COV_CHOICES = ("rlm", "H1", "H2", "H3")
 _MAD_TO_SIGMA = 1.482602218505602   # 1 / Phi^-1(3/4): MAD of a normal sample -> sigma
+#: above this many rows Theil-Sen no longer forms all n(n-1)/2 pairwise slopes (at 80,000
+#: rows that would be ~3.2e9 slopes, tens of GiB): the slope is the median of a seeded
+#: random sample of :data:`THEIL_SEN_SAMPLED_PAIRS` pairs, and the bootstrap resamples
+#: :data:`THEIL_SEN_BOOT_ROWS` rows (m-out-of-n) with the covariance rescaled by m/n.
+THEIL_SEN_EXACT_MAX = 3000
+THEIL_SEN_SAMPLED_PAIRS = 2_000_000
+THEIL_SEN_BOOT_ROWS = 500
 _ZERO_SCALE = ("fit_huber: more than half of the rows lie exactly on a fitted line, so the "
                "robust scale (median absolute residual) is zero; use OLS, or check for "
                "duplicated or copied rows.")
@@ -141,56 +153,103 @@ def fit_theil_sen(x, y, *, level=0.95, intercept="joint", n_boot=0,
         0 (default): no covariance (NaN-filled). Otherwise the covariance of (a, b) from
         this many case resamples (seeded), computed in batches.
     seed : int
-        Seed of the case resampling.
+        Seed of the case resampling and, above :data:`THEIL_SEN_EXACT_MAX` rows, of the
+        pair sample.
 
     Returns
     -------
     EstimatorResult
         ``coefficients`` = [a, b]; ``residual_std_error`` = 1.4826 median|e_i| (a
         normal-consistent robust sigma [units of y]); ``details['slope_interval']`` the
-        (low, high) slope limits, ``details['intercepts']`` both intercept conventions.
+        (low, high) slope limits, ``details['intercepts']`` both intercept conventions,
+        ``details['slope_method']`` ``exact`` or ``sampled-pairs`` (then also
+        ``details['n_pairs']``, and with ``n_boot`` ``details['boot_rows']``).
 
     Notes
     -----
     b = median over pairs with x_i != x_j of (y_j - y_i)/(x_j - x_i) [4]_ [5]_, via
     ``scipy.stats.theilslopes``. Breakdown point about 29%.
+
+    Large tables (n > :data:`THEIL_SEN_EXACT_MAX`): the n(n-1)/2 slopes no longer fit in
+    memory, so b is the median of :data:`THEIL_SEN_SAMPLED_PAIRS` pairwise slopes drawn
+    uniformly at random (seeded), a standard approximation of the Theil-Sen slope [6]_
+    (its extra sampling error is of order 1/sqrt(pairs), well below the estimator's own
+    error of order 1/sqrt(n) at these sizes). The slope interval takes Sen's ranks
+    (eq. 2.6 of [5]_) as fractions of the sampled slopes. The bootstrap draws resamples
+    of :data:`THEIL_SEN_BOOT_ROWS` rows (m-out-of-n, [7]_), fits each exactly and scales
+    the covariance by m/n (the estimator's variance falls as 1/n).
     """
     if intercept not in ("joint", "separate"):
         raise UsageError(f"fit_theil_sen: intercept must be 'joint' or 'separate'; "
                          f"got {intercept!r}.")
     if not 0 < level < 1:
         raise UsageError(f"fit_theil_sen: level must lie between 0 and 1; got {level!r}.")
-    from scipy import stats
-
     x, y = _line_xy(x, y, "fit_theil_sen")
-    res = stats.theilslopes(y, x, level, method=intercept)
-    b, a = float(res.slope), float(res.intercept)
+    n = len(x)
+    if n > THEIL_SEN_EXACT_MAX:
+        b, interval = _sampled_slope(x, y, level, seed)
+        details = {"slope_method": "sampled-pairs", "n_pairs": THEIL_SEN_SAMPLED_PAIRS}
+    else:
+        from scipy import stats
+
+        res = stats.theilslopes(y, x, level, method=intercept)
+        b, interval = float(res.slope), (float(res.low_slope), float(res.high_slope))
+        details = {"slope_method": "exact"}
     intercepts = {"joint": float(np.median(y - b * x)),
                   "separate": float(np.median(y) - b * np.median(x))}
+    a = intercepts[intercept]
     e = y - (a + b * x)
     covariance = np.full((2, 2), np.nan)
     if n_boot:
-        covariance = np.cov(_theil_sen_bootstrap(x, y, int(n_boot), seed, intercept),
-                            rowvar=False)
+        rows = THEIL_SEN_BOOT_ROWS if n > THEIL_SEN_EXACT_MAX else None
+        draws = _theil_sen_bootstrap(x, y, int(n_boot), seed, intercept, rows)
+        covariance = np.cov(draws, rowvar=False) * ((rows or n) / n)
+        if rows:
+            details["boot_rows"] = rows
     return EstimatorResult(
         coefficients=np.array([a, b]), covariance=covariance,
         residual_std_error=float(_MAD_TO_SIGMA * np.median(np.abs(e))),
-        df_resid=float(len(x) - 2), fitted=a + b * x, residuals=e, weights=None,
+        df_resid=float(n - 2), fitted=a + b * x, residuals=e, weights=None,
         details={"method": "theil-sen", "intercept": intercept, "intercepts": intercepts,
-                 "slope_interval": (float(res.low_slope), float(res.high_slope)),
-                 "level": level, "n_boot": int(n_boot), "seed": seed})
+                 "slope_interval": interval, "level": level, "n_boot": int(n_boot),
+                 "seed": seed, **details})
 
 
-def _theil_sen_bootstrap(x, y, n_boot, seed, intercept):
-    """(n_boot, 2) intercepts and slopes of case resamples (pairs with equal x skipped)."""
+def _sampled_slope(x, y, level, seed):
+    """Median of a seeded random sample of pairwise slopes and Sen's interval on it."""
+    from scipy import stats
+
+    n = len(x)
+    rng = np.random.default_rng(seed)
+    i = rng.integers(0, n, THEIL_SEN_SAMPLED_PAIRS)
+    j = rng.integers(0, n - 1, THEIL_SEN_SAMPLED_PAIRS)
+    j += j >= i                                   # a uniform pair with i != j
+    dx = x[j] - x[i]
+    keep = dx != 0
+    slopes = np.sort((y[j] - y[i])[keep] / dx[keep])
+    z = float(stats.norm.ppf((1.0 - max(level, 1.0 - level)) / 2.0))
+    ties = sum(float(k * (k - 1) * (2 * k + 5))
+               for v in (x, y) for k in np.unique(v, return_counts=True)[1] if k > 1)
+    sigma = np.sqrt((n * (n - 1.0) * (2 * n + 5) - ties) / 18.0)
+    n_all = n * (n - 1) / 2.0 * keep.mean()       # estimated count of slopes with dx != 0
+    frac = np.clip([(n_all + z * sigma) / (2 * n_all), (n_all - z * sigma) / (2 * n_all)],
+                   0.0, 1.0)
+    low, high = np.quantile(slopes, frac)
+    return float(np.median(slopes)), (float(low), float(high))
+
+
+def _theil_sen_bootstrap(x, y, n_boot, seed, intercept, rows=None):
+    """(n_boot, 2) intercepts and slopes of case resamples of ``rows`` rows (default n;
+    pairs with equal x skipped)."""
     if n_boot < 100:
         raise UsageError(f"fit_theil_sen: n_boot must be 0 or at least 100; got {n_boot}.")
     n = len(x)
+    m = rows or n
     rng = np.random.default_rng(seed)
-    i, j = np.triu_indices(n, 1)
+    i, j = np.triu_indices(m, 1)
     out = []
     for _, size in _chunks(n_boot, len(i)):
-        idx = rng.integers(0, n, size=(size, n))
+        idx = rng.integers(0, n, size=(size, m))
         xb, yb = x[idx], y[idx]
         dx = xb[:, j] - xb[:, i]
         with np.errstate(divide="ignore", invalid="ignore"):
