@@ -172,6 +172,7 @@ def ensure_table(data_dir: Path, n: int, *, seed: int, schemas_dir: Path) -> Pat
 
 if __name__ == "__main__":
     rows, out = int(float(sys.argv[1])), Path(sys.argv[2])
-    frame = generate_frame(rows, vocab=vocabularies(Path(__file__).resolve().parents[1] / "schemas"))
+    schemas = Path(__file__).resolve().parents[1] / "schemas"
+    frame = generate_frame(rows, vocab=vocabularies(schemas))
     frame.to_csv(out, index=False)
     print(f"wrote {rows} rows to {out}")

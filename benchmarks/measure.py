@@ -81,7 +81,7 @@ def run_once(argv: list[str], *, cwd=None, env=None, timeout: float = 1800.0,
 
 
 def run_repeated(argv: list[str], repeats: int, *, warmup: int = 0, **kwargs) -> Summary:
-    """Median wall time and maximum peak RSS of ``repeats`` runs after ``warmup`` unmeasured ones."""
+    """Median wall time and largest peak RSS of ``repeats`` runs after ``warmup`` unmeasured."""
     for _ in range(warmup):
         run_once(argv, **kwargs)
     runs = [run_once(argv, **kwargs) for _ in range(max(1, repeats))]

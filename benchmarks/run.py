@@ -113,7 +113,9 @@ def targets_table(targets: list[Target]) -> str:
     def val(t, v):
         if v is None:
             return "–"
-        return fmt_mb(v) + " MB" if t.unit == "MB" else f"{v:.2f}" + (" s" if t.unit == "s" else "×")
+        if t.unit == "MB":
+            return fmt_mb(v) + " MB"
+        return f"{v:.2f}" + (" s" if t.unit == "s" else "×")
     lines = [[t.name, val(t, t.measured), ("< " if t.kind == "below" else "≤ ") + val(t, t.limit),
               t.status + (f" ({t.note})" if t.note else "")] for t in targets]
     return markdown_table(header, lines)
@@ -200,6 +202,7 @@ def main(argv: list[str] | None = None) -> int:
                   python=python, refit=refit, repeats=args.repeats,
                   log=lambda msg: print(msg, file=sys.stderr, flush=True))
     chosen = args.cases.split(",")
+    info = machine()  # before the cases run, so the load average is the background load
     rows, targets, start = [], [], time.perf_counter()
     for name, title, fn in CASES:
         if name not in chosen:
@@ -208,10 +211,10 @@ def main(argv: list[str] | None = None) -> int:
         got = fn(ctx)
         rows += got.rows
         targets += got.targets
-    info = machine()  # before the cases run, so the load average is the background load
     result = {
         "date": dt.datetime.now().astimezone().isoformat(timespec="seconds"),
-        "machine": {**info, "load_average_1min_at_end": _load()}, "versions": versions(), "sizes": args.sizes,
+        "machine": {**info, "load_average_1min_at_end": _load()},
+        "versions": versions(), "sizes": args.sizes,
         "quick": args.quick, "seed": args.seed, "cases": chosen,
         "total_s": time.perf_counter() - start,
         "rows": [r.to_dict() for r in rows], "targets": [t.to_dict() for t in targets],
