@@ -55,13 +55,14 @@ def report(run, out, candidate, store, overwrite, quiet) -> None:
     err = stderr_console(quiet=quiet or not sys.stderr.isatty())
     with err.status("reading the run") as status:
         written = write_report(run, target, candidate=candidate, store=store,
-                               command=_command(run, target, candidate, store),
+                               command=_command(run, target, candidate, store, overwrite),
                                progress=lambda text: status.update(text))
     click.echo(f"Report written to {written}")
 
 
-def _command(run, target, candidate, store) -> list[str]:
+def _command(run, target, candidate, store, overwrite) -> list[str]:
     """The command that rewrites this report (shown in it)."""
     cmd = ["refit", "report", str(run), "--out", str(target)]
+    cmd += ["--overwrite"] if overwrite else []
     cmd += ["--candidate", candidate] if candidate else []
     return cmd + (["--store", str(store)] if store else [])

@@ -181,6 +181,15 @@ def _oof_flags(oof) -> list[str]:
             for f, c in counts.items() if f]
 
 
+def recipe_path(run: dict) -> str:
+    """The recipe as the fit command named it (run.json keeps only its file name)."""
+    cmd = run.get("command") or []
+    recorded = str((run.get("recipe") or {}).get("path") or "")
+    if len(cmd) > 2 and cmd[1] == "fit" and Path(cmd[2]).name == Path(recorded).name:
+        return cmd[2]
+    return shown_path(recorded)
+
+
 def why_chosen(inp) -> str:
     """Why this candidate is reported: the run's verdict, or that it was asked for."""
     verdict = inp.board_json.get("verdict") or {}
@@ -206,7 +215,7 @@ def build(inp, figures: list[dict], facts: dict, *, report_command: list[str] | 
                     "path": shown_path(ds.get("path"))},
         "subset": {"before": sub.get("rows_before"), "after": sub.get("rows_after"),
                    "steps": sub.get("steps") or []},
-        "recipe": {"path": shown_path((inp.run.get("recipe") or {}).get("path")),
+        "recipe": {"path": recipe_path(inp.run),
                    "sha256": (inp.run.get("recipe") or {}).get("sha256"),
                    "text": (inp.run.get("recipe") or {}).get("text")},
         "verdict": inp.board_json.get("verdict") or {},
