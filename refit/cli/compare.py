@@ -67,18 +67,23 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
 
 
 def _print(table, console) -> None:
-    from rich.table import Table
+    """Per paleosol, one line per fit: estimate, interval, and what is beside it."""
+    from rich.text import Text
 
     from refit.cli.apply import _num
     from refit.compare import coverage_text
 
     for pid, grp in table.groupby("paleosol_id", sort=False):
-        t = Table(title=str(pid), title_justify="left", title_style="bold")
-        for col in ("fit", "estimate", "interval", "width", "beside it", "flags / problem"):
-            t.add_column(col)
+        console.print(Text(str(pid), style="bold"))
         for r in grp.itertuples(index=False):
-            t.add_row(r.fit, _num(r.estimate), f"[{_num(r.lower)}, {_num(r.upper)}]",
-                      _num(r.width), coverage_text(r.cv_coverage, r.cv_scheme, r.level,
-                                                   r.status),
-                      r.problem or str(r.flags))
-        console.print(t)
+            line = Text(f"  {r.fit}: ")
+            if r.problem:
+                line.append(f"not evaluated ({r.problem})", style="red")
+            else:
+                line.append(f"{_num(r.estimate)} [{_num(r.lower)}, {_num(r.upper)}] "
+                            f"{r.unit}; " + coverage_text(r.cv_coverage, r.cv_scheme,
+                                                          r.level, r.status))
+                if r.flags:
+                    line.append(f"; flags: {str(r.flags).replace(';', ', ')}",
+                                style="yellow")
+            console.print(line)
