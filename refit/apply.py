@@ -195,7 +195,8 @@ def combine_proxies(results: pd.DataFrame, level: float) -> pd.DataFrame:
         s = 1.0 / math.sqrt(w.sum())
         zq = float(special.ndtri(0.5 + level / 2))
         first = grp.iloc[0]
-        rows.append({**{c: "" for c in results.columns}, "paleosol_id": pid,
+        rows.append({**{c: None for c in results.columns}, "version": "",
+                     "status": "combined", "candidate": "", "paleosol_id": pid,
                      "row": first["row"], "function_id": "combined", "response": resp,
                      "unit": first["unit"], "coefficient_file": " + ".join(grp["coefficient_file"]),
                      "predictors_used": " + ".join(grp["predictors_used"]),
@@ -203,7 +204,7 @@ def combine_proxies(results: pd.DataFrame, level: float) -> pd.DataFrame:
                      "level": level, "interval": "inverse-variance combination (normal)",
                      "flags": FLAG_CORRELATED, "flag_details": "the proxies' errors may be "
                      "correlated (same soil, same calibration data); the combined interval "
-                     "is then too narrow", "problem": ""})
+                     "is then too narrow", "problem": "", "propagation": "none"})
     return pd.DataFrame(rows, columns=results.columns)
 
 

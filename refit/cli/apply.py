@@ -98,7 +98,7 @@ def _write(result, out: str) -> None:
 def _num(x) -> str:
     import math
 
-    if x is None or (isinstance(x, float) and math.isnan(x)):
+    if not isinstance(x, (int, float)) or math.isnan(x):
         return "-"
     return f"{x:.4g}" if abs(x) != float("inf") else ("-inf" if x < 0 else "inf")
 
@@ -116,8 +116,8 @@ def print_results(results, console) -> None:
         fit = f"{r.function_id} {r.version} {r.candidate or r.status}".strip()
         level = "+-1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
             else _num(r.level)
-        cov = "-" if r.cv_coverage is None or r.cv_coverage != r.cv_coverage \
-            else f"{r.cv_coverage:.0%}"
+        cov = f"{r.cv_coverage:.0%}" if isinstance(r.cv_coverage, (int, float)) and \
+            r.cv_coverage == r.cv_coverage else "-"
         mc = "yes" if str(r.propagation).startswith("monte-carlo") else ""
         note = Text(r.problem, style="red") if r.problem else Text(str(r.flags))
         table.add_row(str(r.paleosol_id), fit, _num(r.estimate),
