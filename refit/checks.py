@@ -64,6 +64,7 @@ class CheckReport:
     path: str | None = None
     notes: list[str] = field(default_factory=list)
     source_rows: np.ndarray | None = field(default=None, repr=False)
+    kind: str = "calibration"
 
     @property
     def errors(self) -> pd.DataFrame:
@@ -106,7 +107,7 @@ class CheckReport:
         probs = self.problems.astype(object).where(self.problems.notna(), None)
         return {
             "path": self.path,
-            "kind": "calibration",
+            "kind": self.kind,
             "n_rows": int(self.n_rows),
             "ok": bool(self.ok),
             "n_errors": int(len(self.errors)),

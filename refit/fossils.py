@@ -114,7 +114,7 @@ def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=No
                         "rows; check that the export holds the data.")
     return checks.CheckReport(problems=probs.build(), frame=work.set_axis(frame.index),
                               n_rows=n, path=None if path is None else str(path),
-                              notes=list(notes or []), source_rows=rows)
+                              notes=list(notes or []), source_rows=rows, kind="fossil")
 
 
 def _fossil_rules(work: pd.DataFrame, probs, desc: dict, constants: dict) -> None:

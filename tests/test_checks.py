@@ -317,9 +317,9 @@ def test_numeric_profile_ids_become_text():
     assert cells(report, "unique-id") == [(2, "profile_id", "101"), (5, "profile_id", "101")]
 
 
-def test_fossil_kind_is_a_usage_error():
-    with pytest.raises(UsageError, match="apply issue"):
-        check_frame(base(), kind="fossil")
+def test_unknown_kind_is_a_usage_error():
+    with pytest.raises(UsageError, match="sediment"):
+        check_frame(base(), kind="sediment")
 
 
 # --- sequences (thresholds are common practice, see refit/sequences.py) -------------------

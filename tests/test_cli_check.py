@@ -81,7 +81,7 @@ def test_vocab_extension_file():
 @pytest.mark.parametrize("args,needle", [
     (["missing.csv"], "missing.csv"),
     ([DATA / "check_empty.csv"], "empty"),
-    ([DATA / "check_valid.csv", "--kind", "fossil"], "apply issue"),
+    ([DATA / "check_valid.csv", "--kind", "sediment"], "sediment"),
     ([DATA / "check_valid.csv", "--vocab", "nope.json"], "nope.json"),
     ([DATA / "check_valid.csv", "--format", "xml"], "xml"),
 ])

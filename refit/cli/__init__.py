@@ -11,7 +11,9 @@ import click
 
 from refit import __version__
 from refit.cli.admit import admit
+from refit.cli.apply import apply
 from refit.cli.check import check
+from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
 from refit.cli.fit import fit
@@ -43,4 +45,6 @@ main.add_command(fit)
 main.add_command(publish)
 main.add_command(verify)
 main.add_command(diff)
+main.add_command(apply)
+main.add_command(compare)
 main.add_command(demo)
