@@ -41,3 +41,11 @@ def test_package_dirs_point_at_the_top_level_folders():
     assert config["tool"]["setuptools"]["package-dir"] == {
         "refit.schemas": "schemas", "refit.calib_demo": "calib_demo"}
     assert config["project"]["scripts"]["refit"] == "refit.cli:main"
+
+
+def test_published_equations_and_report_template_are_shipped():
+    files, missing = _shipped("refit.published", "refit/published")
+    assert any(f.endswith(".json") for f in files) and missing == []
+    files, missing = _shipped("refit.report", "refit/report")
+    templates = [f for f in files if f.startswith("templates/")]
+    assert templates and not [f for f in missing if f.startswith("templates/")]
