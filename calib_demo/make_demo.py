@@ -471,7 +471,23 @@ def make_fossils(seed: int = SEED) -> pd.DataFrame:
     fossils = _fossil_oxides(fossils, rng)
     fossils["notes"] = np.where(fossils["soil_order"] == "Vertisols",
                                 "slickensides; check Vertisol caveats", "")
-    return fossils
+    fossils = pd.concat([fossils, _edge_fossils()], ignore_index=True)
+    return as_whole_numbers(fossils, ["bk_depth_cm", "bk_depth_sd_cm", "bk_thickness_cm",
+                                      "bk_thickness_sd_cm", "by_depth_cm"])
+
+
+def _edge_fossils() -> pd.DataFrame:
+    """Two paleosols placed where equations stop holding, so `apply` shows its flags."""
+    return pd.DataFrame({
+        "paleosol_id": ["CG-P07", "CG-P08"], "section": "Coldstave Gorge",
+        "level_m": [191.5, 204.0], "bk_depth_cm": [3.0, 280.0],
+        "bk_depth_sd_cm": [1.0, 15.0], "bk_thickness_cm": [12.0, 95.0],
+        "bk_thickness_sd_cm": [3.0, 12.0], "burial_depth_km": [1.05, 1.02],
+        "soil_order": ["Aridisols", "Mollisols"], "vegetation": ["shrubland", "grassland"],
+        "parent_material": ["loess", "loess"],
+        "notes": ["demo: Bk shallower than any modern soil (outside the calibration range)",
+                  "demo: Bk deeper than the turning point of quadratic depth equations"],
+    })
 
 
 def _fossil_oxides(fossils: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:

@@ -26,12 +26,17 @@ def test_apply_demo_writes_csv_and_prints_cautions(tmp_path):
     assert res.exit_code == 0, res.output
     assert "not a basis for engineering" in res.output
     got = pd.read_csv(out, keep_default_na=False, na_values=[""])
-    assert len(got) == 24
+    assert len(got) == 28  # 14 demo paleosols x 2 equations
     bk = got[got["function_id"] == "map_from_bk_depth"]
     assert bk["propagation"].str.startswith("monte-carlo").all()  # demo has Bk depth SDs
     assert (bk["lower"] < bk["lower_without_propagation"]).all()
     noox = got[(got["function_id"] == "map_from_cia_k") & got["estimate"].isna()]
-    assert (noox["problem"] == "no value for cia_k in this row").all() and len(noox) == 6
+    assert (noox["problem"] == "no value for cia_k in this row").all() and len(noox) == 8
+    # the demo's deep paleosol: 280 cm lies beyond the Retallack (1994) quadratic's vertex
+    # at D = 6.388 / (2 x 0.01303) = 245.1 cm (derived from its coefficients)
+    flags = dict(zip(bk["paleosol_id"], bk["flags"]))
+    assert "beyond-turning-point" in flags["CG-P08"]
+    assert "beyond-turning-point" not in flags["CG-P07"]
 
 
 def test_apply_at_worked_value_and_refuses_overwrite(tmp_path):
