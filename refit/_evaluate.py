@@ -10,8 +10,8 @@ the README section "Evaluating a coefficient file"):
 - the stored conformal quantities: split-conformal calibration scores, the leave-one-out
   coefficient vectors of jackknife+, the fold coefficient vectors of CV+ (all exact), and
   the bootstrap summary (an approximation, said so in the file);
-- the classical-calibration inversion of forward fits, through the pure functions of
-  :mod:`refit.calibrate` (imported on first use).
+- the classical-calibration inversion of forward fits, through
+  :func:`refit._forward.forward_predict` (imported on first use), shared with ``Fit.predict``.
 
 Nothing imports pandas, scipy, statsmodels or scikit-learn at module level; the Student t
 quantile for a level other than the file's own comes from scipy, imported only then.
@@ -278,66 +278,34 @@ def _branch_points(inv: dict) -> np.ndarray | None:
 
 
 def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
-    """Forward direction: invert ``feature = f(climate)`` as a classical calibration."""
-    from . import calibrate as cal
+    """Forward direction: invert ``feature = f(climate)`` as a classical calibration,
+    through :func:`refit._forward.forward_predict` (the core ``Fit.predict`` uses too).
+
+    The file does not record the climate variable's physical bounds, so the search window
+    is the calibration range widened by :data:`refit.domain.SEARCH_MARGIN` alone."""
+    from ._forward import forward_predict
 
     iv = rec["interval"]
     method = iv["method"]
     if method not in ("analytic", "none"):
         raise UsageError(f"interval {method!r} does not apply to a forward fit")
     eq = rec["equation"]
-    y0 = v[:, 0].copy()
-    missing = np.isnan(y0)
-    invalid = np.zeros_like(missing)
-    if eq["scale"] == "log":
-        invalid = ~missing & ~(y0 > 0)
-        y0[invalid] = np.nan
-        y0 = np.log(y0)
-    deg, origin = int(rec["degree"]), "intercept" not in rec["terms"]
-    b = np.asarray(rec["coefficients"], float)
-    poly = np.concatenate([[0.0] if origin else [], b])
     cov = _matrix(rec.get("covariance"), "coefficient covariance")
     if method != "analytic":
         cov = np.zeros_like(cov)
     if not np.all(np.isfinite(cov)):
         raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
                          "covariance, so the calibration interval cannot be formed")
-    if origin:
-        cov = np.pad(cov, ((1, 0), (1, 0)))
     s = float(rec["residual_std_error"])
-    s2new = s * s / w0 if method == "analytic" else 0.0
-    t = t_quantile(level, float(rec["df_resid"]), iv)
     inv = iv.get("inversion") or {}
-    x_name = eq["x"][0]
-    dom = tuple(inv.get("x_range") or rec["domain"]["ranges"][x_name])
-    if deg == 1:
-        est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, s2new, t)
-        if method == "none":
-            lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
-        masks = {cal.FLAG_OUTSIDE: cal.range_flags(est, dom),
-                 cal.FLAG_UNBOUNDED: np.isfinite(est) & bool(unb),
-                 FLAG_MISSING: missing, FLAG_INVALID: invalid}
-        return est, lo, hi, flag_strings(masks, list(masks), len(est))
-
-    def design(x):
-        return np.vander(x, deg + 1, increasing=True)
-
-    est, lo, hi, flags = cal.invert_polynomial(y0, poly, design, cov, s2new, t, dom,
-                                               _branch_points(inv))
-    if method == "none":
-        lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
-    outside = cal.range_flags(est, dom)
-    text = []
-    for i, f in enumerate(flags):
-        f = list(f)
-        if outside[i] and cal.FLAG_OUTSIDE not in f:
-            f.insert(0, cal.FLAG_OUTSIDE)
-        if missing[i]:
-            f.append(FLAG_MISSING)
-        if invalid[i]:
-            f.append(FLAG_INVALID)
-        text.append(";".join(f))
-    return est, lo, hi, np.asarray(text, dtype=object)
+    return forward_predict(
+        v[:, 0], coefficients=np.asarray(rec["coefficients"], float), covariance=cov,
+        sigma2_new=s * s / w0 if method == "analytic" else 0.0,
+        t=t_quantile(level, float(rec["df_resid"]), iv),
+        domain=tuple(inv.get("x_range") or rec["domain"]["ranges"][eq["x"][0]]),
+        degree=int(rec["degree"]), through_origin="intercept" not in rec["terms"],
+        log_response=eq["scale"] == "log", x_cal=_branch_points(inv),
+        with_interval=method != "none")
 
 
 def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:

@@ -28,31 +28,20 @@ APPROX_BOOTSTRAP = (
     "width, not to rounding")
 
 
-def _cal():
-    from . import calibrate
-
-    return calibrate
-
-
 def _branches(fit) -> dict:
     """Calibration range and points per monotonic branch of a forward polynomial."""
-    from numpy.polynomial import polynomial as P
+    from .calibrate import branch_layout
 
-    cal = _cal()
     lo, hi = fit.ranges[fit.x_names[0]]
     out = {"x_range": [lo, hi]}
     if fit.form.degree < 2:
         return out
     poly = np.concatenate([[0.0] if fit.form.through_origin else [],
                            fit.result.coefficients])
-    c, h = 0.5 * (lo + hi), 0.5 * (hi - lo)
-    pu = np.trim_zeros(cal._rescale(poly, c, h), "b")
-    turning = cal._real_roots(P.polyder(pu))
-    edges = np.concatenate([[-np.inf], turning, [np.inf]])
-    counts = np.histogram((fit.x[:, 0] - c) / h, bins=edges)[0]
-    xs = [None if not np.isfinite(e) else float(c + h * e) for e in edges]
-    out["branches"] = [{"from": xs[i], "to": xs[i + 1], "n_calibration": int(counts[i])}
-                       for i in range(len(counts))]
+    br = branch_layout(poly, (lo, hi), fit.x[:, 0])
+    xs = [None if not np.isfinite(e) else float(br.c + br.h * e) for e in br.edges]
+    out["branches"] = [{"from": xs[i], "to": xs[i + 1], "n_calibration": int(br.counts[i])}
+                       for i in range(len(br.counts))]
     return out
 
 

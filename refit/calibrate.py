@@ -38,6 +38,8 @@ Flags (a tuple of short strings per value):
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 from numpy.polynomial import polynomial as P
 
@@ -50,7 +52,8 @@ FLAG_BEYOND_TP = "beyond-turning-point"
 FLAG_OPEN_BELOW = "open-below"
 FLAG_OPEN_ABOVE = "open-above"
 FLAG_BEYOND_WINDOW = "beyond-search-window"
-_INTERVAL_FLAGS = (FLAG_UNBOUNDED, "open-below", "open-above")
+#: flags that describe the interval (dropped when no interval is asked for)
+INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
 
 #: grid nodes over the search window on which the band's sign changes are located
 GRID_POINTS = 257
@@ -238,6 +241,129 @@ def _crossings(band, grid, pos, start, lo, hi):
     return lower, upper, open_lo, open_hi
 
 
+@dataclass
+class Branches:
+    """The curve in scaled units ``u = (x - c) / h`` (calibration range -> [-1, 1]) and its
+    monotonic branches.
+
+    Attributes
+    ----------
+    c, h : float
+        Centre and half-width of the calibration range [units of x].
+    pu : ndarray
+        Polynomial coefficients in increasing powers of ``u`` (trailing zeros trimmed).
+    degree : int
+        Degree of the curve in x.
+    turning : ndarray
+        Sorted real turning points [u] (none for a line).
+    edges : ndarray
+        Branch edges: ``-inf``, the turning points, ``+inf`` [u].
+    counts : ndarray
+        Calibration points on each branch (zeros without ``x_cal``).
+    main : int or None
+        The branch holding most calibration points (None without ``x_cal`` or turning
+        points).
+    """
+
+    c: float
+    h: float
+    pu: np.ndarray
+    degree: int
+    turning: np.ndarray
+    edges: np.ndarray
+    counts: np.ndarray
+    main: int | None
+
+
+def branch_layout(poly, domain, x_cal=None) -> Branches:
+    """Scale the curve to the calibration range and split it at its turning points."""
+    lo_d, hi_d = map(float, domain)
+    c, h = 0.5 * (lo_d + hi_d), 0.5 * (hi_d - lo_d)
+    poly = np.asarray(poly, float)
+    k = len(np.trim_zeros(poly, "b")) - 1
+    pu = np.trim_zeros(_rescale(poly, c, h), "b")
+    turning = _real_roots(P.polyder(pu)) if k >= 2 else np.zeros(0)
+    edges = np.concatenate([[-np.inf], turning, [np.inf]])
+    counts = (np.histogram((np.asarray(x_cal, float) - c) / h, bins=edges)[0]
+              if x_cal is not None else np.zeros(len(edges) - 1))
+    main = int(np.argmax(counts)) if x_cal is not None and len(turning) else None
+    return Branches(c, h, pu, k, turning, edges, counts, main)
+
+
+def _starting_points(br: Branches, y0, ok, window_u):
+    """Point estimate per row [u] and the branch interval it is searched on.
+
+    Returns a dict: ``est`` (the chosen root, NaN if none), ``two``/``outside``/``beyond``
+    (masks from :func:`_choose`), ``no_root`` (rows whose value lies beyond the curve's
+    extreme: started at the nearest turning point), ``start`` (clipped into its search
+    interval), ``lo``/``hi`` (the search interval: the branch cut by the window) and
+    ``off_window`` (the start lay outside it)."""
+    m = len(y0)
+    roots = (_all_roots(br.pu, np.where(ok, y0, np.nan)) if br.degree >= 1
+             else np.full((m, 1), np.nan))
+    est, two, outside, beyond = _choose(roots, br.turning, br.main)
+    branch = np.searchsorted(br.turning, np.nan_to_num(est))
+    no_root = ok & np.isnan(est)
+    tp_start, tp_branch = _extremum_start(br.pu, y0[no_root], br.turning, br.counts)
+    start = est.copy()
+    start[no_root], branch[no_root] = tp_start, tp_branch
+    lo = np.maximum(br.edges[branch], window_u[0])
+    hi = np.minimum(br.edges[branch + 1], window_u[1])
+    with np.errstate(invalid="ignore"):
+        off_window = np.isfinite(start) & ((start < lo) | (start > hi))
+    return {"est": est, "two": two, "outside": outside, "beyond": beyond,
+            "no_root": no_root, "start": np.clip(start, lo, hi), "lo": lo, "hi": hi,
+            "off_window": off_window}
+
+
+def _band_function(br: Branches, y0, poly, design, cov, s2, t):
+    """``band(u, rows)``: the sign of ``(y0 - f(x))^2 - t^2 (s2 + g(x)' V g(x))`` scaled
+    to [-1, 1] (<= 0: inside the prediction band)."""
+    def band(u, rows):
+        x = br.c + br.h * u
+        g = design(x)
+        q = np.einsum("ij,jk,ik->i", g, cov, g)
+        r2, v2 = (y0[rows] - P.polyval(x, poly)) ** 2, t * t * (s2[rows] + q)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return (r2 - v2) / (r2 + v2)
+
+    return band
+
+
+def _grid_outside_band(br: Branches, idx, y0, poly, design, cov, s2, t, window_u):
+    """The shared grid [u] over the window (plus the turning points inside it) and, for
+    rows ``idx``, where ``y0`` lies outside the band there (G, len(idx))."""
+    w_lo, w_hi = window_u
+    turning = br.turning
+    grid = np.unique(np.concatenate([np.linspace(w_lo, w_hi, GRID_POINTS),
+                                     turning[(turning > w_lo) & (turning < w_hi)]]))
+    xg = br.c + br.h * grid
+    gg = design(xg)
+    qg = np.einsum("ij,jk,ik->i", gg, cov, gg)
+    fg = P.polyval(xg, poly)
+    if np.ptp(s2[idx]) == 0 if len(idx) else True:  # one new-observation variance: cheaper
+        r = t * np.sqrt((s2[idx[0]] if len(idx) else 0.0) + qg)
+        pos = np.abs(y0[None, idx] - fg[:, None]) > r[:, None]
+    else:
+        pos = (y0[None, idx] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
+    return grid, pos
+
+
+def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:
+    """Final estimate [u] and per-row flag tuples of :func:`invert_polynomial`."""
+    no_root, off = sp["no_root"], sp["off_window"]
+    est = np.where(no_root & closes & ~off, sp["start"], sp["est"])
+    est = np.where(off & ~no_root, np.nan, est)
+    masks = {FLAG_OUTSIDE: sp["outside"] | (off & ~no_root),
+             FLAG_TWO_ROOTS: sp["two"] & ok,
+             FLAG_BEYOND_TP: sp["beyond"] | no_root,
+             FLAG_BEYOND_WINDOW: off & ~no_root,
+             FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi}
+    order = [FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
+             FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE]
+    return est, _flag_tuples(masks, order, len(est))
+
+
 def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new: float,
                       t: float, domain: tuple[float, float], x_cal: np.ndarray | None = None,
                       *, window: tuple[float, float] | None = None):
@@ -273,81 +399,38 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
 
     Notes
     -----
-    All rows at once: the roots in closed form (degree <= 2), the band
-    ``(y0 - f(x))^2 - t^2 (sigma2_new + g(x)' V g(x))`` evaluated on one grid of
-    :data:`GRID_POINTS` nodes over the window (plus the turning points) for every row, the
-    nearest sign change on each side of the estimate located there, then refined by a
-    vectorised bisection to machine precision. A band excursion narrower than the grid
-    spacing (window width / 256) can be missed.
+    All rows at once, in four steps: scale the curve and find its branches
+    (:func:`branch_layout`); choose each row's root and its search interval
+    (:func:`_starting_points`); evaluate the band
+    ``(y0 - f(x))^2 - t^2 (sigma2_new + g(x)' V g(x))`` on one grid of :data:`GRID_POINTS`
+    nodes over the window (plus the turning points) for every row
+    (:func:`_grid_outside_band`); take the nearest sign change on each side of the
+    estimate and refine it by a vectorised false position to machine precision
+    (:func:`_crossings`). A band excursion narrower than the grid spacing (window width /
+    256) can be missed.
     """
-    lo_d, hi_d = map(float, domain)
-    c, h = 0.5 * (lo_d + hi_d), 0.5 * (hi_d - lo_d)
     poly = np.asarray(poly, float)
-    k = len(np.trim_zeros(poly, "b")) - 1
-    pu = np.trim_zeros(_rescale(poly, c, h), "b")
+    br = branch_layout(poly, domain, x_cal)
     y0 = np.atleast_1d(np.asarray(y0, dtype=float))
     m = len(y0)
     s2 = np.broadcast_to(np.asarray(sigma2_new, dtype=float), y0.shape)
-    w_lo, w_hi = [(v - c) / h for v in (window or search_window(domain))]
-    turning = _real_roots(P.polyder(pu)) if k >= 2 else np.zeros(0)
-    edges = np.concatenate([[-np.inf], turning, [np.inf]])
-    counts = (np.histogram((np.asarray(x_cal, float) - c) / h, bins=edges)[0]
-              if x_cal is not None else np.zeros(len(edges) - 1))
-    main = int(np.argmax(counts)) if x_cal is not None and len(turning) else None
+    window_u = [(v - br.c) / br.h for v in (window or search_window(domain))]
     ok = np.isfinite(y0)
-    roots = _all_roots(pu, np.where(ok, y0, np.nan)) if k >= 1 else np.full((m, 1), np.nan)
-    est, two, outside, beyond = _choose(roots, turning, main)
-    branch = np.searchsorted(turning, np.nan_to_num(est))
-    no_root = ok & np.isnan(est)
-    tp_start, tp_branch = _extremum_start(pu, y0[no_root], turning, counts)
-    start = est.copy()
-    start[no_root], branch[no_root] = tp_start, tp_branch
-    lo = np.maximum(edges[branch], w_lo)
-    hi = np.minimum(edges[branch + 1], w_hi)
-    with np.errstate(invalid="ignore"):
-        off_window = np.isfinite(start) & ((start < lo) | (start > hi))
-    start = np.clip(start, lo, hi)
-
-    def band(u, rows):
-        x = c + h * u
-        g = design(x)
-        q = np.einsum("ij,jk,ik->i", g, cov, g)
-        r2, v2 = (y0[rows] - P.polyval(x, poly)) ** 2, t * t * (s2[rows] + q)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return (r2 - v2) / (r2 + v2)  # the band's sign, scaled to [-1, 1]
-
-    usable = ok & np.isfinite(start)
-    idx = np.flatnonzero(usable)
+    sp = _starting_points(br, y0, ok, window_u)
+    band = _band_function(br, y0, poly, design, cov, s2, t)
+    start = sp["start"]
+    idx = np.flatnonzero(ok & np.isfinite(start))
     closes = np.zeros(m, dtype=bool)
     closes[idx] = band(start[idx], idx) <= 0
     idx = np.flatnonzero(closes)
-    grid = np.unique(np.concatenate([np.linspace(w_lo, w_hi, GRID_POINTS),
-                                     turning[(turning > w_lo) & (turning < w_hi)]]))
-    xg = c + h * grid
-    gg = design(xg)
-    qg = np.einsum("ij,jk,ik->i", gg, cov, gg)
-    fg = P.polyval(xg, poly)
-    if np.ptp(s2[idx]) == 0 if len(idx) else True:  # one new-observation variance: cheaper
-        r = t * np.sqrt((s2[idx[0]] if len(idx) else 0.0) + qg)
-        pos = np.abs(y0[None, idx] - fg[:, None]) > r[:, None]
-    else:
-        pos = (y0[None, idx] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
+    grid, pos = _grid_outside_band(br, idx, y0, poly, design, cov, s2, t, window_u)
     lower, upper = np.full(m, np.nan), np.full(m, np.nan)
     open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
     lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
-        lambda u, r: band(u, idx[r]), grid, pos, start[idx], lo[idx], hi[idx])
-    est = np.where(no_root & closes & ~off_window, start, est)
-    est = np.where(off_window & ~no_root, np.nan, est)
-    est_x = c + h * est
-    masks = {FLAG_OUTSIDE: outside | (off_window & ~no_root),
-             FLAG_TWO_ROOTS: two & ok,
-             FLAG_BEYOND_TP: beyond | no_root,
-             FLAG_BEYOND_WINDOW: off_window & ~no_root,
-             FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi}
-    order = [FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
-             FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE]
-    flags = _flag_tuples(masks, order, m)
-    return est_x, c + h * lower, c + h * upper, flags
+        lambda u, r: band(u, idx[r]), grid, pos, start[idx], sp["lo"][idx], sp["hi"][idx])
+    est, flags = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
+    c, h = br.c, br.h
+    return c + h * est, c + h * lower, c + h * upper, flags
 
 
 def _flag_tuples(masks: dict, order: list[str], m: int) -> list[tuple[str, ...]]:
@@ -365,241 +448,6 @@ def range_flags(estimate: np.ndarray, domain: tuple[float, float]) -> np.ndarray
     e = np.asarray(estimate, dtype=float)
     with np.errstate(invalid="ignore"):
         return (e < domain[0]) | (e > domain[1])
-
-
-# ----------------------------------------------------------------------------- applying a fit
-FLAG_MISSING = "missing-value"
-FLAG_INVALID = "invalid-value"
-FLAG_CROSS = "quantiles-cross"
-FLAG_APPROX = "approximate-interval"
-
-
-def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
-    from .errors import UsageError
-
-    k = len(names)
-    if arr.ndim <= 1:
-        arr = arr.reshape(-1, 1) if k == 1 else arr.reshape(1, -1)
-    if arr.ndim != 2 or arr.shape[1] != k:
-        raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
-    return arr
-
-
-def _values_matrix(values, names: list[str]):
-    """Fossil feature values as an (m, k) float array plus the index for the output."""
-    import pandas as pd
-
-    from .errors import InvalidDataError, UsageError
-
-    index = values.index if isinstance(values, (pd.Series, pd.DataFrame)) else None
-    if isinstance(values, (pd.DataFrame, dict)):
-        missing = [n for n in names if n not in values]
-        if missing:
-            raise UsageError(f"values lack column(s) {missing}; the fit needs {names} "
-                             f"(got {list(values.keys())})")
-        cols = [values[n] for n in names]
-    else:
-        try:  # fast path: already numeric
-            arr = _shape_values(np.asarray(values, dtype=float), names)
-            cols = None
-        except (TypeError, ValueError):
-            raw = _shape_values(np.asarray(values, dtype=object), names)
-            cols = [raw[:, j] for j in range(raw.shape[1])]
-    if cols is not None:
-        series = [pd.Series(np.atleast_1d(np.asarray(c, dtype=object))) for c in cols]
-        arr = np.column_stack([pd.to_numeric(c, errors="coerce")
-                               .to_numpy(dtype=float, na_value=np.nan) for c in series])
-        bad = np.isnan(arr) & np.column_stack([c.notna().to_numpy() for c in series])
-        if bad.any():
-            r, c = np.argwhere(bad)[0]
-            raise InvalidDataError(f"value {series[c].iat[r]!r} for {names[c]!r} (position "
-                                   f"{r}) is not a number; correct it or leave it empty")
-    if np.isinf(arr).any():
-        r, c = np.argwhere(np.isinf(arr))[0]
-        raise InvalidDataError(f"value for {names[c]!r} at position {r} is infinite; "
-                               "use a finite number or leave it empty")
-    return arr, index
-
-
-def _t(level: float, df: float) -> float:
-    from scipy import stats
-
-    return float(stats.t.ppf(0.5 + level / 2.0, df))
-
-
-def _flag_strings(masks: dict[str, np.ndarray], m: int):
-    """';'-joined flag names per row from boolean masks, as a pandas Categorical
-    (vectorised through bit codes: fast for many rows)."""
-    import pandas as pd
-
-    names = list(masks)
-    codes = np.zeros(m, dtype=np.int64)
-    for i, nm in enumerate(names):
-        codes |= masks[nm].astype(np.int64) << i
-    present = np.flatnonzero(np.bincount(codes, minlength=1))
-    lookup = np.zeros(1 << len(names), dtype=np.int64)
-    lookup[present] = np.arange(len(present))
-    text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
-    return pd.Categorical.from_codes(lookup[codes], categories=text)
-
-
-def _analytic_band(fit, X0, eta, w0, level):
-    from .errors import UsageError
-
-    res = fit.result
-    if not np.all(np.isfinite(res.covariance)):
-        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
-                         "there is no analytic interval; use interval='bootstrap-pairs' or a "
-                         "conformal interval with an OLS fit, or interval='none'")
-    s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
-    factor = res.details.get("factor")
-    if factor is not None:
-        q = factor.quad_form(X0) * s2
-    else:
-        q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
-    half = _t(level, res.df_resid) * np.sqrt(s2 / w0 + q)
-    return eta - half, eta + half
-
-
-def _resampled_band(fit, X0, ok, w0, level, interval, opts):
-    from . import intervals as iv
-    from .errors import UsageError
-
-    if fit.estimator not in ("ols", "wls"):
-        raise UsageError(f"interval {interval!r} refits by least squares, so it goes with "
-                         f"estimator 'ols' or 'wls', not {fit.estimator!r}")
-    if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
-        raise UsageError(f"interval {interval!r} does not take weights; use "
-                         "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
-    X = fit.form.design(fit.x)
-    y, x0 = fit.y_model, X0[ok]
-    if interval.startswith("bootstrap"):
-        fun = iv.bootstrap_pairs if interval == "bootstrap-pairs" else iv.bootstrap_residual
-        w0v = np.broadcast_to(w0, ok.shape)[ok]
-        out = np.full((3, len(ok)), np.nan)
-        idx = np.flatnonzero(ok)
-        for wv in np.unique(w0v):  # the resampling functions take one new-row weight
-            sel = w0v == wv
-            pi = fun(X, y, x0[sel], n_boot=opts["n_boot"], level=level, seed=opts["seed"],
-                     weights=fit.weights, weight0=float(wv))
-            out[:, idx[sel]] = np.vstack([pi.estimate, pi.lower, pi.upper])
-        return out
-    elif interval == "split-conformal":
-        pi = iv.split_conformal(X, y, x0, level=level, seed=opts["seed"],
-                                calib_fraction=opts["calib_fraction"])
-    elif interval == "jackknife+":
-        pi = iv.jackknife_plus(X, y, x0, level=level)
-    else:
-        pi = iv.cv_plus(X, y, x0, level=level, folds=opts["folds"], seed=opts["seed"])
-    out = np.full((3, len(ok)), np.nan)
-    out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
-    return out
-
-
-def _quantile_band(fit, X0, level):
-    from .errors import UsageError
-
-    if fit.estimator != "quantile":
-        raise UsageError("interval 'quantile' comes from quantile curves: fit with "
-                         "estimator='quantile'")
-    qlo, qhi = fit.extras["quantiles"]
-    if abs((qhi - qlo) - level) > 1e-9:
-        raise UsageError(f"the quantile curves were fitted at {qlo} and {qhi}, a "
-                         f"{qhi - qlo:g} interval; ask for level={qhi - qlo:g} or refit "
-                         "with other quantiles")
-    coefs = fit.extras["quantile_coefficients"]
-    return X0 @ coefs[float(qlo)], X0 @ coefs[float(qhi)]
-
-
-def _predict_inverse(fit, v, level, interval, w0, opts):
-    from .domain import beyond_turning_mask, extrapolation_mask
-
-    m = v.shape[0]
-    ok = ~np.isnan(v).any(axis=1)
-    X0 = fit.form.design(v)
-    eta = X0 @ fit.result.coefficients
-    lo = hi = np.full(m, np.nan)
-    masks = {FLAG_MISSING: ~ok}
-    if interval == "analytic":
-        lo, hi = _analytic_band(fit, X0, eta, w0, level)
-    elif interval == "quantile":
-        lo, hi = _quantile_band(fit, X0, level)
-        masks[FLAG_CROSS] = lo > hi
-    elif interval != "none":
-        eta, lo, hi = _resampled_band(fit, X0, ok, w0, level, interval, opts)
-        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
-    out = np.full(m, False)
-    for j, name in enumerate(fit.x_names):
-        out |= extrapolation_mask(v[:, j], *fit.ranges[name])
-    masks[FLAG_OUTSIDE] = out
-    if interval == "analytic" and fit.result.details.get("approximate_interval"):
-        masks[FLAG_APPROX] = ok
-    if fit.form.degree == 2 and v.shape[1] == 1:
-        masks[FLAG_BEYOND_TP] = beyond_turning_mask(v[:, 0], fit._core_domain())
-    if fit.form.log_response:
-        smear = fit.smearing if interval in ("analytic", "none") else 1.0
-        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
-    return eta, lo, hi, _flag_strings(masks, m)
-
-
-def _predict_forward(fit, v, level, interval, w0):
-    from .errors import UsageError
-
-    if interval not in ("analytic", "none"):
-        raise UsageError(f"interval {interval!r} is not available for direction 'forward'; "
-                         "the classical-calibration interval is 'analytic' (band inversion)")
-    y0 = v[:, 0].copy()
-    missing = np.isnan(y0)
-    invalid = np.zeros_like(missing)
-    if fit.form.log_response:
-        invalid = ~missing & ~(y0 > 0)
-        y0[invalid] = np.nan
-        y0 = np.log(y0)
-    res = fit.result
-    deg, origin = fit.form.degree, fit.form.through_origin
-    poly = np.concatenate([[0.0] if origin else [], res.coefficients])
-    cov_ok = bool(np.all(np.isfinite(res.covariance)))
-    if interval == "analytic" and not cov_ok:
-        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
-                         "the calibration interval cannot be formed; use interval='none' for "
-                         "the estimate alone, or estimator 'ols'")
-    # the band also decides whether a value beyond the turning point is consistent with
-    # the curve, so it is used for interval='none' too (limits then blanked)
-    cov = res.covariance if cov_ok else np.zeros_like(res.covariance)
-    if origin:
-        cov = np.pad(cov, ((1, 0), (1, 0)))
-    s2new = res.details.get("prediction_sd", res.residual_std_error) ** 2 / w0 if cov_ok \
-        else 0.0
-    t = _t(level, res.df_resid)
-    dom = fit.ranges[fit.x_names[0]]
-    bounds = physical_bounds(fit)
-    if deg == 1:
-        est, lo, hi, unb = fieller_line(y0, poly[0], poly[1], cov, s2new, t)
-        est, lo, hi, flags = _bound_line(est, lo, hi, unb, bounds)
-    else:
-        def design(x):
-            return np.vander(x, deg + 1, increasing=True)
-
-        est, lo, hi, flags = invert_polynomial(y0, poly, design, cov, s2new, t, dom,
-                                               fit.x[:, 0], window=search_window(dom, bounds))
-    if interval == "none":
-        lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
-        flags = [tuple(f for f in fl if f not in _INTERVAL_FLAGS) for fl in flags]
-    outside = range_flags(est, dom)
-    approx = interval == "analytic" and bool(res.details.get("approximate_interval"))
-    text = []
-    for i, f in enumerate(flags):
-        f = list(f)
-        if outside[i] and FLAG_OUTSIDE not in f:
-            f.insert(0, FLAG_OUTSIDE)
-        if missing[i]:
-            f.append(FLAG_MISSING)
-        if invalid[i]:
-            f.append(FLAG_INVALID)
-        elif approx and not missing[i]:
-            f.append(FLAG_APPROX)
-        text.append(";".join(f))
-    return est, lo, hi, np.asarray(text, dtype=object)
 
 
 def physical_bounds(fit) -> tuple[float, float]:
@@ -626,23 +474,10 @@ def _bound_line(est, lo, hi, unbounded: bool, bounds):
     return est, lo, hi, _flag_tuples(masks, list(masks), len(est))
 
 
-def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
-                n_boot: int = 1000, folds: int = 10, calib_fraction: float = 0.5):
-    """Apply a :class:`refit.fitting.Fit` to fossil feature values (see ``Fit.predict``)."""
-    import pandas as pd
+def __getattr__(name):
+    # predict_fit moved to refit._predict; kept reachable here
+    if name == "predict_fit":
+        from ._predict import predict_fit
 
-    from .errors import InvalidDataError
-
-    v, index = _values_matrix(values, fit.predictors)
-    m = v.shape[0]
-    w0 = np.ones(m) if weights is None else np.broadcast_to(
-        np.asarray(weights, dtype=float), (m,))
-    if not np.all(np.isfinite(w0) & (w0 > 0)):
-        raise InvalidDataError("weights of new observations must be finite and > 0")
-    opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
-    if fit.direction == "forward":
-        est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
-    else:
-        est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
-    return pd.DataFrame({"estimate": est, "lower": lo, "upper": hi, "flags": flags},
-                        index=index)
+        return predict_fit
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -39,7 +39,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import InvalidDataError, UsageError
+from ._fit_inputs import (STRAIGHT_LINE_ONLY, _as_frame, _check_constant, _check_positive,
+                          _check_rows, _column, _drop_missing, _vector)
+from .errors import UsageError
 from .forms import Form, duan_smearing, make_form
 from .lsq import EstimatorResult, solve_lsq
 
@@ -47,7 +49,6 @@ ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile")
 DIRECTIONS = ("inverse", "forward")
 INTERVALS = ("analytic", "bootstrap-pairs", "bootstrap-residual", "split-conformal",
              "jackknife+", "cv+", "quantile", "none")
-STRAIGHT_LINE_ONLY = ("theil-sen", "york")
 #: Theil-Sen's coefficient covariance comes from this many seeded case resamples
 #: (refit.robust.fit_theil_sen), drawn on first need (an analytic interval, the forward
 #: inversion, ``covariance`` or ``std_errors``); cost grows as n_boot n^2.
@@ -55,7 +56,6 @@ THEIL_SEN_BOOT = 500
 THEIL_SEN_SEED = 20240
 CAUTION_APPROXIMATE = "approximate-interval"
 _RESAMPLING = ("bootstrap-pairs", "bootstrap-residual", "split-conformal", "jackknife+", "cv+")
-_MAX_LISTED = 10
 
 
 # ----------------------------------------------------------------------------- input checks
@@ -63,106 +63,6 @@ def _choice(value, valid, what: str) -> str:
     if not isinstance(value, str) or value not in valid:
         raise UsageError(f"unknown {what} {value!r}; choose one of: {', '.join(valid)}")
     return value
-
-
-def _as_frame(table):
-    """DataFrame and row labels ('file rows' from a refit Table, else the index)."""
-    import pandas as pd
-
-    if hasattr(table, "frame") and isinstance(table.frame, pd.DataFrame):
-        rows = getattr(table, "source_rows", None)
-        labels = np.asarray(rows) if rows is not None else np.asarray(table.frame.index)
-        return table.frame, labels, "file row"
-    if isinstance(table, pd.DataFrame):
-        return table, np.asarray(table.index), "row"
-    if isinstance(table, dict):
-        frame = pd.DataFrame(table)
-        return frame, np.asarray(frame.index), "row"
-    raise UsageError(f"table must be a pandas DataFrame, a refit Table or a dict of columns; "
-                     f"got {type(table).__name__}")
-
-
-def _rows_text(labels, mask, kind: str) -> str:
-    bad = [str(v) for v in np.asarray(labels)[mask][:_MAX_LISTED]]
-    more = int(mask.sum()) - len(bad)
-    return f"{kind}s " + ", ".join(bad) + (f" and {more} more" if more > 0 else "")
-
-
-def _column(frame, name: str, labels, kind: str) -> np.ndarray:
-    """A numeric column as float; non-numbers and infinities are refused by row."""
-    import pandas as pd
-
-    if name not in frame.columns:
-        raise UsageError(f"column {name!r} is not in the table; available columns: "
-                         + ", ".join(map(str, frame.columns)))
-    col = frame[name]
-    values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-    not_number = np.isnan(values) & col.notna().to_numpy()
-    if not_number.any():
-        first = col[not_number].iloc[0]
-        raise InvalidDataError(f"column {name!r} holds values that are not numbers at "
-                               f"{_rows_text(labels, not_number, kind)} (e.g. {first!r}); "
-                               "correct them or leave the cells empty")
-    if np.isinf(values).any():
-        raise InvalidDataError(f"column {name!r} holds infinite values at "
-                               f"{_rows_text(labels, np.isinf(values), kind)}; replace them "
-                               "with finite numbers or drop those rows")
-    return values
-
-
-def _vector(arg, frame, labels, kind: str, what: str) -> np.ndarray | None:
-    """Weights or measurement SDs: a column name, a scalar or an array of row values."""
-    if arg is None:
-        return None
-    if isinstance(arg, str):
-        return _column(frame, arg, labels, kind)
-    v = np.broadcast_to(np.asarray(arg, dtype=float), (len(frame),)).copy()
-    if np.isinf(v).any():
-        raise InvalidDataError(f"{what} hold infinite values at "
-                               f"{_rows_text(labels, np.isinf(v), kind)}")
-    return v
-
-
-def _drop_missing(cols: dict, labels, kind: str, missing: str):
-    """Refuse (or drop, with missing='drop') rows with an empty value in a used column."""
-    nan = np.zeros(len(labels), dtype=bool)
-    for v in cols.values():
-        if v is not None:
-            nan |= np.isnan(v)
-    if not nan.any():
-        return cols, labels, 0
-    if missing != "drop":
-        names = [k for k, v in cols.items() if v is not None and np.isnan(v).any()]
-        raise InvalidDataError(f"empty or NaN values in {', '.join(map(repr, names))} at "
-                               f"{_rows_text(labels, nan, kind)}; fill them, select rows "
-                               "that have them, or pass missing='drop'")
-    keep = ~nan
-    return ({k: (None if v is None else v[keep]) for k, v in cols.items()}, labels[keep],
-            int(nan.sum()))
-
-
-def _check_positive(v, labels, kind, message):
-    bad = ~(v > 0)
-    if bad.any():
-        raise InvalidDataError(message + f" at {_rows_text(labels, bad, kind)}")
-
-
-def _check_rows(form: Form, n: int, estimator: str) -> None:
-    need = 3 if estimator in STRAIGHT_LINE_ONLY else form.min_rows
-    if n < need:
-        raise InvalidDataError(
-            f"too few rows: form {form.name!r} with {len(form.predictors)} predictor(s) has "
-            f"{form.n_params} coefficient(s) and needs at least {need} rows with values (one "
-            f"more than the coefficients, to estimate the residual error); got {n}")
-
-
-def _check_constant(x: np.ndarray, names, labels) -> None:
-    for j, name in enumerate(names):
-        col = x[:, j]
-        if col.size and np.all(col == col[0]):
-            raise InvalidDataError(
-                f"predictor {name!r} is constant (every row = {col[0]:g}); a slope cannot be "
-                "estimated from it: choose rows where it varies or drop it")
 
 
 # ----------------------------------------------------------------------------- estimators
@@ -402,7 +302,7 @@ class Fit:
             (``DataFrame.flags`` is a pandas attribute). The index is that of ``values``
             when it is a Series or DataFrame.
         """
-        from .calibrate import predict_fit
+        from ._predict import predict_fit
 
         if interval in (None, "analytic") or self.direction == "forward":
             self._filled()

@@ -318,7 +318,8 @@ def _ref_invert(y0, poly, cov, s2, t, domain, x_cal):
 
 @pytest.mark.parametrize("make", ["turning", "pontius"])
 def test_vectorised_inversion_equals_the_per_row_routine(make):
-    from refit.calibrate import _t, search_window
+    from refit._predict import _t
+    from refit.calibrate import search_window
     from refit.domain import schema_bounds
 
     if make == "turning":

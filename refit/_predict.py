@@ -1,0 +1,237 @@
+"""Apply an in-memory fit to fossil feature values: the engine of ``Fit.predict``.
+
+Input checks (values to an (m, k) float array, weights of new observations), the inverse
+direction's bands (analytic, resampling, quantile curves) and flags, and the forward
+direction through the shared numpy core :func:`refit._forward.forward_predict`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .calibrate import FLAG_BEYOND_TP, FLAG_OUTSIDE, FLAG_UNBOUNDED
+
+FLAG_MISSING = "missing-value"
+FLAG_INVALID = "invalid-value"
+FLAG_CROSS = "quantiles-cross"
+FLAG_APPROX = "approximate-interval"
+
+
+def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
+    from .errors import UsageError
+
+    k = len(names)
+    if arr.ndim <= 1:
+        arr = arr.reshape(-1, 1) if k == 1 else arr.reshape(1, -1)
+    if arr.ndim != 2 or arr.shape[1] != k:
+        raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
+    return arr
+
+
+def _values_matrix(values, names: list[str]):
+    """Fossil feature values as an (m, k) float array plus the index for the output."""
+    import pandas as pd
+
+    from .errors import InvalidDataError, UsageError
+
+    index = values.index if isinstance(values, (pd.Series, pd.DataFrame)) else None
+    if isinstance(values, (pd.DataFrame, dict)):
+        missing = [n for n in names if n not in values]
+        if missing:
+            raise UsageError(f"values lack column(s) {missing}; the fit needs {names} "
+                             f"(got {list(values.keys())})")
+        cols = [values[n] for n in names]
+    else:
+        try:  # fast path: already numeric
+            arr = _shape_values(np.asarray(values, dtype=float), names)
+            cols = None
+        except (TypeError, ValueError):
+            raw = _shape_values(np.asarray(values, dtype=object), names)
+            cols = [raw[:, j] for j in range(raw.shape[1])]
+    if cols is not None:
+        series = [pd.Series(np.atleast_1d(np.asarray(c, dtype=object))) for c in cols]
+        arr = np.column_stack([pd.to_numeric(c, errors="coerce")
+                               .to_numpy(dtype=float, na_value=np.nan) for c in series])
+        bad = np.isnan(arr) & np.column_stack([c.notna().to_numpy() for c in series])
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            raise InvalidDataError(f"value {series[c].iat[r]!r} for {names[c]!r} (position "
+                                   f"{r}) is not a number; correct it or leave it empty")
+    if np.isinf(arr).any():
+        r, c = np.argwhere(np.isinf(arr))[0]
+        raise InvalidDataError(f"value for {names[c]!r} at position {r} is infinite; "
+                               "use a finite number or leave it empty")
+    return arr, index
+
+
+def _t(level: float, df: float) -> float:
+    from scipy import stats
+
+    return float(stats.t.ppf(0.5 + level / 2.0, df))
+
+
+def _flag_strings(masks: dict[str, np.ndarray], m: int):
+    """';'-joined flag names per row from boolean masks, as a pandas Categorical
+    (vectorised through bit codes: fast for many rows)."""
+    import pandas as pd
+
+    names = list(masks)
+    codes = np.zeros(m, dtype=np.int64)
+    for i, nm in enumerate(names):
+        codes |= masks[nm].astype(np.int64) << i
+    present = np.flatnonzero(np.bincount(codes, minlength=1))
+    lookup = np.zeros(1 << len(names), dtype=np.int64)
+    lookup[present] = np.arange(len(present))
+    text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
+    return pd.Categorical.from_codes(lookup[codes], categories=text)
+
+
+def _analytic_band(fit, X0, eta, w0, level):
+    from .errors import UsageError
+
+    res = fit.result
+    if not np.all(np.isfinite(res.covariance)):
+        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
+                         "there is no analytic interval; use interval='bootstrap-pairs' or a "
+                         "conformal interval with an OLS fit, or interval='none'")
+    s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
+    factor = res.details.get("factor")
+    if factor is not None:
+        q = factor.quad_form(X0) * s2
+    else:
+        q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
+    half = _t(level, res.df_resid) * np.sqrt(s2 / w0 + q)
+    return eta - half, eta + half
+
+
+def _resampled_band(fit, X0, ok, w0, level, interval, opts):
+    from . import intervals as iv
+    from .errors import UsageError
+
+    if fit.estimator not in ("ols", "wls"):
+        raise UsageError(f"interval {interval!r} refits by least squares, so it goes with "
+                         f"estimator 'ols' or 'wls', not {fit.estimator!r}")
+    if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
+        raise UsageError(f"interval {interval!r} does not take weights; use "
+                         "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
+    X = fit.form.design(fit.x)
+    y, x0 = fit.y_model, X0[ok]
+    if interval.startswith("bootstrap"):
+        fun = iv.bootstrap_pairs if interval == "bootstrap-pairs" else iv.bootstrap_residual
+        w0v = np.broadcast_to(w0, ok.shape)[ok]
+        out = np.full((3, len(ok)), np.nan)
+        idx = np.flatnonzero(ok)
+        for wv in np.unique(w0v):  # the resampling functions take one new-row weight
+            sel = w0v == wv
+            pi = fun(X, y, x0[sel], n_boot=opts["n_boot"], level=level, seed=opts["seed"],
+                     weights=fit.weights, weight0=float(wv))
+            out[:, idx[sel]] = np.vstack([pi.estimate, pi.lower, pi.upper])
+        return out
+    elif interval == "split-conformal":
+        pi = iv.split_conformal(X, y, x0, level=level, seed=opts["seed"],
+                                calib_fraction=opts["calib_fraction"])
+    elif interval == "jackknife+":
+        pi = iv.jackknife_plus(X, y, x0, level=level)
+    else:
+        pi = iv.cv_plus(X, y, x0, level=level, folds=opts["folds"], seed=opts["seed"])
+    out = np.full((3, len(ok)), np.nan)
+    out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+    return out
+
+
+def _quantile_band(fit, X0, level):
+    from .errors import UsageError
+
+    if fit.estimator != "quantile":
+        raise UsageError("interval 'quantile' comes from quantile curves: fit with "
+                         "estimator='quantile'")
+    qlo, qhi = fit.extras["quantiles"]
+    if abs((qhi - qlo) - level) > 1e-9:
+        raise UsageError(f"the quantile curves were fitted at {qlo} and {qhi}, a "
+                         f"{qhi - qlo:g} interval; ask for level={qhi - qlo:g} or refit "
+                         "with other quantiles")
+    coefs = fit.extras["quantile_coefficients"]
+    return X0 @ coefs[float(qlo)], X0 @ coefs[float(qhi)]
+
+
+def _predict_inverse(fit, v, level, interval, w0, opts):
+    from .domain import beyond_turning_mask, extrapolation_mask
+
+    m = v.shape[0]
+    ok = ~np.isnan(v).any(axis=1)
+    X0 = fit.form.design(v)
+    eta = X0 @ fit.result.coefficients
+    lo = hi = np.full(m, np.nan)
+    masks = {FLAG_MISSING: ~ok}
+    if interval == "analytic":
+        lo, hi = _analytic_band(fit, X0, eta, w0, level)
+    elif interval == "quantile":
+        lo, hi = _quantile_band(fit, X0, level)
+        masks[FLAG_CROSS] = lo > hi
+    elif interval != "none":
+        eta, lo, hi = _resampled_band(fit, X0, ok, w0, level, interval, opts)
+        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
+    out = np.full(m, False)
+    for j, name in enumerate(fit.x_names):
+        out |= extrapolation_mask(v[:, j], *fit.ranges[name])
+    masks[FLAG_OUTSIDE] = out
+    if interval == "analytic" and fit.result.details.get("approximate_interval"):
+        masks[FLAG_APPROX] = ok
+    if fit.form.degree == 2 and v.shape[1] == 1:
+        masks[FLAG_BEYOND_TP] = beyond_turning_mask(v[:, 0], fit._core_domain())
+    if fit.form.log_response:
+        smear = fit.smearing if interval in ("analytic", "none") else 1.0
+        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    return eta, lo, hi, _flag_strings(masks, m)
+
+
+def _predict_forward(fit, v, level, interval, w0):
+    """Forward fits: check the request, then classical calibration through
+    :func:`refit._forward.forward_predict`."""
+    from ._forward import forward_predict
+    from .calibrate import physical_bounds
+    from .errors import UsageError
+
+    if interval not in ("analytic", "none"):
+        raise UsageError(f"interval {interval!r} is not available for direction 'forward'; "
+                         "the classical-calibration interval is 'analytic' (band inversion)")
+    res = fit.result
+    cov_ok = bool(np.all(np.isfinite(res.covariance)))
+    if interval == "analytic" and not cov_ok:
+        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
+                         "the calibration interval cannot be formed; use interval='none' for "
+                         "the estimate alone, or estimator 'ols'")
+    # the band also decides whether a value beyond the turning point is consistent with
+    # the curve, so it is used for interval='none' too (limits then blanked)
+    s2new = res.details.get("prediction_sd", res.residual_std_error) ** 2 / w0 if cov_ok \
+        else 0.0
+    return forward_predict(
+        v[:, 0], coefficients=res.coefficients,
+        covariance=res.covariance if cov_ok else np.zeros_like(res.covariance),
+        sigma2_new=s2new, t=_t(level, res.df_resid), domain=fit.ranges[fit.x_names[0]],
+        degree=fit.form.degree, through_origin=fit.form.through_origin,
+        log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
+        with_interval=interval != "none",
+        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")))
+
+
+def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
+                n_boot: int = 1000, folds: int = 10, calib_fraction: float = 0.5):
+    """Apply a :class:`refit.fitting.Fit` to fossil feature values (see ``Fit.predict``)."""
+    import pandas as pd
+
+    from .errors import InvalidDataError
+
+    v, index = _values_matrix(values, fit.predictors)
+    m = v.shape[0]
+    w0 = np.ones(m) if weights is None else np.broadcast_to(
+        np.asarray(weights, dtype=float), (m,))
+    if not np.all(np.isfinite(w0) & (w0 > 0)):
+        raise InvalidDataError("weights of new observations must be finite and > 0")
+    opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
+    if fit.direction == "forward":
+        est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
+    else:
+        est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
+    return pd.DataFrame({"estimate": est, "lower": lo, "upper": hi, "flags": flags},
+                        index=index)
