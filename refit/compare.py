@@ -21,7 +21,7 @@ from .errors import UsageError
 TABLE_COLUMNS = [
     "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
     "response", "unit", "predictors_used", "estimate", "lower", "upper", "width", "level",
-    "interval", "cv_coverage", "cv_scheme", "flags", "problem",
+    "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
 ]
 MAX_PANELS = 12
 
@@ -60,6 +60,9 @@ def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
     t = results.copy()
     t = t[t["function_id"] != "combined"] if "function_id" in t else t
     t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
+    # a refit carries its candidate label, published or not; a literature equation has none
+    cand = t["candidate"].fillna("") if "candidate" in t else pd.Series("", index=t.index)
+    t["origin"] = np.where(cand.astype(str) != "", "refit", "literature")
     t["width"] = t["upper"].astype(float) - t["lower"].astype(float)
     return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
 
@@ -70,11 +73,12 @@ def fit_label(r) -> str:
     return f"{r.function_id} {r.version} {what}".strip()
 
 
-def coverage_text(coverage, scheme, level, status) -> str:
+def coverage_text(coverage, scheme, level, interval) -> str:
     """What is printed beside an interval: the cross-validated coverage, or why none."""
     if coverage is None or (isinstance(coverage, float) and math.isnan(coverage)):
-        return "no cross-validation" + (" (published +-1 SE)" if status == "published"
-                                        else "")
+        if interval == "published" or str(interval).startswith("+-"):
+            return "no cross-validation (interval = published +-1 SE)"
+        return "no cross-validation" + (" (no interval given)" if interval == "none" else "")
     nominal = "" if level is None or pd.isna(level) else f" of {float(level):.0%}"
     return f"CV coverage {float(coverage):.0%}{nominal}" + (f" ({scheme})" if scheme else "")
 
@@ -92,14 +96,14 @@ def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    ids = list(dict.fromkeys(table["paleosol_id"]))[:MAX_PANELS]
-    if not ids:
+    panels = panel_groups(table)[:MAX_PANELS]
+    if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
-    heights = [max(1.2, 0.42 * (table["paleosol_id"] == i).sum() + 0.9) for i in ids]
-    fig, axes = plt.subplots(len(ids), 1, figsize=(11, sum(heights)), squeeze=False,
+    heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
+    fig, axes = plt.subplots(len(panels), 1, figsize=(11, sum(heights)), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
-    for ax, pid in zip(axes[:, 0], ids):
-        _panel(ax, table[table["paleosol_id"] == pid], pid)
+    for ax, (pid, rows) in zip(axes[:, 0], panels):
+        _panel(ax, rows, pid)
     if title:
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
     fig.subplots_adjust(left=0.27, right=0.62, top=1 - 0.5 / sum(heights),
@@ -108,6 +112,17 @@ def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
     fig.savefig(buf, format="png", dpi=130)
     plt.close(fig)
     return buf.getvalue()
+
+
+def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
+    """One panel per paleosol and response: fits of different quantities (MAP in mm, MAT in
+    degC) never share an axis."""
+    out = []
+    for pid in dict.fromkeys(table["paleosol_id"]):
+        rows = table[table["paleosol_id"] == pid]
+        for (resp, unit), grp in rows.groupby(["response", "unit"], sort=False, dropna=False):
+            out.append((str(pid), grp))
+    return out
 
 
 #: Flags that say the equation does not hold here (drawn paler); the others are notes.
@@ -128,7 +143,7 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
     pad = 0.05 * (hi_ax - lo_ax or 1.0)
     for yi, r in zip(y, rows.itertuples(index=False)):
-        colour = STYLE["published"] if r.status == "published" else STYLE["refit"]
+        colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
         lo, hi = float(r.lower), float(r.upper)
         if np.isfinite(lo) or np.isfinite(hi):
@@ -141,7 +156,7 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         if np.isfinite(float(r.estimate)):
             ax.plot(float(r.estimate), yi, marker="D", color=STYLE["estimate"], ms=5,
                     zorder=3)
-        note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.status)
+        note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
         if r.flags:
             note += "\nflags: " + str(r.flags).replace(";", ", ")
         if r.problem:

@@ -1,7 +1,10 @@
-"""The demo: refit's whole job, as far as it exists, on the bundled invented scenario.
+"""The demo: refit's whole job on the bundled invented scenario (``calib_demo/``).
 
+Steps: check the incoming soils, admit them into a copy of the demo store, run the demo
+recipe's fit matrix, publish the winning fit into a demo registry, apply it and the
+published equations to the demo fossils, compare the intervals, and write the HTML report.
 Everything is written under one output folder; the bundled ``calib_demo/`` is never
-modified (its store is copied first).
+modified (its store and recipe are copied first).
 """
 
 from __future__ import annotations
@@ -16,17 +19,21 @@ from refit._resources import demo_dir
 from refit.errors import UsageError
 
 MARKER = ".refit-demo"
+SEED = 20261201  # Monte Carlo draws of the apply step
 
 
 @dataclass
 class DemoResult:
-    """What the demo did: labelled output paths, and the admit accounting."""
+    """What the demo did: labelled output paths and each step's result object."""
 
     outputs: dict[str, Path] = field(default_factory=dict)
-    check: object = None   # refit.checks.CheckReport of the incoming table
-    admit: object = None   # refit.store.AdmitResult
-    run: object = None     # refit.matrix.Run of the demo recipe
+    check: object = None      # refit.checks.CheckReport of the incoming table
+    admit: object = None      # refit.store.AdmitResult
+    run: object = None        # refit.matrix.Run of the demo recipe
     run_dir: Path | None = None
+    published: object = None  # refit.registry.PublishResult
+    applied: object = None    # refit.apply.ApplyResult
+    comparison: object = None  # pandas.DataFrame from refit.compare
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -45,9 +52,15 @@ def prepare_out_dir(out: Path) -> None:
     (out / MARKER).write_text("written by `refit demo`; safe to delete\n", encoding="utf-8")
 
 
+def published_equations() -> list[Path]:
+    """The published literature equations shipped with refit (``refit/published``)."""
+    return sorted((Path(__file__).resolve().parent / "published").glob("*.json"))
+
+
 def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
-             progress=None, after_admit: Callable | None = None) -> DemoResult:
-    """Run check, admit and the recipe's fit matrix on the demo scenario into ``out``.
+             progress=None, show: Callable[[str, DemoResult], None] | None = None
+             ) -> DemoResult:
+    """Run the whole job on the demo scenario into ``out``.
 
     Parameters
     ----------
@@ -57,53 +70,113 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
         Where to print progress lines (``None``: silent).
     progress : callable, optional
         Progress callback for the fit matrix (see :func:`refit.matrix.run_recipe`).
-    after_admit : callable, optional
-        Called with the admit result before fitting starts (to print its accounting).
+    show : callable, optional
+        Called as ``show(step, result)`` after the steps "admit", "fit" and "compare", so a
+        caller can print their results in order.
     """
+    say = echo or (lambda *_: None)
+    shown = show or (lambda *_: None)
+    prepare_out_dir(out)
+    result = DemoResult()
+    _check_and_admit(out, result, say)
+    shown("admit", result)
+    _fit(out, result, say, progress)
+    shown("fit", result)
+    _publish(out, result, say)
+    _apply_and_compare(out, result, say)
+    shown("compare", result)
+    _report(out, result, say)
+    return result
+
+
+def _check_and_admit(out: Path, result: DemoResult, say) -> None:
     from refit.checks import check_file, load_vocabularies
     from refit.store import admit
 
-    say = echo or (lambda *_: None)
     src = demo_dir()
-    prepare_out_dir(out)
-    result = DemoResult()
-
     store = out / "store"
     shutil.copytree(src / "store", store)
     result.outputs["calibration store"] = store
     incoming = src / "incoming_soils.csv"
-
     say(f"[bold]1. Check[/bold] the incoming soils: {incoming.name}")
     vocab_files = [p for p in [store / "vocabularies.json"] if p.exists()]
     report = check_file(incoming, vocabularies=load_vocabularies(*vocab_files))
     result.check = report
     check_json = out / "check-incoming.json"
-    check_json.write_text(json.dumps(report.to_dict(), indent=2, default=str) + "\n", encoding="utf-8")
+    check_json.write_text(json.dumps(report.to_dict(), indent=2, default=str) + "\n",
+                          encoding="utf-8")
     result.outputs["check report (json)"] = check_json
-    say(
-        f"   {report.n_rows} rows: {len(report.errors)} error(s) in "
+    say(f"   {report.n_rows} rows: {len(report.errors)} error(s) in "
         f"{len(report.bad_rows())} row(s), {len(report.warnings)} warning(s) "
-        f"(every problem in {check_json.name}; `refit check` prints them)"
-    )
-
+        f"(every problem in {check_json.name}; `refit check` prints them)")
     say(f"[bold]2. Admit[/bold] them into a copy of the demo store: {store}")
     result.admit = admit(incoming, store, vocab_files=vocab_files)
     if result.admit.quarantine_file:
         result.outputs["rejected rows (quarantine)"] = store / result.admit.quarantine_file
     result.outputs["store manifest"] = store / "manifest.json"
-    if after_admit is not None:
-        after_admit(result.admit)
 
+
+def _fit(out: Path, result: DemoResult, say, progress) -> None:
     from refit.matrix import run_recipe
     from refit.recipe import read_recipe
     from refit.runfolder import write_run
 
     recipe_path = out / "recipe.toml"  # its [data] store = "store" now names the copy
-    shutil.copyfile(src / "recipe.toml", recipe_path)
+    shutil.copyfile(demo_dir() / "recipe.toml", recipe_path)
     result.outputs["recipe"] = recipe_path
     say(f"[bold]3. Fit[/bold] the demo recipe on the updated store: {recipe_path}")
     result.run = run_recipe(read_recipe(recipe_path), progress=progress)
     result.run_dir = write_run(result.run, out / "run",
-                               argv=["refit", "fit", str(recipe_path), "--out", str(out / "run")])
+                               argv=["refit", "fit", str(recipe_path), "--out",
+                                     str(out / "run")])
     result.outputs["fit run (leaderboard, fits)"] = result.run_dir
-    return result
+
+
+def winning_fit(run_dir: Path, leaderboard) -> Path:
+    """The coefficient file of the leaderboard's top candidate."""
+    from refit.runfolder import fit_filename
+
+    return run_dir / "fits" / fit_filename(str(leaderboard.iloc[0]["candidate"]))
+
+
+def _publish(out: Path, result: DemoResult, say) -> None:
+    from refit.registry import publish
+
+    best = winning_fit(result.run_dir, result.run.matrix.leaderboard)
+    say(f"[bold]4. Publish[/bold] the top candidate ({best.stem}) into a demo registry")
+    result.published = publish(best, out / "registry", create=True)
+    say(f"   {result.published.function_id} {result.published.version} -> "
+        f"{result.published.path}")
+    result.outputs["registry (published fit)"] = result.published.path
+
+
+def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
+    from refit._atomic import write_bytes_atomic, write_text_atomic
+    from refit.compare import comparison_table, figure_png
+
+    files = [result.published.path, *published_equations()]
+    fossils = demo_dir() / "fossils.csv"
+    say(f"[bold]5. Apply[/bold] the published fit and {len(files) - 1} published equations "
+        f"to the demo fossils ({fossils.name}), measurement SDs propagated by Monte Carlo")
+    from refit.apply import apply_files
+
+    result.applied = apply_files([str(f) for f in files], fossils, seed=SEED)
+    estimates = out / "estimates.csv"
+    write_text_atomic(estimates, result.applied.results.to_csv(index=False))
+    result.outputs["fossil estimates"] = estimates
+    say(f"[bold]6. Compare[/bold] the intervals fit by fit")
+    result.comparison = comparison_table(result.applied.results)
+    folder = out / "compare"
+    write_text_atomic(folder / "comparison.csv", result.comparison.to_csv(index=False))
+    write_bytes_atomic(folder / "comparison.png", figure_png(result.comparison))
+    result.outputs["interval comparison (csv, png)"] = folder
+
+
+def _report(out: Path, result: DemoResult, say) -> None:
+    from refit.report import write_report
+
+    say("[bold]7. Report[/bold]: figures and the self-contained HTML page")
+    target = out / "report.html"
+    write_report(result.run_dir, target,
+                 command=["refit", "report", str(result.run_dir), "--out", str(target)])
+    result.outputs["report (open in a browser)"] = target

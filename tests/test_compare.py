@@ -10,7 +10,8 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
-from refit.compare import (at_frame, compare_files, coverage_text, figure_png)
+from refit.compare import (at_frame, compare_files, coverage_text, figure_png,
+                           panel_groups)
 from refit.errors import UsageError
 
 RETALLACK = "refit/published/map_from_bk_depth.retallack1994.json"
@@ -33,7 +34,18 @@ def test_coverage_text():
     assert coverage_text(0.8823, "group-kfold", 0.95, "candidate") == \
         "CV coverage 88% of 95% (group-kfold)"
     assert coverage_text(None, "", None, "published") == \
-        "no cross-validation (published +-1 SE)"
+        "no cross-validation (interval = published +-1 SE)"
+    assert coverage_text(None, "", None, "none") == "no cross-validation (no interval given)"
+
+
+def test_quantities_never_share_an_axis():
+    # MAP [mm] and MAT [degC] for one paleosol go to two panels
+    table = pd.DataFrame({"paleosol_id": ["P", "P", "P"], "response": ["map_mm", "mat_c",
+                                                                        "map_mm"],
+                          "unit": ["mm", "degC", "mm"]})
+    panels = panel_groups(table)
+    assert [(pid, list(rows["unit"])) for pid, rows in panels] == [
+        ("P", ["mm", "mm"]), ("P", ["degC"])]
 
 
 def test_figure_is_a_png_with_one_panel_per_paleosol(tmp_path):

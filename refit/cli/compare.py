@@ -82,7 +82,7 @@ def _print(table, console) -> None:
             else:
                 line.append(f"{_num(r.estimate)} [{_num(r.lower)}, {_num(r.upper)}] "
                             f"{r.unit}; " + coverage_text(r.cv_coverage, r.cv_scheme,
-                                                          r.level, r.status))
+                                                          r.level, r.interval))
                 if r.flags:
                     line.append(f"; flags: {str(r.flags).replace(';', ', ')}",
                                 style="yellow")

@@ -9,6 +9,10 @@ import click
 
 from refit.cli._common import guarded
 
+#: Paleosols whose comparison is printed (all are in the files): a typical one and the two
+#: placed where equations stop holding.
+SHOWN_PALEOSOLS = ("MB-P01", "CG-P07", "CG-P08")
+
 
 @click.command("demo", short_help="Run the whole job on the bundled invented demo.")
 @click.option(
@@ -21,41 +25,58 @@ def demo(out_dir: str, quiet: bool) -> None:
     """Run refit on the bundled invented demo scenario and say where everything went.
 
     \b
-    Steps that exist today: check the incoming soils, then admit them into a copy of the
-    demo calibration store (rejected rows kept in quarantine with their reasons).
-    The bundled files themselves are never modified.
+    Steps: check the incoming soils; admit them into a copy of the demo calibration
+    store (rejected rows kept in quarantine with their reasons); fit and cross-validate
+    the demo recipe's candidates; publish the winner into a demo registry; apply it and
+    the published equations to the demo fossils; compare the intervals; write the HTML
+    report. The bundled files themselves are never modified. All data are invented.
 
     \b
     Example:
       refit demo --out /tmp/refit-demo
     """
+    import sys
+    import time
     from pathlib import Path
 
+    from refit.cli._common import stderr_console, stdout_console
+    from refit.cli.fit import _Progress
     from refit.demo import run_demo
 
-    from refit.cli._common import stdout_console
-
-    import sys
-
-    from refit.cli._common import stderr_console
-    from refit.cli.admit import render
-    from refit.cli.fit import _Progress, print_run
-
     console = stdout_console()
-    say = None if quiet else console.print
     err = stderr_console(quiet=quiet or not sys.stderr.isatty())
+    start = time.perf_counter()
     with _Progress(err) as progress:
-        result = run_demo(Path(out_dir), echo=say, progress=progress,
-                          after_admit=None if quiet else (
-                              lambda adm: [console.print(f"   {line}", markup=False)
-                                           for line in render(adm)]))
-    if not quiet:
-        print_run(result.run, result.run_dir, console=console)
-        console.print(
-            "[dim]Publishing, apply/compare and the HTML report arrive with the next issues; "
-            "this demo runs the steps that exist (check, admit, fit).[/dim]"
-        )
+        result = run_demo(Path(out_dir), echo=None if quiet else console.print,
+                          progress=progress, show=None if quiet else _shower(console))
     console.print()
-    console.print("[bold]Where everything went[/bold]")
+    console.print(f"[bold]Where everything went[/bold] ({time.perf_counter() - start:.1f} s)")
     for label, path in result.outputs.items():
-        console.print(f"  {label:<28} {path}")
+        console.print(f"  {label:<32} {path}")
+    console.print("Caution: invented data; estimates from transfer functions carry wide "
+                  "intervals and are for research use, not for engineering, hazard or "
+                  "regulatory decisions.")
+
+
+def _shower(console):
+    """Print each step's result as the demo reaches it."""
+
+    def show(step: str, result) -> None:
+        if step == "admit":
+            from refit.cli.admit import render
+
+            for line in render(result.admit):
+                console.print(f"   {line}", markup=False)
+        elif step == "fit":
+            from refit.cli.fit import print_run
+
+            print_run(result.run, result.run_dir, console=console)
+        elif step == "compare":
+            from refit.cli.compare import _print
+
+            table = result.comparison
+            _print(table[table["paleosol_id"].isin(SHOWN_PALEOSOLS)], console)
+            console.print(f"   ({table['paleosol_id'].nunique()} paleosols in all; "
+                          "every row is in estimates.csv and compare/comparison.csv)")
+
+    return show
