@@ -54,13 +54,22 @@ def recover(store_dir: Path) -> list[str]:
             messages.append(f"recovered an interrupted admit of {plan['source_file']}: it "
                             f"had been committed, so it was completed (version "
                             f"{plan['version']})")
+        elif not any(stage.iterdir()):  # emptied by a finished admit, or never filled
+            stage.rmdir()
+            messages.append("recovered an interrupted admit: removed its empty staging "
+                            f"folder {stage.name}; the store's files were not touched")
         else:
             shutil.rmtree(stage, ignore_errors=True)
             messages.append("recovered an interrupted admit that had not been committed: "
                             "it was undone and the store is as it was before it")
-    for leftover in [*store_dir.glob(TMP_PREFIX + "*"),
-                     *(store_dir / "quarantine").glob(TMP_PREFIX + "*")]:
+    leftovers = [*store_dir.glob(TMP_PREFIX + "*"),
+                 *(store_dir / "quarantine").glob(TMP_PREFIX + "*")]
+    for leftover in leftovers:
         leftover.unlink(missing_ok=True)
+    if leftovers:
+        messages.append(f"recovered after an interrupted write: removed {len(leftovers)} "
+                        "temporary file(s) (" + ", ".join(sorted(p.name for p in leftovers))
+                        + "); the store's files were not touched")
     return messages
 
 
