@@ -90,9 +90,23 @@ def refit_rules(descriptor: dict[str, Any] | None = None) -> dict[str, Any]:
     return dict(descriptor.get("x-refit-rules", {}))
 
 
-def _primary_key(descriptor: dict[str, Any]) -> list[str]:
+def primary_key(descriptor: dict[str, Any]) -> list[str]:
+    """The descriptor's primary key as a list of column names."""
     key = descriptor.get("primaryKey", [])
     return [key] if isinstance(key, str) else list(key)
+
+
+_primary_key = primary_key
+
+
+def is_required(field: dict[str, Any], keys: list[str]) -> bool:
+    """A required column (present, never empty): ``required`` or part of the primary key."""
+    return bool(field.get("constraints", {}).get("required", False)) or field["name"] in keys
+
+
+def is_unique(field: dict[str, Any], keys: list[str]) -> bool:
+    """Values must be unique: ``unique`` or the whole primary key."""
+    return bool(field.get("constraints", {}).get("unique", False)) or keys == [field["name"]]
 
 
 def checks_for(field: dict[str, Any]) -> list:
@@ -117,9 +131,8 @@ def column_for(field: dict[str, Any], primary_key: list[str]):
     """The pandera Column for one descriptor field."""
     import pandera.pandas as pa
 
-    cons = field.get("constraints", {})
-    required = bool(cons.get("required", False)) or field["name"] in primary_key
-    unique = bool(cons.get("unique", False)) or primary_key == [field["name"]]
+    required = is_required(field, primary_key)
+    unique = is_unique(field, primary_key)
     dtype = "float64" if field.get("type") in ("number", "integer") else None
     return pa.Column(
         dtype,

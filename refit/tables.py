@@ -71,7 +71,8 @@ class Table:
     notes: list[str] = field(default_factory=list)
 
 
-def read_table(path, *, as_text: bool = False, sheet: str | int | None = None) -> Table:
+def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
+               digest: bool = True) -> Table:
     """Read a csv/tsv/txt, xlsx or parquet table.
 
     Parameters
@@ -82,6 +83,9 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None) -
         Keep every cell as its original string (``""`` when empty) instead of inferring types.
     sheet : str or int, optional
         Worksheet of an xlsx file (name or 0-based index); default the first sheet.
+    digest : bool
+        Compute the file's SHA-256 (``Table.sha256``). A caller that records no provenance
+        (``refit check``) can skip it on csv files: ``sha256`` is then ``""``.
 
     Returns
     -------
@@ -98,7 +102,7 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None) -
     _check_exists(path)
     suffix = path.suffix.lower()
     if suffix in TEXT_SUFFIXES:
-        return _read_text_table(path, as_text)
+        return _read_text_table(path, as_text, digest)
     if suffix in EXCEL_SUFFIXES:
         rows, notes, digest = _read_excel_rows(path, sheet)
         return _table_from_rows(path, rows, as_text, notes, digest)
@@ -130,22 +134,24 @@ def _check_exists(path: Path) -> None:
 # text tables
 
 
-def _scan(path: Path) -> tuple[str, bytes, int, bytes]:
-    """One pass over the file: sha256, the head, the number of newlines, the tail."""
+def _scan(path: Path, with_digest: bool = True) -> tuple[str, bytes, int, bytes]:
+    """One pass over the file: sha256 ('' when not asked), the head, the number of
+    newlines, the tail."""
     import hashlib
 
-    digest = hashlib.sha256()
+    digest = hashlib.sha256() if with_digest else None
     head = b""
     tail = b""
     newlines = 0
     with open(path, "rb") as fh:
         while block := fh.read(1 << 22):
-            digest.update(block)
+            if digest is not None:
+                digest.update(block)
             newlines += block.count(b"\n")
             if len(head) < _SAMPLE_BYTES:
                 head += block[: _SAMPLE_BYTES - len(head)]
             tail = (tail + block)[-4096:]
-    return digest.hexdigest(), head, newlines, tail
+    return (digest.hexdigest() if digest is not None else ""), head, newlines, tail
 
 
 def detect_encoding(sample: bytes, path: Path) -> tuple[str, str]:
@@ -221,14 +227,14 @@ def _refuse_single_column(lines: list[str], path: Path) -> None:
             )
 
 
-def _read_text_table(path: Path, as_text: bool) -> Table:
+def _read_text_table(path: Path, as_text: bool, digest: bool = True) -> Table:
     from concurrent.futures import ThreadPoolExecutor
 
     with open(path, "rb") as fh:
         head = fh.read(_SAMPLE_BYTES)
     # hashing runs beside the parsing (hashlib releases the GIL): the sha256 costs no time
     with ThreadPoolExecutor(max_workers=1) as pool:
-        scan = pool.submit(_scan, path)
+        scan = pool.submit(_scan, path, digest)
         return _parse_text_table(path, as_text, head, scan)
 
 

@@ -177,3 +177,14 @@ def test_header_narrower_than_body_is_found_by_its_names(tmp_path):
     t = read_table(path, as_text=True)
     assert list(t.frame.columns) == ["profile_id", "map_mm", "unnamed_3"]
     assert t.source_rows.tolist() == [3, 4]
+
+
+def test_digest_can_be_skipped_and_is_otherwise_the_file_hash(tmp_path):
+    """`refit check` records no provenance, so it skips hashing; admit keeps it."""
+    import hashlib
+
+    path = tmp_path / "t.csv"
+    path.write_bytes(b"profile_id,latitude\nA,1\nB,2\n")
+    assert read_table(path).sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    quick = read_table(path, digest=False)
+    assert quick.sha256 == "" and list(quick.frame["profile_id"]) == ["A", "B"]
