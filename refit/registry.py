@@ -20,7 +20,10 @@ the smallest bump that is honest; :func:`publish` proposes it and refuses a smal
 Publishing a candidate identical to the latest version is refused too (nothing to add).
 
 A published file is written once (atomically, then made read-only) and never replaced:
-publishing over an existing version is refused. The file's bytes are exactly
+publishing over an existing version is refused. A publish first writes its index entry to
+the journal ``REGISTRY/.publishing.json``; the next command that opens the registry
+finishes a publish whose file had landed (adds the entry) or drops one whose file had not,
+removes stale temporary files, and says so. The file's bytes are exactly
 :func:`file_text` of its content, so any edit, even of one space, is detectable
 (:mod:`refit.verify`). The index is rewritten atomically after the file lands; if the two
 ever disagree (a crash between the writes, a hand edit), ``refit verify REGISTRY`` says how.
@@ -35,12 +38,14 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ._atomic import sha256_bytes, write_text_atomic
+from ._atomic import TMP_PREFIX, sha256_bytes, write_text_atomic
 from ._registry_index import function_problems, registry_problems  # noqa: F401
-from .errors import InvalidDataError, UnreadableInputError, UsageError
+from .errors import InvalidDataError, RefitError, UnreadableInputError, UsageError
 
 INDEX = "index.json"
 INDEX_FORMAT = "refit-registry/1"
+PENDING = ".publishing.json"                 # journal of a publish in progress
+_FUNCTION_ID = re.compile(r"^[a-z][a-z0-9_]*$")
 LOCK_TIMEOUT_S = 5.0
 BUMPS = ("patch", "minor", "major")          # ordered: a larger index is a larger bump
 FIRST_VERSION = "1.0.0"
@@ -243,6 +248,7 @@ class Registry:
 
     path: Path
     index: dict = field(default_factory=dict)
+    recovered: list[str] = field(default_factory=list)
 
     def versions(self, function_id: str) -> list[dict]:
         """Index entries of a function, oldest first."""
@@ -254,6 +260,13 @@ class Registry:
         return max(entries, key=lambda e: parse_version(e["version"])) if entries else None
 
     def file(self, function_id: str, version: str) -> Path:
+        """``REGISTRY/<function_id>/<version>.json``; names that could leave the folder
+        (``..``, ``/``, anything but an id and a semver) are refused."""
+        if not isinstance(function_id, str) or not _FUNCTION_ID.match(function_id):
+            raise InvalidDataError(f"{self.path / INDEX}: function id {function_id!r} is not "
+                                   "lower case letters, digits and '_'; the index was edited "
+                                   "outside refit: restore it")
+        parse_version(version, where=f"{self.path / INDEX}: {function_id} version")
         return self.path / function_id / f"{version}.json"
 
 
@@ -261,8 +274,8 @@ def _empty_index() -> dict:
     return {"format": INDEX_FORMAT, "functions": {}}
 
 
-def open_registry(path, *, create: bool = False) -> Registry:
-    """Read a registry's index.
+def open_registry(path, *, create: bool = False, _held: bool = False) -> Registry:
+    """Read a registry's index, first finishing or undoing an interrupted publish.
 
     Parameters
     ----------
@@ -277,6 +290,13 @@ def open_registry(path, *, create: bool = False) -> Registry:
         is not readable JSON.
     """
     path = Path(path)
+    recovered = _recover_locked(path, _held) if _needs_recovery(path) else []
+    reg = _open_index(path, create)
+    reg.recovered = recovered
+    return reg
+
+
+def _open_index(path: Path, create: bool) -> Registry:
     index_path = path / INDEX
     if not path.exists():
         if create:
@@ -302,6 +322,59 @@ def open_registry(path, *, create: bool = False) -> Registry:
         raise UnreadableInputError(f"{index_path}: not a refit registry index (no "
                                    "'functions' object)")
     return Registry(path, index)
+
+
+def _needs_recovery(path: Path) -> bool:
+    return path.is_dir() and ((path / PENDING).exists() or any(path.glob(TMP_PREFIX + "*"))
+                              or any(path.glob("*/" + TMP_PREFIX + "*")))
+
+
+def _recover_locked(path: Path, held: bool) -> list[str]:
+    if held:
+        return _recover(path)
+    try:
+        with _Lock(path, LOCK_TIMEOUT_S):
+            return _recover(path)
+    except PermissionError:  # a read-only registry: nothing can be repaired; verify reports
+        return []
+
+
+def _recover(path: Path) -> list[str]:
+    """Finish or undo an interrupted publish, drop temporary files (lock held); say so."""
+    out, marker = [], path / PENDING
+    if marker.is_file():
+        try:
+            plan = json.loads(marker.read_text("utf-8"))
+            fid, entry = plan["function_id"], plan["entry"]
+            target = Registry(path).file(fid, entry["version"])
+        except (OSError, ValueError, KeyError, TypeError, RefitError):
+            plan = None
+        if plan is None:
+            out.append(f"removed an unreadable publish journal {PENDING}")
+        else:
+            reg = Registry(path, _empty_index())
+            if (path / INDEX).is_file():
+                reg = _open_index(path, False)
+            what = f"recovered an interrupted publish of {fid} {entry['version']}"
+            landed = target.is_file() and sha256_bytes(target.read_bytes()) == entry.get(
+                "file_sha256")
+            if any(e.get("version") == entry["version"] for e in reg.versions(fid)):
+                out.append(f"{what}: it had completed")
+            elif landed:
+                os.chmod(target, 0o444)
+                reg.index["functions"].setdefault(fid, []).append(entry)
+                _write_index(reg)
+                out.append(f"{what}: its file had landed, so it was added to {INDEX}")
+            else:
+                out.append(f"{what}: its file had not landed, so it was undone")
+        marker.unlink()
+    tmps = [*path.glob(TMP_PREFIX + "*"), *path.glob("*/" + TMP_PREFIX + "*")]
+    for tmp in tmps:
+        tmp.unlink(missing_ok=True)
+    if tmps:
+        out.append(f"removed {len(tmps)} temporary file(s) left by an interrupted write ("
+                   + ", ".join(sorted(t.name for t in tmps)) + ")")
+    return out
 
 
 def _write_index(reg: Registry) -> None:
@@ -350,12 +423,13 @@ class PublishResult:
     path: Path
     sha256: str
     dry_run: bool = False
+    recovered: list = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {"function_id": self.function_id, "version": self.version,
                 "previous": self.previous, "required_bump": self.required, "bump": self.bump,
                 "changes": self.changes, "path": str(self.path), "sha256": self.sha256,
-                "dry_run": self.dry_run}
+                "dry_run": self.dry_run, "recovered": self.recovered}
 
 
 def published_content(candidate: dict, version: str) -> dict:
@@ -429,10 +503,14 @@ def publish(candidate_path, registry, *, bump: str | None = None, create: bool =
                                f"letters, digits and '_'; found {fid!r}")
     reg = open_registry(registry, create=create)
     if dry_run:
-        return _plan(reg, candidate, candidate_path, bump, dry_run=True)[0]
+        result = _plan(reg, candidate, candidate_path, bump, dry_run=True)[0]
+        result.recovered = reg.recovered
+        return result
     with _Lock(reg.path, lock_timeout):
-        reg = open_registry(registry, create=create)   # re-read under the lock
+        first = reg.recovered
+        reg = open_registry(registry, create=create, _held=True)   # re-read under the lock
         result, content = _plan(reg, candidate, candidate_path, bump, dry_run=False)
+        result.recovered = first + reg.recovered
         _land(reg, result, content, candidate_path, now)
     return result
 
@@ -445,7 +523,7 @@ def _plan(reg: Registry, candidate: dict, source, bump, *, dry_run: bool):
                                f"{fid!r}: " + "; ".join(problems)
                                + "; nothing was published; fix the registry first")
     latest = reg.latest(fid)
-    previous = None if latest is None else read_record(reg.path / latest["file"])
+    previous = None if latest is None else read_record(reg.file(fid, latest["version"]))
     version, required, changes = plan_version(
         previous, None if latest is None else latest["version"], candidate, bump)
     target = reg.file(fid, version)
@@ -462,13 +540,16 @@ def _plan(reg: Registry, candidate: dict, source, bump, *, dry_run: bool):
 
 def _land(reg: Registry, result: PublishResult, content: dict, source, now) -> None:
     text = file_text(content)
-    write_text_atomic(result.path, text)
-    os.chmod(result.path, 0o444)
     entry = {"version": result.version, "file": f"{result.function_id}/{result.version}.json",
              "published": now or _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
              "sha256": result.sha256, "file_sha256": sha256_bytes(text.encode("utf-8")),
              "bump": result.bump, "previous": result.previous,
              "changes": result.changes, "source_file": Path(source).name}
+    journal = {"function_id": result.function_id, "entry": entry}
+    write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
+    write_text_atomic(result.path, text)
+    os.chmod(result.path, 0o444)
     reg.index.setdefault("format", INDEX_FORMAT)
     reg.index.setdefault("functions", {}).setdefault(result.function_id, []).append(entry)
     _write_index(reg)
+    (reg.path / PENDING).unlink()

@@ -47,6 +47,8 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
         return
+    for message in result.recovered:
+        click.echo(f"Note: {message}.", err=True)
     verb = "Would publish" if dry_run else "Published"
     click.echo(f"{verb} {result.function_id} {result.version} -> {result.path}")
     if result.previous is None:

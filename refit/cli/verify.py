@@ -41,6 +41,10 @@ def verify(target: str, store: str | None, tolerance: float, fmt: str) -> None:
 
     path = Path(target)
     if path.is_dir():
+        from refit.registry import open_registry
+
+        for message in open_registry(path).recovered:  # finish an interrupted publish
+            click.echo(f"Note: {message}.", err=True)
         report = verify_registry(path, store=store, tol=tolerance)
     else:
         report = verify_file(path, store=store, tol=tolerance)
