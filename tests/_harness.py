@@ -1,0 +1,150 @@
+"""Shared helpers for tests that run refit in real processes (kill and concurrency tests).
+
+A child process imports refit and its heavy libraries first, prints ``ready`` and only then
+runs the command, so a kill moment drawn after ``ready`` falls inside the command's own
+work (reading, checking, staging, committing), not inside ``import pandas``.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from refit._resources import demo_dir
+
+#: Number of kill moments per test: a handful in CI, >= 100 with REFIT_LONG=1.
+LONG = os.environ.get("REFIT_LONG", "") not in ("", "0")
+
+LAUNCH = """
+import sys
+import numpy, pandas, filelock, jsonschema  # noqa: F401  heavy imports before 'ready'
+import refit.store, refit.registry, refit.checks, refit.tables, refit.units  # noqa: F401
+import refit.coefficients, refit.verify  # noqa: F401
+from refit.cli import main
+sys.stdout.write("ready\\n")
+sys.stdout.flush()
+main(args=sys.argv[1:], prog_name="refit")
+"""
+
+RECIPE = """
+[data]
+store = "store"
+
+[subset]
+parent_material = "loess"
+
+[function]
+id = "map_from_bk_depth"
+response = "map_mm"
+predictors = ["bk_depth_cm"]
+
+[candidates]
+forms = ["linear", "quadratic"]
+estimators = ["ols"]
+directions = ["inverse"]
+
+[validation]
+scheme = "kfold"
+folds = 3
+seed = 20261209
+
+[intervals]
+level = 0.95
+methods = ["analytic"]
+"""
+LINEAR = "linear__ols__inverse__analytic.json"
+QUADRATIC = "quadratic__ols__inverse__analytic.json"
+
+
+def n_runs(ci: int, long: int = 100) -> int:
+    """How many kill moments: ``ci`` normally, ``long`` with REFIT_LONG=1."""
+    return long if LONG else ci
+
+
+def refit_args(*args) -> list[str]:
+    return [sys.executable, "-c", LAUNCH, *map(str, args)]
+
+
+def start(*args, cwd=None) -> subprocess.Popen:
+    """Start ``refit ARGS`` in a child process; return once it has said ``ready``."""
+    env = {**os.environ, "PYTHONHASHSEED": "0", "COLUMNS": "200"}
+    proc = subprocess.Popen(refit_args(*args), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True, cwd=cwd, env=env)
+    line = proc.stdout.readline()
+    if line.strip() != "ready":
+        out, err = proc.communicate(timeout=60)
+        raise AssertionError(f"child did not start: {line}{out}{err}")
+    return proc
+
+
+def run(*args, cwd=None, timeout: float = 120) -> tuple[int, str, str]:
+    """Run ``refit ARGS`` to the end: (exit code, stdout, stderr)."""
+    proc = start(*args, cwd=cwd)
+    out, err = proc.communicate(timeout=timeout)
+    return proc.returncode, out, err
+
+
+def run_killed(*args, delay: float, cwd=None) -> tuple[int, str, str]:
+    """Run ``refit ARGS`` and SIGKILL it ``delay`` s after ``ready`` (if still running)."""
+    proc = start(*args, cwd=cwd)
+    deadline = time.monotonic() + delay
+    while time.monotonic() < deadline and proc.poll() is None:
+        time.sleep(min(0.002, max(0.0, deadline - time.monotonic())))
+    if proc.poll() is None:
+        proc.send_signal(signal.SIGKILL)
+    out, err = proc.communicate(timeout=60)
+    return proc.returncode, out, err
+
+
+def timed_run(*args, cwd=None) -> float:
+    """Seconds from ``ready`` to exit of a full run (must succeed)."""
+    proc = start(*args, cwd=cwd)
+    t0 = time.monotonic()
+    out, err = proc.communicate(timeout=120)
+    assert proc.returncode == 0, out + err
+    return time.monotonic() - t0
+
+
+def snapshot(folder: Path) -> dict[str, bytes]:
+    """Every file under ``folder`` (relative POSIX path -> bytes), except the lock file."""
+    folder = Path(folder)
+    return {p.relative_to(folder).as_posix(): p.read_bytes()
+            for p in sorted(folder.rglob("*")) if p.is_file() and p.name != ".lock"}
+
+
+def visible(snap: dict[str, bytes]) -> dict[str, bytes]:
+    """The entries a reader sees: no path component starts with '.' (no temporary files)."""
+    return {k: v for k, v in snap.items() if not any(s.startswith(".") for s in k.split("/"))}
+
+
+def copy_demo_store(dest: Path) -> Path:
+    shutil.copytree(demo_dir() / "store", dest)
+    return dest
+
+
+def make_fits(root: Path) -> Path:
+    """A small run (2 candidates) on a copy of the demo store; returns RUN/fits."""
+    from refit.matrix import run_recipe
+    from refit.recipe import read_recipe
+    from refit.runfolder import write_run
+
+    if not (root / "store").exists():
+        copy_demo_store(root / "store")
+    (root / "recipe.toml").write_text(RECIPE, encoding="utf-8")
+    run_ = run_recipe(read_recipe(root / "recipe.toml"))
+    return write_run(run_, root / "run", overwrite=True) / "fits"
+
+
+def cli(*args) -> tuple[int, str]:
+    """Run ``refit ARGS`` in-process (click's CliRunner): (exit code, stdout + stderr)."""
+    from click.testing import CliRunner
+
+    from refit.cli import main
+
+    result = CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+    return result.exit_code, result.output
