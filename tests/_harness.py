@@ -28,6 +28,9 @@ import refit.coefficients, refit.verify  # noqa: F401
 from refit.cli import main
 sys.stdout.write("ready\\n")
 sys.stdout.flush()
+if len(sys.argv) > 1 and sys.argv[1] == "--gate":  # wait for "go" on stdin
+    sys.stdin.readline()
+    sys.argv.pop(1)
 main(args=sys.argv[1:], prog_name="refit")
 """
 
@@ -70,10 +73,15 @@ def refit_args(*args) -> list[str]:
     return [sys.executable, "-c", LAUNCH, *map(str, args)]
 
 
-def start(*args, cwd=None) -> subprocess.Popen:
-    """Start ``refit ARGS`` in a child process; return once it has said ``ready``."""
+def start(*args, cwd=None, gate: bool = False) -> subprocess.Popen:
+    """Start ``refit ARGS`` in a child process; return once it has said ``ready``.
+
+    With ``gate`` the child then waits for a line on its stdin before it runs the command
+    (so several children can be released at the same moment)."""
     env = {**os.environ, "PYTHONHASHSEED": "0", "COLUMNS": "200"}
+    args = ("--gate", *args) if gate else args
     proc = subprocess.Popen(refit_args(*args), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            stdin=subprocess.PIPE if gate else subprocess.DEVNULL,
                             text=True, cwd=cwd, env=env)
     line = proc.stdout.readline()
     if line.strip() != "ready":
