@@ -289,7 +289,7 @@ def _fast_typed(path, codec, delim, scan, notes) -> Table | None:
     if any(c.startswith("Unnamed: ") for c in frame.columns) or _has_dupes(frame.columns):
         return None
     rows = np.arange(2, len(frame) + 2)
-    empty = frame.iloc[:, 0].isna().to_numpy()
+    empty = frame.iloc[:, 0].isna().to_numpy(copy=True)  # writable (pandas 3 views are not)
     if empty.any():
         empty[empty] = frame.loc[empty].isna().all(axis=1).to_numpy()
     if empty.any():
