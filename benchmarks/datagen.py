@@ -170,6 +170,26 @@ def ensure_table(data_dir: Path, n: int, *, seed: int, schemas_dir: Path) -> Pat
     return path
 
 
+
+# --------------------------------------------------------------------------- fitting cases
+def fit_data(n: int, seed: int = 20261201) -> tuple[np.ndarray, np.ndarray]:
+    """Depth to the Bk horizon x [cm] and MAP y [mm] for the fitting benchmarks.
+
+    An invented quadratic relation with scatter, y = 150 + 5.2 x - 0.008 x^2 + e,
+    e ~ N(0, 90 mm), x ~ U(10, 250 cm): shaped like a Bk depth-MAP calibration, nothing more.
+    """
+    rng = np.random.default_rng([seed, n])
+    x = np.round(rng.uniform(10.0, 250.0, n), 1)
+    y = 150.0 + 5.2 * x - 0.008 * x * x + rng.normal(0.0, 90.0, n)
+    return x, np.round(y, 1)
+
+
+def feature_values(n: int, seed: int = 20261201) -> np.ndarray:
+    """Fossil-like Bk depths [cm] at which a coefficient file is evaluated (some outside the
+    calibration range, so the range flags are exercised)."""
+    rng = np.random.default_rng([seed, n, 1])
+    return np.round(rng.uniform(2.0, 320.0, n), 1)
+
 if __name__ == "__main__":
     rows, out = int(float(sys.argv[1])), Path(sys.argv[2])
     schemas = Path(__file__).resolve().parents[1] / "schemas"

@@ -113,6 +113,22 @@ def kth_smallest(values: np.ndarray, k: int) -> np.ndarray:
     return np.partition(values, k - 1, axis=-1)[..., k - 1]
 
 
+def _kth_in_place(values: np.ndarray, k: int) -> np.ndarray:
+    """As :func:`kth_smallest` on a scratch array, partitioned in place (no copy)."""
+    size = values.shape[-1]
+    if k < 1:
+        return np.full(values.shape[:-1], -np.inf)
+    if k > size:
+        return np.full(values.shape[:-1], np.inf)
+    values.partition(k - 1, axis=-1)
+    return values[..., k - 1].copy()
+
+
+#: (new values x n) elements per block of a jackknife+/CV+ band: 256 KB of float64, kept in
+#: cache (blocks of 10^6 elements, fresh pages each, were about 4x slower)
+PLUS_BLOCK_ELEMENTS = 32_768
+
+
 def _rank_lower(alpha: float, n: int) -> int:
     return int(math.floor(alpha * (n + 1) + 1e-9))
 
@@ -145,12 +161,13 @@ def _plus_band(mu_rows, r: np.ndarray, alpha: float, m: int):
     """Jackknife+ / CV+ limits: ``mu_rows(sl)`` gives the (rows, n) leave-out predictions."""
     n = r.shape[0]
     lower, upper = np.empty(m), np.empty(m)
-    step = max(1, 1_000_000 // max(n, 1))
+    step = max(1, PLUS_BLOCK_ELEMENTS // max(n, 1))  # cache-sized blocks; rows independent
+    k_lo, k_hi = _rank_lower(alpha, n), _rank_upper(alpha, n)
     for start in range(0, m, step):
         sl = slice(start, min(m, start + step))
         mu = mu_rows(sl)
-        lower[sl] = kth_smallest(mu - r, _rank_lower(alpha, n))
-        upper[sl] = kth_smallest(mu + r, _rank_upper(alpha, n))
+        lower[sl] = _kth_in_place(mu - r, k_lo)
+        upper[sl] = _kth_in_place(mu + r, k_hi)
     return lower, upper
 
 
