@@ -33,6 +33,7 @@ Rules (``rule`` ids; severity error unless noted):
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -41,7 +42,7 @@ import pandas as pd
 from refit import schema as _schema
 from refit._cells import parse_cells
 from refit._problems import PROBLEM_COLUMNS, Problems, fmt_values
-from refit.errors import UsageError
+from refit.errors import InvalidDataError, UsageError
 from refit.vocabularies import (  # noqa: F401  (re-exported: part of the checks API)
     VOCABULARY_COLUMNS, check_vocabularies, load_vocabularies, match_vocabulary, vocab_key,
 )
@@ -155,6 +156,15 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
         Missing, empty or unparseable file (exit code 2).
     """
     _check_kind(kind)
+    try:
+        return _check_file(path, kind, vocabularies)
+    except InvalidDataError as exc:  # e.g. two columns mapping to one: say which file
+        if Path(path).name in str(exc):
+            raise
+        raise InvalidDataError(f"{path}: {exc}") from None
+
+
+def _check_file(path, kind: str, vocabularies) -> CheckReport:
     if kind == "fossil":
         from refit.fossils import check_fossil_file
 
