@@ -1,0 +1,330 @@
+"""Fuzzed input through the command line (click's CliRunner, in-process).
+
+Malformed calibration and fossil tables, recipes and coefficient files are generated with
+hypothesis: wrong types, missing and extra columns, unicode, huge and tiny numbers, NaN and
+infinities, wrong delimiters, truncated files, other encodings and random bytes. The
+property, for every command: the exit code is 0, 1 or 2; no traceback is shown and the
+guarded wrapper's "unexpected" message (which means a refit bug) never appears; a failure
+says "Error:" (or a FAIL or INVALID verdict) and names the file; and for admit, rows read = accepted +
+rejected (the store's manifest agrees).
+
+CI runs 30 examples per property (derandomized profile "ci" of tests/conftest.py);
+HYPOTHESIS_PROFILE=long runs 10,000.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from _harness import LINEAR, make_fits
+from refit._resources import demo_dir
+from refit.cli import main
+
+LONG = os.environ.get("HYPOTHESIS_PROFILE") == "long"
+FUZZ = settings(max_examples=10_000 if LONG else 30, deadline=None,
+                suppress_health_check=[HealthCheck.too_slow,
+                                       HealthCheck.function_scoped_fixture])
+
+CALIBRATION = ["profile_id", "latitude", "longitude", "source", "map_mm", "mat_c", "mar_mm",
+               "bk_depth_cm", "bk_thickness_cm", "by_depth_cm", "sio2_wt", "al2o3_wt",
+               "cao_wt", "vegetation", "parent_material", "soil_order", "age_ka",
+               "MAP (in)", "Depth to Bk (in)", "Lat", "mat_f"]
+FOSSIL = ["paleosol_id", "bk_depth_cm", "bk_depth_sd_cm", "bk_thickness_cm",
+          "burial_depth_km", "soil_order", "vegetation", "parent_material", "sio2_wt",
+          "al2o3_wt", "cao_wt", "notes"]
+ODD_CELLS = ["", "nan", "NaN", "inf", "-inf", "Infinity", "1e308", "1e-308", "1e999", "-0",
+             "12,5", "1.2.3", "∞", " 7 ", "0x1F", "NULL", "N/A", "—", "grassland",
+             "Mollisols", "loess", "shrubland", "-40.5", "52.25", "300", "60", "1e-320",
+             "\"", "'", "a\"b", "=1+1", "\u200b5", "５", "٣"]
+
+
+def invoke(*args):
+    result = CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=True)
+    return result
+
+
+def assert_well_behaved(result, path=None):
+    out = result.output
+    assert result.exception is None or isinstance(result.exception, SystemExit), \
+        f"uncaught {type(result.exception).__name__}: {result.exception}\n{out}"
+    assert result.exit_code in (0, 1, 2), out
+    assert "Traceback" not in out, out
+    assert "unexpected" not in out, out  # the guarded wrapper's 'this is a bug' message
+    if result.exit_code != 0:
+        assert any(w in out for w in ("Error:", "FAIL", "INVALID", "problem")), out
+        if path is not None and "Error:" in out:
+            assert Path(path).name in out, out
+
+
+# ----------------------------------------------------------------------------- tables
+cells = st.one_of(
+    st.sampled_from(ODD_CELLS),
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.integers(-10 ** 30, 10 ** 30).map(str),
+    st.text(max_size=10),
+)
+
+
+@st.composite
+def table_bytes(draw, names):
+    cols = draw(st.lists(st.one_of(st.sampled_from(names), st.text(max_size=8)),
+                         min_size=0, max_size=len(names) + 2, unique=True))
+    if draw(st.booleans()):  # half the tables have the required columns: rows get checked
+        cols = [c for c in names[:5] if c not in cols] + cols
+    delim = draw(st.sampled_from([",", ";", "\t", "|", " "]))
+    header_delim = draw(st.sampled_from([delim, delim, ","]))  # sometimes the wrong one
+    n_rows = draw(st.integers(0, 8))
+    lines = [header_delim.join(cols)]
+    for _ in range(n_rows):
+        lines.append(delim.join(draw(cells) for _ in cols))
+    if draw(st.booleans()):
+        lines.insert(0, draw(st.text(max_size=30)))  # a title row, or junk
+    text = "\n".join(lines) + draw(st.sampled_from(["\n", "", "\r\n"]))
+    mode = draw(st.sampled_from(["utf8", "utf8", "bom", "latin1", "utf16", "truncated",
+                                 "bytes", "empty"]))
+    if mode == "bytes":
+        return draw(st.binary(max_size=400))
+    if mode == "empty":
+        return b""
+    data = {"utf8": lambda t: t.encode("utf-8", "surrogatepass"),
+            "bom": lambda t: b"\xef\xbb\xbf" + t.encode("utf-8", "surrogatepass"),
+            "latin1": lambda t: t.encode("latin-1", "replace"),
+            "utf16": lambda t: t.encode("utf-16", "surrogatepass"),
+            "truncated": lambda t: t.encode("utf-8", "surrogatepass")}[mode](text)
+    if mode == "truncated" and data:
+        data = data[: draw(st.integers(0, len(data) - 1))]
+    return data
+
+
+@FUZZ
+@given(data=table_bytes(CALIBRATION), ext=st.sampled_from(["csv", "tsv", "txt", "xlsx"]))
+def test_check_never_crashes_on_calibration_tables(data, ext):
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / f"soils.{ext}"
+        path.write_bytes(data)
+        assert_well_behaved(invoke("check", path), path)
+
+
+@FUZZ
+@given(data=table_bytes(FOSSIL))
+def test_check_and_apply_never_crash_on_fossil_tables(data):
+    import refit.published
+
+    equation = Path(refit.published.__file__).parent / "map_from_bk_depth.retallack1994.json"
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "fossils.csv"
+        path.write_bytes(data)
+        assert_well_behaved(invoke("check", path, "--kind", "fossil"), path)
+        assert_well_behaved(invoke("apply", equation, "--fossils", path))
+
+
+ADMITTED: list[int] = []  # examples that landed (seen by test_fuzzing_reaches_admits)
+
+
+@FUZZ
+@given(data=table_bytes(CALIBRATION))
+def test_admit_accounts_for_every_row_read(data):
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "incoming.csv"
+        path.write_bytes(data)
+        store = Path(tmp) / "store"
+        result = invoke("admit", path, "--into", store, "--format", "json")
+        assert_well_behaved(result, path)
+        if result.exit_code == 0:
+            ADMITTED.append(1)
+            report = json.loads(result.stdout)
+            assert report["rows_read"] == report["accepted"] + report["rejected"]
+            manifest = json.loads((store / "manifest.json").read_text("utf-8"))
+            entry = manifest["changelog"][-1]
+            assert (entry["rows_read"], entry["accepted"], entry["rejected"]) == (
+                report["rows_read"], report["accepted"], report["rejected"])
+            assert manifest["row_count"] == report["accepted"]
+        else:
+            assert not (store / "manifest.json").exists()  # nothing written
+
+
+def test_fuzzing_reaches_admits():
+    # the generator must produce tables that land (else the accounting is never tested);
+    # runs after test_admit_accounts_for_every_row_read in file order
+    if ADMITTED == [] and not os.environ.get("PYTEST_XDIST_WORKER"):
+        test_admit_accounts_for_every_row_read()
+    assert len(ADMITTED) >= 1
+
+
+# ----------------------------------------------------------------------------- recipes
+def toml_value(value) -> str:
+    """A TOML rendering of a generated value (strings as JSON-escaped basic strings)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return "nan" if math.isnan(value) else ("inf" if value > 0 else "-inf") \
+            if math.isinf(value) else repr(value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, list):
+        return "[" + ", ".join(toml_value(v) for v in value) + "]"
+    return "{" + ", ".join(f"{json.dumps(k)} = {toml_value(v)}" for k, v in value.items()) + "}"
+
+
+scalars = st.one_of(st.booleans(), st.integers(-3, 12), st.floats(allow_nan=True),
+                    st.text(max_size=12),
+                    st.sampled_from(["linear", "quadratic", "ols", "huber", "inverse",
+                                     "forward", "kfold", "loo", "analytic", "map_mm",
+                                     "bk_depth_cm", "source", "../x", "/etc", "map mm"]))
+values = st.one_of(scalars, st.lists(scalars, max_size=3),
+                   st.dictionaries(st.sampled_from(["min", "max", "x"]), scalars, max_size=2))
+
+BASE_RECIPE = {
+    "data": {"table": "soils.csv"},
+    "subset": {"parent_material": "loess"},
+    "function": {"id": "map_from_bk_depth", "response": "map_mm",
+                 "predictors": ["bk_depth_cm"]},
+    "candidates": {"forms": ["linear"], "estimators": ["ols"], "directions": ["inverse"]},
+    "validation": {"scheme": "kfold", "folds": 3, "seed": 1},
+    "intervals": {"level": 0.95, "methods": ["analytic"]},
+}
+KEYS = [(s, k) for s, d in BASE_RECIPE.items() for k in d] + [
+    ("subset", "vegetation"), ("subset", "age_ka"), ("validation", "repeats"),
+    ("validation", "groups"), ("bogus", "key"), ("function", "extra")]
+
+
+@st.composite
+def recipe_bytes(draw):
+    doc = json.loads(json.dumps(BASE_RECIPE))
+    for _ in range(draw(st.integers(1, 3))):
+        section, key = draw(st.sampled_from(KEYS))
+        if draw(st.integers(0, 4)) == 0:
+            doc.get(section, {}).pop(key, None)
+        else:
+            doc.setdefault(section, {})[key] = draw(values)
+    text = "\n".join(f"[{s}]\n" + "\n".join(f"{json.dumps(k)} = {toml_value(v)}"
+                                            for k, v in d.items()) for s, d in doc.items())
+    data = text.encode("utf-8", "surrogatepass")
+    mode = draw(st.sampled_from(["whole"] * 4 + ["truncated", "bytes"]))
+    if mode == "truncated":
+        data = data[: draw(st.integers(0, len(data)))]
+    elif mode == "bytes":
+        data = draw(st.binary(max_size=300))
+    return data
+
+
+@pytest.fixture(scope="module")
+def soils(tmp_path_factory):
+    """A small calibration table (the demo store's loess soils, first 40 rows)."""
+    import pandas as pd
+
+    folder = tmp_path_factory.mktemp("fuzz-recipe")
+    records = pd.read_csv(demo_dir() / "store" / "records.csv", dtype=str,
+                          keep_default_na=False)
+    records[records["parent_material"] == "loess"].head(40).to_csv(folder / "soils.csv",
+                                                                   index=False)
+    return folder / "soils.csv"
+
+
+@FUZZ
+@given(data=recipe_bytes())
+def test_fit_never_crashes_on_recipes(soils, data):
+    with tempfile.TemporaryDirectory() as tmp:
+        shutil.copy(soils, Path(tmp) / "soils.csv")
+        recipe = Path(tmp) / "recipe.toml"
+        recipe.write_bytes(data)
+        result = invoke("fit", recipe, "--out", Path(tmp) / "run", "--quiet")
+        assert_well_behaved(result)
+        if result.exit_code != 0:
+            assert "recipe.toml" in result.output or "soils.csv" in result.output, \
+                result.output
+
+
+# ----------------------------------------------------------------------------- coefficients
+@pytest.fixture(scope="module")
+def candidate(tmp_path_factory):
+    fits = make_fits(tmp_path_factory.mktemp("fuzz-coef"))
+    return json.loads((fits / LINEAR).read_text("utf-8"))
+
+
+json_values = st.recursive(
+    st.one_of(st.none(), st.booleans(), st.integers(-10 ** 20, 10 ** 20),
+              st.floats(allow_nan=True, allow_infinity=True), st.text(max_size=10),
+              st.sampled_from([1e308, 5e-324, -1e308, 0.0, -0.0, "NaN", "inf"])),
+    lambda inner: st.one_of(st.lists(inner, max_size=3),
+                            st.dictionaries(st.text(max_size=5), inner, max_size=3)),
+    max_leaves=6)
+
+
+def paths(content, prefix=()):
+    """Every key path into a JSON document (into objects and lists)."""
+    out = [prefix] if prefix else []
+    if isinstance(content, dict):
+        for k, v in content.items():
+            out += paths(v, prefix + (k,))
+    elif isinstance(content, list):
+        for i, v in enumerate(content):
+            out += paths(v, prefix + (i,))
+    return out
+
+
+@st.composite
+def coefficient_bytes(draw, candidate):
+    from refit.coefficients import content_sha256
+
+    doc = json.loads(json.dumps(candidate))
+    for _ in range(draw(st.integers(1, 3))):
+        where = draw(st.sampled_from(paths(doc) + [("extra_field",)]))
+        parent = doc
+        try:
+            for k in where[:-1]:
+                parent = parent[k]
+            action = draw(st.sampled_from(["set", "set", "delete"]))
+            if action == "delete" and isinstance(parent, dict):
+                parent.pop(where[-1], None)
+            elif isinstance(parent, dict) or (isinstance(parent, list)
+                                              and where[-1] < len(parent)):
+                parent[where[-1]] = draw(json_values)
+        except (KeyError, IndexError, TypeError):
+            pass
+    if draw(st.booleans()):  # rehash, so the file gets past the hash to the schema
+        try:
+            doc["sha256"] = content_sha256(doc)
+        except Exception:  # noqa: BLE001  (content that cannot be hashed: keep the old)
+            pass
+    data = json.dumps(doc, indent=1, ensure_ascii=draw(st.booleans())).encode(
+        "utf-8", "surrogatepass")
+    mode = draw(st.sampled_from(["whole"] * 4 + ["truncated", "bytes"]))
+    if mode == "truncated":
+        data = data[: draw(st.integers(0, len(data)))]
+    elif mode == "bytes":
+        data = draw(st.binary(max_size=300))
+    return data
+
+
+@FUZZ
+@given(data=st.data())
+def test_verify_and_apply_never_crash_on_coefficient_files(candidate, data):
+    raw = data.draw(coefficient_bytes(candidate))
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "fit.json"
+        path.write_bytes(raw)
+        assert_well_behaved(invoke("verify", path), path)
+        assert_well_behaved(invoke("apply", path, "--fossils",
+                                   demo_dir() / "fossils.csv"), path)
+
+
+def test_the_property_catches_a_traceback():
+    # the checker itself must fail on a crash (a test that cannot fail is a defect)
+    class Fake:
+        exception, exit_code = ZeroDivisionError("x"), 1
+        output = "Traceback (most recent call last):"
+    with pytest.raises(AssertionError):
+        assert_well_behaved(Fake())
