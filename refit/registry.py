@@ -372,7 +372,8 @@ def _recover(path: Path) -> list[str]:
     for tmp in tmps:
         tmp.unlink(missing_ok=True)
     if tmps:
-        out.append(f"removed {len(tmps)} temporary file(s) left by an interrupted write ("
+        out.append(f"recovered after an interrupted write: removed {len(tmps)} temporary "
+                   "file(s) ("
                    + ", ".join(sorted(t.name for t in tmps)) + ")")
     return out
 
