@@ -8,7 +8,7 @@ runs 100 per command.
 
 The oracle is the pair of states produced by not running and by running the command to the
 end (snapshots of every file's bytes); the kill moments are drawn with a seeded
-``random.Random`` over the command's measured run time, half of them inside its last 25 %,
+``random.Random`` over the command's measured run time, half of them inside its last 15 %,
 where the staging, commit and moves happen.
 """
 
@@ -36,8 +36,8 @@ def kill_moments(duration: float, n: int, seed: int) -> list[float]:
     rng = random.Random(seed)
     out = [0.0, duration * 3]
     for i in range(max(0, n - 2)):
-        lo = 0.75 * duration if i % 2 == 0 else 0.0
-        out.append(rng.uniform(lo, 1.1 * duration))
+        lo, hi = (0.85, 1.05) if i % 2 == 0 else (0.0, 1.1)
+        out.append(rng.uniform(lo * duration, hi * duration))
     return out
 
 
