@@ -239,6 +239,47 @@ def _one(frame, recipe, spec, schemes, splits, n_jobs, tick):
     return f, insample, out
 
 
+def _candidate_job(frame, recipe, spec, schemes, splits, n_jobs):
+    """One candidate, run alike in this process or a worker: BLAS on one thread (so the
+    bits do not depend on where it ran), failures returned as text, not raised."""
+    from .splits import _blas
+
+    t = time.perf_counter()
+    try:
+        with _blas().limit(limits=1, user_api="blas"):
+            f, insample, res = _one(frame, recipe, spec, schemes, splits, n_jobs,
+                                    lambda label: None)
+    except RefitError as exc:
+        return spec, None, f"failed: {exc}", 0.0
+    return spec, (f, insample, res), None, round(time.perf_counter() - t, 4)
+
+
+def _candidate_results(frame, recipe, specs, schemes, splits, n_jobs, progress_one):
+    """Yield each candidate's outcome in the order of ``specs``.
+
+    Serial (``n_jobs == 1``, or a single candidate: then its folds get the workers): in
+    this process. Otherwise the candidates are spread over ``n_jobs`` worker processes
+    (joblib's loky backend) and their folds run serially inside each worker, so no two
+    levels compete for the cores. Each candidate's numbers depend only on the recipe's
+    seed (folds and interval seeds are fixed before it starts), so the results are
+    identical bit for bit to the serial run's.
+    """
+    if n_jobs == 1 or len(specs) < 2:
+        for spec in specs:
+            out = _candidate_job(frame, recipe, spec, schemes, splits, n_jobs)
+            progress_one(out)
+            yield out
+        return
+    from joblib import Parallel, delayed, effective_n_jobs
+
+    workers = min(effective_n_jobs(n_jobs), len(specs))
+    jobs = Parallel(n_jobs=workers, return_as="generator")(
+        delayed(_candidate_job)(frame, recipe, spec, schemes, splits, 1) for spec in specs)
+    for out in jobs:
+        progress_one(out)
+        yield out
+
+
 def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> MatrixResult:
     """Cross-validate every valid candidate of a recipe on a subset and rank them.
 
@@ -248,10 +289,13 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
         The subset: rows with the response and predictors present.
     recipe : Recipe
     n_jobs : int
-        Workers for the folds of each cross-validation (1: serial).
+        Worker processes (1: serial; -1: all cores). With several candidates they are
+        spread over the workers (each candidate's folds run serially in its worker); with
+        one candidate its folds are. Results are identical to the serial run's, bit for
+        bit, for the same recipe and seed.
     progress : callable, optional
         ``progress(total=...)`` once, then ``progress(advance=1, label=...)`` per
-        cross-validation run.
+        cross-validation run (per candidate and scheme, as each candidate finishes).
 
     Returns
     -------
@@ -267,20 +311,26 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
     splits = {k: None if s is None else _make_splits(frame, s, recipe)
               for k, s in schemes.items()}
     per = sum(s is not None for s in schemes.values())
-    tick = (lambda label: progress(advance=1, label=label)) if progress else (lambda label: None)
     if progress:
         progress(total=len(specs) * per)
+
+    def progress_one(out):
+        if not progress:
+            return
+        spec, done, failed, _ = out
+        for key, scheme in schemes.items():
+            if scheme is not None:
+                progress(advance=1, label=f"{spec.label} "
+                         + ("(failed)" if failed else f"({scheme.name})"))
+
     rows, preds, fits, cvs, valid, times = [], [], {}, {}, [], {}
-    for spec in specs:
-        t = time.perf_counter()
-        try:
-            f, insample, res = _one(frame, recipe, spec, schemes, splits, n_jobs, tick)
-        except RefitError as exc:
-            skipped.append({"candidate": spec.label, "reason": f"failed: {exc}"})
-            for _ in range(per):
-                tick(f"{spec.label} (failed)")
+    for spec, done, failed, seconds in _candidate_results(frame, recipe, specs, schemes,
+                                                          splits, n_jobs, progress_one):
+        if failed:
+            skipped.append({"candidate": spec.label, "reason": failed})
             continue
-        times[spec.label] = round(time.perf_counter() - t, 4)
+        f, insample, res = done
+        times[spec.label] = seconds
         valid.append(spec)
         fits[spec.label], cvs[spec.label] = f, res
         rows.append(_row(spec, res["main"], res["kfold"], insample))
