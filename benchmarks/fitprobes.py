@@ -44,6 +44,18 @@ def _new_values(x):
     return np.linspace(np.quantile(x, 0.02), np.quantile(x, 0.98), N_NEW)
 
 
+def _set_new_values(extra: list[str]) -> list[str]:
+    """``--m=K`` among the extra arguments sets how many new values are predicted."""
+    global N_NEW
+    rest = []
+    for arg in extra:
+        if arg.startswith("--m="):
+            N_NEW = int(arg[4:])
+        else:
+            rest.append(arg)
+    return rest
+
+
 def _timed(work, warm, budget_s: float = 1.0, most: int = 7):
     """Warm up, then run ``work`` until ``budget_s`` is spent (at most ``most`` times, at
     least once); returns the wall times of the runs [s] and the last run's output."""
@@ -88,6 +100,38 @@ def refit_loo(n, seed):
         return p["estimate"].to_numpy(), p["lower"].to_numpy(), p["upper"].to_numpy()
 
     xs, ys = datagen.fit_data(50, seed + 1)
+    return _timed(work, lambda: work(xs, ys))
+
+
+def refit_loo_closed(n, seed):
+    """The closed form alone: ``refit.crossval.loo_ols`` on the arrays (no table, no skill
+    scores)."""
+    from refit.crossval import loo_ols
+    from refit.forms import make_form
+
+    x, y = datagen.fit_data(n, seed)
+    form = make_form("quadratic", ["bk_depth_cm"])
+
+    def work(x=x, y=y):
+        est, lo, hi, _ = loo_ols(x, y, form, LEVEL)
+        return est, lo, hi
+
+    xs, ys = datagen.fit_data(50, seed + 1)
+    return _timed(work, lambda: work(xs, ys))
+
+
+def refit_jackknife_plus_closed(n, seed):
+    """The closed form alone: ``refit.intervals.jackknife_plus`` on the design arrays."""
+    from refit.intervals import jackknife_plus
+
+    x, y = datagen.fit_data(n, seed)
+    X0 = _design(_new_values(x))
+
+    def work(x=x, y=y):
+        pi = jackknife_plus(_design(x), y, X0, level=LEVEL)
+        return pi.estimate, pi.lower, pi.upper
+
+    xs, ys = datagen.fit_data(60, seed + 1)
     return _timed(work, lambda: work(xs, ys))
 
 
@@ -177,10 +221,10 @@ def naive_jackknife_plus(n, seed):
         keep = np.ones(n_, dtype=bool)
         for i in range(n_):
             keep[i] = False
-            b = sm.OLS(y[keep], X[keep]).fit().params
+            res = sm.OLS(y[keep], X[keep]).fit()
             keep[i] = True
-            mu[:, i] = X0 @ b
-            r[i] = abs(y[i] - X[i] @ b)
+            mu[:, i] = res.predict(X0)
+            r[i] = abs(y[i] - res.predict(X[i:i + 1])[0])
         k_lo = math.floor(ALPHA * (n_ + 1) + 1e-9)
         k_hi = math.ceil((1 - ALPHA) * (n_ + 1) - 1e-9)
         lower = np.sort(mu - r, axis=1)[:, k_lo - 1]
@@ -256,7 +300,8 @@ def naive_evaluate(n, seed, file):
 
 PROBES = {
     "refit_fit": refit_fit, "naive_fit": naive_fit,
-    "refit_loo": refit_loo, "naive_loo": naive_loo,
+    "refit_loo": refit_loo, "naive_loo": naive_loo, "refit_loo_closed": refit_loo_closed,
+    "refit_jackknife_plus_closed": refit_jackknife_plus_closed,
     "refit_jackknife_plus": refit_resampled("jackknife+"),
     "naive_jackknife_plus": naive_jackknife_plus,
     "refit_bootstrap": refit_resampled("bootstrap-pairs"), "naive_bootstrap": naive_bootstrap,
@@ -266,7 +311,7 @@ PROBES = {
 
 def main(argv):
     what, n, seed, out = argv[0], int(argv[1]), int(argv[2]), argv[3]
-    extra = argv[4:]
+    extra = _set_new_values(argv[4:])
     t0 = time.perf_counter()
     times, arrays = PROBES[what](n, seed, *extra)
     total = time.perf_counter() - t0

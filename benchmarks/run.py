@@ -76,6 +76,8 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
 def fmt_s(v: float | None) -> str:
     if v is None:
         return "–"
+    if v < 0.01:
+        return f"{v:.5f}"
     return f"{v:.3f}" if v < 10 else f"{v:.1f}"
 
 
@@ -84,7 +86,10 @@ def fmt_mb(v: float | None) -> str:
 
 
 def fmt_ratio(v: float | None) -> str:
-    return "–" if v is None else f"{v:.2f}"
+    """refit / naive; below 0.01 as 1/k (k = the speed-up)."""
+    if v is None:
+        return "–"
+    return f"1/{1 / v:,.0f}" if 0 < v < 0.01 else f"{v:.2f}"
 
 
 def fmt_n(n: int | None) -> str:
@@ -115,8 +120,14 @@ def targets_table(targets: list[Target]) -> str:
             return "–"
         if t.unit == "MB":
             return fmt_mb(v) + " MB"
-        return f"{v:.2f}" + (" s" if t.unit == "s" else "×")
-    lines = [[t.name, val(t, t.measured), ("< " if t.kind == "below" else "≤ ") + val(t, t.limit),
+        if t.unit == "abs":
+            return f"{v:.1e}"
+        if t.unit == "x" and t.kind == "min":
+            return f"{v:,.0f}×" if v >= 10 else f"{v:.2f}×"
+        return (f"{v:.3f}" if t.unit == "s" and v < 0.1 else f"{v:.2f}") + \
+            (" s" if t.unit == "s" else "×")
+    signs = {"below": "< ", "max": "≤ ", "min": "≥ "}
+    lines = [[t.name, val(t, t.measured), signs[t.kind] + val(t, t.limit),
               t.status + (f" ({t.note})" if t.note else "")] for t in targets]
     return markdown_table(header, lines)
 
