@@ -317,12 +317,15 @@ def _data_paths(data: dict, path: Path, lines: dict):
     if not isinstance(value, str) or not value.strip():
         raise UsageError(f"{_where(path, lines, f'data.{key}')}: [data] {key} must be a "
                          f"path in quotes; got {value!r}")
-    if Path(value).is_absolute() or os.path.normpath(value).split(os.sep)[0] == os.pardir:
+    folder = os.path.abspath(path.parent)
+    target = os.path.normpath(os.path.join(folder, value))  # lexical: '..' and absolute
+    if os.path.commonpath([folder, target]) != folder:
         raise UsageError(
             f"{_where(path, lines, f'data.{key}')}: [data] {key} = {value!r} points outside "
             "the recipe's folder; a recipe may only name data inside its own folder (no '..' "
-            "and no absolute path), so a recipe from elsewhere cannot read other files. Put "
-            "the recipe in the folder that holds the data, or copy the data next to it")
+            "out of it, no absolute path elsewhere), so a recipe from elsewhere cannot read "
+            "other files. Put the recipe in the folder that holds the data, or copy the data "
+            "next to it")
     full = (path.parent / value).resolve()
     return (full, None) if key == "table" else (None, full)
 
