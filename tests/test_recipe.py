@@ -80,11 +80,13 @@ def test_defaults_for_optional_sections(tmp_path):
 
 
 def test_paths_relative_to_the_recipe_not_the_working_folder(tmp_path, monkeypatch):
-    sub = tmp_path / "recipes"
+    sub = tmp_path / "project"
+    elsewhere = tmp_path / "elsewhere"
     sub.mkdir()
-    monkeypatch.chdir(tmp_path)
-    r = read_recipe(write(sub, edit('store = "store"', 'store = "../stores/main"')))
-    assert r.store == (tmp_path / "stores" / "main").resolve()
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    r = read_recipe(write(sub, edit('store = "store"', 'store = "stores/main"')))
+    assert r.store == (sub / "stores" / "main").resolve()
 
 
 def test_invalid_toml_names_line_and_column(tmp_path):
