@@ -177,13 +177,17 @@ def _suggest(word: str, choices) -> str:
 
 
 # ----------------------------------------------------------------------------- reading
-def read_recipe(path) -> Recipe:
+def read_recipe(path, *, data: dict | None = None) -> Recipe:
     """Read and check a recipe file.
 
     Parameters
     ----------
     path : str or Path
         The TOML file.
+    data : dict, optional
+        ``{"store": PATH}`` or ``{"table": PATH}`` given on the command line; replaces the
+        recipe's ``[data]`` (which may then be absent). A path the user types may lie
+        anywhere; a path written in a recipe may not leave the recipe's folder.
 
     Returns
     -------
@@ -219,16 +223,18 @@ def read_recipe(path) -> Recipe:
         raise UnreadableInputError(f"{path}: not valid TOML: {exc}; see the TOML 1.0 rules "
                                    "(strings in quotes, one key per line, [section] "
                                    "headers)") from None
-    return parse_recipe(doc, path=path, text=text, sha256=sha256_bytes(raw))
+    return parse_recipe(doc, path=path, text=text, sha256=sha256_bytes(raw), data=data)
 
 
-def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "") -> Recipe:
+def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
+                 data: dict | None = None) -> Recipe:
     """Check a parsed TOML document and build the :class:`Recipe` (see :func:`read_recipe`)."""
+    given = data
     lines = key_lines(text)
     _check_keys(doc, path, lines)
     v = _Values(path, lines)
     data = doc.get("data", {})
-    table, store = _data_paths(data, path, lines)
+    table, store = _data_paths(data, path, lines) if given is None else _given_paths(given)
     fn = doc.get("function", {})
     for key in ("id", "response", "predictors"):
         if key not in fn:
@@ -303,6 +309,15 @@ def _check_keys(doc: dict, path: Path, lines: dict) -> None:
     if "function" not in doc:
         raise UsageError(f"{path}: the recipe needs a [function] section with id, response "
                          "and predictors")
+
+
+def _given_paths(given: dict):
+    """(table, store) from the command line: exactly one, resolved, anywhere."""
+    keys = [k for k in ("table", "store") if given.get(k)]
+    if len(keys) != 1:
+        raise UsageError("give either a table or a store on the command line, not both")
+    full = Path(given[keys[0]]).resolve()
+    return (full, None) if keys[0] == "table" else (None, full)
 
 
 def _data_paths(data: dict, path: Path, lines: dict):

@@ -242,3 +242,21 @@ def test_table_that_fails_its_check(tmp_path):
     assert r.exit_code == 1
     no_traceback(r)
     assert "has 1 error(s) in 1 row(s)" in r.output and "refit check" in r.output
+
+
+def test_store_given_on_the_command_line_may_lie_outside_the_recipe_folder(demo, tmp_path):
+    # a recipe may not name data outside its folder, but the user may (issue: paths in
+    # recipes cannot escape their folder unless passed on the command line)
+    recipes = tmp_path / "recipes"
+    recipes.mkdir()
+    text = (demo / "recipe.toml").read_text().replace('store = "store"',
+                                                      'store = "../store"')
+    text = text.replace("repeats = 10", "repeats = 1")
+    (recipes / "r.toml").write_text(text)
+    refused = invoke(recipes / "r.toml", "--out", tmp_path / "run0", "-q")
+    assert refused.exit_code == 2 and "outside" in refused.output
+    r = invoke(recipes / "r.toml", "--store", demo / "store", "--out", tmp_path / "run", "-q")
+    assert r.exit_code == 0, r.output
+    run = json.loads((tmp_path / "run" / "run.json").read_text())
+    manifest = json.loads((demo / "store" / "manifest.json").read_text())
+    assert run["dataset"]["sha256"] == manifest["records_sha256"]

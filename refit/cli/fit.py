@@ -20,8 +20,12 @@ WIDTH = 150  # columns of the printed leaderboard when stdout is not a terminal
 @click.option("--jobs", type=click.IntRange(min=-1), default=1, show_default=True,
               help="Parallel workers for the folds (-1: all cores).")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
+@click.option("--store", "store", type=click.Path(path_type=str), default=None,
+              help="Use this calibration store instead of the recipe's [data] (may lie anywhere).")
+@click.option("--table", "table", type=click.Path(dir_okay=False, path_type=str), default=None,
+              help="Use this calibration table instead of the recipe's [data].")
 @guarded
-def fit(recipe, out, overwrite, jobs, quiet) -> None:
+def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
     """Cross-validate every candidate of a RECIPE and rank them.
 
     Reads the recipe (TOML), selects the subset of the store or table it names, fits
@@ -38,6 +42,7 @@ def fit(recipe, out, overwrite, jobs, quiet) -> None:
     Examples:
       refit fit calib_demo/recipe.toml
       refit fit my_recipe.toml --out runs/bk-map --jobs 2
+      refit fit recipes/bk.toml --store /data/soils/store   # data outside the recipe folder
     """
     import datetime as dt
     from pathlib import Path
@@ -46,7 +51,12 @@ def fit(recipe, out, overwrite, jobs, quiet) -> None:
     from refit.recipe import read_recipe
     from refit.runfolder import check_target, write_run
 
-    rec = read_recipe(recipe)
+    if store and table:
+        from refit.errors import UsageError
+
+        raise UsageError("give --store or --table, not both")
+    given = {"store": store} if store else {"table": table} if table else None
+    rec = read_recipe(recipe, data=given)
     if out is None:
         stamp = dt.datetime.now().strftime("%Y%m%d-%H%M%S")
         out = Path("runs") / f"{rec.function_id}-{stamp}"
