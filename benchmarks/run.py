@@ -181,8 +181,9 @@ def report_text(result: dict) -> str:
     rows = [Row(**{k: v for k, v in r.items() if k != "ratio"}) for r in result["rows"]]
     for r in rows:
         if len(r.refit_runs) > 1 and r.refit_s is not None:
-            r.note += (f"; runs refit {min(r.refit_runs):.3f}–{max(r.refit_runs):.3f} s, "
-                       f"naive {min(r.naive_runs):.3f}–{max(r.naive_runs):.3f} s")
+            r.note += f"; runs refit {min(r.refit_runs):.4g}–{max(r.refit_runs):.4g} s"
+            if r.naive_runs:
+                r.note += f", naive {min(r.naive_runs):.4g}–{max(r.naive_runs):.4g} s"
     targets = [Target(**{k: v for k, v in t.items() if k != "status"}) for t in result["targets"]]
     m = result["machine"]
     head = (f"Run {result['date']} on {m['cores']} cores ({m['cpu']}), Python {m['python']}, "
