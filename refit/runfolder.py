@@ -31,6 +31,13 @@ OOF_COLUMNS = ("candidate", "scheme", "row", "profile_id", "repeat", "fold", "ob
                "estimate", "lower", "upper", "flags")
 
 
+def shareable(dataset: dict) -> dict:
+    """The dataset's provenance without this machine's path: coefficient files get
+    published and shared, so they name the data by name, version and hash only (the run's
+    own run.json keeps the path, for `refit report`)."""
+    return {k: v for k, v in dataset.items() if k != "path"}
+
+
 def fit_filename(label: str) -> str:
     """File name of a candidate's record: ``quadratic__ols__inverse__jackknife-plus.json``."""
     return label.replace("/", "__").replace("+", "-plus") + ".json"
@@ -103,7 +110,7 @@ def fit_records(run, created: str) -> dict[str, dict]:
         subset = run.subset.to_dict() | {"filters": [f.to_dict() for f in run.recipe.subset]}
         rec = fit_record(
             m.fits[spec.label], function_id=run.recipe.function_id,
-            provenance={"dataset": run.data, "subset": subset,
+            provenance={"dataset": shareable(run.data), "subset": subset,
                         "recipe": run.recipe.to_dict(), "recipe_sha256": run.recipe.sha256},
             cv=cv_summary(m.cv[spec.label]), interval_method=spec.interval,
             level=run.recipe.level, seed=run.recipe.seed, candidate=spec.label,

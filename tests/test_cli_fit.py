@@ -260,3 +260,16 @@ def test_store_given_on_the_command_line_may_lie_outside_the_recipe_folder(demo,
     run = json.loads((tmp_path / "run" / "run.json").read_text())
     manifest = json.loads((demo / "store" / "manifest.json").read_text())
     assert run["dataset"]["sha256"] == manifest["records_sha256"]
+
+
+def test_candidate_files_carry_no_machine_path(demo):
+    # coefficient files are published and shared: the data are named by name, version
+    # and hash, never by this machine's folder
+    recipe = demo / "recipe.toml"
+    recipe.write_text(recipe.read_text().replace("repeats = 10", "repeats = 1"))
+    r = invoke(recipe, "--out", demo / "run", "-q")
+    assert r.exit_code == 0, r.output
+    for f in (demo / "run" / "fits").glob("*.json"):
+        text = f.read_text()
+        assert str(demo) not in text and str(demo.resolve()) not in text
+        assert set(json.loads(text)["provenance"]["dataset"]) >= {"name", "version", "sha256"}
