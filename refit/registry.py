@@ -23,30 +23,30 @@ A published file is written once (atomically, then made read-only) and never rep
 publishing over an existing version is refused. A publish first writes its index entry to
 the journal ``REGISTRY/.publishing.json``; the next command that opens the registry
 finishes a publish whose file had landed (adds the entry) or drops one whose file had not,
-removes stale temporary files, and says so. The file's bytes are exactly
-:func:`file_text` of its content, so any edit, even of one space, is detectable
-(:mod:`refit.verify`). The index is rewritten atomically after the file lands; if the two
-ever disagree (a crash between the writes, a hand edit), ``refit verify REGISTRY`` says how.
+removes stale temporary files, and says so (all in :mod:`refit._registry_commit`). The
+file's bytes are exactly :func:`file_text` of its content, so any edit, even of one space,
+is detectable (:mod:`refit.verify`). The index is rewritten atomically after the file
+lands; if the two ever disagree (a crash between the writes, a hand edit),
+``refit verify REGISTRY`` says how.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
 import json
-import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ._atomic import TMP_PREFIX, sha256_bytes, write_text_atomic
+from ._atomic import sha256_bytes
+from ._registry_commit import LOCK_TIMEOUT_S, PENDING  # noqa: F401
+from ._registry_commit import RegistryLock, commit, needs_recovery, recover_locked
 from ._registry_index import function_problems, registry_problems  # noqa: F401
-from .errors import InvalidDataError, RefitError, UnreadableInputError, UsageError
+from .errors import InvalidDataError, UnreadableInputError, UsageError
 
 INDEX = "index.json"
 INDEX_FORMAT = "refit-registry/1"
-PENDING = ".publishing.json"                 # journal of a publish in progress
 _FUNCTION_ID = re.compile(r"^[a-z][a-z0-9_]*$")
-LOCK_TIMEOUT_S = 5.0
 BUMPS = ("patch", "minor", "major")          # ordered: a larger index is a larger bump
 FIRST_VERSION = "1.0.0"
 _SEMVER = re.compile(r"^(0|[1-9]\d*)\.(0|[1-9]\d*)\.(0|[1-9]\d*)$")
@@ -290,7 +290,7 @@ def open_registry(path, *, create: bool = False, _held: bool = False) -> Registr
         is not readable JSON.
     """
     path = Path(path)
-    recovered = _recover_locked(path, _held) if _needs_recovery(path) else []
+    recovered = recover_locked(path, _held) if needs_recovery(path) else []
     reg = _open_index(path, create)
     reg.recovered = recovered
     return reg
@@ -322,92 +322,6 @@ def _open_index(path: Path, create: bool) -> Registry:
         raise UnreadableInputError(f"{index_path}: not a refit registry index (no "
                                    "'functions' object)")
     return Registry(path, index)
-
-
-def _needs_recovery(path: Path) -> bool:
-    return path.is_dir() and ((path / PENDING).exists() or any(path.glob(TMP_PREFIX + "*"))
-                              or any(path.glob("*/" + TMP_PREFIX + "*")))
-
-
-def _recover_locked(path: Path, held: bool) -> list[str]:
-    if held:
-        return _recover(path)
-    try:
-        with _Lock(path, LOCK_TIMEOUT_S):
-            return _recover(path)
-    except PermissionError:  # a read-only registry: nothing can be repaired; verify reports
-        return []
-
-
-def _recover(path: Path) -> list[str]:
-    """Finish or undo an interrupted publish, drop temporary files (lock held); say so."""
-    out, marker = [], path / PENDING
-    if marker.is_file():
-        try:
-            plan = json.loads(marker.read_text("utf-8"))
-            fid, entry = plan["function_id"], plan["entry"]
-            target = Registry(path).file(fid, entry["version"])
-        except (OSError, ValueError, KeyError, TypeError, RefitError):
-            plan = None
-        if plan is None:
-            out.append(f"removed an unreadable publish journal {PENDING}")
-        else:
-            reg = Registry(path, _empty_index())
-            if (path / INDEX).is_file():
-                reg = _open_index(path, False)
-            what = f"recovered an interrupted publish of {fid} {entry['version']}"
-            landed = target.is_file() and sha256_bytes(target.read_bytes()) == entry.get(
-                "file_sha256")
-            if any(e.get("version") == entry["version"] for e in reg.versions(fid)):
-                out.append(f"{what}: it had completed")
-            elif landed:
-                os.chmod(target, 0o444)
-                reg.index["functions"].setdefault(fid, []).append(entry)
-                _write_index(reg)
-                out.append(f"{what}: its file had landed, so it was added to {INDEX}")
-            else:
-                out.append(f"{what}: its file had not landed, so it was undone")
-        marker.unlink()
-    tmps = [*path.glob(TMP_PREFIX + "*"), *path.glob("*/" + TMP_PREFIX + "*")]
-    for tmp in tmps:
-        tmp.unlink(missing_ok=True)
-    if tmps:
-        out.append(f"recovered after an interrupted write: removed {len(tmps)} temporary "
-                   "file(s) ("
-                   + ", ".join(sorted(t.name for t in tmps)) + ")")
-    return out
-
-
-def _write_index(reg: Registry) -> None:
-    text = json.dumps(reg.index, indent=1, ensure_ascii=False, sort_keys=False) + "\n"
-    write_text_atomic(reg.path / INDEX, text)
-
-
-class _Lock:
-    """Hold ``REGISTRY/.lock``; refuse after ``timeout`` s with a 'busy' error."""
-
-    def __init__(self, folder: Path, timeout: float):
-        from filelock import FileLock
-
-        folder.mkdir(parents=True, exist_ok=True)
-        self.folder = folder
-        self.lock = FileLock(str(folder / ".lock"), timeout=timeout)
-
-    def __enter__(self):
-        from filelock import Timeout
-
-        from .errors import StoreBusyError
-
-        try:
-            self.lock.acquire()
-        except Timeout:
-            raise StoreBusyError(f"registry {self.folder} is busy: another refit process "
-                                 "holds its lock; wait for it to finish, then run the "
-                                 "command again") from None
-        return self
-
-    def __exit__(self, *exc):
-        self.lock.release()
 
 
 # ----------------------------------------------------------------------------- publish
@@ -507,7 +421,7 @@ def publish(candidate_path, registry, *, bump: str | None = None, create: bool =
         result = _plan(reg, candidate, candidate_path, bump, dry_run=True)[0]
         result.recovered = reg.recovered
         return result
-    with _Lock(reg.path, lock_timeout):
+    with RegistryLock(reg.path, lock_timeout):
         first = reg.recovered
         reg = open_registry(registry, create=create, _held=True)   # re-read under the lock
         result, content = _plan(reg, candidate, candidate_path, bump, dry_run=False)
@@ -546,11 +460,4 @@ def _land(reg: Registry, result: PublishResult, content: dict, source, now) -> N
              "sha256": result.sha256, "file_sha256": sha256_bytes(text.encode("utf-8")),
              "bump": result.bump, "previous": result.previous,
              "changes": result.changes, "source_file": Path(source).name}
-    journal = {"function_id": result.function_id, "entry": entry}
-    write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
-    write_text_atomic(result.path, text)
-    os.chmod(result.path, 0o444)
-    reg.index.setdefault("format", INDEX_FORMAT)
-    reg.index.setdefault("functions", {}).setdefault(result.function_id, []).append(entry)
-    _write_index(reg)
-    (reg.path / PENDING).unlink()
+    commit(reg, result.function_id, result.path, text, entry)

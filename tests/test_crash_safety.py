@@ -162,8 +162,9 @@ def test_killed_publish_leaves_the_registry_before_or_after(registry_states, tmp
 
 DIE_BEFORE_INDEX = """
 import os, sys
+import refit._registry_commit as commit
 import refit.registry as registry
-registry._write_index = lambda reg: os._exit(9)   # the process dies before the index lands
+commit.write_index = lambda reg: os._exit(9)   # the process dies before the index lands
 registry.publish(sys.argv[1], sys.argv[2])
 """
 
