@@ -58,12 +58,22 @@ def check_fossil_file(path, *, vocabularies=None, constants=None):
     -------
     refit.checks.CheckReport
         As for calibration tables; ``frame`` holds the parsed values.
+
+    Raises
+    ------
+    InvalidDataError
+        Column names that cannot be mapped (e.g. two columns for one feature), with the
+        file named.
     """
+    from .errors import InvalidDataError
     from .tables import read_table
     from .units import add_file_context, normalise_columns
 
     table = read_table(path, as_text=False)
-    frame, mapped = normalise_columns(table.frame)
+    try:
+        frame, mapped = normalise_columns(table.frame)
+    except InvalidDataError as exc:  # e.g. two columns mapping to one: say which file
+        raise InvalidDataError(f"{path}: {exc}") from None
     report = check_fossil_frame(frame, source_rows=table.source_rows,
                                 vocabularies=vocabularies, path=str(path),
                                 notes=list(table.notes) + list(mapped), constants=constants)

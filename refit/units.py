@@ -239,17 +239,52 @@ def convert_values(values: pd.Series, src, dst) -> pd.Series:
     """Convert the cells of ``values`` that parse as numbers from ``src`` to ``dst`` units.
 
     Other cells (text, blanks) are returned unchanged so that ``check`` can report them.
+    A finite number whose converted value exceeds the float64 range (e.g. 1e308 in, which
+    is 2.54e308 cm) becomes the largest float64 of its sign (about 1.8e308), without a
+    warning, so that ``check`` reports it as out of range rather than as infinity;
+    infinity in the file stays infinity.
     """
     factor, zero = affine(src, dst)
     numbers = pd.to_numeric(values, errors="coerce")
     mask = numbers.notna().to_numpy()
     raw = numbers.to_numpy(dtype=float)
-    converted = (raw - zero) * factor if zero else raw * factor
+    with np.errstate(over="ignore"):
+        converted = (raw - zero) * factor if zero else raw * factor
+    overflow = np.isinf(converted) & np.isfinite(raw)
+    converted[overflow] = np.copysign(np.finfo(np.float64).max, converted[overflow])
     if mask.all():
         return pd.Series(converted, index=values.index, name=values.name)
     out = values.astype(object).copy()
     out.iloc[np.flatnonzero(mask)] = list(converted[mask])
     return out
+
+
+def file_name_of(name: str, columns) -> str:
+    """The column name as the file wrote it, undoing pandas' renaming of repeated headers.
+
+    ``pandas.read_csv`` renames a repeated header ``X`` to ``X.1``, ``X.2``, ...; a name
+    ``X.<k>`` that follows a column ``X`` is read as such a repeat.
+
+    >>> file_name_of("bk_depth_cm.1", ["profile_id", "bk_depth_cm", "bk_depth_cm.1"])
+    'bk_depth_cm'
+    """
+    names = [str(c) for c in columns]
+    m = re.match(r"^(.*)\.[1-9]\d*$", name, flags=re.S)
+    if m and m.group(1) in names and name in names \
+            and names.index(m.group(1)) < names.index(name):
+        return m.group(1)
+    return name
+
+
+def _two_columns(first: str, second: str, target: str, columns) -> str:
+    """The problem of two file columns mapping to one canonical column, in the file's words."""
+    fix = "keep one of them or rename the other"
+    written = file_name_of(second, columns)
+    if written == first:
+        names = [str(c) for c in columns]
+        where = f"columns {names.index(first) + 1} and {names.index(second) + 1}"
+        return f"{where} are both named {first!r} and map to {target}; {fix}"
+    return f"columns {first!r} and {written!r} both map to {target}; {fix}"
 
 
 def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
@@ -280,14 +315,12 @@ def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
     claimed: dict[str, str] = {}
     converted = {}
     for name in frame.columns:
-        parsed = parse_name(str(name))
+        parsed = parse_name(file_name_of(str(name), frame.columns))
         if parsed is None:
             continue
         target, unit_text = parsed
         if target in claimed:
-            problems.append(
-                f"columns {claimed[target]!r} and {name!r} both map to {target}; keep one of "
-                "them or rename the other")
+            problems.append(_two_columns(claimed[target], str(name), target, frame.columns))
             continue
         claimed[target] = str(name)
         dst_name = _canonical_unit(target)
@@ -401,6 +434,18 @@ def _with_original(message: str, parts, origins, original, i: int) -> str:
             continue
         message = message.replace(column_hint(canon), "")
         suffix = canon.rsplit("_", 1)[-1]
-        said.append(f"the file's column {fcol!r} holds {number:g} {unit}, which refit "
-                    f"converted to {suffix if suffix != 'c' else '°C'}")
+        suffix = suffix if suffix != "c" else "°C"
+        how = (f"which refit converted to {suffix}" if _converts(number, unit, canon) else
+               f"beyond the largest number refit can hold once converted to {suffix}")
+        said.append(f"the file's column {fcol!r} holds {number:g} {unit}, {how}")
     return message if not said else f"{message} (Note: {'; '.join(said)}.)"
+
+
+def _converts(number: float, unit: str, canon: str) -> bool:
+    """Whether a finite ``number`` in ``unit`` stays finite in ``canon``'s unit."""
+    src, dst = _pint_unit(unit, canon), _canonical_unit(canon)
+    if src is None or dst is None or not np.isfinite(number):
+        return True
+    factor, zero = affine(src, ureg().parse_units(dst))
+    with np.errstate(over="ignore"):
+        return bool(np.isfinite((number - zero) * factor))

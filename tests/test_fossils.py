@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
 
+import refit
 from refit._resources import schemas_dir
 from refit.checks import check_file
 from refit.cli.check import check
@@ -94,3 +96,24 @@ def test_cli_check_kind_fossil_exit_codes(tmp_path):
     assert [p["rule"] for p in doc["problems"] if p["severity"] == "error"] == ["range"]
     res = runner.invoke(check, [str(tmp_path / "none.csv"), "--kind", "fossil"])
     assert res.exit_code == 2 and "Traceback" not in res.output
+
+
+def test_refit_apply_names_the_file_and_its_repeated_column(tmp_path):
+    # a header written twice: pandas.read_csv calls the second 'bk_depth_cm.1' (checked
+    # against pandas itself); `refit apply` must name the file and the names as written
+    import pandas as pd
+
+    from refit.cli import main
+
+    coefficients = Path(refit.__file__).parent / "published" / \
+        "map_from_bk_depth.retallack1994.json"
+    fossils = _write(tmp_path, "paleosol_id,bk_depth_cm,bk_depth_cm\nP1,100,120\n",
+                     "twice.csv")
+    assert list(pd.read_csv(fossils).columns) == ["paleosol_id", "bk_depth_cm",
+                                                   "bk_depth_cm.1"]
+    res = CliRunner().invoke(main, ["apply", str(coefficients), "--fossils", str(fossils),
+                                    "--out", str(tmp_path / "est.csv")])
+    assert res.exit_code == 1, res.output
+    assert f"{fossils}: columns 2 and 3 are both named 'bk_depth_cm'" in res.output
+    assert "bk_depth_cm.1" not in res.output and "Traceback" not in res.output
+    assert not (tmp_path / "est.csv").exists()

@@ -7,7 +7,9 @@ t/°C = (t/°F - 32) x 5/9), and pint used directly as a reference library.
 
 from __future__ import annotations
 
+import json
 import math
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -161,3 +163,70 @@ def test_problems_name_the_file_column_and_the_number_as_typed(tmp_path):
     message = err["message"].iloc[0]
     assert "holds -4 in" in message and "converted to cm" in message
     assert "needs that unit in the column name" not in message
+
+
+def test_repeated_header_is_named_as_written_with_the_file_by_refit_check(tmp_path):
+    # pandas.read_csv renames a repeated header 'bk_depth_cm' to 'bk_depth_cm.1' (checked
+    # here against pandas itself); the message must show the file's own names and
+    # positions, not pandas' renaming
+    from click.testing import CliRunner
+
+    from refit.cli import main
+
+    path = tmp_path / "twice.csv"
+    path.write_text("profile_id,latitude,longitude,source,bk_depth_cm,bk_depth_cm\n"
+                    "P-1,-40,54,S1,10,12\n", encoding="utf-8")
+    assert list(pd.read_csv(path).columns)[-2:] == ["bk_depth_cm", "bk_depth_cm.1"]
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 1, res.output
+    assert "twice.csv" in res.output
+    assert "columns 5 and 6 are both named 'bk_depth_cm'" in res.output
+    assert "bk_depth_cm.1" not in res.output and "Traceback" not in res.output
+
+
+def test_repeated_header_with_a_unit_is_refused_not_kept_as_an_extra_column():
+    # 'bk_depth_in' twice: pandas' 'bk_depth_in.1' used to fall through as an unknown column
+    frame = pd.DataFrame([[10.0, 12.0]], columns=["bk_depth_in", "bk_depth_in.1"])
+    with pytest.raises(InvalidDataError) as err:
+        normalise_columns(frame)
+    assert str(err.value) == ("columns 1 and 2 are both named 'bk_depth_in' and map to "
+                              "bk_depth_cm; keep one of them or rename the other")
+
+
+def test_two_synonyms_keep_their_own_names_in_the_message():
+    frame = pd.DataFrame([[10.0, 4.0]], columns=["Depth to Bk (cm)", "bk_depth_in"])
+    with pytest.raises(InvalidDataError) as err:
+        normalise_columns(frame)
+    assert str(err.value) == ("columns 'Depth to Bk (cm)' and 'bk_depth_in' both map to "
+                              "bk_depth_cm; keep one of them or rename the other")
+
+
+def test_overflowing_conversion_warns_nothing_and_is_a_range_error(tmp_path):
+    # 1e308 in x 2.54 cm/in exceeds the float64 maximum (about 1.798e308, IEEE 754
+    # binary64); the conversion must not emit numpy's "overflow" RuntimeWarning
+    from click.testing import CliRunner
+
+    from refit.cli import main
+    from refit.units import convert_values, ureg
+
+    values = pd.Series([1e308, -1e308, 10.0, float("inf")])
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        out = convert_values(values, ureg().inch, ureg().centimeter)
+    assert [str(w.message) for w in caught] == []
+    big = np.finfo(np.float64).max
+    assert out.tolist() == [big, -big, pytest.approx(25.4), float("inf")]
+
+    path = tmp_path / "huge.csv"
+    path.write_text("profile_id,latitude,longitude,source,map_mm,bk_depth_in,bk_thickness_cm\n"
+                    "P-1,-40,54,S1,300,1e308,10\nP-2,-40,54.1,S1,300,10,10\n",
+                    encoding="utf-8")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = CliRunner().invoke(main, ["check", str(path), "--format", "json"])
+    assert res.exit_code == 1, res.output
+    assert [str(w.message) for w in caught if issubclass(w.category, RuntimeWarning)] == []
+    errors = [p for p in json.loads(res.output)["problems"] if p["severity"] == "error"]
+    assert [(p["rule"], p["row"], p["column"]) for p in errors] == [
+        ("range", 2, "bk_depth_cm")]
+    assert "holds 1e+308 in" in errors[0]["message"]
