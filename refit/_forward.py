@@ -33,22 +33,35 @@ def _model_scale(values, log_response: bool):
     return y0, missing, invalid
 
 
-def _flag_text(flags, outside, missing, invalid, approximate: bool) -> np.ndarray:
-    """';'-joined flags per row: the inversion's own flags, then the range, missing,
+def _row_flags(code: int, names, n_inv: int) -> str:
+    """The ';'-joined flags of one bit code (the inversion's flags, then the range,
+    missing, invalid and approximate-interval flags)."""
+    f = [nm for i, nm in enumerate(names[:n_inv]) if code >> i & 1]
+    outside, missing, invalid, approx = (code >> (n_inv + j) & 1 for j in range(4))
+    if outside and cal.FLAG_OUTSIDE not in f:
+        f.insert(0, cal.FLAG_OUTSIDE)
+    if missing:
+        f.append(FLAG_MISSING)
+    if invalid:
+        f.append(FLAG_INVALID)
+    elif approx and not missing:
+        f.append(FLAG_APPROX)
+    return ";".join(f)
+
+
+def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool) -> np.ndarray:
+    """';'-joined flags per row, through one bit code per row (the text is built once
+    per distinct code): the inversion's flags in ``order``, then the range, missing,
     invalid and approximate-interval flags."""
-    text = []
-    for i, f in enumerate(flags):
-        f = list(f)
-        if outside[i] and cal.FLAG_OUTSIDE not in f:
-            f.insert(0, cal.FLAG_OUTSIDE)
-        if missing[i]:
-            f.append(FLAG_MISSING)
-        if invalid[i]:
-            f.append(FLAG_INVALID)
-        elif approximate and not missing[i]:
-            f.append(FLAG_APPROX)
-        text.append(";".join(f))
-    return np.asarray(text, dtype=object)
+    m = len(outside)
+    names = list(order)
+    codes = np.zeros(m, dtype=np.int64)
+    extra = [outside, missing, invalid, np.full(m, bool(approximate))]
+    for i, mask in enumerate([masks[nm] for nm in names] + extra):
+        codes |= np.asarray(mask, dtype=bool).astype(np.int64) << i
+    present, where = np.unique(codes, return_inverse=True)
+    text = np.array([_row_flags(int(c), names, len(names)) for c in present], dtype=object)
+    return text[where.reshape(-1)]
 
 
 def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,
@@ -102,16 +115,18 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
     cov = np.pad(covariance, ((1, 0), (1, 0))) if through_origin else covariance
     if degree == 1:
         est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, sigma2_new, t)
-        est, lo, hi, flags = cal._bound_line(est, lo, hi, unb, bounds)
+        est, lo, hi, masks = cal._bound_line_masks(est, lo, hi, unb, bounds)
+        order = cal.LINE_FLAG_ORDER
     else:
         def design(x):
             return np.vander(x, degree + 1, increasing=True)
 
-        est, lo, hi, flags = cal.invert_polynomial(
+        est, lo, hi, masks = cal.invert_polynomial_masks(
             y0, poly, design, cov, sigma2_new, t, domain, x_cal,
             window=cal.search_window(domain, bounds))
+        order = cal.POLYNOMIAL_FLAG_ORDER
     if not with_interval:
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
-        flags = [tuple(f for f in fl if f not in cal.INTERVAL_FLAGS) for fl in flags]
+        order = tuple(nm for nm in order if nm not in cal.INTERVAL_FLAGS)
     outside = cal.range_flags(est, domain)
-    return est, lo, hi, _flag_text(flags, outside, missing, invalid, approximate)
+    return est, lo, hi, _flag_text(masks, order, outside, missing, invalid, approximate)

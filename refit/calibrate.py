@@ -214,19 +214,16 @@ def _refine(band, a, b, rows):
     return np.where(np.abs(fa) <= np.abs(fb), a, b)
 
 
-def _crossings(band, grid, pos, start, lo, hi):
+def _crossings(band, grid, nodes, start, lo, hi):
     """Nearest band crossing on each side of ``start`` within [lo, hi], all rows at once.
 
-    ``pos`` (G, m) is band > 0 on the shared ``grid`` (which holds ``lo`` and ``hi``).
-    For each row the first positive node above ``start`` and the last below it bracket
-    the crossings, refined by :func:`_refine`. Returns (lower, upper, open_below,
-    open_above); a side with no positive node is open and its limit is the window edge."""
-    n_grid, m = pos.shape
-    ar = np.arange(n_grid, dtype=np.int32)[:, None]
-    above = np.searchsorted(grid, start, "right")       # first node > start
-    below = np.searchsorted(grid, start, "left") - 1    # last node < start
-    j_up = np.min(np.where(pos & (ar >= above), ar, n_grid), axis=0)
-    j_dn = np.max(np.where(pos & (ar <= below), ar, -1), axis=0)
+    ``nodes = (j_dn, j_up)``: for each row the last grid node below ``start`` and the first
+    above it where the row lies outside the band (-1 / ``len(grid)`` when none, from
+    :func:`_outside_nodes`); they bracket the crossings, refined by :func:`_refine`.
+    Returns (lower, upper, open_below, open_above); a side with no outside node inside
+    [lo, hi] is open and its limit is the window edge."""
+    n_grid = len(grid)
+    j_dn, j_up = nodes
     j_up = np.where((j_up < n_grid) & (grid[np.minimum(j_up, n_grid - 1)] <= hi), j_up, -1)
     j_dn = np.where((j_dn >= 0) & (grid[np.maximum(j_dn, 0)] >= lo), j_dn, -1)
     out = []
@@ -330,27 +327,56 @@ def _band_function(br: Branches, y0, poly, design, cov, s2, t):
     return band
 
 
-def _grid_outside_band(br: Branches, idx, y0, poly, design, cov, s2, t, window_u):
-    """The shared grid [u] over the window (plus the turning points inside it) and, for
-    rows ``idx``, where ``y0`` lies outside the band there (G, len(idx))."""
+def _band_grid(br: Branches, window_u) -> np.ndarray:
+    """The shared grid [u] over the window, plus the turning points inside it."""
     w_lo, w_hi = window_u
     turning = br.turning
-    grid = np.unique(np.concatenate([np.linspace(w_lo, w_hi, GRID_POINTS),
+    return np.unique(np.concatenate([np.linspace(w_lo, w_hi, GRID_POINTS),
                                      turning[(turning > w_lo) & (turning < w_hi)]]))
+
+
+def _outside_nodes(br: Branches, grid, idx, start, y0, poly, design, cov, s2, t,
+                   shared: bool):
+    """For rows ``idx``: the last grid node below ``start`` and the first above it where
+    ``y0`` lies outside the band (-1 / ``len(grid)`` when none).
+
+    With one new-observation variance for all rows (``shared``) the nodes come from exact
+    per-node thresholds (:class:`refit._bandgrid.BandNodes`: the same comparisons as the
+    (grid x rows) matrix, without building it); otherwise from that matrix."""
+    above = np.searchsorted(grid, start, "right")       # first node > start
+    below = np.searchsorted(grid, start, "left") - 1    # last node < start
     xg = br.c + br.h * grid
     gg = design(xg)
     qg = np.einsum("ij,jk,ik->i", gg, cov, gg)
     fg = P.polyval(xg, poly)
-    if np.ptp(s2[idx]) == 0 if len(idx) else True:  # one new-observation variance: cheaper
+    y = y0[idx]
+    if shared:
         r = t * np.sqrt((s2[idx[0]] if len(idx) else 0.0) + qg)
-        pos = np.abs(y0[None, idx] - fg[:, None]) > r[:, None]
+        if np.all(np.isfinite(fg) & np.isfinite(r)):
+            from ._bandgrid import BandNodes
+
+            nodes = BandNodes(fg, r)
+            return nodes.last_outside(below, y), nodes.first_outside(above, y)
+        pos = np.abs(y[None, :] - fg[:, None]) > r[:, None]
     else:
-        pos = (y0[None, idx] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
-    return grid, pos
+        pos = (y[None, :] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
+    n_grid = len(grid)
+    ar = np.arange(n_grid, dtype=np.int32)[:, None]
+    j_up = np.min(np.where(pos & (ar >= above), ar, n_grid), axis=0)
+    j_dn = np.max(np.where(pos & (ar <= below), ar, -1), axis=0)
+    return j_dn, j_up
+
+
+#: order of the flags of :func:`invert_polynomial`
+POLYNOMIAL_FLAG_ORDER = (FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
+                         FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
+#: order of the flags of a line's bounded Fieller interval (:func:`_bound_line`)
+LINE_FLAG_ORDER = (FLAG_OUTSIDE, FLAG_UNBOUNDED, FLAG_BEYOND_WINDOW, FLAG_OPEN_BELOW,
+                   FLAG_OPEN_ABOVE)
 
 
 def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:
-    """Final estimate [u] and per-row flag tuples of :func:`invert_polynomial`."""
+    """Final estimate [u] and the flag masks of :func:`invert_polynomial`."""
     no_root, off = sp["no_root"], sp["off_window"]
     est = np.where(no_root & closes & ~off, sp["start"], sp["est"])
     est = np.where(off & ~no_root, np.nan, est)
@@ -359,9 +385,7 @@ def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:
              FLAG_BEYOND_TP: sp["beyond"] | no_root,
              FLAG_BEYOND_WINDOW: off & ~no_root,
              FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi}
-    order = [FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
-             FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE]
-    return est, _flag_tuples(masks, order, len(est))
+    return est, masks
 
 
 def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new: float,
@@ -399,22 +423,55 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
 
     Notes
     -----
-    All rows at once, in four steps: scale the curve and find its branches
-    (:func:`branch_layout`); choose each row's root and its search interval
-    (:func:`_starting_points`); evaluate the band
-    ``(y0 - f(x))^2 - t^2 (sigma2_new + g(x)' V g(x))`` on one grid of :data:`GRID_POINTS`
-    nodes over the window (plus the turning points) for every row
-    (:func:`_grid_outside_band`); take the nearest sign change on each side of the
-    estimate and refine it by a vectorised false position to machine precision
-    (:func:`_crossings`). A band excursion narrower than the grid spacing (window width /
-    256) can be missed.
+    Rows in blocks of :data:`ROW_BLOCK`, each in four steps: scale the curve and find its
+    branches (:func:`branch_layout`); choose each row's root and its search interval
+    (:func:`_starting_points`); find, on one grid of :data:`GRID_POINTS` nodes over the
+    window (plus the turning points), the nearest node on each side of the estimate where
+    ``y0`` lies outside the band ``(y0 - f(x))^2 <= t^2 (sigma2_new + g(x)' V g(x))``
+    (:func:`_outside_nodes`); refine each crossing by a vectorised false position to
+    machine precision (:func:`_crossings`). A band excursion narrower than the grid
+    spacing (window width / 256) can be missed.
     """
+    est, lower, upper, masks = invert_polynomial_masks(
+        y0, poly, design, cov, sigma2_new, t, domain, x_cal, window=window)
+    return est, lower, upper, _flag_tuples(masks, list(POLYNOMIAL_FLAG_ORDER), len(est))
+
+
+#: rows inverted together by :func:`invert_polynomial_masks` (bounds the memory of the
+#: per-row work arrays; rows are independent, so the block size does not change numbers)
+ROW_BLOCK = 65_536
+
+
+def invert_polynomial_masks(y0, poly, design, cov, sigma2_new, t, domain, x_cal=None, *,
+                            window=None):
+    """As :func:`invert_polynomial`, with the flags as boolean masks (name -> (m,) array,
+    in :data:`POLYNOMIAL_FLAG_ORDER`) instead of per-row tuples; rows in blocks of
+    :data:`ROW_BLOCK`."""
     poly = np.asarray(poly, float)
     br = branch_layout(poly, domain, x_cal)
     y0 = np.atleast_1d(np.asarray(y0, dtype=float))
     m = len(y0)
     s2 = np.broadcast_to(np.asarray(sigma2_new, dtype=float), y0.shape)
     window_u = [(v - br.c) / br.h for v in (window or search_window(domain))]
+    grid = _band_grid(br, window_u)
+    ok_all = np.isfinite(y0)
+    shared = not ok_all.any() or np.ptp(s2[ok_all]) == 0  # one new-observation variance
+    est, lower, upper = np.full(m, np.nan), np.full(m, np.nan), np.full(m, np.nan)
+    masks = {nm: np.zeros(m, dtype=bool) for nm in POLYNOMIAL_FLAG_ORDER}
+    for first in range(0, m, ROW_BLOCK):
+        sl = slice(first, min(m, first + ROW_BLOCK))
+        e, lo, hi, mk = _invert_block(br, grid, y0[sl], poly, design, cov, s2[sl], t,
+                                      window_u, shared)
+        est[sl], lower[sl], upper[sl] = e, lo, hi
+        for nm in POLYNOMIAL_FLAG_ORDER:
+            masks[nm][sl] = mk[nm]
+    c, h = br.c, br.h
+    return c + h * est, c + h * lower, c + h * upper, masks
+
+
+def _invert_block(br: Branches, grid, y0, poly, design, cov, s2, t, window_u, shared):
+    """One block of rows of :func:`invert_polynomial_masks`, in scaled units [u]."""
+    m = len(y0)
     ok = np.isfinite(y0)
     sp = _starting_points(br, y0, ok, window_u)
     band = _band_function(br, y0, poly, design, cov, s2, t)
@@ -423,14 +480,13 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
     closes = np.zeros(m, dtype=bool)
     closes[idx] = band(start[idx], idx) <= 0
     idx = np.flatnonzero(closes)
-    grid, pos = _grid_outside_band(br, idx, y0, poly, design, cov, s2, t, window_u)
+    nodes = _outside_nodes(br, grid, idx, start[idx], y0, poly, design, cov, s2, t, shared)
     lower, upper = np.full(m, np.nan), np.full(m, np.nan)
     open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
     lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
-        lambda u, r: band(u, idx[r]), grid, pos, start[idx], sp["lo"][idx], sp["hi"][idx])
-    est, flags = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
-    c, h = br.c, br.h
-    return c + h * est, c + h * lower, c + h * upper, flags
+        lambda u, r: band(u, idx[r]), grid, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
+    est, masks = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
+    return est, lower, upper, masks
 
 
 def _flag_tuples(masks: dict, order: list[str], m: int) -> list[tuple[str, ...]]:
@@ -462,6 +518,12 @@ def physical_bounds(fit) -> tuple[float, float]:
 def _bound_line(est, lo, hi, unbounded: bool, bounds):
     """Cut a line's Fieller limits at the physical bounds ('open-below'/'open-above');
     an estimate beyond a bound is NaN ('beyond-search-window')."""
+    est, lo, hi, masks = _bound_line_masks(est, lo, hi, unbounded, bounds)
+    return est, lo, hi, _flag_tuples(masks, list(LINE_FLAG_ORDER), len(est))
+
+
+def _bound_line_masks(est, lo, hi, unbounded: bool, bounds):
+    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`)."""
     b_lo, b_hi = bounds
     with np.errstate(invalid="ignore"):
         off = (est < b_lo) | (est > b_hi)
@@ -471,7 +533,7 @@ def _bound_line(est, lo, hi, unbounded: bool, bounds):
     masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.isfinite(est) | off if unbounded
              else np.zeros(len(est), dtype=bool), FLAG_BEYOND_WINDOW: off,
              FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
-    return est, lo, hi, _flag_tuples(masks, list(masks), len(est))
+    return est, lo, hi, masks
 
 
 def __getattr__(name):

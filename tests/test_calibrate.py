@@ -361,3 +361,78 @@ def test_forward_quadratic_predicts_1000_values_in_under_20_ms():
     f.predict(v)
     best = min(timeit.repeat(lambda: f.predict(v), number=1, repeat=7))
     assert best < 0.020
+
+
+def test_vectorised_quadratic_roots_equal_numpy_roots():
+    # Reference: numpy.roots (companion-matrix eigenvalues, a general-purpose library) on
+    # each of 2,000 seeded random quadratics; the closed form used for every value at once
+    # (cancellation-free formula q = -(b + sign(b) sqrt(disc)) / 2, roots q/a and c/q)
+    # must give the same real roots to 1e-9 relative, and NaN where there are none.
+    from refit.calibrate import _all_roots
+
+    rng = np.random.default_rng(20261201)
+    n = 2_000
+    a = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3, n)
+    b = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3, n)
+    c = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3, n)
+    got = np.vstack([_all_roots(np.array([0.0, b[i], a[i]]), np.array([-c[i]]))[0]
+                     for i in range(n)])
+    batch = _all_roots(np.array([0.0, 1.0, 1.0]), np.array([2.0, -0.25, -5.0]))
+    np.testing.assert_allclose(batch[0], [-2.0, 1.0], rtol=1e-12)  # u^2 + u - 2 = 0
+    assert batch[1].tolist() == [-0.5, -0.5]  # (u + 1/2)^2 = 0: a double root
+    assert np.isnan(batch[2]).all()  # u^2 + u + 5 > 0: no real root
+    n_real = 0
+    for i in range(n):
+        ref = np.roots([a[i], b[i], c[i]])
+        if np.all(np.abs(ref.imag) == 0):
+            np.testing.assert_allclose(got[i], np.sort(ref.real), rtol=1e-9)
+            n_real += 1
+        else:
+            assert np.isnan(got[i]).all()
+    assert 500 < n_real < 1_900  # both kinds were exercised
+
+
+def test_many_values_in_blocks_equal_one_by_one():
+    # The inversion runs rows in blocks (calibrate.ROW_BLOCK) and locates band crossings
+    # through exact per-node thresholds; each row must get exactly what it gets alone.
+    # Reference: NIST StRD Pontius (forward quadratic, as in the handbook case above).
+    import refit.calibrate as cal
+
+    d = strd("Pontius")
+    f = fit(d, response="x", predictors="y", form="quadratic", direction="forward")
+    rng = np.random.default_rng(5)
+    y = np.concatenate([rng.uniform(-0.5, 4.0, 300), [1.239722, np.nan]])
+    one = pd.concat([f.predict(v) for v in y], ignore_index=True)
+    old = cal.ROW_BLOCK
+    try:
+        cal.ROW_BLOCK = 7
+        many = f.predict(y).reset_index(drop=True)
+    finally:
+        cal.ROW_BLOCK = old
+    pd.testing.assert_frame_equal(many, one, check_exact=True)
+    assert many["flags"].str.len().gt(0).any()  # flagged rows are among them
+
+
+def test_band_node_search_equals_the_elementwise_matrix():
+    # The (grid x rows) comparison |y0 - f_g| > r_g that refit used to build in full is the
+    # reference (plain numpy, element by element); the threshold/sparse-table search must
+    # pick the same nearest outside node on each side for every row, ties at the
+    # thresholds included (values placed exactly on f_g +- r_g and one ulp either side).
+    from refit._bandgrid import BandNodes
+
+    rng = np.random.default_rng(11)
+    G = 257
+    fg = np.cumsum(rng.normal(size=G)) * 1e3
+    r = np.abs(rng.normal(size=G)) * 5e2 + rng.uniform(0, 1, G)
+    edge = np.concatenate([fg + r, fg - r])
+    y = np.concatenate([rng.uniform(fg.min() - 2e3, fg.max() + 2e3, 3_000), edge,
+                        np.nextafter(edge, np.inf), np.nextafter(edge, -np.inf)])
+    start = rng.integers(-1, G + 1, len(y))
+    pos = np.abs(y[None, :] - fg[:, None]) > r[:, None]
+    ar = np.arange(G)[:, None]
+    want_up = np.min(np.where(pos & (ar >= start), ar, G), axis=0)
+    want_dn = np.max(np.where(pos & (ar <= start), ar, -1), axis=0)
+    nodes = BandNodes(fg, r)
+    np.testing.assert_array_equal(nodes.first_outside(np.clip(start, 0, G), y), want_up)
+    np.testing.assert_array_equal(nodes.last_outside(np.clip(start, -1, G - 1), y), want_dn)
+    assert 0 < (want_up < G).mean() < 1 and 0 < (want_dn >= 0).mean() < 1
