@@ -138,8 +138,9 @@ def test_theil_sen_bad_input():
 
 # ----------------------------------------------------------------------------- large tables
 # Above THEIL_SEN_EXACT_MAX rows the slope is the median of a seeded random sample of
-# pairwise slopes (a standard approximation; Wilcox 2012, from memory) and the bootstrap
-# resamples THEIL_SEN_BOOT_ROWS rows (m-out-of-n, covariance scaled by m/n).
+# pairwise slopes (a standard approximation; Wilcox 2012, from memory); above
+# THEIL_SEN_BOOT_ROWS rows the bootstrap resamples that many rows (m-out-of-n, covariance
+# scaled by m/n).
 def _contaminated_line(n, seed):
     rng = np.random.default_rng(seed)
     x = rng.uniform(0, 100, n)
@@ -199,12 +200,42 @@ def test_theil_sen_20000_rows_fast_bounded_and_close_to_exact_subset():
 
 def test_theil_sen_m_out_of_n_covariance_matches_full_bootstrap(monkeypatch):
     # reference: the exact case bootstrap of all n rows (checked against scipy resample by
-    # resample above); the m-out-of-n covariance scaled by m/n agrees within 30% (both are
-    # Monte Carlo estimates, 200 and 500 resamples: ~5-10% noise each on a SE).
+    # resample above); the default m-out-of-n covariance (m = 500 of 1,200 rows, scaled by
+    # m/n) agrees within 30% on each SE (both are Monte Carlo estimates, 200 and 500
+    # resamples: ~5-10% noise each on a SE).
     import refit.robust as rb
 
     x, y = _contaminated_line(1200, 43)
-    full = np.sqrt(np.diag(fit_theil_sen(x, y, n_boot=200, seed=1).covariance))
-    monkeypatch.setattr(rb, "THEIL_SEN_EXACT_MAX", 1000)
-    part = np.sqrt(np.diag(fit_theil_sen(x, y, n_boot=500, seed=1).covariance))
-    assert_allclose(part, full, rtol=0.3)
+    part = fit_theil_sen(x, y, n_boot=500, seed=1)
+    assert part.details["boot_rows"] == 500
+    monkeypatch.setattr(rb, "THEIL_SEN_BOOT_ROWS", 5000)      # every resample has all n rows
+    exact = fit_theil_sen(x, y, n_boot=200, seed=1)
+    assert "boot_rows" not in exact.details
+    assert_allclose(np.sqrt(np.diag(part.covariance)), np.sqrt(np.diag(exact.covariance)),
+                    rtol=0.3)
+
+
+def test_theil_sen_bootstrap_takes_seconds_at_any_size():
+    # the default interval (500 resamples, as refit.fitting.THEIL_SEN_BOOT) at 2,500 rows:
+    # all-row resamples took a minute or more there; m-out-of-n keeps it to a few seconds
+    import time
+
+    x, y = _contaminated_line(2500, 44)
+    t0 = time.perf_counter()
+    got = fit_theil_sen(x, y, n_boot=500, seed=5)
+    seconds = time.perf_counter() - t0
+    assert seconds < 10, seconds
+    assert got.details["boot_rows"] == 500 and got.details["slope_method"] == "exact"
+    assert np.all(np.isfinite(got.covariance)) and (np.diag(got.covariance) > 0).all()
+
+
+def test_theil_sen_bootstrap_uses_all_rows_up_to_500():
+    # reference: scipy.stats.theilslopes on each resample of all 500 rows, the same stream
+    # of indices as the batch (as the 25-row test above): at the threshold nothing changes
+    x, y = _contaminated_line(500, 45)
+    res = fit_theil_sen(x, y, n_boot=100, seed=2, intercept="separate")
+    assert "boot_rows" not in res.details
+    idx = np.random.default_rng(2).integers(0, 500, size=(100, 500))
+    draws = [[r.intercept, r.slope] for r in
+             (stats.theilslopes(y[i], x[i], method="separate") for i in idx)]
+    assert_allclose(res.covariance, np.cov(np.array(draws), rowvar=False), rtol=1e-10)
