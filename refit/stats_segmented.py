@@ -89,20 +89,68 @@ class BrokenStickResult:
     n: int
 
 
+#: elements (rows x candidate breakpoints) of one block of hinge columns in
+#: :func:`_profile_rss`: 16 MB of float64 per work array, whatever the table size
+PROFILE_BLOCK_ELEMENTS = 1 << 21
+#: grid values whose running-sum RSS is re-computed exactly before the minimum is taken
+EXACT_CHECKS = 32
+
+
 def _profile_rss(x, y, cs):
     """RSS of the best line-plus-hinge fit for each breakpoint in ``cs`` (vectorised).
 
     Adding the column h_c = (x - c)_+ to the line [1, x] lowers the line's RSS by
     (h~' e)^2 / (h~' h~), h~ = h_c with its projection on [1, x] removed, e the line
-    residuals (a rank-one update of the least-squares fit).
+    residuals (a rank-one update of the least-squares fit). The hinge columns are formed
+    in blocks of at most :data:`PROFILE_BLOCK_ELEMENTS` elements (the columns are
+    independent, so blocks change no number), which bounds the memory.
     """
     Q, _ = _qr(np.column_stack([np.ones_like(x), x]), "fit_broken_stick")
     e = y - Q @ (Q.T @ y)
-    H = np.maximum(x[:, None] - np.atleast_1d(cs)[None, :], 0.0)
-    Ht = H - Q @ (Q.T @ H)
-    den = np.sum(Ht**2, axis=0)
-    gain = np.where(den > 0, (Ht.T @ e) ** 2 / np.where(den > 0, den, 1.0), 0.0)
+    cs = np.atleast_1d(np.asarray(cs, dtype=float))
+    gain = np.empty(len(cs))
+    step = max(1, PROFILE_BLOCK_ELEMENTS // max(len(x), 1))
+    for first in range(0, len(cs), step):
+        sl = slice(first, first + step)
+        H = np.maximum(x[:, None] - cs[None, sl], 0.0)
+        H -= Q @ (Q.T @ H)
+        den = np.sum(H**2, axis=0)
+        gain[sl] = np.where(den > 0, (H.T @ e) ** 2 / np.where(den > 0, den, 1.0), 0.0)
     return float(e @ e) - gain
+
+
+def _profile_rss_sums(x, y, cs):
+    """As :func:`_profile_rss` for many breakpoints at once, from running sums on sorted x.
+
+    With u = (x - mean) / sd (a hinge in u is the hinge in x times 1/sd, which leaves the
+    RSS gain unchanged), ``S`` the rows with u > c and suffix sums over ``S`` of
+    1, u, u^2, e, u e: h'e = sum(u e) - c sum(e), h'h = sum(u^2) - 2 c sum(u) + c^2 n_S,
+    and the projection on [1, u] (orthogonal, as u is centred) removes
+    (h'1)^2 / n + (h'u)^2 / sum_all(u^2). O(n log n + len(cs)) time, O(n) memory.
+    Where the hinge is nearly collinear with the line (the denominator is below 1e-8 of
+    the size of its terms, so cancellation could spoil it), the exact rank-one update
+    of :func:`_profile_rss` is used instead.
+    """
+    Q, _ = _qr(np.column_stack([np.ones_like(x), x]), "fit_broken_stick")
+    e = y - Q @ (Q.T @ y)
+    sd = float(np.std(x)) or 1.0
+    u = (x - float(np.mean(x))) / sd
+    order = np.argsort(u, kind="stable")
+    us, es = u[order], e[order]
+    cols = np.column_stack([np.ones_like(us), us, us * us, es, us * es])
+    tail = np.vstack([np.cumsum(cols[::-1], axis=0)[::-1], np.zeros((1, 5))])
+    cu = (np.asarray(cs, dtype=float) - float(np.mean(x))) / sd
+    n_s, a1, a2, e0, e1 = tail[np.searchsorted(us, cu, "right")].T
+    he = e1 - cu * e0
+    h1, hu = a1 - cu * n_s, a2 - cu * a1
+    scale = a2 + cu * cu * n_s + 2 * np.abs(cu * a1)
+    den = (a2 - 2 * cu * a1 + cu * cu * n_s) - h1 * h1 / len(x) - hu * hu / float(u @ u)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rss = float(e @ e) - np.where(den > 0, he * he / den, 0.0)
+    shaky = ~(den > 1e-8 * scale)
+    if shaky.any():
+        rss[shaky] = _profile_rss(x, y, np.asarray(cs, dtype=float)[shaky])
+    return rss
 
 
 def _fit_at(x, y, c):
@@ -127,7 +175,9 @@ def _best_breakpoint(x, y, lo, hi, n_grid):
     from scipy.optimize import minimize_scalar
 
     grid = np.unique(np.r_[np.linspace(lo, hi, n_grid), x[(x >= lo) & (x <= hi)]])
-    rss = _profile_rss(x, y, grid)
+    rss = _profile_rss_sums(x, y, grid)
+    best = np.argsort(rss, kind="stable")[:EXACT_CHECKS]  # the minimum from exact values
+    rss[best] = _profile_rss(x, y, grid[best])
     i = int(np.argmin(rss))
     a, b = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
     best_c, best_rss = grid[i], rss[i]
@@ -206,7 +256,8 @@ def fit_broken_stick(x, y, *, level=0.95, min_points=3, n_grid=200) -> BrokenSti
     Notes
     -----
     Model y = b0 + b1 x + b2 (x - c)_+ (Hudson [1]_). The profile RSS(c) is computed for a
-    grid (by a rank-one update of the straight-line fit) and refined between the grid
+    grid (running sums on sorted x; the best :data:`EXACT_CHECKS` again by a rank-one
+    update of the straight-line fit) and refined between the grid
     neighbours of its minimum with a bounded scalar minimiser. Uncertainty of c: the
     asymptotic standard error s sqrt[(J'J)^-1]_cc [2]_ and a profile-likelihood interval
     from the F(1, n - 4) cut. Comparison with one line: F on (2, n - 4) df and BIC.

@@ -11,7 +11,7 @@ from scipy import stats
 from scipy.optimize import curve_fit
 
 from refit.errors import InvalidDataError, UsageError
-from refit.stats_segmented import _profile_rss, fit_broken_stick
+from refit.stats_segmented import _profile_rss, _profile_rss_sums, fit_broken_stick
 
 TRUE_BREAK = 60.0
 
@@ -120,3 +120,40 @@ def test_segmented_bad_input():
         fit_broken_stick([1, 2, 3, 4, 5, 6, np.nan, 8], np.arange(8.0))
     with pytest.raises(UsageError, match="level"):
         fit_broken_stick(np.arange(10.0), np.arange(10.0), level=1.5)
+
+
+def test_running_sum_profile_equals_explicit_refits():
+    # statsmodels OLS refits at fixed breakpoints are the reference; the running-sum
+    # profile (used for the whole grid) must match them, also next to the ends where
+    # only 3 rows lie beyond the hinge and at breakpoints equal to data values.
+    x, y = hinge(n=300, seed=8)
+    xs = np.sort(x)
+    cs = np.r_[xs[2], xs[3], 17.25, xs[150], TRUE_BREAK, 88.8, xs[-4], xs[-3]]
+    explicit = [sm.OLS(y, np.column_stack([np.ones_like(x), x, np.maximum(x - c, 0)]))
+                .fit().ssr for c in cs]
+    assert_allclose(_profile_rss_sums(x, y, cs), explicit, rtol=1e-9)
+    grid = np.unique(x)[3:-3]
+    assert_allclose(_profile_rss_sums(x, y, grid), _profile_rss(x, y, grid), rtol=1e-9)
+
+
+def test_hundred_thousand_rows_in_bounded_memory_and_seconds():
+    # 10^5 rows with ~2,400 distinct x (0.1 steps, as a calibration table has): every
+    # distinct value is a candidate breakpoint. Limits: peak traced memory < 500 MB and
+    # a few seconds (the former n x candidates matrix needed ~6 GB and ~40 s).
+    import time
+    import tracemalloc
+
+    x, y = hinge(n=100_000, seed=9, sd=10.0)
+    x = np.round(x, 1)
+    tracemalloc.start()
+    t0 = time.perf_counter()
+    try:
+        res = fit_broken_stick(x, y)
+        seconds = time.perf_counter() - t0
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert peak < 500e6
+    assert seconds < 15.0
+    assert abs(res.breakpoint - TRUE_BREAK) < 3 * res.breakpoint_se
+    assert res.clearly_better
