@@ -298,8 +298,11 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
     """Forward direction: invert ``feature = f(climate)`` as a classical calibration,
     through :func:`refit._forward.forward_predict` (the core ``Fit.predict`` uses too).
 
-    The file does not record the climate variable's physical bounds, so the search window
-    is the calibration range widened by :data:`refit.domain.SEARCH_MARGIN` alone."""
+    The ``inversion`` block gives the climate variable's physical bounds (they cut the
+    search window and a line's limits), the new observation's standard deviation and the
+    approximate-interval flag; files written before these fields existed lack them, and
+    then the window is the calibration range widened by
+    :data:`refit.domain.SEARCH_MARGIN` alone, the SD is ``residual_std_error``."""
     from ._forward import forward_predict
 
     iv = rec["interval"]
@@ -313,16 +316,20 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
     if not np.all(np.isfinite(cov)):
         raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
                          "covariance, so the calibration interval cannot be formed")
-    s = float(rec["residual_std_error"])
     inv = iv.get("inversion") or {}
+    s = float(inv.get("prediction_sd") or rec["residual_std_error"])
+    b_lo, b_hi = inv.get("bounds") or (None, None)
+    bounds = (-np.inf if b_lo is None else float(b_lo),
+              np.inf if b_hi is None else float(b_hi))
     return forward_predict(
         v[:, 0], coefficients=np.asarray(rec["coefficients"], float), covariance=cov,
         sigma2_new=s * s / w0 if method == "analytic" else 0.0,
         t=t_quantile(level, float(rec["df_resid"]), iv),
         domain=tuple(inv.get("x_range") or rec["domain"]["ranges"][eq["x"][0]]),
         degree=int(rec["degree"]), through_origin="intercept" not in rec["terms"],
-        log_response=eq["scale"] == "log", x_cal=_branch_points(inv),
-        with_interval=method != "none")
+        log_response=eq["scale"] == "log", x_cal=_branch_points(inv), bounds=bounds,
+        with_interval=method != "none",
+        approximate=method == "analytic" and bool(inv.get("approximate", False)))
 
 
 def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:

@@ -5,7 +5,11 @@ block holds what a consumer needs to rebuild the interval without the calibratio
 
 - ``analytic``: t quantile and degrees of freedom (covariance and residual SE at the top);
   for forward fits also the inversion's calibration range and how many calibration
-  points lie on each monotonic branch of the curve (to pick the same root).
+  points lie on each monotonic branch of the curve (to pick the same root), the climate
+  variable's physical bounds (they cut the search window and a line's limits), the
+  new observation's standard deviation (Theil-Sen: the root-mean-square residual, not the
+  robust scale) and whether the interval is approximate (the ``inversion`` block; also
+  written for a forward fit with interval ``none``).
 - ``split-conformal``: the training-part coefficients and the sorted calibration scores
   (any level, exact).
 - ``jackknife+``: the n leave-one-out coefficient vectors and |LOO residuals| (exact).
@@ -29,11 +33,18 @@ APPROX_BOOTSTRAP = (
 
 
 def _branches(fit) -> dict:
-    """Calibration range and points per monotonic branch of a forward polynomial."""
-    from .calibrate import branch_layout
+    """The ``inversion`` block of a forward fit: calibration range, physical bounds,
+    new-observation SD, approximate flag, and points per monotonic branch of a polynomial."""
+    from .calibrate import branch_layout, physical_bounds
 
     lo, hi = fit.ranges[fit.x_names[0]]
-    out = {"x_range": [lo, hi]}
+    res = fit.result
+    b_lo, b_hi = physical_bounds(fit)
+    out = {"x_range": [lo, hi],
+           "bounds": [float(b_lo) if np.isfinite(b_lo) else None,
+                      float(b_hi) if np.isfinite(b_hi) else None],
+           "prediction_sd": float(res.details.get("prediction_sd", res.residual_std_error)),
+           "approximate": bool(res.details.get("approximate_interval", False))}
     if fit.form.degree < 2:
         return out
     poly = np.concatenate([[0.0] if fit.form.through_origin else [],
@@ -129,7 +140,8 @@ def interval_record(fit, method: str, level: float, seed: int) -> dict:
     if method == "analytic":
         return out | _analytic(fit, level)
     if method == "none":
-        return out | {"level": None, "exact": True}
+        extra = {"inversion": _branches(fit)} if fit.direction == "forward" else {}
+        return out | {"level": None, "exact": True} | extra
     X, y = fit.form.design(fit.x), fit.y_model
     if method == "quantile":
         qlo, qhi = fit.extras["quantiles"]
@@ -181,7 +193,9 @@ def build_record(fit, *, function_id, provenance, cv, interval_method, level, se
     from .coefficients import CAUTION, SCHEMA_VERSION, column_units
 
     units = column_units()
-    res = fit.result
+    # forward fits: Theil-Sen's bootstrap covariance and new-observation SD, as
+    # Fit.predict draws them, so the file reproduces it
+    res = fit._filled() if fit.direction == "forward" else fit.result
     dom = _domain(fit)
     return {
         "schema_version": SCHEMA_VERSION, "function_id": function_id, "version": version,

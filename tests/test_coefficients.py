@@ -230,3 +230,53 @@ def test_run_folder_records_load(tmp_path):
     validate(rec)
     assert rec["provenance"]["recipe"]["function"]["id"] == "map_from_bk_depth"
     assert rec["sha256"] == content_sha256(rec)
+
+
+@pytest.fixture(scope="module")
+def dry_table():
+    # Seeded invented dry-climate calibration: MAP 30-700 mm and a Bk depth that deepens
+    # with MAP, scattered enough that prediction bands of shallow Bk horizons reach 0 mm.
+    rng = np.random.default_rng(20261202)
+    n = 60
+    p = rng.uniform(30, 700, n)
+    d = 8 + 0.16 * p - 5e-5 * p * p + rng.normal(0, 9, n)
+    return pd.DataFrame({"bk_depth_cm": np.round(d, 1), "map_mm": np.round(p, 1)})
+
+
+def test_forward_file_cuts_at_the_physical_bound_like_the_fit(dry_table, tmp_path):
+    # Reference: the in-memory Fit.predict, which cuts the search window at map_mm >= 0
+    # (the schema range of the column). The file must record that bound and reproduce
+    # estimate, limits and flags to 1e-9; without the bound (a file of the old layout)
+    # the limits would run below 0 mm, so this check can fail.
+    from refit._evaluate import evaluate
+
+    f = fit(dry_table, "map_mm", ["bk_depth_cm"], form="quadratic", direction="forward")
+    path = _record(f, "analytic", tmp_path)
+    v = np.array([0.5, 2.0, 5.0, 10.0, 20.0, 40.0, 80.0, np.nan])
+    a = f.predict(v)
+    cut = a["flags"].str.contains("open-below") & (a["lower"] == 0.0)
+    assert cut.sum() >= 2  # the band does reach 0 mm for shallow horizons
+    _same(a, load(path).predict(v))
+    rec = read_record(path)
+    assert rec["interval"]["inversion"]["bounds"] == [0.0, 12000.0]
+    del rec["interval"]["inversion"]["bounds"]
+    old = evaluate(rec, v[:, None], 0.95, np.ones(len(v)))
+    assert np.nanmin(old[1]) < 0.0
+
+
+def test_forward_theil_sen_file_reproduces_the_approximate_interval(dry_table, tmp_path):
+    # Reference: Fit.predict of a Theil-Sen forward line (bootstrap covariance, RMS
+    # residual as the new observation's SD, 'approximate-interval' flag, limits cut at
+    # 0 mm); the file must give the same estimate, limits and flags to 1e-9.
+    f = fit(dry_table, "map_mm", ["bk_depth_cm"], form="linear", estimator="theil-sen",
+            direction="forward")
+    path = _record(f, "analytic", tmp_path)
+    v = np.array([0.5, 3.0, 15.0, 40.0, 70.0, 100.0, np.nan])
+    a = f.predict(v)
+    assert a["flags"].iloc[2].endswith("approximate-interval")
+    assert (a["lower"] == 0.0).any()
+    b = load(path).predict(v)
+    _same(a, b)
+    inv = read_record(path)["interval"]["inversion"]
+    assert inv["approximate"] is True
+    assert inv["prediction_sd"] != pytest.approx(read_record(path)["residual_std_error"])
