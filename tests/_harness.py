@@ -1,4 +1,5 @@
-"""Shared helpers for tests that run refit in real processes (kill and concurrency tests).
+"""Shared test helpers: recipe text, small runs on the demo store, invented soils, NIST
+StRD data, and running refit in real processes (kill and concurrency tests).
 
 A child process imports refit and its heavy libraries first, prints ``ready`` and only then
 runs the command, so a kill moment drawn after ``ready`` falls inside the command's own
@@ -7,7 +8,9 @@ work (reading, checking, staging, committing), not inside ``import pandas``.
 
 from __future__ import annotations
 
+import json
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -16,6 +19,8 @@ import time
 from pathlib import Path
 
 from refit._resources import demo_dir
+
+NIST = Path(__file__).parent / "data" / "nist"
 
 #: Number of kill moments per test: a handful in CI, >= 100 with REFIT_LONG=1.
 LONG = os.environ.get("REFIT_LONG", "") not in ("", "0")
@@ -34,32 +39,52 @@ if len(sys.argv) > 1 and sys.argv[1] == "--gate":  # wait for "go" on stdin
 main(args=sys.argv[1:], prog_name="refit")
 """
 
-RECIPE = """
-[data]
-store = "store"
+#: Sections every test recipe starts from; ``recipe_toml`` merges a test's own keys on top.
+RECIPE_DEFAULTS = {
+    "data": {"store": "store"},
+    "subset": {},
+    "function": {"id": "map_from_bk_depth", "response": "map_mm",
+                 "predictors": ["bk_depth_cm"]},
+    "candidates": {"forms": ["linear", "quadratic"], "estimators": ["ols"],
+                   "directions": ["inverse"]},
+    "validation": {},
+    "intervals": {"level": 0.95, "methods": ["analytic"]},
+}
 
-[subset]
-parent_material = "loess"
 
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
+def toml_value(value) -> str:
+    """A TOML 1.0 literal (toml.io/en/v1.0.0) for a str, bool, number, list or inline table."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(toml_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "{ " + ", ".join(f"{k} = {toml_value(v)}" for k, v in value.items()) + " }"
+    return repr(value)
 
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols"]
-directions = ["inverse"]
 
-[validation]
-scheme = "kfold"
-folds = 3
-seed = 20261209
+def recipe_toml(**sections) -> str:
+    """Recipe text: ``RECIPE_DEFAULTS`` with each given section's keys merged on top.
 
-[intervals]
-level = 0.95
-methods = ["analytic"]
-"""
+    A section given as ``None`` is left out, a key given as ``None`` is dropped, and an
+    empty section is not written (so the reader's own defaults apply)."""
+    lines: list[str] = []
+    for name, default in RECIPE_DEFAULTS.items():
+        given = sections.pop(name, {})
+        if given is None:
+            continue
+        keys = {k: v for k, v in {**default, **given}.items() if v is not None}
+        if keys:
+            lines += ["", f"[{name}]", *(f"{k} = {toml_value(v)}" for k, v in keys.items())]
+    assert not sections, f"unknown recipe sections {sorted(sections)}"
+    return "\n".join(lines) + "\n"
+
+
+#: The small two-candidate recipe most run-folder tests fit on a copy of the demo store.
+RECIPE = recipe_toml(subset={"parent_material": "loess"},
+                     validation={"scheme": "kfold", "folds": 3, "seed": 20261209})
 LINEAR = "linear__ols__inverse__analytic.json"
 QUADRATIC = "quadratic__ols__inverse__analytic.json"
 
@@ -135,17 +160,63 @@ def copy_demo_store(dest: Path) -> Path:
     return dest
 
 
-def make_fits(root: Path) -> Path:
-    """A small run (2 candidates) on a copy of the demo store; returns RUN/fits."""
+def make_fits(root: Path, recipe: str = RECIPE, out: str = "run") -> Path:
+    """Run ``recipe`` (default: a small run, 2 candidates) on ``root/store`` (a copy of the
+    demo store unless one is there already); returns RUN/fits."""
     from refit.matrix import run_recipe
     from refit.recipe import read_recipe
     from refit.runfolder import write_run
 
     if not (root / "store").exists():
         copy_demo_store(root / "store")
-    (root / "recipe.toml").write_text(RECIPE, encoding="utf-8")
+    (root / "recipe.toml").write_text(recipe, encoding="utf-8")
     run_ = run_recipe(read_recipe(root / "recipe.toml"))
-    return write_run(run_, root / "run", overwrite=True) / "fits"
+    return write_run(run_, root / out, overwrite=True) / "fits"
+
+
+def publish_all(fits: Path, registry: Path, *names: str) -> Path:
+    """Publish ``fits/NAME`` for each name in turn, creating ``registry`` with the first."""
+    from refit.registry import publish
+
+    for i, name in enumerate(names):
+        publish(fits / name, registry, create=i == 0)
+    return registry
+
+
+def invented_soils(n: int, seed: int, offsets, *, forest_every: int | None = None):
+    """Invented soils (seeded): MAP rises with Bk depth, source ``i % len(offsets)`` shifted
+    by ``offsets[i % len(offsets)]`` [mm]; vegetation grassland, or forest on every
+    ``forest_every``-th row. Demo-style data for the run tests, not a reference."""
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    src = np.arange(n) % len(offsets)
+    bk = rng.uniform(20, 150, n)
+    offset = np.asarray(offsets)[src]
+    vegetation = ("grassland" if forest_every is None
+                  else np.where(np.arange(n) % forest_every == 0, "forest", "grassland"))
+    return pd.DataFrame({
+        "profile_id": [f"P{i:03d}" for i in range(n)],
+        "latitude": -40 + rng.uniform(0, 1, n), "longitude": 53 + rng.uniform(0, 1, n),
+        "source": [f"SRC-{chr(65 + s)}" for s in src],
+        "map_mm": (200 + 4 * bk + offset + rng.normal(0, 40, n)).round(1),
+        "bk_depth_cm": bk.round(1), "bk_thickness_cm": (20 + bk / 4).round(1),
+        "vegetation": vegetation, "parent_material": "loess",
+        "age_ka": rng.uniform(1, 50, n).round(1)})
+
+
+def nist_strd(name: str):
+    """Data block of a NIST StRD file in tests/data/nist (y first, then x...), read via the
+    line range its header states."""
+    import pandas as pd
+
+    lines = (NIST / f"{name}.dat").read_text().splitlines()
+    first, last = map(int, re.search(r"Data\s+\(lines (\d+) to (\d+)\)",
+                                     "\n".join(lines[:10])).groups())
+    names = lines[first - 2].split()[1:]
+    rows = [[float(v) for v in ln.split()] for ln in lines[first - 1:last]]
+    return pd.DataFrame(rows, columns=names)
 
 
 def cli(*args) -> tuple[int, str]:

@@ -3,52 +3,28 @@
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
 
-from refit._resources import demo_dir
+from _harness import make_fits, recipe_toml
 from refit.cli.diff import diff
 from refit.cli.publish import publish
 from refit.cli.verify import verify
 
-RECIPE = """
-[data]
-store = "store"
-
-[subset]
-parent_material = "loess"
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols"]
-
-[validation]
-folds = 5
-seed = 11
-"""
+# no scheme, directions or [intervals]: the reader's defaults apply
+RECIPE = recipe_toml(subset={"parent_material": "loess"},
+                     candidates={"directions": None}, validation={"folds": 5, "seed": 11},
+                     intervals=None)
 LINEAR = "linear__ols__inverse__analytic.json"
 QUADRATIC = "quadratic__ols__inverse__analytic.json"
 
 
 @pytest.fixture(scope="module")
 def world(tmp_path_factory):
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
-
     root = tmp_path_factory.mktemp("cli_registry")
-    shutil.copytree(demo_dir() / "store", root / "store")
-    (root / "recipe.toml").write_text(RECIPE, encoding="utf-8")
-    fits = write_run(run_recipe(read_recipe(root / "recipe.toml")), root / "run") / "fits"
-    return root, fits
+    return root, make_fits(root, RECIPE)
 
 
 def invoke(cmd, *args):

@@ -10,54 +10,21 @@ from __future__ import annotations
 
 import json
 import math
-import shutil
 from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import stats
 
+from _harness import make_fits, recipe_toml
 from refit import registry as reg
 from refit._resources import demo_dir
 from refit.diff import diff_files, reference_grid
 from refit.errors import InvalidDataError, UnreadableInputError
 
-RECIPE = """
-[data]
-store = "store"
-
-[subset]
-parent_material = "loess"
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols"]
-directions = ["inverse"]
-
-[validation]
-scheme = "kfold"
-folds = 5
-seed = 3
-
-[intervals]
-level = 0.95
-methods = ["analytic"]
-"""
+RECIPE = recipe_toml(subset={"parent_material": "loess"},
+                     validation={"scheme": "kfold", "folds": 5, "seed": 3})
 LINEAR = "linear__ols__inverse__analytic.json"
-
-
-def _run(folder: Path, out: str) -> Path:
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
-
-    (folder / "recipe.toml").write_text(RECIPE, encoding="utf-8")
-    return write_run(run_recipe(read_recipe(folder / "recipe.toml")), folder / out) / "fits"
 
 
 @pytest.fixture(scope="module")
@@ -66,10 +33,9 @@ def pair(tmp_path_factory):
     from refit.store import admit
 
     root = tmp_path_factory.mktemp("diff")
-    shutil.copytree(demo_dir() / "store", root / "store")
-    a = _run(root, "run1")
+    a = make_fits(root, RECIPE, "run1")
     admit(demo_dir() / "incoming_soils.csv", root / "store", today="2026-12-02")
-    b = _run(root, "run2")
+    b = make_fits(root, RECIPE, "run2")
     return a, b
 
 

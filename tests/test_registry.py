@@ -18,49 +18,17 @@ from pathlib import Path
 
 import pytest
 
+from _harness import make_fits, recipe_toml
 from refit import registry as reg
-from refit._resources import demo_dir
 from refit.errors import InvalidDataError, UnreadableInputError
 
-RECIPE = """
-[data]
-store = "store"
-
-[subset]
-parent_material = "loess"
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols"]
-directions = ["inverse"]
-
-[validation]
-scheme = "kfold"
-folds = 5
-seed = 7
-
-[intervals]
-level = 0.95
-methods = ["analytic"]
-"""
+RECIPE = recipe_toml(subset={"parent_material": "loess"},
+                     validation={"scheme": "kfold", "folds": 5, "seed": 7})
 
 
 def make_run(folder: Path, recipe_text: str = RECIPE, out: str = "run") -> Path:
     """Copy the demo store, write the recipe beside it, run it; returns RUN/fits."""
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
-
-    if not (folder / "store").exists():
-        shutil.copytree(demo_dir() / "store", folder / "store")
-    (folder / "recipe.toml").write_text(recipe_text, encoding="utf-8")
-    run = run_recipe(read_recipe(folder / "recipe.toml"))
-    return write_run(run, folder / out, overwrite=True) / "fits"
+    return make_fits(folder, recipe_text, out)
 
 
 @pytest.fixture(scope="module")

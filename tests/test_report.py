@@ -17,41 +17,22 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 
-from refit._resources import demo_dir
+from _harness import copy_demo_store, recipe_toml
 from refit.cli.fit import fit as fit_cmd
 from refit.cli.report import report
 from refit.report.context import num
 
-RECIPE = """
-[data]
-store = "{store}"
 
-[subset]
-vegetation = ["grassland", "shrubland", "savanna"]
-parent_material = "loess"
-age_ka = {{ min = 5 }}
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols"]
-directions = ["inverse", "forward"]
-
-[validation]
-scheme = "group-kfold"
-folds = 4
-repeats = 2
-groups = "source"
-seed = 7
-
-[intervals]
-level = 0.9
-methods = ["analytic", "jackknife+"]
-"""
+def report_recipe(store) -> str:
+    """The report run's recipe, on the store at ``store``."""
+    return recipe_toml(
+        data={"store": store.as_posix()},
+        subset={"vegetation": ["grassland", "shrubland", "savanna"], "parent_material": "loess",
+                "age_ka": {"min": 5}},
+        candidates={"directions": ["inverse", "forward"]},
+        validation={"scheme": "group-kfold", "folds": 4, "repeats": 2, "groups": "source",
+                    "seed": 7},
+        intervals={"level": 0.9, "methods": ["analytic", "jackknife+"]})
 
 
 class Page(HTMLParser):
@@ -82,10 +63,9 @@ def parse(path) -> Page:
 @pytest.fixture(scope="module")
 def run_dir(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("report")
-    store = tmp / "store"
-    shutil.copytree(demo_dir() / "store", store)
+    store = copy_demo_store(tmp / "store")
     recipe = tmp / "recipe.toml"
-    recipe.write_text(RECIPE.format(store=store.as_posix()), "utf-8")
+    recipe.write_text(report_recipe(store), "utf-8")
     out = tmp / "run"
     res = CliRunner().invoke(fit_cmd, [str(recipe), "--out", str(out), "--quiet"])
     assert res.exit_code == 0, res.output

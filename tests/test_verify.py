@@ -12,53 +12,24 @@ from pathlib import Path
 
 import pytest
 
+from _harness import make_fits, recipe_toml
 from refit import registry as reg
 from refit._resources import demo_dir
 from refit.errors import RefitError, UnreadableInputError
 from refit.verify import verify_bytes, verify_file, verify_registry
 
-RECIPE = """
-[data]
-store = "store"
-
-[subset]
-vegetation = ["grassland", "shrubland", "savanna"]
-parent_material = "loess"
-age_ka = { min = 5 }
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols", "huber"]
-directions = ["inverse", "forward"]
-
-[validation]
-scheme = "kfold"
-folds = 5
-seed = 20261201
-
-[intervals]
-level = 0.95
-methods = ["analytic", "split-conformal"]
-"""
+RECIPE = recipe_toml(
+    subset={"vegetation": ["grassland", "shrubland", "savanna"], "parent_material": "loess",
+            "age_ka": {"min": 5}},
+    candidates={"estimators": ["ols", "huber"], "directions": ["inverse", "forward"]},
+    validation={"scheme": "kfold", "folds": 5, "seed": 20261201},
+    intervals={"methods": ["analytic", "split-conformal"]})
 LINEAR = "linear__ols__inverse__analytic.json"
 
 
 def make_run(folder: Path, out: str = "run") -> Path:
     """Run the recipe on ``folder/store`` (copied from the demo if absent); RUN/fits."""
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
-
-    if not (folder / "store").exists():
-        shutil.copytree(demo_dir() / "store", folder / "store")
-    (folder / "recipe.toml").write_text(RECIPE, encoding="utf-8")
-    run = run_recipe(read_recipe(folder / "recipe.toml"))
-    return write_run(run, folder / out, overwrite=True) / "fits"
+    return make_fits(folder, RECIPE, out)
 
 
 @pytest.fixture(scope="module")
