@@ -9,11 +9,11 @@ import json
 import shutil
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import pytest
 from click.testing import CliRunner
 
+from _harness import invented_soils
 from refit.cli.fit import fit
 
 DEMO = Path(__file__).resolve().parents[1] / "calib_demo"
@@ -21,17 +21,7 @@ DEMO = Path(__file__).resolve().parents[1] / "calib_demo"
 
 def soils(n=48, seed=3, n_sources=4) -> pd.DataFrame:
     """Invented soils: MAP rises with Bk depth; each source has its own offset."""
-    rng = np.random.default_rng(seed)
-    src = np.arange(n) % n_sources
-    bk = rng.uniform(20, 150, n)
-    return pd.DataFrame({
-        "profile_id": [f"P{i:03d}" for i in range(n)],
-        "latitude": -40 + rng.uniform(0, 1, n), "longitude": 53 + rng.uniform(0, 1, n),
-        "source": [f"SRC-{chr(65 + s)}" for s in src],
-        "map_mm": (200 + 4 * bk + 25 * src + rng.normal(0, 40, n)).round(1),
-        "bk_depth_cm": bk.round(1), "bk_thickness_cm": (20 + bk / 4).round(1),
-        "vegetation": "grassland", "parent_material": "loess",
-        "age_ka": rng.uniform(1, 50, n).round(1)})
+    return invented_soils(n, seed, [25 * s for s in range(n_sources)])
 
 
 TABLE_RECIPE = """\

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from _harness import invented_soils, recipe_toml
 from refit.matrix import (
     Spec,
     candidate_grid,
@@ -28,56 +29,21 @@ from refit.runfolder import fit_filename, write_run
 # ----------------------------------------------------------------------------- data
 def soils(n=60, seed=7, n_sources=5) -> pd.DataFrame:
     """Invented soils: MAP rises with Bk depth, each source with its own offset."""
-    rng = np.random.default_rng(seed)
-    src = np.arange(n) % n_sources
-    bk = rng.uniform(20, 150, n)
-    offset = np.array([-60, -20, 0, 30, 70, 10, -40][:n_sources])[src]
-    return pd.DataFrame({
-        "profile_id": [f"P{i:03d}" for i in range(n)],
-        "latitude": -40 + rng.uniform(0, 1, n), "longitude": 53 + rng.uniform(0, 1, n),
-        "source": [f"SRC-{chr(65 + s)}" for s in src],
-        "map_mm": (200 + 4 * bk + offset + rng.normal(0, 40, n)).round(1),
-        "bk_depth_cm": bk.round(1), "bk_thickness_cm": (20 + bk / 4).round(1),
-        "vegetation": np.where(np.arange(n) % 4 == 0, "forest", "grassland"),
-        "parent_material": "loess", "age_ka": rng.uniform(1, 50, n).round(1)})
-
-
-RECIPE = """
-[data]
-table = "soils.csv"
-
-[subset]
-vegetation = "grassland"
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols", "huber", "theil-sen"]
-directions = ["inverse", "forward"]
-
-[validation]
-scheme = "{scheme}"
-folds = 3
-repeats = {repeats}
-{groups}
-seed = 11
-
-[intervals]
-level = 0.9
-methods = ["analytic", "split-conformal", "jackknife+"]
-"""
+    return invented_soils(n, seed, [-60, -20, 0, 30, 70, 10, -40][:n_sources], forest_every=4)
 
 
 def write_case(folder, *, scheme="group-kfold", repeats=1, n=60):
     soils(n).to_csv(folder / "soils.csv", index=False)
-    groups = 'groups = "source"' if scheme in ("group-kfold", "leave-one-group-out") else ""
+    grouped = scheme in ("group-kfold", "leave-one-group-out")
     path = folder / "recipe.toml"
-    path.write_text(RECIPE.replace("{scheme}", scheme).replace("{repeats}", str(repeats))
-                    .replace("{groups}", groups), encoding="utf-8")
+    path.write_text(recipe_toml(
+        data={"store": None, "table": "soils.csv"}, subset={"vegetation": "grassland"},
+        candidates={"estimators": ["ols", "huber", "theil-sen"],
+                    "directions": ["inverse", "forward"]},
+        validation={"scheme": scheme, "folds": 3, "repeats": repeats,
+                    "groups": "source" if grouped else None, "seed": 11},
+        intervals={"level": 0.9, "methods": ["analytic", "split-conformal", "jackknife+"]}),
+        encoding="utf-8")
     return path
 
 

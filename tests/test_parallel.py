@@ -13,50 +13,22 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from _harness import invented_soils, recipe_toml
 from refit.matrix import run_matrix, run_recipe
 from refit.recipe import read_recipe
 
-RECIPE = """
-[data]
-table = "soils.csv"
-
-[function]
-id = "map_from_bk_depth"
-response = "map_mm"
-predictors = ["bk_depth_cm"]
-
-[candidates]
-forms = ["linear", "quadratic"]
-estimators = ["ols", "huber"]
-directions = ["inverse", "forward"]
-
-[validation]
-scheme = "group-kfold"
-folds = 3
-repeats = 2
-groups = "source"
-seed = 11
-
-[intervals]
-level = 0.9
-methods = ["analytic", "split-conformal", "jackknife+", "bootstrap"]
-"""
+RECIPE = recipe_toml(
+    data={"store": None, "table": "soils.csv"},
+    candidates={"estimators": ["ols", "huber"], "directions": ["inverse", "forward"]},
+    validation={"scheme": "group-kfold", "folds": 3, "repeats": 2, "groups": "source",
+                "seed": 11},
+    intervals={"level": 0.9,
+               "methods": ["analytic", "split-conformal", "jackknife+", "bootstrap"]})
 
 
 def soils(n=72, seed=3) -> pd.DataFrame:
     """Invented soils: MAP rises with Bk depth, each source with its own offset."""
-    rng = np.random.default_rng(seed)
-    src = np.arange(n) % 6
-    bk = rng.uniform(20, 150, n)
-    offset = np.array([-60, -20, 0, 30, 70, 10])[src]
-    return pd.DataFrame({
-        "profile_id": [f"P{i:03d}" for i in range(n)],
-        "latitude": -40 + rng.uniform(0, 1, n), "longitude": 53 + rng.uniform(0, 1, n),
-        "source": [f"SRC-{chr(65 + s)}" for s in src],
-        "map_mm": (200 + 4 * bk + offset + rng.normal(0, 40, n)).round(1),
-        "bk_depth_cm": bk.round(1), "bk_thickness_cm": (20 + bk / 4).round(1),
-        "vegetation": "grassland", "parent_material": "loess",
-        "age_ka": rng.uniform(1, 50, n).round(1)})
+    return invented_soils(n, seed, [-60, -20, 0, 30, 70, 10])
 
 
 @pytest.fixture(scope="module")
