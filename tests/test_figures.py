@@ -8,9 +8,6 @@ NIST StRD Norris and Pontius data; ``Fit.predict`` for the bands drawn; scipy.st
 
 from __future__ import annotations
 
-import re
-from pathlib import Path
-
 import matplotlib
 import numpy as np
 import pandas as pd
@@ -20,21 +17,10 @@ from matplotlib.collections import PolyCollection
 from scipy import stats
 from statsmodels.stats.outliers_influence import OLSInfluence
 
+from _harness import nist_strd
 from refit.fitting import fit
 from refit.report import diagnostics as dg
 from refit.report import figures as fg
-
-NIST = Path(__file__).parent / "data" / "nist"
-
-
-def strd(name: str) -> pd.DataFrame:
-    """Data block of a NIST StRD file (y first, then x), via its header's line range."""
-    lines = (NIST / f"{name}.dat").read_text().splitlines()
-    first, last = map(int, re.search(r"Data\s+\(lines (\d+) to (\d+)\)",
-                                     "\n".join(lines[:10])).groups())
-    names = lines[first - 2].split()[1:]
-    rows = [[float(v) for v in ln.split()] for ln in lines[first - 1:last]]
-    return pd.DataFrame(rows, columns=names)
 
 
 def by_gid(fig, gid):
@@ -54,7 +40,7 @@ def band_vertices(fig, gid):
 
 @pytest.fixture(scope="module")
 def norris():
-    d = strd("Norris")
+    d = nist_strd("Norris")
     f = fit(d, response="y", predictors="x")
     res = sm.OLS(d.y.to_numpy(), sm.add_constant(d.x.to_numpy())).fit()
     return d, f, res
@@ -77,7 +63,7 @@ def test_regression_bands_match_statsmodels_linear(norris, level):
 
 def test_regression_bands_match_statsmodels_quadratic():
     # Reference: statsmodels on NIST Pontius (quadratic), x in units of 1e6 for its solver.
-    d = strd("Pontius")
+    d = nist_strd("Pontius")
     f = fit(d, response="y", predictors="x", form="quadratic")
     x = np.array([2e5, 1.5e6, 3.2e6])
     u, u0 = d.x.to_numpy() / 1e6, x / 1e6

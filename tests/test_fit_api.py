@@ -3,7 +3,6 @@ the exponential form with Duan's smearing, and the bad-input errors of issue 3."
 
 from __future__ import annotations
 
-import re
 from pathlib import Path
 
 import numpy as np
@@ -12,20 +11,9 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+from _harness import nist_strd
 from refit.errors import InvalidDataError, UsageError
 from refit.fitting import ESTIMATORS, fit
-
-NIST = Path(__file__).parent / "data" / "nist"
-
-
-def strd(name: str) -> pd.DataFrame:
-    """Data block of a NIST StRD file (y first, then x...), read via its header's line range."""
-    lines = (NIST / f"{name}.dat").read_text().splitlines()
-    first, last = map(int, re.search(r"Data\s+\(lines (\d+) to (\d+)\)",
-                                     "\n".join(lines[:10])).groups())
-    names = lines[first - 2].split()[1:]
-    rows = [[float(v) for v in ln.split()] for ln in lines[first - 1:last]]
-    return pd.DataFrame(rows, columns=names)
 
 
 def sm_obs_ci(res, exog_new, alpha, weights=None):
@@ -38,7 +26,7 @@ def sm_obs_ci(res, exog_new, alpha, weights=None):
 def test_ols_quadratic_interval_matches_statsmodels(level):
     # Reference: statsmodels OLS get_prediction(...).summary_frame(alpha) obs_ci, on the
     # NIST Pontius data (quadratic), at points inside and outside the data.
-    d = strd("Pontius")
+    d = nist_strd("Pontius")
     f = fit(d, response="y", predictors="x", form="quadratic")
     x0 = np.array([150000.0, 1.7e6, 3.0e6, 3.5e6])
     # statsmodels gets load in units of 1e6 (its pinv solve on raw x^2 ~ 1e13 loses about
@@ -58,7 +46,7 @@ def test_ols_quadratic_interval_matches_statsmodels(level):
 def test_wls_interval_uses_the_new_observation_weight_like_statsmodels():
     # Reference: statsmodels WLS get_prediction(exog, weights=w0) obs_ci: the new
     # observation's variance is scale / w0 (w0 = 1 when not given).
-    d = strd("Norris")
+    d = nist_strd("Norris")
     w = np.linspace(0.5, 3.0, len(d))
     d["w"] = w
     f = fit(d, response="y", predictors="x", estimator="wls", weights="w")
@@ -77,7 +65,7 @@ def test_wls_interval_uses_the_new_observation_weight_like_statsmodels():
 
 def test_several_predictors_longley_match_statsmodels():
     # Reference: statsmodels OLS on NIST Longley (6 predictors); R^2 also certified by NIST.
-    d = strd("Longley")
+    d = nist_strd("Longley")
     xs = [f"x{i}" for i in range(1, 7)]
     f = fit(d, response="y", predictors=xs)
     res = sm.OLS(d.y.to_numpy(), sm.add_constant(d[xs].to_numpy())).fit()
@@ -94,7 +82,7 @@ def test_several_predictors_longley_match_statsmodels():
 def test_through_origin_noint1_certified_and_statsmodels_interval():
     # NIST StRD NoInt1 certified B1 (the header, "2.07438016528926", copied by
     # tests/test_lsq_nist.py's parser there) and statsmodels no-constant OLS intervals.
-    d = strd("NoInt1")
+    d = nist_strd("NoInt1")
     f = fit(d, response="y", predictors="x", through_origin=True)
     assert f.terms == ["x"]
     res = sm.OLS(d.y.to_numpy(), d[["x"]].to_numpy()).fit()
@@ -129,7 +117,7 @@ def test_forward_direction_predict_takes_the_feature():
     # Norris straight line used as a classical calibration (reference file section
     # 1.2(iii), COMPUTED): at y0 = 500 the estimate is 499.205596 with the Fieller
     # interval [497.385244, 501.026069]; the inverse regression gives 499.205095.
-    d = strd("Norris")
+    d = nist_strd("Norris")
     fwd = fit(d, response="x", predictors="y", direction="forward")
     inv = fit(d, response="x", predictors="y", direction="inverse")
     p = fwd.predict(500.0)
@@ -144,7 +132,7 @@ def test_resampling_intervals_are_wired_to_the_interval_functions():
     # numbers as calling refit.intervals directly.
     from refit import intervals as iv
 
-    d = strd("Norris")
+    d = nist_strd("Norris")
     f = fit(d, response="y", predictors="x")
     X = sm.add_constant(d.x.to_numpy())
     x0 = np.array([100.0, 600.0])
@@ -157,7 +145,7 @@ def test_resampling_intervals_are_wired_to_the_interval_functions():
 
 
 def test_missing_values_refused_by_default_and_dropped_on_request():
-    d = strd("Norris")
+    d = nist_strd("Norris")
     d.loc[[3, 8], "x"] = np.nan
     with pytest.raises(InvalidDataError, match=r"'x' at rows 3, 8"):
         fit(d, response="y", predictors="x")
