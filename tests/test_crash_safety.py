@@ -23,8 +23,8 @@ from pathlib import Path
 
 import pytest
 
-from _harness import (LINEAR, QUADRATIC, cli, make_fits, n_runs, run, run_killed, snapshot,
-                      timed_run, visible)
+from _harness import (LINEAR, QUADRATIC, cli, copy_demo_store, make_fits, n_runs,
+                      publish_all, run, run_killed, snapshot, timed_run, visible)
 from refit._resources import demo_dir
 
 INCOMING = demo_dir() / "incoming_soils.csv"
@@ -46,8 +46,7 @@ def kill_moments(duration: float, n: int, seed: int) -> list[float]:
 def store_states(tmp_path_factory):
     """The demo store before and after admitting the incoming soils, and the run time."""
     root = tmp_path_factory.mktemp("crash-store")
-    base = root / "base"
-    shutil.copytree(demo_dir() / "store", base)
+    base = copy_demo_store(root / "base")
     done = root / "done"
     shutil.copytree(base, done)
     duration = timed_run("admit", INCOMING, "--into", done)
@@ -119,12 +118,9 @@ def normalised(snap: dict[str, bytes]) -> dict[str, bytes]:
 @pytest.fixture(scope="module")
 def registry_states(tmp_path_factory):
     """A registry with 1.0.0; the state after publishing the quadratic (2.0.0); run time."""
-    from refit.registry import publish
-
     root = tmp_path_factory.mktemp("crash-registry")
     fits = make_fits(root)
-    base = root / "base"
-    publish(fits / LINEAR, base, create=True)
+    base = publish_all(fits, root / "base", LINEAR)
     done = root / "done"
     shutil.copytree(base, done)
     duration = timed_run("publish", fits / QUADRATIC, "--to", done)

@@ -18,21 +18,15 @@ from pathlib import Path
 
 import pytest
 
-from _harness import LINEAR, QUADRATIC, cli, make_fits
+from _harness import LINEAR, QUADRATIC, cli, make_fits, publish_all
 from refit import coefficients
 from refit.errors import RefitError
 
 
 @pytest.fixture(scope="module")
 def registry(tmp_path_factory):
-    from refit.registry import publish
-
     root = tmp_path_factory.mktemp("tamper")
-    fits = make_fits(root)
-    reg = root / "registry"
-    publish(fits / LINEAR, reg, create=True)
-    publish(fits / QUADRATIC, reg)
-    return reg
+    return publish_all(make_fits(root), root / "registry", LINEAR, QUADRATIC)
 
 
 def changes(raw: bytes):
