@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 
+import pytest
 from hypothesis import HealthCheck, settings
 
 settings.register_profile(
@@ -19,3 +20,11 @@ settings.register_profile(
     suppress_health_check=[HealthCheck.too_slow],
 )
 settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "ci"))
+
+
+@pytest.fixture
+def demo_store(tmp_path):
+    """This test's own copy of the demo store, at ``tmp_path/store``."""
+    from _harness import copy_demo_store
+
+    return copy_demo_store(tmp_path / "store")

@@ -131,9 +131,8 @@ def test_existing_run_folder_needs_overwrite(tmp_path):
 
 
 @pytest.fixture
-def demo(tmp_path):
+def demo(tmp_path, demo_store):
     """The demo store and recipe copied into a temporary folder."""
-    shutil.copytree(DEMO / "store", tmp_path / "store")
     shutil.copy(DEMO / "recipe.toml", tmp_path / "recipe.toml")
     return tmp_path
 

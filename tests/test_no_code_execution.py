@@ -16,13 +16,12 @@ import ast
 import json
 import os
 import pickle
-import shutil
 from pathlib import Path
 
 import pytest
 
 import refit
-from _harness import LINEAR, cli, make_fits
+from _harness import LINEAR, cli, copy_demo_store, make_fits
 from refit._resources import demo_dir
 
 
@@ -70,8 +69,7 @@ def test_pickle_payload_is_never_unpickled(tmp_path, marker):
         assert code in (1, 2), (args, out)  # a pickle is never a valid table or record
     # the same in a store: records.csv and manifest.json replaced by a pickle
     for name in ("records.csv", "manifest.json"):
-        store = tmp_path / f"store-{name}"
-        shutil.copytree(demo_dir() / "store", store)
+        store = copy_demo_store(tmp_path / f"store-{name}")
         (store / name).write_bytes(blob)
         code, out = cli("admit", demo_dir() / "incoming_soils.csv", "--into", store)
         assert_clean(code, out, marker)
@@ -114,9 +112,8 @@ predictors = ["bk_depth_cm"]
 
 
 @pytest.mark.parametrize("where", ["subset", "response", "id", "form"])
-def test_recipe_strings_are_never_evaluated(tmp_path, marker, where):
+def test_recipe_strings_are_never_evaluated(tmp_path, demo_store, marker, where):
     p = {k: v.replace('"', "'") for k, v in payloads(marker).items()}
-    shutil.copytree(demo_dir() / "store", tmp_path / "store")
     text = RECIPE.format(**p)
     if where == "response":
         text = text.replace('response = "map_mm"', f'response = "{p["python"]}"')
@@ -132,10 +129,9 @@ def test_recipe_strings_are_never_evaluated(tmp_path, marker, where):
     assert "recipe.toml" in out or "subset" in out or "no rows" in out.lower(), out
 
 
-def test_recipe_paths_cannot_leave_the_recipe_folder(tmp_path):
+def test_recipe_paths_cannot_leave_the_recipe_folder(tmp_path, demo_store):
     sub = tmp_path / "recipes"
     sub.mkdir()
-    shutil.copytree(demo_dir() / "store", tmp_path / "store")
     for value in ("../store", "../../etc", "/etc", "sub/../../store"):
         recipe = sub / "r.toml"
         recipe.write_text(RECIPE.replace('store = "store"', f'store = "{value}"')
@@ -173,10 +169,9 @@ def test_coefficient_file_strings_and_tags_stay_data(tmp_path, marker):
     assert code == 1 and "coefficients" in out, out
 
 
-def test_store_vocabulary_and_registry_index_payloads(tmp_path, marker):
+def test_store_vocabulary_and_registry_index_payloads(tmp_path, demo_store, marker):
     p = payloads(marker)
-    store = tmp_path / "store"
-    shutil.copytree(demo_dir() / "store", store)
+    store = demo_store
     (store / "vocabularies.json").write_text(json.dumps({"vegetation": [p["python"]],
                                                          p["yaml"]: ["x"]}), encoding="utf-8")
     code, out = cli("admit", demo_dir() / "incoming_soils.csv", "--into", store, "--dry-run")
