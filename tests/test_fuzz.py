@@ -162,6 +162,16 @@ def test_fuzzing_reaches_admits():
 
 
 # ----------------------------------------------------------------------------- recipes
+def mangled(draw, data: bytes) -> bytes:
+    """``data`` whole (4 times in 6), cut short at a drawn byte, or replaced by drawn bytes."""
+    mode = draw(st.sampled_from(["whole"] * 4 + ["truncated", "bytes"]))
+    if mode == "truncated":
+        return data[: draw(st.integers(0, len(data)))]
+    if mode == "bytes":
+        return draw(st.binary(max_size=300))
+    return data
+
+
 def toml_value(value) -> str:
     """A TOML rendering of a generated value (strings as JSON-escaped basic strings)."""
     if isinstance(value, bool):
@@ -212,12 +222,7 @@ def recipe_bytes(draw):
     text = "\n".join(f"[{s}]\n" + "\n".join(f"{json.dumps(k)} = {toml_value(v)}"
                                             for k, v in d.items()) for s, d in doc.items())
     data = text.encode("utf-8", "surrogatepass")
-    mode = draw(st.sampled_from(["whole"] * 4 + ["truncated", "bytes"]))
-    if mode == "truncated":
-        data = data[: draw(st.integers(0, len(data)))]
-    elif mode == "bytes":
-        data = draw(st.binary(max_size=300))
-    return data
+    return mangled(draw, data)
 
 
 @pytest.fixture(scope="module")
@@ -301,12 +306,7 @@ def coefficient_bytes(draw, candidate):
             pass
     data = json.dumps(doc, indent=1, ensure_ascii=draw(st.booleans())).encode(
         "utf-8", "surrogatepass")
-    mode = draw(st.sampled_from(["whole"] * 4 + ["truncated", "bytes"]))
-    if mode == "truncated":
-        data = data[: draw(st.integers(0, len(data)))]
-    elif mode == "bytes":
-        data = draw(st.binary(max_size=300))
-    return data
+    return mangled(draw, data)
 
 
 @FUZZ
