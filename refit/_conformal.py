@@ -100,11 +100,13 @@ def _kth_in_place(values: np.ndarray, k: int) -> np.ndarray:
     return values[..., k - 1].copy()
 
 
-def _plus_limits(mu_loo: np.ndarray, r: np.ndarray, alpha: float):
-    """Jackknife+/CV+ limits from LOO predictions (m, n) and LOO residual sizes (n,)."""
+def _plus_limits(mu_loo: np.ndarray, r: np.ndarray, alpha: float, ranks=None):
+    """Jackknife+/CV+ limits from LOO predictions (m, n) and LOO residual sizes (n,);
+    ``ranks`` = (k_lo, k_hi) overrides the ranks of the n columns."""
     n = r.shape[0]
-    lower = _kth_in_place(mu_loo - r, _rank_lower(alpha, n))
-    upper = _kth_in_place(np.add(mu_loo, r, out=mu_loo), _rank_upper(alpha, n))  # scratch
+    k_lo, k_hi = ranks if ranks is not None else (_rank_lower(alpha, n), _rank_upper(alpha, n))
+    lower = _kth_in_place(mu_loo - r, k_lo)
+    upper = _kth_in_place(np.add(mu_loo, r, out=mu_loo), k_hi)  # scratch
     return lower, upper
 
 
@@ -125,6 +127,51 @@ def _loo_predictions(est: np.ndarray, A: np.ndarray, Q: np.ndarray, loo: np.ndar
     M = A @ Q.T
     M *= loo
     return np.subtract(est[:, None], M, out=M)
+
+
+#: Relative slack of the candidate bounds of :func:`_jackknife_candidates`: far above the
+#: rounding of the band values (a few ulp of their size), far below their spread.
+_CANDIDATE_SLACK = 1e-9
+
+
+def _jackknife_candidates(A, Q, h, loo, k_lo, k_hi, est):
+    """Indices of the rows that can set a jackknife+ limit of any new row, or None.
+
+    With g_ji = (a_j'q_i) e_i/(1 - h_ii), the band values are est_j - g_ji -/+ R_i, and by
+    Cauchy-Schwarz |g_ji| <= C s_i with C = max_j |a_j|, s_i = R_i sqrt(h_ii). So every
+    R_i -/+ g_ji lies in [L_i, U_i] = [R_i - C s_i, R_i + C s_i]: if tau is the k-th largest
+    L_i, at least k values per new row reach tau, and a row with U_i < tau (minus a slack
+    for rounding) lies beyond the k-th value of every new row. Dropping such rows leaves
+    both order statistics unchanged. None when the ranks are out of range or the cut
+    keeps more than half of the rows (then the full matrix is as cheap).
+    """
+    n = loo.shape[0]
+    ks = [k for k in (k_lo, n - k_hi + 1) if 1 <= k <= n]
+    if not ks:
+        return None
+    r = np.abs(loo)
+    spread = np.sqrt(np.einsum("ij,ij->i", A, A).max()) * r * np.sqrt(h)
+    low = r - spread
+    tau = np.partition(low, n - max(ks))[n - max(ks)]   # the max(ks)-th largest L_i
+    slack = _CANDIDATE_SLACK * (np.abs(est).max() + r.max() + spread.max())
+    keep = np.flatnonzero(r + spread >= tau - slack)
+    return keep if 2 * keep.size <= n else None
+
+
+def _jackknife_band(est, A, Q, h, loo, alpha):
+    """Jackknife+ limits: the band over the candidate rows only (same values, same order
+    statistics as over all rows; see :func:`_jackknife_candidates`), else over all rows in
+    cache-sized blocks."""
+    n = loo.shape[0]
+    k_lo, k_hi = _rank_lower(alpha, n), _rank_upper(alpha, n)
+    keep = _jackknife_candidates(A, Q, h, loo, k_lo, k_hi, est)
+    if keep is None:
+        return _plus_band(est, lambda sl: _loo_predictions(est[sl], A[sl], Q, loo),
+                          np.abs(loo), alpha)
+    Qk, lk = Q[keep], loo[keep]
+    dropped = n - keep.size            # all below the upper limit's rank
+    return _plus_limits(_loo_predictions(est, A, Qk, lk), np.abs(lk), alpha,
+                        ranks=(k_lo, k_hi - dropped))
 
 
 def _unbounded(lower: np.ndarray, upper: np.ndarray) -> bool:
@@ -231,11 +278,11 @@ def jackknife_plus(X, y, x0, *, level=0.95) -> PredictionInterval:
     X, y, x0, _ = _prepare(X, y, x0, None, who)
     alpha = _alpha(level, who)
     b, e, Q, R = _ols(X, y, who)
-    loo = e / _one_minus_h(Q, who)
+    one_minus_h = _one_minus_h(Q, who)
+    loo = e / one_minus_h
     A = np.linalg.solve(R.T, x0.T).T          # rows R^-T x0, shape (m, p)
     est = x0 @ b
-    lower, upper = _plus_band(est, lambda sl: _loo_predictions(est[sl], A[sl], Q, loo),
-                              np.abs(loo), alpha)
+    lower, upper = _jackknife_band(est, A, Q, 1.0 - one_minus_h, loo, alpha)
     return PredictionInterval(est, lower, upper, {
         "method": "jackknife+", "level": float(level), "loo_residuals": loo,
         "unbounded": _unbounded(lower, upper)})
