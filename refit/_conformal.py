@@ -7,36 +7,18 @@ from a closed form.
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
 from refit._linalg import _as_design, _ols, with_one_blas_thread
+from refit._order import kth_in_place as _kth_in_place
+from refit._order import kth_smallest as _kth_smallest
+from refit._order import rank_lower as _rank_lower
+from refit._order import rank_upper as _rank_upper
 from refit._prediction import PredictionInterval, _alpha, _prepare
 from refit.errors import InvalidDataError, UsageError
 
 _LEVERAGE_ONE = 1.0 - 1e-10    # h_ii above this: the row fixes its own fit, LOO undefined
-
-
-def _rank_lower(alpha: float, n: int) -> int:
-    """floor(alpha (n + 1)): 1-based rank of the lower jackknife+ quantile (0 = -inf)."""
-    return int(math.floor(alpha * (n + 1) + 1e-9))
-
-
-def _rank_upper(alpha: float, n: int) -> int:
-    """ceil((1 - alpha)(n + 1)): 1-based rank of the upper quantile (> n means +inf)."""
-    return int(math.ceil((1.0 - alpha) * (n + 1) - 1e-9))
-
-
-def _kth_smallest(values: np.ndarray, k: int, axis: int = -1) -> np.ndarray:
-    """k-th smallest (1-based) along ``axis``; -inf for k < 1, +inf for k > size."""
-    size = values.shape[axis]
-    shape = np.delete(np.array(values.shape), axis % values.ndim)
-    if k < 1:
-        return np.full(shape, -np.inf)
-    if k > size:
-        return np.full(shape, np.inf)
-    return np.take(np.partition(values, k - 1, axis=axis), k - 1, axis=axis)
 
 
 @with_one_blas_thread
@@ -86,18 +68,6 @@ def _one_minus_h(Q, who):
 #: 10^6 elements (8 MB, fresh pages each) were 4x slower on a 2-core machine; the rows are
 #: independent, so the block size does not change a bit of the result.
 PLUS_BLOCK_ELEMENTS = 32_768
-
-
-def _kth_in_place(values: np.ndarray, k: int) -> np.ndarray:
-    """k-th smallest (1-based) along the last axis of a scratch array (partitioned in
-    place); -inf for k < 1, +inf for k > size."""
-    size = values.shape[-1]
-    if k < 1:
-        return np.full(values.shape[:-1], -np.inf)
-    if k > size:
-        return np.full(values.shape[:-1], np.inf)
-    values.partition(k - 1, axis=-1)
-    return values[..., k - 1].copy()
 
 
 def _plus_limits(mu_loo: np.ndarray, r: np.ndarray, alpha: float, ranks=None):

@@ -19,10 +19,12 @@ quantile for a level other than the file's own comes from scipy, imported only t
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
+from ._order import kth_in_place as _kth_in_place
+from ._order import kth_smallest, rank_lower as _rank_lower
+from ._order import rank_upper as _rank_upper
 from .errors import InvalidDataError, UsageError
 
 FLAG_MISSING = "missing-value"
@@ -103,38 +105,9 @@ def flag_strings(masks: dict[str, np.ndarray], order, m: int) -> np.ndarray:
     return text[np.searchsorted(present, codes)]
 
 
-def kth_smallest(values: np.ndarray, k: int) -> np.ndarray:
-    """k-th smallest (1-based) along the last axis; -inf for k < 1, +inf for k > size."""
-    size = values.shape[-1]
-    if k < 1:
-        return np.full(values.shape[:-1], -np.inf)
-    if k > size:
-        return np.full(values.shape[:-1], np.inf)
-    return np.partition(values, k - 1, axis=-1)[..., k - 1]
-
-
-def _kth_in_place(values: np.ndarray, k: int) -> np.ndarray:
-    """As :func:`kth_smallest` on a scratch array, partitioned in place (no copy)."""
-    size = values.shape[-1]
-    if k < 1:
-        return np.full(values.shape[:-1], -np.inf)
-    if k > size:
-        return np.full(values.shape[:-1], np.inf)
-    values.partition(k - 1, axis=-1)
-    return values[..., k - 1].copy()
-
-
 #: (new values x n) elements per block of a jackknife+/CV+ band: 256 KB of float64, kept in
 #: cache (blocks of 10^6 elements, fresh pages each, were about 4x slower)
 PLUS_BLOCK_ELEMENTS = 32_768
-
-
-def _rank_lower(alpha: float, n: int) -> int:
-    return int(math.floor(alpha * (n + 1) + 1e-9))
-
-
-def _rank_upper(alpha: float, n: int) -> int:
-    return int(math.ceil((1.0 - alpha) * (n + 1) - 1e-9))
 
 
 def _matrix(value, what: str) -> np.ndarray:
