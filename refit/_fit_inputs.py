@@ -46,6 +46,24 @@ def _rows_text(labels, mask, kind: str) -> str:
     return f"{kind}s " + ", ".join(bad) + (f" and {more} more" if more > 0 else "")
 
 
+#: numpy dtypes whose values pass to float unchanged: no parsing, no "not a number" cells
+_NUMERIC_KINDS = "iu"
+_FLOAT_TYPES = (np.dtype(np.float64), np.dtype(np.float32))
+
+
+def _plain_numeric(dtype) -> bool:
+    """True for numpy integer and float32/float64 dtypes (not pandas extension types)."""
+    return isinstance(dtype, np.dtype) and (dtype.kind in _NUMERIC_KINDS or dtype in _FLOAT_TYPES)
+
+
+def _refuse_infinite(values: np.ndarray, name: str, labels, kind: str) -> np.ndarray:
+    if np.isinf(values).any():
+        raise InvalidDataError(f"column {name!r} holds infinite values at "
+                               f"{_rows_text(labels, np.isinf(values), kind)}; replace them "
+                               "with finite numbers or drop those rows")
+    return values
+
+
 def _column(frame, name: str, labels, kind: str) -> np.ndarray:
     """A numeric column as float; non-numbers and infinities are refused by row."""
     import pandas as pd
@@ -54,6 +72,8 @@ def _column(frame, name: str, labels, kind: str) -> np.ndarray:
         raise UsageError(f"column {name!r} is not in the table; available columns: "
                          + ", ".join(map(str, frame.columns)))
     col = frame[name]
+    if _plain_numeric(getattr(col, "dtype", None)):  # numbers already: nothing to parse
+        return _refuse_infinite(col.to_numpy(dtype=float, na_value=np.nan), name, labels, kind)
     values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
     not_number = np.isnan(values) & col.notna().to_numpy()
     if not_number.any():
@@ -61,20 +81,55 @@ def _column(frame, name: str, labels, kind: str) -> np.ndarray:
         raise InvalidDataError(f"column {name!r} holds values that are not numbers at "
                                f"{_rows_text(labels, not_number, kind)} (e.g. {first!r}); "
                                "correct them or leave the cells empty")
-    if np.isinf(values).any():
-        raise InvalidDataError(f"column {name!r} holds infinite values at "
-                               f"{_rows_text(labels, np.isinf(values), kind)}; replace them "
-                               "with finite numbers or drop those rows")
-    return values
+    return _refuse_infinite(values, name, labels, kind)
 
 
-def _vector(arg, frame, labels, kind: str, what: str) -> np.ndarray | None:
-    """Weights or measurement SDs: a column name, a scalar or an array of row values."""
+def _array_dict_rows(table, names) -> int | None:
+    """Row count of a dict whose every column is a 1-D numpy array of plain numbers, all of
+    one length, holding every name in ``names``; None otherwise (then a DataFrame is built)."""
+    if not isinstance(table, dict) or not table or not all(nm in table for nm in names):
+        return None
+    lengths = set()
+    for v in table.values():
+        if not (isinstance(v, np.ndarray) and v.ndim == 1 and _plain_numeric(v.dtype)):
+            return None
+        lengths.add(v.shape[0])
+    return lengths.pop() if len(lengths) == 1 else None
+
+
+def fit_columns(table, names, vectors: dict):
+    """The columns a fit uses as float arrays, the row labels and the word for a row.
+
+    ``names``: the equation's columns; ``vectors``: weights, x_sd, y_sd (column names,
+    values or None). A dict of equal-length numeric numpy arrays is read directly (the
+    values are copied, as a DataFrame would); anything else goes through a DataFrame.
+    Errors are raised in the order of ``names`` then ``vectors``.
+    """
+    n = _array_dict_rows(table, [*names, *(v for v in vectors.values() if isinstance(v, str))])
+    if n is None:
+        frame, labels, kind = _as_frame(table)
+        cols = {nm: _column(frame, nm, labels, kind) for nm in names}
+        for key, arg in vectors.items():
+            cols[key] = _vector(arg, frame, labels, kind, key)
+        return cols, labels, kind
+    labels, kind = np.arange(n), "row"
+    cols = {nm: _refuse_infinite(np.array(table[nm], dtype=float), nm, labels, kind)
+            for nm in names}
+    for key, arg in vectors.items():
+        cols[key] = (_refuse_infinite(np.array(table[arg], dtype=float), arg, labels, kind)
+                     if isinstance(arg, str) else _vector(arg, None, labels, kind, key, n=n))
+    return cols, labels, kind
+
+
+def _vector(arg, frame, labels, kind: str, what: str, *, n: int | None = None
+            ) -> np.ndarray | None:
+    """Weights or measurement SDs: a column name, a scalar or an array of row values
+    (``n`` rows; default ``len(frame)``)."""
     if arg is None:
         return None
     if isinstance(arg, str):
         return _column(frame, arg, labels, kind)
-    v = np.broadcast_to(np.asarray(arg, dtype=float), (len(frame),)).copy()
+    v = np.broadcast_to(np.asarray(arg, dtype=float), (len(frame) if n is None else n,)).copy()
     if np.isinf(v).any():
         raise InvalidDataError(f"{what} hold infinite values at "
                                f"{_rows_text(labels, np.isinf(v), kind)}")

@@ -65,7 +65,8 @@ def _line_xy(x, y, who):
 # ----------------------------------------------------------------------------- QR and OLS
 def _qr(X: np.ndarray, who: str) -> tuple[np.ndarray, np.ndarray]:
     """Thin QR of X with a rank check; returns Q (n, p) and R (p, p) with X = Q R."""
-    scale = np.abs(X).max(axis=0)
+    # largest |x| per column, without an n x p array of absolute values
+    scale = np.maximum(X.max(axis=0), -X.min(axis=0))
     scale[scale == 0] = 1.0
     Q, R = np.linalg.qr(X / scale)
     d = np.abs(np.diag(R))

@@ -82,8 +82,26 @@ def _flag_strings(masks: dict[str, np.ndarray], m: int):
     present = np.flatnonzero(np.bincount(codes, minlength=1))
     lookup = np.zeros(1 << len(names), dtype=np.int64)
     lookup[present] = np.arange(len(present))
-    text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
-    return pd.Categorical.from_codes(lookup[codes], categories=text)
+    text = tuple(";".join(nm for i, nm in enumerate(names) if code >> i & 1)
+                 for code in present)
+    # the codes index the categories by construction, so pandas need not check them again
+    return pd.Categorical.from_codes(lookup[codes], dtype=_flag_dtype(text), validate=False)
+
+
+_FLAG_DTYPES: dict = {}
+
+
+def _flag_dtype(text: tuple):
+    """The Categorical dtype of these flag texts, built once per distinct tuple (a handful
+    of combinations occur; building and checking the categories is most of the cost)."""
+    import pandas as pd
+
+    dtype = _FLAG_DTYPES.get(text)
+    if dtype is None:
+        if len(_FLAG_DTYPES) >= 4096:  # bound the cache
+            _FLAG_DTYPES.clear()
+        dtype = _FLAG_DTYPES[text] = pd.CategoricalDtype(categories=list(text))
+    return dtype
 
 
 def _analytic_band(fit, X0, eta, w0, level):

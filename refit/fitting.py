@@ -39,8 +39,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._fit_inputs import (STRAIGHT_LINE_ONLY, _as_frame, _check_constant, _check_positive,
-                          _check_rows, _column, _drop_missing, _vector)
+from ._fit_inputs import (STRAIGHT_LINE_ONLY, _check_constant, _check_positive, _check_rows,
+                          _drop_missing, fit_columns)
 from .errors import UsageError
 from .forms import Form, duan_smearing, make_form
 from .lsq import EstimatorResult, solve_lsq
@@ -382,11 +382,8 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     x_names, y_name = (preds, response) if direction == "inverse" else ([response], preds[0])
     shape = make_form(form, x_names, degree=degree, through_origin=through_origin)
     _check_estimator_args(estimator, shape, weights, x_sd, y_sd, quantiles)
-    frame, labels, kind = _as_frame(table)
-    cols = {nm: _column(frame, nm, labels, kind) for nm in [*x_names, y_name]}
-    cols["weights"] = _vector(weights, frame, labels, kind, "weights")
-    cols["x_sd"] = _vector(x_sd, frame, labels, kind, "x_sd")
-    cols["y_sd"] = _vector(y_sd, frame, labels, kind, "y_sd")
+    cols, labels, kind = fit_columns(table, [*x_names, y_name],
+                                     {"weights": weights, "x_sd": x_sd, "y_sd": y_sd})
     cols, labels, n_dropped = _drop_missing(cols, labels, kind, missing)
     x = np.column_stack([cols[nm] for nm in x_names])
     y = cols[y_name]
