@@ -116,12 +116,17 @@ def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
     """One panel per paleosol and response: fits of different quantities (MAP in mm, MAT in
-    degC) never share an axis."""
+    degC) never share an axis. A panel where no fit gave an estimate is left out (the table
+    says why each was not evaluated); titles name the quantity when a paleosol has several."""
     out = []
     for pid in dict.fromkeys(table["paleosol_id"]):
         rows = table[table["paleosol_id"] == pid]
-        for (resp, unit), grp in rows.groupby(["response", "unit"], sort=False, dropna=False):
-            out.append((str(pid), grp))
+        groups = [grp for _, grp in rows.groupby(["response", "unit"], sort=False,
+                                                 dropna=False)
+                  if np.isfinite(grp["estimate"].astype(float)).any()]
+        for grp in groups:
+            title = str(pid) if len(groups) == 1 else f"{pid}: {grp['response'].iloc[0]}"
+            out.append((title, grp))
     return out
 
 
@@ -141,7 +146,8 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     finite = pd.concat([rows["lower"], rows["upper"], rows["estimate"]]).astype(float)
     finite = finite[np.isfinite(finite)]
     lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
-    pad = 0.05 * (hi_ax - lo_ax or 1.0)
+    # a lone estimate still gets a readable axis: +-10 % of its size (at least 1 unit)
+    pad = 0.05 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(0.1 * abs(hi_ax), 1.0)
     for yi, r in zip(y, rows.itertuples(index=False)):
         colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0

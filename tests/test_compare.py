@@ -7,6 +7,7 @@ Reference values: the published Retallack (1994) equation at D = 100 cm gives 64
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -40,12 +41,14 @@ def test_coverage_text():
 
 def test_quantities_never_share_an_axis():
     # MAP [mm] and MAT [degC] for one paleosol go to two panels
-    table = pd.DataFrame({"paleosol_id": ["P", "P", "P"], "response": ["map_mm", "mat_c",
-                                                                        "map_mm"],
-                          "unit": ["mm", "degC", "mm"]})
+    table = pd.DataFrame({"paleosol_id": ["P", "P", "P", "Q", "Q"],
+                          "response": ["map_mm", "mat_c", "map_mm", "map_mm", "mat_c"],
+                          "unit": ["mm", "degC", "mm", "mm", "degC"],
+                          "estimate": [600.0, 12.1, 650.0, 700.0, np.nan]})
     panels = panel_groups(table)
-    assert [(pid, list(rows["unit"])) for pid, rows in panels] == [
-        ("P", ["mm", "mm"]), ("P", ["degC"])]
+    # Q's MAT panel has no estimate at all, so it is left out and Q keeps a plain title
+    assert [(title, list(rows["unit"])) for title, rows in panels] == [
+        ("P: map_mm", ["mm", "mm"]), ("P: mat_c", ["degC"]), ("Q", ["mm"])]
 
 
 def test_figure_is_a_png_with_one_panel_per_paleosol(tmp_path):
