@@ -25,6 +25,7 @@ import numpy as np
 from ._order import kth_in_place as _kth_in_place
 from ._order import kth_smallest, rank_lower as _rank_lower
 from ._order import rank_upper as _rank_upper
+from .domain import extrapolation_mask
 from .errors import InvalidDataError, UsageError
 
 FLAG_MISSING = "missing-value"
@@ -198,16 +199,6 @@ def _ranges(rec: dict) -> dict:
     return {p["name"]: (p.get("valid_min"), p.get("valid_max")) for p in rec["predictors"]}
 
 
-def _outside(v, lo, hi) -> np.ndarray:
-    with np.errstate(invalid="ignore"):
-        out = np.zeros(v.shape, dtype=bool)
-        if lo is not None:
-            out |= v < lo
-        if hi is not None:
-            out |= v > hi
-    return out
-
-
 def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     """Inverse direction (climate on feature): estimate, lower, upper, flags."""
     eq = rec["equation"]
@@ -229,7 +220,7 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
         masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
     out = np.zeros(m, dtype=bool)
     for j, (lo_r, hi_r) in enumerate(_ranges(rec).values()):
-        out |= _outside(v[:, j], lo_r, hi_r)
+        out |= extrapolation_mask(v[:, j], lo_r, hi_r)
     masks[FLAG_OUTSIDE] = out
     dom = rec.get("domain") or {}
     if rec.get("degree") == 2 and v.shape[1] == 1 and dom.get("turning_point") is not None:

@@ -202,11 +202,17 @@ def search_window(domain, bounds=(-np.inf, np.inf), margin: float = SEARCH_MARGI
     return (a, b) if a < b else (lo, hi)
 
 
-def extrapolation_mask(values: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """True where a value lies outside [lo, hi] (NaN is not flagged)."""
+def extrapolation_mask(values: np.ndarray, lo: float | None, hi: float | None) -> np.ndarray:
+    """True where a value lies outside [lo, hi] (NaN is not flagged; a bound of None is
+    open on that side)."""
     v = np.asarray(values, dtype=float)
+    out = np.zeros(v.shape, dtype=bool)
     with np.errstate(invalid="ignore"):
-        return (v < lo) | (v > hi)
+        if lo is not None:
+            out |= v < lo
+        if hi is not None:
+            out |= v > hi
+    return out
 
 
 def beyond_turning_mask(values: np.ndarray, dom: Domain) -> np.ndarray:
