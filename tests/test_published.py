@@ -63,8 +63,11 @@ def test_cia_k(x, expected):
 
 def test_bases_alumina_and_ca_alumina_have_no_interval():
     b = load("map_from_bases_alumina.sheldon2002").predict([0.5])
+    # Sheldon, Retallack & Tanaka 2002 (J. Geology 110:687), equation confirmed from the
+    # abstract: P = -259.34 ln(B) + 759.05; B = 0.5 -> 938.8 mm (arithmetic)
     assert b.estimate[0] == pytest.approx(938.8, abs=0.05)
     c = load("map_from_ca_alumina.sheldon2002").predict([0.5])
+    # same source: P = -130.93 ln(C) + 467.4 (Mollisols); C = 0.5 -> 558.15 mm (arithmetic)
     assert c.estimate[0] == pytest.approx(467.4 + 130.93 * math.log(2), abs=1e-9)
     assert c.estimate[0] == pytest.approx(558.15, abs=0.005)
     assert np.isnan(b.lower[0]) and np.isnan(c.upper[0])
@@ -73,6 +76,7 @@ def test_bases_alumina_and_ca_alumina_have_no_interval():
 
 def test_salinization():
     out = load("mat_from_salinization.sheldon2002").predict([0.2])
+    # same source: T = -18.516 S + 17.298 (degC); S = 0.2 -> 13.59 degC (arithmetic)
     assert out.estimate[0] == pytest.approx(13.59, abs=0.005)
     assert np.isnan(out.lower[0])               # the +-4.4 degC figure is unconfirmed
 
