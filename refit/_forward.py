@@ -118,11 +118,8 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         est, lo, hi, masks = cal._bound_line_masks(est, lo, hi, unb, bounds)
         order = cal.LINE_FLAG_ORDER
     else:
-        def design(x):
-            return np.vander(x, degree + 1, increasing=True)
-
         est, lo, hi, masks = cal.invert_polynomial_masks(
-            y0, poly, design, cov, sigma2_new, t, domain, x_cal,
+            y0, poly, cov, sigma2_new, t, domain, x_cal,
             window=cal.search_window(domain, bounds))
         order = cal.POLYNOMIAL_FLAG_ORDER
     if not with_interval:

@@ -3,7 +3,7 @@
 The pieces :func:`refit.calibrate.invert_polynomial` is assembled from: the flag names and
 their orders, the curve's monotonic branches in scaled units (:func:`branch_layout`), the
 roots of ``f(x) = y0`` and the choice among them (:func:`_all_roots`, :func:`_choose`), the
-band function and its grid (:func:`_band_function`, :func:`_band_grid`), the bracketing of
+band polynomial and its grid (:class:`PolyBand`, :func:`_band_grid`), the bracketing of
 band crossings on that grid (:func:`_outside_nodes`, :func:`_crossings`) and their
 refinement (:func:`_refine`). The search window and the meaning of each flag are described
 in :mod:`refit.calibrate`, which re-exports every public name defined here.
@@ -112,38 +112,44 @@ def _extremum_start(pu, y0, turning, counts):
 
 
 def _refine(band, a, b, rows):
-    """Sign change of ``band`` between ``a`` (band <= 0) and ``b`` (band > 0), per row:
-    vectorised Illinois false position (Dowell & Jarratt 1971, BIT 11:168; from memory),
-    with bisection when a step leaves the bracket. A row stops when |b - a| <= 1e-14
-    max(1, |a|) (the tolerance brentq had here) or |band(a)| <= 1e-14 (``band`` is scaled
-    to [-1, 1], so this is rounding level)."""
+    """Sign change of the band between ``a`` (band <= 0) and ``b`` (band > 0), per row.
+
+    Safeguarded Newton on the band polynomial (:class:`PolyBand`), all rows at once: the
+    first iterate is the false-position point of the bracket; a step that leaves the
+    current bracket is replaced by bisection (as in ``rtsafe``, Press et al. 2007,
+    Numerical Recipes 3rd ed., section 9.4; from memory). The bracket shrinks with every
+    evaluation, so a tangent crossing still converges. A row stops when the step or the
+    bracket is below 1e-14 max(1, |u|) or the band is exactly zero."""
     a, b = a.astype(float), b.astype(float)
-    fa, fb = band(a, rows), band(b, rows)
-    side = np.zeros(len(a))
+    fa, fb = band.value(a, rows), band.value(b, rows)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = (a * fb - b * fa) / (fb - fa)
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    x = np.where((x > lo) & (x < hi), x, 0.5 * (a + b))
     act = np.arange(len(a))
     for _ in range(_MAX_STEPS):
-        aa, bb, fa_, fb_ = a[act], b[act], fa[act], fb[act]
-        busy = (np.abs(bb - aa) > 1e-14 * np.maximum(1.0, np.abs(aa))) & (np.abs(fa_) > 1e-14)
-        act = act[busy]
+        xr, ar, br_ = x[act], a[act], b[act]
+        f, d = band.value_slope(xr, rows[act])
+        inside = f <= 0
+        ar, br_ = np.where(inside, xr, ar), np.where(inside, br_, xr)
+        a[act], b[act] = ar, br_
+        lo, hi = np.minimum(ar, br_), np.maximum(ar, br_)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = f / d
+        xn = xr - step
+        tol = 1e-14 * np.maximum(1.0, np.abs(xr))
+        done = (f == 0) | (np.abs(step) <= tol) | (hi - lo <= tol)
+        xn = np.where((xn >= lo) & (xn <= hi) | done, xn, 0.5 * (lo + hi))
+        x[act] = np.where(f == 0, xr, xn)
+        act = act[~done]
         if not len(act):
             break
-        aa, bb, fa_, fb_, sd = aa[busy], bb[busy], fa_[busy], fb_[busy], side[act]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            c = (aa * fb_ - bb * fa_) / (fb_ - fa_)
-        c = np.where((c > np.minimum(aa, bb)) & (c < np.maximum(aa, bb)), c, 0.5 * (aa + bb))
-        fc = band(c, rows[act])
-        pos = fc > 0
-        # Illinois: halve the kept end's value when the same end is kept twice
-        fa_ = np.where(pos & (sd < 0), 0.5 * fa_, fa_)
-        fb_ = np.where(~pos & (sd > 0), 0.5 * fb_, fb_)
-        a[act], fa[act] = np.where(pos, aa, c), np.where(pos, fa_, fc)
-        b[act], fb[act] = np.where(pos, c, bb), np.where(pos, fc, fb_)
-        side[act] = np.where(pos, -1.0, 1.0)
-    return np.where(np.abs(fa) <= np.abs(fb), a, b)
+    return x
 
 
-def _crossings(band, grid, nodes, start, lo, hi):
-    """Nearest band crossing on each side of ``start`` within [lo, hi], all rows at once.
+def _crossings(band, rows, grid, nodes, start, lo, hi):
+    """Nearest band crossing on each side of ``start`` within [lo, hi], for the rows
+    ``rows`` of ``band`` (a :class:`PolyBand`) at once.
 
     ``nodes = (j_dn, j_up)``: for each row the last grid node below ``start`` and the first
     above it where the row lies outside the band (-1 / ``len(grid)`` when none, from
@@ -160,7 +166,7 @@ def _crossings(band, grid, nodes, start, lo, hi):
         found = np.flatnonzero(j >= 0)
         if len(found):
             inner = pick(grid[np.clip(j[found] + step, 0, n_grid - 1)], start[found])
-            limit[found] = _refine(band, inner, grid[j[found]], found)
+            limit[found] = _refine(band, inner, grid[j[found]], rows[found])
         out += [limit, j < 0]
     lower, open_lo, upper, open_hi = out
     return lower, upper, open_lo, open_hi
@@ -241,18 +247,79 @@ def _starting_points(br: Branches, y0, ok, window_u):
             "off_window": off_window}
 
 
-def _band_function(br: Branches, y0, poly, design, cov, s2, t):
-    """``band(u, rows)``: the sign of ``(y0 - f(x))^2 - t^2 (s2 + g(x)' V g(x))`` scaled
-    to [-1, 1] (<= 0: inside the prediction band)."""
-    def band(u, rows):
-        x = br.c + br.h * u
-        g = design(x)
-        q = np.einsum("ij,jk,ik->i", g, cov, g)
-        r2, v2 = (y0[rows] - P.polyval(x, poly)) ** 2, t * t * (s2[rows] + q)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return (r2 - v2) / (r2 + v2)
+class PolyBand:
+    """The prediction band of a polynomial curve as a polynomial in scaled units.
 
-    return band
+    ``B(u) = (y0 - P(u))^2 - t^2 (s2 + Q(u))`` with ``P`` the curve and ``Q(u) = g(x)' V
+    g(x)`` the variance of the fitted value, ``g(x) = (1, x, ..., x^k)``, both written in
+    increasing powers of ``u = (x - c) / h`` (``V`` carried to that basis once, so each
+    evaluation is two short Horner sums). ``B <= 0``: ``y0`` lies inside the band.
+    :meth:`rows` binds the new values of a block of rows.
+
+    Parameters
+    ----------
+    br : Branches
+        The curve's scaling (``c``, ``h``) and its coefficients in ``u`` (``pu``).
+    cov : ndarray, shape (k+1, k+1)
+        Covariance of the coefficients in increasing powers of x.
+    t : float
+        Student t quantile.
+    """
+
+    def __init__(self, br: Branches, cov, t):
+        k1 = cov.shape[0]
+        # x^j = sum_i m[j, i] u^i: the powers of x in the basis of u
+        m = np.array([_rescale(np.eye(k1)[j], br.c, br.h)[:k1] for j in range(k1)])
+        vu = m.T @ np.asarray(cov, float) @ m
+        i, j = np.indices((k1, k1))
+        qu = np.zeros(2 * k1 - 1)
+        np.add.at(qu, (i + j).ravel(), vu.ravel())
+        self.pu, self.qu, self.t, self.t2 = br.pu, qu, t, t * t
+
+    @staticmethod
+    def _horner(coef, u, slope: bool):
+        v = np.full_like(u, coef[-1])
+        d = np.zeros_like(u) if slope else None
+        for cf in coef[-2::-1]:
+            if slope:
+                d = d * u + v
+            v = v * u + cf
+        return v, d
+
+    def on_grid(self, grid):
+        """Curve value ``P`` [y] and fitted-value variance ``Q`` [y^2] at grid nodes [u]."""
+        return self._horner(self.pu, grid, False)[0], self._horner(self.qu, grid, False)[0]
+
+    def rows(self, y0, s2) -> "_BandRows":
+        """The band for new values ``y0`` [y] with new-observation variance ``s2`` [y^2]
+        (a float shared by all rows, or one per row)."""
+        return _BandRows(self, y0, s2)
+
+
+class _BandRows:
+    """:class:`PolyBand` bound to a block of new values; ``rows`` index into them."""
+
+    def __init__(self, band: PolyBand, y0, s2):
+        self.band, self.y0 = band, y0
+        self.shared = np.ndim(s2) == 0
+        self.s2 = float(s2) if self.shared else s2
+
+    def _parts(self, u, rows, slope: bool):
+        bd = self.band
+        p, dp = bd._horner(bd.pu, u, slope)
+        q, dq = bd._horner(bd.qu, u, slope)
+        s2 = self.s2 if self.shared else self.s2[rows]
+        r = self.y0[rows] - p
+        b = r * r - bd.t2 * (s2 + q)
+        return b, (-2.0 * r * dp - bd.t2 * dq) if slope else None
+
+    def value(self, u, rows):
+        """``B(u)`` for rows ``rows``."""
+        return self._parts(u, rows, False)[0]
+
+    def value_slope(self, u, rows):
+        """``B(u)`` and ``dB/du`` for rows ``rows``."""
+        return self._parts(u, rows, True)
 
 
 def _band_grid(br: Branches, window_u) -> np.ndarray:
@@ -263,36 +330,46 @@ def _band_grid(br: Branches, window_u) -> np.ndarray:
                                      turning[(turning > w_lo) & (turning < w_hi)]]))
 
 
-def _outside_nodes(br: Branches, grid, idx, start, y0, poly, design, cov, s2, t,
-                   shared: bool):
-    """For rows ``idx``: the last grid node below ``start`` and the first above it where
-    ``y0`` lies outside the band (-1 / ``len(grid)`` when none).
+class GridSearch:
+    """The band on the shared grid, prepared once for all rows of a call.
 
-    With one new-observation variance for all rows (``shared``) the nodes come from exact
-    per-node thresholds (:class:`refit._bandgrid.BandNodes`: the same comparisons as the
+    ``s2_shared``: the one new-observation variance of every row, or None when rows
+    differ. With one variance the nearest outside nodes come from exact per-node
+    thresholds (:class:`refit._bandgrid.BandNodes`: the same comparisons as the
     (grid x rows) matrix, without building it); otherwise from that matrix."""
-    above = np.searchsorted(grid, start, "right")       # first node > start
-    below = np.searchsorted(grid, start, "left") - 1    # last node < start
-    xg = br.c + br.h * grid
-    gg = design(xg)
-    qg = np.einsum("ij,jk,ik->i", gg, cov, gg)
-    fg = P.polyval(xg, poly)
-    y = y0[idx]
-    if shared:
-        r = t * np.sqrt((s2[idx[0]] if len(idx) else 0.0) + qg)
-        if np.all(np.isfinite(fg) & np.isfinite(r)):
-            from ._bandgrid import BandNodes
 
-            nodes = BandNodes(fg, r)
-            return nodes.last_outside(below, y), nodes.first_outside(above, y)
-        pos = np.abs(y[None, :] - fg[:, None]) > r[:, None]
-    else:
-        pos = (y[None, :] - fg[:, None]) ** 2 > t * t * (s2[None, idx] + qg[:, None])
-    n_grid = len(grid)
-    ar = np.arange(n_grid, dtype=np.int32)[:, None]
-    j_up = np.min(np.where(pos & (ar >= above), ar, n_grid), axis=0)
-    j_dn = np.max(np.where(pos & (ar <= below), ar, -1), axis=0)
-    return j_dn, j_up
+    def __init__(self, band: PolyBand, grid, s2_shared):
+        self.grid, self.band = grid, band
+        self.fg, self.qg = band.on_grid(grid)
+        self.nodes = None
+        if s2_shared is not None:
+            r = band.t * np.sqrt(s2_shared + self.qg)
+            self.r = r
+            if np.all(np.isfinite(self.fg) & np.isfinite(r)):
+                from ._bandgrid import BandNodes
+
+                self.nodes = BandNodes(self.fg, r)
+        self.shared = s2_shared is not None
+
+    def outside_nodes(self, y, s2, start):
+        """For new values ``y`` (variances ``s2``, per row) and start points [u]: the last
+        grid node below ``start`` and the first above it where ``y`` lies outside the band
+        (-1 / ``len(grid)`` when none)."""
+        grid = self.grid
+        above = np.searchsorted(grid, start, "right")       # first node > start
+        below = np.searchsorted(grid, start, "left") - 1    # last node < start
+        if self.nodes is not None:
+            return self.nodes.last_outside(below, y), self.nodes.first_outside(above, y)
+        fg = self.fg[:, None]
+        if self.shared:
+            pos = np.abs(y[None, :] - fg) > self.r[:, None]
+        else:
+            pos = (y[None, :] - fg) ** 2 > self.band.t2 * (s2[None, :] + self.qg[:, None])
+        n_grid = len(grid)
+        ar = np.arange(n_grid, dtype=np.int32)[:, None]
+        j_up = np.min(np.where(pos & (ar >= above), ar, n_grid), axis=0)
+        j_dn = np.max(np.where(pos & (ar <= below), ar, -1), axis=0)
+        return j_dn, j_up
 
 
 #: order of the flags of :func:`refit.calibrate.invert_polynomial`

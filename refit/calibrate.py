@@ -57,12 +57,12 @@ from ._inversion import (  # noqa: F401  (re-exported: the public names live her
     LINE_FLAG_ORDER,
     POLYNOMIAL_FLAG_ORDER,
     Branches,
+    GridSearch,
+    PolyBand,
     _all_roots,
-    _band_function,
     _band_grid,
     _choose,
     _crossings,
-    _outside_nodes,
     _polynomial_flags,
     _real_roots,
     _refine,
@@ -117,7 +117,7 @@ def fieller_line(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new: float, t
     return est, (b - root) / a, (b + root) / a, False
 
 
-def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new: float,
+def invert_polynomial(y0, poly: np.ndarray, cov: np.ndarray, sigma2_new: float,
                       t: float, domain: tuple[float, float], x_cal: np.ndarray | None = None,
                       *, window: tuple[float, float] | None = None):
     """Invert ``y = sum_j poly[j] x^j`` at each ``y0``: point estimate, band-inversion interval.
@@ -128,10 +128,8 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
         New responses [units of y] (NaN gives NaN and no flags).
     poly : ndarray
         Polynomial coefficients in increasing powers of x (0 for absent terms).
-    design : callable
-        ``design(x) -> (m, p)`` design rows matching ``cov``.
-    cov : ndarray, shape (p, p)
-        Coefficient covariance.
+    cov : ndarray, shape (k+1, k+1)
+        Covariance of ``poly`` (the design row of ``x`` is ``(1, x, ..., x^k)``).
     sigma2_new : float or ndarray
         Variance of each new observation [y^2].
     t : float
@@ -162,7 +160,7 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
     spacing (window width / 256) can be missed.
     """
     est, lower, upper, masks = invert_polynomial_masks(
-        y0, poly, design, cov, sigma2_new, t, domain, x_cal, window=window)
+        y0, poly, cov, sigma2_new, t, domain, x_cal, window=window)
     return est, lower, upper, _flag_tuples(masks, list(POLYNOMIAL_FLAG_ORDER), len(est))
 
 
@@ -171,49 +169,82 @@ def invert_polynomial(y0, poly: np.ndarray, design, cov: np.ndarray, sigma2_new:
 ROW_BLOCK = 65_536
 
 
-def invert_polynomial_masks(y0, poly, design, cov, sigma2_new, t, domain, x_cal=None, *,
+def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
                             window=None):
     """As :func:`invert_polynomial`, with the flags as boolean masks (name -> (m,) array,
-    in :data:`POLYNOMIAL_FLAG_ORDER`) instead of per-row tuples; rows in blocks of
-    :data:`ROW_BLOCK`."""
+    in :data:`POLYNOMIAL_FLAG_ORDER`) instead of per-row tuples.
+
+    Rows go in blocks of :data:`ROW_BLOCK`, spread over :func:`worker_count` threads
+    (numpy releases the interpreter lock in its array loops); rows are independent and
+    each block writes only its own slice, so the numbers do not depend on the threads."""
     poly = np.asarray(poly, float)
     br = branch_layout(poly, domain, x_cal)
     y0 = np.atleast_1d(np.asarray(y0, dtype=float))
     m = len(y0)
     s2 = np.broadcast_to(np.asarray(sigma2_new, dtype=float), y0.shape)
     window_u = [(v - br.c) / br.h for v in (window or search_window(domain))]
-    grid = _band_grid(br, window_u)
     ok_all = np.isfinite(y0)
     shared = not ok_all.any() or np.ptp(s2[ok_all]) == 0  # one new-observation variance
+    band = PolyBand(br, np.asarray(cov, float), t)
+    search = GridSearch(band, _band_grid(br, window_u),
+                        float(s2[np.argmax(ok_all)]) if shared and m else None)
     est, lower, upper = np.full(m, np.nan), np.full(m, np.nan), np.full(m, np.nan)
     masks = {nm: np.zeros(m, dtype=bool) for nm in POLYNOMIAL_FLAG_ORDER}
-    for first in range(0, m, ROW_BLOCK):
+
+    def one_block(first):
         sl = slice(first, min(m, first + ROW_BLOCK))
-        e, lo, hi, mk = _invert_block(br, grid, y0[sl], poly, design, cov, s2[sl], t,
-                                      window_u, shared)
+        rows = band.rows(y0[sl], search_s2(s2[sl], shared))
+        e, lo, hi, mk = _invert_block(br, search, rows, window_u)
         est[sl], lower[sl], upper[sl] = e, lo, hi
         for nm in POLYNOMIAL_FLAG_ORDER:
             masks[nm][sl] = mk[nm]
+
+    starts = range(0, m, ROW_BLOCK)
+    if len(starts) > 1 and worker_count() > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(worker_count()) as pool:
+            list(pool.map(one_block, starts))
+    else:
+        for first in starts:
+            one_block(first)
     c, h = br.c, br.h
     return c + h * est, c + h * lower, c + h * upper, masks
 
 
-def _invert_block(br: Branches, grid, y0, poly, design, cov, s2, t, window_u, shared):
+def worker_count() -> int:
+    """Threads for the row blocks: the cores this process may use, at most 4."""
+    import os
+
+    try:
+        n = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        n = os.cpu_count() or 1
+    return max(1, min(4, n))
+
+
+def search_s2(s2, shared: bool):
+    """The block's new-observation variance: one float when all rows share it."""
+    return float(s2[0]) if shared and len(s2) else s2
+
+
+def _invert_block(br: Branches, search: GridSearch, rows, window_u):
     """One block of rows of :func:`invert_polynomial_masks`, in scaled units [u]."""
+    y0 = rows.y0
     m = len(y0)
     ok = np.isfinite(y0)
     sp = _starting_points(br, y0, ok, window_u)
-    band = _band_function(br, y0, poly, design, cov, s2, t)
     start = sp["start"]
     idx = np.flatnonzero(ok & np.isfinite(start))
     closes = np.zeros(m, dtype=bool)
-    closes[idx] = band(start[idx], idx) <= 0
+    closes[idx] = rows.value(start[idx], idx) <= 0
     idx = np.flatnonzero(closes)
-    nodes = _outside_nodes(br, grid, idx, start[idx], y0, poly, design, cov, s2, t, shared)
+    s2 = None if rows.shared else rows.s2[idx]
+    nodes = search.outside_nodes(y0[idx], s2, start[idx])
     lower, upper = np.full(m, np.nan), np.full(m, np.nan)
     open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
     lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
-        lambda u, r: band(u, idx[r]), grid, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
+        rows, idx, search.grid, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
     est, masks = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
     return est, lower, upper, masks
 
