@@ -71,29 +71,32 @@ def node_thresholds(fg: np.ndarray, r: np.ndarray):
     return a, c
 
 
-def _sparse(values: np.ndarray, reduce, pad: float) -> list[np.ndarray]:
-    """Tables ``t[k][g] = reduce(values[g : g + 2^k])`` padded with ``pad`` to length G+1."""
-    cur = np.append(values, pad)
+def _sparse(values: np.ndarray, reduce, pad: float, levels: int) -> list[np.ndarray]:
+    """Tables ``t[k][g] = reduce(values[g : g + 2^k])`` for ``k < levels``, padded with
+    ``pad`` (a value that reads as "inside") far enough that every lookup of
+    :func:`_first_at_or_after` stays in range."""
+    length = len(values) + (2 << levels)
+    cur = np.full(length, pad)
+    cur[:len(values)] = values
     out = [cur]
-    span = 1
-    while span < len(values):
-        nxt = np.full_like(cur, pad)
-        nxt[:len(cur) - span] = reduce(cur[:len(cur) - span], cur[span:])
+    for k in range(1, levels):
+        span = 1 << (k - 1)
+        nxt = np.full(length, pad)
+        nxt[:length - span] = reduce(cur[:length - span], cur[span:])
         out.append(nxt)
-        cur, span = nxt, span * 2
+        cur = nxt
     return out
 
 
-def _first_at_or_after(tables, start: np.ndarray, y: np.ndarray, skip_block) -> np.ndarray:
-    """First index ``g >= start`` whose node is outside (``G`` when none): skip the
-    largest run of nodes that are all inside, by powers of two from the largest."""
-    size = len(tables[0]) - 1
-    pos = np.minimum(start, size).astype(np.int64)
-    for k in range(len(tables) - 1, -1, -1):
-        nxt = pos + (1 << k)
-        skip = (nxt <= size) & skip_block(tables[k][pos], y)
-        pos = np.where(skip, nxt, pos)
-    return pos
+def _first_at_or_after(t_a, t_c, start: np.ndarray, y: np.ndarray, size: int) -> np.ndarray:
+    """First index ``g >= start`` whose node is outside (``size`` when none): skip the
+    largest run of nodes that are all inside (min A > y and max C <= y over the run),
+    by powers of two from the largest; the padding beyond ``size`` reads as inside."""
+    pos = np.minimum(start, size).astype(np.intp)
+    for k in range(len(t_a) - 1, -1, -1):
+        inside = (t_a[k][pos] > y) & (t_c[k][pos] <= y)
+        pos += inside * (1 << k)
+    return np.minimum(pos, size)
 
 
 class BandNodes:
@@ -102,24 +105,20 @@ class BandNodes:
     def __init__(self, fg: np.ndarray, r: np.ndarray):
         a, c = node_thresholds(fg, r)
         self.size = len(fg)
-        self._fwd = (_sparse(a, np.minimum, np.inf), _sparse(c, np.maximum, -np.inf))
-        self._rev = (_sparse(a[::-1], np.minimum, np.inf),
-                     _sparse(c[::-1], np.maximum, -np.inf))
+        levels = max(1, int(self.size).bit_length())  # 2^(levels-1) <= size < 2^levels
 
-    @staticmethod
-    def _first(tables, start, y):
-        t_a, t_c = tables
-        # a block is all inside when min A > y (none outside above) and max C <= y
-        ja = _first_at_or_after(t_a, start, y, lambda blk, v: blk > v)
-        jc = _first_at_or_after(t_c, start, y, lambda blk, v: blk <= v)
-        return np.minimum(ja, jc)
+        def tables(a_, c_):
+            return (_sparse(a_, np.minimum, np.inf, levels),
+                    _sparse(c_, np.maximum, -np.inf, levels))
+
+        self._fwd, self._rev = tables(a, c), tables(a[::-1], c[::-1])
 
     def first_outside(self, above: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Smallest node index ``>= above`` outside the band for ``y``; ``G`` when none."""
-        return self._first(self._fwd, above, y)
+        return _first_at_or_after(*self._fwd, above, y, self.size)
 
     def last_outside(self, below: np.ndarray, y: np.ndarray) -> np.ndarray:
         """Largest node index ``<= below`` outside the band for ``y``; -1 when none."""
         g = self.size
         start = np.where(below < 0, g, g - 1 - below)
-        return g - 1 - self._first(self._rev, start, y)
+        return g - 1 - _first_at_or_after(*self._rev, start, y, g)

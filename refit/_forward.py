@@ -59,9 +59,10 @@ def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool)
     extra = [outside, missing, invalid, np.full(m, bool(approximate))]
     for i, mask in enumerate([masks[nm] for nm in names] + extra):
         codes |= np.asarray(mask, dtype=bool).astype(np.int64) << i
-    present, where = np.unique(codes, return_inverse=True)
-    text = np.array([_row_flags(int(c), names, len(names)) for c in present], dtype=object)
-    return text[where.reshape(-1)]
+    text = np.full(int(codes.max(initial=0)) + 1, "", dtype=object)
+    for c in np.flatnonzero(np.bincount(codes)):  # the codes present (a few at most)
+        text[c] = _row_flags(int(c), names, len(names))
+    return text[codes]
 
 
 def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,

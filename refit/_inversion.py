@@ -65,7 +65,7 @@ def _all_roots(pu: np.ndarray, y0: np.ndarray) -> np.ndarray:
         q = -0.5 * (b + np.copysign(sq, b))
         with np.errstate(divide="ignore", invalid="ignore"):
             r1, r2 = q / a, np.where(q != 0, c0 / q, q / a)
-        return np.sort(np.column_stack([r1, r2]), axis=1)
+        return np.column_stack([np.fmin(r1, r2), np.where(np.isnan(r1), r1, np.fmax(r1, r2))])
     out = np.full((len(y0), k), np.nan)
     for i, c in enumerate(c0):
         if np.isfinite(c):
@@ -74,25 +74,39 @@ def _all_roots(pu: np.ndarray, y0: np.ndarray) -> np.ndarray:
     return out
 
 
+def _branch_of(turning: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """Index of the monotonic branch holding ``u`` (the number of turning points below
+    it, as ``searchsorted(turning, u)``; NaN counts as 0)."""
+    u = np.nan_to_num(u)
+    out = np.zeros(u.shape, dtype=np.intp)
+    for tp in turning:
+        out += tp < u
+    return out
+
+
 def _choose(roots: np.ndarray, turning: np.ndarray, main: int | None):
     """Root to report per row (NaN if none) and masks two-roots / outside / beyond-TP.
 
     One root inside the calibration range ([-1, 1] in scaled units): that one. Several:
     the one on the branch holding most calibration points (``main``, index between the
-    sorted turning points), nearest the centre. None: the real root nearest the centre."""
+    sorted turning points), nearest the centre. None: the real root nearest the centre.
+    Ties go to the first column (the smaller root)."""
+    cols = [roots[:, i] for i in range(roots.shape[1])]
     with np.errstate(invalid="ignore"):
-        inside = np.abs(roots) <= 1.0
-    n_in = inside.sum(axis=1)
-    cand = inside.copy()
+        inside = [np.abs(r) <= 1.0 for r in cols]
+    n_in = np.sum(inside, axis=0) if len(cols) > 1 else inside[0].astype(int)
+    cand = list(inside)
     if main is not None:
-        on_main = inside & (np.searchsorted(turning, np.nan_to_num(roots)) == main)
-        use = (n_in > 1) & on_main.any(axis=1)
-        cand[use] = on_main[use]
+        on_main = [i & (_branch_of(turning, r) == main) for i, r in zip(inside, cols)]
+        use = (n_in > 1) & np.logical_or.reduce(on_main)
+        cand = [np.where(use, o, c) for o, c in zip(on_main, cand)]
     none = n_in == 0
-    cand[none] = np.isfinite(roots[none])
-    score = np.where(cand, np.abs(roots), np.inf)
-    j = np.argmin(score, axis=1)
-    est = np.where(np.isfinite(score.min(axis=1)), roots[np.arange(len(roots)), j], np.nan)
+    cand = [np.where(none, np.isfinite(r), c) for r, c in zip(cols, cand)]
+    est, best = np.full(len(roots), np.nan), np.full(len(roots), np.inf)
+    for r, c in zip(cols, cand):
+        score = np.where(c, np.abs(r), np.inf)
+        better = score < best
+        est, best = np.where(better, r, est), np.where(better, score, best)
     outside = none & np.isfinite(est)
     beyond = np.zeros(len(est), dtype=bool)
     for tp in turning:  # a turning point between the data and the reported root
@@ -119,32 +133,40 @@ def _refine(band, a, b, rows):
     current bracket is replaced by bisection (as in ``rtsafe``, Press et al. 2007,
     Numerical Recipes 3rd ed., section 9.4; from memory). The bracket shrinks with every
     evaluation, so a tangent crossing still converges. A row stops when the step or the
-    bracket is below 1e-14 max(1, |u|) or the band is exactly zero."""
+    bracket is below 1e-14 max(1, |u|) or the band is exactly zero; each row's steps
+    depend on that row alone."""
     a, b = a.astype(float), b.astype(float)
     fa, fb = band.value(a, rows), band.value(b, rows)
     with np.errstate(divide="ignore", invalid="ignore"):
         x = (a * fb - b * fa) / (fb - fa)
     lo, hi = np.minimum(a, b), np.maximum(a, b)
     x = np.where((x > lo) & (x < hi), x, 0.5 * (a + b))
-    act = np.arange(len(a))
+    out = np.full(len(x), np.nan)
+    pos = np.arange(len(x))  # where the working rows go in ``out``
     for _ in range(_MAX_STEPS):
-        xr, ar, br_ = x[act], a[act], b[act]
-        f, d = band.value_slope(xr, rows[act])
+        f, d = band.value_slope(x, rows)
         inside = f <= 0
-        ar, br_ = np.where(inside, xr, ar), np.where(inside, br_, xr)
-        a[act], b[act] = ar, br_
-        lo, hi = np.minimum(ar, br_), np.maximum(ar, br_)
+        np.copyto(a, x, where=inside)
+        np.copyto(b, x, where=~inside)
+        np.minimum(a, b, out=lo)
+        np.maximum(a, b, out=hi)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = f / d
-        xn = xr - step
-        tol = 1e-14 * np.maximum(1.0, np.abs(xr))
+        tol = 1e-14 * np.maximum(1.0, np.abs(x))
         done = (f == 0) | (np.abs(step) <= tol) | (hi - lo <= tol)
-        xn = np.where((xn >= lo) & (xn <= hi) | done, xn, 0.5 * (lo + hi))
-        x[act] = np.where(f == 0, xr, xn)
-        act = act[~done]
-        if not len(act):
+        xn = x - step
+        np.copyto(xn, x, where=f == 0)
+        np.copyto(xn, 0.5 * (lo + hi), where=~(((xn >= lo) & (xn <= hi)) | done))
+        if done.all():
+            out[pos] = xn
             break
-    return x
+        if done.any():
+            out[pos[done]] = xn[done]
+            keep = ~done
+            x, a, b, lo, hi, rows, pos = (v[keep] for v in (xn, a, b, lo, hi, rows, pos))
+        else:
+            x = xn
+    return out
 
 
 def _crossings(band, rows, grid, nodes, start, lo, hi):
@@ -233,7 +255,7 @@ def _starting_points(br: Branches, y0, ok, window_u):
     roots = (_all_roots(br.pu, np.where(ok, y0, np.nan)) if br.degree >= 1
              else np.full((m, 1), np.nan))
     est, two, outside, beyond = _choose(roots, br.turning, br.main)
-    branch = np.searchsorted(br.turning, np.nan_to_num(est))
+    branch = _branch_of(br.turning, est)
     no_root = ok & np.isnan(est)
     tp_start, tp_branch = _extremum_start(br.pu, y0[no_root], br.turning, br.counts)
     start = est.copy()
@@ -274,16 +296,24 @@ class PolyBand:
         i, j = np.indices((k1, k1))
         qu = np.zeros(2 * k1 - 1)
         np.add.at(qu, (i + j).ravel(), vu.ravel())
-        self.pu, self.qu, self.t, self.t2 = br.pu, qu, t, t * t
+        self.br, self.pu, self.qu, self.t, self.t2 = br, br.pu, qu, t, t * t
 
     @staticmethod
     def _horner(coef, u, slope: bool):
-        v = np.full_like(u, coef[-1])
-        d = np.zeros_like(u) if slope else None
-        for cf in coef[-2::-1]:
+        """Value (and slope) of the polynomial ``coef`` (increasing powers) at ``u``."""
+        if len(coef) == 1:
+            return np.full_like(u, coef[0]), np.zeros_like(u) if slope else None
+        v = coef[-1] * u
+        v += coef[-2]
+        d = None
+        if slope:
+            d = np.full_like(u, coef[-1])
+        for cf in coef[-3::-1]:
             if slope:
-                d = d * u + v
-            v = v * u + cf
+                d *= u
+                d += v
+            v *= u
+            v += cf
         return v, d
 
     def on_grid(self, grid):
@@ -308,10 +338,18 @@ class _BandRows:
         bd = self.band
         p, dp = bd._horner(bd.pu, u, slope)
         q, dq = bd._horner(bd.qu, u, slope)
-        s2 = self.s2 if self.shared else self.s2[rows]
+        q += self.s2 if self.shared else self.s2[rows]
+        q *= bd.t2
         r = self.y0[rows] - p
-        b = r * r - bd.t2 * (s2 + q)
-        return b, (-2.0 * r * dp - bd.t2 * dq) if slope else None
+        b = r * r
+        b -= q
+        if not slope:
+            return b, None
+        r *= dp
+        r *= -2.0
+        dq *= bd.t2
+        r -= dq
+        return b, r
 
     def value(self, u, rows):
         """``B(u)`` for rows ``rows``."""
@@ -338,8 +376,13 @@ class GridSearch:
     thresholds (:class:`refit._bandgrid.BandNodes`: the same comparisons as the
     (grid x rows) matrix, without building it); otherwise from that matrix."""
 
-    def __init__(self, band: PolyBand, grid, s2_shared):
+    def __init__(self, band: PolyBand, window_u, s2_shared):
+        grid = _band_grid(band.br, window_u)
         self.grid, self.band = grid, band
+        # the evenly spaced nodes (np.linspace: first and last exact) and the turning
+        # points added between them
+        self.even = np.linspace(window_u[0], window_u[1], GRID_POINTS)
+        self.extra = np.setdiff1d(grid, self.even)
         self.fg, self.qg = band.on_grid(grid)
         self.nodes = None
         if s2_shared is not None:
@@ -351,13 +394,29 @@ class GridSearch:
                 self.nodes = BandNodes(self.fg, r)
         self.shared = s2_shared is not None
 
+    def count_up_to(self, u):
+        """Number of grid nodes ``<= u`` for finite ``u`` (``searchsorted(grid, u,
+        "right")``), by arithmetic on the evenly spaced part of the grid and one exact
+        correction either way (the rounded quotient is off by at most one node)."""
+        even, extra = self.even, self.extra
+        n = len(even)
+        step = (even[-1] - even[0]) / (n - 1)
+        k = np.floor((u - even[0]) / step).astype(np.intp)
+        np.clip(k, -1, n - 1, out=k)
+        k += (k + 1 < n) & (even[np.minimum(k + 1, n - 1)] <= u)
+        k -= (k >= 0) & (even[np.maximum(k, 0)] > u)
+        k += 1
+        for e in extra:
+            k += e <= u
+        return k
+
     def outside_nodes(self, y, s2, start):
         """For new values ``y`` (variances ``s2``, per row) and start points [u]: the last
         grid node below ``start`` and the first above it where ``y`` lies outside the band
         (-1 / ``len(grid)`` when none)."""
         grid = self.grid
-        above = np.searchsorted(grid, start, "right")       # first node > start
-        below = np.searchsorted(grid, start, "left") - 1    # last node < start
+        above = self.count_up_to(start)                     # first node > start
+        below = above - 1 - (grid[np.maximum(above - 1, 0)] == start)  # last node < start
         if self.nodes is not None:
             return self.nodes.last_outside(below, y), self.nodes.first_outside(above, y)
         fg = self.fg[:, None]

@@ -424,3 +424,21 @@ def test_band_node_search_equals_the_elementwise_matrix():
     np.testing.assert_array_equal(nodes.first_outside(np.clip(start, 0, G), y), want_up)
     np.testing.assert_array_equal(nodes.last_outside(np.clip(start, -1, G - 1), y), want_dn)
     assert 0 < (want_up < G).mean() < 1 and 0 < (want_dn >= 0).mean() < 1
+
+
+def test_grid_node_counts_equal_numpy_searchsorted():
+    # Reference: numpy.searchsorted(grid, u, "right") (a general-purpose library routine)
+    # on the band grid of a curve with its turning point inside the window; values on the
+    # nodes exactly, one ulp either side, and seeded random values.
+    from refit._inversion import GridSearch, PolyBand, branch_layout
+
+    br = branch_layout(np.array([1.0, 0.3, 2.0]), (-1.0, 3.0))
+    assert len(br.turning) == 1
+    window_u = (-1.7, 1.9)
+    search = GridSearch(PolyBand(br, np.eye(3) * 1e-3, 2.0), window_u, 0.5)
+    grid = search.grid
+    assert len(search.extra) == 1 and br.turning[0] in grid
+    u = np.concatenate([grid, np.nextafter(grid, np.inf), np.nextafter(grid, -np.inf),
+                        np.random.default_rng(3).uniform(*window_u, 5_000)])
+    u = u[(u >= window_u[0]) & (u <= window_u[1])]
+    np.testing.assert_array_equal(search.count_up_to(u), np.searchsorted(grid, u, "right"))
