@@ -25,6 +25,7 @@ import numpy as np
 from ._order import kth_in_place as _kth_in_place
 from ._order import kth_smallest, rank_lower as _rank_lower
 from ._order import rank_upper as _rank_upper
+from ._threads import on_threads
 from .domain import extrapolation_mask
 from .errors import InvalidDataError, UsageError
 
@@ -131,17 +132,74 @@ def analytic_band(rec: dict, X0, eta, w0, level):
     return eta - half, eta + half
 
 
-def _plus_band(mu_rows, r: np.ndarray, alpha: float, m: int):
-    """Jackknife+ / CV+ limits: ``mu_rows(sl)`` gives the (rows, n) leave-out predictions."""
+#: new values per block of the pruned jackknife+/CV+ band (the candidate rows are chosen
+#: per block from the block's largest design norm)
+PLUS_BLOCK_ROWS = 4_096
+#: relative slack of the candidate bounds: far above the rounding of the band values, far
+#: below their spread
+_CANDIDATE_SLACK = 1e-9
+
+
+def _deviation_basis(D: np.ndarray):
+    """``(W, g)`` with ``|x' D_i| <= sqrt(x' W x) g_i`` for every x (Cauchy-Schwarz in the
+    metric of ``W = D'D / n``, the second moment of the deviations ``D_i``); None when W is
+    singular (then nothing is pruned)."""
+    n = D.shape[0]
+    W = D.T @ D / max(n, 1)
+    try:
+        L = np.linalg.cholesky(W)
+    except np.linalg.LinAlgError:
+        return None
+    G = np.linalg.solve(L, D.T)            # L^-1 D_i, column i
+    g = np.sqrt(np.einsum("ij,ij->j", G, G))
+    return (W, g) if np.all(np.isfinite(g)) else None
+
+
+def _candidates(r, spread, k: int, scale: float):
+    """Rows whose band values can reach the k-th from either end (see :func:`_plus_band`)."""
     n = r.shape[0]
-    lower, upper = np.empty(m), np.empty(m)
-    step = max(1, PLUS_BLOCK_ELEMENTS // max(n, 1))  # cache-sized blocks; rows independent
+    tau = np.partition(r - spread, n - k)[n - k]        # the k-th largest lower bound
+    return np.flatnonzero(r + spread >= tau - _CANDIDATE_SLACK * scale)
+
+
+def _plus_band(x0: np.ndarray, B: np.ndarray, b: np.ndarray, r: np.ndarray, alpha: float):
+    """Jackknife+ / CV+ limits for new design rows ``x0``: the ranks of Barber et al. (2021)
+    over ``x0' B_i -/+ r_i``, with ``B_i`` row i's leave-out coefficients and ``r_i`` its
+    leave-out residual size.
+
+    Only rows that can reach the limits are used. With ``D_i = B_i - b`` and
+    ``|x' D_i| <= c g_i`` for every new row of a block (``c`` = the block's largest
+    ``sqrt(x' W x)``, :func:`_deviation_basis`), every value ``x' D_i + r_i`` lies in
+    ``[r_i - c g_i, r_i + c g_i]``; if tau is the k-th largest lower end, a row whose upper
+    end stays below tau lies beyond the k-th value from the top and from the bottom for
+    every new row of the block, so dropping it leaves both order statistics unchanged (the
+    upper rank counts the dropped rows). The same argument as
+    :func:`refit._conformal._jackknife_candidates`, in the metric of the deviations.
+    Blocks of new rows run on threads (:func:`refit._threads.on_threads`)."""
+    n, m = r.shape[0], x0.shape[0]
     k_lo, k_hi = _rank_lower(alpha, n), _rank_upper(alpha, n)
-    for start in range(0, m, step):
+    lower, upper = np.empty(m), np.empty(m)
+    ks = [k for k in (k_lo, n - k_hi + 1) if 1 <= k <= n]
+    basis = _deviation_basis(B - b) if ks else None
+    if basis is not None:
+        W, g = basis
+        norm = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", x0, W, x0), 0.0))
+        scale = float(np.abs(B).max() * np.abs(x0).max(initial=0.0) + r.max())
+    step = PLUS_BLOCK_ROWS if basis is not None else max(1, PLUS_BLOCK_ELEMENTS // max(n, 1))
+
+    def one_block(start):
         sl = slice(start, min(m, start + step))
-        mu = mu_rows(sl)
-        lower[sl] = _kth_in_place(mu - r, k_lo)
-        upper[sl] = _kth_in_place(mu + r, k_hi)
+        keep, dropped = slice(None), 0
+        if basis is not None:
+            idx = _candidates(r, norm[sl].max(initial=0.0) * g, max(ks), scale)
+            if 2 * idx.size <= n:
+                keep, dropped = idx, n - idx.size
+        mu = x0[sl] @ B[keep].T
+        rk = r[keep]
+        lower[sl] = _kth_in_place(mu - rk, k_lo)
+        upper[sl] = _kth_in_place(np.add(mu, rk, out=mu), k_hi - dropped)
+
+    on_threads(one_block, range(0, m, step))
     return lower, upper
 
 
@@ -159,12 +217,12 @@ def resampled_band(iv: dict, X0, ok, w0, level):
     elif method == "jackknife+":
         B = np.asarray(iv["loo_coefficients"], float)
         r = np.asarray(iv["loo_abs_residuals"], float)
-        lo, hi = _plus_band(lambda sl: x0[sl] @ B.T, r, alpha, len(est))
+        lo, hi = _plus_band(x0, B, b, r, alpha)
     elif method == "cv+":
         B = np.asarray(iv["fold_coefficients"], float)
         fold = np.asarray(iv["row_folds"], int)
         r = np.asarray(iv["row_abs_residuals"], float)
-        lo, hi = _plus_band(lambda sl: (x0[sl] @ B.T)[:, fold], r, alpha, len(est))
+        lo, hi = _plus_band(x0, B[fold], b, r, alpha)
     else:  # bootstrap: approximation (see the file's interval.approximation)
         pool = np.asarray(iv["residual_pool"], float)
         vb = _matrix(iv["coefficient_covariance"], "bootstrap coefficient covariance")

@@ -70,6 +70,7 @@ from ._inversion import (  # noqa: F401  (re-exported: the public names live her
     _starting_points,
     branch_layout,
 )
+from ._threads import on_threads
 from .domain import search_window  # noqa: F401  (re-exported)
 
 
@@ -174,7 +175,7 @@ def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
     """As :func:`invert_polynomial`, with the flags as boolean masks (name -> (m,) array,
     in :data:`POLYNOMIAL_FLAG_ORDER`) instead of per-row tuples.
 
-    Rows go in blocks of :data:`ROW_BLOCK`, spread over :func:`worker_count` threads
+    Rows go in blocks of :data:`ROW_BLOCK`, spread over threads
     (numpy releases the interpreter lock in its array loops); rows are independent and
     each block writes only its own slice, so the numbers do not depend on the threads."""
     poly = np.asarray(poly, float)
@@ -199,28 +200,9 @@ def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
         for nm in POLYNOMIAL_FLAG_ORDER:
             masks[nm][sl] = mk[nm]
 
-    starts = range(0, m, ROW_BLOCK)
-    if len(starts) > 1 and worker_count() > 1:
-        from concurrent.futures import ThreadPoolExecutor
-
-        with ThreadPoolExecutor(worker_count()) as pool:
-            list(pool.map(one_block, starts))
-    else:
-        for first in starts:
-            one_block(first)
+    on_threads(one_block, range(0, m, ROW_BLOCK))
     c, h = br.c, br.h
     return c + h * est, c + h * lower, c + h * upper, masks
-
-
-def worker_count() -> int:
-    """Threads for the row blocks: the cores this process may use, at most 4."""
-    import os
-
-    try:
-        n = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        n = os.cpu_count() or 1
-    return max(1, min(4, n))
 
 
 def search_s2(s2, shared: bool):

@@ -280,3 +280,35 @@ def test_forward_theil_sen_file_reproduces_the_approximate_interval(dry_table, t
     inv = read_record(path)["interval"]["inversion"]
     assert inv["approximate"] is True
     assert inv["prediction_sd"] != pytest.approx(read_record(path)["residual_std_error"])
+
+
+@pytest.mark.parametrize("threads", ["1", "2"])
+def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch, threads):
+    # Reference: numpy.sort over all n leave-out values per new row, ranks of Barber,
+    # Candes, Ramdas & Tibshirani (2021, Ann. Stat. 49:486), lower floor(alpha(n+1))-th
+    # smallest of x'B_i - r_i, upper ceil((1-alpha)(n+1))-th smallest of x'B_i + r_i.
+    # The evaluator keeps only the rows that can reach those ranks; the limits must be the
+    # same, on one thread or several.
+    import refit._evaluate as ev
+
+    monkeypatch.setenv("REFIT_THREADS", threads)
+    rng = np.random.default_rng(20261202)
+    n, p, m = 150, 3, 9_000
+    b = np.array([500.0, 3.0, -0.004])
+    B = b + rng.normal(size=(n, p)) * [5.0, 0.05, 1e-4]
+    r = np.abs(rng.normal(0, 80.0, n))
+    v = rng.uniform(5, 300, m)
+    x0 = np.column_stack([np.ones(m), v, v * v])
+    alpha = 0.1
+    lo, hi = ev._plus_band(x0, B, b, r, alpha)
+    mu = x0 @ B.T
+    k_lo, k_hi = int(np.floor(alpha * (n + 1))), int(np.ceil((1 - alpha) * (n + 1)))
+    want_lo = np.sort(mu - r, axis=1)[:, k_lo - 1]
+    want_hi = np.sort(mu + r, axis=1)[:, k_hi - 1]
+    np.testing.assert_allclose(lo, want_lo, rtol=1e-13)
+    np.testing.assert_allclose(hi, want_hi, rtol=1e-13)
+    # the pruning did cut: fewer candidate rows than n for these blocks
+    W, g = ev._deviation_basis(B - b)
+    norm = np.sqrt(np.einsum("ij,jk,ik->i", x0, W, x0)).max()
+    scale = float(np.abs(B).max() * np.abs(x0).max() + r.max())
+    assert ev._candidates(r, norm * g, k_lo, scale).size < n / 2
