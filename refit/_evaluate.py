@@ -25,6 +25,7 @@ import numpy as np
 from ._order import kth_in_place as _kth_in_place
 from ._order import kth_smallest, rank_lower as _rank_lower
 from ._order import rank_upper as _rank_upper
+from ._flagcodes import bit_codes, joined_names, text_by_code
 from ._threads import on_threads
 from .domain import extrapolation_mask
 from .errors import InvalidDataError, UsageError
@@ -98,13 +99,8 @@ def t_quantile(level: float, df: float, stored: dict | None = None) -> float:
 def flag_strings(masks: dict[str, np.ndarray], order, m: int) -> np.ndarray:
     """';'-joined flag names per row (object array), built through bit codes (fast)."""
     names = [nm for nm in order if nm in masks]
-    codes = np.zeros(m, dtype=np.int64)
-    for i, nm in enumerate(names):
-        codes |= np.asarray(masks[nm], dtype=bool).astype(np.int64) << i
-    present = np.unique(codes)
-    text = np.array([";".join(nm for i, nm in enumerate(names) if int(code) >> i & 1)
-                     for code in present], dtype=object)
-    return text[np.searchsorted(present, codes)]
+    codes = bit_codes([masks[nm] for nm in names], m)
+    return text_by_code(codes, lambda code: joined_names(names, code))
 
 
 #: (new values x n) elements per block of a jackknife+/CV+ band: 256 KB of float64, kept in

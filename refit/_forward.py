@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import calibrate as cal
+from ._flagcodes import bit_codes, text_by_code
 
 FLAG_MISSING = "missing-value"
 FLAG_INVALID = "invalid-value"
@@ -55,14 +56,9 @@ def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool)
     invalid and approximate-interval flags."""
     m = len(outside)
     names = list(order)
-    codes = np.zeros(m, dtype=np.int64)
     extra = [outside, missing, invalid, np.full(m, bool(approximate))]
-    for i, mask in enumerate([masks[nm] for nm in names] + extra):
-        codes |= np.asarray(mask, dtype=bool).astype(np.int64) << i
-    text = np.full(int(codes.max(initial=0)) + 1, "", dtype=object)
-    for c in np.flatnonzero(np.bincount(codes)):  # the codes present (a few at most)
-        text[c] = _row_flags(int(c), names, len(names))
-    return text[codes]
+    codes = bit_codes([masks[nm] for nm in names] + extra, m)
+    return text_by_code(codes, lambda code: _row_flags(code, names, len(names)))
 
 
 def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,

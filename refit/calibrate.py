@@ -233,11 +233,11 @@ def _invert_block(br: Branches, search: GridSearch, rows, window_u):
 
 def _flag_tuples(masks: dict, order: list[str], m: int) -> list[tuple[str, ...]]:
     """Per-row tuples of the flag names whose mask is set (in ``order``)."""
-    codes = np.zeros(m, dtype=np.int64)
-    for i, nm in enumerate(order):
-        codes |= masks[nm].astype(np.int64) << i
+    from ._flagcodes import bit_codes, present_codes
+
+    codes = bit_codes([masks[nm] for nm in order], m)
     table = {code: tuple(nm for i, nm in enumerate(order) if code >> i & 1)
-             for code in np.unique(codes).tolist()}
+             for code in present_codes(codes).tolist()}
     return [table[code] for code in codes.tolist()]
 
 
