@@ -24,12 +24,12 @@ def _as_frame(table, *, dicts: bool = True):
     for a row. ``dicts``: also take a dict of columns."""
     import pandas as pd
 
+    if isinstance(table, pd.DataFrame):  # first: an attribute look-up on a frame is slow
+        return table, np.asarray(table.index), "row"
     if hasattr(table, "frame") and isinstance(table.frame, pd.DataFrame):
         rows = getattr(table, "source_rows", None)
         labels = np.asarray(rows) if rows is not None else np.asarray(table.frame.index)
         return table.frame, labels, "file row"
-    if isinstance(table, pd.DataFrame):
-        return table, np.asarray(table.index), "row"
     if dicts and isinstance(table, dict):
         frame = pd.DataFrame(table)
         return frame, np.asarray(frame.index), "row"

@@ -100,20 +100,49 @@ def _chunks(total: int, per_item: int):
 
 
 @functools.cache
-def _blas_controller():
+def _blas_libs() -> tuple:
+    """threadpoolctl's controllers of the BLAS libraries loaded in this process (found
+    once: taking stock of the loaded libraries costs far more than the work it guards)."""
     try:
         import scipy.linalg  # noqa: F401  (load its BLAS before taking stock)
         from threadpoolctl import ThreadpoolController
     except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
-        return None
-    return ThreadpoolController()
+        return ()
+    return tuple(ThreadpoolController().select(user_api="blas").lib_controllers)
+
+
+class _OneBlasThread:
+    """Context: every loaded BLAS runs one thread inside, its own count is restored after.
+
+    The effect of ``threadpoolctl``'s ``limit(limits=1, user_api="blas")`` at the cost of
+    two small library calls per BLAS: only the thread counts are read and set, not the
+    libraries' full descriptions that ``limit`` gathers on every entry.
+    """
+
+    __slots__ = ("_saved",)
+
+    def __enter__(self):
+        saved = []
+        for lib in _blas_libs():
+            n = lib.get_num_threads()
+            if n != 1:
+                lib.set_num_threads(1)
+                if n is not None:
+                    saved.append((lib, n))
+        self._saved = saved
+        return self
+
+    def __exit__(self, *exc):
+        for lib, n in reversed(self._saved):
+            lib.set_num_threads(n)
+        self._saved = []
+        return False
 
 
 def one_blas_thread():
     """Context that runs BLAS single-threaded (tall, narrow designs gain nothing from
     threads, and on a busy machine thread hand-offs cost more than the work)."""
-    ctl = _blas_controller()
-    return contextlib.nullcontext() if ctl is None else ctl.limit(limits=1, user_api="blas")
+    return _OneBlasThread()
 
 
 def with_one_blas_thread(func):

@@ -70,9 +70,10 @@ def _t(level: float, df: float) -> float:
     return float(stats.t.ppf(0.5 + level / 2.0, df))
 
 
-def _flag_strings(masks: dict[str, np.ndarray], m: int):
+def _flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
     """';'-joined flag names per row from boolean masks, as a pandas Categorical
-    (vectorised through bit codes: fast for many rows)."""
+    (vectorised through bit codes: fast for many rows). ``sort``: categories in
+    lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
     import pandas as pd
 
     names = list(masks)
@@ -80,12 +81,15 @@ def _flag_strings(masks: dict[str, np.ndarray], m: int):
     for i, nm in enumerate(names):
         codes |= masks[nm].astype(np.int64) << i
     present = np.flatnonzero(np.bincount(codes, minlength=1))
+    text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
+    if sort:
+        order = sorted(range(len(text)), key=text.__getitem__)
+        present, text = present[order], [text[i] for i in order]
     lookup = np.zeros(1 << len(names), dtype=np.int64)
     lookup[present] = np.arange(len(present))
-    text = tuple(";".join(nm for i, nm in enumerate(names) if code >> i & 1)
-                 for code in present)
     # the codes index the categories by construction, so pandas need not check them again
-    return pd.Categorical.from_codes(lookup[codes], dtype=_flag_dtype(text), validate=False)
+    return pd.Categorical.from_codes(lookup[codes], dtype=_flag_dtype(tuple(text)),
+                                     validate=False)
 
 
 _FLAG_DTYPES: dict = {}

@@ -147,7 +147,9 @@ def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: in
 
 
 def _run_batch(arrays, labels, c, batch, level, seed):
-    with _blas().limit(limits=1, user_api="blas"):  # the same bits in any process
+    from ._linalg import one_blas_thread
+
+    with one_blas_thread():  # the same bits in any process
         return [_one_fold(arrays, labels, c, s, level, seed) for s in batch]
 
 
@@ -201,7 +203,13 @@ def loo_ols(x, y, form, level: float = 0.95, interval: str = "analytic"):
     x_i'(X_(-i)'X_(-i))^-1 x_i = h_ii/(1 - h_ii) and the coefficients
     b_(-i) = b - (X'X)^-1 x_i e_i/(1 - h_ii). Cost O(n p^2): one QR.
     """
-    from scipy import stats
+    est, lower, upper, masks = _loo_ols_masks(x, y, form, level, interval)
+    return est, lower, upper, _flag_text(masks)
+
+
+def _loo_ols_masks(x, y, form, level, interval):
+    """:func:`loo_ols` with the flags as named boolean masks (row by row)."""
+    from scipy.special import stdtrit
 
     from .lsq import leverages, solve_lsq
 
@@ -220,12 +228,13 @@ def loo_ols(x, y, form, level: float = 0.95, interval: str = "analytic"):
         lower = upper = np.full_like(est, np.nan)
     else:
         s2_del = (df * res.residual_std_error ** 2 - e * loo) / (df - 1.0)
-        half = stats.t.ppf(0.5 + level / 2.0, df - 1.0) * np.sqrt(s2_del / (1.0 - h))
+        # stdtrit is what scipy.stats.t.ppf evaluates, without its argument handling
+        half = float(stdtrit(df - 1.0, 0.5 + level / 2.0)) * np.sqrt(s2_del / (1.0 - h))
         lower, upper = est - half, est + half
     masks = {"outside-calibration-range": _outside_others(x)}
     if form.degree == 2 and x.shape[1] == 1:
         masks["beyond-turning-point"] = _beyond_turning_loo(x[:, 0], X, res, loo, form)
-    return est, lower, upper, _flag_text(masks)
+    return est, lower, upper, masks
 
 
 def _flag_text(masks: dict) -> np.ndarray:
@@ -373,17 +382,19 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     if folds is None:
         rows = np.flatnonzero(usable)
         repeat, fold = np.zeros(len(rows), dtype=np.int64), rows.copy()
+        est, lo, hi, flags = parts
     else:
         rows = np.concatenate([s.test_idx for s in folds])
         repeat = np.concatenate([np.full(len(s.test_idx), s.repeat) for s in folds])
         fold = np.concatenate([np.full(len(s.test_idx), s.fold) for s in folds])
-    est, lo, hi, flags = (np.concatenate(p) for p in zip(*parts))
+        est, lo, hi, flags = (np.concatenate(p) for p in zip(*parts))
+        flags = pd.Categorical(flags)
     ids = (frame["profile_id"].to_numpy()[rows] if "profile_id" in frame.columns
            else labels[rows])
     obs = arrays[candidate.response][rows]
     pred = pd.DataFrame({"row": rows, "profile_id": ids, "repeat": repeat, "fold": fold,
                          "observed": obs, "estimate": est, "lower": lo, "upper": hi,
-                         "flags": pd.Categorical(flags)})
+                         "flags": flags})
     if candidate.interval in _CONFORMAL:
         details["cautions"] = [
             f"{candidate.interval} intervals assume exchangeable rows; soils clustered by "
@@ -398,6 +409,9 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
 
 
 def _loo_part(arrays, usable, c: Candidate, level):
+    """Closed-form leave-one-out of the usable rows: estimate, lower, upper and the flags
+    as a Categorical (categories sorted, as ``pandas.Categorical`` of the texts)."""
+    from ._predict import _flag_strings
     from .forms import make_form
 
     form = make_form(c.form, list(c.predictors), degree=c.degree)
@@ -409,6 +423,7 @@ def _loo_part(arrays, usable, c: Candidate, level):
                                f"coefficient(s) and needs at least {form.min_rows + 1} rows "
                                "with values")
     try:
-        return [loo_ols(x, y, form, level, c.interval)]
+        est, lo, hi, masks = _loo_ols_masks(x, y, form, level, c.interval)
     except RefitError as err:
         raise type(err)(f"{c.label}, leave-one-out: {err}") from err
+    return est, lo, hi, _flag_strings(masks, len(y), sort=True)

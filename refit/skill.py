@@ -39,23 +39,56 @@ def _arrays(*arrays, names):
     return out
 
 
-def rmsep(obs, pred) -> float:
-    """Root mean squared error of prediction, ``sqrt(mean((pred - obs)^2))`` [units of obs]."""
-    o, p = _arrays(obs, pred, names=("obs", "pred"))
+# The measures on checked float arrays (the public functions check, then call these;
+# skill_scores checks once and calls them directly).
+def _rmsep(o, p) -> float:
     d = p - o
     return float(math.sqrt(np.mean(d * d)))
 
 
+def _mae(o, p) -> float:
+    return float(np.mean(np.abs(p - o)))
+
+
+def _bias(o, p) -> float:
+    return float(np.mean(p - o))
+
+
+def _r2_prediction(o, p) -> float:
+    ss_tot = float(np.sum((o - o.mean()) ** 2))
+    if ss_tot == 0.0:
+        return float("nan")
+    return float(1.0 - np.sum((o - p) ** 2) / ss_tot)
+
+
+def _coverage(o, lo, hi) -> float:
+    return float(np.mean((lo <= o) & (o <= hi)))
+
+
+def _mean_width(lo, hi) -> float:
+    return float(np.mean(hi - lo))
+
+
+def _interval_score(o, lo, hi, a: float) -> float:
+    with np.errstate(invalid="ignore"):
+        below = np.where(o < lo, lo - o, 0.0)
+        above = np.where(o > hi, o - hi, 0.0)
+    return float(np.mean((hi - lo) + (2.0 / a) * (below + above)))
+
+
+def rmsep(obs, pred) -> float:
+    """Root mean squared error of prediction, ``sqrt(mean((pred - obs)^2))`` [units of obs]."""
+    return _rmsep(*_arrays(obs, pred, names=("obs", "pred")))
+
+
 def mae(obs, pred) -> float:
     """Mean absolute error, ``mean(|pred - obs|)`` [units of obs]."""
-    o, p = _arrays(obs, pred, names=("obs", "pred"))
-    return float(np.mean(np.abs(p - o)))
+    return _mae(*_arrays(obs, pred, names=("obs", "pred")))
 
 
 def bias(obs, pred) -> float:
     """Mean error, ``mean(pred - obs)`` [units of obs]: > 0 when predictions run high."""
-    o, p = _arrays(obs, pred, names=("obs", "pred"))
-    return float(np.mean(p - o))
+    return _bias(*_arrays(obs, pred, names=("obs", "pred")))
 
 
 def r2_prediction(obs, pred) -> float:
@@ -65,23 +98,17 @@ def r2_prediction(obs, pred) -> float:
     and ``SS_tot = sum((obs - mean(obs))^2)``; may be negative when the predictions do worse
     than the mean of the observations. NaN when all observations are equal.
     """
-    o, p = _arrays(obs, pred, names=("obs", "pred"))
-    ss_tot = float(np.sum((o - o.mean()) ** 2))
-    if ss_tot == 0.0:
-        return float("nan")
-    return float(1.0 - np.sum((o - p) ** 2) / ss_tot)
+    return _r2_prediction(*_arrays(obs, pred, names=("obs", "pred")))
 
 
 def coverage(obs, lower, upper) -> float:
     """Share of observations inside their interval, ``mean(lower <= obs <= upper)``."""
-    o, lo, hi = _arrays(obs, lower, upper, names=("obs", "lower", "upper"))
-    return float(np.mean((lo <= o) & (o <= hi)))
+    return _coverage(*_arrays(obs, lower, upper, names=("obs", "lower", "upper")))
 
 
 def mean_width(lower, upper) -> float:
     """Mean interval width, ``mean(upper - lower)`` [units of obs]; inf if any is unbounded."""
-    lo, hi = _arrays(lower, upper, names=("lower", "upper"))
-    return float(np.mean(hi - lo))
+    return _mean_width(*_arrays(lower, upper, names=("lower", "upper")))
 
 
 def _check_alpha(alpha) -> float:
@@ -120,11 +147,7 @@ def interval_score(obs, lower, upper, alpha) -> float:
     .. [1] Gneiting & Raftery (2007), JASA 102:359-378, eq. (43).
     """
     a = _check_alpha(alpha)
-    o, lo, hi = _arrays(obs, lower, upper, names=("obs", "lower", "upper"))
-    with np.errstate(invalid="ignore"):
-        below = np.where(o < lo, lo - o, 0.0)
-        above = np.where(o > hi, o - hi, 0.0)
-    return float(np.mean((hi - lo) + (2.0 / a) * (below + above)))
+    return _interval_score(*_arrays(obs, lower, upper, names=("obs", "lower", "upper")), a)
 
 
 def skill_scores(obs, pred, lower, upper, level) -> dict:
@@ -155,21 +178,24 @@ def skill_scores(obs, pred, lower, upper, level) -> dict:
         raise UsageError(f"level must be a number between 0 and 1 (e.g. 0.95); got {level!r}")
     o, p, lo, hi = _arrays(obs, pred, lower, upper, names=("obs", "pred", "lower", "upper"))
     scored = np.isfinite(p) & np.isfinite(o)
-    out = {"n": int(scored.sum()), "n_no_estimate": int((~scored).sum()),
-           "level": float(level)}
+    n_scored = int(np.count_nonzero(scored))
+    out = {"n": n_scored, "n_no_estimate": len(o) - n_scored, "level": float(level)}
     nan = float("nan")
-    if scored.any():
-        o, p, lo, hi = o[scored], p[scored], lo[scored], hi[scored]
-        out.update(rmsep=rmsep(o, p), mae=mae(o, p), bias=bias(o, p),
-                   r2_prediction=r2_prediction(o, p))
+    if n_scored:
+        if n_scored < len(o):  # (all scored: the arrays as they are, no copies)
+            o, p, lo, hi = o[scored], p[scored], lo[scored], hi[scored]
+        out.update(rmsep=_rmsep(o, p), mae=_mae(o, p), bias=_bias(o, p),
+                   r2_prediction=_r2_prediction(o, p))
     else:
         out.update(rmsep=nan, mae=nan, bias=nan, r2_prediction=nan)
     has = ~(np.isnan(lo) | np.isnan(hi))
-    out["n_unbounded"] = int((has & (np.isinf(lo) | np.isinf(hi))).sum())
-    if has.any():
-        out.update(coverage=coverage(o[has], lo[has], hi[has]),
-                   mean_width=mean_width(lo[has], hi[has]),
-                   interval_score=interval_score(o[has], lo[has], hi[has], 1.0 - float(level)))
+    n_has = int(np.count_nonzero(has))
+    out["n_unbounded"] = int(np.count_nonzero(has & (np.isinf(lo) | np.isinf(hi))))
+    if n_has:
+        if n_has < len(o):
+            o, lo, hi = o[has], lo[has], hi[has]
+        out.update(coverage=_coverage(o, lo, hi), mean_width=_mean_width(lo, hi),
+                   interval_score=_interval_score(o, lo, hi, 1.0 - float(level)))
     else:
         out.update(coverage=nan, mean_width=nan, interval_score=nan)
     return out
