@@ -242,7 +242,9 @@ def evaluate_case(ctx: Context) -> CaseResult:
                 Target("coefficient file (inverse) on 1,000,000 values", a.get("s"),
                        EVAL_LIMIT_S, "s", kind="below"),
                 Target("coefficient file (forward quadratic) on 1,000,000 values",
-                       extra_rows["forward"].get("s"), EVAL_LIMIT_S, "s", kind="below")]
+                       extra_rows["forward"].get("s"), EVAL_LIMIT_S, "s", kind="below"),
+                Target("coefficient file (jackknife+ quadratic) on 1,000,000 values",
+                       extra_rows["jackknife+"].get("s"), EVAL_LIMIT_S, "s", kind="below")]
     return result
 
 

@@ -380,7 +380,8 @@ def test_vectorised_quadratic_roots_equal_numpy_roots():
     assert 500 < n_real < 1_900  # both kinds were exercised
 
 
-def test_many_values_in_blocks_equal_one_by_one():
+@pytest.mark.parametrize("threads", ["1", "2"])
+def test_many_values_in_blocks_equal_one_by_one(monkeypatch, threads):
     # The inversion runs rows in blocks (calibrate.ROW_BLOCK) and locates band crossings
     # through exact per-node thresholds; each row must get exactly what it gets alone.
     # Reference: NIST StRD Pontius (forward quadratic, as in the handbook case above).
@@ -391,6 +392,7 @@ def test_many_values_in_blocks_equal_one_by_one():
     rng = np.random.default_rng(5)
     y = np.concatenate([rng.uniform(-0.5, 4.0, 300), [1.239722, np.nan]])
     one = pd.concat([f.predict(v) for v in y], ignore_index=True)
+    monkeypatch.setenv("REFIT_THREADS", threads)  # blocks serially or on two threads
     old = cal.ROW_BLOCK
     try:
         cal.ROW_BLOCK = 7

@@ -282,8 +282,7 @@ def test_forward_theil_sen_file_reproduces_the_approximate_interval(dry_table, t
     assert inv["prediction_sd"] != pytest.approx(read_record(path)["residual_std_error"])
 
 
-@pytest.mark.parametrize("threads", ["1", "2"])
-def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch, threads):
+def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch):
     # Reference: numpy.sort over all n leave-out values per new row, ranks of Barber,
     # Candes, Ramdas & Tibshirani (2021, Ann. Stat. 49:486), lower floor(alpha(n+1))-th
     # smallest of x'B_i - r_i, upper ceil((1-alpha)(n+1))-th smallest of x'B_i + r_i.
@@ -291,7 +290,6 @@ def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch, threads)
     # same, on one thread or several.
     import refit._evaluate as ev
 
-    monkeypatch.setenv("REFIT_THREADS", threads)
     rng = np.random.default_rng(20261202)
     n, p, m = 150, 3, 9_000
     b = np.array([500.0, 3.0, -0.004])
@@ -300,7 +298,12 @@ def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch, threads)
     v = rng.uniform(5, 300, m)
     x0 = np.column_stack([np.ones(m), v, v * v])
     alpha = 0.1
+    monkeypatch.setenv("REFIT_THREADS", "1")
     lo, hi = ev._plus_band(x0, B, b, r, alpha)
+    monkeypatch.setenv("REFIT_THREADS", "2")  # blocks on two threads: the same bits
+    lo2, hi2 = ev._plus_band(x0, B, b, r, alpha)
+    np.testing.assert_array_equal(lo2, lo)
+    np.testing.assert_array_equal(hi2, hi)
     mu = x0 @ B.T
     k_lo, k_hi = int(np.floor(alpha * (n + 1))), int(np.ceil((1 - alpha) * (n + 1)))
     want_lo = np.sort(mu - r, axis=1)[:, k_lo - 1]
