@@ -395,14 +395,7 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
     mc_level = PUBLISHED_LEVEL if published else float(pred.level or 0.95)
     df = float(rec["df_resid"]) if iv["method"] == "analytic" and rec.get("df_resid") \
         and rec["direction"] == "inverse" else None
-    cv = rec.get("cv") or {}
-    base = {"coefficient_file": label, "function_id": rec["function_id"],
-            "version": rec["version"], "status": rec.get("status", ""),
-            "candidate": rec.get("candidate") or "", "direction": rec["direction"],
-            "response": rec["response"]["name"], "unit": rec["response"].get("unit", ""),
-            "level": None if published else pred.level,
-            "interval": iv.get("label") or iv["method"],
-            "cv_coverage": cv.get("coverage"), "cv_scheme": cv.get("scheme", "")}
+    base = _file_fields(label, rec, None if published else pred.level)
     decomp_cols = set() if record is None else {
         c[:-len("_measured")] for c in record.columns if c.endswith("_measured")}
     out = []
@@ -418,18 +411,7 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
         if r["problem"]:
             out.append(r)
             continue
-        flags = [f for f in str(pred.flags[i]).split(";") if f]
-        details = []
-        sflags, sdetails = setting_flags(rec, frame.iloc[i])
-        flags += sflags
-        details += sdetails
-        if published:
-            flags.append(FLAG_PUBLISHED)
-            details.append("the interval is the published +- (one standard error of the "
-                           "regression), not a prediction interval")
-        if iv["method"] == "none":
-            flags.append(FLAG_NO_INTERVAL)
-            details.append("the file gives no error figure: estimate only")
+        flags, details = _row_flags(rec, str(pred.flags[i]), frame.iloc[i])
         r.update(estimate=pred.estimate[i], lower=pred.lower[i], upper=pred.upper[i],
                  lower_without_propagation=pred.lower[i],
                  upper_without_propagation=pred.upper[i], propagation="none")
@@ -441,6 +423,35 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
         r["flag_details"] = "; ".join(details)
         out.append(r)
     return out
+
+
+def _file_fields(label: str, rec: dict, level) -> dict:
+    """The columns every result row of one coefficient file shares."""
+    iv, cv = rec["interval"], rec.get("cv") or {}
+    return {"coefficient_file": label, "function_id": rec["function_id"],
+            "version": rec["version"], "status": rec.get("status", ""),
+            "candidate": rec.get("candidate") or "", "direction": rec["direction"],
+            "response": rec["response"]["name"], "unit": rec["response"].get("unit", ""),
+            "level": level, "interval": iv.get("label") or iv["method"],
+            "cv_coverage": cv.get("coverage"), "cv_scheme": cv.get("scheme", "")}
+
+
+def _row_flags(rec: dict, predicted: str, fossil_row) -> tuple[list[str], list[str]]:
+    """Flags and their explanations for one fossil row: the prediction's own, the
+    soil-setting checks, and what the file's interval is (published +-, none)."""
+    method = rec["interval"]["method"]
+    flags = [f for f in predicted.split(";") if f]
+    sflags, details = setting_flags(rec, fossil_row)
+    flags += sflags
+    details = list(details)
+    if method == "published":
+        flags.append(FLAG_PUBLISHED)
+        details.append("the interval is the published +- (one standard error of the "
+                       "regression), not a prediction interval")
+    if method == "none":
+        flags.append(FLAG_NO_INTERVAL)
+        details.append("the file gives no error figure: estimate only")
+    return flags, details
 
 
 def _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols) -> str:
