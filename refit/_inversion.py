@@ -4,7 +4,7 @@ The pieces :func:`refit.calibrate.invert_polynomial` is assembled from: the flag
 their orders, the curve's monotonic branches in scaled units (:func:`branch_layout`), the
 roots of ``f(x) = y0`` and the choice among them (:func:`_all_roots`, :func:`_choose`), the
 band polynomial and its grid (:class:`PolyBand`, :func:`_band_grid`), the bracketing of
-band crossings on that grid (:func:`_outside_nodes`, :func:`_crossings`) and their
+band crossings on that grid (:class:`GridSearch`, :func:`_crossings`) and their
 refinement (:func:`_refine`). The search window and the meaning of each flag are described
 in :mod:`refit.calibrate`, which re-exports every public name defined here.
 """
@@ -175,7 +175,7 @@ def _crossings(band, rows, grid, nodes, start, lo, hi):
 
     ``nodes = (j_dn, j_up)``: for each row the last grid node below ``start`` and the first
     above it where the row lies outside the band (-1 / ``len(grid)`` when none, from
-    :func:`_outside_nodes`); they bracket the crossings, refined by :func:`_refine`.
+    :meth:`GridSearch.outside_nodes`); they bracket the crossings, refined by :func:`_refine`.
     Returns (lower, upper, open_below, open_above); a side with no outside node inside
     [lo, hi] is open and its limit is the window edge."""
     n_grid = len(grid)

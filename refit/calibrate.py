@@ -156,9 +156,9 @@ def invert_polynomial(y0, poly: np.ndarray, cov: np.ndarray, sigma2_new: float,
     (:func:`_starting_points`); find, on one grid of :data:`GRID_POINTS` nodes over the
     window (plus the turning points), the nearest node on each side of the estimate where
     ``y0`` lies outside the band ``(y0 - f(x))^2 <= t^2 (sigma2_new + g(x)' V g(x))``
-    (:func:`_outside_nodes`); refine each crossing by a vectorised false position to
-    machine precision (:func:`_crossings`). A band excursion narrower than the grid
-    spacing (window width / 256) can be missed.
+    (:class:`GridSearch`); refine each crossing by a safeguarded Newton iteration on the
+    band polynomial to machine precision (:func:`_crossings`, :func:`_refine`). A band
+    excursion narrower than the grid spacing (window width / 256) can be missed.
     """
     est, lower, upper, masks = invert_polynomial_masks(
         y0, poly, cov, sigma2_new, t, domain, x_cal, window=window)
