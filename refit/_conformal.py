@@ -133,6 +133,8 @@ def _jackknife_band(est, A, Q, h, loo, alpha):
     statistics as over all rows; see :func:`_jackknife_candidates`), else over all rows in
     cache-sized blocks."""
     n = loo.shape[0]
+    if not est.size:  # no new rows (e.g. every value missing)
+        return np.empty(0), np.empty(0)
     k_lo, k_hi = _rank_lower(alpha, n), _rank_upper(alpha, n)
     keep = _jackknife_candidates(A, Q, h, loo, k_lo, k_hi, est)
     if keep is None:
@@ -253,6 +255,58 @@ def jackknife_plus(X, y, x0, *, level=0.95) -> PredictionInterval:
     A = np.linalg.solve(R.T, x0.T).T          # rows R^-T x0, shape (m, p)
     est = x0 @ b
     lower, upper = _jackknife_band(est, A, Q, 1.0 - one_minus_h, loo, alpha)
+    return PredictionInterval(est, lower, upper, {
+        "method": "jackknife+", "level": float(level), "loo_residuals": loo,
+        "unbounded": _unbounded(lower, upper)})
+
+
+@with_one_blas_thread
+def jackknife_plus_fitted(x0, est, result, *, level=0.95) -> PredictionInterval:
+    """Jackknife+ interval of an unweighted :func:`refit.lsq.solve_lsq` fit, from the
+    fit's own factorisation (no second QR).
+
+    Parameters
+    ----------
+    x0 : ndarray, shape (m, p)
+        Finite design rows of the new observations (terms as in the fit).
+    est : ndarray, shape (m,)
+        ``x0 @ result.coefficients`` [units of y].
+    result : refit.lsq.EstimatorResult
+        The OLS result of ``solve_lsq`` (its ``details`` hold ``q`` and ``factor``).
+    level : float
+        Nominal level 1 - alpha.
+
+    Returns
+    -------
+    PredictionInterval
+        As :func:`jackknife_plus` on the same design; the numbers agree with it to
+        rounding (the leave-one-out terms come from another factorisation of the same
+        design).
+
+    Notes
+    -----
+    ``solve_lsq`` factors the centred, scaled slopes, ``Z = (X_s - c) D^-1 = Q R``. With
+    ``a_j = ((x0_j,s - c) / D) R^-1`` the cross term is ``x0_j'(X'X)^-1 x_i = 1/n +
+    a_j'q_i``, so appending the constant ``1/sqrt(n)`` to ``a_j`` and ``q_i`` gives the
+    orthonormal basis :func:`jackknife_plus` takes from the QR of X (and ``h_ii = |q_i|^2``).
+    """
+    who = "jackknife_plus"
+    alpha = _alpha(level, who)
+    factor, q = result.details["factor"], result.details["q"]
+    n, p = q.shape[0], x0.shape[1]
+    if n < p + 2:
+        raise InvalidDataError(
+            f"{who}: {n} rows are too few for {p} coefficient(s); at least {p + 2} "
+            f"rows are needed. Add calibration rows or use a simpler form.")
+    A = (((x0[:, 1:] if factor.intercept else x0) - factor.centre) / factor.scale) \
+        @ factor.r_inv
+    if factor.intercept:
+        c = 1.0 / np.sqrt(factor.sum_weights)
+        A = np.column_stack([A, np.full(A.shape[0], c)])
+        q = np.column_stack([q, np.full(n, c)])
+    one_minus_h = _one_minus_h(q, who)
+    loo = result.residuals / one_minus_h
+    lower, upper = _jackknife_band(est, A, q, 1.0 - one_minus_h, loo, alpha)
     return PredictionInterval(est, lower, upper, {
         "method": "jackknife+", "level": float(level), "loo_residuals": loo,
         "unbounded": _unbounded(lower, upper)})

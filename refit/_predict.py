@@ -126,7 +126,7 @@ def _analytic_band(fit, X0, eta, w0, level):
     return eta - half, eta + half
 
 
-def _resampled_band(fit, X0, ok, w0, level, interval, opts):
+def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
     from . import intervals as iv
     from .errors import UsageError
 
@@ -136,8 +136,16 @@ def _resampled_band(fit, X0, ok, w0, level, interval, opts):
     if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
         raise UsageError(f"interval {interval!r} does not take weights; use "
                          "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
+    x0 = X0[ok]
+    if interval == "jackknife+" and "q" in fit.result.details and fit.weights is None:
+        from ._conformal import jackknife_plus_fitted  # the fit's own QR: no second one
+
+        pi = jackknife_plus_fitted(x0, eta[ok], fit.result, level=level)
+        out = np.full((3, len(ok)), np.nan)
+        out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+        return out
     X = fit.form.design(fit.x)
-    y, x0 = fit.y_model, X0[ok]
+    y = fit.y_model
     if interval.startswith("bootstrap"):
         fun = iv.bootstrap_pairs if interval == "bootstrap-pairs" else iv.bootstrap_residual
         w0v = np.broadcast_to(w0, ok.shape)[ok]
@@ -191,7 +199,7 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
         lo, hi = _quantile_band(fit, X0, level)
         masks[FLAG_CROSS] = lo > hi
     elif interval != "none":
-        eta, lo, hi = _resampled_band(fit, X0, ok, w0, level, interval, opts)
+        eta, lo, hi = _resampled_band(fit, X0, eta, ok, w0, level, interval, opts)
         masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
     out = np.full(m, False)
     for j, name in enumerate(fit.x_names):

@@ -193,23 +193,58 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
                       intercept, names, rank_tol)
 
 
+def _lapack_call(f, *args, **kwargs):
+    """Call a LAPACK routine with a workspace query first (as ``scipy.linalg.qr`` does)."""
+    work = f(*args, lwork=-1, **kwargs)[-2]
+    out = f(*args, lwork=int(work[0].real), **kwargs)
+    if out[-1] < 0:  # pragma: no cover - the arguments are built here
+        raise ValueError(f"illegal value in argument {-out[-1]} of LAPACK {f.typecode}"
+                         f"{f.__name__}")
+    return out[:-2]
+
+
+def _qr_economic(a: np.ndarray):
+    """Thin QR of a tall float array: ``scipy.linalg.qr(a, mode="economic")`` through the
+    same LAPACK calls (geqrf, then orgqr, workspace queried), without its argument
+    handling, which costs more than the factorisation of a narrow design."""
+    from scipy.linalg import lapack
+
+    n_col = a.shape[1]
+    qr, tau = _lapack_call(lapack.dgeqrf, a)
+    r = np.triu(qr[:n_col, :])
+    (q,) = _lapack_call(lapack.dorgqr, qr, tau, overwrite_a=1)
+    return q, r
+
+
+def _solve_upper(r: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve ``r x = b`` for upper-triangular ``r``: ``scipy.linalg.solve_triangular``'s
+    LAPACK call (trtrs, on the transposed system when ``r`` is C-ordered), unwrapped."""
+    from scipy.linalg import lapack
+
+    if r.flags.f_contiguous:
+        x, info = lapack.dtrtrs(r, b, lower=0, trans=0)
+    else:
+        x, info = lapack.dtrtrs(r.T, b, lower=1, trans=1)
+    if info != 0:  # pragma: no cover - the rank check comes first
+        raise np.linalg.LinAlgError(f"singular triangular factor (trtrs info {info})")
+    return x
+
+
 def _qr_slopes(z, scale, yz, names, intercept, rank_tol):
     """QR of the centred, scaled slope terms: slopes, their unscaled covariance, rank check."""
-    from scipy.linalg import qr, solve_triangular
-
     from .errors import InvalidDataError
 
     n, q_dim = z.shape
-    qmat, r = qr(z / scale, mode="economic", check_finite=False)
+    qmat, r = _qr_economic(z / scale)
     sv = np.linalg.svd(r, compute_uv=False)
     tol = rank_tol if rank_tol is not None else max(n, q_dim + 1) * 1e3 * np.finfo(float).eps
     if sv[-1] <= tol * sv[0]:
         _, sv_full, vt = np.linalg.svd(r)
         raise InvalidDataError(_rank_message(sv_full, vt, names, intercept))
     qty = qmat.T @ yz
-    bz = solve_triangular(r, qty, lower=False, check_finite=False)
+    bz = _solve_upper(r, qty)
     resid_z = yz - qmat @ qty
-    rinv = solve_triangular(r, np.eye(q_dim), lower=False, check_finite=False)
+    rinv = _solve_upper(r, np.eye(q_dim))
     cov_slopes = (rinv @ rinv.T) / np.outer(scale, scale)
     return qmat, r, rinv, float(sv[0] / sv[-1]), resid_z, bz / scale, cov_slopes
 

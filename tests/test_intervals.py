@@ -87,6 +87,43 @@ def test_jackknife_plus_equals_explicit_leave_one_out_refits():
     assert not res.details["unbounded"]
 
 
+@pytest.mark.parametrize("through_origin", [False, True])
+def test_fit_predict_jackknife_plus_from_the_fits_own_qr_equals_explicit_refits(
+        through_origin):
+    # Fit.predict(interval="jackknife+") reuses the factorisation of the fit (centred,
+    # scaled terms) instead of a second QR of X: the limits must still equal n explicit
+    # statsmodels leave-one-out refits (ranks as above, n = 199, alpha = 0.05), and the
+    # row whose value is missing stays empty.
+    from refit.fitting import fit
+
+    X, y = quadratic_problem(199, 5)
+    f = fit({"x": X[:, 1], "y": y}, "y", ["x"], form="quadratic",
+            through_origin=through_origin)
+    v = np.array([np.nan, -10.0, 20.0, 55.5, 110.0])
+    x0 = np.column_stack([np.ones(5), v, v**2])
+    if through_origin:
+        X, x0 = X[:, 1:], x0[:, 1:]
+    p = f.predict(v, interval="jackknife+", level=0.95)
+    mu, r = explicit_loo_predictions(X, y, x0[1:])
+    assert_allclose(p["lower"][1:], np.sort(mu - r, axis=1)[:, 10 - 1], rtol=0, atol=1e-9)
+    assert_allclose(p["upper"][1:], np.sort(mu + r, axis=1)[:, 190 - 1], rtol=0, atol=1e-9)
+    assert_allclose(p["estimate"][1:], sm.OLS(y, X).fit().predict(x0[1:]), rtol=1e-12)
+    assert np.isnan(p.loc[0, ["estimate", "lower", "upper"]].to_numpy(float)).all()
+    assert p["flags"][0] == "missing-value"
+
+
+def test_fit_predict_jackknife_plus_of_only_missing_values_is_empty_not_an_error():
+    # every value missing: no new row to band (the candidate cut must not take the
+    # maximum of nothing)
+    from refit.fitting import fit
+
+    X, y = quadratic_problem(40, 6)
+    f = fit({"x": X[:, 1], "y": y}, "y", ["x"], form="quadratic")
+    p = f.predict([np.nan, np.nan], interval="jackknife+")
+    assert np.isnan(p[["estimate", "lower", "upper"]].to_numpy(float)).all()
+    assert list(p["flags"]) == ["missing-value", "missing-value"]
+
+
 def test_jackknife_plus_is_unbounded_when_too_few_rows_for_the_level():
     # n = 18, alpha = 0.05: floor(0.05 * 19) = 0 -> lower = -inf, ceil(0.95 * 19) = 19 > 18.
     X, y = quadratic_problem(18, 3)
