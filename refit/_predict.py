@@ -263,5 +263,9 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
         est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
     else:
         est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
-    return pd.DataFrame({"estimate": est, "lower": lo, "upper": hi, "flags": flags},
-                        index=index)
+    # one fresh block for the three numbers (the caller's arrays may alias each other),
+    # handed to pandas without a second copy
+    values = np.empty((3, m))
+    values[0], values[1], values[2] = est, lo, hi
+    return pd.DataFrame({"estimate": values[0], "lower": values[1], "upper": values[2],
+                         "flags": flags}, index=index, copy=False)

@@ -392,16 +392,21 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     ids = (frame["profile_id"].to_numpy()[rows] if "profile_id" in frame.columns
            else labels[rows])
     obs = arrays[candidate.response][rows]
+    # every column a fresh array of its own (estimate and limits copied into one block:
+    # the limits of interval 'none' are one array), so pandas need not copy them again
+    num = np.empty((3, len(rows)))
+    num[0], num[1], num[2] = est, lo, hi
+    est, lo, hi = num
     pred = pd.DataFrame({"row": rows, "profile_id": ids, "repeat": repeat, "fold": fold,
                          "observed": obs, "estimate": est, "lower": lo, "upper": hi,
-                         "flags": flags})
+                         "flags": flags}, copy=False)
     if candidate.interval in _CONFORMAL:
         details["cautions"] = [
             f"{candidate.interval} intervals assume exchangeable rows; soils clustered by "
             "region or source are not, so their coverage on new regions can fall short of "
             "the nominal level: judge it under a grouped or spatial scheme"]
     metrics = skill_scores(obs, est, lo, hi, level) if len(rows) else {}
-    reps = np.unique(repeat)
+    reps = np.unique(repeat) if folds is not None else (0,)  # closed form: one repeat
     details["by_repeat"] = [metrics] if len(reps) == 1 else [
         skill_scores(obs[repeat == r], est[repeat == r], lo[repeat == r], hi[repeat == r],
                      level) for r in reps]
