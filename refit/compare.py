@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import io
 import math
+import textwrap
 
 import numpy as np
 import pandas as pd
@@ -24,6 +25,11 @@ TABLE_COLUMNS = [
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
 ]
 MAX_PANELS = 12
+#: text sizes of the figure [points]: read at about 70 % scale when the 11-inch figure is
+#: shown in a report column, so nothing smaller than 8.5
+FONT = {"note": 8.5, "fit": 8.5, "axis": 9.0, "title": 10.0, "legend": 9.0}
+#: characters per line of the note printed beside an interval (longer notes wrap)
+NOTE_WIDTH = 56
 
 #: The figure's own palette: blue for refits, vermilion for published equations, a warm
 #: grey for fits without an interval; distinguishable under the common colour-vision
@@ -106,12 +112,25 @@ def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
         _panel(ax, rows, pid)
     if title:
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.subplots_adjust(left=0.27, right=0.62, top=1 - 0.5 / sum(heights),
-                        bottom=0.55 / sum(heights), hspace=0.45)
+    fig.legend(handles=_legend_handles(), loc="upper right", bbox_to_anchor=(0.985, 0.998),
+               ncol=3, frameon=False, fontsize=FONT["legend"])
+    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / sum(heights),
+                        bottom=0.55 / sum(heights), hspace=0.5)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=130)
     plt.close(fig)
     return buf.getvalue()
+
+
+def _legend_handles() -> list:
+    """What the colours and the diamond mean (one legend for every panel)."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    return [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
+            Patch(color=STYLE["published"], label="published equation (±1 SE)"),
+            Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                   label="estimate")]
 
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
@@ -166,14 +185,19 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         if r.flags:
             note += "\nflags: " + str(r.flags).replace(";", ", ")
         if r.problem:
-            note = "not evaluated: " + str(r.problem)[:60]
+            note = "not evaluated: " + str(r.problem)[:90]
+        note = "\n".join(textwrap.fill(part, NOTE_WIDTH) for part in note.split("\n"))
         ax.annotate(note, xy=(1.01, yi), xycoords=("axes fraction", "data"),
-                    va="center", fontsize=7, color="#333333", annotation_clip=False)
-    ax.set_yticks(y, [str(f).replace(" ", "\n", 1) for f in rows["fit"]], fontsize=7.5)
+                    va="center", fontsize=FONT["note"], color="#333333",
+                    annotation_clip=False)
+    ax.set_yticks(y, [str(f).replace(" ", "\n", 1) for f in rows["fit"]],
+                  fontsize=FONT["fit"])
     ax.set_xlim(lo_ax - 2 * pad, hi_ax + 2 * pad)
     unit = rows["unit"].iloc[0] if len(rows) else ""
-    ax.set_xlabel(f"{rows['response'].iloc[0]} [{unit}]" if len(rows) else "", fontsize=8)
-    ax.set_title(str(pid), loc="left", fontsize=9, fontweight="bold")
+    ax.set_xlabel(f"{rows['response'].iloc[0]} [{unit}]" if len(rows) else "",
+                  fontsize=FONT["axis"])
+    ax.tick_params(axis="x", labelsize=FONT["fit"])
+    ax.set_title(str(pid), loc="left", fontsize=FONT["title"], fontweight="bold")
     ax.grid(axis="x", color=STYLE["grid"])
     ax.set_axisbelow(True)
     for side in ("top", "right"):

@@ -175,8 +175,10 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
 def _report(out: Path, result: DemoResult, say) -> None:
     from refit.report import write_report
 
-    say("[bold]7. Report[/bold]: figures and the self-contained HTML page")
+    say("[bold]7. Report[/bold]: figures, the fits compared and the self-contained HTML page")
     target = out / "report.html"
-    write_report(result.run_dir, target,
-                 command=["refit", "report", str(result.run_dir), "--out", str(target)])
+    compared = out / "compare"   # the comparison figure and table go into the report too
+    write_report(result.run_dir, target, compare=compared,
+                 command=["refit", "report", str(result.run_dir), "--compare",
+                          str(compared), "--out", str(target)])
     result.outputs["report (open in a browser)"] = target

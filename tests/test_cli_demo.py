@@ -78,17 +78,24 @@ def test_demo_report_is_self_contained(demo_run):
 
     class Images(HTMLParser):
         srcs: list = []
+        alts: list = []
 
         def handle_starttag(self, tag, attrs):
             if tag == "img":
                 self.srcs.append(dict(attrs).get("src", ""))
+                self.alts.append(dict(attrs).get("alt", ""))
 
     parser = Images()
-    parser.srcs = []
+    parser.srcs, parser.alts = [], []
     parser.feed(html)
     assert parser.srcs and all(s.startswith("data:image/") for s in parser.srcs)
     run = json.loads((out / "run" / "run.json").read_text(encoding="utf-8"))
     assert run["dataset"]["sha256"] in html
+    # the demo's comparison of fits is in the report too, embedded like the other figures
+    assert sum("compared fits" in a for a in parser.alts) == 1
+    table = pd.read_csv(out / "compare" / "comparison.csv")
+    assert f"The comparison table ({len(table)} rows" in html
+    assert "--compare" in html
 
 
 def test_demo_refuses_a_folder_it_did_not_write(tmp_path):

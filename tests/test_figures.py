@@ -178,9 +178,70 @@ def test_residual_and_influence_figures(norris):
     assert len(hi) > 0
     fig = fg.influence(infl["leverage"], infl["cooks"], labels, hi, p=2)
     np.testing.assert_allclose(line(fig, "influence-points").get_ydata(), infl["cooks"])
-    texts = {t.get_text() for t in fig.axes[0].texts}
-    assert texts == {labels[i] for i in hi}
+    for ax in fig.axes:
+        texts = {t.get_text() for t in ax.texts}
+        assert texts == {labels[i] for i in hi}
     assert line(fig, "cooks-guide").get_ydata()[0] == pytest.approx(4 / len(d))
+    # each label is anchored at its record's (leverage, Cook's distance)
+    for t in fig.axes[0].texts:
+        i = labels.index(t.get_text())
+        assert t.xy == pytest.approx((infl["leverage"][i], infl["cooks"][i]))
+
+
+def text_boxes(fig, ax):
+    """Display-pixel boxes of an axes' label texts (without their leader lines), measured
+    by the figure's own renderer after a full draw (what is saved is what is checked)."""
+    from matplotlib.text import Text
+
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    return [(t.get_text(), Text.get_window_extent(t, renderer)) for t in ax.texts]
+
+
+def assert_apart(fig, ax):
+    boxes = text_boxes(fig, ax)
+    frame = ax.get_window_extent(fig.canvas.get_renderer())
+    for k, (a, ba) in enumerate(boxes):
+        assert frame.contains(ba.x0, ba.y0) and frame.contains(ba.x1, ba.y1), a
+        for b, bb in boxes[k + 1:]:
+            assert not ba.overlaps(bb), (a, b, ba, bb)
+    return [name for name, _ in boxes]
+
+
+def test_influence_labels_do_not_overlap(norris):
+    # Ten influential records crowded into one corner: each label must find its own place
+    # (matplotlib's renderer measures the boxes; none may intersect another).
+    rng = np.random.default_rng(5)
+    n = 60
+    lev = np.concatenate([rng.uniform(0.01, 0.05, n - 10), 0.20 + rng.uniform(0, 0.01, 10)])
+    cooks = np.concatenate([rng.uniform(0, 0.03, n - 10), 0.30 + rng.uniform(0, 0.01, 10)])
+    labels = [f"XX-{i:03d}" for i in range(n)]
+    hi = dg.influential(cooks, lev, 2)
+    assert len(hi) == 10
+    fig = fg.influence(lev, cooks, labels, hi, p=2)
+    for ax in fig.axes:
+        drawn = assert_apart(fig, ax)
+        assert len(drawn) >= 6
+        # the most influential record is always labelled (placed first)
+        assert labels[hi[0]] in drawn
+        assert set(drawn) <= {labels[i] for i in hi}
+    # and on real data (NIST Norris) every flagged record is labelled, none overlapping
+    _, f, _ = norris
+    infl = dg.influence(f)
+    lab = [f"N{i:02d}" for i in range(infl["n"])]
+    hi = dg.influential(infl["cooks"], infl["leverage"], infl["p"])
+    fig = fg.influence(infl["leverage"], infl["cooks"], lab, hi, p=2)
+    for ax in fig.axes:
+        assert sorted(assert_apart(fig, ax)) == sorted(lab[i] for i in hi)
+
+
+def test_coverage_rank_labels_do_not_overlap():
+    # Two candidates at nearly the same (width, coverage), as ranks 8 and 9 often are.
+    fig = fg.coverage_width([1, 2, 3, 8, 9], [0.95, 0.93, 0.91, 0.890, 0.889],
+                            [460, 420, 425, 404.0, 405.5], [0.96, 0.94, 0.93, 0.93, 0.93],
+                            [470, 425, 430, 416, 418], level=0.95, tolerance=0.05,
+                            scheme="group-kfold")
+    assert sorted(assert_apart(fig, fig.axes[0]), key=int) == ["1", "2", "3", "8", "9"]
 
 
 def test_out_of_fold_sites_and_coverage_figures():

@@ -8,6 +8,7 @@ run folder's own files (leaderboard.csv, run.json, fits/*.json).
 from __future__ import annotations
 
 import base64
+import io
 import json
 import shutil
 from html.parser import HTMLParser
@@ -177,3 +178,78 @@ def test_missing_run_folder_is_a_usage_error(tmp_path):
                                       str(tmp_path / "c.html")])
     assert res.exit_code == 2 and "run folder" in res.output
     assert not (tmp_path / "c.html").exists()
+
+
+# ----------------------------------------------------------------- the fits compared
+@pytest.fixture(scope="module")
+def compared(run_dir):
+    """A `refit compare` folder: the run's top fit and a published equation on the demo
+    fossils (some rows cannot be evaluated, so compare exits 1 but writes both files)."""
+    from refit._resources import demo_dir
+    from refit.cli.compare import compare
+    from refit.demo import published_equations
+
+    board = pd.read_csv(run_dir / "leaderboard.csv")
+    top = run_dir / "fits" / (board.candidate[0].replace("/", "__")
+                              .replace("+", "-plus") + ".json")
+    retallack = [p for p in published_equations() if "bk_depth" in p.name][0]
+    out = run_dir.parent / "compare"
+    res = CliRunner().invoke(compare, [str(top), str(retallack), "--fossils",
+                                       str(demo_dir() / "fossils.csv"), "--out", str(out)])
+    assert res.exit_code in (0, 1), res.output
+    assert (out / "comparison.csv").is_file() and (out / "comparison.png").is_file()
+    return out
+
+
+def comparison_image(page):
+    return [a for t, a in page.tags if t == "img" and "compared fits" in a.get("alt", "")]
+
+
+def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
+    from PIL import Image
+
+    out = tmp_path / "cmp.html"
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet",
+                                      "--compare", str(compared)])
+    assert res.exit_code == 0, res.output
+    page = parse(out)
+    imgs = comparison_image(page)
+    assert len(imgs) == 1 and len([t for t, _ in page.tags if t == "img"]) == 7
+    assert imgs[0]["src"].startswith("data:image/png;base64,")
+    raw = base64.b64decode(imgs[0]["src"].split(",", 1)[1])
+    # drawn from comparison.csv by the function `refit compare` drew comparison.png with:
+    # the same picture size (PNG header, ISO/IEC 15948)
+    with Image.open(compared / "comparison.png") as ref:
+        assert Image.open(io.BytesIO(raw)).size == ref.size
+    body = page.body
+    table = pd.read_csv(compared / "comparison.csv")
+    assert f"The comparison table ({len(table)} rows" in body
+    for r in table.dropna(subset=["estimate"]).itertuples():
+        assert f"{r.paleosol_id} {r.fit} {num(r.estimate)} {num(r.lower)} to " \
+               f"{num(r.upper)} {r.unit}" in body
+    assert "Fits compared." in body and "research use" in body
+    assert f"{table['paleosol_id'].nunique()} paleosol(s)" in body
+    assert f"--compare {compared}" in body          # the command that rewrites it
+    assert 'href="#comparison"' in out.read_text("utf-8")
+
+
+def test_report_without_comparison_has_no_comparison_section(written):
+    page = parse(written)
+    assert comparison_image(page) == []
+    html = written.read_text("utf-8")
+    assert 'id="comparison"' not in html and "Fits compared" not in page.body
+
+
+def test_comparison_folder_without_its_table_is_refused(run_dir, tmp_path):
+    empty = tmp_path / "nothing"
+    empty.mkdir()
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(tmp_path / "d.html"),
+                                      "--compare", str(empty)])
+    assert res.exit_code == 2 and "comparison.csv" in res.output
+    assert not (tmp_path / "d.html").exists()
+    bad = tmp_path / "bad"
+    bad.mkdir()
+    (bad / "comparison.csv").write_text("paleosol_id,estimate\nP1,3\n", "utf-8")
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(tmp_path / "d.html"),
+                                      "--compare", str(bad)])
+    assert res.exit_code == 1 and "lacks the column" in res.output

@@ -19,10 +19,13 @@ from refit.cli._common import guarded, stderr_console
                    "instead of the run's top one.")
 @click.option("--store", "store", type=click.Path(path_type=str), default=None,
               metavar="PATH", help="Where the run's store (or table) is now, if it moved.")
+@click.option("--compare", "compare", type=click.Path(path_type=str), default=None,
+              metavar="DIR", help="Folder written by `refit compare` (comparison.csv): add "
+                                  "its interval figure and table to the report.")
 @click.option("--overwrite", is_flag=True, help="Replace an existing report file.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress messages.")
 @guarded
-def report(run, out, candidate, store, overwrite, quiet) -> None:
+def report(run, out, candidate, store, compare, overwrite, quiet) -> None:
     """Write one HTML file reporting the fit RUN folder (from `refit fit --out RUN`).
 
     The report reloads the run's calibration data (the store version or table recorded in
@@ -30,7 +33,8 @@ def report(run, out, candidate, store, overwrite, quiet) -> None:
     candidate, then shows: the dataset and its hash, the subset, the leaderboard, the
     chosen equation with coefficients and standard errors, the recipe's cross-validation
     against random k-fold, flags and cautions, the figures (embedded; the file needs no
-    network) and the commands that reproduce it.
+    network) and the commands that reproduce it. With --compare DIR it also shows the
+    fossil estimates of several fits side by side (from `refit compare --out DIR`).
 
     \b
     Exit codes: 0 written, 1 the data are no longer the run's, 2 unreadable run folder,
@@ -40,6 +44,7 @@ def report(run, out, candidate, store, overwrite, quiet) -> None:
     Examples:
       refit fit calib_demo/recipe.toml --out runs/bk-map
       refit report runs/bk-map --out reports/bk-map.html
+      refit report runs/bk-map --compare refit-compare --out reports/bk-map.html
     """
     from pathlib import Path
 
@@ -55,14 +60,16 @@ def report(run, out, candidate, store, overwrite, quiet) -> None:
     err = stderr_console(quiet=quiet or not sys.stderr.isatty())
     with err.status("reading the run") as status:
         written = write_report(run, target, candidate=candidate, store=store,
-                               command=_command(run, target, candidate, store, overwrite),
-                               progress=lambda text: status.update(text))
+                               command=_command(run, target, candidate, store, compare,
+                                                overwrite),
+                               progress=lambda text: status.update(text), compare=compare)
     click.echo(f"Report written to {written}")
 
 
-def _command(run, target, candidate, store, overwrite) -> list[str]:
+def _command(run, target, candidate, store, compare, overwrite) -> list[str]:
     """The command that rewrites this report (shown in it)."""
     cmd = ["refit", "report", str(run), "--out", str(target)]
     cmd += ["--overwrite"] if overwrite else []
     cmd += ["--candidate", candidate] if candidate else []
+    cmd += ["--compare", str(compare)] if compare else []
     return cmd + (["--store", str(store)] if store else [])

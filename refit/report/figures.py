@@ -176,50 +176,53 @@ def influence(leverage, cooks, labels, highlight, *, p: int):
     labels : sequence of str, shape (n,)
         ``profile_id`` of each record.
     highlight : array_like of int
-        Indices of the records to label (:func:`refit.report.diagnostics.influential`).
+        Indices of the records to label (:func:`refit.report.diagnostics.influential`),
+        the most influential first: labels are placed in this order and one that finds
+        no free place (:func:`refit.report.labels.place_labels`) is left out.
     p : int
         Number of coefficients (for the 2p/n leverage guide).
     """
     from .diagnostics import COOKS_FACTOR, LEVERAGE_FACTOR
+    from .labels import freeze_layout, place_labels
 
     h = np.asarray(leverage, dtype=float)
     d = np.asarray(cooks, dtype=float)
     n = h.size
     hi = np.asarray(highlight, dtype=int)
+    names = [str(labels[i]) for i in hi]
+    idx = np.arange(1, n + 1)
     with st.styled():
-        fig, (a, b) = st.figure(2)
+        fig, (a, b) = st.figure(2, height=PANEL_WITH_LEGEND)
         a.plot(h, d, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
-               gid="influence-points")
+               gid="influence-points", label="record")
         a.plot(h[hi], d[hi], ls="none", marker="o", color=st.FLAGGED, ms=5.5,
-               gid="influential", label="influential (labelled)")
+               gid="influential", label="influential (labelled by profile_id)")
         a.axhline(COOKS_FACTOR / n, color=st.FLAGGED, lw=0.9, ls="--", gid="cooks-guide",
                   label=f"Cook's D = {COOKS_FACTOR:g}/n")
         a.axvline(LEVERAGE_FACTOR * p / n, color=st.DOMAIN, lw=0.9, ls=":",
                   gid="leverage-guide", label=f"leverage = {LEVERAGE_FACTOR:g}p/n")
-        for j, i in enumerate(hi):
-            a.annotate(str(labels[i]), (h[i], d[i]), xytext=_offset(j),
-                       textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
         a.set_xlabel("leverage (hat value)")
         a.set_ylabel("Cook's distance")
         a.set_title("Leverage and Cook's distance")
-        a.legend(loc="upper right")
-        idx = np.arange(1, n + 1)
         b.vlines(idx, 0, d, color=st.DATA, lw=0.8, gid="cooks-stems")
         b.plot(idx[hi], d[hi], ls="none", marker="o", color=st.FLAGGED, ms=4.5)
         b.axhline(COOKS_FACTOR / n, color=st.FLAGGED, lw=0.9, ls="--")
-        for j, i in enumerate(sorted(hi, key=lambda k: idx[k])):
-            b.annotate(str(labels[i]), (idx[i], d[i]), xytext=_offset(j),
-                       textcoords="offset points", fontsize=7.5, color=st.FLAGGED)
         b.set_xlabel("record (order in the subset)")
         b.set_ylabel("Cook's distance")
         b.set_title("Cook's distance by record")
+        for ax in (a, b):
+            ax.margins(x=0.06, y=0.14)   # room for labels of the outermost points
+            top = ax.get_ylim()[1]   # Cook's distance is never negative: 0 at the foot
+            ax.set_ylim(-0.03 * top, top)
+        fig.legend(*a.get_legend_handles_labels(), loc="outside lower center", ncol=4)
+        renderer = freeze_layout(fig)
+        place_labels(a, renderer, h[hi], d[hi], names, avoid=(h, d), color=st.FLAGGED)
+        place_labels(b, renderer, idx[hi], d[hi], names, stems=(idx, d), color=st.FLAGGED)
     return fig
 
 
-def _offset(j: int) -> tuple[int, int]:
-    """Label offsets [points] that alternate right-up, right-down, left-up, so labels of
-    neighbouring records do not print over each other."""
-    return ((4, 3), (4, -9), (-38, 3), (-38, -9))[j % 4]
+#: height of a two-panel figure with a legend row below the panels [inches]
+PANEL_WITH_LEGEND = 4.2
 
 
 def out_of_fold(observed, estimate, *, label: str, scheme: str, metrics: dict | None = None):
@@ -311,6 +314,8 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
     scheme : str
         Name of the recipe's scheme.
     """
+    from .labels import freeze_layout, place_labels
+
     r = np.asarray(ranks)
     cov = np.asarray(coverage, dtype=float)
     wid = np.asarray(width, dtype=float)
@@ -329,14 +334,17 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
                    ms=5.5, gid="random-kfold", label="random k-fold")
         a.plot(wid, cov, ls="none", marker="o", color=st.GROUPED, ms=6, gid="scheme",
                label=scheme)
-        for i in range(r.size):
-            a.annotate(str(r[i]), (wid[i], cov[i]), xytext=(4, 2),
-                       textcoords="offset points", fontsize=7.5)
         a.set_xlabel(f"mean interval width{f' [{unit}]' if unit else ''}")
         a.set_ylabel("out-of-fold coverage")
         a.yaxis.set_major_formatter(_percent())
         a.set_title("Coverage against width (labels: leaderboard rank)")
-        a.legend(loc="lower right")
+        fig.legend(*a.get_legend_handles_labels(), loc="outside lower center", ncol=3)
+        a.margins(x=0.08, y=0.1)
+        renderer = freeze_layout(fig)
+        others = (np.concatenate([wid, kw]), np.concatenate([cov, kc])) \
+            if kfold_coverage is not None else (wid, cov)
+        place_labels(a, renderer, wid, cov, [str(v) for v in r], avoid=others,
+                     gid="rank-label")
     return fig
 
 

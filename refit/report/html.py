@@ -42,7 +42,7 @@ def render(context: dict) -> str:
 
 
 def report_html(run_dir, *, candidate: str | None = None, store=None,
-                command: list[str] | None = None, progress=None) -> str:
+                command: list[str] | None = None, progress=None, compare=None) -> str:
     """Build the report of a run folder and return its HTML.
 
     Parameters
@@ -57,6 +57,9 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
         The command that makes this report (shown beside the run's own command).
     progress : callable, optional
         Called with a short description before each step.
+    compare : str or Path, optional
+        A folder written by ``refit compare`` (its ``comparison.csv``): its interval
+        figure and table are added to the report. None: no comparison section.
     """
     from . import assemble, context
     from .inputs import load_run
@@ -70,17 +73,27 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
         fig = f.pop("figure")
         f["width"] = int(round(fig.get_figwidth() * SCREEN_PX_PER_INCH))
         f["uri"] = png_data_uri(fig)
+    section = None
+    if compare is not None:
+        from .comparison import section as comparison_section
+
+        say("drawing the comparison of fits")
+        section = comparison_section(compare, inp.record["function_id"])
     say("writing the report")
-    return render(context.build(inp, figures, facts, report_command=command))
+    ctx = context.build(inp, figures, facts, report_command=command)
+    return render({**ctx, "comparison": section})
 
 
 def write_report(run_dir, out, *, candidate: str | None = None, store=None,
-                 command: list[str] | None = None, progress=None) -> Path:
-    """Write the report of ``run_dir`` to ``out`` atomically; returns the path."""
+                 command: list[str] | None = None, progress=None, compare=None) -> Path:
+    """Write the report of ``run_dir`` to ``out`` atomically; returns the path.
+
+    The parameters are :func:`report_html`'s.
+    """
     from .._atomic import write_text_atomic
 
     html = report_html(run_dir, candidate=candidate, store=store, command=command,
-                       progress=progress)
+                       progress=progress, compare=compare)
     out = Path(out)
     out.parent.mkdir(parents=True, exist_ok=True)
     write_text_atomic(out, html)

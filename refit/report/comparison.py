@@ -1,0 +1,151 @@
+"""The fossil-estimate comparison of a report: `refit compare`'s table, read back.
+
+``refit compare`` (and ``refit demo``) write ``comparison.csv`` and ``comparison.png`` in
+one folder. A report given that folder redraws the figure from the table with
+:func:`refit.compare.figure_png` (so figure and table always agree) and lists the table;
+both are embedded, so the report stays one self-contained file.
+"""
+
+from __future__ import annotations
+
+import base64
+from pathlib import Path
+
+from ..errors import InvalidDataError, UnreadableInputError
+
+FILE = "comparison.csv"
+#: columns the report needs (a subset of :data:`refit.compare.TABLE_COLUMNS`)
+NEEDED = ("paleosol_id", "fit", "response", "unit", "estimate", "lower", "upper", "level",
+          "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin")
+TEXT = ("paleosol_id", "fit", "response", "unit", "interval", "cv_scheme", "flags",
+        "problem", "origin")
+#: shown width of the comparison figure per inch of its size [px], as the other figures
+SCREEN_PX_PER_INCH = 100
+
+
+def comparison_file(path) -> Path:
+    """``comparison.csv`` in the folder ``path`` (or ``path`` itself when it is a file)."""
+    p = Path(path)
+    target = p / FILE if p.is_dir() else p
+    if not target.is_file():
+        raise UnreadableInputError(f"--compare {path}: no {FILE} there; name the folder "
+                                   "written by `refit compare --out DIR` (or `refit demo`'s "
+                                   "compare/ folder)")
+    return target
+
+
+def read_comparison(path):
+    """The comparison table written by ``refit compare`` (a pandas DataFrame).
+
+    Raises
+    ------
+    UnreadableInputError
+        No ``comparison.csv``, or it is not a CSV file.
+    InvalidDataError
+        Columns the report needs are missing, or the table has no row.
+    """
+    import pandas as pd
+
+    target = comparison_file(path)
+    try:
+        table = pd.read_csv(target, keep_default_na=False, na_values=[""])
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise UnreadableInputError(f"{target} cannot be read as CSV ({exc})") from None
+    missing = [c for c in NEEDED if c not in table.columns]
+    if missing:
+        raise InvalidDataError(f"{target} lacks the column(s) {', '.join(missing)}: is it a "
+                               "table written by `refit compare`? Rerun it to rewrite it")
+    if table.empty:
+        raise InvalidDataError(f"{target} has no rows: nothing to compare")
+    for col in TEXT:
+        table[col] = table[col].astype(object).fillna("").astype(str)
+    for col in ("estimate", "lower", "upper", "level", "cv_coverage"):
+        table[col] = pd.to_numeric(table[col], errors="coerce")
+    return table
+
+
+def figure(table) -> dict | None:
+    """The interval figure as an embeddable PNG (``uri``, ``width`` [px], ``panels`` drawn,
+    ``of`` panels in all), or None when no paleosol has an estimate."""
+    from ..compare import MAX_PANELS, figure_png, panel_groups
+    from ..errors import UsageError
+
+    panels = len(panel_groups(table))
+    try:
+        png = figure_png(table)
+    except UsageError:
+        return None
+    from io import BytesIO
+
+    from PIL import Image
+
+    with Image.open(BytesIO(png)) as im:
+        dpi = float((im.info.get("dpi") or (130.0, 130.0))[0])
+        width = int(round(im.size[0] / dpi * SCREEN_PX_PER_INCH))
+    return {"uri": "data:image/png;base64," + base64.b64encode(png).decode("ascii"),
+            "width": width, "panels": min(panels, MAX_PANELS), "of": panels}
+
+
+def _interval(r) -> str:
+    from .context import num
+
+    if r.problem:
+        return ""
+    lo, hi = num(r.lower), num(r.upper)
+    return f"{lo} to {hi}" if (lo or hi) else "none"
+
+
+def _beside(r) -> str:
+    """What the report says beside a row: its CV coverage, flags or why it has no estimate."""
+    from ..compare import coverage_text
+
+    if r.problem:
+        return "not evaluated: " + r.problem
+    text = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
+    return text + (f"; flags: {r.flags.replace(';', ', ')}" if r.flags else "")
+
+
+def rows(table) -> list[list[str]]:
+    """One formatted row per paleosol and fit: paleosol, fit, estimate, interval, unit,
+    level, and what is beside it."""
+    from .context import num, pct
+
+    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), r.unit,
+             pct(r.level, 0) if r.level == r.level else "", _beside(r)]
+            for r in table.itertuples(index=False)]
+
+
+def caption(table, fig: dict | None, source: str, function_id: str) -> str:
+    """What the comparison figure shows, in words (and that it is for research use)."""
+    fits = list(dict.fromkeys(table["fit"]))
+    n_refit = table.loc[table["origin"] == "refit", "fit"].nunique()
+    text = (f"Estimates (black diamonds) and intervals (bars) of {len(fits)} fit(s) for "
+            f"each of {table['paleosol_id'].nunique()} paleosol(s), from {source} "
+            f"(written by refit compare): blue bars are the {n_refit} fit(s) made with refit, with "
+            "their cross-validated coverage printed at the right; vermilion bars are "
+            "published equations, whose interval is the published ±1 standard error and "
+            "was not cross-validated; a diamond alone is a fit that gives no interval. "
+            "Paler bars are flagged: the equation does not hold there (e.g. outside its "
+            "calibration range). The narrowest interval is not necessarily the best: "
+            "compare each coverage with its nominal level.")
+    ids = set(table["function_id"].astype(str)) if "function_id" in table else set()
+    if function_id not in ids:
+        text += f" None of the compared fits is {function_id}, the function reported above."
+    if fig and fig["of"] > fig["panels"]:
+        text += (f" The first {fig['panels']} of {fig['of']} panels are drawn; every row "
+                 "is in the table below.")
+    return text + (" Intervals are estimates for research use, not for engineering, "
+                   "hazard or regulatory decisions.")
+
+
+def section(path, function_id: str) -> dict:
+    """Everything the report's comparison section shows, from the folder ``path``."""
+    from .context import shown_path
+
+    table = read_comparison(path)
+    fig = figure(table)
+    source = shown_path(comparison_file(path))
+    return {"figure": fig, "caption": caption(table, fig, source, function_id),
+            "header": ["paleosol", "fit", "estimate", "interval", "unit", "level",
+                       "cross-validation, flags"],
+            "rows": rows(table), "source": source, "n_rows": len(table)}
