@@ -15,6 +15,7 @@ FLAG_MISSING = "missing-value"
 FLAG_INVALID = "invalid-value"
 FLAG_CROSS = "quantiles-cross"
 FLAG_APPROX = "approximate-interval"
+_PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
 
 
 def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
@@ -106,6 +107,26 @@ def _flag_dtype(text: tuple):
             _FLAG_DTYPES.clear()
         dtype = _FLAG_DTYPES[text] = pd.CategoricalDtype(categories=list(text))
     return dtype
+
+
+_COLUMN_INDEXES: dict = {}
+
+
+def result_frame(names: tuple, arrays, index=None):
+    """A DataFrame of ``arrays`` (fresh arrays, taken without a copy) named ``names``.
+
+    Every table with the same names shares one column Index, built once: pandas builds
+    the look-up table of a string Index on the first column read, which cost more than
+    the rest of a small prediction; a shared Index keeps its table.
+    """
+    import pandas as pd
+
+    columns = _COLUMN_INDEXES.get(names)
+    if columns is None:
+        columns = _COLUMN_INDEXES[names] = pd.Index(list(names))
+    frame = pd.DataFrame(dict(enumerate(arrays)), index=index, copy=False)
+    frame.columns = columns
+    return frame
 
 
 def _analytic_band(fit, X0, eta, w0, level):
@@ -248,8 +269,6 @@ def _predict_forward(fit, v, level, interval, w0):
 def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
                 n_boot: int = 1000, folds: int = 10, calib_fraction: float = 0.5):
     """Apply a :class:`refit.fitting.Fit` to fossil feature values (see ``Fit.predict``)."""
-    import pandas as pd
-
     from .errors import InvalidDataError
 
     v, index = _values_matrix(values, fit.predictors)
@@ -267,5 +286,4 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
     # handed to pandas without a second copy
     values = np.empty((3, m))
     values[0], values[1], values[2] = est, lo, hi
-    return pd.DataFrame({"estimate": values[0], "lower": values[1], "upper": values[2],
-                         "flags": flags}, index=index, copy=False)
+    return result_frame(_PREDICTION_COLUMNS, (*values, flags), index)

@@ -32,6 +32,9 @@ from .splits import (BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, Scheme,
 
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
 _CONFORMAL = ("split-conformal", "jackknife+", "cv+")
+#: columns of CVResult.predictions
+PREDICTION_COLUMNS = ("row", "profile_id", "repeat", "fold", "observed", "estimate", "lower",
+                      "upper", "flags")
 
 
 # ----------------------------------------------------------------------------- candidates
@@ -356,6 +359,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     """
     import pandas as pd
 
+    from ._predict import result_frame
     from .skill import skill_scores
 
     _check(frame, candidate, scheme, level, n_jobs)
@@ -397,9 +401,8 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     num = np.empty((3, len(rows)))
     num[0], num[1], num[2] = est, lo, hi
     est, lo, hi = num
-    pred = pd.DataFrame({"row": rows, "profile_id": ids, "repeat": repeat, "fold": fold,
-                         "observed": obs, "estimate": est, "lower": lo, "upper": hi,
-                         "flags": flags}, copy=False)
+    pred = result_frame(PREDICTION_COLUMNS,
+                        (rows, ids, repeat, fold, obs, est, lo, hi, flags))
     if candidate.interval in _CONFORMAL:
         details["cautions"] = [
             f"{candidate.interval} intervals assume exchangeable rows; soils clustered by "
