@@ -4,6 +4,11 @@ Internal to :mod:`refit.store` (which re-exports :func:`find_duplicates` and
 :data:`DUPLICATE_TOLERANCE_DEG`). Stored records and earlier accepted rows of the batch are
 indexed by id, by site (source plus a grid of ``tolerance_deg`` cells) and by their set of
 measurements, so a batch row is compared only with the records it could duplicate.
+
+Longitudes wrap around at the antimeridian: 179.9999 and -179.9999 are 0.0002 degree apart,
+not 359.9998. The gap between two longitudes is the angular difference
+``min(|d|, 360 - |d|)`` with ``d`` taken modulo 360, and a site near +-180 is also looked
+up one turn (360 degrees) round, where its neighbours on the other side are indexed.
 """
 
 from __future__ import annotations
@@ -26,9 +31,38 @@ def _measurement_key(row: dict) -> tuple | None:
     return items if len(items) >= 2 else None
 
 
-def _site_cells(lat: float, lon: float, tol: float):
-    i, j = int(np.floor(lat / tol)), int(np.floor(lon / tol))
-    return [(i + a, j + b) for a in (-1, 0, 1) for b in (-1, 0, 1)]
+def longitude_gap(a: float, b: float) -> float:
+    """Angular difference of two longitudes [degree], in [0, 180].
+
+    ``min(|d|, 360 - |d|)`` with ``d = (a - b) mod 360`` (common practice for longitudes):
+    179.9995 and -179.9995 are 0.001 degree apart.
+    """
+    d = abs(a - b) % 360.0
+    return min(d, 360.0 - d)
+
+
+def _home_cell(lat: float, lon: float, tol: float) -> tuple[int, int]:
+    """The grid cell a site is indexed under (cells ``tol`` degree wide)."""
+    return int(np.floor(lat / tol)), int(np.floor(lon / tol))
+
+
+def _site_cells(lat: float, lon: float, tol: float) -> list[tuple[int, int]]:
+    """Every cell that can hold a site within ``tol`` of (lat, lon), across the antimeridian.
+
+    A site within ``tol`` of the query lies in the 3 x 3 block around the query's cell; for
+    a query within ``tol`` of +-180 degrees, also in the block around the query shifted by
+    one turn (its neighbours on the other side are indexed near -180 or +180).
+    """
+    turns = [0.0]
+    if lon + tol >= 180.0:
+        turns.append(-360.0)
+    if lon - tol <= -180.0:
+        turns.append(360.0)
+    out = []
+    for turn in turns:
+        i, j = _home_cell(lat, lon + turn, tol)
+        out += [(i + a, j + b) for a in (-1, 0, 1) for b in (-1, 0, 1)]
+    return out
 
 
 class _Seen:
@@ -47,7 +81,7 @@ class _Seen:
         site = self._site(row)
         if site:
             src, lat, lon = site
-            cell = (src, *_site_cells(lat, lon, self.tol)[4])
+            cell = (src, *_home_cell(lat, lon, self.tol))
             self.sites.setdefault(cell, []).append((lat, lon, str(pid)))
         key = _measurement_key(row)
         if key:
@@ -67,7 +101,7 @@ class _Seen:
         src, lat, lon = site
         for cell in _site_cells(lat, lon, self.tol):
             for lat2, lon2, pid in self.sites.get((src, *cell), ()):
-                if abs(lat - lat2) <= self.tol and abs(lon - lon2) <= self.tol:
+                if abs(lat - lat2) <= self.tol and longitude_gap(lon, lon2) <= self.tol:
                     return pid
         return None
 
@@ -78,7 +112,8 @@ def find_duplicates(batch: pd.DataFrame, stored: pd.DataFrame, bad: np.ndarray,
 
     Three rules: ``duplicate-id`` (same profile_id as a stored record; repeats inside the
     batch are the check's ``unique-id``), ``duplicate-site`` (same source, latitude and
-    longitude each within ``tolerance_deg``), ``duplicate-measurements`` (the same present
+    longitude each within ``tolerance_deg``; longitudes compared across the antimeridian,
+    see :func:`longitude_gap`), ``duplicate-measurements`` (the same present
     climate and feature values, at least two of them, as another record).
 
     Returns

@@ -22,6 +22,7 @@ import textwrap
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -175,6 +176,93 @@ def test_site_tolerance_is_a_parameter(tmp_path, base_store):
     table = write_csv(tmp_path / "new.csv", rows)
     assert admit(table, base_store, dry_run=True, today=DAY).rejected == 0
     assert admit(table, base_store, dry_run=True, today=DAY, tolerance_deg=0.005).rejected == 1
+
+
+# --- same site across the antimeridian ------------------------------------------------------
+# reference: the angular difference of two longitudes, min(|d|, 360 - |d|) with d = a - b
+# (common practice for longitudes); 179.9995 and -179.9995 are 0.001 degree apart.
+
+@pytest.mark.parametrize("a, b, gap", [
+    (179.9995, -179.9995, 0.001), (-179.9995, 179.9995, 0.001), (10.0, 20.0, 10.0),
+    (-170.0, 170.0, 20.0), (0.0, 180.0, 180.0), (180.0, -180.0, 0.0), (52.0, 52.0004, 0.0004),
+])
+def test_longitude_gap_is_the_angular_difference(a, b, gap):
+    from refit._duplicates import longitude_gap
+
+    assert longitude_gap(a, b) == pytest.approx(gap, abs=1e-9)
+
+
+def sites(*rows):
+    import pandas as pd
+
+    return pd.DataFrame([{"profile_id": p, "latitude": float(lat), "longitude": float(lon),
+                          "source": src} for p, lat, lon, src in rows])
+
+
+@pytest.mark.parametrize("stored_lon, new_lon, tol, same", [
+    (179.9999, -179.9999, 0.0005, True),    # 0.0002 apart across the antimeridian
+    (-179.9999, 179.9999, 0.0005, True),
+    (179.9995, -179.9995, 0.002, True),     # 0.001 apart, within a 0.002 tolerance
+    (179.9995, -179.9995, 0.0005, False),   # 0.001 apart: more than 0.0005
+    (180.0, -180.0, 0.0005, True),          # one meridian, written two ways
+    (52.0, 52.0004, 0.0005, True),          # a plain case, far from the antimeridian
+    (52.0, 52.0006, 0.0005, False),
+    (179.9999, 179.9999 - 360.0 + 0.01, 0.0005, False),  # 0.01 apart
+])
+def test_same_site_across_the_antimeridian(stored_lon, new_lon, tol, same):
+    from refit._duplicates import find_duplicates
+
+    stored = sites(("S-1", -17.0, stored_lon, "SRC-A"))
+    batch = sites(("N-1", -17.0002, new_lon, "SRC-A"), ("N-2", -17.0, new_lon, "SRC-B"))
+    found = find_duplicates(batch, stored, np.zeros(2, bool), tolerance_deg=tol)
+    assert [(d["pos"], d["rule"]) for d in found] == ([(0, "duplicate-site")] if same else [])
+    if same:
+        assert "profile 'S-1'" in found[0]["message"]
+
+
+def test_grid_lookup_equals_the_pairwise_scan_near_the_antimeridian():
+    # fast (grid cells) against naive (every pair, angular difference); seeded sites
+    # clustered within a few tolerances of +-180 and of 0 degrees
+    from refit._duplicates import find_duplicates
+
+    rng = np.random.default_rng(20261202)
+    tol = 0.0005
+    n = 300
+    lon = rng.choice([180.0, -180.0, 0.0], n) + rng.uniform(-1.5 * tol, 1.5 * tol, n)
+    lon = np.where(lon > 180, lon - 360, np.where(lon < -180, lon + 360, lon))
+    lat = rng.uniform(-30 * tol, 30 * tol, n)
+    src = rng.choice(["A", "B"], n)
+    stored = sites(*[(f"S-{i}", lat[i], lon[i], src[i]) for i in range(0, n, 2)])
+    batch = sites(*[(f"N-{i}", lat[i], lon[i], src[i]) for i in range(1, n, 2)])
+    found = {d["pos"] for d in find_duplicates(batch, stored, np.zeros(len(batch), bool), tol)
+             if d["rule"] == "duplicate-site"}
+    # naive: a batch row duplicates a stored row or an earlier batch row that was kept
+    kept = list(stored.itertuples(index=False))
+    expected = set()
+    for pos, r in enumerate(batch.itertuples(index=False)):
+        def near(o):
+            d = abs(r.longitude - o.longitude) % 360
+            return (o.source == r.source and abs(r.latitude - o.latitude) <= tol
+                    and min(d, 360 - d) <= tol)
+        if any(near(o) for o in kept):
+            expected.add(pos)
+        else:
+            kept.append(r)
+    assert found == expected
+    # both outcomes occur, and 11 of the duplicates are only found across +-180 (the
+    # grid without the wrap-around finds 88 of these 99)
+    assert len(expected) == 99 and len(batch) == 150
+
+
+def test_admit_catches_a_site_written_on_the_other_side(tmp_path, base_store):
+    rows = [row("E-1", -17.0, 179.9999, map_mm="810")]
+    admit(write_csv(tmp_path / "east.csv", rows), base_store, today=DAY)
+    rows = [row("W-1", -17.0, -179.9999, map_mm="820")]
+    result = admit(write_csv(tmp_path / "west.csv", rows), base_store, today=DAY)
+    assert (result.accepted, result.rejected) == (0, 1)
+    reasons = result.rejected_rows[0]["reasons"]
+    assert reasons[0].startswith("duplicate-site (column 'latitude|longitude'):")
+    assert "'E-1'" in reasons[0]
 
 
 @pytest.mark.parametrize("header, rows, expected", [
