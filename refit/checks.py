@@ -173,7 +173,7 @@ def _check_file(path, kind: str, vocabularies) -> CheckReport:
     from refit.units import normalise_columns
 
     table = read_table(path, as_text=False, digest=False)
-    frame, mapped = normalise_columns(table.frame)
+    frame, mapped = normalise_columns(table.frame, positions=table.file_columns)
     report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
                          path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
     if mapped and not report.problems.empty:

@@ -281,11 +281,16 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
 
     store_dir, today = Path(store_dir), _iso_day(today)
     state = _state(store_dir)
-    table = read_table(table_path, as_text=True)
+    try:
+        table = read_table(table_path, as_text=True)
+    except InvalidDataError as exc:  # a repeated or blank column name, mixed decimals
+        raise InvalidDataError(f"{Path(table_path)} cannot be admitted; nothing was written: "
+                               f"{exc}") from None
     original = table.frame
     incoming = original.drop(columns=[c for c in QUARANTINE_EXTRA if c in original.columns])
     try:
-        frame, mappings = normalise_columns(incoming)
+        frame, mappings = normalise_columns(_as_numbers_read(table, incoming),
+                                            positions=table.file_columns)
     except InvalidDataError as exc:
         raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
                                f"{exc}") from None
@@ -305,6 +310,14 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     finally:
         if was_missing and not (store_dir / "manifest.json").exists():
             shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
+
+
+def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:
+    """``incoming`` with decimal-comma numbers written with a point (see
+    :mod:`refit._decimal`); the quarantine keeps ``incoming`` itself, as in the file."""
+    from refit._decimal import to_decimal_points
+
+    return to_decimal_points(incoming, [c for c in table.decimal_comma if c in incoming])
 
 
 def _iso_day(today) -> str:
@@ -329,7 +342,7 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
                                + "\n".join(lines))
     n = len(frame)
     rejected, problems = _split_rows(report, frame, store, table.source_rows,
-                                     incoming, tolerance_deg)
+                                     _as_numbers_read(table, incoming), tolerance_deg)
     version = store.version + 1
     stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
     q_rel = f"quarantine/{version:04d}-{stem}.csv" if rejected.any() else None

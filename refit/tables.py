@@ -28,6 +28,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from refit._decimal import decimal_comma_columns, may_hold_comma_numbers, to_decimal_points
+from refit._headers import blank_columns, column_letter, refuse_repeated
 from refit.errors import UnreadableInputError
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
@@ -61,7 +63,16 @@ class Table:
     sha256 : str
         Hex SHA-256 of the file's bytes.
     notes : list of str
-        What the reader did (format, encoding, delimiter, skipped rows, sheet).
+        What the reader did (format, encoding, delimiter, skipped rows, sheet, decimal
+        comma).
+    decimal_comma : tuple of str
+        Columns whose numbers the file writes with a decimal comma (``12,5``; see
+        :mod:`refit._decimal`). A typed read has already converted them; with
+        ``as_text=True`` the cells keep the file's text and
+        :func:`refit._decimal.to_decimal_points` converts them.
+    file_columns : dict of str to int
+        The 1-based position in the file (as a spreadsheet counts columns) of each frame
+        column.
     """
 
     frame: pd.DataFrame
@@ -69,6 +80,8 @@ class Table:
     source_rows: np.ndarray
     sha256: str
     notes: list[str] = field(default_factory=list)
+    decimal_comma: tuple[str, ...] = ()
+    file_columns: dict[str, int] = field(default_factory=dict)
 
 
 def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
@@ -97,6 +110,10 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
         The file is missing, a folder, empty, has a header but no rows, cannot be decoded,
         has an unknown extension, is a corrupt workbook or parquet file, or uses a delimiter
         refit does not read.
+    InvalidDataError
+        The header names a column twice, or a column holds values but has no name, or the
+        numbers mix decimal commas and decimal points (the message says where and how to
+        fix it).
     """
     path = Path(path)
     _check_exists(path)
@@ -104,10 +121,14 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
     if suffix in TEXT_SUFFIXES:
         return _read_text_table(path, as_text, digest)
     if suffix in EXCEL_SUFFIXES:
-        rows, notes, digest = _read_excel_rows(path, sheet)
-        return _table_from_rows(path, rows, as_text, notes, digest)
+        from refit._workbooks import read_excel_rows
+
+        rows, notes, digest = read_excel_rows(path, sheet)
+        return _table_from_rows(path, rows, as_text, notes, digest, delim=None)
     if suffix in PARQUET_SUFFIXES:
-        return _read_parquet(path, as_text)
+        from refit._workbooks import read_parquet
+
+        return read_parquet(path, as_text)
     if suffix == ".xls":
         raise UnreadableInputError(
             f"{path}: the old binary Excel format (.xls) is not read; open it in a spreadsheet "
@@ -254,6 +275,7 @@ def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
     delim = sniff_delimiter(lines, path)
     rows = list(csv.reader(lines, delimiter=delim))
     header_at = find_header(rows)
+    refuse_repeated([str(c).strip() for c in rows[header_at]], path, header_at + 1)
     notes = [f"read {path.name} as delimited text", enc_note, f"delimiter {_DELIM_NAMES[delim]}"]
     if not as_text and codec.startswith("utf-8") and header_at == 0:
         fast = _fast_typed(path, codec, delim, scan, notes)
@@ -289,6 +311,15 @@ def _fast_typed(path, codec, delim, scan, notes) -> Table | None:
     if any(c.startswith("Unnamed: ") for c in frame.columns) or _has_dupes(frame.columns):
         return None
     rows = np.arange(2, len(frame) + 2)
+    comma = []
+    if delim != "," and may_hold_comma_numbers(frame):  # read the text, decide, convert
+        text = pd.read_csv(path, sep=delim, encoding=codec, dtype=str,
+                           keep_default_na=False, na_filter=False)
+        text.columns = frame.columns
+        comma, note = decimal_comma_columns(text, rows, path)
+        if comma:
+            notes.append(note)
+            frame = infer_types(to_decimal_points(text, comma))
     empty = frame.iloc[:, 0].isna().to_numpy(copy=True)  # writable (pandas 3 views are not)
     if empty.any():
         empty[empty] = frame.loc[empty].isna().all(axis=1).to_numpy()
@@ -296,7 +327,8 @@ def _fast_typed(path, codec, delim, scan, notes) -> Table | None:
         frame, rows = frame.loc[~empty].reset_index(drop=True), rows[~empty]
         notes.append(f"skipped {int(empty.sum())} empty row(s)")
     notes.append("header on row 1")
-    return Table(frame, path, rows, digest, notes)
+    return Table(frame, path, rows, digest, notes, tuple(comma),
+                 {str(c): j for j, c in enumerate(frame.columns, start=1)})
 
 
 def _has_dupes(names) -> bool:
@@ -353,7 +385,9 @@ def find_header(rows: list[list[str]]) -> int:
     return next(i for i, w in enumerate(widths) if w > 0)
 
 
-def _table_from_rows(path, rows, as_text, notes, digest, delim=",") -> Table:
+def _table_from_rows(path, rows, as_text, notes, digest, delim=None) -> Table:
+    """Rows of text cells (header and title rows included) -> Table; ``delim`` is the
+    delimiter of a text file (None for a workbook)."""
     header_at = find_header(rows)
     if header_at > 0:
         notes.append(f"skipped {header_at} row(s) above the header (title or notes)")
@@ -366,131 +400,40 @@ def _table_from_rows(path, rows, as_text, notes, digest, delim=",") -> Table:
             continue
         body.append((list(row) + [""] * width)[:width])
         numbers.append(k)
-    header = _name_columns(header, body, path)
+    refuse_repeated(header, path, header_at + 1)
+    blank = blank_columns(header, body, path, header_at + 1, numbers)
     if not body:
         raise UnreadableInputError(
             f"{path} has a header (row {header_at + 1}) but no data rows; add the soil profiles "
             "below the header"
         )
     notes.append(f"header on row {header_at + 1}")
-    frame = pd.DataFrame(body, columns=header, dtype=object)
-    keep = [c for c in frame.columns if not (c.startswith("_unnamed_") and _blank(frame[c]))]
-    frame = frame[keep]
-    frame.columns = [c[1:] if c.startswith("_unnamed_") else c for c in frame.columns]
-    frame = frame.astype(str) if as_text else infer_types(frame)
-    return Table(frame.reset_index(drop=True), path, np.asarray(numbers, dtype=np.int64),
-                 digest, notes)
-
-
-def _blank(col: pd.Series) -> bool:
-    return bool(col.astype(str).str.strip().eq("").all())
-
-
-def _name_columns(header: list[str], body, path: Path) -> list[str]:
-    names = [h if h else f"_unnamed_{j + 1}" for j, h in enumerate(header)]
-    seen: dict[str, int] = {}
-    for j, name in enumerate(names):
-        if name in seen:
-            raise UnreadableInputError(
-                f"{path}: column name {name!r} appears twice (columns {seen[name] + 1} and "
-                f"{j + 1}); rename one of them"
-            )
-        seen[name] = j
-    return names
+    if blank:
+        notes.append(f"left out {len(blank)} empty column(s) without a name ("
+                     + ", ".join(column_letter(j + 1) for j in blank) + ")")
+    keep = [j for j in range(width) if j not in blank]
+    frame = pd.DataFrame(body, dtype=object).iloc[:, keep]
+    frame.columns = [header[j] for j in keep]
+    frame = frame.reset_index(drop=True)
+    comma = []
+    if delim not in (None, ","):
+        comma, note = decimal_comma_columns(frame, numbers, path)
+        if comma:
+            notes.append(note)
+    frame = frame.astype(str) if as_text else infer_types(to_decimal_points(frame, comma))
+    return Table(frame, path, np.asarray(numbers, dtype=np.int64), digest, notes,
+                 tuple(comma), {header[j]: j + 1 for j in keep})
 
 
 def infer_types(frame: pd.DataFrame) -> pd.DataFrame:
-    """Numbers where a whole column parses as numbers, else text; missing markers -> NaN."""
+    """Numbers where a whole column of text cells parses as numbers, else text (spaces
+    around a cell removed); missing markers -> NaN. Vectorised per column."""
     out = {}
     for name in frame.columns:
-        col = frame[name].astype(object).map(lambda v: v.strip() if isinstance(v, str) else v)
-        col = col.where(~col.isin(MISSING_TEXT) & col.notna(), None)
+        col = frame[name].astype("str").str.strip()
+        col = col.where(~col.isin(MISSING_TEXT))
         try:
             out[name] = pd.to_numeric(col)
         except (ValueError, TypeError):
-            out[name] = col.astype("str").where(col.notna(), np.nan)
+            out[name] = col
     return pd.DataFrame(out, index=frame.index)
-
-
-# ---------------------------------------------------------------------------------------
-# workbooks
-
-
-def _read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]:
-    """Rows of one worksheet as display text, the reader's notes and the file's sha256."""
-    import zipfile
-
-    from openpyxl import load_workbook
-    from openpyxl.utils.exceptions import InvalidFileException
-
-    from refit._atomic import sha256_file
-
-    try:
-        book = load_workbook(path, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as exc:
-        raise UnreadableInputError(
-            f"{path}: not a readable xlsx workbook ({type(exc).__name__}: {exc}); open it in a "
-            "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
-        ) from None
-    try:
-        names = book.sheetnames
-        if sheet is None:
-            ws = book.worksheets[0]
-        elif isinstance(sheet, int) and 0 <= sheet < len(names):
-            ws = book.worksheets[sheet]
-        elif isinstance(sheet, str) and sheet in names:
-            ws = book[sheet]
-        else:
-            raise UnreadableInputError(
-                f"{path}: no worksheet {sheet!r}; the workbook has {', '.join(map(repr, names))}"
-            )
-        rows = [[_cell_text(v) for v in row] for row in ws.iter_rows(values_only=True)]
-        title = ws.title
-    finally:
-        book.close()
-    if not any(_effective_width(r) for r in rows):
-        raise UnreadableInputError(f"{path}: worksheet {title!r} is empty; put the table there")
-    notes = [f"read {path.name} as an xlsx workbook", f"sheet {title!r}"]
-    return rows, notes, sha256_file(path)
-
-
-# ---------------------------------------------------------------------------------------
-# parquet
-
-
-def _read_parquet(path: Path, as_text: bool) -> Table:
-    from refit._atomic import sha256_file
-
-    try:
-        frame = pd.read_parquet(path)
-    except Exception as exc:  # pyarrow raises many kinds for a damaged file
-        raise UnreadableInputError(
-            f"{path}: not a readable parquet file ({type(exc).__name__}: {exc}); "
-            "export it again or save the table as CSV"
-        ) from None
-    if len(frame) == 0:
-        raise UnreadableInputError(f"{path} has columns but no data rows; add the soil profiles")
-    frame.columns = [str(c).strip() for c in frame.columns]
-    if as_text:
-        frame = frame.astype(object).map(_cell_text)
-    rows = np.arange(2, len(frame) + 2)
-    notes = [f"read {path.name} as parquet", "row 1 stands for the column names, data from row 2"]
-    return Table(frame.reset_index(drop=True), path, rows, sha256_file(path), notes)
-
-
-def _cell_text(value) -> str:
-    """The text a spreadsheet would show for a typed cell ("" when missing)."""
-    import datetime as dt
-    import math
-
-    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA:
-        return ""
-    if isinstance(value, bool):
-        return "TRUE" if value else "FALSE"
-    if isinstance(value, float) and value.is_integer() and abs(value) < 1e15:
-        return str(int(value))
-    if isinstance(value, dt.datetime):
-        return value.date().isoformat() if value.time() == dt.time(0) else value.isoformat()
-    if isinstance(value, dt.date):
-        return value.isoformat()
-    return str(value)

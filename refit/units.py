@@ -276,24 +276,38 @@ def file_name_of(name: str, columns) -> str:
     return name
 
 
-def _two_columns(first: str, second: str, target: str, columns) -> str:
-    """The problem of two file columns mapping to one canonical column, in the file's words."""
-    fix = "keep one of them or rename the other"
+def _two_columns(first: str, second: str, target: str, columns, positions=None) -> str:
+    """The problem of two file columns mapping to one canonical column, in the file's words.
+
+    ``positions`` maps a column name to its 1-based position in the file (default: its
+    place in ``columns``); the message gives the positions and spreadsheet letters.
+    """
+    from refit._headers import column_letter
+
+    names = [str(c) for c in columns]
+    at = {**{n: j for j, n in enumerate(names, start=1)}, **dict(positions or {})}
+    i, j = at[first], at.get(second, names.index(second) + 1)
+    fix = ("keep one of them and delete the other, or rename it if it holds another "
+           "quantity")
     written = file_name_of(second, columns)
     if written == first:
-        names = [str(c) for c in columns]
-        where = f"columns {names.index(first) + 1} and {names.index(second) + 1}"
-        return f"{where} are both named {first!r} and map to {target}; {fix}"
-    return f"columns {first!r} and {written!r} both map to {target}; {fix}"
+        return (f"columns {i} and {j} are both named {first!r} (spreadsheet columns "
+                f"{column_letter(i)} and {column_letter(j)}) and map to {target}; {fix}")
+    return (f"columns {first!r} (column {i}, {column_letter(i)} in a spreadsheet) and "
+            f"{written!r} (column {j}, {column_letter(j)}) both map to {target}; {fix}")
 
 
-def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+def normalise_columns(frame: pd.DataFrame, positions: dict | None = None
+                      ) -> tuple[pd.DataFrame, list[str]]:
     """Map synonyms and declared units onto the canonical columns.
 
     Parameters
     ----------
     frame : pandas.DataFrame
         A table as read (text or typed cells).
+    positions : dict of str to int, optional
+        1-based position of each column in the file (``Table.file_columns``), for the
+        messages; default the place of the column in ``frame``.
 
     Returns
     -------
@@ -320,7 +334,8 @@ def normalise_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
             continue
         target, unit_text = parsed
         if target in claimed:
-            problems.append(_two_columns(claimed[target], str(name), target, frame.columns))
+            problems.append(_two_columns(claimed[target], str(name), target, frame.columns,
+                                         positions))
             continue
         claimed[target] = str(name)
         dst_name = _canonical_unit(target)

@@ -123,6 +123,16 @@ def write(path: Path, text: str, encoding="utf-8") -> Path:
     ("profile_id,latitude,longitude,source,bk_depth_kg\nA,1,2,s,3\n", 1,
      ["'bk_depth_kg'", "'kg'", "accepted units"]),
     ("profile_id,latitude,longitude,source,MAP (°C)\nA,1,2,s,3\n", 1, ["'MAP (°C)'", "°C"]),
+    # the header: a name twice, a column of values without a name, a name and its synonym
+    ("profile_id,latitude,longitude,source,map_mm,map_mm\nA,1,2,s,3,4\n", 1,
+     ["cannot be admitted; nothing was written", "columns 5 and 6 are both named 'map_mm' "
+      "(spreadsheet columns E and F) in the header on row 1", "Rename the columns"]),
+    ("profile_id,latitude,longitude,source,map_mm,,notes\nA,1,2,s,3,wet,x\n", 1,
+     ["cannot be admitted; nothing was written", "column F (column 6) has values but no "
+      "name in the header on row 1 (e.g. 'wet' on row 2 in F)", "Type a name for it"]),
+    ("profile_id,latitude,longitude,source,map_mm,MAP (mm)\nA,1,2,s,3,4\n", 1,
+     ["cannot be admitted; nothing was written", "columns 'map_mm' (column 5, E in a "
+      "spreadsheet) and 'MAP (mm)' (column 6, F) both map to map_mm", "keep one of them"]),
 ])
 def test_bad_tables_exit_codes_and_messages(tmp_path, store, content, code, words):
     table = tmp_path / "incoming.csv"

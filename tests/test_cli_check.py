@@ -92,6 +92,31 @@ def test_usage_and_unreadable_input_exit_2(args, needle):
     assert "Traceback" not in result.output
 
 
+@pytest.mark.parametrize("header, cells, words", [
+    ("profile_id,latitude,longitude,source,map_mm,map_mm", "A,1,2,s,3,4",
+     ["columns 5 and 6 are both named 'map_mm' (spreadsheet columns E and F) in the header "
+      "on row 1", "Rename the columns so each name appears once"]),
+    ("profile_id,latitude,longitude,source,map_mm,,notes", "A,1,2,s,3,wet,x",
+     ["column F (column 6) has values but no name in the header on row 1 (e.g. 'wet' on "
+      "row {row} in F)", "Type a name for it in row 1"]),
+    ("profile_id,latitude,longitude,source,map_mm,MAP (mm)", "A,1,2,s,3,4",
+     ["columns 'map_mm' (column 5, E in a spreadsheet) and 'MAP (mm)' (column 6, F) both "
+      "map to map_mm", "keep one of them and delete the other"]),
+])
+@pytest.mark.parametrize("blank_line", [False, True])  # the one-call read and the careful one
+def test_header_problems_exit_1_naming_file_and_columns(tmp_path, header, cells, words,
+                                                        blank_line):
+    path = tmp_path / "soils.csv"
+    path.write_text(header + "\n" + ("\n" if blank_line else "") + cells + "\n",
+                    encoding="utf-8")
+    result = run(path)
+    assert result.exit_code == 1, result.output
+    assert result.output.startswith(f"Error: {path}: ")
+    for word in words:  # the data row is row 2, or row 3 below a blank line
+        assert word.format(row=3 if blank_line else 2) in result.output
+    assert "Traceback" not in result.output
+
+
 def test_importing_the_command_does_not_import_pandas():
     code = ("import sys, refit.cli.check; "
             "sys.exit(1 if {'pandas', 'pandera', 'rich'} & set(sys.modules) else 0)")

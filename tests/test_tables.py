@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from refit.errors import UnreadableInputError
+from refit.errors import InvalidDataError, UnreadableInputError
 from refit.tables import read_table
 
 ROWS = [["profile_id", "latitude", "longitude", "source", "map_mm", "notes"],
@@ -146,7 +146,6 @@ def test_parquet_matches_pandas(tmp_path):
     ("bad.xlsx", b"PK\x03\x04 not really a zip", "not a readable xlsx"),
     ("bad.parquet", b"PAR1 nonsense", "not a readable parquet"),
     ("bin.csv", bytes(range(256)) * 8, "not text"),
-    ("dup.csv", b"map_mm,map_mm\n1,2\n", "appears twice"),
 ])
 def test_unreadable_inputs_name_the_file(tmp_path, name, content, pattern):
     path = tmp_path / name
@@ -171,11 +170,19 @@ def test_ragged_rows_are_padded(tmp_path):
 
 
 def test_header_narrower_than_body_is_found_by_its_names(tmp_path):
+    # the header (row 2) names two columns; the values of a third have no name: refused,
+    # naming the column by its spreadsheet letter and the header row
     path = tmp_path / "t.csv"
     path.write_text("Campaign 2025\nprofile_id,map_mm\nA,1,extra\nB,2,extra\n",
                     encoding="utf-8")
+    with pytest.raises(InvalidDataError) as err:
+        read_table(path, as_text=True)
+    assert str(err.value).startswith(
+        f"{path}: column C (column 3) has values but no name in the header on row 2 "
+        "(e.g. 'extra' on row 3 in C). Type a name for it in row 2")
+    path.write_text("Campaign 2025\nprofile_id,map_mm\nA,1\nB,2\n", encoding="utf-8")
     t = read_table(path, as_text=True)
-    assert list(t.frame.columns) == ["profile_id", "map_mm", "unnamed_3"]
+    assert list(t.frame.columns) == ["profile_id", "map_mm"]
     assert t.source_rows.tolist() == [3, 4]
 
 
@@ -188,3 +195,67 @@ def test_digest_can_be_skipped_and_is_otherwise_the_file_hash(tmp_path):
     assert read_table(path).sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
     quick = read_table(path, digest=False)
     assert quick.sha256 == "" and list(quick.frame["profile_id"]) == ["A", "B"]
+
+
+# --- the header row: repeated and blank names ---------------------------------------------
+
+def test_column_letters_match_openpyxl():
+    # reference: openpyxl.utils.get_column_letter, the letters a spreadsheet shows
+    from openpyxl.utils import get_column_letter
+
+    from refit._headers import column_letter
+
+    for position in (1, 2, 26, 27, 52, 53, 702, 703, 16384):
+        assert column_letter(position) == get_column_letter(position)
+
+
+@pytest.mark.parametrize("as_text", [False, True])
+def test_repeated_column_name_is_refused_naming_positions_and_letters(tmp_path, as_text):
+    path = tmp_path / "t.csv"
+    path.write_text("profile_id,latitude,longitude,source,map_mm,map_mm\n"
+                    "A,1,2,S,300,310\n", encoding="utf-8")
+    with pytest.raises(InvalidDataError) as err:
+        read_table(path, as_text=as_text)
+    assert str(err.value) == (
+        f"{path}: columns 5 and 6 are both named 'map_mm' (spreadsheet columns E and F) in "
+        "the header on row 1; refit cannot tell which one to use. Rename the columns so "
+        "each name appears once (e.g. add the unit or a qualifier), or delete the copies "
+        "you do not need")
+    assert err.value.exit_code == 1
+
+
+def test_names_repeated_after_spaces_and_three_times_below_a_title(tmp_path):
+    path = tmp_path / "t.csv"
+    path.write_text("Survey 2024\nnotes,profile_id, notes,map_mm,notes \nx,A,y,1,z\n",
+                    encoding="utf-8")
+    with pytest.raises(InvalidDataError, match=r"columns 1, 3 and 5 are all named 'notes' "
+                       r"\(spreadsheet columns A, C and E\) in the header on row 2;"):
+        read_table(path)
+
+
+def test_blank_name_over_values_is_refused_and_over_nothing_left_out(tmp_path):
+    path = tmp_path / "t.csv"
+    path.write_text("profile_id,,map_mm,\nA,,300,\nB,wet,310,\n", encoding="utf-8")
+    for as_text in (False, True):
+        with pytest.raises(InvalidDataError) as err:
+            read_table(path, as_text=as_text)
+        assert str(err.value).startswith(
+            f"{path}: column B (column 2) has values but no name in the header on row 1 "
+            "(e.g. 'wet' on row 3 in B). Type a name for it in row 1")
+    path.write_text("profile_id,,map_mm,\nA,,300,\nB, ,310,\n", encoding="utf-8")
+    t = read_table(path)
+    assert list(t.frame.columns) == ["profile_id", "map_mm"]
+    assert t.frame["map_mm"].tolist() == [300, 310]
+    assert t.file_columns == {"profile_id": 1, "map_mm": 3}
+    assert "left out 1 empty column(s) without a name (B)" in t.notes  # D: trailing
+
+
+def test_blank_names_in_a_workbook_are_named_by_letter(tmp_path):
+    rows = [["profile_id", None, "map_mm", None], ["A", 1.5, 300, None],
+            ["B", None, 310, "dry"]]
+    path = make_xlsx(tmp_path / "t.xlsx", rows)
+    with pytest.raises(InvalidDataError) as err:
+        read_table(path)
+    assert str(err.value).startswith(
+        f"{path}: columns B and D (columns 2 and 4) have values but no name in the header "
+        "on row 1 (e.g. '1.5' on row 2 in B, 'dry' on row 3 in D). Type a name for each")

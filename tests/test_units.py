@@ -189,16 +189,20 @@ def test_repeated_header_with_a_unit_is_refused_not_kept_as_an_extra_column():
     frame = pd.DataFrame([[10.0, 12.0]], columns=["bk_depth_in", "bk_depth_in.1"])
     with pytest.raises(InvalidDataError) as err:
         normalise_columns(frame)
-    assert str(err.value) == ("columns 1 and 2 are both named 'bk_depth_in' and map to "
-                              "bk_depth_cm; keep one of them or rename the other")
+    assert str(err.value) == ("columns 1 and 2 are both named 'bk_depth_in' (spreadsheet "
+                              "columns A and B) and map to bk_depth_cm; keep one of them "
+                              "and delete the other, or rename it if it holds another "
+                              "quantity")
 
 
 def test_two_synonyms_keep_their_own_names_in_the_message():
     frame = pd.DataFrame([[10.0, 4.0]], columns=["Depth to Bk (cm)", "bk_depth_in"])
     with pytest.raises(InvalidDataError) as err:
         normalise_columns(frame)
-    assert str(err.value) == ("columns 'Depth to Bk (cm)' and 'bk_depth_in' both map to "
-                              "bk_depth_cm; keep one of them or rename the other")
+    assert str(err.value) == ("columns 'Depth to Bk (cm)' (column 1, A in a spreadsheet) "
+                              "and 'bk_depth_in' (column 2, B) both map to bk_depth_cm; "
+                              "keep one of them and delete the other, or rename it if it "
+                              "holds another quantity")
 
 
 def test_overflowing_conversion_warns_nothing_and_is_a_range_error(tmp_path):
@@ -230,3 +234,22 @@ def test_overflowing_conversion_warns_nothing_and_is_a_range_error(tmp_path):
     assert [(p["rule"], p["row"], p["column"]) for p in errors] == [
         ("range", 2, "bk_depth_cm")]
     assert "holds 1e+308 in" in errors[0]["message"]
+
+
+def test_two_columns_are_named_by_their_place_in_the_file(tmp_path):
+    # an empty, unnamed column B is left out by the reader; the letters still count it, as
+    # a spreadsheet does (E and G, not D and F)
+    from click.testing import CliRunner
+
+    from refit.cli import main
+
+    frame = pd.DataFrame([[1.0, 2.0]], columns=["map_mm", "MAP (mm)"])
+    with pytest.raises(InvalidDataError, match=r"'map_mm' \(column 5, E in a spreadsheet\) "
+                       r"and 'MAP \(mm\)' \(column 7, G\) both map to map_mm"):
+        normalise_columns(frame, positions={"map_mm": 5, "MAP (mm)": 7})
+    path = tmp_path / "t.csv"
+    path.write_text("profile_id,,latitude,longitude,map_mm,source,MAP (mm)\n"
+                    "A,,1,2,3,s,4\n", encoding="utf-8")
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 1, res.output
+    assert "'map_mm' (column 5, E in a spreadsheet) and 'MAP (mm)' (column 7, G)" in res.output
