@@ -77,36 +77,39 @@ def _flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
     lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
     import pandas as pd
 
-    names = list(masks)
+    names = tuple(masks)
     codes = np.zeros(m, dtype=np.int64)
     for i, nm in enumerate(names):
         codes |= masks[nm].astype(np.int64) << i
     present = np.flatnonzero(np.bincount(codes, minlength=1))
+    lookup, dtype = _flag_categories(names, present, sort)
+    # the codes index the categories by construction, so pandas need not check them again
+    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
+
+
+_FLAG_CATEGORIES: dict = {}
+
+
+def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
+    """(code -> category position, Categorical dtype) of the flag combinations present,
+    built once per (names, combinations, order): a handful occur, and building and
+    checking the categories is most of the cost of the flags."""
+    import pandas as pd
+
+    key = (names, present.tobytes(), sort)
+    hit = _FLAG_CATEGORIES.get(key)
+    if hit is not None:
+        return hit
     text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
     if sort:
         order = sorted(range(len(text)), key=text.__getitem__)
         present, text = present[order], [text[i] for i in order]
     lookup = np.zeros(1 << len(names), dtype=np.int64)
     lookup[present] = np.arange(len(present))
-    # the codes index the categories by construction, so pandas need not check them again
-    return pd.Categorical.from_codes(lookup[codes], dtype=_flag_dtype(tuple(text)),
-                                     validate=False)
-
-
-_FLAG_DTYPES: dict = {}
-
-
-def _flag_dtype(text: tuple):
-    """The Categorical dtype of these flag texts, built once per distinct tuple (a handful
-    of combinations occur; building and checking the categories is most of the cost)."""
-    import pandas as pd
-
-    dtype = _FLAG_DTYPES.get(text)
-    if dtype is None:
-        if len(_FLAG_DTYPES) >= 4096:  # bound the cache
-            _FLAG_DTYPES.clear()
-        dtype = _FLAG_DTYPES[text] = pd.CategoricalDtype(categories=list(text))
-    return dtype
+    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
+        _FLAG_CATEGORIES.clear()
+    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
+    return hit
 
 
 _COLUMN_INDEXES: dict = {}

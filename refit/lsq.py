@@ -110,10 +110,11 @@ def _centre_scale(x: np.ndarray, w: np.ndarray | None, intercept: bool):
     """Centre (weighted mean, two passes for accuracy) and scale columns to unit norm."""
     x = np.asfortranarray(x)
     if intercept:
-        if w is None:
-            centre = x.mean(axis=0)
+        if w is None:  # (add.reduce / n is what ndarray.mean computes, without its checks)
+            n = x.shape[0]
+            centre = np.add.reduce(x, axis=0) / n
             xc = x - centre
-            corr = xc.mean(axis=0)  # second pass removes the rounding of the first mean
+            corr = np.add.reduce(xc, axis=0) / n  # second pass: the first mean's rounding
         else:
             sw = w.sum()
             centre = (w @ x) / sw
@@ -260,9 +261,9 @@ def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
     sw = float(n if w is None else w.sum())
     sqw = None if w is None else np.sqrt(w)
     if intercept:
-        ybar = float(np.mean(y) if w is None else (w @ y) / sw)
+        ybar = float(np.add.reduce(y) / n if w is None else (w @ y) / sw)
         yc = y - ybar
-        ybar += float(np.mean(yc) if w is None else (w @ yc) / sw)
+        ybar += float(np.add.reduce(yc) / n if w is None else (w @ yc) / sw)
         yc = y - ybar
     else:
         ybar, yc = 0.0, y
