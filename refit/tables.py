@@ -15,6 +15,12 @@ Two reading modes serve two jobs:
 Row numbers (``Table.source_rows``) are the 1-based rows a spreadsheet shows for the file:
 with the header on row 1, the first data row is row 2. Empty rows are dropped from the frame
 but keep their numbers counted.
+
+A table separated by semicolons, tabs or pipes may write its numbers with a decimal comma
+(``12,5``); :mod:`refit._decimal` decides from every number-looking cell and refuses a table
+that mixes decimal commas and points. A column name used twice, or a column of values
+without a name, is refused naming the columns by position and spreadsheet letter
+(:mod:`refit._headers`). Workbooks and parquet files are opened in :mod:`refit._workbooks`.
 """
 
 from __future__ import annotations
@@ -28,7 +34,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from refit._decimal import decimal_comma_columns, may_hold_comma_numbers, to_decimal_points
+from refit._decimal import decimal_comma_columns, read_typed_with_commas, to_decimal_points
 from refit._headers import blank_columns, column_letter, refuse_repeated
 from refit.errors import UnreadableInputError
 
@@ -312,14 +318,13 @@ def _fast_typed(path, codec, delim, scan, notes) -> Table | None:
         return None
     rows = np.arange(2, len(frame) + 2)
     comma = []
-    if delim != "," and may_hold_comma_numbers(frame):  # read the text, decide, convert
-        text = pd.read_csv(path, sep=delim, encoding=codec, dtype=str,
-                           keep_default_na=False, na_filter=False)
-        text.columns = frame.columns
-        comma, note = decimal_comma_columns(text, rows, path)
+    if delim != ",":  # a decimal comma is possible: look, and read those columns again
+        def read(**kw):
+            return pd.read_csv(path, sep=delim, encoding=codec, **kw)
+
+        frame, comma, note = read_typed_with_commas(frame, read, rows, path)
         if comma:
             notes.append(note)
-            frame = infer_types(to_decimal_points(text, comma))
     empty = frame.iloc[:, 0].isna().to_numpy(copy=True)  # writable (pandas 3 views are not)
     if empty.any():
         empty[empty] = frame.loc[empty].isna().all(axis=1).to_numpy()

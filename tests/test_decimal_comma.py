@@ -117,6 +117,30 @@ def test_mixed_separators_are_refused_with_where_and_how(tmp_path, point_cell, s
     assert err.value.exit_code == 1
 
 
+@pytest.mark.parametrize("as_text", [False, True])
+def test_points_hidden_in_a_column_read_as_numbers_still_count(tmp_path, as_text):
+    # pandas reads '350.0' and '420.0' as the floats 350 and 420, which no longer show
+    # their point; the file still mixes separators
+    rows = [list(r) for r in ROWS]
+    rows[0][4], rows[1][4], rows[2][4] = "350.0", "420.0", ""
+    path = write(tmp_path / "t.csv", rows)
+    assert pd.read_csv(path, sep=";")["map_mm"].tolist()[:2] == [350.0, 420.0]
+    with pytest.raises(InvalidDataError, match=r"e\.g\. row 2, column 'map_mm': '350\.0'"):
+        read_table(path, as_text=as_text)
+
+
+def test_text_among_decimal_commas_is_the_only_cell_reported(tmp_path):
+    rows = [list(r) for r in ROWS]
+    rows[1][4] = "dry"
+    path = write(tmp_path / "t.csv", rows)
+    res = invoke("check", path, "--format", "json")
+    assert res.exit_code == 1, res.output
+    bad = [(p["row"], p["column"], p["value"]) for p in json.loads(res.output)["problems"]
+           if p["rule"] == "not-a-number"]
+    assert bad == [(3, "map_mm", "dry")]
+    assert read_table(path).frame["map_mm"].tolist() == ["350.5", "dry", "1200"]
+
+
 def test_infer_types_equals_the_cell_by_cell_way():
     # the vectorised typing against the per-cell loop it replaced (same rules, written naively)
     missing = ("", "NA", "NaN", "nan", "null")
