@@ -87,11 +87,13 @@ class Evidence:
         self.commas: dict = {}
         self.points: dict = {}
 
-    def scan(self, frame: pd.DataFrame, columns) -> Evidence:
+    def scan(self, frame: pd.DataFrame, columns, *, commas: bool = True,
+             points: bool = True) -> Evidence:
         """Add the evidence of ``columns`` of ``frame`` (text cells; missing = no evidence)."""
+        kinds = [(self.commas, COMMA_NUMBER)] * commas + [(self.points, POINT_NUMBER)] * points
         for name in columns:
             cells = frame[name]
-            for kind, pattern in ((self.commas, COMMA_NUMBER), (self.points, POINT_NUMBER)):
+            for kind, pattern in kinds:
                 mask = matches(cells, pattern)
                 if mask.any():
                     kind[name] = (mask, cells)
@@ -139,7 +141,11 @@ def decimal_comma_columns(text: pd.DataFrame, rows, path) -> tuple[list[str], st
         The table holds numbers written with a decimal comma and numbers written with a
         decimal point (or grouped digits): mixed evidence.
     """
-    return Evidence().scan(text, number_columns(text.columns)).decide(rows, path)
+    columns = number_columns(text.columns)
+    evidence = Evidence().scan(text, columns, points=False)
+    if evidence.commas:  # points only matter beside commas
+        evidence.scan(text, columns, commas=False)
+    return evidence.decide(rows, path)
 
 
 def read_typed_with_commas(frame: pd.DataFrame, read, rows, path):
@@ -160,16 +166,17 @@ def read_typed_with_commas(frame: pd.DataFrame, read, rows, path):
     candidates = number_columns(frame.columns)
     texts = [c for c in candidates if not (pd.api.types.is_numeric_dtype(frame[c])
                                            or pd.api.types.is_bool_dtype(frame[c]))]
-    evidence = Evidence().scan(frame, texts)
+    evidence = Evidence().scan(frame, texts, points=False)
     if not evidence.commas:
         return frame, [], None
+    evidence.scan(frame, texts, commas=False)
     at = {c: j for j, c in enumerate(frame.columns)}
     floats = [c for c in candidates if pd.api.types.is_float_dtype(frame[c])]
     if floats:
         text = read(usecols=[at[c] for c in floats], dtype=str, keep_default_na=False,
                     na_filter=False)
         text.columns = floats
-        evidence.scan(text, floats)
+        evidence.scan(text, floats, commas=False)
     columns, note = evidence.decide(rows, path)
     again = read(usecols=[at[c] for c in columns], decimal=",")
     again.columns = [frame.columns[at[c]] for c in sorted(columns, key=at.get)]
