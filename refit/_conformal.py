@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from refit._linalg import _as_design, _ols, with_one_blas_thread
-from refit._order import kth_in_place as _kth_in_place
+from refit._order import kth_in_place_finite as _kth_in_place
 from refit._order import kth_smallest as _kth_smallest
 from refit._order import rank_lower as _rank_lower
 from refit._order import rank_upper as _rank_upper

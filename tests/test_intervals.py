@@ -124,6 +124,24 @@ def test_fit_predict_jackknife_plus_of_only_missing_values_is_empty_not_an_error
     assert list(p["flags"]) == ["missing-value", "missing-value"]
 
 
+@given(st.integers(min_value=1, max_value=12), st.integers(min_value=1, max_value=30),
+       st.booleans(), st.integers(min_value=0, max_value=2**32 - 1))
+def test_edge_rank_order_statistics_equal_a_full_sort(rows, size, ties, seed):
+    # The band's k-th smallest per row (repeated arg-extremes near either end, partition
+    # elsewhere) must equal column k-1 of numpy.sort, ties included, for every k; out
+    # of range k gives -inf / +inf (the conformal convention of Barber et al. 2021).
+    from refit._order import kth_in_place_finite
+
+    rng = np.random.default_rng(seed)
+    v = (rng.integers(0, 4, size=(rows, size)).astype(float) if ties
+         else rng.normal(size=(rows, size)))
+    ordered = np.sort(v, axis=1)
+    for k in range(1, size + 1):
+        assert np.array_equal(kth_in_place_finite(v.copy(), k), ordered[:, k - 1])
+    assert np.isneginf(kth_in_place_finite(v.copy(), 0)).all()
+    assert np.isposinf(kth_in_place_finite(v.copy(), size + 1)).all()
+
+
 def test_jackknife_plus_is_unbounded_when_too_few_rows_for_the_level():
     # n = 18, alpha = 0.05: floor(0.05 * 19) = 0 -> lower = -inf, ceil(0.95 * 19) = 19 > 18.
     X, y = quadratic_problem(18, 3)
