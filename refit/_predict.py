@@ -113,23 +113,52 @@ def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
 
 
 _COLUMN_INDEXES: dict = {}
+_BLOCK_KINDS = "fiub"   # numpy kinds stored as 2-D blocks: float, int, unsigned, bool
 
 
-def result_frame(names: tuple, arrays, index=None):
-    """A DataFrame of ``arrays`` (fresh arrays, taken without a copy) named ``names``.
-
-    Every table with the same names shares one column Index, built once: pandas builds
-    the look-up table of a string Index on the first column read, which cost more than
-    the rest of a small prediction; a shared Index keeps its table.
-    """
+def _blocks(columns):
+    """pandas blocks of the columns: each numpy dtype stacked into one 2-D array (rows =
+    columns), each Categorical on its own; None when a column needs pandas' inference
+    (e.g. object arrays of text, which become the string dtype)."""
     import pandas as pd
 
-    columns = _COLUMN_INDEXES.get(names)
-    if columns is None:
-        columns = _COLUMN_INDEXES[names] = pd.Index(list(names))
-    frame = pd.DataFrame(dict(enumerate(arrays)), index=index, copy=False)
-    frame.columns = columns
-    return frame
+    groups: dict = {}
+    blocks = []
+    for j, col in enumerate(columns):
+        if isinstance(col, pd.Categorical):
+            blocks.append((col, np.array([j])))
+        elif isinstance(col, np.ndarray) and col.ndim == 1 and col.dtype.kind in _BLOCK_KINDS:
+            groups.setdefault(col.dtype, []).append(j)
+        else:
+            return None
+    for place in groups.values():
+        blocks.append((np.stack([columns[j] for j in place]), np.array(place)))
+    return blocks
+
+
+def result_frame(names: tuple, columns, index=None):
+    """A DataFrame of the 1-D ``columns`` (copied into fresh blocks) named ``names``.
+
+    Numeric columns and Categoricals go straight into pandas blocks
+    (``pandas.api.internals.create_dataframe_from_blocks``: no per-column checks, which
+    cost more than a small prediction); other columns through ``pandas.DataFrame``.
+    Every table with the same names shares one column Index, built once: pandas builds
+    the look-up table of a string Index on the first column read, and a shared Index
+    keeps it.
+    """
+    import pandas as pd
+    from pandas.api.internals import create_dataframe_from_blocks
+
+    labels = _COLUMN_INDEXES.get(names)
+    if labels is None:
+        labels = _COLUMN_INDEXES[names] = pd.Index(list(names))
+    blocks = _blocks(columns)
+    if blocks is None:
+        frame = pd.DataFrame(dict(enumerate(columns)), index=index)
+        frame.columns = labels
+        return frame
+    index = pd.RangeIndex(len(columns[0])) if index is None else index
+    return create_dataframe_from_blocks(blocks, index=index, columns=labels)
 
 
 def _analytic_band(fit, X0, eta, w0, level):
@@ -285,8 +314,4 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
         est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
     else:
         est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
-    # one fresh block for the three numbers (the caller's arrays may alias each other),
-    # handed to pandas without a second copy
-    values = np.empty((3, m))
-    values[0], values[1], values[2] = est, lo, hi
-    return result_frame(_PREDICTION_COLUMNS, (*values, flags), index)
+    return result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)

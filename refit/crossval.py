@@ -396,11 +396,6 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     ids = (frame["profile_id"].to_numpy()[rows] if "profile_id" in frame.columns
            else labels[rows])
     obs = arrays[candidate.response][rows]
-    # every column a fresh array of its own (estimate and limits copied into one block:
-    # the limits of interval 'none' are one array), so pandas need not copy them again
-    num = np.empty((3, len(rows)))
-    num[0], num[1], num[2] = est, lo, hi
-    est, lo, hi = num
     pred = result_frame(PREDICTION_COLUMNS,
                         (rows, ids, repeat, fold, obs, est, lo, hi, flags))
     if candidate.interval in _CONFORMAL:
