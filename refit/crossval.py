@@ -27,7 +27,7 @@ import numpy as np
 from ._fit_inputs import _as_frame
 from .errors import InvalidDataError, RefitError, UsageError
 from .splits import (BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, Scheme, Split,  # noqa: F401
-                     Splits, _blas, _loo_details, group_codes, make_splits, project_km,
+                     Splits, _loo_details, group_codes, make_splits, project_km,
                      spatial_blocks)
 
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
