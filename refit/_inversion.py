@@ -29,15 +29,28 @@ INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
 
 #: grid nodes over the search window on which the band's sign changes are located
 GRID_POINTS = 257
+#: rows from which the node search builds exact per-node thresholds instead of comparing
+#: every row with every node
+THRESHOLD_ROWS = 2_048
 _MAX_STEPS = 100
 
 
-def _rescale(poly: np.ndarray, c: float, h: float) -> np.ndarray:
-    """Coefficients of ``p(c + h u)`` in increasing powers of ``u``."""
-    from numpy.polynomial import Polynomial
+def _power_basis(k1: int, c: float, h: float) -> np.ndarray:
+    """``m`` with ``x^j = sum_i m[j, i] u^i`` for ``x = c + h u``, ``j, i < k1``:
+    ``m[j, i] = C(j, i) c^(j-i) h^i`` (binomial expansion)."""
+    from math import comb
 
-    out = Polynomial(poly)(Polynomial([c, h])).coef
-    return np.pad(out, (0, max(0, len(poly) - len(out))))
+    m = np.zeros((k1, k1))
+    for j in range(k1):
+        for i in range(j + 1):
+            m[j, i] = comb(j, i) * c ** (j - i) * h ** i
+    return m
+
+
+def _rescale(poly: np.ndarray, c: float, h: float) -> np.ndarray:
+    """Coefficients of ``p(c + h u)`` in increasing powers of ``u`` (same length)."""
+    poly = np.asarray(poly, float)
+    return poly @ _power_basis(len(poly), c, h)
 
 
 def _real_roots(poly_u: np.ndarray) -> np.ndarray:
@@ -290,8 +303,7 @@ class PolyBand:
 
     def __init__(self, br: Branches, cov, t):
         k1 = cov.shape[0]
-        # x^j = sum_i m[j, i] u^i: the powers of x in the basis of u
-        m = np.array([_rescale(np.eye(k1)[j], br.c, br.h)[:k1] for j in range(k1)])
+        m = _power_basis(k1, br.c, br.h)    # the powers of x in the basis of u
         vu = m.T @ np.asarray(cov, float) @ m
         i, j = np.indices((k1, k1))
         qu = np.zeros(2 * k1 - 1)
@@ -372,11 +384,13 @@ class GridSearch:
     """The band on the shared grid, prepared once for all rows of a call.
 
     ``s2_shared``: the one new-observation variance of every row, or None when rows
-    differ. With one variance the nearest outside nodes come from exact per-node
-    thresholds (:class:`refit._bandgrid.BandNodes`: the same comparisons as the
-    (grid x rows) matrix, without building it); otherwise from that matrix."""
+    differ. With one variance and at least :data:`THRESHOLD_ROWS` rows the nearest
+    outside nodes come from exact per-node thresholds (:class:`refit._bandgrid.BandNodes`:
+    the same comparisons as the (grid x rows) matrix, without building it); otherwise from
+    that matrix (cheaper than building the thresholds for a few rows). Both give the same
+    nodes, so the choice never changes a number."""
 
-    def __init__(self, band: PolyBand, window_u, s2_shared):
+    def __init__(self, band: PolyBand, window_u, s2_shared, n_rows: int):
         grid = _band_grid(band.br, window_u)
         self.grid, self.band = grid, band
         # the evenly spaced nodes (np.linspace: first and last exact) and the turning
@@ -385,14 +399,13 @@ class GridSearch:
         self.extra = np.setdiff1d(grid, self.even)
         self.fg, self.qg = band.on_grid(grid)
         self.nodes = None
-        if s2_shared is not None:
-            r = band.t * np.sqrt(s2_shared + self.qg)
-            self.r = r
-            if np.all(np.isfinite(self.fg) & np.isfinite(r)):
+        self.shared = s2_shared is not None
+        if self.shared:
+            self.r = band.t * np.sqrt(s2_shared + self.qg)
+            if n_rows >= THRESHOLD_ROWS and np.all(np.isfinite(self.fg) & np.isfinite(self.r)):
                 from ._bandgrid import BandNodes
 
-                self.nodes = BandNodes(self.fg, r)
-        self.shared = s2_shared is not None
+                self.nodes = BandNodes(self.fg, self.r)
 
     def count_up_to(self, u):
         """Number of grid nodes ``<= u`` for finite ``u`` (``searchsorted(grid, u,

@@ -188,7 +188,7 @@ def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
     shared = not ok_all.any() or np.ptp(s2[ok_all]) == 0  # one new-observation variance
     band = PolyBand(br, np.asarray(cov, float), t)
     search = GridSearch(band, window_u,
-                        float(s2[np.argmax(ok_all)]) if shared and m else None)
+                        float(s2[np.argmax(ok_all)]) if shared and m else None, m)
     est, lower, upper = np.full(m, np.nan), np.full(m, np.nan), np.full(m, np.nan)
     masks = {nm: np.zeros(m, dtype=bool) for nm in POLYNOMIAL_FLAG_ORDER}
 

@@ -437,10 +437,29 @@ def test_grid_node_counts_equal_numpy_searchsorted():
     br = branch_layout(np.array([1.0, 0.3, 2.0]), (-1.0, 3.0))
     assert len(br.turning) == 1
     window_u = (-1.7, 1.9)
-    search = GridSearch(PolyBand(br, np.eye(3) * 1e-3, 2.0), window_u, 0.5)
+    search = GridSearch(PolyBand(br, np.eye(3) * 1e-3, 2.0), window_u, 0.5, 10)
     grid = search.grid
     assert len(search.extra) == 1 and br.turning[0] in grid
     u = np.concatenate([grid, np.nextafter(grid, np.inf), np.nextafter(grid, -np.inf),
                         np.random.default_rng(3).uniform(*window_u, 5_000)])
     u = u[(u >= window_u[0]) & (u <= window_u[1])]
     np.testing.assert_array_equal(search.count_up_to(u), np.searchsorted(grid, u, "right"))
+
+
+def test_threshold_and_matrix_node_searches_give_the_same_numbers(monkeypatch):
+    # Few rows compare every row with every grid node; many rows use the exact per-node
+    # thresholds (refit._bandgrid). Forcing either path on the same 400 values of the NIST
+    # Pontius forward quadratic (outside reference data, as above) must give identical
+    # estimates, limits and flags.
+    import refit._inversion as inv
+
+    f = fit(strd("Pontius"), response="x", predictors="y", form="quadratic",
+            direction="forward")
+    y = np.random.default_rng(9).uniform(-0.5, 4.0, 400)
+    monkeypatch.setattr(inv, "THRESHOLD_ROWS", 0)
+    thresholds = f.predict(y)
+    monkeypatch.setattr(inv, "THRESHOLD_ROWS", 10**9)
+    matrix = f.predict(y)
+    pd.testing.assert_frame_equal(thresholds, matrix, check_exact=True)
+    assert thresholds["lower"].notna().sum() > 300  # intervals were found
+    assert thresholds["flags"].str.contains("outside-calibration-range").any()
