@@ -137,14 +137,25 @@ def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: in
     from .fitting import fit
 
     tr, te = split.train_idx, split.test_idx
-    train = pd.DataFrame({k: v[tr] for k, v in arrays.items()}, index=labels[tr], copy=False)
-    try:
-        f = fit(train, c.response, list(c.predictors), **_fit_kwargs(c, level))
-        out = f.predict(pd.DataFrame({p: arrays[p][te] for p in c.predictors}), level=level,
-                        interval=c.interval, seed=_fold_seed(seed, split.repeat, split.fold))
-    except RefitError as err:
-        raise type(err)(f"{c.label}, repeat {split.repeat + 1} fold {split.fold + 1} "
-                        f"({len(tr)} training rows): {err}") from err
+    kwargs = _fit_kwargs(c, level)
+    test = np.column_stack([arrays[p][te] for p in c.predictors])
+    try:  # plain arrays: no table per fold (the same numbers as through a DataFrame)
+        f = fit({k: v[tr] for k, v in arrays.items()}, c.response, list(c.predictors),
+                **kwargs)
+        out = f.predict(test, level=level, interval=c.interval,
+                        seed=_fold_seed(seed, split.repeat, split.fold))
+    except RefitError:
+        # again through a table indexed by the records' labels, so the message names them
+        train = pd.DataFrame({k: v[tr] for k, v in arrays.items()}, index=labels[tr],
+                             copy=False)
+        try:
+            f = fit(train, c.response, list(c.predictors), **kwargs)
+            f.predict(test, level=level, interval=c.interval,
+                      seed=_fold_seed(seed, split.repeat, split.fold))
+        except RefitError as err:
+            raise type(err)(f"{c.label}, repeat {split.repeat + 1} fold {split.fold + 1} "
+                            f"({len(tr)} training rows): {err}") from err
+        raise
     return (out["estimate"].to_numpy(float), out["lower"].to_numpy(float),
             out["upper"].to_numpy(float), np.asarray(out["flags"], dtype=object))
 

@@ -440,3 +440,21 @@ def test_loo_turning_point_flags_on_a_balanced_design():
                           splits=make_splits(frame, Scheme("loo"))).predictions
     assert list(fast["flags"]) == list(slow.sort_values("row")["flags"])
     assert (fast["flags"] == "beyond-turning-point").sum() >= 10
+
+
+def test_an_error_inside_a_fold_names_the_candidate_fold_and_record():
+    # A quadratic through three distinct x values interpolates a value seen once, so that
+    # record's leverage is exactly 1 (hat-matrix algebra: h_ii = 1 when the row alone fixes
+    # a coefficient) and its leave-one-out fit does not exist. Leaving out group D leaves
+    # x in {1, 2, 3} with 3 once: that fold must fail with the fold and the reason.
+    rng = np.random.default_rng(1)
+    x = np.r_[np.full(5, 1.0), np.full(5, 2.0), [3.0], np.full(5, 4.0)]
+    frame = pd.DataFrame({"profile_id": [f"P-{i:02d}" for i in range(16)],
+                          "bk_depth_cm": x * 20, "source": list("AAAAABBBBBCDDDDD"),
+                          "map_mm": 300 + 50 * x + rng.normal(0, 5, 16)})
+    cand = Candidate("map_mm", ("bk_depth_cm",), form="quadratic", interval="jackknife+")
+    with pytest.raises(InvalidDataError) as err:
+        cross_validate(frame, cand, Scheme("group-kfold", folds=4, groups="source"))
+    text = str(err.value)
+    assert text.startswith("quadratic/ols/inverse/jackknife+, repeat 1 fold ")
+    assert "(11 training rows)" in text and "leverage 1" in text
