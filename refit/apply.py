@@ -446,7 +446,7 @@ def _row_flags(rec: dict, predicted: str, fossil_row) -> tuple[list[str], list[s
     details = list(details)
     if method == "published":
         flags.append(FLAG_PUBLISHED)
-        details.append("the interval is the published +- (one standard error of the "
+        details.append("the interval is the published ± (one standard error of the "
                        "regression), not a prediction interval")
     if method == "none":
         flags.append(FLAG_NO_INTERVAL)

@@ -83,7 +83,7 @@ def coverage_text(coverage, scheme, level, interval) -> str:
     """What is printed beside an interval: the cross-validated coverage, or why none."""
     if coverage is None or (isinstance(coverage, float) and math.isnan(coverage)):
         if interval == "published" or str(interval).startswith("+-"):
-            return "no cross-validation (interval = published +-1 SE)"
+            return "no cross-validation (interval = published ±1 SE)"
         return "no cross-validation" + (" (no interval given)" if interval == "none" else "")
     nominal = "" if level is None or pd.isna(level) else f" of {float(level):.0%}"
     return f"CV coverage {float(coverage):.0%}{nominal}" + (f" ({scheme})" if scheme else "")

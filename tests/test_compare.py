@@ -35,7 +35,7 @@ def test_coverage_text():
     assert coverage_text(0.8823, "group-kfold", 0.95, "candidate") == \
         "CV coverage 88% of 95% (group-kfold)"
     assert coverage_text(None, "", None, "published") == \
-        "no cross-validation (interval = published +-1 SE)"
+        "no cross-validation (interval = published ±1 SE)"
     assert coverage_text(None, "", None, "none") == "no cross-validation (no interval given)"
 
 

@@ -114,7 +114,7 @@ def print_results(results, console) -> None:
         table.add_column(col, justify="right" if col in ("estimate", "level") else "left")
     for r in results.itertuples(index=False):
         fit = f"{r.function_id} {r.version} {r.candidate or r.status}".strip()
-        level = "+-1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
+        level = "±1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
             else _num(r.level)
         cov = f"{r.cv_coverage:.0%}" if isinstance(r.cv_coverage, (int, float)) and \
             r.cv_coverage == r.cv_coverage else "-"
