@@ -36,7 +36,9 @@ FLAG_CROSS = "quantiles-cross"
 FLAG_UNBOUNDED = "unbounded"
 FLAG_OUTSIDE = "outside-calibration-range"
 FLAG_BEYOND_TP = "beyond-turning-point"
-INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_BEYOND_TP)
+FLAG_APPROX = "approximate-interval"
+INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_APPROX,
+                      FLAG_BEYOND_TP)
 
 
 # ----------------------------------------------------------------------------- terms
@@ -122,6 +124,7 @@ def analytic_band(rec: dict, X0, eta, w0, level):
     if s is None or not np.all(np.isfinite(cov)):
         raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
                          "covariance, so there is no analytic interval")
+    s = rec["interval"].get("prediction_sd") or s  # Theil-Sen: the RMS residual
     q = np.einsum("ij,jk,ik->i", X0, cov, X0)
     t = t_quantile(level, float(rec["df_resid"]), rec["interval"])
     half = t * np.sqrt(s * s / w0 + q)
@@ -276,6 +279,8 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     for j, (lo_r, hi_r) in enumerate(_ranges(rec).values()):
         out |= extrapolation_mask(v[:, j], lo_r, hi_r)
     masks[FLAG_OUTSIDE] = out
+    if method == "analytic" and iv.get("approximate"):
+        masks[FLAG_APPROX] = ok
     dom = rec.get("domain") or {}
     if rec.get("degree") == 2 and v.shape[1] == 1 and dom.get("turning_point") is not None:
         with np.errstate(invalid="ignore"):

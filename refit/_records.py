@@ -67,8 +67,15 @@ def _analytic(fit, level: float) -> dict:
                           "band b(x) +- t_quantile sqrt(residual_std_error^2 + g(x)' "
                           "covariance g(x)) contains the measured feature")
     else:
-        out["rebuild"] = ("estimate +- t_quantile sqrt(residual_std_error^2 + x0' "
-                          "covariance x0), x0 the terms at the new value")
+        res = fit._filled()
+        sd = res.details.get("prediction_sd")
+        if sd is not None:  # Theil-Sen: the RMS residual, not the robust scale
+            out["prediction_sd"] = float(sd)
+        if res.details.get("approximate_interval"):
+            out["approximate"] = True
+        out["rebuild"] = ("estimate +- t_quantile sqrt(s^2 + x0' covariance x0), s = "
+                          "prediction_sd if given, else residual_std_error; x0 the terms "
+                          "at the new value")
     return out
 
 
@@ -193,9 +200,9 @@ def build_record(fit, *, function_id, provenance, cv, interval_method, level, se
     from .coefficients import CAUTION, SCHEMA_VERSION, column_units
 
     units = column_units()
-    # forward fits: Theil-Sen's bootstrap covariance and new-observation SD, as
-    # Fit.predict draws them, so the file reproduces it
-    res = fit._filled() if fit.direction == "forward" else fit.result
+    # Theil-Sen's bootstrap covariance and new-observation SD, as Fit.predict draws them,
+    # so the file reproduces it (other estimators: the result as it is)
+    res = fit._filled()
     dom = _domain(fit)
     return {
         "schema_version": SCHEMA_VERSION, "function_id": function_id, "version": version,

@@ -32,7 +32,7 @@ import numpy as np
 
 from .errors import InvalidDataError, UnreadableInputError, UsageError
 
-SCHEMA_VERSION = "1.0.0"
+SCHEMA_VERSION = "1.1.0"
 CANDIDATE_VERSION = "0.0.0-candidate"
 SCHEMA_FILE = "coefficients.schema.json"
 CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "

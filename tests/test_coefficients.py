@@ -143,7 +143,7 @@ def test_hash_is_of_canonical_content(table, tmp_path):
     text = json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
     assert rec["sha256"] == hashlib.sha256(text.encode("utf-8")).hexdigest()
     assert canonical_bytes(rec) == text.encode("utf-8")
-    assert rec["schema_version"] == SCHEMA_VERSION == "1.0.0"
+    assert rec["schema_version"] == SCHEMA_VERSION == "1.1.0"
     for key in ("function_id", "version", "created", "response", "predictors", "direction",
                 "form", "estimator", "terms", "coefficients", "covariance",
                 "residual_std_error", "df_resid", "n", "r_squared", "interval", "cv",
@@ -280,6 +280,22 @@ def test_forward_theil_sen_file_reproduces_the_approximate_interval(dry_table, t
     inv = read_record(path)["interval"]["inversion"]
     assert inv["approximate"] is True
     assert inv["prediction_sd"] != pytest.approx(read_record(path)["residual_std_error"])
+
+
+def test_inverse_theil_sen_file_reproduces_the_approximate_interval(dry_table, tmp_path):
+    # Reference: Fit.predict of a Theil-Sen inverse line (bootstrap covariance, RMS
+    # residual as the new observation's SD, 'approximate-interval' flag); the file must
+    # give the same estimate, limits and flags to 1e-9 (it used to carry no covariance).
+    f = fit(dry_table, "map_mm", ["bk_depth_cm"], form="linear", estimator="theil-sen")
+    path = _record(f, "analytic", tmp_path)
+    v = np.array([5.0, 20.0, 60.0, 150.0, np.nan])
+    a = f.predict(v)
+    assert a["flags"].iloc[1] == "approximate-interval"
+    b = load(path).predict(v)
+    _same(a, b)
+    iv = read_record(path)["interval"]
+    assert iv["approximate"] is True
+    assert iv["prediction_sd"] != pytest.approx(read_record(path)["residual_std_error"])
 
 
 def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch):
