@@ -19,24 +19,18 @@ quantile for a level other than the file's own comes from scipy, imported only t
 
 from __future__ import annotations
 
-
 import numpy as np
 
+from ._flagcodes import FLAG_APPROX, FLAG_CROSS, FLAG_INVALID, FLAG_MISSING  # noqa: F401
+from ._flagcodes import bit_codes, joined_names, text_by_code
+from ._inversion import FLAG_BEYOND_TP, FLAG_OUTSIDE, FLAG_UNBOUNDED
 from ._order import kth_in_place as _kth_in_place
 from ._order import kth_smallest, rank_lower as _rank_lower
 from ._order import rank_upper as _rank_upper
-from ._flagcodes import bit_codes, joined_names, text_by_code
 from ._threads import on_threads
 from .domain import extrapolation_mask
 from .errors import InvalidDataError, UsageError
 
-FLAG_MISSING = "missing-value"
-FLAG_INVALID = "invalid-value"
-FLAG_CROSS = "quantiles-cross"
-FLAG_UNBOUNDED = "unbounded"
-FLAG_OUTSIDE = "outside-calibration-range"
-FLAG_BEYOND_TP = "beyond-turning-point"
-FLAG_APPROX = "approximate-interval"
 INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_APPROX,
                       FLAG_BEYOND_TP)
 
@@ -256,6 +250,62 @@ def _ranges(rec: dict) -> dict:
     return {p["name"]: (p.get("valid_min"), p.get("valid_max")) for p in rec["predictors"]}
 
 
+def inverse_finish(eta, lo, hi, v, *, ok, method: str, ranges, approximate: bool, turning,
+                   log_response: bool, smearing: float):
+    """The flags and the back-transform of an inverse prediction, shared by ``Fit.predict``
+    (:mod:`refit._predict`) and the file evaluator, once the band is known.
+
+    Parameters
+    ----------
+    eta, lo, hi : ndarray
+        Estimate and limits on the equation's scale.
+    v : ndarray, shape (m, k)
+        The predictor values.
+    ok : ndarray of bool
+        Rows with every value present.
+    method : str
+        The interval method (``quantile`` may cross; resampled limits may be unbounded).
+    ranges : list of (float or None, float or None)
+        Calibration range of each predictor, in the columns' order.
+    approximate : bool
+        Flag rows with a value ``approximate-interval``.
+    turning : (float or None, int) or None
+        For a quadratic in one predictor: its turning point (None: not in the data's
+        reach) and the side holding the data; None for other forms (no such flag).
+    log_response, smearing : bool, float
+        The equation models ln(response): exponentiate, the estimate times Duan's
+        smearing factor for the analytic, none and published intervals.
+
+    Returns
+    -------
+    eta, lo, hi : ndarray
+        In the response's units.
+    masks : dict
+        Flag name -> boolean mask, in :data:`INVERSE_FLAG_ORDER`.
+    """
+    m = v.shape[0]
+    masks = {FLAG_MISSING: ~ok}
+    if method == "quantile":
+        masks[FLAG_CROSS] = lo > hi
+    elif method not in ("analytic", "none", "published"):
+        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
+    out = np.zeros(m, dtype=bool)
+    for j, (lo_r, hi_r) in enumerate(ranges):
+        out |= extrapolation_mask(v[:, j], lo_r, hi_r)
+    masks[FLAG_OUTSIDE] = out
+    if approximate:
+        masks[FLAG_APPROX] = ok
+    if turning is not None:
+        tp, side = turning
+        with np.errstate(invalid="ignore"):
+            masks[FLAG_BEYOND_TP] = (np.zeros(m, dtype=bool) if tp is None
+                                     else (v[:, 0] - tp) * side < 0)
+    if log_response:
+        smear = smearing if method in ("analytic", "none", "published") else 1.0
+        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    return eta, lo, hi, masks
+
+
 def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     """Inverse direction (climate on feature): estimate, lower, upper, flags."""
     eq = rec["equation"]
@@ -266,31 +316,19 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     X0 = design_rows(rec["terms"], eq["x"], v)
     eta = X0 @ np.asarray(rec["coefficients"], float)
     lo = hi = np.full(m, np.nan)
-    masks = {FLAG_MISSING: ~ok}
     if method == "analytic":
         lo, hi = analytic_band(rec, X0, eta, w0, level)
     elif method == "quantile":
         lo, hi = quantile_band(iv, X0, level)
-        masks[FLAG_CROSS] = lo > hi
     elif method not in ("none", "published"):
         eta, lo, hi = resampled_band(iv, X0, ok, w0, level)
-        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
-    out = np.zeros(m, dtype=bool)
-    for j, (lo_r, hi_r) in enumerate(_ranges(rec).values()):
-        out |= extrapolation_mask(v[:, j], lo_r, hi_r)
-    masks[FLAG_OUTSIDE] = out
-    if method == "analytic" and iv.get("approximate"):
-        masks[FLAG_APPROX] = ok
     dom = rec.get("domain") or {}
-    if rec.get("degree") == 2 and v.shape[1] == 1 and dom.get("turning_point") is not None:
-        with np.errstate(invalid="ignore"):
-            masks[FLAG_BEYOND_TP] = (v[:, 0] - dom["turning_point"]) * dom["data_side"] < 0
-    elif rec.get("degree") == 2 and v.shape[1] == 1:
-        masks[FLAG_BEYOND_TP] = np.zeros(m, dtype=bool)
-    if eq["scale"] == "log":
-        smear = (float(eq.get("smearing") or 1.0)
-                 if method in ("analytic", "none", "published") else 1.0)
-        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    turning = ((dom.get("turning_point"), dom.get("data_side"))
+               if rec.get("degree") == 2 and v.shape[1] == 1 else None)
+    eta, lo, hi, masks = inverse_finish(
+        eta, lo, hi, v, ok=ok, method=method, ranges=list(_ranges(rec).values()),
+        approximate=method == "analytic" and bool(iv.get("approximate")), turning=turning,
+        log_response=eq["scale"] == "log", smearing=float(eq.get("smearing") or 1.0))
     if method == "published":  # the +- figure is in the response's own units
         lo, hi = published_band(iv, eta)
     return eta, lo, hi, flag_strings(masks, INVERSE_FLAG_ORDER, m)

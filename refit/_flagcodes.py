@@ -10,6 +10,13 @@ from __future__ import annotations
 
 import numpy as np
 
+#: flag names shared by the prediction paths (the inversion's own flags live in
+#: :mod:`refit._inversion`)
+FLAG_MISSING = "missing-value"
+FLAG_INVALID = "invalid-value"
+FLAG_APPROX = "approximate-interval"
+FLAG_CROSS = "quantiles-cross"
+
 
 def bit_codes(masks, m: int) -> np.ndarray:
     """One int64 code per row: bit ``i`` set where ``masks[i]`` is true."""

@@ -14,11 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import calibrate as cal
-from ._flagcodes import bit_codes, text_by_code
-
-FLAG_MISSING = "missing-value"
-FLAG_INVALID = "invalid-value"
-FLAG_APPROX = "approximate-interval"
+from ._flagcodes import FLAG_APPROX, FLAG_INVALID, FLAG_MISSING, bit_codes, text_by_code
 
 
 def _model_scale(values, log_response: bool):

@@ -9,12 +9,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from .calibrate import FLAG_BEYOND_TP, FLAG_OUTSIDE, FLAG_UNBOUNDED
-
-FLAG_MISSING = "missing-value"
-FLAG_INVALID = "invalid-value"
-FLAG_CROSS = "quantiles-cross"
-FLAG_APPROX = "approximate-interval"
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
 
 
@@ -238,33 +232,29 @@ def _quantile_band(fit, X0, level):
 
 
 def _predict_inverse(fit, v, level, interval, w0, opts):
-    from .domain import beyond_turning_mask, extrapolation_mask
+    from ._evaluate import inverse_finish
 
     m = v.shape[0]
     ok = ~np.isnan(v).any(axis=1)
     X0 = fit.form.design(v)
     eta = X0 @ fit.result.coefficients
     lo = hi = np.full(m, np.nan)
-    masks = {FLAG_MISSING: ~ok}
     if interval == "analytic":
         lo, hi = _analytic_band(fit, X0, eta, w0, level)
     elif interval == "quantile":
         lo, hi = _quantile_band(fit, X0, level)
-        masks[FLAG_CROSS] = lo > hi
     elif interval != "none":
         eta, lo, hi = _resampled_band(fit, X0, eta, ok, w0, level, interval, opts)
-        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
-    out = np.full(m, False)
-    for j, name in enumerate(fit.x_names):
-        out |= extrapolation_mask(v[:, j], *fit.ranges[name])
-    masks[FLAG_OUTSIDE] = out
-    if interval == "analytic" and fit.result.details.get("approximate_interval"):
-        masks[FLAG_APPROX] = ok
+    turning = None
     if fit.form.degree == 2 and v.shape[1] == 1:
-        masks[FLAG_BEYOND_TP] = beyond_turning_mask(v[:, 0], fit._core_domain())
-    if fit.form.log_response:
-        smear = fit.smearing if interval in ("analytic", "none") else 1.0
-        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+        dom = fit._core_domain()
+        turning = (dom.turning_point, dom.data_side)
+    eta, lo, hi, masks = inverse_finish(
+        eta, lo, hi, v, ok=ok, method=interval,
+        ranges=[fit.ranges[name] for name in fit.x_names],
+        approximate=interval == "analytic" and bool(
+            fit.result.details.get("approximate_interval")),
+        turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
     return eta, lo, hi, _flag_strings(masks, m)
 
 
