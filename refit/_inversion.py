@@ -138,22 +138,22 @@ def _extremum_start(pu, y0, turning, counts):
     return turning[j], branch
 
 
-def _refine(band, a, b, rows):
-    """Sign change of the band between ``a`` (band <= 0) and ``b`` (band > 0), per row.
+def _refine(band, a, b, rows, x0):
+    """Sign change of the band between ``a`` (band <= 0) and ``b`` (band > 0), per row,
+    from the first iterate ``x0`` (inside the bracket).
 
-    Safeguarded Newton on the band polynomial (:class:`PolyBand`), all rows at once: the
-    first iterate is the false-position point of the bracket; a step that leaves the
-    current bracket is replaced by bisection (as in ``rtsafe``, Press et al. 2007,
-    Numerical Recipes 3rd ed., section 9.4; from memory). The bracket shrinks with every
-    evaluation, so a tangent crossing still converges. A row stops when the step or the
-    bracket is below 1e-14 max(1, |u|) or the band is exactly zero; each row's steps
-    depend on that row alone."""
-    a, b = a.astype(float), b.astype(float)
-    fa, fb = band.value(a, rows), band.value(b, rows)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        x = (a * fb - b * fa) / (fb - fa)
+    Safeguarded Newton on the band polynomial (:class:`PolyBand`), all rows at once; a
+    step that leaves the current bracket is replaced by bisection (as in ``rtsafe``,
+    Press et al. 2007, Numerical Recipes 3rd ed., section 9.4; from memory). The bracket
+    shrinks with every evaluation, so a tangent crossing still converges. A row stops when
+    the step or the bracket is below 1e-14 max(1, |u|), the band is exactly zero, or two
+    Newton steps in a row show quadratic convergence that leaves an error below that
+    bound: with ``e_(k+1) ~ K e_k^2`` and ``K ~ |step_k| / step_(k-1)^2``, the error after
+    step k is about ``|step_k|^3 / step_(k-1)^2`` (the usual a-posteriori estimate). Each
+    row's steps depend on that row alone."""
+    a, b, x = a.astype(float), b.astype(float), np.asarray(x0, float).copy()
     lo, hi = np.minimum(a, b), np.maximum(a, b)
-    x = np.where((x > lo) & (x < hi), x, 0.5 * (a + b))
+    prev = np.full(len(x), np.nan)    # the previous Newton step (NaN: none, or bisection)
     out = np.full(len(x), np.nan)
     pos = np.arange(len(x))  # where the working rows go in ``out``
     for _ in range(_MAX_STEPS):
@@ -163,34 +163,43 @@ def _refine(band, a, b, rows):
         np.copyto(b, x, where=~inside)
         np.minimum(a, b, out=lo)
         np.maximum(a, b, out=hi)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             step = f / d
-        tol = 1e-14 * np.maximum(1.0, np.abs(x))
-        done = (f == 0) | (np.abs(step) <= tol) | (hi - lo <= tol)
+            size = np.abs(step)
+            tol = 1e-14 * np.maximum(1.0, np.abs(x))
+            fast = (size <= 1e-6 * np.maximum(1.0, np.abs(x))) & \
+                (size * size * size <= tol * prev * prev)
+        done = (f == 0) | (size <= tol) | (hi - lo <= tol) | fast
         xn = x - step
         np.copyto(xn, x, where=f == 0)
-        np.copyto(xn, 0.5 * (lo + hi), where=~(((xn >= lo) & (xn <= hi)) | done))
+        newton = ((xn >= lo) & (xn <= hi)) | done
+        np.copyto(xn, 0.5 * (lo + hi), where=~newton)
+        prev = np.where(newton, size, np.nan)
         if done.all():
             out[pos] = xn
             break
         if done.any():
             out[pos[done]] = xn[done]
             keep = ~done
-            x, a, b, lo, hi, rows, pos = (v[keep] for v in (xn, a, b, lo, hi, rows, pos))
+            x, a, b, lo, hi, rows, pos, prev = (
+                v[keep] for v in (xn, a, b, lo, hi, rows, pos, prev))
         else:
             x = xn
     return out
 
 
-def _crossings(band, rows, grid, nodes, start, lo, hi):
+def _crossings(band, rows, search, nodes, start, lo, hi):
     """Nearest band crossing on each side of ``start`` within [lo, hi], for the rows
-    ``rows`` of ``band`` (a :class:`PolyBand`) at once.
+    ``rows`` of ``band`` (a :class:`PolyBand` bound to a block) at once.
 
     ``nodes = (j_dn, j_up)``: for each row the last grid node below ``start`` and the first
     above it where the row lies outside the band (-1 / ``len(grid)`` when none, from
-    :meth:`GridSearch.outside_nodes`); they bracket the crossings, refined by :func:`_refine`.
+    :meth:`GridSearch.outside_nodes`); they bracket the crossings, refined by
+    :func:`_refine` from the false-position point between the outside node and its inner
+    neighbour (band values at the nodes from the grid tables, :meth:`GridSearch.at_node`).
     Returns (lower, upper, open_below, open_above); a side with no outside node inside
     [lo, hi] is open and its limit is the window edge."""
+    grid = search.grid
     n_grid = len(grid)
     j_dn, j_up = nodes
     j_up = np.where((j_up < n_grid) & (grid[np.minimum(j_up, n_grid - 1)] <= hi), j_up, -1)
@@ -200,8 +209,16 @@ def _crossings(band, rows, grid, nodes, start, lo, hi):
         limit = edge.astype(float).copy()
         found = np.flatnonzero(j >= 0)
         if len(found):
-            inner = pick(grid[np.clip(j[found] + step, 0, n_grid - 1)], start[found])
-            limit[found] = _refine(band, inner, grid[j[found]], rows[found])
+            r = rows[found]
+            j_out = j[found]
+            j_in = np.clip(j_out + step, 0, n_grid - 1)
+            inner, outer = pick(grid[j_in], start[found]), grid[j_out]
+            f_in, f_out = search.at_node(j_in, band, r), search.at_node(j_out, band, r)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                x0 = (grid[j_in] * f_out - outer * f_in) / (f_out - f_in)
+            b_lo, b_hi = np.minimum(inner, outer), np.maximum(inner, outer)
+            x0 = np.where((x0 > b_lo) & (x0 < b_hi), x0, 0.5 * (inner + outer))
+            limit[found] = _refine(band, inner, outer, r, x0)
         out += [limit, j < 0]
     lower, open_lo, upper, open_hi = out
     return lower, upper, open_lo, open_hi
@@ -317,15 +334,15 @@ class PolyBand:
             return np.full_like(u, coef[0]), np.zeros_like(u) if slope else None
         v = coef[-1] * u
         v += coef[-2]
-        d = None
-        if slope:
-            d = np.full_like(u, coef[-1])
+        d = coef[-1] if slope else None   # a float until the first step below
         for cf in coef[-3::-1]:
             if slope:
-                d *= u
+                d = d * u
                 d += v
             v *= u
             v += cf
+        if slope and np.ndim(d) == 0:
+            d = np.full_like(u, d)
         return v, d
 
     def on_grid(self, grid):
@@ -406,6 +423,13 @@ class GridSearch:
                 from ._bandgrid import BandNodes
 
                 self.nodes = BandNodes(self.fg, self.r)
+
+    def at_node(self, j, band, rows):
+        """The band ``B`` at grid nodes ``j`` for the rows ``rows`` of ``band`` (a
+        :class:`PolyBand` bound to a block), from the grid tables."""
+        r = band.y0[rows] - self.fg[j]
+        s2 = band.s2 if band.shared else band.s2[rows]
+        return r * r - self.band.t2 * (s2 + self.qg[j])
 
     def count_up_to(self, u):
         """Number of grid nodes ``<= u`` for finite ``u`` (``searchsorted(grid, u,

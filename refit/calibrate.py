@@ -167,7 +167,7 @@ def invert_polynomial(y0, poly: np.ndarray, cov: np.ndarray, sigma2_new: float,
 
 #: rows inverted together by :func:`invert_polynomial_masks` (bounds the memory of the
 #: per-row work arrays; rows are independent, so the block size does not change numbers)
-ROW_BLOCK = 65_536
+ROW_BLOCK = 32_768
 
 
 def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
@@ -226,7 +226,7 @@ def _invert_block(br: Branches, search: GridSearch, rows, window_u):
     lower, upper = np.full(m, np.nan), np.full(m, np.nan)
     open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
     lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
-        rows, idx, search.grid, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
+        rows, idx, search, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
     est, masks = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
     return est, lower, upper, masks
 
