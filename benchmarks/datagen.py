@@ -184,11 +184,13 @@ def fit_data(n: int, seed: int = 20261201) -> tuple[np.ndarray, np.ndarray]:
     return x, np.round(y, 1)
 
 
-def feature_values(n: int, seed: int = 20261201) -> np.ndarray:
+def feature_values(n: int, seed: int = 20261201, decimals: int | None = 1) -> np.ndarray:
     """Fossil-like Bk depths [cm] at which a coefficient file is evaluated (some outside the
-    calibration range, so the range flags are exercised)."""
+    calibration range, so the range flags are exercised), recorded to ``decimals`` decimal
+    places of a cm (None: unrounded, every value distinct)."""
     rng = np.random.default_rng([seed, n, 1])
-    return np.round(rng.uniform(2.0, 320.0, n), 1)
+    v = rng.uniform(2.0, 320.0, n)
+    return v if decimals is None else np.round(v, decimals)
 
 if __name__ == "__main__":
     rows, out = int(float(sys.argv[1])), Path(sys.argv[2])

@@ -238,6 +238,13 @@ def evaluate_case(ctx: Context) -> CaseResult:
             result.rows.append(_row("evaluate", n, f"Equation.predict, {kind} quadratic",
                                     "–", got, {}, "no naive counterpart timed"))
         if n == 1_000_000:
+            for kind in ("forward", "jackknife+"):
+                got = _summary([_probe(ctx, "refit_evaluate_distinct", n,
+                                       [run / "fits" / files[kind]]) for _ in range(reps)])
+                result.rows.append(_row("evaluate", n,
+                                        f"Equation.predict, {kind} quadratic, all distinct",
+                                        "–", got, {}, "every value different (no repeats "
+                                        "to share): no target, shown for comparison"))
             result.targets += [
                 Target("coefficient file (inverse) on 1,000,000 values", a.get("s"),
                        EVAL_LIMIT_S, "s", kind="below"),

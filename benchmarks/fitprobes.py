@@ -153,11 +153,13 @@ def refit_resampled(interval):
     return probe
 
 
-def refit_evaluate(n, seed, file):
+def refit_evaluate(n, seed, file, distinct=False):
+    """Equation.predict on n values: depths recorded to 0.1 cm (many repeats, as measured
+    data have), or with ``distinct`` every value different (no rounding)."""
     from refit.coefficients import load
 
     eq = load(file)
-    v = datagen.feature_values(n, seed)
+    v = datagen.feature_values(n, seed, decimals=None if distinct else 1)
 
     def work(v=v):
         p = eq.predict(v)
@@ -306,6 +308,7 @@ PROBES = {
     "naive_jackknife_plus": naive_jackknife_plus,
     "refit_bootstrap": refit_resampled("bootstrap-pairs"), "naive_bootstrap": naive_bootstrap,
     "refit_evaluate": refit_evaluate, "naive_evaluate": naive_evaluate,
+    "refit_evaluate_distinct": lambda n, seed, file: refit_evaluate(n, seed, file, True),
 }
 
 

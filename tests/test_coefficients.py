@@ -331,3 +331,33 @@ def test_pruned_plus_band_equals_the_full_order_statistics(monkeypatch):
     norm = np.sqrt(np.einsum("ij,jk,ik->i", x0, W, x0)).max()
     scale = float(np.abs(B).max() * np.abs(x0).max() + r.max())
     assert ev._candidates(r, norm * g, k_lo, scale).size < n / 2
+
+
+@pytest.mark.parametrize("direction,method", [("forward", "analytic"),
+                                              ("inverse", "jackknife+"), ("inverse", "cv+")])
+def test_repeated_values_evaluated_once_give_the_same_bits(table, tmp_path, monkeypatch,
+                                                           direction, method):
+    # Fossil depths recorded to 0.1 cm repeat in a large batch; the evaluator then works
+    # once per distinct value. Reference: the plain row-by-row evaluation of the same file
+    # (the shortcut switched off); every estimate, limit and flag must be identical.
+    import refit._evaluate as ev
+
+    f = fit(table, "map_mm", ["bk_depth_cm"], form="quadratic", direction=direction)
+    eq = load(_record(f, method, tmp_path))
+    rng = np.random.default_rng(12)
+    v = (np.round(rng.uniform(2.0, 320.0, 70_000), 1) if direction == "inverse"
+         else np.round(rng.uniform(150.0, 1300.0, 70_000), 0))
+    v[::997] = np.nan
+    assert ev._repeats_pay(eq.record, v[:, None], np.ones(v.size))
+    fast = eq.predict(v)
+    monkeypatch.setattr(ev, "DEDUP_ROWS", 10**9)
+    plain = eq.predict(v)
+    for k in ("estimate", "lower", "upper"):  # forward: every bit; else the last bit of
+        # a matrix product may differ (BLAS rounding depends on the matrix's size)
+        np.testing.assert_allclose(getattr(fast, k), getattr(plain, k), err_msg=k,
+                                   rtol=0 if direction == "forward" else 5e-16, atol=0)
+    assert list(fast.flags) == list(plain.flags)
+    # an inverse analytic file is cheap: evaluated row by row whatever the repeats
+    assert not ev._repeats_pay({"direction": "inverse", "interval": {"method": "analytic"}},
+                               v[:, None], np.ones(v.size))
+    assert np.isnan(fast.estimate[::997]).all()
