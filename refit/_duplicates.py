@@ -88,9 +88,12 @@ class _Seen:
             self.measurements.setdefault(key, str(pid))
 
     def _site(self, row: dict):
+        """(source, latitude, longitude) of a row with a source and coordinates on the
+        globe; None otherwise (coordinates out of range are the range check's errors)."""
         src, lat, lon = row.get("source"), row.get("latitude"), row.get("longitude")
-        if not isinstance(src, str) or not all(isinstance(v, float) and v == v
-                                               for v in (lat, lon)):
+        if not isinstance(src, str) or not all(isinstance(v, float) for v in (lat, lon)):
+            return None
+        if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0):  # NaN fails too
             return None
         return src.strip().casefold(), lat, lon
 
