@@ -295,6 +295,10 @@ def load_data(recipe):
         return store.records, info, f"store {store.name!r} (version {store.version})"
     from .checks import check_file
 
+    if not recipe.table.exists():
+        raise UnreadableInputError(f"{recipe.where('data.table')}: [data] table "
+                                   f"{str(recipe.table)!r}: no such file; check the path, "
+                                   "relative to the recipe's folder")
     report = check_file(recipe.table)
     if not report.ok:
         raise InvalidDataError(

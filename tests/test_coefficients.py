@@ -361,3 +361,23 @@ def test_repeated_values_evaluated_once_give_the_same_bits(table, tmp_path, monk
     assert not ev._repeats_pay({"direction": "inverse", "interval": {"method": "analytic"}},
                                v[:, None], np.ones(v.size))
     assert np.isnan(fast.estimate[::997]).all()
+
+
+def test_malformed_subset_filters_are_refused_by_the_schema(table, tmp_path):
+    # Found by the 10,000-example fuzz run: a file whose provenance.subset.filters held a
+    # null crashed `refit apply` (the setting comparison read it). The schema now says what
+    # a filter is, so the file is refused on loading with the JSON path of the bad entry.
+    from refit.coefficients import dumps, with_hash
+
+    f = fit(table, "map_mm", ["bk_depth_cm"])
+    rec = read_record(_record(f, "analytic", tmp_path))
+    rec["provenance"]["subset"]["filters"] = [None]
+    bad = tmp_path / "bad.json"
+    bad.write_text(dumps(with_hash(rec)), encoding="utf-8")
+    with pytest.raises(InvalidDataError, match=r"\$\.provenance\.subset\.filters\[0\]"):
+        load(bad)
+    rec["provenance"]["subset"]["filters"] = [
+        {"column": "parent_material", "kind": "equals", "value": "loess"}]
+    good = tmp_path / "good.json"
+    good.write_text(dumps(with_hash(rec)), encoding="utf-8")
+    assert load(good).record["provenance"]["subset"]["filters"][0]["kind"] == "equals"
