@@ -376,6 +376,13 @@ def test_malformed_subset_filters_are_refused_by_the_schema(table, tmp_path):
     bad.write_text(dumps(with_hash(rec)), encoding="utf-8")
     with pytest.raises(InvalidDataError, match=r"\$\.provenance\.subset\.filters\[0\]"):
         load(bad)
+    for value in (None, [], {"min": 1, "upper": 3}):  # not a value of its kind
+        kind = "range" if isinstance(value, dict) else "one-of" if value == [] else "equals"
+        rec["provenance"]["subset"]["filters"] = [
+            {"column": "parent_material", "kind": kind, "value": value}]
+        bad.write_text(dumps(with_hash(rec)), encoding="utf-8")
+        with pytest.raises(InvalidDataError, match=r"filters\[0\]"):
+            load(bad)
     rec["provenance"]["subset"]["filters"] = [
         {"column": "parent_material", "kind": "equals", "value": "loess"}]
     good = tmp_path / "good.json"
