@@ -71,11 +71,11 @@ def _flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
     lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
     import pandas as pd
 
+    from ._flagcodes import bit_codes, present_codes
+
     names = tuple(masks)
-    codes = np.zeros(m, dtype=np.int64)
-    for i, nm in enumerate(names):
-        codes |= masks[nm].astype(np.int64) << i
-    present = np.flatnonzero(np.bincount(codes, minlength=1))
+    codes = bit_codes([masks[nm] for nm in names], m)
+    present = present_codes(codes)
     lookup, dtype = _flag_categories(names, present, sort)
     # the codes index the categories by construction, so pandas need not check them again
     return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
@@ -94,7 +94,9 @@ def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
     hit = _FLAG_CATEGORIES.get(key)
     if hit is not None:
         return hit
-    text = [";".join(nm for i, nm in enumerate(names) if code >> i & 1) for code in present]
+    from ._flagcodes import joined_names
+
+    text = [joined_names(names, int(code)) for code in present]
     if sort:
         order = sorted(range(len(text)), key=text.__getitem__)
         present, text = present[order], [text[i] for i in order]
