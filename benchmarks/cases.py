@@ -157,8 +157,8 @@ def help_startup(ctx: Context) -> CaseResult:
 
 def _check_ready() -> str | None:
     """None when ``refit check`` exists, else why not (so the case can say it skipped)."""
-    if not (REPO / "refit" / "checks.py").is_file():
-        return "refit/checks.py does not exist yet"
+    if not (REPO / "refit" / "curate" / "checks.py").is_file():
+        return "refit/curate/checks.py does not exist yet"
     cli = (REPO / "refit" / "cli" / "check.py").read_text(encoding="utf-8")
     if "not ready yet" in cli:
         return "refit/cli/check.py is still the placeholder"
@@ -232,13 +232,13 @@ def _in_process_row(ctx: Context, n: int, path: Path) -> Row:
     note_bits = []
     if lib_ok:
         info = lib_ok[-1]
-        note_bits.append(f"imports: refit.checks {med(lib_ok, 'import_s'):.2f} s, "
+        note_bits.append(f"imports: refit.curate.checks {med(lib_ok, 'import_s'):.2f} s, "
                          f"pandas {med(naive_ok, 'import_s') or 0:.2f} s")
         note_bits.append(f"errors {info['errors']}, warnings {info['warnings']}"
                          + (f" ({', '.join(info['rules'])})" if info["rules"] else ""))
     else:
         note_bits.append("check_file failed: " + lib[-1][1].get("error", "?"))
-    return Row("check (in-process)", n, "refit.checks.check_file(FILE)",
+    return Row("check (in-process)", n, "refit.curate.checks.check_file(FILE)",
                "pandas.read_csv(FILE)", med(lib_ok, "work_s"), med(naive_ok, "work_s"),
                max(r.peak_mb for r, _ in lib), max(r.peak_mb for r, _ in naive),
                "; ".join(note_bits), [x["work_s"] for x in lib_ok], [x["work_s"] for x in naive_ok])

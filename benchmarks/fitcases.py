@@ -136,7 +136,7 @@ def loo_case(ctx: Context) -> CaseResult:
     full = _summary([_probe(ctx, "refit_loo", n) for _ in range(reps)])
     result = CaseResult()
     label = f"{n:,} statsmodels refits + get_prediction"
-    for name, got, what in (("refit.crossval.loo_ols (closed form)", closed, "closed"),
+    for name, got, what in (("refit.validate.crossval.loo_ols (closed form)", closed, "closed"),
                             ("cross_validate(scheme loo)", full, "whole")):
         d = _diff(got, naive)
         row = _row("loo", n, name, label, got, naive,
@@ -161,7 +161,7 @@ def jackknife_case(ctx: Context) -> CaseResult:
                               reps, extra)
         full = _summary([_probe(ctx, "refit_jackknife_plus", n, extra) for _ in range(reps)])
         label = f"{n:,} statsmodels refits, {m} new value(s)"
-        for name, got, what in (("refit.intervals.jackknife_plus", closed, "closed form"),
+        for name, got, what in (("refit.models.intervals.jackknife_plus", closed, "closed form"),
                                 ("refit.fit + predict(jackknife+)", full, "fit + predict")):
             d = _diff(got, naive)
             row = _row("jackknife+", n, f"{name}, m={m}", label, got, naive,

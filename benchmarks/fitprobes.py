@@ -32,7 +32,7 @@ LEVEL = 0.95
 ALPHA = 1.0 - LEVEL
 N_NEW = 200            # new feature values predicted in the fit / jackknife+ / bootstrap cases
 N_BOOT = 1000
-CHUNK_ELEMENTS = 1_000_000  # refit._linalg.CHUNK_ELEMENTS: resamples are drawn in batches of
+CHUNK_ELEMENTS = 1_000_000  # refit.models.linalg.CHUNK_ELEMENTS: resamples are drawn in batches of
 #                             CHUNK_ELEMENTS // n rows, which the naive loop reproduces
 
 
@@ -71,7 +71,7 @@ def _timed(work, warm, budget_s: float = 1.0, most: int = 7):
 
 # --------------------------------------------------------------------------- refit side
 def refit_fit(n, seed):
-    from refit.fitting import fit
+    from refit.models.fitting import fit
 
     x, y = datagen.fit_data(n, seed)
     x0 = _new_values(x)
@@ -88,7 +88,7 @@ def refit_fit(n, seed):
 def refit_loo(n, seed):
     import pandas as pd
 
-    from refit.crossval import Candidate, Scheme, cross_validate
+    from refit.validate.crossval import Candidate, Scheme, cross_validate
 
     x, y = datagen.fit_data(n, seed)
     cand = Candidate("map_mm", ("bk_depth_cm",), form="quadratic", interval="analytic")
@@ -104,10 +104,10 @@ def refit_loo(n, seed):
 
 
 def refit_loo_closed(n, seed):
-    """The closed form alone: ``refit.crossval.loo_ols`` on the arrays (no table, no skill
+    """The closed form alone: ``refit.validate.crossval.loo_ols`` on the arrays (no table, no skill
     scores)."""
-    from refit.crossval import loo_ols
-    from refit.forms import make_form
+    from refit.validate.crossval import loo_ols
+    from refit.models.forms import make_form
 
     x, y = datagen.fit_data(n, seed)
     form = make_form("quadratic", ["bk_depth_cm"])
@@ -121,8 +121,8 @@ def refit_loo_closed(n, seed):
 
 
 def refit_jackknife_plus_closed(n, seed):
-    """The closed form alone: ``refit.intervals.jackknife_plus`` on the design arrays."""
-    from refit.intervals import jackknife_plus
+    """The closed form alone: ``refit.models.intervals.jackknife_plus`` on the design arrays."""
+    from refit.models.intervals import jackknife_plus
 
     x, y = datagen.fit_data(n, seed)
     X0 = _design(_new_values(x))
@@ -137,7 +137,7 @@ def refit_jackknife_plus_closed(n, seed):
 
 def refit_resampled(interval):
     def probe(n, seed):
-        from refit.fitting import fit
+        from refit.models.fitting import fit
 
         x, y = datagen.fit_data(n, seed)
         x0 = _new_values(x)

@@ -3,7 +3,7 @@
 Separates start-up cost (imports) from the work itself. Prints one JSON object:
 ``{"import_s": ..., "work_s": ..., ...}``. WHAT is one of:
 
-``check_file``  import refit.checks, then time ``refit.checks.check_file(FILE)``;
+``check_file``  import refit.curate.checks, then time ``refit.curate.checks.check_file(FILE)``;
 ``read_csv``    import pandas, then time ``pandas.read_csv(FILE)``.
 """
 
@@ -16,7 +16,7 @@ import time
 
 def probe_check_file(path: str) -> dict:
     t0 = time.perf_counter()
-    from refit.checks import check_file
+    from refit.curate.checks import check_file
 
     t1 = time.perf_counter()
     report = check_file(path)

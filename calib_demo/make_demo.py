@@ -14,7 +14,7 @@ Run from the repository root::
 Every random draw comes from ``numpy.random.default_rng`` with a fixed seed, so a rerun
 rewrites the same bytes. Files written beside this script: ``base_soils.csv``,
 ``incoming_soils.csv``, ``fossils.csv`` and the store ``store/``, built from
-``base_soils.csv`` by refit's own ``refit.store.admit``. ``recipe.toml`` is written by hand.
+``base_soils.csv`` by refit's own ``refit.curate.store.admit``. ``recipe.toml`` is written by hand.
 """
 
 from __future__ import annotations
@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from refit._resources import schemas_dir
+from refit._util.resources import schemas_dir
 
 
 SEED = 20261201
@@ -317,7 +317,7 @@ INCOMING_TITLE = f"{CAMPAIGN} - depths in inches, MAP in inches, MAT in degF"
 INCOMING_REGION = dict(code="OR", lon=(53.4, 54.8), map=(240, 1300), elev=(300, 1000),
                        n=40, parents={"loess": .6, "alluvium": .25, "colluvium": .15},
                        sources=[CAMPAIGN_SOURCE])
-SHEET_HEADERS = {  # canonical column -> the campaign's header (refit.units maps them back)
+SHEET_HEADERS = {  # canonical column -> the campaign's header (refit.curate.units maps them back)
     "profile_id": "Profile ID", "latitude": "Lat", "longitude": "Long", "source": "Source",
     "region": "region", "map_mm": "MAP (in)", "mat_c": "MAT (°F)", "mar_mm": "MAR (in)",
     "bk_depth_cm": "Depth to Bk (in)", "bk_thickness_cm": "Bk thickness (in)",
@@ -516,9 +516,9 @@ def write_csv(frame: pd.DataFrame, path: Path) -> None:
 def build_store(here: Path = HERE) -> str:
     """Rebuild ``store/`` from ``base_soils.csv`` with refit's own admit; say what happened."""
     try:
-        from refit.store import admit
+        from refit.curate.store import admit
     except ImportError as exc:  # the store module is being written in parallel
-        return f"store not built: refit.store.admit is not available yet ({exc})"
+        return f"store not built: refit.curate.store.admit is not available yet ({exc})"
     store = here / "store"
     if store.exists():
         shutil.rmtree(store)

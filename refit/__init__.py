@@ -10,23 +10,23 @@ __version__ = "0.1.0"
 
 _API = {
     # curation
-    "read_table": "refit.tables",
-    "check_frame": "refit.checks",
-    "check_file": "refit.checks",
-    "CheckReport": "refit.checks",
-    "admit": "refit.store",
-    "open_store": "refit.store",
+    "read_table": "refit.curate.tables",
+    "check_frame": "refit.curate.checks",
+    "check_file": "refit.curate.checks",
+    "CheckReport": "refit.curate.checks",
+    "admit": "refit.curate.store",
+    "open_store": "refit.curate.store",
     # fitting
-    "fit": "refit.fitting",
-    "Fit": "refit.fitting",
-    "TransferFunctionRegressor": "refit.sklearn_api",
+    "fit": "refit.models.fitting",
+    "Fit": "refit.models.fitting",
+    "TransferFunctionRegressor": "refit.models.sklearn_adapter",
     # derived indices
-    "cia": "refit.indices",
-    "cia_k": "refit.indices",
-    "calmag": "refit.indices",
-    "salinization": "refit.indices",
-    "bases_alumina": "refit.indices",
-    "derive_indices": "refit.indices",
+    "cia": "refit.soil.indices",
+    "cia_k": "refit.soil.indices",
+    "calmag": "refit.soil.indices",
+    "salinization": "refit.soil.indices",
+    "bases_alumina": "refit.soil.indices",
+    "derive_indices": "refit.soil.indices",
 }
 
 __all__ = ["__version__", *_API]

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
-from refit._resources import demo_dir
+from refit._util.resources import demo_dir
 from refit.errors import UsageError
 
 MARKER = ".refit-demo"
@@ -27,13 +27,13 @@ class DemoResult:
     """What the demo did: labelled output paths and each step's result object."""
 
     outputs: dict[str, Path] = field(default_factory=dict)
-    check: object = None      # refit.checks.CheckReport of the incoming table
-    admit: object = None      # refit.store.AdmitResult
-    run: object = None        # refit.matrix.Run of the demo recipe
+    check: object = None      # refit.curate.checks.CheckReport of the incoming table
+    admit: object = None      # refit.curate.store.AdmitResult
+    run: object = None        # refit.validate.candidates.Run of the demo recipe
     run_dir: Path | None = None
-    published: object = None  # refit.registry.PublishResult
-    applied: object = None    # refit.apply.ApplyResult
-    comparison: object = None  # pandas.DataFrame from refit.compare
+    published: object = None  # refit.publish.registry.PublishResult
+    applied: object = None    # refit.apply.estimates.ApplyResult
+    comparison: object = None  # pandas.DataFrame from refit.apply.compare
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -69,7 +69,7 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
     echo : callable, optional
         Where to print progress lines (``None``: silent).
     progress : callable, optional
-        Progress callback for the fit matrix (see :func:`refit.matrix.run_recipe`).
+        Progress callback for the fit matrix (see :func:`refit.validate.candidates.run_recipe`).
     show : callable, optional
         Called as ``show(step, result)`` after the steps "admit", "fit" and "compare", so a
         caller can print their results in order.
@@ -90,8 +90,8 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
 
 
 def _check_and_admit(out: Path, result: DemoResult, say) -> None:
-    from refit.checks import check_file, load_vocabularies
-    from refit.store import admit
+    from refit.curate.checks import check_file, load_vocabularies
+    from refit.curate.store import admit
 
     src = demo_dir()
     store = out / "store"
@@ -117,9 +117,9 @@ def _check_and_admit(out: Path, result: DemoResult, say) -> None:
 
 
 def _fit(out: Path, result: DemoResult, say, progress) -> None:
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
+    from refit.validate.candidates import run_recipe
+    from refit.select.recipe import read_recipe
+    from refit.validate.runfolder import write_run
 
     recipe_path = out / "recipe.toml"  # its [data] store = "store" now names the copy
     shutil.copyfile(demo_dir() / "recipe.toml", recipe_path)
@@ -134,13 +134,13 @@ def _fit(out: Path, result: DemoResult, say, progress) -> None:
 
 def winning_fit(run_dir: Path, leaderboard) -> Path:
     """The coefficient file of the leaderboard's top candidate."""
-    from refit.runfolder import fit_filename
+    from refit.validate.runfolder import fit_filename
 
     return run_dir / "fits" / fit_filename(str(leaderboard.iloc[0]["candidate"]))
 
 
 def _publish(out: Path, result: DemoResult, say) -> None:
-    from refit.registry import publish
+    from refit.publish.registry import publish
 
     best = winning_fit(result.run_dir, result.run.matrix.leaderboard)
     say(f"[bold]4. Publish[/bold] the top candidate ({best.stem}) into a demo registry")
@@ -151,14 +151,14 @@ def _publish(out: Path, result: DemoResult, say) -> None:
 
 
 def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
-    from refit._atomic import write_bytes_atomic, write_text_atomic
-    from refit.compare import comparison_table, figure_png
+    from refit._util.atomic import write_bytes_atomic, write_text_atomic
+    from refit.apply.compare import comparison_table, figure_png
 
     files = [result.published.path, *published_equations()]
     fossils = demo_dir() / "fossils.csv"
     say(f"[bold]5. Apply[/bold] the published fit and {len(files) - 1} published equations "
         f"to the demo fossils ({fossils.name}), measurement SDs propagated by Monte Carlo")
-    from refit.apply import apply_files
+    from refit.apply.estimates import apply_files
 
     result.applied = apply_files([str(f) for f in files], fossils, seed=SEED)
     estimates = out / "estimates.csv"

@@ -18,7 +18,7 @@ import sys
 import time
 from pathlib import Path
 
-from refit._resources import demo_dir
+from refit._util.resources import demo_dir
 
 NIST = Path(__file__).parent / "data" / "nist"
 
@@ -28,8 +28,8 @@ LONG = os.environ.get("REFIT_LONG", "") not in ("", "0")
 LAUNCH = """
 import sys
 import numpy, pandas, filelock, jsonschema  # noqa: F401  heavy imports before 'ready'
-import refit.store, refit.registry, refit.checks, refit.tables, refit.units  # noqa: F401
-import refit.coefficients, refit.verify  # noqa: F401
+import refit.curate.store, refit.publish.registry, refit.curate.checks, refit.curate.tables, refit.curate.units  # noqa: F401
+import refit.coefficients, refit.publish.verify  # noqa: F401
 from refit.cli import main
 sys.stdout.write("ready\\n")
 sys.stdout.flush()
@@ -163,9 +163,9 @@ def copy_demo_store(dest: Path) -> Path:
 def make_fits(root: Path, recipe: str = RECIPE, out: str = "run") -> Path:
     """Run ``recipe`` (default: a small run, 2 candidates) on ``root/store`` (a copy of the
     demo store unless one is there already); returns RUN/fits."""
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import write_run
+    from refit.validate.candidates import run_recipe
+    from refit.select.recipe import read_recipe
+    from refit.validate.runfolder import write_run
 
     if not (root / "store").exists():
         copy_demo_store(root / "store")
@@ -176,7 +176,7 @@ def make_fits(root: Path, recipe: str = RECIPE, out: str = "run") -> Path:
 
 def publish_all(fits: Path, registry: Path, *names: str) -> Path:
     """Publish ``fits/NAME`` for each name in turn, creating ``registry`` with the first."""
-    from refit.registry import publish
+    from refit.publish.registry import publish
 
     for i, name in enumerate(names):
         publish(fits / name, registry, create=i == 0)

@@ -25,7 +25,7 @@ import pytest
 
 from _harness import (LINEAR, QUADRATIC, cli, copy_demo_store, make_fits, n_runs,
                       publish_all, run, run_killed, snapshot, timed_run, visible)
-from refit._resources import demo_dir
+from refit._util.resources import demo_dir
 
 INCOMING = demo_dir() / "incoming_soils.csv"
 SEED = 20261209
@@ -158,8 +158,8 @@ def test_killed_publish_leaves_the_registry_before_or_after(registry_states, tmp
 
 DIE_BEFORE_INDEX = """
 import os, sys
-import refit._registry_commit as commit
-import refit.registry as registry
+import refit.publish.registry_commit as commit
+import refit.publish.registry as registry
 commit.write_index = lambda reg: os._exit(9)   # the process dies before the index lands
 registry.publish(sys.argv[1], sys.argv[2])
 """

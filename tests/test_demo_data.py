@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from refit._resources import demo_dir, schemas_dir
+from refit._util.resources import demo_dir, schemas_dir
 
 DEMO = demo_dir()
 
@@ -96,7 +96,7 @@ def test_base_soils_use_the_controlled_vocabularies(base):
 
 
 def test_base_soils_are_clean_for_refit_check(base):
-    from refit.checks import check_frame
+    from refit.curate.checks import check_frame
 
     report = check_frame(base.astype(object).where(base.notna(), ""))
     assert report.ok, report.errors.to_string()
@@ -182,7 +182,7 @@ def test_incoming_labels_one_bad_row_per_kind(gen, tables):
 
 
 def test_refit_check_flags_each_bad_row_for_its_reason(gen):
-    checks = pytest.importorskip("refit.checks")
+    checks = pytest.importorskip("refit.curate.checks")
     report = checks.check_file(DEMO / "incoming_soils.csv")
     notes = report.frame["notes"].fillna("")
     errors = report.errors
@@ -207,7 +207,7 @@ def test_refit_check_flags_each_bad_row_for_its_reason(gen):
 def test_store_holds_the_base_soils():
     records = DEMO / "store" / "records.csv"
     if not records.exists():
-        pytest.skip("the demo store is not built yet (refit.store.admit missing)")
+        pytest.skip("the demo store is not built yet (refit.curate.store.admit missing)")
     store = pd.read_csv(records, dtype={"profile_id": str}, keep_default_na=False)
     base = pd.read_csv(DEMO / "base_soils.csv", keep_default_na=False)
     assert list(store["profile_id"]) == list(base["profile_id"])
@@ -216,7 +216,7 @@ def test_store_holds_the_base_soils():
 
 
 def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
-    store_mod = pytest.importorskip("refit.store")
+    store_mod = pytest.importorskip("refit.curate.store")
     if not (DEMO / "store" / "manifest.json").exists():
         pytest.skip("the demo store is not built yet")
     store = tmp_path / "store"

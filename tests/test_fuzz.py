@@ -27,7 +27,7 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from _harness import LINEAR, make_fits
-from refit._resources import demo_dir
+from refit._util.resources import demo_dir
 from refit.cli import main
 
 LONG = os.environ.get("HYPOTHESIS_PROFILE") == "long"

@@ -22,7 +22,7 @@ import pytest
 
 import refit
 from _harness import LINEAR, cli, copy_demo_store, make_fits
-from refit._resources import demo_dir
+from refit._util.resources import demo_dir
 
 
 class _Payload:
@@ -88,7 +88,7 @@ def test_expression_strings_in_a_table_are_kept_as_text(tmp_path, marker):
     code, out = cli("admit", table, "--into", store)
     assert_clean(code, out, marker)
     assert code == 0 and "Rows read 3 = accepted 2 + rejected 1" in out, out
-    from refit.store import open_store
+    from refit.curate.store import open_store
 
     records = open_store(store).records_text
     assert list(records["notes"]) == [p["python"], p["template"]]  # kept verbatim, as text
@@ -153,7 +153,6 @@ def test_coefficient_file_strings_and_tags_stay_data(tmp_path, marker):
     good = tmp_path / "payload.json"
     good.write_text(dumps(with_hash(content)), encoding="utf-8")
     from refit import coefficients
-
     loaded = coefficients.load(good)
     assert loaded.record["cautions"] == [p["python"], p["yaml"], p["template"]]
     for args in (["verify", good], ["publish", good, "--to", tmp_path / "reg", "--init"],

@@ -1,10 +1,10 @@
-"""`refit admit`: add the rows of a table to a calibration store (thin shell over refit.store)."""
+"""`refit admit`: add the rows of a table to a calibration store (thin shell over refit.curate.store)."""
 
 from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded
+from refit.cli.common import guarded
 
 MAX_LISTED = 40
 
@@ -44,7 +44,7 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     """
     import json
 
-    from refit.store import admit as run_admit
+    from refit.curate.store import admit as run_admit
 
     result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files))
     if fmt == "json":
@@ -66,7 +66,7 @@ def render(result) -> list[str]:
         out.append(f"New store: {verb} the store '{store.name}' in {store}.")
     out.append(f"Read {result.table}: {result.rows_read} rows ({'; '.join(result.reader_notes[1:])}).")
     if result.mappings:
-        from refit.cli._common import compact_notes
+        from refit.cli.common import compact_notes
 
         out.append("Columns mapped:")
         out += [f"  {line}" for line in compact_notes(result.mappings)]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded, plural, stdout_console
+from refit.cli.common import guarded, plural, stdout_console
 
 
 def _level(ctx, param, value):
@@ -70,7 +70,7 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     """
     from pathlib import Path
 
-    from refit.apply import apply_files
+    from refit.apply.estimates import apply_files
     from refit.errors import UsageError
 
     if out and Path(out).exists() and not overwrite:
@@ -87,7 +87,7 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
 
 
 def _write(result, out: str) -> None:
-    from refit._atomic import write_text_atomic
+    from refit._util.atomic import write_text_atomic
 
     write_text_atomic(out, result.results.to_csv(index=False))
     if result.decompaction is not None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import compact_notes, guarded, plural, stdout_console
+from refit.cli.common import compact_notes, guarded, plural, stdout_console
 
 MAX_ROWS_DEFAULT = 50
 
@@ -42,7 +42,7 @@ def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
     """
     import json
 
-    from refit.checks import check_file, load_vocabularies
+    from refit.curate.checks import check_file, load_vocabularies
 
     vocab = load_vocabularies(*vocab_files)
     report = check_file(table, kind=kind, vocabularies=vocab)

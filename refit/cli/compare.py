@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded, stdout_console
+from refit.cli.common import guarded, stdout_console
 from refit.cli.apply import fossil_options
 
 
@@ -44,9 +44,9 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     """
     from pathlib import Path
 
-    from refit._atomic import write_bytes_atomic, write_text_atomic
+    from refit._util.atomic import write_bytes_atomic, write_text_atomic
     from refit.cli.apply import print_problems_and_cautions
-    from refit.compare import compare_files, figure_png
+    from refit.apply.compare import compare_files, figure_png
     from refit.errors import UsageError
 
     folder = Path(out)
@@ -71,7 +71,7 @@ def _print(table, console) -> None:
     from rich.text import Text
 
     from refit.cli.apply import _num
-    from refit.compare import coverage_text
+    from refit.apply.compare import coverage_text
 
     for pid, grp in table.groupby("paleosol_id", sort=False):
         console.print(Text(str(pid), style="bold"))

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded
+from refit.cli.common import guarded
 
 #: Paleosols whose comparison is printed (all are in the files): a typical one and the two
 #: placed where equations stop holding.
@@ -39,7 +39,7 @@ def demo(out_dir: str, quiet: bool) -> None:
     import time
     from pathlib import Path
 
-    from refit.cli._common import stderr_console, stdout_console
+    from refit.cli.common import stderr_console, stdout_console
     from refit.cli.fit import _Progress
     from refit.demo import run_demo
 

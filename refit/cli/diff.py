@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded
+from refit.cli.common import guarded
 
 WIDTH = 140  # columns of the tables when stdout is not a terminal
 
@@ -40,7 +40,7 @@ def diff(file_a: str, file_b: str, at: tuple[float, ...], level: float | None,
     """
     import json
 
-    from refit.diff import diff_files
+    from refit.publish.diff import diff_files
 
     result = diff_files(file_a, file_b, at=list(at) or None, level=level)
     if fmt == "json":

@@ -6,7 +6,7 @@ import sys
 
 import click
 
-from refit.cli._common import guarded, stderr_console, stdout_console
+from refit.cli.common import guarded, stderr_console, stdout_console
 
 SHOWN = 20  # leaderboard rows printed (all are in the files)
 WIDTH = 150  # columns of the printed leaderboard when stdout is not a terminal
@@ -47,9 +47,9 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
     import datetime as dt
     from pathlib import Path
 
-    from refit.matrix import run_recipe
-    from refit.recipe import read_recipe
-    from refit.runfolder import check_target, write_run
+    from refit.validate.candidates import run_recipe
+    from refit.select.recipe import read_recipe
+    from refit.validate.runfolder import check_target, write_run
 
     if store and table:
         from refit.errors import UsageError

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded
+from refit.cli.common import guarded
 
 
 @click.command("publish", short_help="Publish a candidate fit as an immutable, versioned file.")
@@ -41,7 +41,7 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
     """
     import json
 
-    from refit.registry import publish as run_publish
+    from refit.publish.registry import publish as run_publish
 
     result = run_publish(candidate, registry, bump=bump, create=create, dry_run=dry_run)
     if fmt == "json":

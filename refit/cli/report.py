@@ -6,7 +6,7 @@ import sys
 
 import click
 
-from refit.cli._common import guarded, stderr_console
+from refit.cli.common import guarded, stderr_console
 
 
 @click.command("report", short_help="Write a self-contained HTML report of a fit run.")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli._common import guarded
+from refit.cli.common import guarded
 
 
 @click.command("verify", short_help="Check a coefficient file or registry; refit from a store.")
@@ -37,11 +37,11 @@ def verify(target: str, store: str | None, tolerance: float, fmt: str) -> None:
     import json
     from pathlib import Path
 
-    from refit.verify import verify_file, verify_registry
+    from refit.publish.verify import verify_file, verify_registry
 
     path = Path(target)
     if path.is_dir():
-        from refit.registry import open_registry
+        from refit.publish.registry import open_registry
 
         for message in open_registry(path).recovered:  # finish an interrupted publish
             click.echo(f"Note: {message}.", err=True)

@@ -25,7 +25,7 @@ def names() -> list[str]:
 
 def path(name: str) -> Path:
     """Path of a shipped file by name (with or without ``.json``)."""
-    from ..errors import UsageError
+    from refit.errors import UsageError
 
     p = FOLDER / (name if name.endswith(".json") else f"{name}.json")
     if not p.is_file():
@@ -36,6 +36,6 @@ def path(name: str) -> Path:
 
 def load(name: str):
     """The :class:`refit.coefficients.Equation` of a shipped file (validated, hash-checked)."""
-    from ..coefficients import load as _load
+    from refit.coefficients import load as _load
 
     return _load(path(name))

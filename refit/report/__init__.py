@@ -13,11 +13,11 @@ __all__ = ["load_run", "report_html", "write_report"]
 
 def __getattr__(name: str):
     if name in ("report_html", "write_report"):
-        from . import html
+        from refit.report import html
 
         return getattr(html, name)
     if name == "load_run":
-        from .inputs import load_run
+        from refit.report.inputs import load_run
 
         return load_run
     raise AttributeError(f"module 'refit.report' has no attribute {name!r}")

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import diagnostics as dg
-from . import figures as fg
+from refit.report import diagnostics as dg
+from refit.report import figures as fg
 
 #: the calibration figure's axis runs this fraction of the data range beyond each end,
 #: so the shaded extrapolation zone is visible

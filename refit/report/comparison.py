@@ -2,7 +2,7 @@
 
 ``refit compare`` (and ``refit demo``) write ``comparison.csv`` and ``comparison.png`` in
 one folder. A report given that folder redraws the figure from the table with
-:func:`refit.compare.figure_png` (so figure and table always agree) and lists the table;
+:func:`refit.apply.compare.figure_png` (so figure and table always agree) and lists the table;
 both are embedded, so the report stays one self-contained file.
 """
 
@@ -11,10 +11,10 @@ from __future__ import annotations
 import base64
 from pathlib import Path
 
-from ..errors import InvalidDataError, UnreadableInputError
+from refit.errors import InvalidDataError, UnreadableInputError
 
 FILE = "comparison.csv"
-#: columns the report needs (a subset of :data:`refit.compare.TABLE_COLUMNS`)
+#: columns the report needs (a subset of :data:`refit.apply.compare.TABLE_COLUMNS`)
 NEEDED = ("paleosol_id", "fit", "response", "unit", "estimate", "lower", "upper", "level",
           "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin")
 TEXT = ("paleosol_id", "fit", "response", "unit", "interval", "cv_scheme", "flags",
@@ -67,8 +67,8 @@ def read_comparison(path):
 def figure(table) -> dict | None:
     """The interval figure as an embeddable PNG (``uri``, ``width`` [px], ``panels`` drawn,
     ``of`` panels in all), or None when no paleosol has an estimate."""
-    from ..compare import MAX_PANELS, figure_png, panel_groups
-    from ..errors import UsageError
+    from refit.apply.compare import MAX_PANELS, figure_png, panel_groups
+    from refit.errors import UsageError
 
     panels = len(panel_groups(table))
     try:
@@ -87,7 +87,7 @@ def figure(table) -> dict | None:
 
 
 def _interval(r) -> str:
-    from .context import num
+    from refit.report.context import num
 
     if r.problem:
         return ""
@@ -97,7 +97,7 @@ def _interval(r) -> str:
 
 def _beside(r) -> str:
     """What the report says beside a row: its CV coverage, flags or why it has no estimate."""
-    from ..compare import coverage_text
+    from refit.apply.compare import coverage_text
 
     if r.problem:
         return "not evaluated: " + r.problem
@@ -108,7 +108,7 @@ def _beside(r) -> str:
 def rows(table) -> list[list[str]]:
     """One formatted row per paleosol and fit: paleosol, fit, estimate, interval, unit,
     level, and what is beside it."""
-    from .context import num, pct
+    from refit.report.context import num, pct
 
     return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), r.unit,
              pct(r.level, 0) if r.level == r.level else "", _beside(r)]
@@ -140,7 +140,7 @@ def caption(table, fig: dict | None, source: str, function_id: str) -> str:
 
 def section(path, function_id: str) -> dict:
     """Everything the report's comparison section shows, from the folder ``path``."""
-    from .context import shown_path
+    from refit.report.context import shown_path
 
     table = read_comparison(path)
     fig = figure(table)

@@ -1,6 +1,6 @@
 """Numbers behind the report's figures: bands of a fitted curve, influence, Q-Q points.
 
-Small pure functions of a :class:`refit.fitting.Fit`; the figures only draw what these
+Small pure functions of a :class:`refit.models.fitting.Fit`; the figures only draw what these
 return. Everything is on the scale of the fitted equation (climate on feature for an
 inverse fit, feature on climate for a forward fit); for the exponential form the bands
 are formed on the log scale and back-transformed.
@@ -31,7 +31,7 @@ def regression_bands(fit, x, level: float = 0.95) -> dict:
 
     Parameters
     ----------
-    fit : refit.fitting.Fit
+    fit : refit.models.fitting.Fit
         A fit with one regressor and a coefficient covariance.
     x : array_like, shape (m,)
         Values of the equation's regressor [its unit]: the feature for an inverse fit,
@@ -81,7 +81,7 @@ def influence(fit) -> dict:
 
     Parameters
     ----------
-    fit : refit.fitting.Fit
+    fit : refit.models.fitting.Fit
 
     Returns
     -------

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import style as st
+from refit.report import style as st
 
 
 def _mark_domain(ax, domain, *, label: str = "outside the calibration range") -> None:
@@ -182,8 +182,8 @@ def influence(leverage, cooks, labels, highlight, *, p: int):
     p : int
         Number of coefficients (for the 2p/n leverage guide).
     """
-    from .diagnostics import COOKS_FACTOR, LEVERAGE_FACTOR
-    from .labels import freeze_layout, place_labels
+    from refit.report.diagnostics import COOKS_FACTOR, LEVERAGE_FACTOR
+    from refit.report.labels import freeze_layout, place_labels
 
     h = np.asarray(leverage, dtype=float)
     d = np.asarray(cooks, dtype=float)
@@ -314,7 +314,7 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
     scheme : str
         Name of the recipe's scheme.
     """
-    from .labels import freeze_layout, place_labels
+    from refit.report.labels import freeze_layout, place_labels
 
     r = np.asarray(ranks)
     cov = np.asarray(coverage, dtype=float)

@@ -61,8 +61,8 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
         A folder written by ``refit compare`` (its ``comparison.csv``): its interval
         figure and table are added to the report. None: no comparison section.
     """
-    from . import assemble, context
-    from .inputs import load_run
+    from refit.report import assemble, context
+    from refit.report.inputs import load_run
 
     say = progress or (lambda text: None)
     say("reloading the run's data and refitting the chosen candidate")
@@ -75,7 +75,7 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
         f["uri"] = png_data_uri(fig)
     section = None
     if compare is not None:
-        from .comparison import section as comparison_section
+        from refit.report.comparison import section as comparison_section
 
         say("drawing the comparison of fits")
         section = comparison_section(compare, inp.record["function_id"])
@@ -90,7 +90,7 @@ def write_report(run_dir, out, *, candidate: str | None = None, store=None,
 
     The parameters are :func:`report_html`'s.
     """
-    from .._atomic import write_text_atomic
+    from refit._util.atomic import write_text_atomic
 
     html = report_html(run_dir, candidate=candidate, store=store, command=command,
                        progress=progress, compare=compare)

@@ -1,10 +1,10 @@
 """Everything a report needs from a run folder, reloaded and checked.
 
-A run folder (see :mod:`refit.runfolder`) holds the leaderboard, the out-of-fold
+A run folder (see :mod:`refit.validate.runfolder`) holds the leaderboard, the out-of-fold
 predictions and a coefficient record per candidate, but not the calibration records. The
 report reloads them from where ``run.json`` says they came from (a store at the recorded
-dataset version, or a table), rebuilds the subset with :mod:`refit.subsets`, refits the
-chosen candidate with :func:`refit.matrix.fit_whole` and checks that the refit gives the
+dataset version, or a table), rebuilds the subset with :mod:`refit.select.subsets`, refits the
+chosen candidate with :func:`refit.validate.candidates.fit_whole` and checks that the refit gives the
 coefficients recorded in the run: a report never draws a fit the run did not make.
 """
 
@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InvalidDataError, UnreadableInputError, UsageError
+from refit.errors import InvalidDataError, UnreadableInputError, UsageError
 
 #: relative agreement required between the refit and the run's recorded coefficients
 TOLERANCE = 1e-8
@@ -35,9 +35,9 @@ class ReportInputs:
     record: dict         # fits/<candidate>.json
     records: object      # every record of the dataset version (DataFrame)
     kept: np.ndarray     # bool per record: the subset kept it
-    subset: object       # refit.subsets.SubsetResult
-    recipe: object       # refit.recipe.Recipe rebuilt from the record
-    fit: object          # refit.fitting.Fit refitted on the subset
+    subset: object       # refit.select.subsets.SubsetResult
+    recipe: object       # refit.select.recipe.Recipe rebuilt from the record
+    fit: object          # refit.models.fitting.Fit refitted on the subset
 
 
 def _read_json(path: Path) -> dict:
@@ -79,7 +79,7 @@ def _chosen(board, board_json: dict, candidate: str | None) -> str:
 
 def _dataset_records(ds: dict, store: Path | None):
     """The records the run was fitted on, checked against the recorded hash."""
-    from ..store import open_store, typed_records
+    from refit.curate.store import open_store, typed_records
 
     kind = ds.get("kind")
     where = Path(store) if store is not None else Path(str(ds.get("path") or ""))
@@ -102,8 +102,8 @@ def _dataset_records(ds: dict, store: Path | None):
                                    f"the run was fitted on{hint}")
         return typed_records(st.records_at(version)), f"store {st.name!r} (version {version})"
     if kind == "table":
-        from .._atomic import sha256_file
-        from ..checks import check_file
+        from refit._util.atomic import sha256_file
+        from refit.curate.checks import check_file
 
         if not where.is_file():
             raise UnreadableInputError(f"the run's table {str(where)!r} is not found{hint}")
@@ -118,10 +118,10 @@ def _dataset_records(ds: dict, store: Path | None):
 
 def _refit(record: dict, frame, source: str, rows_after):
     """Rebuild the subset, refit the recorded candidate and check it reproduces."""
-    from ..errors import RefitError
-    from ..matrix import fit_whole
-    from ..subsets import select
-    from ..verify import recipe_from_record, spec_from_record
+    from refit.errors import RefitError
+    from refit.validate.candidates import fit_whole
+    from refit.select.subsets import select
+    from refit.publish.verify import recipe_from_record, spec_from_record
 
     recipe = recipe_from_record(record)
     try:
@@ -162,7 +162,7 @@ def load_run(run_dir, *, candidate: str | None = None, store=None) -> ReportInpu
     UsageError
         ``candidate`` is not in the leaderboard.
     """
-    from ..runfolder import fit_filename
+    from refit.validate.runfolder import fit_filename
 
     run_dir = Path(run_dir)
     if not run_dir.is_dir():

@@ -1,0 +1,228 @@
+"""Compare what several fits say about the same paleosol: one table and one figure.
+
+Each fit (a refitted candidate, a published version, a published equation) gives an
+estimate and an interval for the same input; the figure draws the intervals as horizontal
+bars, one row per fit, the estimate marked, and prints each fit's cross-validated coverage
+beside its interval, so that the narrowest interval is not mistaken for the best: a narrow
+interval whose coverage under cross-validation falls short of its nominal level is
+overconfident.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import textwrap
+
+import numpy as np
+import pandas as pd
+
+from refit.errors import UsageError
+
+TABLE_COLUMNS = [
+    "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
+    "response", "unit", "predictors_used", "estimate", "lower", "upper", "width", "level",
+    "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
+]
+MAX_PANELS = 12
+#: text sizes of the figure [points]: read at about 70 % scale when the 11-inch figure is
+#: shown in a report column, so nothing smaller than 8.5
+FONT = {"note": 8.5, "fit": 8.5, "axis": 9.0, "title": 10.0, "legend": 9.0}
+#: characters per line of the note printed beside an interval (longer notes wrap)
+NOTE_WIDTH = 56
+
+#: The figure's own palette: blue for refits, vermilion for published equations, a warm
+#: grey for fits without an interval; distinguishable under the common colour-vision
+#: deficiencies (blue/orange contrast) and in greyscale (different lightness).
+STYLE = {"refit": "#2166ac", "published": "#d55e00", "none": "#8c8c8c",
+         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45}
+
+
+def at_frame(pairs) -> pd.DataFrame:
+    """A one-row fossil frame from ``NAME=VALUE`` texts (``--at``).
+
+    Raises
+    ------
+    UsageError
+        A text without ``=`` or a value that is not a number (naming it).
+    """
+    row = {}
+    for text in pairs:
+        name, sep, value = str(text).partition("=")
+        name = name.strip()
+        if not sep or not name:
+            raise UsageError(f"--at {text!r}: write NAME=VALUE, e.g. --at bk_depth_cm=100")
+        try:
+            row[name] = float(value)
+        except ValueError:
+            raise UsageError(f"--at {text!r}: {value!r} is not a number; write e.g. "
+                             f"--at {name}=100")
+    label = "at " + ", ".join(f"{k}={v:g}" for k, v in row.items())
+    return pd.DataFrame([{"paleosol_id": label, **row}])
+
+
+def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
+    """The comparison table from :func:`refit.apply.estimates.apply_equations` results."""
+    t = results.copy()
+    t = t[t["function_id"] != "combined"] if "function_id" in t else t
+    t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
+    # a refit carries its candidate label, published or not; a literature equation has none
+    cand = t["candidate"].fillna("") if "candidate" in t else pd.Series("", index=t.index)
+    t["origin"] = np.where(cand.astype(str) != "", "refit", "literature")
+    t["width"] = t["upper"].astype(float) - t["lower"].astype(float)
+    return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
+
+
+def fit_label(r) -> str:
+    """Short row label: function id, version and candidate (or status)."""
+    what = r.candidate if getattr(r, "candidate", "") else r.status
+    return f"{r.function_id} {r.version} {what}".strip()
+
+
+def coverage_text(coverage, scheme, level, interval) -> str:
+    """What is printed beside an interval: the cross-validated coverage, or why none."""
+    if coverage is None or (isinstance(coverage, float) and math.isnan(coverage)):
+        if interval == "published" or str(interval).startswith("+-"):
+            return "no cross-validation (interval = published ±1 SE)"
+        return "no cross-validation" + (" (no interval given)" if interval == "none" else "")
+    nominal = "" if level is None or pd.isna(level) else f" of {float(level):.0%}"
+    return f"CV coverage {float(coverage):.0%}{nominal}" + (f" ({scheme})" if scheme else "")
+
+
+def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
+    """The interval figure as PNG bytes (matplotlib, Agg backend).
+
+    One panel per paleosol (at most :data:`MAX_PANELS`), one row per fit: a bar from
+    lower to upper, the estimate as a black diamond, the cross-validated coverage and
+    flags printed at the right. Fits with a serious flag are drawn paler; fits without an
+    interval show the estimate only.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    panels = panel_groups(table)[:MAX_PANELS]
+    if not panels:
+        raise UsageError("nothing to draw: no paleosol has an estimate")
+    heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
+    fig, axes = plt.subplots(len(panels), 1, figsize=(11, sum(heights)), squeeze=False,
+                             gridspec_kw={"height_ratios": heights})
+    for ax, (pid, rows) in zip(axes[:, 0], panels):
+        _panel(ax, rows, pid)
+    if title:
+        fig.suptitle(title, x=0.01, ha="left", fontsize=11)
+    fig.legend(handles=_legend_handles(), loc="upper right", bbox_to_anchor=(0.985, 0.998),
+               ncol=3, frameon=False, fontsize=FONT["legend"])
+    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / sum(heights),
+                        bottom=0.55 / sum(heights), hspace=0.5)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=130)
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def _legend_handles() -> list:
+    """What the colours and the diamond mean (one legend for every panel)."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    return [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
+            Patch(color=STYLE["published"], label="published equation (±1 SE)"),
+            Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                   label="estimate")]
+
+
+def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
+    """One panel per paleosol and response: fits of different quantities (MAP in mm, MAT in
+    degC) never share an axis. A panel where no fit gave an estimate is left out (the table
+    says why each was not evaluated); titles name the quantity when a paleosol has several."""
+    out = []
+    for pid in dict.fromkeys(table["paleosol_id"]):
+        rows = table[table["paleosol_id"] == pid]
+        groups = [grp for _, grp in rows.groupby(["response", "unit"], sort=False,
+                                                 dropna=False)
+                  if np.isfinite(grp["estimate"].astype(float)).any()]
+        for grp in groups:
+            title = str(pid) if len(groups) == 1 else f"{pid}: {grp['response'].iloc[0]}"
+            out.append((title, grp))
+    return out
+
+
+#: Flags that say the equation does not hold here (drawn paler); the others are notes.
+SERIOUS_FLAGS = ("outside-calibration-range", "beyond-turning-point", "unbounded",
+                 "two-roots", "open-below", "open-above", "setting-mismatch",
+                 "beyond-search-window")
+
+
+def _serious(flags) -> bool:
+    return any(f in SERIOUS_FLAGS for f in str(flags or "").split(";"))
+
+
+def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
+    rows = rows.reset_index(drop=True)
+    y = np.arange(len(rows))[::-1]
+    finite = pd.concat([rows["lower"], rows["upper"], rows["estimate"]]).astype(float)
+    finite = finite[np.isfinite(finite)]
+    lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
+    # a lone estimate still gets a readable axis: +-10 % of its size (at least 1 unit)
+    pad = 0.05 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(0.1 * abs(hi_ax), 1.0)
+    for yi, r in zip(y, rows.itertuples(index=False)):
+        colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
+        alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
+        lo, hi = float(r.lower), float(r.upper)
+        if np.isfinite(lo) or np.isfinite(hi):
+            a = lo if np.isfinite(lo) else lo_ax - pad
+            b = hi if np.isfinite(hi) else hi_ax + pad
+            ax.barh(yi, b - a, left=a, height=0.5, color=colour, alpha=alpha,
+                    edgecolor=colour, linewidth=0.8)
+        elif np.isfinite(float(r.estimate)):
+            colour = STYLE["none"]
+        if np.isfinite(float(r.estimate)):
+            ax.plot(float(r.estimate), yi, marker="D", color=STYLE["estimate"], ms=5,
+                    zorder=3)
+        note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
+        if r.flags:
+            note += "\nflags: " + str(r.flags).replace(";", ", ")
+        if r.problem:
+            note = "not evaluated: " + str(r.problem)[:90]
+        note = "\n".join(textwrap.fill(part, NOTE_WIDTH) for part in note.split("\n"))
+        ax.annotate(note, xy=(1.01, yi), xycoords=("axes fraction", "data"),
+                    va="center", fontsize=FONT["note"], color="#333333",
+                    annotation_clip=False)
+    ax.set_yticks(y, [str(f).replace(" ", "\n", 1) for f in rows["fit"]],
+                  fontsize=FONT["fit"])
+    ax.set_xlim(lo_ax - 2 * pad, hi_ax + 2 * pad)
+    unit = rows["unit"].iloc[0] if len(rows) else ""
+    ax.set_xlabel(f"{rows['response'].iloc[0]} [{unit}]" if len(rows) else "",
+                  fontsize=FONT["axis"])
+    ax.tick_params(axis="x", labelsize=FONT["fit"])
+    ax.set_title(str(pid), loc="left", fontsize=FONT["title"], fontweight="bold")
+    ax.grid(axis="x", color=STYLE["grid"])
+    ax.set_axisbelow(True)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+
+
+def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level=None,
+                  decompact=False, constants_file=None, seed=0):
+    """The comparison table and the :class:`refit.apply.estimates.ApplyResult` behind it.
+
+    Exactly one of ``fossils`` (a table path) and ``at`` (``NAME=VALUE`` texts) is given;
+    ``paleosols`` keeps only those ids (all when empty).
+    """
+    from refit.apply.estimates import apply_files
+
+    if (fossils is None) == (not at):
+        raise UsageError("give either --fossils TABLE or --at NAME=VALUE (not both)")
+    source = fossils if fossils is not None else at_frame(at)
+    result = apply_files(coefficient_files, source, level=level, decompact=decompact,
+                         constants_file=constants_file, seed=seed)
+    table = comparison_table(result.results)
+    if paleosols:
+        unknown = [p for p in paleosols if p not in set(table["paleosol_id"])]
+        if unknown:
+            raise UsageError(f"--paleosol {', '.join(unknown)}: not in the table; its ids "
+                             "are " + ", ".join(dict.fromkeys(table["paleosol_id"])))
+        table = table[table["paleosol_id"].isin(paleosols)].reset_index(drop=True)
+    return table, result

@@ -1,0 +1,345 @@
+"""Coefficient files: build, write, load, validate, hash and evaluate them.
+
+A coefficient file is one JSON document per transfer function, described by the JSON
+Schema ``schemas/coefficients.schema.json`` (draft 2020-12) and checked against it on
+write and on read. It carries everything another program needs to evaluate the equation
+*and its prediction interval* without the calibration data (see the README section
+"Evaluating a coefficient file" for the arithmetic, in words any language can follow).
+
+Consumer API (light: numpy and the standard library; no pandas, scipy, statsmodels or
+scikit-learn at import)::
+
+    from refit.coefficients import load
+    eq = load("map_from_bk_depth/1.0.0.json")      # refuses edited or invalid files
+    res = eq.predict([40.0, 120.0])                # estimate, lower, upper, flags
+    res.to_frame()                                 # a pandas DataFrame, if wanted
+
+Loading never executes anything from the file: it is parsed as JSON (NaN and infinities
+refused), its ``schema_version`` major checked, the schema validated, and the ``sha256`` of
+the canonical content (keys sorted, no whitespace, UTF-8, without the ``sha256`` key)
+compared with the stored one. Any failure names the file and the JSON path of the field.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from refit.errors import InvalidDataError, UnreadableInputError, UsageError
+
+SCHEMA_VERSION = "1.1.0"
+CANDIDATE_VERSION = "0.0.0-candidate"
+SCHEMA_FILE = "coefficients.schema.json"
+CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "
+           "research, not for engineering, hazard or regulatory decisions.")
+
+
+# ----------------------------------------------------------------------------- plain JSON
+def plain(value):
+    """A JSON-ready copy of ``value``: numpy scalars and arrays to Python, NaN/inf to None."""
+    if isinstance(value, dict):
+        return {str(k): plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return plain(value.tolist())
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    if value is None or isinstance(value, str):
+        return value
+    try:
+        import pandas as pd
+
+        if value is pd.NA or value is pd.NaT:
+            return None
+    except ImportError:  # pragma: no cover
+        pass
+    return str(value)
+
+
+def canonical_bytes(content: dict) -> bytes:
+    """Canonical JSON bytes of ``content`` without its ``sha256`` key (keys sorted,
+    compact separators, UTF-8, no NaN)."""
+    body = {k: v for k, v in plain(content).items() if k != "sha256"}
+    return json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False).encode("utf-8")
+
+
+def content_sha256(content: dict) -> str:
+    """sha256 (hex) of :func:`canonical_bytes`."""
+    import hashlib
+
+    return hashlib.sha256(canonical_bytes(content)).hexdigest()
+
+
+def with_hash(content: dict) -> dict:
+    """A plain copy of ``content`` with ``sha256`` set to its canonical hash."""
+    out = plain(content)
+    out["sha256"] = content_sha256(out)
+    return out
+
+
+def dumps(content: dict) -> str:
+    """The file text: indented JSON (key order as built), newline at the end."""
+    return json.dumps(plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+# ----------------------------------------------------------------------------- schema
+_VALIDATOR = None
+
+
+def schema() -> dict:
+    """The coefficient-file JSON Schema (``schemas/coefficients.schema.json``)."""
+    from refit._util.resources import schemas_dir
+
+    return json.loads((schemas_dir() / SCHEMA_FILE).read_text("utf-8"))
+
+
+def _validator():
+    global _VALIDATOR
+    if _VALIDATOR is None:
+        from jsonschema import Draft202012Validator
+
+        _VALIDATOR = Draft202012Validator(schema())
+    return _VALIDATOR
+
+
+def json_path(parts) -> str:
+    """``$.interval.level`` / ``$.predictors[0].name`` from a jsonschema path."""
+    out = "$"
+    for p in parts:
+        out += f"[{p}]" if isinstance(p, int) else f".{p}"
+    return out
+
+
+def schema_problems(content: dict) -> list[tuple[str, str]]:
+    """``(json path, message)`` of every schema violation, sorted by path."""
+    errs = sorted(_validator().iter_errors(content), key=lambda e: list(map(str, e.path)))
+    return [(json_path(e.absolute_path), e.message) for e in errs]
+
+
+def check_schema_version(content: dict, where: str) -> None:
+    """Refuse a missing or unknown ``schema_version`` (only major 1 is understood)."""
+    sv = content.get("schema_version") if isinstance(content, dict) else None
+    if not isinstance(sv, str):
+        raise InvalidDataError(f"{where}: $.schema_version is missing or not text; this is "
+                               "not a refit coefficient file (expected e.g. \"1.0.0\")")
+    major = sv.split(".")[0]
+    if major != SCHEMA_VERSION.split(".")[0]:
+        raise InvalidDataError(f"{where}: $.schema_version is {sv!r}; this refit reads "
+                               f"major version {SCHEMA_VERSION.split('.')[0]} "
+                               f"({SCHEMA_VERSION}); upgrade refit or re-export the file")
+
+
+def validate(content: dict, *, where: str = "coefficient record",
+             check_hash: bool = True) -> dict:
+    """Check schema version, schema and (optionally) the content hash; return ``content``.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming ``where`` and the JSON path of the first offending field (and how many
+        more there are).
+    """
+    check_schema_version(content, where)
+    problems = schema_problems(content)
+    if problems:
+        path, msg = problems[0]
+        more = f" (and {len(problems) - 1} more problem(s))" if len(problems) > 1 else ""
+        raise InvalidDataError(f"{where}: {path}: {msg}{more}; the file does not follow "
+                               f"the coefficient-file schema {SCHEMA_VERSION}")
+    if check_hash:
+        actual = content_sha256(content)
+        if actual != content["sha256"]:
+            raise InvalidDataError(
+                f"{where}: $.sha256 does not match the content (stored "
+                f"{content['sha256'][:12]}..., computed {actual[:12]}...): the file was "
+                "edited after it was written; restore the original or re-export it")
+    _check_consistency(content, where)
+    return content
+
+
+def _check_consistency(c: dict, where: str) -> None:
+    """Cross-field rules a schema cannot state: shapes of coefficients and covariance."""
+    p = len(c["terms"])
+    if len(c["coefficients"]) != p:
+        raise InvalidDataError(f"{where}: $.coefficients has {len(c['coefficients'])} "
+                               f"value(s) but $.terms names {p}")
+    cov = c.get("covariance")
+    if cov is not None and (len(cov) != p or any(len(r) != p for r in cov)):
+        raise InvalidDataError(f"{where}: $.covariance must be {p} x {p} (one row and "
+                               "column per term)")
+    for name in c["equation"]["x"]:
+        if not any(name in t for t in c["terms"]):
+            raise InvalidDataError(f"{where}: $.equation.x names {name!r}, which no term "
+                                   "uses")
+
+
+# ----------------------------------------------------------------------------- files
+def _reject_constant(token: str):
+    raise ValueError(f"{token} is not allowed in a coefficient file (use null)")
+
+
+def read_record(path) -> dict:
+    """Parse, validate and hash-check a coefficient file; return its content (a dict).
+
+    Raises
+    ------
+    UnreadableInputError
+        Missing or unreadable file, or text that is not JSON (e.g. truncated).
+    InvalidDataError
+        Unknown schema version, schema violation or hash mismatch (naming the field).
+    """
+    path = Path(path)
+    try:
+        text = path.read_text("utf-8")
+    except FileNotFoundError:
+        raise UnreadableInputError(f"{path}: no such coefficient file; check the path")
+    except (OSError, UnicodeDecodeError) as err:
+        raise UnreadableInputError(f"{path}: cannot be read as UTF-8 text ({err})")
+    try:
+        content = json.loads(text, parse_constant=_reject_constant)
+    except (json.JSONDecodeError, ValueError) as err:
+        raise UnreadableInputError(f"{path}: not valid JSON ({err}); the file may be "
+                                   "truncated or damaged: restore it from its source")
+    if not isinstance(content, dict):
+        raise InvalidDataError(f"{path}: $: expected a JSON object, got "
+                               f"{type(content).__name__}")
+    return validate(content, where=str(path))
+
+
+def write_record(content: dict, path) -> Path:
+    """Validate (schema, hash) and write ``content`` atomically; returns the path."""
+    from refit._util.atomic import write_text_atomic
+
+    path = Path(path)
+    validate(content, where=str(path))
+    write_text_atomic(path, dumps(content))
+    return path
+
+
+# ----------------------------------------------------------------------------- consumer
+@dataclass
+class Prediction:
+    """Estimates and intervals [units of the response] and flags (';'-joined text)."""
+
+    estimate: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    flags: np.ndarray
+    level: float | None
+    method: str
+    exact: bool
+
+    def __len__(self) -> int:
+        return len(self.estimate)
+
+    def to_frame(self, index=None):
+        """The columns ``estimate``, ``lower``, ``upper``, ``flags`` as a pandas DataFrame."""
+        import pandas as pd
+
+        return pd.DataFrame({"estimate": self.estimate, "lower": self.lower,
+                             "upper": self.upper, "flags": self.flags}, index=index)
+
+
+def _values(values, names: list[str]) -> np.ndarray:
+    """New values as an (m, k) float array; a mapping or DataFrame is read by column."""
+    k = len(names)
+    if hasattr(values, "keys") and not isinstance(values, np.ndarray):
+        missing = [n for n in names if n not in values]
+        if missing:
+            raise UsageError(f"values lack column(s) {missing}; the equation needs {names}")
+        cols = [values[n] for n in names]
+        try:
+            return np.column_stack([np.atleast_1d(np.asarray(c, dtype=float)) for c in cols])
+        except (TypeError, ValueError) as err:
+            raise InvalidDataError(f"values for {names} must be numbers ({err})")
+    try:
+        arr = np.asarray(values, dtype=float)
+    except (TypeError, ValueError) as err:
+        raise InvalidDataError(f"values must be numbers; {err}: correct them or leave the "
+                               "cells empty (NaN)")
+    if arr.ndim <= 1:
+        arr = arr.reshape(-1, 1) if k == 1 else arr.reshape(1, -1)
+    if arr.ndim != 2 or arr.shape[1] != k:
+        raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
+    return arr
+
+
+@dataclass
+class Equation:
+    """A loaded coefficient file (:func:`load`); ``record`` is its validated content."""
+
+    record: dict
+    path: Path | None = None
+
+    def __getattr__(self, name):
+        rec = self.__dict__.get("record", {})
+        if name in rec:
+            return rec[name]
+        raise AttributeError(name)
+
+    @property
+    def predictor_names(self) -> list[str]:
+        """Names of the values :meth:`predict` takes, in order."""
+        return [p["name"] for p in self.record["predictors"]]
+
+    def predict(self, values, level: float | None = None, *, weights=None) -> Prediction:
+        """Estimate, interval and flags for new feature values, from the file alone.
+
+        Parameters
+        ----------
+        values : scalar, array_like (m,) or (m, k), mapping or DataFrame
+            The predictor(s) as measured [units of ``predictors[*].unit``]; NaN gives NaN
+            and the flag ``missing-value``.
+        level : float, optional
+            Interval coverage; default the file's ``interval.level``. Another level needs
+            the t quantile (scipy, imported then) or the stored resampling quantities;
+            a quantile-curve or published interval has one level only.
+        weights : float or array_like, optional
+            Weight ``w0`` of each new observation (variance ``s^2 / w0``), analytic and
+            bootstrap intervals; default 1.
+
+        Returns
+        -------
+        Prediction
+            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``.
+        """
+        from refit.coefficients.evaluate import evaluate
+
+        iv = self.record["interval"]
+        if level is None:
+            level = iv.get("level")
+            level = 0.95 if level is None else float(level)
+        if not (isinstance(level, (int, float)) and 0 < level < 1):
+            raise UsageError(f"level must be a number between 0 and 1 (e.g. 0.95); "
+                             f"got {level!r}")
+        if iv["method"] == "published" and iv.get("level") is not None and \
+                abs(level - iv["level"]) > 1e-12:
+            raise UsageError(f"the published interval has level {iv['level']} only")
+        v = _values(values, self.predictor_names)
+        if np.isinf(v).any():
+            raise InvalidDataError("values hold infinite numbers; use finite values or NaN")
+        w0 = np.ones(v.shape[0]) if weights is None else np.broadcast_to(
+            np.asarray(weights, dtype=float), (v.shape[0],))
+        if not np.all(np.isfinite(w0) & (w0 > 0)):
+            raise InvalidDataError("weights of new observations must be finite and > 0")
+        est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+        if iv["method"] in ("published", "none"):
+            level = iv.get("level")
+        return Prediction(est, lo, hi, flags, level, iv["method"],
+                          bool(iv.get("exact", True)))
+
+
+def load(path) -> Equation:
+    """Load a coefficient file (validated and hash-checked); see :func:`read_record`."""
+    return Equation(read_record(path), Path(path))

@@ -1,0 +1,413 @@
+"""Check a modern-soil calibration table: every problem at once, with row, column and fix.
+
+The column rules (types, ranges, required columns and values, unique ``profile_id``,
+closed vocabularies) come from ``schemas/calibration.table.json`` and run through pandera
+(:mod:`refit.curate.schema`) with lazy validation; the cells are parsed first (``refit/curate/cells.py``:
+text in a numeric column is reported as such, with the text), then this module adds the
+rules that span columns, the controlled vocabularies, plausibility warnings and the
+sequence checks (:mod:`refit.curate.sequences`), and gathers everything in one problems table
+(:class:`CheckReport`).
+
+Rules (``rule`` ids; severity error unless noted):
+
+``required-column``  a required column is absent (all absent ones are listed)
+``duplicate-column`` two columns share a name
+``climate-column``   none of ``map_mm``, ``mat_c``, ``mar_mm`` is present
+``required-value``   an empty cell in a required column
+``climate-missing``  a row without any climate value
+``unique-id``        a ``profile_id`` used more than once
+``not-a-number``     text in a numeric column
+``not-finite``       infinity in a numeric column (empty cells and NaN mean "missing")
+``not-a-date``       a date that is not ISO 8601 ``YYYY-MM-DD``
+``range``            a number outside its column's range
+``vocabulary``       a term outside the controlled vocabulary
+``vocabulary-form``  (warning) a known term written in another case, separator or number
+``mar-above-map``    ``mar_mm`` larger than ``map_mm``
+``bk-depth-without-thickness``  a Bk depth without a positive Bk thickness
+``oxide-total``      the sum of the ``*_wt`` oxides above 101 wt%
+``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
+``sequence-*``       (warnings) see :mod:`refit.curate.sequences`
+``no-rows``          (warning) a header without data rows
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from refit.curate import schema as _schema
+from refit.curate.cells import parse_cells
+from refit.curate.problems import PROBLEM_COLUMNS, Problems, fmt_values
+from refit.errors import InvalidDataError, UsageError
+from refit.curate.vocabularies import (  # noqa: F401  (re-exported: part of the checks API)
+    VOCABULARY_COLUMNS, check_vocabularies, load_vocabularies, match_vocabulary, vocab_key,
+)
+
+KINDS = ("calibration", "fossil")
+
+#: A Bk horizon in a soil wetter than this warns [mm]. Common practice: carbonate soils are
+#: mostly drier than about 760 mm MAP (Royer 1999, Geology 27, 1123-1126); the boundary
+#: varies by region, so this is a warning, not an error.
+CARBONATE_WET_LIMIT_MM = 760.0
+
+
+@dataclass
+class CheckReport:
+    """The outcome of checking one table (see the module docstring for the rules)."""
+
+    problems: pd.DataFrame
+    frame: pd.DataFrame
+    n_rows: int
+    path: str | None = None
+    notes: list[str] = field(default_factory=list)
+    source_rows: np.ndarray | None = field(default=None, repr=False)
+    kind: str = "calibration"
+
+    @property
+    def errors(self) -> pd.DataFrame:
+        return self.problems[self.problems["severity"] == "error"]
+
+    @property
+    def warnings(self) -> pd.DataFrame:
+        return self.problems[self.problems["severity"] == "warning"]
+
+    @property
+    def ok(self) -> bool:
+        """True when there is no error (warnings allowed)."""
+        return not (self.problems["severity"] == "error").any()
+
+    def table_errors(self) -> pd.DataFrame:
+        """Errors about the whole table (row <NA>), e.g. missing required columns."""
+        err = self.errors
+        return err[err["row"].isna()]
+
+    def bad_rows(self) -> pd.Index:
+        """Index labels of ``frame`` rows that carry at least one row-level error."""
+        rows = self.errors["row"].dropna().astype("int64").unique()
+        source = self.source_rows if self.source_rows is not None else _default_rows(
+            self.n_rows)
+        return self.frame.index[np.isin(source, rows)]
+
+    def summary(self) -> pd.DataFrame:
+        """Count of problems per rule: columns ``rule``, ``severity``, ``count``."""
+        if self.problems.empty:
+            return pd.DataFrame({"rule": [], "severity": [], "count": []}).astype(
+                {"rule": "str", "severity": "str", "count": "int64"})
+        out = (self.problems.groupby(["severity", "rule"], sort=False).size()
+               .rename("count").reset_index())
+        return out[["rule", "severity", "count"]].sort_values(
+            ["severity", "count", "rule"], ascending=[True, False, True],
+            ignore_index=True)
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-ready dict: path, counts, summary, every problem and the notes."""
+        probs = self.problems.astype(object).where(self.problems.notna(), None)
+        return {
+            "path": self.path,
+            "kind": self.kind,
+            "n_rows": int(self.n_rows),
+            "ok": bool(self.ok),
+            "n_errors": int(len(self.errors)),
+            "n_warnings": int(len(self.warnings)),
+            "n_bad_rows": int(len(self.bad_rows())),
+            "summary": [
+                {"rule": r, "severity": s, "count": int(c)}
+                for r, s, c in self.summary().itertuples(index=False)
+            ],
+            "problems": [
+                {k: (int(v) if k == "row" and v is not None else v) for k, v in rec.items()}
+                for rec in probs.to_dict(orient="records")
+            ],
+            "notes": list(self.notes),
+        }
+
+
+def _default_rows(n: int) -> np.ndarray:
+    # without a reader: a csv whose header is on row 1, so data start on row 2
+    return np.arange(n, dtype="int64") + 2
+
+
+# --- checking ---------------------------------------------------------------------------
+
+def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckReport:
+    """Read a table (csv/tsv/xlsx/parquet), map its units and column names, and check it.
+
+    Parameters
+    ----------
+    path : str or Path
+        The table.
+    kind : {"calibration"}
+        Table kind.
+    vocabularies : dict, optional
+        From :func:`load_vocabularies`; default the shipped vocabularies.
+
+    Returns
+    -------
+    CheckReport
+        With the reader's and the unit mapping's notes in ``notes``.
+
+    Raises
+    ------
+    UnreadableInputError
+        Missing, empty or unparseable file (exit code 2).
+    """
+    _check_kind(kind)
+    try:
+        return _check_file(path, kind, vocabularies)
+    except InvalidDataError as exc:  # e.g. two columns mapping to one: say which file
+        if Path(path).name in str(exc):
+            raise
+        raise InvalidDataError(f"{path}: {exc}") from None
+
+
+def _check_file(path, kind: str, vocabularies) -> CheckReport:
+    if kind == "fossil":
+        from refit.curate.fossils import check_fossil_file
+
+        return check_fossil_file(path, vocabularies=vocabularies)
+    from refit.curate.tables import read_table
+    from refit.curate.units import normalise_columns
+
+    table = read_table(path, as_text=False, digest=False)
+    frame, mapped = normalise_columns(table.frame, positions=table.file_columns)
+    report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
+                         path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
+    if mapped and not report.problems.empty:
+        from refit.curate.units import add_file_context
+
+        report.problems = add_file_context(report.problems, table.frame, table.source_rows)
+    return report
+
+
+def _check_kind(kind: str) -> None:
+    if kind not in KINDS:
+        raise UsageError(f"unknown table kind {kind!r}; use one of: {', '.join(KINDS)}.")
+
+
+def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, path=None,
+                kind: str = "calibration", notes=None) -> CheckReport:
+    """Check a calibration table held in a DataFrame against every rule.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Canonical column names (see ``schemas/calibration.table.json``); values as read.
+    source_rows : array_like of int, optional
+        File row number of each frame row; default ``2, 3, ...`` (header on row 1).
+    vocabularies : dict, optional
+        From :func:`load_vocabularies`; default the shipped vocabularies.
+    path : str, optional
+        Shown in the report.
+    kind : {"calibration"}
+        Table kind.
+    notes : list of str, optional
+        Reader and unit-mapping notes to pass through.
+
+    Returns
+    -------
+    CheckReport
+        ``frame`` holds the checked data with the same index as the input: numeric
+        columns as float64 (cells that failed to parse, and infinities, become NaN),
+        text stripped (empty text becomes missing), known vocabulary variants replaced by
+        their canonical term, dates kept as ISO text.
+    """
+    _check_kind(kind)
+    if kind == "fossil":
+        from refit.curate.fossils import check_fossil_frame
+
+        return check_fossil_frame(frame, source_rows=source_rows, vocabularies=vocabularies,
+                                  path=path, notes=notes)
+    from refit.curate import sequences
+    n = len(frame)
+    rows = _default_rows(n) if source_rows is None else np.asarray(source_rows, "int64")
+    if len(rows) != n:
+        raise ValueError(f"source_rows has {len(rows)} entries for {n} rows")
+    vocab = load_vocabularies() if vocabularies is None else vocabularies
+    desc = _schema.load_descriptor()
+    work, probs = parse_cells(frame, rows, desc)
+    check_vocabularies(work, probs, vocab)
+    _run_pandera(work, probs, desc)
+    _check_climate(work, probs, desc)
+    _check_cross_columns(work, probs, desc)
+    probs.add_frame(sequences.sequence_problems(work))
+    if n == 0:
+        probs.add_table("warning", "no-rows", "", "the table has a header but no data "
+                        "rows; check that the export holds the data.")
+    out_frame = work.set_axis(frame.index, axis=0)
+    return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
+                       path=None if path is None else str(path),
+                       notes=list(notes or []), source_rows=rows)
+
+
+#: Let a vectorised pre-scan skip the columns that certainly pass (see _run_pandera).
+PRESCREEN = True
+
+
+def _run_pandera(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    """Column rules from the descriptor, via pandera lazy validation.
+
+    For speed (a million rows in well under a second), checks whose outcome is already
+    known are dropped at run time; the schema itself keeps them (tests/curate/test_schema.py)
+    and a test asserts the same problems with and without this shortcut:
+
+    - a column that certainly passes (a numpy pre-scan of the descriptor's bounds, its
+      nullability and, for ``profile_id``, a hash count for duplicates) is not handed
+      to pandera; pandera validates the columns that may fail and reports the failures;
+    - when every required column is present and every column certainly passes, pandera
+      has nothing to do and is not even imported (a clean table checks faster);
+    - the closed-list ``isin`` checks, which :func:`check_vocabularies` already ran.
+    """
+    fields = _schema.fields(desc)
+    keys = _schema.primary_key(desc)
+    required = [n for n, f in fields.items() if _schema.is_required(f, keys)]
+    if PRESCREEN and all(n in work.columns for n in required) and all(
+            _surely_passes(work[n], f, keys) for n, f in fields.items() if n in work.columns):
+        return
+    import pandera.errors as pe
+
+    from refit.curate.problems import translate_failures
+
+    schema = _schema.build_schema(desc, columns=work.columns)
+    updates, passing = {}, []
+    for name, col in schema.columns.items():
+        if name not in work.columns:
+            continue  # a missing required column: pandera reports it
+        if PRESCREEN and _surely_passes(work[name], fields[name], keys):
+            passing.append(name)
+            continue
+        if col.unique and pd.Index(work[name]).is_unique:
+            updates.setdefault(name, {})["unique"] = False
+        if name in VOCABULARY_COLUMNS and any(str(c.name) == "isin" for c in col.checks):
+            updates.setdefault(name, {})["checks"] = [
+                c for c in col.checks if str(c.name) != "isin"]
+    schema = schema.remove_columns(passing)
+    if updates:
+        schema = schema.update_columns(updates)
+    try:
+        schema.validate(work, lazy=True, inplace=True)
+    except pe.SchemaErrors as exc:
+        translate_failures(exc.failure_cases, work, probs, fields)
+
+
+def _surely_passes(values: pd.Series, field: dict, keys: list[str]) -> bool:
+    """True when the column certainly passes the pandera checks its descriptor field
+    makes (:func:`refit.curate.schema.column_for`); a fast pre-scan that needs no pandera."""
+    cons = field.get("constraints", {})
+    if "enum" in cons and field["name"] not in VOCABULARY_COLUMNS:
+        return False  # a closed list the pre-scan does not run: let pandera check it
+    if _schema.is_required(field, keys) and values.isna().any():
+        return False
+    if _schema.is_unique(field, keys) and not pd.Index(values).is_unique:
+        return False
+    if field.get("type") in ("number", "integer"):
+        if str(values.dtype) != "float64":
+            return False
+        arr = values.to_numpy()
+        with np.errstate(invalid="ignore"):
+            if "minimum" in cons and (arr < cons["minimum"]).any():
+                return False
+            if "maximum" in cons and (arr > cons["maximum"]).any():
+                return False
+    return True
+
+
+def _check_climate(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    climate = _schema.refit_rules(desc).get("climate_columns_any_of",
+                                            ["map_mm", "mat_c", "mar_mm"])
+    present = [c for c in climate if c in work.columns]
+    if not present:
+        probs.add_table("error", "climate-column", "|".join(climate),
+                        f"no climate column: a calibration table needs at least one of "
+                        f"{', '.join(climate)}. Add the column (a unit in its name, e.g. "
+                        "map_in, is converted).")
+        return
+    empty = np.ones(len(work), dtype=bool)
+    for c in present:
+        empty &= work[c].isna().to_numpy() & ~probs.flagged_mask(c, len(work))
+    if empty.any():
+        pos = np.flatnonzero(empty)
+        probs.add("error", "climate-missing", pos, "|".join(present), [""] * len(pos),
+                  f"no climate value in this row ({', '.join(present)} all empty); a "
+                  "calibration profile needs at least one. Fill one in or remove the row.")
+
+
+def _check_cross_columns(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    cols = work.columns
+    if "mar_mm" in cols and "map_mm" in cols:
+        mar, mapp = work["mar_mm"], work["map_mm"]
+        pos = np.flatnonzero((mar > mapp).to_numpy())
+        if len(pos):
+            probs.add("error", "mar-above-map", pos, "mar_mm", fmt_values(mar.iloc[pos]),
+                      "MAR " + fmt_values(mar.iloc[pos]) + " mm is larger than MAP "
+                      + fmt_values(mapp.iloc[pos]) + " mm; the range of monthly "
+                      "precipitation cannot exceed the annual total. Check that both are "
+                      "in mm and not swapped.")
+    if "bk_depth_cm" in cols:
+        depth = work["bk_depth_cm"]
+        thick = work["bk_thickness_cm"] if "bk_thickness_cm" in cols else pd.Series(
+            np.nan, index=work.index)
+        # a negative thickness is already a range error; here: missing or zero
+        pos = np.flatnonzero((depth.notna() & (thick.isna() | (thick == 0))).to_numpy())
+        if len(pos):
+            probs.add("error", "bk-depth-without-thickness", pos, "bk_thickness_cm",
+                      fmt_values(thick.iloc[pos]),
+                      "a Bk depth (" + fmt_values(depth.iloc[pos]) + " cm) is given but "
+                      "no positive Bk thickness; enter bk_thickness_cm, or leave "
+                      "bk_depth_cm empty if the profile has no Bk horizon.")
+    _check_oxide_total(work, probs, desc)
+    _warn_horizons(work, probs)
+
+
+def _check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
+    oxides = [c for c in _schema.fields(desc) if c.endswith("_wt") and c in work.columns]
+    if not oxides:
+        return
+    limit = float(_schema.refit_rules(desc).get("oxide_total_max_wt", 101.0))
+    total = np.zeros(len(work))
+    for c in oxides:
+        total += np.nan_to_num(work[c].to_numpy(dtype="float64"), nan=0.0)
+    total = pd.Series(total, index=work.index)
+    pos = np.flatnonzero((total > limit).to_numpy())
+    if len(pos):
+        shown = fmt_values(total.iloc[pos].round(6))  # no float noise such as ...00001
+        probs.add("error", "oxide-total", pos, "+".join(oxides), shown,
+                  "the oxides add up to " + shown
+                  + f" wt% (more than {limit:g}); check for a value in ppm or a "
+                  "misplaced decimal point, and that the oxides are weight percent.")
+
+
+def _warn_horizons(work: pd.DataFrame, probs: Problems) -> None:
+    cols = work.columns
+    if "bk_depth_cm" in cols and "by_depth_cm" in cols:
+        bk, by = work["bk_depth_cm"], work["by_depth_cm"]
+        # common practice: gypsic (By) horizons normally lie below the calcic (Bk)
+        # horizon (gypsum is more soluble and is leached deeper; Bockheim 2014, from memory)
+        pos = np.flatnonzero((by < bk).to_numpy())
+        if len(pos):
+            probs.add("warning", "gypsum-above-carbonate", pos, "by_depth_cm",
+                      fmt_values(by.iloc[pos]),
+                      "the gypsic (By) horizon at " + fmt_values(by.iloc[pos])
+                      + " cm lies above the Bk at " + fmt_values(bk.iloc[pos])
+                      + " cm; gypsum normally lies deeper. Check the depths and the "
+                      "horizon names.")
+    if "bk_depth_cm" in cols and "map_mm" in cols:
+        bk, mapp = work["bk_depth_cm"], work["map_mm"]
+        # common practice: carbonate soils are mostly drier than ~760 mm MAP (Royer 1999)
+        pos = np.flatnonzero((bk.notna() & (mapp > CARBONATE_WET_LIMIT_MM)).to_numpy())
+        if len(pos):
+            probs.add("warning", "carbonate-in-wet-climate", pos, "map_mm",
+                      fmt_values(mapp.iloc[pos]),
+                      "a Bk horizon in a soil with MAP " + fmt_values(mapp.iloc[pos])
+                      + f" mm; carbonate soils are mostly drier than about "
+                      f"{CARBONATE_WET_LIMIT_MM:g} mm (Royer 1999). Check MAP and the "
+                      "horizon; keep the row if the region is known for it.")
+
+
+__all__ = [
+    "CheckReport", "check_file", "check_frame", "load_vocabularies", "match_vocabulary",
+    "vocab_key", "PROBLEM_COLUMNS", "CARBONATE_WET_LIMIT_MM",
+]

@@ -1,0 +1,498 @@
+"""The calibration store: a folder of versioned modern-soil records.
+
+Layout::
+
+    STORE/records.csv      canonical columns (schema order, then extras alphabetically),
+                           rows in admission order; rows are only ever appended
+    STORE/manifest.json    name, version, records_sha256, row_count, columns, changelog
+    STORE/quarantine/      <version>-<stem>.csv: every rejected row unchanged, with
+                           _reasons and _source_row; <version>-<stem>.problems.csv: every
+                           problem of that batch, machine-readable
+    STORE/vocabularies.json  optional vocabulary extensions of this store
+    STORE/.lock            held while a process reads or changes the store
+
+Dataset version k is the first ``row_count_after`` rows of records.csv given in the
+changelog entry of version k, restricted to that entry's ``columns``
+(:meth:`Store.records_at` rebuilds it and checks its sha256). Version 0 is the empty store.
+Every admit that reads at least one row makes a new version, even when it accepts nothing,
+so each batch, its quarantine file and its sha256 stay on record.
+
+An admit lands whole or not at all: the new files are staged in ``STORE/.pending-<id>/``,
+a ``COMMIT`` marker is written atomically once all are complete, then each file is moved
+into place with ``os.replace``. Any store operation first finishes a committed staging
+folder (roll forward) or deletes an uncommitted one (roll back), and says so.
+
+Locking, staging, commit and recovery live in ``refit/curate/store_commit.py``; duplicate detection
+in ``refit/curate/duplicates.py``.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import functools
+import io
+import json
+import re
+import shutil
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from refit._util.atomic import TMP_PREFIX, sha256_bytes, sha256_file
+from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
+    DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
+)
+from refit.curate.store_commit import _commit, _locked, recover
+from refit.errors import InvalidDataError, UsageError
+
+FORMAT = "refit-store/1"
+#: How long an operation waits for another one to release the store [s].
+LOCK_TIMEOUT_S = 5.0
+QUARANTINE_EXTRA = ("_reasons", "_source_row")
+_OWN_ENTRIES = re.compile(r"^(\.lock|\.pending-.*|" + re.escape(TMP_PREFIX) + r".*)$")
+
+# --------------------------------------------------------------------------------------
+# the store as read
+
+
+@dataclass
+class Store:
+    """A calibration store as read from its folder (see the module docstring)."""
+
+    path: Path
+    manifest: dict
+    records_text: pd.DataFrame = field(repr=False)
+    recovered: list[str] = field(default_factory=list)
+
+    @property
+    def version(self) -> int:
+        return int(self.manifest["version"])
+
+    @property
+    def name(self) -> str:
+        return str(self.manifest["name"])
+
+    @functools.cached_property
+    def records(self) -> pd.DataFrame:
+        """Records with schema number columns as float64 and empty cells as missing."""
+        return typed_records(self.records_text)
+
+    def records_at(self, version: int) -> pd.DataFrame:
+        """The records of dataset ``version`` as text, checked against its recorded sha256."""
+        if version == 0:
+            return self.records_text.iloc[0:0][list(canonical_order([]))]
+        entry = next((e for e in self.manifest["changelog"] if e["version"] == version), None)
+        if entry is None:
+            raise UsageError(f"store {self.path} has no version {version}; it has versions "
+                             f"0 to {self.version}")
+        rows = self.records_text.iloc[: entry["row_count_after"]][entry["columns"]]
+        if sha256_bytes(records_bytes(rows)) != entry["records_sha256"]:
+            raise InvalidDataError(
+                f"{self.path}: rebuilding version {version} does not reproduce its recorded "
+                "sha256; records.csv was edited outside refit")
+        return rows
+
+
+def typed_records(text: pd.DataFrame) -> pd.DataFrame:
+    from refit.curate.units import schema_fields
+
+    numeric = {f["name"] for f in schema_fields() if f.get("type") in ("number", "integer")}
+    out = text.replace("", np.nan)
+    for col in out.columns:
+        if col in numeric:
+            out[col] = pd.to_numeric(out[col], errors="coerce").astype("float64")
+    return out
+
+
+def canonical_order(columns) -> list[str]:
+    """All schema columns in schema order, then the extra columns alphabetically."""
+    from refit.curate.units import canonical_columns
+
+    schema = canonical_columns()
+    extras = sorted({str(c) for c in columns} - set(schema))
+    return schema + extras
+
+
+def records_bytes(frame: pd.DataFrame) -> bytes:
+    """records.csv bytes for a text frame (UTF-8, ``\\n`` line ends, minimal quoting)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(list(frame.columns))
+    writer.writerows(frame.itertuples(index=False, name=None))
+    return buf.getvalue().encode("utf-8")
+
+
+def _read_records(path: Path) -> pd.DataFrame:
+    return pd.read_csv(path, dtype=str, keep_default_na=False, na_filter=False,
+                       encoding="utf-8")
+
+
+def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
+    """Open a store, first recovering from any interrupted admit.
+
+    Raises
+    ------
+    UsageError
+        The folder does not exist or is not a store (exit code 2).
+    InvalidDataError
+        records.csv does not match the sha256 in manifest.json (exit code 1).
+    StoreBusyError
+        Another process holds the store's lock for longer than ``lock_timeout``.
+    """
+    store_dir = Path(store_dir)
+    if _state(store_dir) != "store":
+        raise UsageError(f"{store_dir} is not a refit store (no manifest.json); give the "
+                         "folder of a store, or create one with 'refit admit TABLE --into "
+                         f"{store_dir}'")
+    try:
+        lock = _locked(store_dir, lock_timeout)
+        lock.__enter__()
+    except PermissionError:  # a read-only store (e.g. installed with the package)
+        if list(store_dir.glob(".pending-*")):
+            raise InvalidDataError(
+                f"{store_dir} holds an interrupted admit but is read-only; open it once with "
+                "write access so refit can finish or undo it") from None
+        return _load(store_dir, [])
+    try:
+        return _load(store_dir, recover(store_dir))
+    finally:
+        lock.__exit__()
+
+
+def _load(store_dir: Path, recovered: list[str]) -> Store:
+    try:
+        manifest = json.loads((store_dir / "manifest.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InvalidDataError(f"{store_dir / 'manifest.json'} cannot be read ({exc}); restore "
+                               "it from a backup or version control") from None
+    records = store_dir / "records.csv"
+    if not records.is_file():
+        raise InvalidDataError(f"{records} is missing; restore it from a backup")
+    actual = sha256_file(records)
+    if actual != manifest.get("records_sha256"):
+        raise InvalidDataError(
+            f"{records} does not match its manifest (sha256 {actual[:12]}... but manifest.json "
+            f"records {str(manifest.get('records_sha256'))[:12]}...): it was edited outside "
+            "refit. Restore records.csv (e.g. 'git checkout' or a backup); add new soils with "
+            "'refit admit' instead of editing the file")
+    return Store(store_dir, manifest, _read_records(records), recovered)
+
+
+def _empty_store(store_dir: Path) -> Store:
+    columns = canonical_order([])
+    return Store(store_dir, {"name": store_dir.name, "version": 0, "changelog": [],
+                             "columns": columns}, pd.DataFrame(columns=columns, dtype=str))
+
+
+def _state(store_dir: Path) -> str:
+    """'missing', 'new' (empty folder or only our own leftovers), 'store'; else refuse."""
+    if not store_dir.exists():
+        return "missing"
+    if not store_dir.is_dir():
+        raise UsageError(f"{store_dir} is a file, not a store folder; choose a folder path")
+    if (store_dir / "manifest.json").is_file():
+        return "store"
+    others = [p.name for p in store_dir.iterdir() if not _OWN_ENTRIES.match(p.name)]
+    if others:
+        raise UsageError(
+            f"{store_dir} exists but is not a refit store (no manifest.json; it holds "
+            f"{', '.join(sorted(others)[:5])}{' ...' if len(others) > 5 else ''}); choose a "
+            "new folder name or an empty folder")
+    return "new"
+
+
+# --------------------------------------------------------------------------------------
+# admit
+
+
+@dataclass
+class AdmitResult:
+    """What an admit did (or would do, on a dry run)."""
+
+    table: str
+    store: str
+    dry_run: bool
+    created: bool
+    version_before: int
+    version_after: int
+    rows_read: int
+    accepted: int
+    rejected: int
+    row_count_after: int
+    reasons: dict[str, int]
+    rejected_rows: list[dict]
+    warnings: dict[str, int]
+    quarantine_file: str | None
+    problems_file: str | None
+    records_file: str
+    mappings: list[str]
+    reader_notes: list[str]
+    recovered: list[str]
+    records_sha256: str | None
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
+          today: str | dt.date | None = None, tolerance_deg: float = DUPLICATE_TOLERANCE_DEG,
+          lock_timeout: float | None = None) -> AdmitResult:
+    """Admit the rows of a table into a store: check, split, append, quarantine, version.
+
+    Parameters
+    ----------
+    table_path : str or Path
+        Incoming table (csv/tsv/txt, xlsx, parquet).
+    store_dir : str or Path
+        The store folder; created (named after the folder) when it does not exist.
+    dry_run : bool
+        Work out and return the same accounting, but write nothing. (An interrupted earlier
+        admit is still finished or undone first, as by any store operation.)
+    vocabularies : dict, optional
+        Vocabularies (from :func:`refit.curate.checks.load_vocabularies`); default the shipped ones
+        extended by ``STORE/vocabularies.json`` and ``vocab_files``.
+    vocab_files : sequence of path
+        Extra vocabulary extension files.
+    today : str or datetime.date, optional
+        Date for ``added_on`` and the changelog (ISO); default today.
+    tolerance_deg : float
+        Same-site tolerance of the duplicate check [degree].
+    lock_timeout : float, optional
+        Seconds to wait for another process to release the store [s]; default
+        ``LOCK_TIMEOUT_S``.
+
+    Returns
+    -------
+    AdmitResult
+
+    Raises
+    ------
+    InvalidDataError
+        Table-level problems (missing required or climate columns, unconvertible units);
+        nothing is written.
+    UnreadableInputError, UsageError, StoreBusyError
+        See :func:`refit.curate.tables.read_table`, :func:`open_store`.
+    """
+    from refit.curate.tables import read_table
+    from refit.curate.units import normalise_columns
+
+    store_dir, today = Path(store_dir), _iso_day(today)
+    state = _state(store_dir)
+    try:
+        table = read_table(table_path, as_text=True)
+    except InvalidDataError as exc:  # a repeated or blank column name, mixed decimals
+        raise InvalidDataError(f"{Path(table_path)} cannot be admitted; nothing was written: "
+                               f"{exc}") from None
+    original = table.frame
+    incoming = original.drop(columns=[c for c in QUARANTINE_EXTRA if c in original.columns])
+    try:
+        frame, mappings = normalise_columns(_as_numbers_read(table, incoming),
+                                            positions=table.file_columns)
+    except InvalidDataError as exc:
+        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
+                               f"{exc}") from None
+    if state != "store" and dry_run:  # nothing to lock or recover; create nothing
+        return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
+                             True, vocabularies, vocab_files, today, tolerance_deg)
+    was_missing = state == "missing"
+    store_dir.mkdir(parents=True, exist_ok=True)
+    try:
+        with _locked(store_dir, LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout):
+            recovered = recover(store_dir)
+            state = _state(store_dir)
+            store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
+            store.recovered = recovered
+            return _admit_locked(table, incoming, frame, mappings, store, state != "store",
+                                 dry_run, vocabularies, vocab_files, today, tolerance_deg)
+    finally:
+        if was_missing and not (store_dir / "manifest.json").exists():
+            shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
+
+
+def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:
+    """``incoming`` with decimal-comma numbers written with a point (see
+    :mod:`refit.curate.decimal_commas`); the quarantine keeps ``incoming`` itself, as in the file."""
+    from refit.curate.decimal_commas import to_decimal_points
+
+    return to_decimal_points(incoming, [c for c in table.decimal_comma if c in incoming])
+
+
+def _iso_day(today) -> str:
+    if today is None:
+        return dt.date.today().isoformat()
+    return today.isoformat() if isinstance(today, dt.date) else str(today)
+
+
+def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, vocabularies,
+                  vocab_files, today, tolerance_deg) -> AdmitResult:
+    from refit.curate.checks import check_frame, load_vocabularies
+
+    if vocabularies is None:
+        own = store.path / "vocabularies.json"
+        vocabularies = load_vocabularies(own if own.is_file() else None, *vocab_files)
+    report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
+                         path=str(table.path))
+    table_errors = report.table_errors()
+    if len(table_errors):
+        lines = [f"  - {m}" for m in table_errors["message"]]
+        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written:\n"
+                               + "\n".join(lines))
+    n = len(frame)
+    rejected, problems = _split_rows(report, frame, store, table.source_rows,
+                                     _as_numbers_read(table, incoming), tolerance_deg)
+    version = store.version + 1
+    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
+    q_rel = f"quarantine/{version:04d}-{stem}.csv" if rejected.any() else None
+    p_rel = f"quarantine/{version:04d}-{stem}.problems.csv" if len(problems) else None
+    records = _new_records(store.records_text, report.frame.loc[~rejected], today)
+    data = records_bytes(records)
+    reasons = _reason_counts(problems, table.source_rows[rejected])
+    entry = {
+        "version": version, "date": today, "source_file": Path(table.path).name,
+        "source_sha256": table.sha256, "rows_read": n, "accepted": int((~rejected).sum()),
+        "rejected": int(rejected.sum()), "quarantine_file": q_rel, "problems_file": p_rel,
+        "row_count_after": len(records), "records_sha256": sha256_bytes(data),
+        "columns": list(records.columns), "reasons": reasons, "mappings": list(mappings),
+    }
+    result = AdmitResult(
+        table=str(table.path), store=str(store.path), dry_run=dry_run, created=created,
+        version_before=store.version, version_after=store.version if dry_run else version,
+        rows_read=n, accepted=entry["accepted"], rejected=entry["rejected"],
+        row_count_after=len(records), reasons=reasons,
+        rejected_rows=_rejected_rows(problems, report.frame, table.source_rows, rejected),
+        warnings=_warning_counts(problems), quarantine_file=q_rel, problems_file=p_rel,
+        records_file="records.csv", mappings=list(mappings), reader_notes=list(table.notes),
+        recovered=list(store.recovered), records_sha256=entry["records_sha256"])
+    if dry_run:
+        return result
+    files = {"records.csv": data,
+             "manifest.json": _manifest_bytes(store, entry, tolerance_deg)}
+    if q_rel:
+        files[q_rel] = _quarantine_bytes(incoming, rejected, problems, table.source_rows)
+    if p_rel:
+        files[p_rel] = problems.to_csv(index=False, lineterminator="\n").encode("utf-8")
+    _commit(store.path, files, {"version": version, "source_file": entry["source_file"]})
+    return result
+
+
+def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
+    """(rejected mask, problems table with file_column and outcome) for a checked batch."""
+    from refit.curate.units import add_file_context
+
+    n = len(frame)
+    bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
+    dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
+    problems = add_file_context(_all_problems(report, dups, source_rows), original,
+                                source_rows)
+    rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
+    problems["outcome"] = np.where(
+        problems["row"].isna(), "",
+        np.where(problems["row"].isin(source_rows[rejected]), "quarantined", "admitted"))
+    return rejected, problems
+
+
+# --------------------------------------------------------------------------------------
+# building the files
+
+
+def _all_problems(report, dups: list[dict], source_rows: np.ndarray) -> pd.DataFrame:
+    from refit.curate.problems import PROBLEM_COLUMNS
+
+    ids = report.frame["profile_id"] if "profile_id" in report.frame else None
+    extra = pd.DataFrame([{
+        "severity": "error", "rule": d["rule"], "row": int(source_rows[d["pos"]]),
+        "profile_id": None if ids is None else ids.iloc[d["pos"]],
+        "column": d["column"], "value": d["value"], "message": d["message"]} for d in dups],
+        columns=PROBLEM_COLUMNS)
+    parts = [p for p in (report.problems[PROBLEM_COLUMNS], extra) if len(p)]
+    if not parts:
+        return report.problems[PROBLEM_COLUMNS].copy()
+    out = pd.concat(parts, ignore_index=True)
+    out["row"] = out["row"].astype("Int64")
+    return out
+
+
+def _reason_counts(problems: pd.DataFrame, rejected_rows: np.ndarray) -> dict[str, int]:
+    """Rule -> number of rejected rows with an error of that rule."""
+    err = problems[(problems["severity"] == "error") & problems["row"].isin(rejected_rows)]
+    counts = err.drop_duplicates(["rule", "row"])["rule"].value_counts()
+    return {str(k): int(v) for k, v in counts.items()}
+
+
+def _warning_counts(problems: pd.DataFrame) -> dict[str, int]:
+    counts = problems.loc[problems["severity"] == "warning", "rule"].value_counts()
+    return {str(k): int(v) for k, v in counts.items()}
+
+
+def _row_reasons(problems: pd.DataFrame) -> dict[int, list[str]]:
+    """Source row -> "rule (column 'name in the file'): message" for each of its errors."""
+    out: dict[int, list[str]] = {}
+    err = problems[(problems["severity"] == "error") & problems["row"].notna()]
+    for row, rule, col, message in zip(err["row"], err["rule"], err["file_column"],
+                                       err["message"]):
+        where = f" (column {col!r})" if col else ""
+        out.setdefault(int(row), []).append(f"{rule}{where}: {message}")
+    return out
+
+
+def _rejected_rows(problems, frame, source_rows, rejected) -> list[dict]:
+    reasons = _row_reasons(problems)
+    ids = frame["profile_id"] if "profile_id" in frame else pd.Series(None, index=frame.index)
+    return [{"row": int(source_rows[p]), "profile_id": _cell(ids.iloc[p]),
+             "reasons": reasons.get(int(source_rows[p]), [])}
+            for p in np.flatnonzero(rejected)]
+
+
+def _quarantine_bytes(incoming, rejected, problems, source_rows) -> bytes:
+    """The rejected rows exactly as read, plus ``_reasons`` and ``_source_row``."""
+    reasons = _row_reasons(problems)
+    rows = incoming.loc[rejected].astype(str).copy()
+    rows["_reasons"] = ["; ".join(reasons.get(int(r), [])) for r in source_rows[rejected]]
+    rows["_source_row"] = [str(int(r)) for r in source_rows[rejected]]
+    return records_bytes(rows)
+
+
+def _cell(value) -> str:
+    """Text of one stored cell: '' for missing, numbers without float noise."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return ""
+    if isinstance(value, (float, np.floating)):
+        if value != value:
+            return ""
+        if float(value).is_integer() and abs(value) < 1e15:
+            return str(int(value))
+        return f"{float(value):.12g}"
+    if isinstance(value, (np.integer,)):
+        return str(int(value))
+    return str(value)
+
+
+def _new_records(old: pd.DataFrame, accepted: pd.DataFrame, today: str) -> pd.DataFrame:
+    columns = canonical_order([*old.columns, *accepted.columns])
+    new = accepted.reindex(columns=columns).map(_cell) if len(accepted) else \
+        pd.DataFrame(columns=columns, dtype=str)
+    if len(new):
+        new["added_on"] = new["added_on"].where(new["added_on"] != "", today)
+    old = old.reindex(columns=columns, fill_value="")
+    return pd.concat([old, new], ignore_index=True).astype(str) if len(new) else old
+
+
+def _manifest_bytes(store: Store, entry: dict, tolerance_deg: float) -> bytes:
+    manifest = {
+        "name": store.manifest.get("name", store.path.name),
+        "format": FORMAT,
+        "version": entry["version"],
+        "records_sha256": entry["records_sha256"],
+        "row_count": entry["row_count_after"],
+        "columns": entry["columns"],
+        "created": store.manifest.get("created", entry["date"]),
+        "duplicate_tolerance_deg": tolerance_deg,
+        "versioning": ("rows are only appended: dataset version k is the first "
+                       "row_count_after rows of records.csv in the columns of changelog "
+                       "entry k, whose sha256 is records_sha256"),
+        "changelog": [*store.manifest.get("changelog", []), entry],
+    }
+    return (json.dumps(manifest, indent=2, ensure_ascii=False) + "\n").encode("utf-8")

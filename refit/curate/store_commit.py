@@ -1,0 +1,106 @@
+"""Locking, staging, commit and recovery of a calibration store (see :mod:`refit.curate.store`).
+
+Internal. An admit lands whole or not at all: the new files are staged in
+``STORE/.pending-<id>/``, a ``COMMIT`` marker is written atomically once all are complete,
+then each file is moved into place with ``os.replace``. :func:`recover` (called with the
+lock held by every store operation) finishes a committed staging folder (roll forward) or
+deletes an uncommitted one (roll back), and says so.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import uuid
+from pathlib import Path
+
+from refit._util.atomic import TMP_PREFIX, fsync_dir, write_bytes_atomic
+from refit.errors import StoreBusyError
+
+
+class _locked:
+    """Hold ``STORE/.lock`` (filelock); refuse with StoreBusyError after ``timeout`` s."""
+
+    def __init__(self, store_dir: Path, timeout: float):
+        from filelock import FileLock
+
+        self.store_dir = store_dir
+        self.lock = FileLock(str(store_dir / ".lock"), timeout=timeout)
+
+    def __enter__(self):
+        from filelock import Timeout
+
+        try:
+            self.lock.acquire()
+        except Timeout:
+            raise StoreBusyError(
+                f"store {self.store_dir} is busy: another refit process holds its lock "
+                f"({self.store_dir / '.lock'}); wait for it to finish, then run the command "
+                "again") from None
+        return self
+
+    def __exit__(self, *exc):
+        self.lock.release()
+
+
+def recover(store_dir: Path) -> list[str]:
+    """Finish or undo interrupted admits (call with the lock held); say what was done."""
+    messages = []
+    for stage in sorted(store_dir.glob(".pending-*")):
+        if (stage / "COMMIT").is_file():
+            plan = json.loads((stage / "COMMIT").read_text(encoding="utf-8"))
+            _move_into_place(store_dir, stage, plan["files"])
+            messages.append(f"recovered an interrupted admit of {plan['source_file']}: it "
+                            f"had been committed, so it was completed (version "
+                            f"{plan['version']})")
+        elif not any(stage.iterdir()):  # emptied by a finished admit, or never filled
+            stage.rmdir()
+            messages.append("recovered an interrupted admit: removed its empty staging "
+                            f"folder {stage.name}; the store's files were not touched")
+        else:
+            shutil.rmtree(stage, ignore_errors=True)
+            messages.append("recovered an interrupted admit that had not been committed: "
+                            "it was undone and the store is as it was before it")
+    leftovers = [*store_dir.glob(TMP_PREFIX + "*"),
+                 *(store_dir / "quarantine").glob(TMP_PREFIX + "*")]
+    for leftover in leftovers:
+        leftover.unlink(missing_ok=True)
+    if leftovers:
+        messages.append(f"recovered after an interrupted write: removed {len(leftovers)} "
+                        "temporary file(s) (" + ", ".join(sorted(p.name for p in leftovers))
+                        + "); the store's files were not touched")
+    return messages
+
+
+def _commit(store_dir: Path, files: dict[str, bytes], info: dict) -> None:
+    """Stage ``files`` (relative path -> bytes), mark them committed, move them into place."""
+    stage = store_dir / f".pending-{uuid.uuid4().hex[:12]}"
+    stage.mkdir()
+    umask = os.umask(0)
+    os.umask(umask)
+    for rel, data in files.items():
+        write_bytes_atomic(stage / rel, data)
+        os.chmod(stage / rel, 0o666 & ~umask)  # readable like any other file the user makes
+    fsync_dir(stage)
+    order = sorted(files, key=lambda r: (r == "records.csv", r == "manifest.json", r))
+    plan = json.dumps({**info, "files": order}, indent=1).encode("utf-8")
+    write_bytes_atomic(stage / "COMMIT", plan)
+    _move_into_place(store_dir, stage, order)
+
+
+def _move_into_place(store_dir: Path, stage: Path, order: list[str]) -> None:
+    """Move staged files over the store's (idempotent), then remove the staging folder."""
+    (store_dir / "quarantine").mkdir(exist_ok=True)
+    for rel in order:
+        src = stage / rel
+        if src.exists():
+            (store_dir / rel).parent.mkdir(parents=True, exist_ok=True)
+            os.replace(src, store_dir / rel)
+            fsync_dir((store_dir / rel).parent)
+    for path in sorted(stage.rglob("*"), reverse=True):
+        if path.name != "COMMIT":
+            path.rmdir() if path.is_dir() else path.unlink()
+    (stage / "COMMIT").unlink(missing_ok=True)
+    stage.rmdir()
+    fsync_dir(store_dir)

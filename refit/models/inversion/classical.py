@@ -1,0 +1,287 @@
+"""Classical calibration: invert a fitted curve ``feature = f(climate)`` for a new feature value.
+
+The forward direction fits the feature on climate (the way the soil responds to climate)
+and reads climate off the curve. Point estimate: solve ``f(x) = y0`` (closed form for lines
+and quadratics; polynomial roots for higher degrees). Interval: the set of ``x`` whose
+prediction band for a new observation contains ``y0`` (Fieller for a line, Fieller 1954 /
+Eisenhart 1939; the same set found numerically for polynomials, as in NIST/SEMATECH
+e-Handbook section 4.5.2.1).
+
+Search window (polynomials). The band is inverted only on the *monotonic branch* of the
+curve that holds the estimate (between its turning points), and only inside the
+calibration range widened by :data:`refit.models.domain.SEARCH_MARGIN` (half its width) on each side and cut
+at the physical bounds of the climate variable (e.g. 0 mm for rain; from the schema range
+of the column, :func:`refit.models.domain.schema_bounds`). Lines need no search; their Fieller
+limits are cut at the physical bounds only.
+
+Flags (a tuple of short strings per value):
+
+- ``two-roots``: ``f(x) = y0`` has more than one solution inside the calibration range
+  (the curve is not monotonic there); the root on the branch holding most calibration
+  points is reported.
+- ``open-below`` / ``open-above``: the band does not close inside the search window on
+  that side (it runs on past the turning point, past the widened range or past a physical
+  bound); the limit reported is the window edge: read it as "at most" / "at least".
+- ``unbounded``: a line's band never closes (``g = t^2 V(b1) / b1^2 >= 1``, i.e. the slope
+  is not significant at the chosen level); the limits are -inf / +inf (or the bounds).
+- ``outside-calibration-range``: the estimate lies outside the climate range of the data.
+- ``beyond-turning-point``: ``y0`` lies beyond the curve's extreme value, so no climate on
+  the branch gives it. The estimate is then the turning point's ``x`` (the point of the
+  curve closest to ``y0``) when the prediction band there still holds ``y0`` (the value
+  is consistent with the curve within its scatter; the interval is open on the turning-
+  point side); otherwise NaN (the value contradicts the calibration at this level).
+  Also set when the root lies past a turning point outside the data.
+- ``beyond-search-window``: the root lies outside the search window (far extrapolation
+  or a physically impossible value, e.g. negative rain): estimate NaN; the limits show the
+  part of the band inside the window, if any.
+
+The steps of the polynomial inversion (branch layout, roots, band function, grid and
+bracketing) and the flag names live in :mod:`refit.models.inversion.band`; every public name is
+re-exported here.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from refit.models.inversion.band import (  # noqa: F401  (re-exported: the public names live here too)
+    FLAG_BEYOND_TP,
+    FLAG_BEYOND_WINDOW,
+    FLAG_OPEN_ABOVE,
+    FLAG_OPEN_BELOW,
+    FLAG_OUTSIDE,
+    FLAG_TWO_ROOTS,
+    FLAG_UNBOUNDED,
+    GRID_POINTS,
+    INTERVAL_FLAGS,
+    LINE_FLAG_ORDER,
+    POLYNOMIAL_FLAG_ORDER,
+    Branches,
+    GridSearch,
+    PolyBand,
+    _all_roots,
+    _band_grid,
+    _choose,
+    _crossings,
+    _polynomial_flags,
+    _real_roots,
+    _refine,
+    _rescale,
+    _starting_points,
+    branch_layout,
+)
+from refit._util.threads import on_threads
+from refit.models.domain import search_window  # noqa: F401  (re-exported)
+
+
+def fieller_line(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new: float, t: float):
+    """Fieller interval for ``x`` from a fitted line ``y = b0 + b1 x`` and a new ``y0``.
+
+    Parameters
+    ----------
+    y0 : array_like
+        New responses [units of y].
+    b0, b1 : float
+        Intercept [y] and slope [y per x].
+    cov : ndarray, shape (2, 2)
+        Covariance of (b0, b1).
+    sigma2_new : float
+        Variance of the new observation, ``s^2 / w0`` (``s^2 / m`` for a mean of m) [y^2].
+    t : float
+        Student t quantile ``t(1 - alpha/2; df)``.
+
+    Returns
+    -------
+    estimate, lower, upper : ndarray
+        ``x_hat = (y0 - b0) / b1`` and the limits [units of x]; +-inf when unbounded.
+    unbounded : bool
+        True when ``g = t^2 V11 / b1^2 >= 1``.
+
+    Notes
+    -----
+    The set ``{x : (y0 - b0 - b1 x)^2 <= t^2 (sigma2_new + V00 + 2 x V01 + x^2 V11)}`` is
+    ``A x^2 - 2 B x + C <= 0`` with ``A = b1^2 - t^2 V11``, ``B = b1 (y0 - b0) + t^2 V01``,
+    ``C = (y0 - b0)^2 - t^2 (sigma2_new + V00)``. With OLS this equals the textbook form
+    ``xbar + (x_hat - xbar)/(1 - g) +- t s/(|b1|(1 - g)) sqrt((x_hat - xbar)^2/Sxx +
+    (1 - g)(1/m + 1/n))`` (Eisenhart 1939, Ann. Math. Stat. 10:162; from memory).
+    """
+    y0 = np.asarray(y0, dtype=float)
+    d = y0 - b0
+    est = d / b1
+    a = b1 * b1 - t * t * cov[1, 1]
+    if a <= 0:
+        inf = np.full_like(est, np.inf)
+        return est, -inf, inf, True
+    b = b1 * d + t * t * cov[0, 1]
+    c = d * d - t * t * (sigma2_new + cov[0, 0])
+    root = np.sqrt(np.maximum(b * b - a * c, 0.0))
+    return est, (b - root) / a, (b + root) / a, False
+
+
+def invert_polynomial(y0, poly: np.ndarray, cov: np.ndarray, sigma2_new: float,
+                      t: float, domain: tuple[float, float], x_cal: np.ndarray | None = None,
+                      *, window: tuple[float, float] | None = None):
+    """Invert ``y = sum_j poly[j] x^j`` at each ``y0``: point estimate, band-inversion interval.
+
+    Parameters
+    ----------
+    y0 : array_like
+        New responses [units of y] (NaN gives NaN and no flags).
+    poly : ndarray
+        Polynomial coefficients in increasing powers of x (0 for absent terms).
+    cov : ndarray, shape (k+1, k+1)
+        Covariance of ``poly`` (the design row of ``x`` is ``(1, x, ..., x^k)``).
+    sigma2_new : float or ndarray
+        Variance of each new observation [y^2].
+    t : float
+        Student t quantile.
+    domain : (float, float)
+        Calibration range of x (used for scaling, root choice and flags).
+    x_cal : ndarray, optional
+        Calibration x values (to find the main branch when there are two roots).
+    window : (float, float), optional
+        Search window [units of x]; default :func:`search_window` of ``domain`` (no
+        physical bounds).
+
+    Returns
+    -------
+    estimate, lower, upper : ndarray
+    flags : list of tuple of str
+        See the module notes for the search window and the flags.
+
+    Notes
+    -----
+    Rows in blocks of :data:`ROW_BLOCK`, each in four steps: scale the curve and find its
+    branches (:func:`branch_layout`); choose each row's root and its search interval
+    (:func:`_starting_points`); find, on one grid of :data:`GRID_POINTS` nodes over the
+    window (plus the turning points), the nearest node on each side of the estimate where
+    ``y0`` lies outside the band ``(y0 - f(x))^2 <= t^2 (sigma2_new + g(x)' V g(x))``
+    (:class:`GridSearch`); refine each crossing by a safeguarded Newton iteration on the
+    band polynomial to machine precision (:func:`_crossings`, :func:`_refine`). A band
+    excursion narrower than the grid spacing (window width / 256) can be missed.
+    """
+    est, lower, upper, masks = invert_polynomial_masks(
+        y0, poly, cov, sigma2_new, t, domain, x_cal, window=window)
+    return est, lower, upper, _flag_tuples(masks, list(POLYNOMIAL_FLAG_ORDER), len(est))
+
+
+#: rows inverted together by :func:`invert_polynomial_masks` (bounds the memory of the
+#: per-row work arrays; rows are independent, so the block size does not change numbers)
+ROW_BLOCK = 32_768
+
+
+def invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain, x_cal=None, *,
+                            window=None):
+    """As :func:`invert_polynomial`, with the flags as boolean masks (name -> (m,) array,
+    in :data:`POLYNOMIAL_FLAG_ORDER`) instead of per-row tuples.
+
+    Rows go in blocks of :data:`ROW_BLOCK`, spread over threads
+    (numpy releases the interpreter lock in its array loops); rows are independent and
+    each block writes only its own slice, so the numbers do not depend on the threads."""
+    poly = np.asarray(poly, float)
+    br = branch_layout(poly, domain, x_cal)
+    y0 = np.atleast_1d(np.asarray(y0, dtype=float))
+    m = len(y0)
+    s2 = np.broadcast_to(np.asarray(sigma2_new, dtype=float), y0.shape)
+    window_u = [(v - br.c) / br.h for v in (window or search_window(domain))]
+    ok_all = np.isfinite(y0)
+    shared = not ok_all.any() or np.ptp(s2[ok_all]) == 0  # one new-observation variance
+    band = PolyBand(br, np.asarray(cov, float), t)
+    search = GridSearch(band, window_u,
+                        float(s2[np.argmax(ok_all)]) if shared and m else None, m)
+    est, lower, upper = np.full(m, np.nan), np.full(m, np.nan), np.full(m, np.nan)
+    masks = {nm: np.zeros(m, dtype=bool) for nm in POLYNOMIAL_FLAG_ORDER}
+
+    def one_block(first):
+        sl = slice(first, min(m, first + ROW_BLOCK))
+        rows = band.rows(y0[sl], search_s2(s2[sl], shared))
+        e, lo, hi, mk = _invert_block(br, search, rows, window_u)
+        est[sl], lower[sl], upper[sl] = e, lo, hi
+        for nm in POLYNOMIAL_FLAG_ORDER:
+            masks[nm][sl] = mk[nm]
+
+    on_threads(one_block, range(0, m, ROW_BLOCK))
+    c, h = br.c, br.h
+    return c + h * est, c + h * lower, c + h * upper, masks
+
+
+def search_s2(s2, shared: bool):
+    """The block's new-observation variance: one float when all rows share it."""
+    return float(s2[0]) if shared and len(s2) else s2
+
+
+def _invert_block(br: Branches, search: GridSearch, rows, window_u):
+    """One block of rows of :func:`invert_polynomial_masks`, in scaled units [u]."""
+    y0 = rows.y0
+    m = len(y0)
+    ok = np.isfinite(y0)
+    sp = _starting_points(br, y0, ok, window_u)
+    start = sp["start"]
+    idx = np.flatnonzero(ok & np.isfinite(start))
+    closes = np.zeros(m, dtype=bool)
+    closes[idx] = rows.value(start[idx], idx) <= 0
+    idx = np.flatnonzero(closes)
+    s2 = None if rows.shared else rows.s2[idx]
+    nodes = search.outside_nodes(y0[idx], s2, start[idx])
+    lower, upper = np.full(m, np.nan), np.full(m, np.nan)
+    open_lo, open_hi = np.zeros(m, dtype=bool), np.zeros(m, dtype=bool)
+    lower[idx], upper[idx], open_lo[idx], open_hi[idx] = _crossings(
+        rows, idx, search, nodes, start[idx], sp["lo"][idx], sp["hi"][idx])
+    est, masks = _polynomial_flags(sp, ok, open_lo, open_hi, closes)
+    return est, lower, upper, masks
+
+
+def _flag_tuples(masks: dict, order: list[str], m: int) -> list[tuple[str, ...]]:
+    """Per-row tuples of the flag names whose mask is set (in ``order``)."""
+    from refit._util.flagcodes import bit_codes, present_codes
+
+    codes = bit_codes([masks[nm] for nm in order], m)
+    table = {code: tuple(nm for i, nm in enumerate(order) if code >> i & 1)
+             for code in present_codes(codes).tolist()}
+    return [table[code] for code in codes.tolist()]
+
+
+def range_flags(estimate: np.ndarray, domain: tuple[float, float]) -> np.ndarray:
+    """Boolean mask of estimates outside the calibration range (NaN counts as inside)."""
+    e = np.asarray(estimate, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return (e < domain[0]) | (e > domain[1])
+
+
+def physical_bounds(fit) -> tuple[float, float]:
+    """Bounds of the forward fit's climate variable: ``fit.extras['bounds']`` if set,
+    else the schema range of the column (:func:`refit.models.domain.schema_bounds`)."""
+    from refit.models.domain import schema_bounds
+
+    given = fit.extras.get("bounds")
+    return tuple(map(float, given)) if given is not None else schema_bounds(fit.x_names[0])
+
+
+def _bound_line(est, lo, hi, unbounded: bool, bounds):
+    """Cut a line's Fieller limits at the physical bounds ('open-below'/'open-above');
+    an estimate beyond a bound is NaN ('beyond-search-window')."""
+    est, lo, hi, masks = _bound_line_masks(est, lo, hi, unbounded, bounds)
+    return est, lo, hi, _flag_tuples(masks, list(LINE_FLAG_ORDER), len(est))
+
+
+def _bound_line_masks(est, lo, hi, unbounded: bool, bounds):
+    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`)."""
+    b_lo, b_hi = bounds
+    with np.errstate(invalid="ignore"):
+        off = (est < b_lo) | (est > b_hi)
+        cut_lo, cut_hi = lo < b_lo, hi > b_hi
+    est = np.where(off, np.nan, est)
+    lo, hi = np.where(cut_lo, b_lo, lo), np.where(cut_hi, b_hi, hi)
+    masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.isfinite(est) | off if unbounded
+             else np.zeros(len(est), dtype=bool), FLAG_BEYOND_WINDOW: off,
+             FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
+    return est, lo, hi, masks
+
+
+def __getattr__(name):
+    # predict_fit moved to refit.models.predict; kept reachable here
+    if name == "predict_fit":
+        from refit.models.predict import predict_fit
+
+        return predict_fit
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -1,0 +1,122 @@
+"""Forward-direction prediction from plain numbers: numpy only.
+
+One function, :func:`forward_predict`, turns measured feature values into climate
+estimates, limits and flags by classical calibration (:mod:`refit.models.inversion.classical`). It is the
+shared core of ``Fit.predict`` (the in-memory fit, :mod:`refit.models.predict`) and of the
+coefficient-file evaluator (:mod:`refit.coefficients.evaluate`): each caller checks its own input and
+hands over the numbers (coefficients, covariance, the new observation's variance, the t
+quantile, the calibration range, the branch counts as stand-in calibration points and the
+physical bounds). Nothing here imports pandas or scipy.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from refit.models.inversion import classical as cal
+from refit._util.flagcodes import FLAG_APPROX, FLAG_INVALID, FLAG_MISSING, bit_codes, text_by_code
+
+
+def _model_scale(values, log_response: bool):
+    """The feature on the equation's scale, with the missing and invalid (<= 0 under a log
+    response) masks."""
+    y0 = np.array(values, dtype=float, copy=True)
+    missing = np.isnan(y0)
+    invalid = np.zeros_like(missing)
+    if log_response:
+        invalid = ~missing & ~(y0 > 0)
+        y0[invalid] = np.nan
+        y0 = np.log(y0)
+    return y0, missing, invalid
+
+
+def _row_flags(code: int, names, n_inv: int) -> str:
+    """The ';'-joined flags of one bit code (the inversion's flags, then the range,
+    missing, invalid and approximate-interval flags)."""
+    f = [nm for i, nm in enumerate(names[:n_inv]) if code >> i & 1]
+    outside, missing, invalid, approx = (code >> (n_inv + j) & 1 for j in range(4))
+    if outside and cal.FLAG_OUTSIDE not in f:
+        f.insert(0, cal.FLAG_OUTSIDE)
+    if missing:
+        f.append(FLAG_MISSING)
+    if invalid:
+        f.append(FLAG_INVALID)
+    elif approx and not missing:
+        f.append(FLAG_APPROX)
+    return ";".join(f)
+
+
+def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool) -> np.ndarray:
+    """';'-joined flags per row, through one bit code per row (the text is built once
+    per distinct code): the inversion's flags in ``order``, then the range, missing,
+    invalid and approximate-interval flags."""
+    m = len(outside)
+    names = list(order)
+    extra = [outside, missing, invalid, np.full(m, bool(approximate))]
+    codes = bit_codes([masks[nm] for nm in names] + extra, m)
+    return text_by_code(codes, lambda code: _row_flags(code, names, len(names)))
+
+
+def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,
+                    degree: int, through_origin: bool = False, log_response: bool = False,
+                    x_cal=None, bounds=(-np.inf, np.inf), with_interval: bool = True,
+                    approximate: bool = False):
+    """Invert a fitted ``feature = f(climate)`` at measured feature values.
+
+    Parameters
+    ----------
+    values : ndarray, shape (m,)
+        The feature as measured [its unit]; NaN for missing.
+    coefficients : ndarray
+        The equation's coefficients in increasing powers of climate (no intercept term
+        when ``through_origin``).
+    covariance : ndarray
+        Their covariance (zeros when unknown: then only the point estimate is meaningful).
+    sigma2_new : float or ndarray
+        Variance of each new observation on the equation's scale [feature^2].
+    t : float
+        Student t quantile ``t(0.5 + level/2; df)``.
+    domain : (float, float)
+        Calibration range of climate [its unit].
+    degree : int
+        Degree of the curve (1: a line, Fieller's interval).
+    through_origin : bool
+        The equation has no intercept.
+    log_response : bool
+        The equation models ln(feature) (exponential form).
+    x_cal : ndarray, optional
+        Calibration climate values, or stand-ins with the same count on each monotonic
+        branch (only those counts matter).
+    bounds : (float, float)
+        Physical bounds of climate [its unit]; they cut a line's limits and the
+        polynomial's search window (:func:`refit.models.domain.search_window`).
+    with_interval : bool
+        False: limits are NaN and the interval flags (:data:`refit.models.inversion.classical.INTERVAL_FLAGS`)
+        are dropped.
+    approximate : bool
+        Add ``approximate-interval`` to rows with a value.
+
+    Returns
+    -------
+    estimate, lower, upper : ndarray
+        Climate [its unit].
+    flags : ndarray of str
+        ';'-joined flag names per row (see :mod:`refit.models.inversion.classical`).
+    """
+    y0, missing, invalid = _model_scale(values, log_response)
+    poly = np.concatenate([[0.0] if through_origin else [], coefficients])
+    cov = np.pad(covariance, ((1, 0), (1, 0))) if through_origin else covariance
+    if degree == 1:
+        est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, sigma2_new, t)
+        est, lo, hi, masks = cal._bound_line_masks(est, lo, hi, unb, bounds)
+        order = cal.LINE_FLAG_ORDER
+    else:
+        est, lo, hi, masks = cal.invert_polynomial_masks(
+            y0, poly, cov, sigma2_new, t, domain, x_cal,
+            window=cal.search_window(domain, bounds))
+        order = cal.POLYNOMIAL_FLAG_ORDER
+    if not with_interval:
+        lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
+        order = tuple(nm for nm in order if nm not in cal.INTERVAL_FLAGS)
+    outside = cal.range_flags(est, domain)
+    return est, lo, hi, _flag_text(masks, order, outside, missing, invalid, approximate)

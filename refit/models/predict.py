@@ -1,0 +1,309 @@
+"""Apply an in-memory fit to fossil feature values: the engine of ``Fit.predict``.
+
+Input checks (values to an (m, k) float array, weights of new observations), the inverse
+direction's bands (analytic, resampling, quantile curves) and flags, and the forward
+direction through the shared numpy core :func:`refit.models.inversion.forward.forward_predict`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+_PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
+
+
+def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
+    from refit.errors import UsageError
+
+    k = len(names)
+    if arr.ndim <= 1:
+        arr = arr.reshape(-1, 1) if k == 1 else arr.reshape(1, -1)
+    if arr.ndim != 2 or arr.shape[1] != k:
+        raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
+    return arr
+
+
+def _values_matrix(values, names: list[str]):
+    """Fossil feature values as an (m, k) float array plus the index for the output."""
+    import pandas as pd
+
+    from refit.errors import InvalidDataError, UsageError
+
+    index = values.index if isinstance(values, (pd.Series, pd.DataFrame)) else None
+    if isinstance(values, (pd.DataFrame, dict)):
+        missing = [n for n in names if n not in values]
+        if missing:
+            raise UsageError(f"values lack column(s) {missing}; the fit needs {names} "
+                             f"(got {list(values.keys())})")
+        cols = [values[n] for n in names]
+    else:
+        try:  # fast path: already numeric
+            arr = _shape_values(np.asarray(values, dtype=float), names)
+            cols = None
+        except (TypeError, ValueError):
+            raw = _shape_values(np.asarray(values, dtype=object), names)
+            cols = [raw[:, j] for j in range(raw.shape[1])]
+    if cols is not None:
+        series = [pd.Series(np.atleast_1d(np.asarray(c, dtype=object))) for c in cols]
+        arr = np.column_stack([pd.to_numeric(c, errors="coerce")
+                               .to_numpy(dtype=float, na_value=np.nan) for c in series])
+        bad = np.isnan(arr) & np.column_stack([c.notna().to_numpy() for c in series])
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            raise InvalidDataError(f"value {series[c].iat[r]!r} for {names[c]!r} (position "
+                                   f"{r}) is not a number; correct it or leave it empty")
+    if np.isinf(arr).any():
+        r, c = np.argwhere(np.isinf(arr))[0]
+        raise InvalidDataError(f"value for {names[c]!r} at position {r} is infinite; "
+                               "use a finite number or leave it empty")
+    return arr, index
+
+
+def _t(level: float, df: float) -> float:
+    from scipy import stats
+
+    return float(stats.t.ppf(0.5 + level / 2.0, df))
+
+
+def _flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
+    """';'-joined flag names per row from boolean masks, as a pandas Categorical
+    (vectorised through bit codes: fast for many rows). ``sort``: categories in
+    lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
+    import pandas as pd
+
+    from refit._util.flagcodes import bit_codes, present_codes
+
+    names = tuple(masks)
+    codes = bit_codes([masks[nm] for nm in names], m)
+    present = present_codes(codes)
+    lookup, dtype = _flag_categories(names, present, sort)
+    # the codes index the categories by construction, so pandas need not check them again
+    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
+
+
+_FLAG_CATEGORIES: dict = {}
+
+
+def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
+    """(code -> category position, Categorical dtype) of the flag combinations present,
+    built once per (names, combinations, order): a handful occur, and building and
+    checking the categories is most of the cost of the flags."""
+    import pandas as pd
+
+    key = (names, present.tobytes(), sort)
+    hit = _FLAG_CATEGORIES.get(key)
+    if hit is not None:
+        return hit
+    from refit._util.flagcodes import joined_names
+
+    text = [joined_names(names, int(code)) for code in present]
+    if sort:
+        order = sorted(range(len(text)), key=text.__getitem__)
+        present, text = present[order], [text[i] for i in order]
+    lookup = np.zeros(1 << len(names), dtype=np.int64)
+    lookup[present] = np.arange(len(present))
+    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
+        _FLAG_CATEGORIES.clear()
+    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
+    return hit
+
+
+_COLUMN_INDEXES: dict = {}
+_BLOCK_KINDS = "fiub"   # numpy kinds stored as 2-D blocks: float, int, unsigned, bool
+
+
+def _blocks(columns):
+    """pandas blocks of the columns: each numpy dtype stacked into one 2-D array (rows =
+    columns), each Categorical on its own; None when a column needs pandas' inference
+    (e.g. object arrays of text, which become the string dtype)."""
+    import pandas as pd
+
+    groups: dict = {}
+    blocks = []
+    for j, col in enumerate(columns):
+        if isinstance(col, pd.Categorical):
+            blocks.append((col, np.array([j])))
+        elif isinstance(col, np.ndarray) and col.ndim == 1 and col.dtype.kind in _BLOCK_KINDS:
+            groups.setdefault(col.dtype, []).append(j)
+        else:
+            return None
+    for place in groups.values():
+        blocks.append((np.stack([columns[j] for j in place]), np.array(place)))
+    return blocks
+
+
+def result_frame(names: tuple, columns, index=None):
+    """A DataFrame of the 1-D ``columns`` (copied into fresh blocks) named ``names``.
+
+    Numeric columns and Categoricals go straight into pandas blocks
+    (``pandas.api.internals.create_dataframe_from_blocks``: no per-column checks, which
+    cost more than a small prediction); other columns through ``pandas.DataFrame``.
+    Every table with the same names shares one column Index, built once: pandas builds
+    the look-up table of a string Index on the first column read, and a shared Index
+    keeps it.
+    """
+    import pandas as pd
+    from pandas.api.internals import create_dataframe_from_blocks
+
+    labels = _COLUMN_INDEXES.get(names)
+    if labels is None:
+        labels = _COLUMN_INDEXES[names] = pd.Index(list(names))
+    blocks = _blocks(columns)
+    if blocks is None:
+        frame = pd.DataFrame(dict(enumerate(columns)), index=index)
+        frame.columns = labels
+        return frame
+    index = pd.RangeIndex(len(columns[0])) if index is None else index
+    return create_dataframe_from_blocks(blocks, index=index, columns=labels)
+
+
+def _analytic_band(fit, X0, eta, w0, level):
+    from refit.errors import UsageError
+
+    res = fit.result
+    if not np.all(np.isfinite(res.covariance)):
+        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
+                         "there is no analytic interval; use interval='bootstrap-pairs' or a "
+                         "conformal interval with an OLS fit, or interval='none'")
+    s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
+    factor = res.details.get("factor")
+    if factor is not None:
+        q = factor.quad_form(X0) * s2
+    else:
+        q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
+    half = _t(level, res.df_resid) * np.sqrt(s2 / w0 + q)
+    return eta - half, eta + half
+
+
+def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
+    from refit.models import intervals as iv
+    from refit.errors import UsageError
+
+    if fit.estimator not in ("ols", "wls"):
+        raise UsageError(f"interval {interval!r} refits by least squares, so it goes with "
+                         f"estimator 'ols' or 'wls', not {fit.estimator!r}")
+    if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
+        raise UsageError(f"interval {interval!r} does not take weights; use "
+                         "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
+    x0 = X0[ok]
+    if interval == "jackknife+" and "q" in fit.result.details and fit.weights is None:
+        from refit.models.intervals.conformal import jackknife_plus_fitted  # the fit's own QR: no second one
+
+        pi = jackknife_plus_fitted(x0, eta[ok], fit.result, level=level)
+        out = np.full((3, len(ok)), np.nan)
+        out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+        return out
+    X = fit.form.design(fit.x)
+    y = fit.y_model
+    if interval.startswith("bootstrap"):
+        fun = iv.bootstrap_pairs if interval == "bootstrap-pairs" else iv.bootstrap_residual
+        w0v = np.broadcast_to(w0, ok.shape)[ok]
+        out = np.full((3, len(ok)), np.nan)
+        idx = np.flatnonzero(ok)
+        for wv in np.unique(w0v):  # the resampling functions take one new-row weight
+            sel = w0v == wv
+            pi = fun(X, y, x0[sel], n_boot=opts["n_boot"], level=level, seed=opts["seed"],
+                     weights=fit.weights, weight0=float(wv))
+            out[:, idx[sel]] = np.vstack([pi.estimate, pi.lower, pi.upper])
+        return out
+    elif interval == "split-conformal":
+        pi = iv.split_conformal(X, y, x0, level=level, seed=opts["seed"],
+                                calib_fraction=opts["calib_fraction"])
+    elif interval == "jackknife+":
+        pi = iv.jackknife_plus(X, y, x0, level=level)
+    else:
+        pi = iv.cv_plus(X, y, x0, level=level, folds=opts["folds"], seed=opts["seed"])
+    out = np.full((3, len(ok)), np.nan)
+    out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+    return out
+
+
+def _quantile_band(fit, X0, level):
+    from refit.errors import UsageError
+
+    if fit.estimator != "quantile":
+        raise UsageError("interval 'quantile' comes from quantile curves: fit with "
+                         "estimator='quantile'")
+    qlo, qhi = fit.extras["quantiles"]
+    if abs((qhi - qlo) - level) > 1e-9:
+        raise UsageError(f"the quantile curves were fitted at {qlo} and {qhi}, a "
+                         f"{qhi - qlo:g} interval; ask for level={qhi - qlo:g} or refit "
+                         "with other quantiles")
+    coefs = fit.extras["quantile_coefficients"]
+    return X0 @ coefs[float(qlo)], X0 @ coefs[float(qhi)]
+
+
+def _predict_inverse(fit, v, level, interval, w0, opts):
+    from refit.coefficients.evaluate import inverse_finish
+
+    m = v.shape[0]
+    ok = ~np.isnan(v).any(axis=1)
+    X0 = fit.form.design(v)
+    eta = X0 @ fit.result.coefficients
+    lo = hi = np.full(m, np.nan)
+    if interval == "analytic":
+        lo, hi = _analytic_band(fit, X0, eta, w0, level)
+    elif interval == "quantile":
+        lo, hi = _quantile_band(fit, X0, level)
+    elif interval != "none":
+        eta, lo, hi = _resampled_band(fit, X0, eta, ok, w0, level, interval, opts)
+    turning = None
+    if fit.form.degree == 2 and v.shape[1] == 1:
+        dom = fit._core_domain()
+        turning = (dom.turning_point, dom.data_side)
+    eta, lo, hi, masks = inverse_finish(
+        eta, lo, hi, v, ok=ok, method=interval,
+        ranges=[fit.ranges[name] for name in fit.x_names],
+        approximate=interval == "analytic" and bool(
+            fit.result.details.get("approximate_interval")),
+        turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
+    return eta, lo, hi, _flag_strings(masks, m)
+
+
+def _predict_forward(fit, v, level, interval, w0):
+    """Forward fits: check the request, then classical calibration through
+    :func:`refit.models.inversion.forward.forward_predict`."""
+    from refit.models.inversion.forward import forward_predict
+    from refit.models.inversion.classical import physical_bounds
+    from refit.errors import UsageError
+
+    if interval not in ("analytic", "none"):
+        raise UsageError(f"interval {interval!r} is not available for direction 'forward'; "
+                         "the classical-calibration interval is 'analytic' (band inversion)")
+    res = fit.result
+    cov_ok = bool(np.all(np.isfinite(res.covariance)))
+    if interval == "analytic" and not cov_ok:
+        raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
+                         "the calibration interval cannot be formed; use interval='none' for "
+                         "the estimate alone, or estimator 'ols'")
+    # the band also decides whether a value beyond the turning point is consistent with
+    # the curve, so it is used for interval='none' too (limits then blanked)
+    s2new = res.details.get("prediction_sd", res.residual_std_error) ** 2 / w0 if cov_ok \
+        else 0.0
+    return forward_predict(
+        v[:, 0], coefficients=res.coefficients,
+        covariance=res.covariance if cov_ok else np.zeros_like(res.covariance),
+        sigma2_new=s2new, t=_t(level, res.df_resid), domain=fit.ranges[fit.x_names[0]],
+        degree=fit.form.degree, through_origin=fit.form.through_origin,
+        log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
+        with_interval=interval != "none",
+        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")))
+
+
+def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
+                n_boot: int = 1000, folds: int = 10, calib_fraction: float = 0.5):
+    """Apply a :class:`refit.models.fitting.Fit` to fossil feature values (see ``Fit.predict``)."""
+    from refit.errors import InvalidDataError
+
+    v, index = _values_matrix(values, fit.predictors)
+    m = v.shape[0]
+    w0 = np.ones(m) if weights is None else np.broadcast_to(
+        np.asarray(weights, dtype=float), (m,))
+    if not np.all(np.isfinite(w0) & (w0 > 0)):
+        raise InvalidDataError("weights of new observations must be finite and > 0")
+    opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
+    if fit.direction == "forward":
+        est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
+    else:
+        est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
+    return result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)

@@ -1,0 +1,233 @@
+"""What changed between two coefficient files.
+
+:func:`diff_files` reads both files (hash checked: a damaged file is never evaluated) and
+compares, section by section:
+
+- the **coefficients** term by term with their standard errors (square roots of the
+  covariance diagonal), and the fit's residual standard error, degrees of freedom, n, R^2;
+- the **domain**: each predictor's valid range and the domain flags (turning point);
+- the **cross-validation skill** (scheme, RMSEP, bias, coverage, mean width, ...);
+- the **provenance**: dataset name, version and sha256, subset filters and rows kept,
+  recipe hash, form, estimator, direction, interval method and level;
+- the **estimate and interval at reference values** of the predictors: by default the
+  minimum, quartiles and maximum of the union of both files' valid ranges (each predictor at
+  the same fraction of its range), evaluated from each file alone with
+  :func:`refit.coefficients.load` and its ``predict``; values outside a file's range carry
+  its flags;
+- the version **bump** the changes call for (:func:`refit.publish.registry.required_bump`).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+REFERENCE_FRACTIONS = (0.0, 0.25, 0.5, 0.75, 1.0)
+FIT_FIELDS = ("residual_std_error", "df_resid", "n", "r_squared")
+CV_FIELDS = ("scheme", "folds", "repeats", "groups", "rmsep", "mae", "bias", "r2_prediction",
+             "coverage", "mean_width", "interval_score")
+DOMAIN_FIELDS = ("turning_point", "turning_point_location", "turning_point_kind")
+
+
+def _num(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def _change(a, b):
+    return b - a if _num(a) and _num(b) else None
+
+
+def _row(name_key: str, name, a, b) -> dict:
+    return {name_key: name, "a": a, "b": b, "change": _change(a, b), "same": a == b}
+
+
+def _std_errors(content: dict) -> list:
+    cov = content.get("covariance")
+    if not isinstance(cov, list):
+        return [None] * len(content.get("terms", []))
+    return [math.sqrt(r[i]) if _num(r[i]) and r[i] >= 0 else None for i, r in enumerate(cov)]
+
+
+def coefficient_rows(a: dict, b: dict) -> list[dict]:
+    """One row per term of either file: value and standard error in each, the change."""
+    ca = dict(zip(a.get("terms", []), zip(a.get("coefficients", []), _std_errors(a))))
+    cb = dict(zip(b.get("terms", []), zip(b.get("coefficients", []), _std_errors(b))))
+    terms = list(dict.fromkeys([*ca, *cb]))
+    rows = []
+    for t in terms:
+        (va, sa), (vb, sb) = ca.get(t, (None, None)), cb.get(t, (None, None))
+        rows.append({"term": t, "a": va, "b": vb, "change": _change(va, vb), "se_a": sa,
+                     "se_b": sb, "same": va == vb})
+    return rows
+
+
+def _ranges(content: dict) -> dict:
+    return {p["name"]: (p.get("valid_min"), p.get("valid_max"))
+            for p in content.get("predictors", [])}
+
+
+def domain_rows(a: dict, b: dict) -> list[dict]:
+    """Valid range of each predictor and the domain flags, in each file."""
+    ra, rb = _ranges(a), _ranges(b)
+    rows = []
+    for name in dict.fromkeys([*ra, *rb]):
+        lo_a, hi_a = ra.get(name, (None, None))
+        lo_b, hi_b = rb.get(name, (None, None))
+        rows.append(_row("item", f"{name} valid_min", lo_a, lo_b))
+        rows.append(_row("item", f"{name} valid_max", hi_a, hi_b))
+    da, db = a.get("domain") or {}, b.get("domain") or {}
+    for key in DOMAIN_FIELDS:
+        if key in da or key in db:
+            rows.append(_row("item", key, da.get(key), db.get(key)))
+    return rows
+
+
+def cv_rows(a: dict, b: dict) -> list[dict]:
+    ca, cb = a.get("cv") or {}, b.get("cv") or {}
+    return [_row("metric", k, ca.get(k), cb.get(k)) for k in CV_FIELDS if k in ca or k in cb]
+
+
+def _filters(content: dict) -> str | None:
+    flt = ((content.get("provenance") or {}).get("subset") or {}).get("filters")
+    if flt is None:
+        flt = ((content.get("provenance") or {}).get("recipe") or {}).get("subset")
+    if flt is None:
+        return None
+    parts = []
+    for f in flt:
+        v = f.get("value")
+        if f.get("kind") == "range":
+            v = " ".join(f"{k} {x}" for k, x in v.items())
+        parts.append(f"{f.get('column')} {f.get('kind')} {v}")
+    return "; ".join(parts) or "(all rows)"
+
+
+def provenance_rows(a: dict, b: dict) -> list[dict]:
+    def get(c, *keys):
+        for k in keys:
+            c = c.get(k) if isinstance(c, dict) else None
+        return c
+
+    def recipe_sha(c):
+        return get(c, "provenance", "recipe_sha256") or get(c, "provenance", "recipe", "sha256")
+
+    items = [
+        ("dataset", lambda c: get(c, "provenance", "dataset", "name")),
+        ("dataset version", lambda c: get(c, "provenance", "dataset", "version")),
+        ("dataset sha256", lambda c: get(c, "provenance", "dataset", "sha256")),
+        ("subset filters", _filters),
+        ("rows after subset", lambda c: get(c, "provenance", "subset", "rows_after")),
+        ("recipe sha256", recipe_sha),
+        ("form", lambda c: c.get("form")), ("estimator", lambda c: c.get("estimator")),
+        ("direction", lambda c: c.get("direction")),
+        ("interval method", lambda c: get(c, "interval", "method")),
+        ("interval level", lambda c: get(c, "interval", "level")),
+        ("software", lambda c: get(c, "provenance", "software", "refit")),
+    ]
+    return [_row("item", name, fn(a), fn(b)) for name, fn in items]
+
+
+# ----------------------------------------------------------------------------- predictions
+def reference_grid(a: dict, b: dict, at=None) -> dict | None:
+    """``{predictor: values}`` at which both files are evaluated (None if they differ).
+
+    ``at``: explicit values for a single predictor; default the minimum, quartiles and
+    maximum of the union of both valid ranges.
+    """
+    import numpy as np
+
+    ra, rb = _ranges(a), _ranges(b)
+    if list(ra) != list(rb) or not ra:
+        return None
+    if at is not None:
+        if len(ra) != 1:
+            return None
+        return {next(iter(ra)): np.asarray(at, dtype=float)}
+    grid = {}
+    for name in ra:
+        lows = [v for v in (ra[name][0], rb[name][0]) if _num(v)]
+        highs = [v for v in (ra[name][1], rb[name][1]) if _num(v)]
+        if not lows or not highs:
+            return None
+        lo, hi = min(lows), max(highs)
+        grid[name] = np.array([lo + f * (hi - lo) for f in REFERENCE_FRACTIONS])
+    return grid
+
+
+def _prediction(path, grid: dict, level):
+    """estimate, lower, upper, flags (lists) of a file at the grid (from the file alone)."""
+    import numpy as np
+
+    from refit.coefficients import load
+
+    eq = load(path)
+    values = next(iter(grid.values())) if len(grid) == 1 else grid
+    out = eq.predict(values, level=level)
+    cols = {}
+    for key in ("estimate", "lower", "upper", "flags"):
+        # a DataFrame is read by column (DataFrame.flags is a pandas attribute)
+        col = out[key] if hasattr(out, "columns") or isinstance(out, dict) else getattr(out, key)
+        cols[key] = [x for x in np.asarray(col).tolist()]
+    return cols
+
+
+def reference_rows(path_a, path_b, a: dict, b: dict, *, at=None, level=None) -> list[dict]:
+    """Estimate and interval of each file at the reference values, and the changes."""
+    grid = reference_grid(a, b, at)
+    if grid is None:
+        return []
+    pa, pb = _prediction(path_a, grid, level), _prediction(path_b, grid, level)
+    rows = []
+    for i in range(len(next(iter(grid.values())))):
+        row = {name: float(v[i]) for name, v in grid.items()}
+        for tag, p in (("a", pa), ("b", pb)):
+            for key in ("estimate", "lower", "upper"):
+                v = p[key][i]
+                row[f"{key}_{tag}"] = float(v) if _num(v) else None
+            row[f"flags_{tag}"] = p["flags"][i] or ""
+        row["change_estimate"] = _change(row["estimate_a"], row["estimate_b"])
+        wa = _change(row["lower_a"], row["upper_a"])
+        wb = _change(row["lower_b"], row["upper_b"])
+        row["width_a"], row["width_b"], row["change_width"] = wa, wb, _change(wa, wb)
+        rows.append(row)
+    return rows
+
+
+# ----------------------------------------------------------------------------- the diff
+def diff_files(path_a, path_b, *, at=None, level=None) -> dict:
+    """Compare two coefficient files (see the module docstring); JSON-ready dict.
+
+    Raises
+    ------
+    UnreadableInputError
+        A file is missing or not JSON.
+    InvalidDataError
+        A file's hash or schema is wrong.
+    """
+    from refit.publish.registry import read_record, required_bump
+
+    a, b = read_record(path_a), read_record(path_b)
+    bump, changes = required_bump(a, b)
+    notes = []
+    if a.get("function_id") != b.get("function_id"):
+        notes.append(f"different functions: {a.get('function_id')!r} and "
+                     f"{b.get('function_id')!r}")
+    if [p["name"] for p in a.get("predictors", [])] != [p["name"] for p in b.get("predictors", [])]:
+        notes.append("different predictors: no comparison at reference values")
+    return {
+        "a": _header(path_a, a), "b": _header(path_b, b),
+        "bump": bump, "changes": changes, "notes": notes,
+        "coefficients": coefficient_rows(a, b),
+        "fit": [_row("quantity", k, a.get(k), b.get(k)) for k in FIT_FIELDS],
+        "domain": domain_rows(a, b), "cv": cv_rows(a, b),
+        "provenance": provenance_rows(a, b),
+        "at_reference": reference_rows(path_a, path_b, a, b, at=at, level=level),
+    }
+
+
+def _header(path, c: dict) -> dict:
+    return {"path": str(Path(path)), "function_id": c.get("function_id"),
+            "version": c.get("version"), "status": c.get("status"),
+            "sha256": c.get("sha256"), "created": c.get("created"),
+            "response": (c.get("response") or {}).get("name"),
+            "unit": (c.get("response") or {}).get("unit")}

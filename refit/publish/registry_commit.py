@@ -1,0 +1,139 @@
+"""How a publish lands safely: the registry lock, the publish journal, crash recovery.
+
+Used by :mod:`refit.publish.registry` (which re-exports :data:`PENDING` and
+:data:`LOCK_TIMEOUT_S`). A publish holds ``REGISTRY/.lock`` and then
+
+1. writes the new index entry to the journal ``REGISTRY/.publishing.json``;
+2. writes the coefficient file (atomically) and makes it read-only;
+3. rewrites ``index.json`` (atomically) with the entry added;
+4. removes the journal.
+
+The next command that opens the registry (:func:`recover_locked`) finishes a publish whose
+file had landed (adds the entry to the index) or drops one whose file had not, removes
+stale temporary files (``TMP_PREFIX*``) and says what it did.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+from refit._util.atomic import TMP_PREFIX, sha256_bytes, write_text_atomic
+from refit.errors import RefitError
+
+PENDING = ".publishing.json"                 # journal of a publish in progress
+LOCK_FILE = ".lock"
+LOCK_TIMEOUT_S = 5.0
+
+
+class RegistryLock:
+    """Hold ``REGISTRY/.lock``; refuse after ``timeout`` [s] with a 'busy' error."""
+
+    def __init__(self, folder: Path, timeout: float):
+        from filelock import FileLock
+
+        folder.mkdir(parents=True, exist_ok=True)
+        self.folder = folder
+        self.lock = FileLock(str(folder / LOCK_FILE), timeout=timeout)
+
+    def __enter__(self):
+        from filelock import Timeout
+
+        from refit.errors import StoreBusyError
+
+        try:
+            self.lock.acquire()
+        except Timeout:
+            raise StoreBusyError(f"registry {self.folder} is busy: another refit process "
+                                 "holds its lock; wait for it to finish, then run the "
+                                 "command again") from None
+        return self
+
+    def __exit__(self, *exc):
+        self.lock.release()
+
+
+def write_index(reg) -> None:
+    """Rewrite ``reg.path/index.json`` atomically from ``reg.index``."""
+    from refit.publish.registry import INDEX
+
+    text = json.dumps(reg.index, indent=1, ensure_ascii=False, sort_keys=False) + "\n"
+    write_text_atomic(reg.path / INDEX, text)
+
+
+def commit(reg, function_id: str, target: Path, text: str, entry: dict) -> None:
+    """Land one published file and its index entry (steps 1-4 of the module docstring).
+
+    The caller holds the lock; ``reg`` is the registry opened under it.
+    """
+    from refit.publish.registry import INDEX_FORMAT
+
+    journal = {"function_id": function_id, "entry": entry}
+    write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
+    write_text_atomic(target, text)
+    os.chmod(target, 0o444)
+    reg.index.setdefault("format", INDEX_FORMAT)
+    reg.index.setdefault("functions", {}).setdefault(function_id, []).append(entry)
+    write_index(reg)
+    (reg.path / PENDING).unlink()
+
+
+def _temporary_files(path: Path) -> list[Path]:
+    return [*path.glob(TMP_PREFIX + "*"), *path.glob("*/" + TMP_PREFIX + "*")]
+
+
+def needs_recovery(path: Path) -> bool:
+    """Whether a registry folder holds a publish journal or stale temporary files."""
+    return path.is_dir() and ((path / PENDING).exists() or bool(_temporary_files(path)))
+
+
+def recover_locked(path: Path, held: bool) -> list[str]:
+    """:func:`recover` under the registry lock (taken here unless ``held``)."""
+    if held:
+        return recover(path)
+    try:
+        with RegistryLock(path, LOCK_TIMEOUT_S):
+            return recover(path)
+    except PermissionError:  # a read-only registry: nothing can be repaired; verify reports
+        return []
+
+
+def recover(path: Path) -> list[str]:
+    """Finish or undo an interrupted publish, drop temporary files (lock held); say so."""
+    out, marker = [], path / PENDING
+    if marker.is_file():
+        out += _replay_journal(path, marker)
+        marker.unlink()
+    tmps = _temporary_files(path)
+    for tmp in tmps:
+        tmp.unlink(missing_ok=True)
+    if tmps:
+        out.append(f"recovered after an interrupted write: removed {len(tmps)} temporary "
+                   "file(s) ("
+                   + ", ".join(sorted(t.name for t in tmps)) + ")")
+    return out
+
+
+def _replay_journal(path: Path, marker: Path) -> list[str]:
+    """Add the journal's entry to the index if its file landed intact; say what happened."""
+    from refit.publish.registry import INDEX, Registry, _empty_index, _open_index
+
+    try:
+        plan = json.loads(marker.read_text("utf-8"))
+        fid, entry = plan["function_id"], plan["entry"]
+        target = Registry(path).file(fid, entry["version"])
+    except (OSError, ValueError, KeyError, TypeError, RefitError):
+        return [f"removed an unreadable publish journal {PENDING}"]
+    reg = _open_index(path, False) if (path / INDEX).is_file() else Registry(path,
+                                                                           _empty_index())
+    what = f"recovered an interrupted publish of {fid} {entry['version']}"
+    landed = target.is_file() and sha256_bytes(target.read_bytes()) == entry.get("file_sha256")
+    if any(e.get("version") == entry["version"] for e in reg.versions(fid)):
+        return [f"{what}: it had completed"]
+    if landed:
+        os.chmod(target, 0o444)
+        reg.index["functions"].setdefault(fid, []).append(entry)
+        write_index(reg)
+        return [f"{what}: its file had landed, so it was added to {INDEX}"]
+    return [f"{what}: its file had not landed, so it was undone"]

@@ -1,0 +1,64 @@
+"""Consistency of a coefficient registry: does ``index.json`` agree with the files?
+
+Used by :func:`refit.publish.registry.publish` (a function's index and files must agree before a
+new version lands) and by :func:`refit.publish.verify.verify_registry`; re-exported from
+:mod:`refit.publish.registry`. Each problem is one plain sentence naming the file.
+"""
+
+from __future__ import annotations
+
+from refit._util.atomic import sha256_bytes
+from refit.errors import RefitError
+
+
+def function_problems(reg, function_id: str) -> list[str]:
+    """How the index and the files of one function disagree (empty when they agree).
+
+    ``reg`` is an open :class:`refit.publish.registry.Registry`."""
+    from refit.publish.registry import INDEX
+
+    entries = reg.versions(function_id)
+    listed = {e.get("version"): e for e in entries}
+    folder = reg.path / function_id
+    on_disk = {p.stem for p in folder.glob("*.json")} if folder.is_dir() else set()
+    out = [f"{function_id}/{v}.json is on disk but not in {INDEX}"
+           for v in sorted(on_disk - set(listed))]
+    out += [f"{INDEX} lists {function_id} {v} but {function_id}/{v}.json is missing"
+            for v in sorted(set(listed) - on_disk, key=str)]
+    for v in sorted(set(listed) & on_disk):
+        out += _entry_problems(reg, function_id, listed[v])
+    return out
+
+
+def _entry_problems(reg, fid: str, entry: dict) -> list[str]:
+    from refit.publish.registry import INDEX, parse_record
+
+    path = reg.file(fid, entry["version"])
+    rel = f"{fid}/{entry['version']}.json"
+    try:
+        content, raw = parse_record(path)
+    except RefitError as exc:
+        return [f"{rel}: {exc}"]
+    out = []
+    if entry.get("file_sha256") and sha256_bytes(raw) != entry["file_sha256"]:
+        out.append(f"{rel}: its bytes no longer match the file_sha256 in {INDEX}")
+    if content.get("sha256") != entry.get("sha256"):
+        out.append(f"{rel}: its 'sha256' field ({str(content.get('sha256'))[:12]}...) differs "
+                   f"from the sha256 in {INDEX} ({str(entry.get('sha256'))[:12]}...)")
+    for key, want in (("function_id", fid), ("version", entry["version"])):
+        if content.get(key) != want:
+            out.append(f"{rel}: field '{key}' is {content.get(key)!r}, the index says {want!r}")
+    return out
+
+
+def registry_problems(registry) -> list[str]:
+    """Every disagreement between a registry's index and its files."""
+    from refit.publish.registry import open_registry
+
+    reg = open_registry(registry)
+    fids = set(reg.index.get("functions", {}))
+    fids |= {p.name for p in reg.path.iterdir() if p.is_dir() and not p.name.startswith(".")}
+    out = []
+    for fid in sorted(fids):
+        out += function_problems(reg, fid)
+    return out

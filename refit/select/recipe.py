@@ -1,0 +1,433 @@
+"""Fitting recipes: one TOML file that says which data, which soils, which equations and how
+to judge them.
+
+A recipe has these sections (every key is optional unless marked *required*)::
+
+    [data]          table = "soils.csv"  or  store = "path/to/store"    (one of them, required)
+    [subset]        <column> = "value" | ["value", ...] | { min = ..., max = ... }
+    [function]      id (required), response (required), predictors (required)
+    [candidates]    forms, estimators, directions
+    [validation]    scheme, folds, repeats, groups, seed
+    [intervals]     level, methods
+
+Paths in ``[data]`` are relative to the recipe file. The file is parsed with the standard
+library's TOML reader (``tomllib``, TOML 1.0); nothing in it is ever evaluated as code.
+Unknown sections or keys and bad values are errors that name the file, the line and the key.
+
+Forms are ``linear``, ``quadratic``, ``cubic``, ``polynomial-N`` (N = 2..6) and
+``exponential``; estimators ``ols``, ``huber``, ``theil-sen``, ``quantile`` (``wls`` and
+``york`` need weight or measurement-error columns that recipes do not name yet: they are
+accepted and reported as skipped by the fit matrix); directions ``inverse`` and ``forward``;
+schemes ``kfold``, ``loo``, ``group-kfold``, ``leave-one-group-out``, ``spatial-block``;
+interval methods ``analytic``, ``bootstrap``, ``split-conformal``, ``jackknife+``, ``cv+``,
+``quantile``.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from refit.errors import InvalidDataError, UnreadableInputError, UsageError
+from refit.select.subsets import Filter, parse_filter
+
+SECTIONS = {
+    "data": ("table", "store"),
+    "subset": None,  # any column name
+    "function": ("id", "response", "predictors"),
+    "candidates": ("forms", "estimators", "directions"),
+    "validation": ("scheme", "folds", "repeats", "groups", "seed"),
+    "intervals": ("level", "methods"),
+}
+FORMS = ("linear", "quadratic", "cubic", "exponential")  # plus polynomial-N
+MAX_DEGREE = 6
+ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile")
+DIRECTIONS = ("inverse", "forward")
+SCHEMES = ("kfold", "loo", "group-kfold", "leave-one-group-out", "spatial-block")
+GROUPED = ("group-kfold", "leave-one-group-out")
+METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile")
+_ID = re.compile(r"^[a-z][a-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """A parsed, checked recipe (see the module docstring for the meaning of each field).
+
+    ``lines`` maps ``"section"`` and ``"section.key"`` to the 1-based line of the file
+    where it is written, so later steps (a column missing from the data, a subset that
+    keeps too few rows) can point at the line too.
+    """
+
+    path: Path
+    sha256: str
+    table: Path | None
+    store: Path | None
+    subset: tuple[Filter, ...]
+    function_id: str
+    response: str
+    predictors: tuple[str, ...]
+    forms: tuple[str, ...] = ("linear",)
+    estimators: tuple[str, ...] = ("ols",)
+    directions: tuple[str, ...] = ("inverse",)
+    scheme: str = "kfold"
+    folds: int = 5
+    repeats: int = 1
+    groups: str | None = None
+    seed: int = 0
+    level: float = 0.95
+    methods: tuple[str, ...] = ("analytic",)
+    lines: dict = field(default_factory=dict, compare=False, repr=False)
+
+    def where(self, key: str) -> str:
+        """``"recipe.toml, line 12"`` for a ``section.key`` (or the file alone)."""
+        line = self.lines.get(key) or self.lines.get(key.split(".")[0])
+        return f"{self.path}" + (f", line {line}" if line else "")
+
+    def to_dict(self) -> dict:
+        """JSON-ready content (paths as written relative to the recipe's folder)."""
+        return {
+            "path": self.path.name, "sha256": self.sha256,
+            "data": {"table": _relative(self.table, self.path),
+                     "store": _relative(self.store, self.path)},
+            "subset": [f.to_dict() for f in self.subset],
+            "function": {"id": self.function_id, "response": self.response,
+                         "predictors": list(self.predictors)},
+            "candidates": {"forms": list(self.forms), "estimators": list(self.estimators),
+                           "directions": list(self.directions)},
+            "validation": {"scheme": self.scheme, "folds": self.folds,
+                           "repeats": self.repeats, "groups": self.groups, "seed": self.seed},
+            "intervals": {"level": self.level, "methods": list(self.methods)},
+        }
+
+
+def _relative(target: Path | None, recipe_path: Path) -> str | None:
+    """A data path as the recipe would write it: relative to the recipe's folder if inside
+    it, else the folder's name only (no machine paths go into published files)."""
+    if target is None:
+        return None
+    try:
+        return Path(target).relative_to(Path(recipe_path).resolve().parent).as_posix()
+    except ValueError:
+        return Path(target).name
+
+
+# ----------------------------------------------------------------------------- form names
+def form_degree(name: str) -> tuple[str, int | None]:
+    """Engine form and degree for a recipe form name.
+
+    >>> form_degree("cubic")
+    ('polynomial', 3)
+    """
+    if name in ("linear", "quadratic", "exponential"):
+        return name, None
+    if name == "cubic":
+        return "polynomial", 3
+    m = re.fullmatch(r"polynomial-(\d+)", name)
+    if m and 2 <= int(m.group(1)) <= MAX_DEGREE:
+        return "polynomial", int(m.group(1))
+    raise ValueError(name)
+
+
+def _valid_form(name) -> bool:
+    try:
+        form_degree(name)
+    except (ValueError, TypeError):
+        return False
+    return True
+
+
+# ----------------------------------------------------------------------------- lines
+_HEADER = re.compile(r"^\s*\[\s*([^\[\]]+?)\s*\]\s*(#.*)?$")
+_KEY = re.compile(r"""^\s*("[^"]*"|'[^']*'|[A-Za-z0-9_\-]+)\s*(\.|=)""")
+
+
+def key_lines(text: str) -> dict[str, int]:
+    """Map ``section`` and ``section.key`` to the line where each is written (1-based).
+
+    A light scan of the text, good for error messages: it follows ``[section]`` headers
+    and ``key = ...`` lines at the start of a line (bare or quoted keys). Keys inside
+    inline tables are found by :func:`inline_key_line`.
+    """
+    out: dict[str, int] = {}
+    section = ""
+    for i, line in enumerate(text.splitlines(), start=1):
+        h = _HEADER.match(line)
+        if h:
+            section = h.group(1).strip().strip("\"'")
+            out.setdefault(section, i)
+            continue
+        k = _KEY.match(line)
+        if k:
+            key = k.group(1).strip("\"'")
+            out.setdefault(f"{section}.{key}" if section else key, i)
+    return out
+
+
+def _where(path: Path, lines: dict, key: str) -> str:
+    line = lines.get(key) or lines.get(key.split(".")[0])
+    return f"{path}" + (f", line {line}" if line else "")
+
+
+def _suggest(word: str, choices) -> str:
+    close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
+    return f" (did you mean {close[0]!r}?)" if close else ""
+
+
+# ----------------------------------------------------------------------------- reading
+def read_recipe(path, *, data: dict | None = None) -> Recipe:
+    """Read and check a recipe file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file.
+    data : dict, optional
+        ``{"store": PATH}`` or ``{"table": PATH}`` given on the command line; replaces the
+        recipe's ``[data]`` (which may then be absent). A path the user types may lie
+        anywhere; a path written in a recipe may not leave the recipe's folder.
+
+    Returns
+    -------
+    Recipe
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is missing or unreadable, or is not valid TOML (line and column named).
+    UsageError
+        An unknown section or key, a value of the wrong type or outside its choices, a
+        missing required key; the message names the file, the line and the key.
+    """
+    import tomllib
+
+    from refit._util.atomic import sha256_bytes
+
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise UnreadableInputError(f"{path}: recipe file not found; check the path") from None
+    except OSError as exc:
+        raise UnreadableInputError(f"{path}: cannot read the recipe ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise UnreadableInputError(f"{path}: the recipe is not UTF-8 text (byte {exc.start}); "
+                                   "save it as UTF-8") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise UnreadableInputError(f"{path}: not valid TOML: {exc}; see the TOML 1.0 rules "
+                                   "(strings in quotes, one key per line, [section] "
+                                   "headers)") from None
+    return parse_recipe(doc, path=path, text=text, sha256=sha256_bytes(raw), data=data)
+
+
+def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
+                 data: dict | None = None) -> Recipe:
+    """Check a parsed TOML document and build the :class:`Recipe` (see :func:`read_recipe`)."""
+    given = data
+    lines = key_lines(text)
+    _check_keys(doc, path, lines)
+    v = _Values(path, lines)
+    data = doc.get("data", {})
+    table, store = _data_paths(data, path, lines) if given is None else _given_paths(given)
+    fn = doc.get("function", {})
+    for key in ("id", "response", "predictors"):
+        if key not in fn:
+            raise UsageError(f"{_where(path, lines, 'function')}: [function] needs {key!r} "
+                             f"(e.g. {_EXAMPLES[key]})")
+    fid = v.string("function.id", fn["id"])
+    if not _ID.match(fid):
+        raise UsageError(f"{_where(path, lines, 'function.id')}: function id {fid!r} must be "
+                         "lower case letters, digits and '_', starting with a letter "
+                         "(e.g. 'map_from_bk_depth')")
+    response = v.string("function.response", fn["response"])
+    predictors = v.names("function.predictors", fn["predictors"])
+    if response in predictors:
+        raise UsageError(f"{_where(path, lines, 'function.predictors')}: the response "
+                         f"{response!r} is also a predictor; a column cannot predict itself")
+    cand = doc.get("candidates", {})
+    val = doc.get("validation", {})
+    ivl = doc.get("intervals", {})
+    scheme = v.choice("validation.scheme", val.get("scheme", "kfold"), SCHEMES)
+    groups = None
+    if "groups" in val:
+        groups = v.string("validation.groups", val["groups"])
+    _check_groups(scheme, groups, path, lines)
+    return Recipe(
+        path=path, sha256=sha256, table=table, store=store,
+        subset=tuple(parse_filter(col, value, where=_where(path, lines, f"subset.{col}"),
+                                  line=lines.get(f"subset.{col}"))
+                     for col, value in doc.get("subset", {}).items()),
+        function_id=fid, response=response, predictors=predictors,
+        forms=v.list_of("candidates.forms", cand.get("forms", ["linear"]), FORMS,
+                        valid=_valid_form, extra="polynomial-N (N = 2..6)"),
+        estimators=v.list_of("candidates.estimators", cand.get("estimators", ["ols"]),
+                             ESTIMATORS),
+        directions=v.list_of("candidates.directions", cand.get("directions", ["inverse"]),
+                             DIRECTIONS),
+        scheme=scheme,
+        folds=v.integer("validation.folds", val.get("folds", 5), minimum=2),
+        repeats=v.integer("validation.repeats", val.get("repeats", 1), minimum=1),
+        groups=groups,
+        seed=v.integer("validation.seed", val.get("seed", 0), minimum=0),
+        level=v.level("intervals.level", ivl.get("level", 0.95)),
+        methods=v.list_of("intervals.methods", ivl.get("methods", ["analytic"]), METHODS),
+        lines=lines,
+    )
+
+
+_EXAMPLES = {"id": 'id = "map_from_bk_depth"', "response": 'response = "map_mm"',
+             "predictors": 'predictors = ["bk_depth_cm"]'}
+
+
+def _check_keys(doc: dict, path: Path, lines: dict) -> None:
+    for section, value in doc.items():
+        if section not in SECTIONS:
+            raise UsageError(f"{_where(path, lines, section)}: unknown section [{section}]"
+                             f"{_suggest(section, SECTIONS)}; a recipe has the sections "
+                             + ", ".join(f"[{s}]" for s in SECTIONS))
+        if not isinstance(value, dict):
+            raise UsageError(f"{_where(path, lines, section)}: {section!r} must be a "
+                             f"[{section}] section, not a single value")
+        allowed = SECTIONS[section]
+        if allowed is None:
+            continue
+        for key in value:
+            if key not in allowed:
+                raise UsageError(
+                    f"{_where(path, lines, f'{section}.{key}')}: unknown key {key!r} in "
+                    f"[{section}]{_suggest(key, allowed)}; the keys of [{section}] are: "
+                    + ", ".join(allowed))
+    if "data" not in doc:
+        raise UsageError(f"{path}: the recipe needs a [data] section with table = \"...\" "
+                         "or store = \"...\"")
+    if "function" not in doc:
+        raise UsageError(f"{path}: the recipe needs a [function] section with id, response "
+                         "and predictors")
+
+
+def _given_paths(given: dict):
+    """(table, store) from the command line: exactly one, resolved, anywhere."""
+    keys = [k for k in ("table", "store") if given.get(k)]
+    if len(keys) != 1:
+        raise UsageError("give either a table or a store on the command line, not both")
+    full = Path(given[keys[0]]).resolve()
+    return (full, None) if keys[0] == "table" else (None, full)
+
+
+def _data_paths(data: dict, path: Path, lines: dict):
+    given = [k for k in ("table", "store") if k in data]
+    if len(given) != 1:
+        what = "both" if given else "neither"
+        raise UsageError(f"{_where(path, lines, 'data')}: [data] names {what} of 'table' and "
+                         "'store'; give exactly one (table = \"soils.csv\" or store = "
+                         "\"path/to/store\")")
+    key = given[0]
+    value = data[key]
+    if not isinstance(value, str) or not value.strip():
+        raise UsageError(f"{_where(path, lines, f'data.{key}')}: [data] {key} must be a "
+                         f"path in quotes; got {value!r}")
+    folder = os.path.abspath(path.parent)
+    target = os.path.normpath(os.path.join(folder, value))  # lexical: '..' and absolute
+    if os.path.commonpath([folder, target]) != folder:
+        raise UsageError(
+            f"{_where(path, lines, f'data.{key}')}: [data] {key} = {value!r} points outside "
+            "the recipe's folder; a recipe may only name data inside its own folder (no '..' "
+            "out of it, no absolute path elsewhere), so a recipe from elsewhere cannot read "
+            "other files. Put the recipe in the folder that holds the data, or copy the data "
+            "next to it")
+    full = (path.parent / value).resolve()
+    return (full, None) if key == "table" else (None, full)
+
+
+def _check_groups(scheme: str, groups, path: Path, lines: dict) -> None:
+    if scheme in GROUPED and groups is None:
+        raise UsageError(f"{_where(path, lines, 'validation.scheme')}: scheme {scheme!r} needs "
+                         "groups = \"<column>\" in [validation] (e.g. groups = \"source\")")
+    if scheme not in GROUPED and groups is not None:
+        raise UsageError(f"{_where(path, lines, 'validation.groups')}: groups = {groups!r} "
+                         f"has no effect with scheme {scheme!r}; use scheme 'group-kfold' or "
+                         "'leave-one-group-out', or remove the key")
+
+
+class _Values:
+    """Type and choice checks that name the file, line and key."""
+
+    def __init__(self, path: Path, lines: dict):
+        self.path, self.lines = path, lines
+
+    def fail(self, key: str, what: str, value):
+        section, name = key.split(".", 1)
+        raise UsageError(f"{_where(self.path, self.lines, key)}: [{section}] {name} must be "
+                         f"{what}; got {value!r}")
+
+    def string(self, key, value) -> str:
+        if not isinstance(value, str) or not value.strip():
+            self.fail(key, "a non-empty text in quotes", value)
+        return value.strip()
+
+    def names(self, key, value) -> tuple[str, ...]:
+        items = [value] if isinstance(value, str) else value
+        if not isinstance(items, list) or not items:
+            self.fail(key, "a column name or a list of column names", value)
+        out = tuple(self.string(key, v) for v in items)
+        if len(set(out)) != len(out):
+            self.fail(key, "a list without repeats", value)
+        return out
+
+    def choice(self, key, value, choices) -> str:
+        if not isinstance(value, str) or value not in choices:
+            self.fail(key, "one of " + ", ".join(map(repr, choices))
+                      + _suggest(value, choices), value)
+        return value
+
+    def list_of(self, key, value, choices, *, valid=None, extra="") -> tuple[str, ...]:
+        items = [value] if isinstance(value, str) else value
+        ok = valid or (lambda s: s in choices)
+        if not isinstance(items, list) or not items:
+            self.fail(key, "a non-empty list", value)
+        for item in items:
+            if not isinstance(item, str) or not ok(item):
+                listed = ", ".join(map(repr, choices)) + (f", {extra}" if extra else "")
+                self.fail(key, f"a list of: {listed}; {item!r} is not one of them"
+                          + _suggest(item, choices), value)
+        if len(set(items)) != len(items):
+            self.fail(key, "a list without repeats", value)
+        return tuple(items)
+
+    def integer(self, key, value, *, minimum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+            self.fail(key, f"a whole number >= {minimum}", value)
+        return int(value)
+
+    def level(self, key, value) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)) \
+                or not 0.5 <= value < 1:
+            self.fail(key, "a coverage between 0.5 and 1, e.g. 0.95", value)
+        return float(value)
+
+
+def check_columns(recipe: Recipe, columns, *, source: str) -> None:
+    """Refuse a response, predictor or group column that the data do not have.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming the recipe line, the key, the missing column and the columns present.
+    """
+    have = [str(c) for c in columns]
+    wanted = [("function.response", recipe.response)]
+    wanted += [("function.predictors", p) for p in recipe.predictors]
+    if recipe.groups is not None:
+        wanted.append(("validation.groups", recipe.groups))
+    for key, name in wanted:
+        if name not in have:
+            section, k = key.split(".")
+            raise InvalidDataError(
+                f"{recipe.where(key)}: [{section}] {k} names column {name!r}, which {source} "
+                f"does not have{_suggest(name, have)}; its columns are: " + ", ".join(have))

@@ -1,0 +1,485 @@
+"""The fit matrix: every valid candidate of a recipe, cross-validated and ranked.
+
+A candidate is one form x estimator x direction x interval method. Combinations that
+cannot work are reported with the reason and skipped (:func:`impossible_reason`). Each
+valid candidate is fitted on the whole subset (in-sample R^2, residual standard error,
+AIC and BIC) and cross-validated with :func:`refit.validate.crossval.cross_validate` under the
+recipe's scheme and, beside it, under random k-fold with the same folds, repeats and seed,
+so the optimism of random cross-validation on clustered soils is visible.
+
+Ranking rule (:func:`rank_candidates`)
+--------------------------------------
+1. A candidate's intervals are *calibrated* when its out-of-fold coverage lies within
+   ``tol = max(0.05, 2 sqrt(level (1 - level) / n))`` of the nominal level, n the number
+   of soils in the subset (two binomial standard errors of a coverage estimated from n
+   rows, floored at 5 points: common practice).
+2. Calibrated candidates come first, ordered by the mean interval score under the
+   recipe's scheme (Gneiting & Raftery 2007, JASA 102:359, eq. 43: width plus 2/alpha
+   times each miss; lower is better); the others follow, ordered the same way.
+3. Ties go to fewer coefficients, then to the label.
+
+A *simpler* candidate is pointed out when a calibrated one with fewer coefficients than
+the winner scores within 5 % of it.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from refit.errors import RefitError
+from refit.select.recipe import Recipe, form_degree
+
+INTERVAL_ENGINE = {"analytic": "analytic", "bootstrap": "bootstrap-pairs",
+                   "split-conformal": "split-conformal", "jackknife+": "jackknife+",
+                   "cv+": "cv+", "quantile": "quantile"}
+RESAMPLING = ("bootstrap", "split-conformal", "jackknife+", "cv+")
+NEAR_FRACTION = 0.05   # a simpler candidate within 5 % of the winner's score is named
+TOL_FLOOR = 0.05       # coverage tolerance floor
+METRICS = ("rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
+           "interval_score", "n")
+
+
+@dataclass(frozen=True)
+class Spec:
+    """One candidate of the matrix, in the recipe's words.
+
+    ``form_label`` is the recipe's form name (``cubic``), ``form``/``degree`` the engine's;
+    ``method`` the recipe's interval method (``bootstrap``), :attr:`interval` the engine's.
+    """
+
+    form_label: str
+    form: str
+    degree: int | None
+    estimator: str
+    direction: str
+    method: str
+    n_params: int
+
+    @property
+    def label(self) -> str:
+        """``form/estimator/direction/method``, e.g. ``quadratic/ols/inverse/jackknife+``."""
+        return f"{self.form_label}/{self.estimator}/{self.direction}/{self.method}"
+
+    @property
+    def interval(self) -> str:
+        """The fitting engine's name of the interval method."""
+        return INTERVAL_ENGINE[self.method]
+
+
+# ----------------------------------------------------------------------------- the grid
+def impossible_reason(form: str, estimator: str, direction: str, method: str,
+                      n_predictors: int) -> str | None:
+    """Why a combination cannot be fitted or given an interval (None when it can)."""
+    if estimator == "wls":
+        return "estimator 'wls' needs a weights column, which recipes do not name yet"
+    if estimator == "york":
+        return ("estimator 'york' needs measurement standard deviations of x and y, which "
+                "recipes do not name yet")
+    if direction == "forward" and n_predictors != 1:
+        return (f"the forward direction inverts one feature; the function has "
+                f"{n_predictors} predictors")
+    if estimator == "theil-sen" and (form != "linear" or n_predictors != 1):
+        return "estimator 'theil-sen' fits straight lines with one predictor only"
+    if direction == "forward" and method != "analytic":
+        return ("the forward direction's interval is the classical-calibration band "
+                f"('analytic'); {method!r} does not apply")
+    if method == "quantile" and estimator != "quantile":
+        return "interval 'quantile' comes from quantile curves: only with estimator 'quantile'"
+    if method == "analytic" and estimator == "quantile":
+        return ("estimator 'quantile' gives its own interval from the quantile curves; use "
+                "interval 'quantile'")
+    if method in RESAMPLING and estimator != "ols":
+        return (f"interval {method!r} refits by least squares, so it goes with estimator "
+                f"'ols', not {estimator!r}")
+    return None
+
+
+def candidate_grid(recipe: Recipe) -> tuple[list[Spec], list[dict]]:
+    """All valid candidates of a recipe, and the skipped combinations with their reasons."""
+    from refit.models.forms import make_form
+
+    specs, skipped = [], []
+    k = len(recipe.predictors)
+    for form_label in recipe.forms:
+        form, degree = form_degree(form_label)
+        for direction in recipe.directions:
+            x_names = list(recipe.predictors) if direction == "inverse" else [recipe.response]
+            n_params = make_form(form, x_names, degree=degree).n_params
+            for estimator in recipe.estimators:
+                for method in recipe.methods:
+                    spec = Spec(form_label, form, degree, estimator, direction, method,
+                                n_params)
+                    why = impossible_reason(form, estimator, direction, method, k)
+                    if why is None:
+                        specs.append(spec)
+                    else:
+                        skipped.append({"candidate": spec.label, "reason": why})
+    return specs, skipped
+
+
+# ----------------------------------------------------------------------------- in-sample
+def information_criteria(residuals, n_params: int) -> tuple[float, float]:
+    """Gaussian AIC and BIC from residuals on the fitting scale.
+
+    ``llf = -n/2 (ln(2 pi) + ln(RSS/n) + 1)``, ``AIC = -2 llf + 2 p``,
+    ``BIC = -2 llf + p ln(n)`` with p the number of coefficients: the convention of
+    statsmodels' OLS results (``aic``, ``bic``). For robust fits the same formula is
+    applied to their residuals (a descriptive figure). Comparable only between
+    candidates with the same response on the same scale (same direction, not mixing the
+    exponential form's log scale with the others).
+    """
+    e = np.asarray(residuals, dtype=float)
+    n = e.size
+    rss = float(e @ e)
+    if n == 0 or rss <= 0:
+        return float("nan"), float("nan")
+    llf = -0.5 * n * (math.log(2 * math.pi) + math.log(rss / n) + 1.0)
+    return -2 * llf + 2 * n_params, -2 * llf + n_params * math.log(n)
+
+
+def fit_whole(frame, recipe: Recipe, spec: Spec):
+    """The candidate fitted on the whole subset, and its in-sample figures."""
+    from refit.models.fitting import fit
+
+    f = fit(frame, recipe.response, list(recipe.predictors), form=spec.form,
+            degree=spec.degree, estimator=spec.estimator, direction=spec.direction)
+    aic, bic = information_criteria(f.result.residuals, spec.n_params)
+    return f, {"r2_in_sample": f.r_squared, "residual_se": f.residual_std_error,
+               "aic": aic, "bic": bic}
+
+
+# ----------------------------------------------------------------------------- running
+@dataclass
+class MatrixResult:
+    """Everything one run of the matrix produced (see :func:`run_matrix`)."""
+
+    specs: list
+    skipped: list
+    leaderboard: object          # pandas DataFrame, ranked
+    predictions: object          # pandas DataFrame, every out-of-fold prediction
+    fits: dict                   # label -> refit.models.fitting.Fit (whole subset)
+    cv: dict                     # label -> {"main": CVResult, "kfold": CVResult | None}
+    verdict: dict
+    schemes: dict                # "main"/"kfold" -> Scheme (kfold None if main is kfold)
+    split_details: dict          # "main"/"kfold" -> the splits' details (groups, blocks)
+    tolerance: float
+    n: int
+    timings: dict = field(default_factory=dict)
+
+
+def schemes_for(recipe: Recipe, n: int):
+    """The recipe's scheme and the random k-fold beside it (None when it is k-fold)."""
+    from refit.validate.crossval import Scheme
+
+    main = Scheme(name=recipe.scheme, folds=recipe.folds, repeats=recipe.repeats,
+                  groups=recipe.groups, seed=recipe.seed)
+    if recipe.scheme == "kfold":
+        return main, None
+    folds = min(recipe.folds, n)
+    return main, Scheme(name="kfold", folds=folds, repeats=recipe.repeats, seed=recipe.seed)
+
+
+def _candidate(recipe: Recipe, spec: Spec):
+    from refit.validate.crossval import Candidate
+
+    return Candidate(response=recipe.response, predictors=tuple(recipe.predictors),
+                     form=spec.form, degree=spec.degree, estimator=spec.estimator,
+                     direction=spec.direction, interval=spec.interval)
+
+
+def _make_splits(frame, scheme, recipe: Recipe):
+    """Make the splits once (every candidate sees the same folds); scheme errors stop the
+    run with the recipe's line."""
+    from refit.validate.crossval import make_splits
+
+    try:
+        return make_splits(frame, scheme)
+    except RefitError as exc:
+        raise type(exc)(f"{recipe.where('validation.scheme')}: [validation] {exc}") from None
+
+
+def _row(spec: Spec, main, kfold, insample: dict) -> dict:
+    row = {"candidate": spec.label, "form": spec.form_label, "estimator": spec.estimator,
+           "direction": spec.direction, "interval_method": spec.method,
+           "n_params": spec.n_params, "scheme": main.scheme.name}
+    row.update({m: main.metrics.get(m) for m in METRICS})
+    for m in ("rmsep", "bias", "coverage", "mean_width", "interval_score"):
+        row[f"kfold_{m}"] = None if kfold is None else kfold.metrics.get(m)
+    row["rmsep_ratio"] = (None if kfold is None or not kfold.metrics.get("rmsep")
+                          else main.metrics["rmsep"] / kfold.metrics["rmsep"])
+    row.update(insample)
+    return row
+
+
+def _oof(res, spec: Spec):
+    p = res.predictions.copy()
+    p.insert(0, "candidate", spec.label)
+    p.insert(1, "scheme", res.scheme.name)
+    return p
+
+
+def _one(frame, recipe, spec, schemes, splits, n_jobs, tick):
+    """Fit, cross-validate (both schemes); returns (fit, results) or raises RefitError."""
+    from refit.validate.crossval import cross_validate
+
+    f, insample = fit_whole(frame, recipe, spec)
+    cand = _candidate(recipe, spec)
+    out = {}
+    for key, scheme in schemes.items():
+        if scheme is None:
+            out[key] = None
+            continue
+        out[key] = cross_validate(frame, cand, scheme, level=recipe.level, seed=recipe.seed,
+                                  n_jobs=n_jobs, splits=splits[key])
+        tick(f"{spec.label} ({scheme.name})")
+    return f, insample, out
+
+
+def _candidate_job(frame, recipe, spec, schemes, splits, n_jobs):
+    """One candidate, run alike in this process or a worker: BLAS on one thread (so the
+    bits do not depend on where it ran), failures returned as text, not raised."""
+    from refit.validate.splitters import _blas
+
+    t = time.perf_counter()
+    try:
+        with _blas().limit(limits=1, user_api="blas"):
+            f, insample, res = _one(frame, recipe, spec, schemes, splits, n_jobs,
+                                    lambda label: None)
+    except RefitError as exc:
+        return spec, None, f"failed: {exc}", 0.0
+    return spec, (f, insample, res), None, round(time.perf_counter() - t, 4)
+
+
+def _candidate_results(frame, recipe, specs, schemes, splits, n_jobs, progress_one):
+    """Yield each candidate's outcome in the order of ``specs``.
+
+    Serial (``n_jobs == 1``, or a single candidate: then its folds get the workers): in
+    this process. Otherwise the candidates are spread over ``n_jobs`` worker processes
+    (joblib's loky backend) and their folds run serially inside each worker, so no two
+    levels compete for the cores. Each candidate's numbers depend only on the recipe's
+    seed (folds and interval seeds are fixed before it starts), so the results are
+    identical bit for bit to the serial run's.
+    """
+    if n_jobs == 1 or len(specs) < 2:
+        for spec in specs:
+            out = _candidate_job(frame, recipe, spec, schemes, splits, n_jobs)
+            progress_one(out)
+            yield out
+        return
+    from joblib import Parallel, delayed, effective_n_jobs
+
+    workers = min(effective_n_jobs(n_jobs), len(specs))
+    jobs = Parallel(n_jobs=workers, return_as="generator")(
+        delayed(_candidate_job)(frame, recipe, spec, schemes, splits, 1) for spec in specs)
+    for out in jobs:
+        progress_one(out)
+        yield out
+
+
+def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> MatrixResult:
+    """Cross-validate every valid candidate of a recipe on a subset and rank them.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The subset: rows with the response and predictors present.
+    recipe : Recipe
+    n_jobs : int
+        Worker processes (1: serial; -1: all cores). With several candidates they are
+        spread over the workers (each candidate's folds run serially in its worker); with
+        one candidate its folds are. Results are identical to the serial run's, bit for
+        bit, for the same recipe and seed.
+    progress : callable, optional
+        ``progress(total=...)`` once, then ``progress(advance=1, label=...)`` per
+        cross-validation run (per candidate and scheme, as each candidate finishes).
+
+    Returns
+    -------
+    MatrixResult
+    """
+    import pandas as pd
+
+    t0 = time.perf_counter()
+    frame = frame.reset_index(drop=True)
+    specs, skipped = candidate_grid(recipe)
+    main, kfold = schemes_for(recipe, len(frame))
+    schemes = {"main": main, "kfold": kfold}
+    splits = {k: None if s is None else _make_splits(frame, s, recipe)
+              for k, s in schemes.items()}
+    per = sum(s is not None for s in schemes.values())
+    if progress:
+        progress(total=len(specs) * per)
+
+    def progress_one(out):
+        if not progress:
+            return
+        spec, done, failed, _ = out
+        for key, scheme in schemes.items():
+            if scheme is not None:
+                progress(advance=1, label=f"{spec.label} "
+                         + ("(failed)" if failed else f"({scheme.name})"))
+
+    rows, preds, fits, cvs, valid, times = [], [], {}, {}, [], {}
+    for spec, done, failed, seconds in _candidate_results(frame, recipe, specs, schemes,
+                                                          splits, n_jobs, progress_one):
+        if failed:
+            skipped.append({"candidate": spec.label, "reason": failed})
+            continue
+        f, insample, res = done
+        times[spec.label] = seconds
+        valid.append(spec)
+        fits[spec.label], cvs[spec.label] = f, res
+        rows.append(_row(spec, res["main"], res["kfold"], insample))
+        preds += [_oof(r, spec) for r in res.values() if r is not None]
+    board, tol = rank_candidates(pd.DataFrame(rows), recipe.level, len(frame))
+    verdict = explain(board, recipe.level, tol, main.name)
+    verdict["optimism"] = optimism(board)
+    predictions = pd.concat(preds, ignore_index=True) if preds else pd.DataFrame()
+    times["total"] = round(time.perf_counter() - t0, 4)
+    details = {k: None if v is None else dict(v.details) for k, v in splits.items()}
+    return MatrixResult(valid, skipped, board, predictions, fits, cvs, verdict, schemes,
+                        details, tol, len(frame), times)
+
+
+# ----------------------------------------------------------------------------- ranking
+def coverage_tolerance(level: float, n: int) -> float:
+    """``max(0.05, 2 sqrt(level (1 - level) / n))`` (see the module notes)."""
+    se = math.sqrt(level * (1 - level) / n) if n > 0 else float("inf")
+    return max(TOL_FLOOR, 2 * se)
+
+
+def rank_candidates(table, level: float, n: int):
+    """Rank a leaderboard table by the documented rule; returns (ranked table, tolerance).
+
+    ``table`` needs the columns ``candidate``, ``n_params``, ``coverage`` and
+    ``interval_score``; ``coverage_ok`` and ``rank`` (1 = best) are added.
+    """
+    tol = coverage_tolerance(level, n)
+    if len(table) == 0:
+        return table.assign(coverage_ok=[], rank=[]), tol
+    t = table.copy()
+    cov = t["coverage"].astype(float)
+    t["coverage_ok"] = ((cov - level).abs() <= tol + 1e-12).fillna(False).astype(bool)
+    score = t["interval_score"].astype(float).fillna(np.inf)
+    t = t.assign(_miss=~t["coverage_ok"], _score=score)
+    t = t.sort_values(["_miss", "_score", "n_params", "candidate"], kind="mergesort")
+    t = t.drop(columns=["_miss", "_score"]).reset_index(drop=True)
+    t.insert(0, "rank", np.arange(1, len(t) + 1))
+    return t, tol
+
+
+def _pct(x: float) -> str:
+    return f"{100 * x:.1f}%"
+
+
+def explain(board, level: float, tol: float, scheme: str) -> dict:
+    """Why the top candidate wins, and a simpler one that is nearly as good (if any)."""
+    rule = (f"mean interval score under {scheme} (lower is better) among candidates whose "
+            f"out-of-fold coverage is within {_pct(tol)} of the nominal {_pct(level)}; "
+            "ties to fewer coefficients")
+    if len(board) == 0:
+        return {"rule": rule, "winner": None, "why": "no candidate could be fitted",
+                "simpler": None, "simpler_why": None}
+    top = board.iloc[0]
+    n_ok = int(board["coverage_ok"].sum())
+    if top["coverage_ok"]:
+        why = (f"{top['candidate']} has the lowest mean interval score "
+               f"({top['interval_score']:.4g}) under {scheme} of the {n_ok} candidate(s) "
+               f"with coverage within {_pct(tol)} of {_pct(level)} (its coverage "
+               f"{_pct(top['coverage'])}, mean width {top['mean_width']:.4g}, RMSEP "
+               f"{top['rmsep']:.4g})")
+    else:
+        why = (f"no candidate's coverage is within {_pct(tol)} of {_pct(level)}; "
+               f"{top['candidate']} has the lowest mean interval score "
+               f"({top['interval_score']:.4g}) but its coverage is {_pct(top['coverage'])}: "
+               "treat every interval here as unreliable")
+    simpler, simpler_why = _simpler(board, top)
+    return {"rule": rule, "winner": str(top["candidate"]), "why": why,
+            "simpler": simpler, "simpler_why": simpler_why}
+
+
+def _simpler(board, top) -> tuple[str | None, str | None]:
+    """A candidate with fewer coefficients within 5 % of the winner's score, if any."""
+    fewer = board[(board["coverage_ok"] == top["coverage_ok"])
+                  & (board["n_params"] < top["n_params"])]
+    if not len(fewer):
+        return None, None
+    s = fewer.iloc[0]
+    gap = s["interval_score"] / top["interval_score"] - 1
+    if not s["interval_score"] <= top["interval_score"] * (1 + NEAR_FRACTION):
+        return None, (f"no candidate with fewer coefficients comes within "
+                      f"{_pct(NEAR_FRACTION)} of the winner's score; the best of them, "
+                      f"{s['candidate']}, scores {_pct(gap)} worse ({s['interval_score']:.4g})")
+    return str(s["candidate"]), (
+        f"{s['candidate']} has {int(top['n_params'] - s['n_params'])} fewer coefficient(s) "
+        f"and scores within {_pct(gap)} of the winner ({s['interval_score']:.4g}); prefer "
+        "it unless the difference matters to you")
+
+
+def optimism(board) -> dict | None:
+    """How much random k-fold flatters: median ratio of the scheme's RMSEP and interval
+    score to random k-fold's over the candidates (None without a k-fold run beside)."""
+    if "kfold_rmsep" not in board or board["kfold_rmsep"].isna().all():
+        return None
+    r = (board["rmsep"] / board["kfold_rmsep"]).replace([np.inf, -np.inf], np.nan)
+    s = (board["interval_score"] / board["kfold_interval_score"]).replace(
+        [np.inf, -np.inf], np.nan)
+    return {"median_rmsep_ratio": float(r.median()), "median_score_ratio": float(s.median())}
+
+
+# ----------------------------------------------------------------------------- a recipe
+@dataclass
+class Run:
+    """A recipe run: the data's provenance, the subset and the matrix."""
+
+    recipe: Recipe
+    data: dict
+    subset: object      # refit.select.subsets.SubsetResult
+    matrix: MatrixResult
+    timings: dict
+
+
+def _enough_rows(recipe: Recipe, specs: list, sub) -> None:
+    from refit.select.subsets import check_enough, rows_needed
+
+    if not specs:
+        return
+    hungry = max(specs, key=lambda s: rows_needed(s.n_params, s.estimator))
+    need = rows_needed(hungry.n_params, hungry.estimator)
+    what = (f"form {hungry.form_label!r} ({hungry.n_params} coefficients) with estimator "
+            f"{hungry.estimator!r}")
+    check_enough(len(sub.frame), need, what, sub, where=recipe.where("subset"))
+
+
+def run_recipe(recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Run:
+    """Load a recipe's data, select the subset, and run the fit matrix on it.
+
+    Raises
+    ------
+    UsageError
+        Every combination of the recipe is impossible (the reasons are listed).
+    InvalidDataError
+        A column the recipe names is missing, the subset keeps too few rows (how many are
+        needed is said), or the validation scheme cannot split the subset.
+    """
+    from refit.errors import UsageError
+    from refit.select.subsets import load_data, select
+
+    t0 = time.perf_counter()
+    frame, data, source = load_data(recipe)
+    t1 = time.perf_counter()
+    sub = select(recipe, frame, source)
+    specs, skipped = candidate_grid(recipe)
+    if not specs:
+        raise UsageError(f"{recipe.where('candidates')}: no combination of the recipe's "
+                         "candidates and interval methods can be fitted: "
+                         + "; ".join(f"{s['candidate']}: {s['reason']}" for s in skipped))
+    _enough_rows(recipe, specs, sub)
+    result = run_matrix(sub.frame, recipe, n_jobs=n_jobs, progress=progress)
+    timings = {"load_s": round(t1 - t0, 4), "matrix_s": result.timings["total"],
+               "total_s": round(time.perf_counter() - t0, 4)}
+    return Run(recipe, data, sub, result, timings)

@@ -1,0 +1,116 @@
+"""`refit demo` end to end on the bundled invented scenario (CLI driven in-process)."""
+
+from __future__ import annotations
+
+import json
+from html.parser import HTMLParser
+
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from refit.cli import main
+from refit.coefficients import load
+from refit.curate.store import open_store
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "out"
+    result = CliRunner().invoke(main, ["demo", "--out", str(out)])
+    return out, result
+
+
+def test_demo_exits_0_and_prints_each_step(demo_run):
+    out, result = demo_run
+    assert result.exit_code == 0, result.output
+    text = result.output
+    # the accounting the issue asks for: rows read = accepted + rejected, where each went
+    assert "Rows read 40 = accepted 26 + rejected 14." in text
+    for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
+                 "7. Report", "Where everything went"):
+        assert step in text
+    assert "Leaderboard: map_from_bk_depth" in text and "not for engineering" in text
+
+
+def test_demo_store_and_quarantine(demo_run):
+    out, _ = demo_run
+    store = open_store(out / "store")
+    assert store.version == 2
+    assert len(store.records) == store.manifest["row_count"]
+    entry = store.manifest["changelog"][-1]
+    assert (entry["rows_read"], entry["accepted"], entry["rejected"]) == (40, 26, 14)
+    quarantined = pd.read_csv(out / "store" / entry["quarantine_file"], dtype=str)
+    assert len(quarantined) == 14 and quarantined["_reasons"].str.len().gt(0).all()
+    check = json.loads((out / "check-incoming.json").read_text(encoding="utf-8"))
+    assert check["n_rows"] == 40 and not check["ok"]
+
+
+def test_demo_fit_publish_apply_compare(demo_run):
+    out, _ = demo_run
+    board = pd.read_csv(out / "run" / "leaderboard.csv")
+    assert len(board) >= 12
+    assert len(list((out / "run" / "fits").glob("*.json"))) == len(board)
+    run = json.loads((out / "run" / "run.json").read_text(encoding="utf-8"))
+    store = open_store(out / "store")
+    assert run["dataset"]["version"] == 2
+    assert run["dataset"]["sha256"] == store.manifest["records_sha256"]
+
+    published = sorted((out / "registry" / "map_from_bk_depth").glob("*.json"))
+    assert [p.name for p in published] == ["1.0.0.json"]
+    eq = load(published[0])
+    assert eq.record["candidate"] == board.iloc[0]["candidate"]
+
+    estimates = pd.read_csv(out / "estimates.csv", keep_default_na=False, na_values=[""])
+    mine = estimates[estimates["coefficient_file"].str.contains("registry")]
+    assert len(mine) == 14  # every demo paleosol
+    # the demo's edge paleosol (see calib_demo/make_demo.py) is flagged
+    flags = dict(zip(mine["paleosol_id"], mine["flags"].fillna("")))
+    assert "outside-calibration-range" in flags["CG-P07"]  # 3 cm: shallower than any soil
+    table = pd.read_csv(out / "compare" / "comparison.csv")
+    assert set(table["paleosol_id"]) == set(estimates["paleosol_id"])
+    assert (out / "compare" / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_demo_report_is_self_contained(demo_run):
+    out, _ = demo_run
+    html = (out / "report.html").read_text(encoding="utf-8")
+
+    class Images(HTMLParser):
+        srcs: list = []
+        alts: list = []
+
+        def handle_starttag(self, tag, attrs):
+            if tag == "img":
+                self.srcs.append(dict(attrs).get("src", ""))
+                self.alts.append(dict(attrs).get("alt", ""))
+
+    parser = Images()
+    parser.srcs, parser.alts = [], []
+    parser.feed(html)
+    assert parser.srcs and all(s.startswith("data:image/") for s in parser.srcs)
+    run = json.loads((out / "run" / "run.json").read_text(encoding="utf-8"))
+    assert run["dataset"]["sha256"] in html
+    # the demo's comparison of fits is in the report too, embedded like the other figures
+    assert sum("compared fits" in a for a in parser.alts) == 1
+    table = pd.read_csv(out / "compare" / "comparison.csv")
+    assert f"The comparison table ({len(table)} rows" in html
+    assert "--compare" in html
+
+
+def test_demo_refuses_a_folder_it_did_not_write(tmp_path):
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "thesis.docx").write_bytes(b"precious")
+    result = CliRunner().invoke(main, ["demo", "--out", str(mine)])
+    assert result.exit_code == 2
+    assert "not an earlier refit demo folder" in result.output
+    assert (mine / "thesis.docx").read_bytes() == b"precious"
+
+
+def test_demo_replaces_its_own_earlier_output(demo_run):
+    out, _ = demo_run
+    first = (out / "run" / "leaderboard.csv").read_bytes()
+    assert CliRunner().invoke(main, ["demo", "--out", str(out), "--quiet"]).exit_code == 0
+    # same recipe, same data version, same seed: the same numbers
+    assert (out / "run" / "leaderboard.csv").read_bytes() == first

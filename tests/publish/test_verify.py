@@ -1,0 +1,183 @@
+"""verify: integrity of a coefficient file, and reproduction from the store.
+
+The hash is checked against hashlib (the standard library's SHA-256, FIPS 180-4) over the
+canonical content; the refit is compared with the file to 1e-9 as the issue requires.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+
+from _harness import make_fits, recipe_toml
+from refit.publish import registry as reg
+from refit._util.resources import demo_dir
+from refit.errors import RefitError, UnreadableInputError
+from refit.publish.verify import verify_bytes, verify_file, verify_registry
+
+RECIPE = recipe_toml(
+    subset={"vegetation": ["grassland", "shrubland", "savanna"], "parent_material": "loess",
+            "age_ka": {"min": 5}},
+    candidates={"estimators": ["ols", "huber"], "directions": ["inverse", "forward"]},
+    validation={"scheme": "kfold", "folds": 5, "seed": 20261201},
+    intervals={"methods": ["analytic", "split-conformal"]})
+LINEAR = "linear__ols__inverse__analytic.json"
+
+
+def make_run(folder: Path, out: str = "run") -> Path:
+    """Run the recipe on ``folder/store`` (copied from the demo if absent); RUN/fits."""
+    return make_fits(folder, RECIPE, out)
+
+
+@pytest.fixture(scope="module")
+def scenario(tmp_path_factory):
+    """Demo store copy, a run, 1.0.0 published, then a new batch admitted (version 2)."""
+    from refit.curate.store import admit, open_store
+
+    root = tmp_path_factory.mktemp("verify")
+    fits = make_run(root)
+    registry = root / "registry"
+    first = reg.publish(fits / LINEAR, registry, create=True)
+    v_before = open_store(root / "store").version
+    admit(demo_dir() / "incoming_soils.csv", root / "store", today="2026-12-02")
+    assert open_store(root / "store").version == v_before + 1
+    return {"root": root, "fits": fits, "registry": registry, "published": first.path,
+            "store": root / "store", "version": v_before}
+
+
+# ----------------------------------------------------------------------------- integrity
+def test_published_file_passes_integrity(scenario):
+    report = verify_file(scenario["published"])
+    assert report.ok
+    assert [c.name for c in report.checks] == ["sha256", "bytes", "schema"]
+
+
+def test_every_single_byte_change_is_detected(scenario):
+    raw = Path(scenario["published"]).read_bytes()
+    assert verify_bytes(raw).ok
+    missed = []
+    for i in range(len(raw)):
+        # flip the lowest bit (a digit becomes its neighbour, a space a '!', '"' a '#'),
+        # and turn each line end into a space (a layout-only edit, same content)
+        for new in {raw[i] ^ 0x01} | ({0x20} if raw[i] == 0x0A else set()):
+            changed = raw[:i] + bytes([new]) + raw[i + 1:]
+            try:
+                ok = verify_bytes(changed).ok
+            except RefitError:
+                ok = False
+            if ok:
+                missed.append((i, new))
+    assert missed == []
+
+
+def test_layout_only_edit_is_named(scenario, tmp_path):
+    raw = Path(scenario["published"]).read_bytes()
+    edited = tmp_path / "f.json"
+    edited.write_bytes(raw.replace(b'\n "function_id"', b'\n  "function_id"', 1))
+    report = verify_file(edited)
+    assert [(c.name, c.ok) for c in report.checks] == [("sha256", True), ("bytes", False)]
+    assert "content hash still matches" in report.checks[1].message
+    assert "line 3" in report.checks[1].message
+
+
+def test_edited_number_fails_hash_and_names_field(scenario, tmp_path):
+    content = json.loads(Path(scenario["published"]).read_text("utf-8"))
+    content["coefficients"][1] *= 1.01
+    edited = tmp_path / "f.json"
+    edited.write_text(reg.file_text(content), encoding="utf-8")
+    report = verify_file(edited)
+    assert not report.ok and report.checks[0].name == "sha256"
+    assert "'sha256' does not match" in report.checks[0].message
+
+
+def test_unreadable_file(tmp_path, scenario):
+    with pytest.raises(UnreadableInputError, match="not found"):
+        verify_file(tmp_path / "missing.json")
+    cut = tmp_path / "cut.json"
+    cut.write_bytes(Path(scenario["published"]).read_bytes()[:500])
+    with pytest.raises(UnreadableInputError, match="not valid JSON"):
+        verify_file(cut)
+
+
+# ----------------------------------------------------------------------------- reproduce
+def test_reproduces_from_recorded_version_after_new_batch(scenario):
+    """The store moved on to a new version; the 1.0.0 file still refits from its own."""
+    from refit.curate.store import open_store
+
+    content = json.loads(Path(scenario["published"]).read_text("utf-8"))
+    assert content["provenance"]["dataset"]["version"] == scenario["version"]
+    assert open_store(scenario["store"]).version == scenario["version"] + 1
+    report = verify_file(scenario["published"], store=scenario["store"])
+    assert report.ok, report.to_dict()
+    assert report.checks[-1].name == "reproduce"
+    assert f"version {scenario['version']}" in report.checks[-1].message
+
+
+@pytest.mark.parametrize("name", ["linear__ols__inverse__split-conformal.json",
+                                  "quadratic__huber__forward__analytic.json",
+                                  "quadratic__ols__inverse__analytic.json"])
+def test_reproduces_every_kind_of_candidate(scenario, name):
+    report = verify_file(scenario["fits"] / name, store=scenario["store"])
+    assert report.ok, report.to_dict()
+
+
+def test_a_changed_coefficient_with_a_valid_hash_does_not_reproduce(scenario, tmp_path):
+    content = json.loads(Path(scenario["published"]).read_text("utf-8"))
+    content["coefficients"][0] += 1e-6 * abs(content["coefficients"][0])   # beyond 1e-9
+    content["sha256"] = reg.content_sha256(content)
+    forged = tmp_path / "forged.json"
+    forged.write_text(reg.file_text(content), encoding="utf-8")
+    report = verify_file(forged, store=scenario["store"])
+    assert [c.ok for c in report.checks] == [True, True, True, False]
+    assert "coefficients[0]" in report.checks[-1].message
+    # but within the tolerance it is accepted
+    content["coefficients"][0] = json.loads(
+        Path(scenario["published"]).read_text("utf-8"))["coefficients"][0] * (1 + 1e-12)
+    content["sha256"] = reg.content_sha256(content)
+    forged.write_text(reg.file_text(content), encoding="utf-8")
+    assert verify_file(forged, store=scenario["store"]).ok
+
+
+def test_other_store_or_edited_store_is_refused(scenario, tmp_path):
+    store = tmp_path / "store"
+    shutil.copytree(scenario["store"], store)
+    records = store / "records.csv"
+    lines = records.read_text("utf-8").splitlines(keepends=True)
+    lines[5] = lines[5].replace(",loess,", ",loess ,", 1) if ",loess," in lines[5] \
+        else lines[5].replace(",", ",x", 1)
+    records.write_text("".join(lines), encoding="utf-8")
+    report = verify_file(scenario["published"], store=store)
+    assert not report.ok
+    assert "edited outside refit" in report.checks[-1].message
+    with pytest.raises(UnreadableInputError, match="not found"):
+        verify_file(scenario["published"], store=tmp_path / "nowhere")
+
+
+def test_file_without_recipe_cannot_be_refitted(scenario, tmp_path):
+    content = json.loads(Path(scenario["published"]).read_text("utf-8"))
+    content["provenance"]["recipe"] = None
+    content["sha256"] = reg.content_sha256(content)
+    f = tmp_path / "f.json"
+    f.write_text(reg.file_text(content), encoding="utf-8")
+    report = verify_file(f, store=scenario["store"])
+    assert not report.ok and "does not record its recipe" in report.checks[-1].message
+
+
+# ----------------------------------------------------------------------------- registry
+def test_verify_registry(scenario, tmp_path):
+    r = tmp_path / "registry"
+    shutil.copytree(scenario["registry"], r)
+    assert verify_registry(r).ok
+    index = json.loads((r / "index.json").read_text("utf-8"))
+    index["functions"]["map_from_bk_depth"][0]["version"] = "1.0.1"
+    (r / "index.json").write_text(json.dumps(index), encoding="utf-8")
+    report = verify_registry(r)
+    failed = [c.message for c in report.failures()]
+    assert any("1.0.0.json is on disk but not in index.json" in m for m in failed)
+    assert any("1.0.1.json is missing" in m for m in failed)
+    with pytest.raises(UnreadableInputError, match="not found"):
+        verify_registry(tmp_path / "none")
+

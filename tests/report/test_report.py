@@ -1,0 +1,255 @@
+"""`refit report`: one self-contained HTML file holding the run's numbers.
+
+The run is a small recipe on the demo scenario's store (the demo's invented data); the
+checks read the HTML back with the standard library's html.parser and compare it with the
+run folder's own files (leaderboard.csv, run.json, fits/*.json).
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import json
+import shutil
+from html.parser import HTMLParser
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from _harness import copy_demo_store, recipe_toml
+from refit.cli.fit import fit as fit_cmd
+from refit.cli.report import report
+from refit.report.context import num
+
+
+def report_recipe(store) -> str:
+    """The report run's recipe, on the store at ``store``."""
+    return recipe_toml(
+        data={"store": store.as_posix()},
+        subset={"vegetation": ["grassland", "shrubland", "savanna"], "parent_material": "loess",
+                "age_ka": {"min": 5}},
+        candidates={"directions": ["inverse", "forward"]},
+        validation={"scheme": "group-kfold", "folds": 4, "repeats": 2, "groups": "source",
+                    "seed": 7},
+        intervals={"level": 0.9, "methods": ["analytic", "jackknife+"]})
+
+
+class Page(HTMLParser):
+    """Tags, attributes and text of an HTML page."""
+
+    def __init__(self):
+        super().__init__()
+        self.tags, self.text = [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+    @property
+    def body(self) -> str:
+        return " ".join(" ".join(self.text).split())
+
+
+def parse(path) -> Page:
+    p = Page()
+    p.feed(path.read_text("utf-8"))
+    p.close()
+    return p
+
+
+@pytest.fixture(scope="module")
+def run_dir(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("report")
+    store = copy_demo_store(tmp / "store")
+    recipe = tmp / "recipe.toml"
+    recipe.write_text(report_recipe(store), "utf-8")
+    out = tmp / "run"
+    res = CliRunner().invoke(fit_cmd, [str(recipe), "--out", str(out), "--quiet"])
+    assert res.exit_code == 0, res.output
+    return out
+
+
+@pytest.fixture(scope="module")
+def written(run_dir):
+    out = run_dir.parent / "reports" / "r.html"
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet"])
+    assert res.exit_code == 0, res.output
+    assert f"Report written to {out}" in res.output
+    return out
+
+
+def test_html_parses_and_embeds_its_images(written):
+    page = parse(written)
+    imgs = [a for t, a in page.tags if t == "img"]
+    assert len(imgs) == 6
+    for a in imgs:
+        assert a["src"].startswith("data:image/png;base64,")
+        raw = base64.b64decode(a["src"].split(",", 1)[1])
+        assert raw[:8] == b"\x89PNG\r\n\x1a\n"
+        assert a.get("alt")
+
+
+def test_html_needs_no_network(written):
+    page = parse(written)
+    for tag, attrs in page.tags:
+        for key in ("src", "href", "data", "poster", "action"):
+            value = attrs.get(key) or ""
+            assert not value.lower().startswith(("http:", "https:", "//")), (tag, attrs)
+        assert tag not in ("script", "link", "iframe", "object")
+    assert "@import" not in written.read_text("utf-8")
+    assert "url(" not in written.read_text("utf-8")
+
+
+def test_html_holds_the_runs_numbers(run_dir, written):
+    body = parse(written).body
+    run = json.loads((run_dir / "run.json").read_text())
+    board = pd.read_csv(run_dir / "leaderboard.csv")
+    assert run["dataset"]["sha256"] in body
+    assert f"version {run['dataset']['version']}" in body
+    assert f"kept {run['subset']['rows_after']} of {run['subset']['rows_before']} records" \
+        in body
+    for r in board.itertuples():
+        assert r.candidate in body
+        assert num(r.rmsep) in body and num(r.interval_score) in body
+    top = json.loads((run_dir / "fits" / (board.candidate[0].replace("/", "__")
+                                          .replace("+", "-plus") + ".json")).read_text())
+    for c in top["coefficients"]:
+        assert num(c, 6) in body
+    assert "for research, not for engineering, hazard or regulatory decisions" in body
+    assert f"refit report {run_dir}" in body
+    assert "refit fit" in body
+    opt = json.loads((run_dir / "leaderboard.json").read_text())["verdict"]["optimism"]
+    assert f"{opt['median_rmsep_ratio']:.2f}×" in body
+
+
+def test_forward_candidate_on_request(run_dir, tmp_path):
+    out = tmp_path / "fw.html"
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet",
+                                      "--candidate", "quadratic/ols/forward/analytic"])
+    assert res.exit_code == 0, res.output
+    body = parse(out).body
+    assert "reported as asked" in body
+    assert "Forward fit: bk_depth_cm regressed on map_mm" in body
+    assert "bk_depth_cm = " in body and "map_mm²" in body
+
+
+def test_refuses_to_overwrite_and_unknown_candidate(run_dir, written):
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(written)])
+    assert res.exit_code == 2 and "--overwrite" in res.output
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(written), "--overwrite",
+                                      "--candidate", "cubic/ols/inverse/analytic"])
+    assert res.exit_code == 2 and "choose one of" in res.output
+
+
+def test_moved_data_named_and_found_with_store(run_dir, tmp_path):
+    moved = tmp_path / "run"
+    shutil.copytree(run_dir, moved)
+    store = run_dir.parent / "store"
+    meta = json.loads((moved / "run.json").read_text())
+    meta["dataset"]["path"] = str(tmp_path / "gone")
+    (moved / "run.json").write_text(json.dumps(meta))
+    res = CliRunner().invoke(report, [str(moved), "--out", str(tmp_path / "a.html")])
+    assert res.exit_code == 2
+    assert "not found" in res.output and "--store" in res.output
+    res = CliRunner().invoke(report, [str(moved), "--out", str(tmp_path / "a.html"),
+                                      "--store", str(store), "--quiet"])
+    assert res.exit_code == 0, res.output
+
+
+def test_a_run_the_data_do_not_reproduce_is_refused(run_dir, tmp_path):
+    moved = tmp_path / "run"
+    shutil.copytree(run_dir, moved)
+    path = moved / "fits" / "linear__ols__inverse__analytic.json"
+    rec = json.loads(path.read_text())
+    rec["coefficients"] = list(np.asarray(rec["coefficients"]) * 1.01)
+    path.write_text(json.dumps(rec))
+    res = CliRunner().invoke(report, [str(moved), "--out", str(tmp_path / "b.html"),
+                                      "--candidate", "linear/ols/inverse/analytic"])
+    assert res.exit_code == 1
+    assert "does not reproduce the run's coefficients" in res.output
+
+
+def test_missing_run_folder_is_a_usage_error(tmp_path):
+    res = CliRunner().invoke(report, [str(tmp_path / "nope"), "--out",
+                                      str(tmp_path / "c.html")])
+    assert res.exit_code == 2 and "run folder" in res.output
+    assert not (tmp_path / "c.html").exists()
+
+
+# ----------------------------------------------------------------- the fits compared
+@pytest.fixture(scope="module")
+def compared(run_dir):
+    """A `refit compare` folder: the run's top fit and a published equation on the demo
+    fossils (some rows cannot be evaluated, so compare exits 1 but writes both files)."""
+    from refit._util.resources import demo_dir
+    from refit.cli.compare import compare
+    from refit.demo import published_equations
+
+    board = pd.read_csv(run_dir / "leaderboard.csv")
+    top = run_dir / "fits" / (board.candidate[0].replace("/", "__")
+                              .replace("+", "-plus") + ".json")
+    retallack = [p for p in published_equations() if "bk_depth" in p.name][0]
+    out = run_dir.parent / "compare"
+    res = CliRunner().invoke(compare, [str(top), str(retallack), "--fossils",
+                                       str(demo_dir() / "fossils.csv"), "--out", str(out)])
+    assert res.exit_code in (0, 1), res.output
+    assert (out / "comparison.csv").is_file() and (out / "comparison.png").is_file()
+    return out
+
+
+def comparison_image(page):
+    return [a for t, a in page.tags if t == "img" and "compared fits" in a.get("alt", "")]
+
+
+def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
+    from PIL import Image
+
+    out = tmp_path / "cmp.html"
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet",
+                                      "--compare", str(compared)])
+    assert res.exit_code == 0, res.output
+    page = parse(out)
+    imgs = comparison_image(page)
+    assert len(imgs) == 1 and len([t for t, _ in page.tags if t == "img"]) == 7
+    assert imgs[0]["src"].startswith("data:image/png;base64,")
+    raw = base64.b64decode(imgs[0]["src"].split(",", 1)[1])
+    # drawn from comparison.csv by the function `refit compare` drew comparison.png with:
+    # the same picture size (PNG header, ISO/IEC 15948)
+    with Image.open(compared / "comparison.png") as ref:
+        assert Image.open(io.BytesIO(raw)).size == ref.size
+    body = page.body
+    table = pd.read_csv(compared / "comparison.csv")
+    assert f"The comparison table ({len(table)} rows" in body
+    for r in table.dropna(subset=["estimate"]).itertuples():
+        assert f"{r.paleosol_id} {r.fit} {num(r.estimate)} {num(r.lower)} to " \
+               f"{num(r.upper)} {r.unit}" in body
+    assert "Fits compared." in body and "research use" in body
+    assert f"{table['paleosol_id'].nunique()} paleosol(s)" in body
+    assert f"--compare {compared}" in body          # the command that rewrites it
+    assert 'href="#comparison"' in out.read_text("utf-8")
+
+
+def test_report_without_comparison_has_no_comparison_section(written):
+    page = parse(written)
+    assert comparison_image(page) == []
+    html = written.read_text("utf-8")
+    assert 'id="comparison"' not in html and "Fits compared" not in page.body
+
+
+def test_comparison_folder_without_its_table_is_refused(run_dir, tmp_path):
+    empty = tmp_path / "nothing"
+    empty.mkdir()
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(tmp_path / "d.html"),
+                                      "--compare", str(empty)])
+    assert res.exit_code == 2 and "comparison.csv" in res.output
+    assert not (tmp_path / "d.html").exists()
+    bad = tmp_path / "bad"
+    bad.mkdir()
+    (bad / "comparison.csv").write_text("paleosol_id,estimate\nP1,3\n", "utf-8")
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(tmp_path / "d.html"),
+                                      "--compare", str(bad)])
+    assert res.exit_code == 1 and "lacks the column" in res.output
