@@ -84,13 +84,13 @@ def _analytic(fit, level: float) -> dict:
 
 
 def _split_conformal(X, y, level, seed) -> dict:
-    from refit.models.linalg import _ols
+    from refit.models.linalg import ols_solve
 
     n = X.shape[0]
     n_cal = int(round(0.5 * n))
     perm = np.random.default_rng(seed).permutation(n)
     cal, train = perm[:n_cal], perm[n_cal:]
-    b = _ols(X[train], y[train], "split_conformal")[0]
+    b = ols_solve(X[train], y[train], "split_conformal")[0]
     scores = np.sort(np.abs(y[cal] - X[cal] @ b))
     k = int(np.ceil(level * (n_cal + 1) - 1e-9))
     q = float(scores[k - 1]) if k <= n_cal else None
@@ -101,11 +101,11 @@ def _split_conformal(X, y, level, seed) -> dict:
 
 
 def _jackknife_plus(X, y) -> dict:
-    from refit.models.intervals.conformal import _one_minus_h
-    from refit.models.linalg import _ols
+    from refit.models.intervals.conformal import one_minus_leverage
+    from refit.models.linalg import ols_solve
 
-    b, e, Q, R = _ols(X, y, "jackknife_plus")
-    loo = e / _one_minus_h(Q, "jackknife_plus")
+    b, e, Q, R = ols_solve(X, y, "jackknife_plus")
+    loo = e / one_minus_leverage(Q, "jackknife_plus")
     B = b[None, :] - (np.linalg.solve(R, Q.T) * loo[None, :]).T
     return {"centre_coefficients": b, "loo_coefficients": B, "loo_abs_residuals":
             np.abs(loo), "exact": True,
@@ -117,15 +117,15 @@ def _jackknife_plus(X, y) -> dict:
 def _cv_plus(X, y, seed, folds=10) -> dict:
     from sklearn.model_selection import KFold
 
-    from refit.models.linalg import _ols
+    from refit.models.linalg import ols_solve
 
     n = X.shape[0]
     fold, r, B = np.empty(n, dtype=int), np.empty(n), []
     for k, (tr, te) in enumerate(KFold(folds, shuffle=True, random_state=seed).split(X)):
-        bk = _ols(X[tr], y[tr], f"cv_plus (fold {k + 1})")[0]
+        bk = ols_solve(X[tr], y[tr], f"cv_plus (fold {k + 1})")[0]
         fold[te], r[te] = k, np.abs(y[te] - X[te] @ bk)
         B.append(bk)
-    b = _ols(X, y, "cv_plus")[0]
+    b = ols_solve(X, y, "cv_plus")[0]
     return {"centre_coefficients": b, "fold_coefficients": np.array(B), "row_folds": fold,
             "row_abs_residuals": r, "folds": folds, "seed": seed, "exact": True,
             "rebuild": "as jackknife+ with mu_i = x0' fold_coefficients[row_folds[i]] and "
@@ -134,11 +134,11 @@ def _cv_plus(X, y, seed, folds=10) -> dict:
 
 def _bootstrap(fit, X, y, method, level, seed, n_boot=1000) -> dict:
     from refit.models import intervals as iv
-    from refit.models.intervals.bootstrap import _weighted_fit
+    from refit.models.intervals.bootstrap import weighted_bootstrap_fit
 
     fun = iv.bootstrap_pairs if method == "bootstrap-pairs" else iv.bootstrap_residual
     pi = fun(X, y, X[:1], n_boot=n_boot, level=level, seed=seed, weights=fit.weights)
-    wf = _weighted_fit(X, y, X[:1], fit.weights, 1.0, level, n_boot, method)
+    wf = weighted_bootstrap_fit(X, y, X[:1], fit.weights, 1.0, level, n_boot, method)
     return {"centre_coefficients": wf.b, "coefficient_covariance":
             np.cov(pi.details["coefficients"], rowvar=False).reshape(X.shape[1], -1),
             "residual_pool": np.sort(wf.pool), "n_boot": n_boot, "seed": seed,

@@ -19,7 +19,7 @@ _MAX_LISTED = 10
 STRAIGHT_LINE_ONLY = ("theil-sen", "york")
 
 
-def _as_frame(table, *, dicts: bool = True):
+def as_frame(table, *, dicts: bool = True):
     """DataFrame, row labels ('file rows' from a refit Table, else the index) and the word
     for a row. ``dicts``: also take a dict of columns."""
     import pandas as pd
@@ -40,7 +40,7 @@ def _as_frame(table, *, dicts: bool = True):
                      f"{type(table).__name__}")
 
 
-def _rows_text(labels, mask, kind: str) -> str:
+def rows_text(labels, mask, kind: str) -> str:
     bad = [str(v) for v in np.asarray(labels)[mask][:_MAX_LISTED]]
     more = int(mask.sum()) - len(bad)
     return f"{kind}s " + ", ".join(bad) + (f" and {more} more" if more > 0 else "")
@@ -59,12 +59,12 @@ def _plain_numeric(dtype) -> bool:
 def _refuse_infinite(values: np.ndarray, name: str, labels, kind: str) -> np.ndarray:
     if np.isinf(values).any():
         raise InvalidDataError(f"column {name!r} holds infinite values at "
-                               f"{_rows_text(labels, np.isinf(values), kind)}; replace them "
+                               f"{rows_text(labels, np.isinf(values), kind)}; replace them "
                                "with finite numbers or drop those rows")
     return values
 
 
-def _column(frame, name: str, labels, kind: str) -> np.ndarray:
+def numeric_column(frame, name: str, labels, kind: str) -> np.ndarray:
     """A numeric column as float; non-numbers and infinities are refused by row."""
     import pandas as pd
 
@@ -79,7 +79,7 @@ def _column(frame, name: str, labels, kind: str) -> np.ndarray:
     if not_number.any():
         first = col[not_number].iloc[0]
         raise InvalidDataError(f"column {name!r} holds values that are not numbers at "
-                               f"{_rows_text(labels, not_number, kind)} (e.g. {first!r}); "
+                               f"{rows_text(labels, not_number, kind)} (e.g. {first!r}); "
                                "correct them or leave the cells empty")
     return _refuse_infinite(values, name, labels, kind)
 
@@ -107,8 +107,8 @@ def fit_columns(table, names, vectors: dict):
     """
     n = _array_dict_rows(table, [*names, *(v for v in vectors.values() if isinstance(v, str))])
     if n is None:
-        frame, labels, kind = _as_frame(table)
-        cols = {nm: _column(frame, nm, labels, kind) for nm in names}
+        frame, labels, kind = as_frame(table)
+        cols = {nm: numeric_column(frame, nm, labels, kind) for nm in names}
         for key, arg in vectors.items():
             cols[key] = _vector(arg, frame, labels, kind, key)
         return cols, labels, kind
@@ -128,11 +128,11 @@ def _vector(arg, frame, labels, kind: str, what: str, *, n: int | None = None
     if arg is None:
         return None
     if isinstance(arg, str):
-        return _column(frame, arg, labels, kind)
+        return numeric_column(frame, arg, labels, kind)
     v = np.broadcast_to(np.asarray(arg, dtype=float), (len(frame) if n is None else n,)).copy()
     if np.isinf(v).any():
         raise InvalidDataError(f"{what} hold infinite values at "
-                               f"{_rows_text(labels, np.isinf(v), kind)}")
+                               f"{rows_text(labels, np.isinf(v), kind)}")
     return v
 
 
@@ -147,7 +147,7 @@ def _drop_missing(cols: dict, labels, kind: str, missing: str):
     if missing != "drop":
         names = [k for k, v in cols.items() if v is not None and np.isnan(v).any()]
         raise InvalidDataError(f"empty or NaN values in {', '.join(map(repr, names))} at "
-                               f"{_rows_text(labels, nan, kind)}; fill them, select rows "
+                               f"{rows_text(labels, nan, kind)}; fill them, select rows "
                                "that have them, or pass missing='drop'")
     keep = ~nan
     return ({k: (None if v is None else v[keep]) for k, v in cols.items()}, labels[keep],
@@ -157,7 +157,7 @@ def _drop_missing(cols: dict, labels, kind: str, missing: str):
 def _check_positive(v, labels, kind, message):
     bad = ~(v > 0)
     if bad.any():
-        raise InvalidDataError(message + f" at {_rows_text(labels, bad, kind)}")
+        raise InvalidDataError(message + f" at {rows_text(labels, bad, kind)}")
 
 
 def _check_rows(form: Form, n: int, estimator: str) -> None:

@@ -84,7 +84,7 @@ def _solve_r(R: np.ndarray, B: np.ndarray) -> np.ndarray:
     return np.linalg.solve(R, B)
 
 
-def _ols(X, y, who):
+def ols_solve(X, y, who):
     """OLS by QR: coefficients, residuals, Q, R."""
     Q, R = _qr(X, who)
     b = _solve_r(R, Q.T @ y)

@@ -65,7 +65,7 @@ def _t(level: float, df: float) -> float:
     return float(stats.t.ppf(0.5 + level / 2.0, df))
 
 
-def _flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
+def flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
     """';'-joined flag names per row from boolean masks, as a pandas Categorical
     (vectorised through bit codes: fast for many rows). ``sort``: categories in
     lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
@@ -257,7 +257,7 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
         approximate=interval == "analytic" and bool(
             fit.result.details.get("approximate_interval")),
         turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
-    return eta, lo, hi, _flag_strings(masks, m)
+    return eta, lo, hi, flag_strings(masks, m)
 
 
 def _predict_forward(fit, v, level, interval, w0):

@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from refit.models.inputs import _as_frame
+from refit.models.inputs import as_frame
 from refit.errors import InvalidDataError, RefitError, UsageError
 from refit.validate.splitters import (BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, Scheme, Split,  # noqa: F401
                      Splits, _loo_details, group_codes, make_splits, project_km,
@@ -301,9 +301,9 @@ def _closed_form_applies(c: Candidate, scheme: Scheme) -> bool:
 # ----------------------------------------------------------------------------- the driver
 def _used_columns(frame, labels, kind, c: Candidate):
     """Used columns as float arrays (non-numbers refused) and the rows that have them all."""
-    from refit.models.inputs import _column
+    from refit.models.inputs import numeric_column
 
-    arrays = {nm: _column(frame, nm, labels, kind) for nm in c.columns()}
+    arrays = {nm: numeric_column(frame, nm, labels, kind) for nm in c.columns()}
     usable = np.ones(len(frame), dtype=bool)
     for v in arrays.values():
         usable &= ~np.isnan(v)
@@ -374,7 +374,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     from refit.validate.skill import skill_scores
 
     _check(frame, candidate, scheme, level, n_jobs)
-    frame, labels, kind = _as_frame(frame, dicts=False)
+    frame, labels, kind = as_frame(frame, dicts=False)
     arrays, usable = _used_columns(frame, labels, kind, candidate)
     fast = _closed_form_applies(candidate, scheme)
     if splits is None:
@@ -425,7 +425,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
 def _loo_part(arrays, usable, c: Candidate, level):
     """Closed-form leave-one-out of the usable rows: estimate, lower, upper and the flags
     as a Categorical (categories sorted, as ``pandas.Categorical`` of the texts)."""
-    from refit.models.predict import _flag_strings
+    from refit.models.predict import flag_strings
     from refit.models.forms import make_form
 
     form = make_form(c.form, list(c.predictors), degree=c.degree)
@@ -440,4 +440,4 @@ def _loo_part(arrays, usable, c: Candidate, level):
         est, lo, hi, masks = _loo_ols_masks(x, y, form, level, c.interval)
     except RefitError as err:
         raise type(err)(f"{c.label}, leave-one-out: {err}") from err
-    return est, lo, hi, _flag_strings(masks, len(y), sort=True)
+    return est, lo, hi, flag_strings(masks, len(y), sort=True)

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from refit.models.inputs import _as_frame, _rows_text
+from refit.models.inputs import as_frame, rows_text
 from refit.errors import InvalidDataError, UsageError
 
 SCHEMES = ("kfold", "loo", "group-kfold", "leave-one-group-out", "spatial-block")
@@ -130,7 +130,7 @@ def group_codes(frame, column: str, labels=None, kind: str = "row"):
     if missing.any():
         labels = np.arange(len(frame)) if labels is None else labels
         raise InvalidDataError(f"group column {column!r} is empty at "
-                               f"{_rows_text(labels, missing, kind)}; every row needs a group: "
+                               f"{rows_text(labels, missing, kind)}; every row needs a group: "
                                "fill those cells or leave the rows out")
     return np.asarray(codes), list(names)
 
@@ -173,7 +173,7 @@ def _coordinates(frame, labels, kind):
         bad = ~(np.abs(v) <= limit)
         if bad.any():
             raise InvalidDataError(f"column {name!r} is empty, not a number or beyond "
-                                   f"+-{limit:g} degrees at {_rows_text(labels, bad, kind)}; "
+                                   f"+-{limit:g} degrees at {rows_text(labels, bad, kind)}; "
                                    "spatial blocks need every row's coordinates")
         out.append(v)
     return out
@@ -292,7 +292,7 @@ def make_splits(frame, scheme: Scheme) -> Splits:
 
     if not isinstance(scheme, Scheme):
         raise UsageError(f"scheme must be a refit.validate.crossval.Scheme; got {type(scheme).__name__}")
-    frame, labels, kind = _as_frame(frame, dicts=False)
+    frame, labels, kind = as_frame(frame, dicts=False)
     n, s = len(frame), scheme
     details = {"scheme": s.name, "n_rows": n, "split_seed": s.seed}
     dummy = np.zeros((n, 1))

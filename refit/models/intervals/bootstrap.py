@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from refit.models.linalg import (
-    CHUNK_ELEMENTS, RANK_TOL, _chunks, _ols, _solve_r, with_one_blas_thread,
+    CHUNK_ELEMENTS, RANK_TOL, _chunks, ols_solve, _solve_r, with_one_blas_thread,
 )
 from refit.models.intervals.base import PredictionInterval, _alpha, _prepare
 from refit.errors import InvalidDataError, UsageError
@@ -68,12 +68,12 @@ class _WeightedFit:
         return y0, lower, upper
 
 
-def _weighted_fit(X, y, x0, weights, weight0, level, n_boot, who) -> _WeightedFit:
+def weighted_bootstrap_fit(X, y, x0, weights, weight0, level, n_boot, who) -> _WeightedFit:
     X, y, x0, sw = _prepare(X, y, x0, weights, who, weight0=weight0)
     alpha = _alpha(level, who)
     n_boot = _check_n_boot(n_boot, who)
     Xw, yw = X * sw[:, None], y * sw
-    b, ew, Q, R = _ols(Xw, yw, who)
+    b, ew, Q, R = ols_solve(Xw, yw, who)
     pool = _modified_residuals(ew, (Q**2).sum(axis=1))
     return _WeightedFit(x0, alpha, n_boot, weight0, b, Q, R, yw, pool)
 
@@ -157,7 +157,7 @@ def bootstrap_pairs(X, y, x0, *, n_boot=1000, level=0.95, seed=0, weights=None,
     .. [1] Davison & Hinkley (1997), Bootstrap Methods and their Application, sect. 6.2-6.3.
     """
     who = "bootstrap_pairs"
-    fit = _weighted_fit(X, y, x0, weights, weight0, level, n_boot, who)
+    fit = weighted_bootstrap_fit(X, y, x0, weights, weight0, level, n_boot, who)
     n_boot = fit.n_boot
     rng = np.random.default_rng(seed)
     coefs, dropped = _pairs_coefficients(fit.Q, fit.R, fit.yw, n_boot, rng)
@@ -200,7 +200,7 @@ def bootstrap_residual(X, y, x0, *, n_boot=1000, level=0.95, seed=0, weights=Non
     .. [1] Davison & Hinkley (1997), Bootstrap Methods and their Application, sect. 6.2-6.3.
     """
     who = "bootstrap_residual"
-    fit = _weighted_fit(X, y, x0, weights, weight0, level, n_boot, who)
+    fit = weighted_bootstrap_fit(X, y, x0, weights, weight0, level, n_boot, who)
     n_boot, n, pool = fit.n_boot, fit.n, fit.pool
     rng = np.random.default_rng(seed)
     coefs = []

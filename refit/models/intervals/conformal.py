@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from refit.models.linalg import _as_design, _ols, with_one_blas_thread
+from refit.models.linalg import _as_design, ols_solve, with_one_blas_thread
 from refit._util.order import kth_in_place_finite as _kth_in_place
 from refit._util.order import kth_smallest as _kth_smallest
 from refit._util.order import rank_lower as _rank_lower
@@ -49,11 +49,11 @@ def loo_residuals(X, y) -> np.ndarray:
     .. [1] Allen, D. M. (1974). Technometrics 16:125-127.
     """
     X, y = _as_design(X, y, min_extra=2, who="loo_residuals")
-    _, e, Q, _ = _ols(X, y, "loo_residuals")
-    return e / _one_minus_h(Q, "loo_residuals")
+    _, e, Q, _ = ols_solve(X, y, "loo_residuals")
+    return e / one_minus_leverage(Q, "loo_residuals")
 
 
-def _one_minus_h(Q, who):
+def one_minus_leverage(Q, who):
     h = (Q**2).sum(axis=1)
     if (h > _LEVERAGE_ONE).any():
         row = int(np.argmax(h)) + 1
@@ -201,7 +201,7 @@ def split_conformal(X, y, x0, *, level=0.95, seed=0, calib_fraction=0.5) -> Pred
             f"and a calibration part of at least 1 row; add rows or change calib_fraction.")
     perm = np.random.default_rng(seed).permutation(n)
     cal, train = perm[:n_cal], perm[n_cal:]
-    b, _, _, _ = _ols(X[train], y[train], who)
+    b, _, _, _ = ols_solve(X[train], y[train], who)
     scores = np.abs(y[cal] - X[cal] @ b)
     k = _rank_upper(alpha, n_cal)
     q = float(_kth_smallest(scores[None, :], k, axis=1)[0])
@@ -249,8 +249,8 @@ def jackknife_plus(X, y, x0, *, level=0.95) -> PredictionInterval:
     who = "jackknife_plus"
     X, y, x0, _ = _prepare(X, y, x0, None, who)
     alpha = _alpha(level, who)
-    b, e, Q, R = _ols(X, y, who)
-    one_minus_h = _one_minus_h(Q, who)
+    b, e, Q, R = ols_solve(X, y, who)
+    one_minus_h = one_minus_leverage(Q, who)
     loo = e / one_minus_h
     A = np.linalg.solve(R.T, x0.T).T          # rows R^-T x0, shape (m, p)
     est = x0 @ b
@@ -304,7 +304,7 @@ def jackknife_plus_fitted(x0, est, result, *, level=0.95) -> PredictionInterval:
         c = 1.0 / np.sqrt(factor.sum_weights)
         A = np.column_stack([A, np.full(A.shape[0], c)])
         q = np.column_stack([q, np.full(n, c)])
-    one_minus_h = _one_minus_h(q, who)
+    one_minus_h = one_minus_leverage(q, who)
     loo = result.residuals / one_minus_h
     lower, upper = _jackknife_band(est, A, q, 1.0 - one_minus_h, loo, alpha)
     return PredictionInterval(est, lower, upper, {
@@ -356,11 +356,11 @@ def cv_plus(X, y, x0, *, level=0.95, folds=10, seed=0) -> PredictionInterval:
         if train.size < p + 1:
             raise InvalidDataError(f"{who}: a training part of {train.size} rows is too "
                                    f"small for {p} coefficients; use more folds or rows.")
-        bk, _, _, _ = _ols(X[train], y[train], f"{who} (fold {k + 1})")
+        bk, _, _, _ = ols_solve(X[train], y[train], f"{who} (fold {k + 1})")
         fold[test] = k
         r[test] = np.abs(y[test] - X[test] @ bk)
         pred0[:, k] = x0 @ bk
-    b, _, _, _ = _ols(X, y, who)
+    b, _, _, _ = ols_solve(X, y, who)
     est = x0 @ b
     lower, upper = _plus_band(est, lambda sl: pred0[sl][:, fold], r, alpha)
     return PredictionInterval(est, lower, upper, {
