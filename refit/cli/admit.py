@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
-
-MAX_LISTED = 40
+from refit.cli.common import guarded, render_admit
 
 
 @click.command("admit", short_help="Admit new soils into a versioned calibration store.")
@@ -50,57 +48,6 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
     else:
-        click.echo("\n".join(render(result)))
+        click.echo("\n".join(render_admit(result)))
     if strict and result.rejected:
         raise SystemExit(1)
-
-
-def render(result) -> list[str]:
-    """The text report of an admit, one line per item."""
-    from pathlib import Path
-
-    store = Path(result.store)
-    out = [f"Note: {m}." for m in result.recovered]
-    if result.created:
-        verb = "would create" if result.dry_run else "created"
-        out.append(f"New store: {verb} the store '{store.name}' in {store}.")
-    out.append(f"Read {result.table}: {result.rows_read} rows ({'; '.join(result.reader_notes[1:])}).")
-    if result.mappings:
-        from refit.cli.common import compact_notes
-
-        out.append("Columns mapped:")
-        out += [f"  {line}" for line in compact_notes(result.mappings)]
-    out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
-               f"{result.rejected}.")
-    would = "would go" if result.dry_run else "went"
-    version = result.version_before + 1
-    out.append(f"  accepted {result.accepted} {would} to {store / result.records_file} "
-               f"(version {version}, {result.row_count_after} rows)")
-    if result.quarantine_file:
-        out.append(f"  rejected {result.rejected} {would} to {store / result.quarantine_file} "
-                   "(each row unchanged, with _reasons and _source_row)")
-    if result.problems_file:
-        out.append(f"  every problem {would} to {store / result.problems_file}")
-    if result.reasons:
-        out.append("Rejected rows by reason (a row may have several):")
-        width = max(len(k) for k in result.reasons)
-        out += [f"  {k:<{width}}  {v}" for k, v in result.reasons.items()]
-        out.append("Rejected rows:")
-        for item in result.rejected_rows[:MAX_LISTED]:
-            pid = f" ({item['profile_id']})" if item["profile_id"] else ""
-            for reason in item["reasons"] or ["rejected"]:
-                out.append(f"  row {item['row']}{pid}: {reason}")
-        if len(result.rejected_rows) > MAX_LISTED:
-            out.append(f"  ... and {len(result.rejected_rows) - MAX_LISTED} more rows; see "
-                       "the quarantine file")
-    if result.warnings:
-        out.append("Warnings (rows admitted anyway; see the problems file):")
-        width = max(len(k) for k in result.warnings)
-        out += [f"  {k:<{width}}  {v}" for k, v in result.warnings.items()]
-    if result.dry_run:
-        out.append("Dry run: nothing was written.")
-    else:
-        out.append(f"Store '{store.name}' is now at version {result.version_after} "
-                   f"({result.row_count_after} rows, records sha256 "
-                   f"{result.records_sha256[:12]}...).")
-    return out

@@ -4,33 +4,9 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded, plural, stdout_console
-
-
-def _level(ctx, param, value):
-    if value is not None and not 0 < value < 1:
-        raise click.BadParameter("must lie between 0 and 1, e.g. 0.95")
-    return value
-
-
-def fossil_options(fn):
-    """Options shared by `apply` and `compare`."""
-    for opt in reversed([
-        click.option("--level", type=float, default=None, callback=_level,
-                     help="Interval coverage [default: each file's own; a published +- "
-                          "keeps its own]."),
-        click.option("--decompact", is_flag=True,
-                     help="Decompact depths and thicknesses for burial first "
-                          "(Sheldon & Retallack 2001); recorded per row."),
-        click.option("--compaction-constants", "constants_file", metavar="FILE",
-                     type=click.Path(dir_okay=False, path_type=str),
-                     help="Compaction constants per soil order or lithology (JSON or CSV: "
-                          "key, initial_solidity, k_per_km, source)."),
-        click.option("--seed", type=int, default=0, show_default=True,
-                     help="Seed of the Monte Carlo propagation."),
-    ]):
-        fn = opt(fn)
-    return fn
+from refit.cli.common import (
+    fmt_number, fossil_options, guarded, print_problems_and_cautions, stdout_console,
+)
 
 
 @click.command("apply", short_help="Apply coefficient files to fossil soils, with flags.")
@@ -95,14 +71,6 @@ def _write(result, out: str) -> None:
                           result.decompaction.to_csv(index=False))
 
 
-def _num(x) -> str:
-    import math
-
-    if not isinstance(x, (int, float)) or math.isnan(x):
-        return "-"
-    return f"{x:.4g}" if abs(x) != float("inf") else ("-inf" if x < 0 else "inf")
-
-
 def print_results(results, console) -> None:
     """The results as a table for people."""
     from rich.table import Table
@@ -115,25 +83,12 @@ def print_results(results, console) -> None:
     for r in results.itertuples(index=False):
         fit = f"{r.function_id} {r.version} {r.candidate or r.status}".strip()
         level = "±1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
-            else _num(r.level)
+            else fmt_number(r.level)
         cov = f"{r.cv_coverage:.0%}" if isinstance(r.cv_coverage, (int, float)) and \
             r.cv_coverage == r.cv_coverage else "-"
         mc = "yes" if str(r.propagation).startswith("monte-carlo") else ""
         note = Text(r.problem, style="red") if r.problem else Text(str(r.flags))
-        table.add_row(str(r.paleosol_id), fit, _num(r.estimate),
-                      f"[{_num(r.lower)}, {_num(r.upper)}] {r.unit}", level, mc, cov, note)
+        table.add_row(str(r.paleosol_id), fit, fmt_number(r.estimate),
+                      f"[{fmt_number(r.lower)}, {fmt_number(r.upper)}] {r.unit}", level, mc,
+                      cov, note)
     console.print(table)
-
-
-def print_problems_and_cautions(result, console) -> None:
-    """Problems (file and row level) and the cautions."""
-    from rich.text import Text
-
-    if result.problems:
-        console.print(Text(f"{plural(len(result.problems), 'problem')}:", style="bold red"))
-        for p in result.problems:
-            where = f"row {p['row']} ({p['paleosol_id']}): " if p.get("row") else ""
-            console.print(Text(f"  - {where}{p['message']}"))
-    console.print(Text("Cautions:", style="bold"))
-    for c in result.cautions:
-        console.print(Text(f"  - {c}"))

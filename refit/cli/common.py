@@ -1,4 +1,9 @@
-"""Pieces shared by the CLI verbs: error handling and output streams."""
+"""Pieces shared by the CLI verbs: error handling, output streams, shared options and printers.
+
+The one module every verb may import besides the library: a verb module imports
+``refit.cli.common`` and library modules, never another verb's module. Heavy libraries
+(rich, pandas) are imported inside the functions, so ``refit --help`` stays fast.
+"""
 
 from __future__ import annotations
 
@@ -11,6 +16,10 @@ from typing import Callable, TypeVar
 import click
 
 F = TypeVar("F", bound=Callable[..., object])
+
+LEADERBOARD_SHOWN = 20  # leaderboard rows printed (all are in the files)
+LEADERBOARD_WIDTH = 150  # columns of the printed leaderboard when stdout is not a terminal
+ADMIT_MAX_LISTED = 40  # rejected rows listed by an admit report (all are in quarantine)
 
 
 def guarded(fn: F) -> F:
@@ -88,3 +97,258 @@ def compact_notes(notes: list[str], width: int = 96) -> list[str]:
                               break_long_words=False, break_on_hyphens=False)
         out.append("\n    ".join(line.replace("\0", " ") for line in lines))
     return out
+
+
+# --- numbers and options shared by apply and compare --------------------------------
+
+def fmt_number(x) -> str:
+    """A number in 4 significant digits for people; "-" for a missing one, "inf"/"-inf"."""
+    import math
+
+    if not isinstance(x, (int, float)) or math.isnan(x):
+        return "-"
+    return f"{x:.4g}" if abs(x) != float("inf") else ("-inf" if x < 0 else "inf")
+
+
+def _level(ctx, param, value):
+    if value is not None and not 0 < value < 1:
+        raise click.BadParameter("must lie between 0 and 1, e.g. 0.95")
+    return value
+
+
+def fossil_options(fn):
+    """Options shared by `apply` and `compare`."""
+    for opt in reversed([
+        click.option("--level", type=float, default=None, callback=_level,
+                     help="Interval coverage [default: each file's own; a published +- "
+                          "keeps its own]."),
+        click.option("--decompact", is_flag=True,
+                     help="Decompact depths and thicknesses for burial first "
+                          "(Sheldon & Retallack 2001); recorded per row."),
+        click.option("--compaction-constants", "constants_file", metavar="FILE",
+                     type=click.Path(dir_okay=False, path_type=str),
+                     help="Compaction constants per soil order or lithology (JSON or CSV: "
+                          "key, initial_solidity, k_per_km, source)."),
+        click.option("--seed", type=int, default=0, show_default=True,
+                     help="Seed of the Monte Carlo propagation."),
+    ]):
+        fn = opt(fn)
+    return fn
+
+
+def print_problems_and_cautions(result, console) -> None:
+    """Problems (file and row level) and the cautions."""
+    from rich.text import Text
+
+    if result.problems:
+        console.print(Text(f"{plural(len(result.problems), 'problem')}:", style="bold red"))
+        for p in result.problems:
+            where = f"row {p['row']} ({p['paleosol_id']}): " if p.get("row") else ""
+            console.print(Text(f"  - {where}{p['message']}"))
+    console.print(Text("Cautions:", style="bold"))
+    for c in result.cautions:
+        console.print(Text(f"  - {c}"))
+
+
+# --- progress (fit, demo) -----------------------------------------------------------
+
+class Progress:
+    """A rich progress bar on stderr driven by ``progress(total=...)`` / ``(advance=1)``."""
+
+    def __init__(self, console):
+        self.console = console
+        self.bar = None
+        self.task = None
+
+    def __enter__(self):
+        from rich.progress import BarColumn, MofNCompleteColumn, TextColumn
+        from rich.progress import Progress as RichProgress
+
+        self.bar = RichProgress(TextColumn("{task.description}"), BarColumn(),
+                            MofNCompleteColumn(), console=self.console, transient=True)
+        self.bar.__enter__()
+        self.task = self.bar.add_task("reading the data", total=None)
+        return self
+
+    def __call__(self, *, total=None, advance=0, label=None):
+        if total is not None:
+            self.bar.update(self.task, total=total)
+        if advance:
+            self.bar.update(self.task, advance=advance, description=label or "")
+
+    def __exit__(self, *exc):
+        self.bar.__exit__(*exc)
+        return False
+
+
+# --- printers of results (fit, admit, compare; demo reuses them) --------------------
+
+def _fmt_cell(v, fmt="{:.1f}") -> str:
+    """A leaderboard cell: ``fmt`` applied, "-" for a missing value."""
+    import math
+
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return "-"
+    return fmt.format(v)
+
+
+def print_run(run, out, console=None) -> None:
+    """Print the data, the subset, the leaderboard, the verdict and the cautions."""
+    from rich.table import Table
+    from rich.text import Text
+
+    from refit.coefficients import CAUTION
+
+    c = console or stdout_console()
+    if not c.is_terminal:
+        c.width = max(c.width, LEADERBOARD_WIDTH)  # files and pipes: no truncated columns
+    d, m, r = run.data, run.matrix, run.recipe
+    version = f", dataset version {d['version']}" if d.get("version") is not None else ""
+    c.print(Text(f"Data: {d['kind']} {d['name']!r} ({d['path']}){version}, sha256 "
+                 f"{d['sha256']}", style="bold"))
+    c.print(f"Subset: {run.subset.n_start} records")
+    for s in run.subset.steps:
+        c.print(f"  {s['step']}: {s['kept']} kept ({s['removed']} removed)")
+    for note in run.subset.notes:
+        c.print(Text(f"  note: {note}", style="yellow"))
+    main, kf = m.schemes["main"], m.schemes["kfold"]
+    c.print(f"Validation: {_scheme_text(main)}{_split_text(m.split_details['main'])}"
+            + (f"; beside it random {_scheme_text(kf)}" if kf is not None else ""))
+    c.print(f"Candidates: {len(m.specs)} fitted, {len(m.skipped)} skipped; interval level "
+            f"{r.level:g}")
+    table = Table(title=f"Leaderboard: {r.function_id} ({main.name})", title_justify="left")
+    heads = ["#", "candidate", "RMSEP", "bias", "coverage", "width", "score", "k-fold RMSEP",
+             "k-fold score", "R² in", "AIC"]
+    for h in heads:
+        table.add_column(h, justify="left" if h == "candidate" else "right")
+    for row in m.leaderboard.head(LEADERBOARD_SHOWN).itertuples(index=False):
+        table.add_row(str(row.rank), row.candidate + ("" if row.coverage_ok else " *"),
+                      _fmt_cell(row.rmsep), _fmt_cell(row.bias),
+                      _fmt_cell(row.coverage, "{:.3f}"), _fmt_cell(row.mean_width),
+                      _fmt_cell(row.interval_score), _fmt_cell(row.kfold_rmsep),
+                      _fmt_cell(row.kfold_interval_score),
+                      _fmt_cell(row.r2_in_sample, "{:.3f}"), _fmt_cell(row.aic))
+    c.print(table)
+    if len(m.leaderboard) > LEADERBOARD_SHOWN:
+        c.print(f"({len(m.leaderboard) - LEADERBOARD_SHOWN} more in leaderboard.csv)")
+    c.print(f"* coverage more than {m.tolerance:.1%} from {r.level:.0%}: ranked after the "
+            "others")
+    c.print("R² in, AIC: fitted on the whole subset, each on its equation's own response "
+            "(forward fits model the feature): compare AIC only within one direction.")
+    c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
+    c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
+    if m.verdict["simpler_why"]:
+        c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
+    opt = m.verdict.get("optimism")
+    if opt:
+        c.print(f"Optimism: random k-fold flatters; {main.name}'s RMSEP is "
+                f"{opt['median_rmsep_ratio']:.2f}x and its interval score "
+                f"{opt['median_score_ratio']:.2f}x random k-fold's (median over candidates).")
+    _print_skipped(c, m.skipped)
+    c.print(Text(f"Caution: {CAUTION}", style="yellow"))
+    c.print(f"Run written to {out}")
+
+
+def _print_skipped(c, skipped) -> None:
+    """Skipped combinations grouped by reason (all of them are in leaderboard.json)."""
+    from rich.text import Text
+
+    if not skipped:
+        return
+    by_reason: dict[str, list[str]] = {}
+    for s in skipped:
+        by_reason.setdefault(s["reason"], []).append(s["candidate"])
+    c.print(f"Skipped {len(skipped)} combination(s):")
+    for reason, labels in by_reason.items():
+        shown = ", ".join(labels[:3]) + (f" and {len(labels) - 3} more" if len(labels) > 3
+                                         else "")
+        c.print(Text(f"  {reason}: {shown}", style="dim"))
+
+
+def _split_text(d: dict) -> str:
+    """Groups or blocks of a split, e.g. `` (4 groups)``, `` (25 k-means blocks, ~38 km)``."""
+    if d.get("block_km") is not None:
+        return f" ({d['n_blocks']} {d['block_method']} blocks, ~{d['block_km']:.0f} km)"
+    if d.get("n_groups") is not None:
+        return f" ({d['n_groups']} groups)"
+    return ""
+
+
+def _scheme_text(s) -> str:
+    if s.name == "loo":
+        return "leave-one-out"
+    if s.name == "leave-one-group-out":
+        return f"leave-one-group-out by {s.groups}"
+    by = f" by {s.groups}" if s.groups and s.name != "spatial-block" else ""
+    return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
+
+
+def render_admit(result) -> list[str]:
+    """The text report of an admit, one line per item."""
+    from pathlib import Path
+
+    store = Path(result.store)
+    out = [f"Note: {m}." for m in result.recovered]
+    if result.created:
+        verb = "would create" if result.dry_run else "created"
+        out.append(f"New store: {verb} the store '{store.name}' in {store}.")
+    out.append(f"Read {result.table}: {result.rows_read} rows ({'; '.join(result.reader_notes[1:])}).")
+    if result.mappings:
+        out.append("Columns mapped:")
+        out += [f"  {line}" for line in compact_notes(result.mappings)]
+    out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
+               f"{result.rejected}.")
+    would = "would go" if result.dry_run else "went"
+    version = result.version_before + 1
+    out.append(f"  accepted {result.accepted} {would} to {store / result.records_file} "
+               f"(version {version}, {result.row_count_after} rows)")
+    if result.quarantine_file:
+        out.append(f"  rejected {result.rejected} {would} to {store / result.quarantine_file} "
+                   "(each row unchanged, with _reasons and _source_row)")
+    if result.problems_file:
+        out.append(f"  every problem {would} to {store / result.problems_file}")
+    if result.reasons:
+        out.append("Rejected rows by reason (a row may have several):")
+        width = max(len(k) for k in result.reasons)
+        out += [f"  {k:<{width}}  {v}" for k, v in result.reasons.items()]
+        out.append("Rejected rows:")
+        for item in result.rejected_rows[:ADMIT_MAX_LISTED]:
+            pid = f" ({item['profile_id']})" if item["profile_id"] else ""
+            for reason in item["reasons"] or ["rejected"]:
+                out.append(f"  row {item['row']}{pid}: {reason}")
+        if len(result.rejected_rows) > ADMIT_MAX_LISTED:
+            out.append(f"  ... and {len(result.rejected_rows) - ADMIT_MAX_LISTED} more rows; "
+                       "see the quarantine file")
+    if result.warnings:
+        out.append("Warnings (rows admitted anyway; see the problems file):")
+        width = max(len(k) for k in result.warnings)
+        out += [f"  {k:<{width}}  {v}" for k, v in result.warnings.items()]
+    if result.dry_run:
+        out.append("Dry run: nothing was written.")
+    else:
+        out.append(f"Store '{store.name}' is now at version {result.version_after} "
+                   f"({result.row_count_after} rows, records sha256 "
+                   f"{result.records_sha256[:12]}...).")
+    return out
+
+
+def print_comparison(table, console) -> None:
+    """Per paleosol, one line per fit: estimate, interval, and what is beside it."""
+    from rich.text import Text
+
+    from refit.apply.compare import coverage_text
+
+    for pid, grp in table.groupby("paleosol_id", sort=False):
+        console.print(Text(str(pid), style="bold"))
+        for r in grp.itertuples(index=False):
+            line = Text(f"  {r.fit}: ")
+            if r.problem:
+                line.append(f"not evaluated ({r.problem})", style="red")
+            else:
+                line.append(f"{fmt_number(r.estimate)} [{fmt_number(r.lower)}, "
+                            f"{fmt_number(r.upper)}] {r.unit}; "
+                            + coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval))
+                if r.flags:
+                    line.append(f"; flags: {str(r.flags).replace(';', ', ')}",
+                                style="yellow")
+            console.print(line)

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded, stdout_console
-from refit.cli.apply import fossil_options
+from refit.cli.common import (
+    fossil_options, guarded, print_comparison, print_problems_and_cautions, stdout_console,
+)
 
 
 @click.command("compare", short_help="Compare fits on the same paleosol: table and figure.")
@@ -45,7 +46,6 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     from pathlib import Path
 
     from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.cli.apply import print_problems_and_cautions
     from refit.apply.compare import compare_files, figure_png
     from refit.errors import UsageError
 
@@ -60,30 +60,7 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     write_text_atomic(targets[0], table.to_csv(index=False))
     write_bytes_atomic(targets[1], figure_png(table))
     console = stdout_console()
-    _print(table, console)
+    print_comparison(table, console)
     console.print(f"Written: {targets[0]}, {targets[1]}")
     print_problems_and_cautions(result, console)
     ctx.exit(0 if result.ok else 1)
-
-
-def _print(table, console) -> None:
-    """Per paleosol, one line per fit: estimate, interval, and what is beside it."""
-    from rich.text import Text
-
-    from refit.cli.apply import _num
-    from refit.apply.compare import coverage_text
-
-    for pid, grp in table.groupby("paleosol_id", sort=False):
-        console.print(Text(str(pid), style="bold"))
-        for r in grp.itertuples(index=False):
-            line = Text(f"  {r.fit}: ")
-            if r.problem:
-                line.append(f"not evaluated ({r.problem})", style="red")
-            else:
-                line.append(f"{_num(r.estimate)} [{_num(r.lower)}, {_num(r.upper)}] "
-                            f"{r.unit}; " + coverage_text(r.cv_coverage, r.cv_scheme,
-                                                          r.level, r.interval))
-                if r.flags:
-                    line.append(f"; flags: {str(r.flags).replace(';', ', ')}",
-                                style="yellow")
-            console.print(line)

@@ -7,7 +7,9 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
+from refit.cli.common import (
+    Progress, guarded, print_comparison, print_run, render_admit, stderr_console, stdout_console,
+)
 
 #: Paleosols whose comparison is printed (all are in the files): a typical one and the two
 #: placed where equations stop holding.
@@ -39,14 +41,12 @@ def demo(out_dir: str, quiet: bool) -> None:
     import time
     from pathlib import Path
 
-    from refit.cli.common import stderr_console, stdout_console
-    from refit.cli.fit import _Progress
     from refit.demo import run_demo
 
     console = stdout_console()
     err = stderr_console(quiet=quiet or not sys.stderr.isatty())
     start = time.perf_counter()
-    with _Progress(err) as progress:
+    with Progress(err) as progress:
         result = run_demo(Path(out_dir), echo=None if quiet else console.print,
                           progress=progress, show=None if quiet else _shower(console))
     console.print()
@@ -63,19 +63,13 @@ def _shower(console):
 
     def show(step: str, result) -> None:
         if step == "admit":
-            from refit.cli.admit import render
-
-            for line in render(result.admit):
+            for line in render_admit(result.admit):
                 console.print(f"   {line}", markup=False)
         elif step == "fit":
-            from refit.cli.fit import print_run
-
             print_run(result.run, result.run_dir, console=console)
         elif step == "compare":
-            from refit.cli.compare import _print
-
             table = result.comparison
-            _print(table[table["paleosol_id"].isin(SHOWN_PALEOSOLS)], console)
+            print_comparison(table[table["paleosol_id"].isin(SHOWN_PALEOSOLS)], console)
             console.print(f"   ({table['paleosol_id'].nunique()} paleosols in all; "
                           "every row is in estimates.csv and compare/comparison.csv)")
 

@@ -4,8 +4,8 @@ The columns come from ``schemas/fossil.table.json`` (Frictionless Table Schema):
 paleosol's id, section and level, its features with the names and units of the calibration
 table, optional measurement standard deviations (``<stem>_sd_<unit>``), the burial depth
 and what decompaction needs, and the recorded setting. Checks reuse the calibration
-machinery (:mod:`refit.curate.schema` translation to pandera, :mod:`refit.curate.cells` parsing,
-:mod:`refit.curate.vocabularies`) and add the fossil rules:
+machinery (:mod:`refit.curate.rules`: the report, pandera's column rules and the oxide total;
+:mod:`refit.curate.cells` parsing, :mod:`refit.curate.vocabularies`) and add the fossil rules:
 
 ``sd-without-value``       (warning) a standard deviation beside an empty value
 ``burial-depth-missing``   (warning) depths are given but no burial depth (no decompaction)
@@ -28,6 +28,7 @@ import pandas as pd
 
 from refit.soil import decompaction as dc
 from refit.curate import schema as _schema
+
 DESCRIPTOR_NAME = "fossil.table.json"
 ID = "paleosol_id"
 
@@ -55,7 +56,7 @@ def check_fossil_file(path, *, vocabularies=None, constants=None):
 
     Returns
     -------
-    refit.curate.checks.CheckReport
+    refit.curate.rules.CheckReport
         As for calibration tables; ``frame`` holds the parsed values.
 
     Raises
@@ -92,7 +93,7 @@ def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=No
     source_rows : array_like of int, optional
         File row of each frame row; default ``2, 3, ...``.
     vocabularies : dict, optional
-        From :func:`refit.curate.checks.load_vocabularies`.
+        From :func:`refit.curate.vocabularies.load_vocabularies`.
     path : str, optional
         Shown in the report.
     notes : list of str, optional
@@ -102,10 +103,11 @@ def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=No
 
     Returns
     -------
-    refit.curate.checks.CheckReport
+    refit.curate.rules.CheckReport
     """
-    from refit.curate import checks
     from refit.curate.cells import parse_cells
+    from refit.curate.rules import CheckReport, run_pandera
+    from refit.curate.vocabularies import check_vocabularies, load_vocabularies
 
     n = len(frame)
     rows = (np.arange(n, dtype="int64") + 2 if source_rows is None
@@ -114,21 +116,21 @@ def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=No
     work, probs = parse_cells(frame, rows, desc)
     if ID in work.columns:
         probs.ids = work[ID]
-    vocab = checks.load_vocabularies() if vocabularies is None else vocabularies
-    checks.check_vocabularies(work, probs, vocab)
-    checks._run_pandera(work, probs, desc)
+    vocab = load_vocabularies() if vocabularies is None else vocabularies
+    check_vocabularies(work, probs, vocab)
+    run_pandera(work, probs, desc)
     _fossil_rules(work, probs, desc, dc.constants_table(constants))
     if n == 0:
         probs.add_table("warning", "no-rows", "", "the table has a header but no data "
                         "rows; check that the export holds the data.")
-    return checks.CheckReport(problems=probs.build(), frame=work.set_axis(frame.index),
-                              n_rows=n, path=None if path is None else str(path),
-                              notes=list(notes or []), source_rows=rows, kind="fossil")
+    return CheckReport(problems=probs.build(), frame=work.set_axis(frame.index),
+                       n_rows=n, path=None if path is None else str(path),
+                       notes=list(notes or []), source_rows=rows, kind="fossil")
 
 
 def _fossil_rules(work: pd.DataFrame, probs, desc: dict, constants: dict) -> None:
-    from refit.curate import checks
     from refit.curate.problems import fmt_values
+    from refit.curate.rules import check_oxide_total
 
     feats = [c for c in feature_columns(desc) if c in work.columns]
     for c in feats:
@@ -145,7 +147,7 @@ def _fossil_rules(work: pd.DataFrame, probs, desc: dict, constants: dict) -> Non
                   "function can be applied to it. Fill in at least one feature.")
     # the oxide total over the features only (the *_sd_wt columns are not oxides)
     oxide_desc = dict(desc, fields=[f for f in desc["fields"] if "_sd_" not in f["name"]])
-    checks._check_oxide_total(work, probs, oxide_desc)
+    check_oxide_total(work, probs, oxide_desc)
     _decompaction_rules(work, probs, constants)
 
 

@@ -134,7 +134,8 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
     if suffix in PARQUET_SUFFIXES:
         from refit.curate.workbooks import read_parquet
 
-        return read_parquet(path, as_text)
+        frame, rows, digest, notes, columns = read_parquet(path, as_text)
+        return Table(frame, path, rows, digest, notes, file_columns=columns)
     if suffix == ".xls":
         raise UnreadableInputError(
             f"{path}: the old binary Excel format (.xls) is not read; open it in a spreadsheet "

@@ -1,7 +1,10 @@
 """Workbooks (xlsx) and parquet files for :func:`refit.curate.tables.read_table`.
 
-Internal to :mod:`refit.curate.tables`: a worksheet becomes rows of display text (then read like a
-text table, title rows and all); a parquet file becomes a frame with its own column types.
+Internal to :mod:`refit.curate.tables`, which imports this module (never the other way round):
+a worksheet becomes rows of display text (which :mod:`refit.curate.tables` then reads like a
+text table, title rows and all); a parquet file becomes a frame with its own column types,
+its file row numbers and column positions, which :mod:`refit.curate.tables` wraps in its
+``Table``.
 """
 
 from __future__ import annotations
@@ -13,7 +16,6 @@ import pandas as pd
 
 from refit.curate.headers import blank_columns, refuse_repeated
 from refit.errors import UnreadableInputError
-from refit.curate.tables import Table, _effective_width
 
 
 # ---------------------------------------------------------------------------------------
@@ -52,7 +54,7 @@ def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]
         title = ws.title
     finally:
         book.close()
-    if not any(_effective_width(r) for r in rows):
+    if not any(cell.strip() for row in rows for cell in row):
         raise UnreadableInputError(f"{path}: worksheet {title!r} is empty; put the table there")
     notes = [f"read {path.name} as an xlsx workbook", f"sheet {title!r}"]
     return rows, notes, sha256_file(path)
@@ -62,7 +64,24 @@ def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]
 # parquet
 
 
-def read_parquet(path: Path, as_text: bool) -> Table:
+def read_parquet(path: Path, as_text: bool
+                 ) -> tuple[pd.DataFrame, np.ndarray, str, list[str], dict[str, int]]:
+    """A parquet file's frame and what :class:`refit.curate.tables.Table` records of it.
+
+    Returns
+    -------
+    frame : pandas.DataFrame
+        Data rows, column names stripped, unnamed empty columns left out (as text when
+        ``as_text``).
+    source_rows : numpy.ndarray
+        File row of each frame row (row 1 stands for the column names).
+    sha256 : str
+        Hex SHA-256 of the file's bytes.
+    notes : list of str
+        What the reader did.
+    file_columns : dict of str to int
+        1-based position in the file of each frame column.
+    """
     from refit._util.atomic import sha256_file
 
     try:
@@ -84,8 +103,8 @@ def read_parquet(path: Path, as_text: bool) -> Table:
     if as_text:
         frame = frame.astype(object).map(_cell_text)
     notes = [f"read {path.name} as parquet", "row 1 stands for the column names, data from row 2"]
-    return Table(frame.reset_index(drop=True), path, rows, sha256_file(path), notes,
-                 file_columns={str(c): j + 1 for j, c in zip(keep, frame.columns)})
+    return (frame.reset_index(drop=True), rows, sha256_file(path), notes,
+            {str(c): j + 1 for j, c in zip(keep, frame.columns)})
 
 
 def _cell_text(value) -> str:

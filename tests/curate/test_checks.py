@@ -432,14 +432,15 @@ _COLUMNS = ["latitude", "longitude", "map_mm", "mat_c", "mar_mm", "bk_depth_cm",
 def test_prescan_shortcut_gives_the_same_problems_as_full_pandera(rows, ids):
     # reference: pandera validating every column of the schema (PRESCREEN off)
     import refit.curate.checks as checks
+    import refit.curate.rules as rules
 
     frame = pd.DataFrame(rows, columns=_COLUMNS, dtype=object)
     frame["profile_id"] = ids[: len(frame)]
     frame["source"] = "survey_alder_2020"
     fast = checks.check_frame(frame).problems
-    checks.PRESCREEN = False
+    rules.PRESCREEN = False
     try:
         full = checks.check_frame(frame).problems
     finally:
-        checks.PRESCREEN = True
+        rules.PRESCREEN = True
     pd.testing.assert_frame_equal(fast, full)
