@@ -242,7 +242,7 @@ def _one(frame, recipe, spec, schemes, splits, n_jobs, tick):
 def _candidate_job(frame, recipe, spec, schemes, splits, n_jobs):
     """One candidate, run alike in this process or a worker: BLAS on one thread (so the
     bits do not depend on where it ran), failures returned as text, not raised."""
-    from refit.validate.splitters import _blas
+    from refit.validate.spatial import _blas
 
     t = time.perf_counter()
     try:
