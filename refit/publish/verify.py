@@ -10,10 +10,11 @@
     so an edit that leaves the content alone (a space, a line end) is caught too;
 ``schema``
     the JSON Schema of coefficient files, when :mod:`refit.coefficients` provides it;
-``reproduce`` (given a store)
-    the recorded dataset version is rebuilt from the store (:meth:`refit.curate.store.Store.records_at`,
-    which checks that version's recorded sha256), the recorded subset filters and recipe
-    settings select the same rows, the same form, estimator and direction are refitted the
+``reproduce`` (given a store, or the table a fit was made on)
+    the recorded data set is rebuilt by :func:`refit.select.dataset.dataset_from_record`
+    (a store version from :meth:`refit.curate.store.Store.records_at`, or the table; the
+    recorded sha256 must match), the recorded subset filters and recipe settings select
+    the same rows, the same form, estimator and direction are refitted the
     way the run fitted them (:func:`refit.validate.candidates.fit_whole`) and every fitted number
     (coefficients, covariance, residual standard error, degrees of freedom, n, R^2, Duan's
     smearing factor and the interval's stored quantities) must agree within ``tol``:
@@ -26,9 +27,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from pathlib import Path
 
-from refit.errors import InvalidDataError, RefitError, UnreadableInputError
+from refit.errors import InvalidDataError, UnreadableInputError
 
 TOLERANCE = 1e-9
 #: Top-level fitted numbers compared on reproduction.
@@ -128,7 +128,7 @@ def _same_bytes(raw: bytes, text: str, path) -> None:
 def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str = "") -> Check:
     """Refit the file from ``store`` and compare (a failing :class:`Check` on mismatch)."""
     try:
-        diffs, n_rows = reproduce(content, store, tol=tol)
+        diffs, data = reproduce(content, store, tol=tol, details=True)
     except InvalidDataError as exc:
         return Check("reproduce", False, str(exc), name)
     if diffs:
@@ -136,117 +136,48 @@ def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str =
         more = f" and {len(diffs) - 6} more" if len(diffs) > 6 else ""
         return Check("reproduce", False, f"{name}: the refit does not reproduce the file "
                      f"(tolerance {tol:g}): {shown}{more}", name)
-    ds = content["provenance"]["dataset"]
-    return Check("reproduce", True, f"refitted from store {ds.get('name')!r} version "
-                 f"{ds.get('version')} ({n_rows} rows after the subset): every fitted number "
+    return Check("reproduce", True, f"refitted from {data.source.describe()} "
+                 f"({len(data.frame)} rows after the subset): every fitted number "
                  f"agrees within {tol:g}", name)
 
 
-def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE):
-    """Refit a coefficient file's content from the store; returns (differences, rows).
+def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool = False):
+    """Refit a coefficient file's content from its data; returns (differences, rows).
 
-    ``differences`` lists ``(field, in the file, refitted)`` beyond ``tol``.
+    ``store_dir`` is where the recorded data are now: the store folder, or the table file
+    of a fit made on a table. The data set and subset are rebuilt by
+    :func:`refit.select.dataset.dataset_from_record` (the same rebuild as the fit's and the
+    report's) and the candidate refitted by :func:`refit.validate.refits.refit_record`.
+    ``differences`` lists ``(field, in the file, refitted)`` beyond ``tol``; with
+    ``details`` the second item is the rebuilt :class:`refit.select.dataset.Dataset`.
 
     Raises
     ------
     UnreadableInputError
-        The store is missing.
+        The store or table is missing.
     InvalidDataError
-        The file lacks what a refit needs (dataset version, recipe), the store is not the
-        recorded one or its recorded version no longer rebuilds.
+        The file lacks what a refit needs (dataset version, recipe), the data are not the
+        recorded ones (name, version, sha256) or the recorded subset no longer rebuilds.
     """
-    from refit.validate.candidates import fit_whole
-    from refit.curate.store import open_store, typed_records
+    from refit.validate.refits import refit_record
 
-    prov = content.get("provenance") or {}
-    ds = prov.get("dataset") or {}
-    recipe = recipe_from_record(content)
-    store_dir = Path(store_dir)
-    if not (store_dir / "manifest.json").is_file():
-        raise UnreadableInputError(f"store {store_dir} not found (no manifest.json); check "
-                                   "the --store path")
-    store = open_store(store_dir)
-    version = ds.get("version")
-    if ds.get("kind") not in (None, "store") or not isinstance(version, int):
-        raise InvalidDataError(f"the file was fitted on {ds.get('kind')} {ds.get('name')!r} "
-                               "without a store version (provenance.dataset.version); only "
-                               "fits made from a store can be refitted")
-    if ds.get("name") is not None and ds.get("name") != store.name:
-        raise InvalidDataError(f"the file was fitted on store {ds.get('name')!r}, but "
-                               f"{store_dir} is store {store.name!r}; name the recorded store")
-    entry = next((e for e in store.manifest.get("changelog", []) if e["version"] == version),
-                 None)
-    if entry is None:
-        raise InvalidDataError(f"store {store_dir} has no version {version} (it has 1 to "
-                               f"{store.version}); provenance.dataset.version names another store")
-    if ds.get("sha256") and entry["records_sha256"] != ds["sha256"]:
-        raise InvalidDataError(
-            f"store {store_dir} version {version} has records sha256 "
-            f"{entry['records_sha256'][:12]}..., the file records {ds['sha256'][:12]}... "
-            "(provenance.dataset.sha256): not the data the file was fitted on")
-    frame = typed_records(store.records_at(version))
-    sub = _select(recipe, frame, f"store {store.name!r} (version {version})")
-    want = (prov.get("subset") or {}).get("rows_after")
-    if want is not None and want != len(sub.frame):
-        raise InvalidDataError(f"the recorded subset kept {want} rows, the rebuilt one keeps "
-                               f"{len(sub.frame)} (provenance.subset.rows_after)")
-    fit, _ = fit_whole(sub.frame.reset_index(drop=True), recipe, spec_from_record(content))
-    return compare(content, refitted_numbers(fit, content, recipe), tol), len(sub.frame)
-
-
-def _select(recipe, frame, source):
-    from refit.select.subsets import select
-
-    try:
-        return select(recipe, frame, source)
-    except RefitError as exc:
-        raise InvalidDataError(f"the recorded subset cannot be rebuilt: {exc}") from None
+    data, fit = refit_record(content, store_dir)
+    diffs = compare(content, refitted_numbers(fit, content, data.recipe), tol)
+    return diffs, (data if details else len(data.frame))
 
 
 def recipe_from_record(content: dict):
-    """The :class:`refit.select.recipe.Recipe` recorded in ``provenance.recipe`` (its to_dict())."""
-    from refit.select.recipe import Recipe
-    from refit.select.subsets import parse_filter
+    """The :class:`refit.select.recipe.Recipe` recorded in ``provenance.recipe``."""
+    from refit.select.dataset import recipe_from_record as rebuild
 
-    d = (content.get("provenance") or {}).get("recipe")
-    if not isinstance(d, dict) or "function" not in d:
-        raise InvalidDataError("the file does not record its recipe (provenance.recipe with "
-                               "the recipe's settings), so it cannot be refitted; publish "
-                               "it from a run of this refit version")
-    fn, cand = d["function"], d.get("candidates", {})
-    val, ivl = d.get("validation", {}), d.get("intervals", {})
-    try:
-        filters = tuple(parse_filter(f["column"], f["value"], where="provenance.recipe.subset")
-                        for f in d.get("subset", []))
-    except (RefitError, KeyError, TypeError) as exc:
-        raise InvalidDataError(f"provenance.recipe.subset cannot be read: {exc}") from None
-    return Recipe(
-        path=Path(d.get("path") or "recipe.toml"), sha256=d.get("sha256", ""), table=None,
-        store=None, subset=filters, function_id=fn["id"], response=fn["response"],
-        predictors=tuple(fn["predictors"]), forms=tuple(cand.get("forms", ("linear",))),
-        estimators=tuple(cand.get("estimators", ("ols",))),
-        directions=tuple(cand.get("directions", ("inverse",))),
-        scheme=val.get("scheme", "kfold"), folds=val.get("folds", 5),
-        repeats=val.get("repeats", 1), groups=val.get("groups"), seed=val.get("seed", 0),
-        level=ivl.get("level", 0.95), methods=tuple(ivl.get("methods", ("analytic",))))
+    return rebuild(content)
 
 
 def spec_from_record(content: dict):
     """The fit matrix's :class:`refit.validate.candidates.Spec` of a coefficient file."""
-    from refit.validate.candidates import Spec
-    from refit.select.recipe import form_degree
+    from refit.validate.refits import spec_from_record as spec
 
-    label = content.get("form")
-    if label == "polynomial" and content.get("degree"):
-        label = f"polynomial-{content['degree']}"
-    try:
-        form, degree = form_degree(str(label))
-        interval = content.get("interval") or {}
-        return Spec(str(label), form, degree, content["estimator"], content["direction"],
-                    interval.get("method", "analytic"), len(content["terms"]))
-    except (RefitError, KeyError, TypeError) as exc:
-        raise InvalidDataError(f"the file's form, estimator, direction or terms cannot be "
-                               f"read for a refit: {exc}") from None
+    return spec(content)
 
 
 def refitted_numbers(fit, content: dict, recipe) -> dict:

@@ -3,9 +3,10 @@
 A run folder (see :mod:`refit.validate.runfolder`) holds the leaderboard, the out-of-fold
 predictions and a coefficient record per candidate, but not the calibration records. The
 report reloads them from where ``run.json`` says they came from (a store at the recorded
-dataset version, or a table), rebuilds the subset with :mod:`refit.select.subsets`, refits the
-chosen candidate with :func:`refit.validate.candidates.fit_whole` and checks that the refit gives the
-coefficients recorded in the run: a report never draws a fit the run did not make.
+dataset version, or a table) and refits the chosen candidate with
+:func:`refit.validate.refits.refit_record` (the same rebuild of the data set as ``refit
+verify``'s, :func:`refit.select.dataset.dataset_from_record`), then checks that the refit
+gives the coefficients recorded in the run: a report never draws a fit the run did not make.
 """
 
 from __future__ import annotations
@@ -77,68 +78,18 @@ def _chosen(board, board_json: dict, candidate: str | None) -> str:
     return candidate
 
 
-def _dataset_records(ds: dict, store: Path | None):
-    """The records the run was fitted on, checked against the recorded hash."""
-    from refit.curate.store import open_store, typed_records
+def _refit(record: dict, location, dataset: dict):
+    """Rebuild the data set and subset, refit the recorded candidate, check it reproduces."""
+    from refit.validate.refits import refit_record
 
-    kind = ds.get("kind")
-    where = Path(store) if store is not None else Path(str(ds.get("path") or ""))
-    hint = ("; pass --store PATH (a store) or --table PATH (a table) to say where the "
-            "data are now")
-    if kind == "store":
-        if not (where / "manifest.json").is_file():
-            raise UnreadableInputError(f"the run's store {str(where)!r} is not found (no "
-                                       f"manifest.json){hint}")
-        st = open_store(where)
-        version = ds.get("version")
-        if ds.get("name") is not None and ds.get("name") != st.name:
-            raise InvalidDataError(f"the run used store {ds.get('name')!r}, but {where} is "
-                                   f"store {st.name!r}{hint}")
-        entry = next((e for e in st.manifest.get("changelog", [])
-                      if e["version"] == version), None)
-        if entry is None or entry.get("records_sha256") != ds.get("sha256"):
-            raise InvalidDataError(f"store {where} has no version {version} with records "
-                                   f"sha256 {str(ds.get('sha256'))[:12]}...: not the data "
-                                   f"the run was fitted on{hint}")
-        return typed_records(st.records_at(version)), f"store {st.name!r} (version {version})"
-    if kind == "table":
-        from refit._util.atomic import sha256_file
-        from refit.curate.checks import check_file
-
-        if not where.is_file():
-            raise UnreadableInputError(f"the run's table {str(where)!r} is not found{hint}")
-        if sha256_file(where) != ds.get("sha256"):
-            raise InvalidDataError(f"table {where} has changed since the run (its sha256 "
-                                   "differs from run.json's): not the data the run was "
-                                   "fitted on")
-        return check_file(where).frame, f"table {where.name!r}"
-    raise InvalidDataError(f"run.json names no dataset kind ('store' or 'table'): got "
-                           f"{kind!r}; rerun `refit fit` to rewrite the run folder")
-
-
-def _refit(record: dict, frame, source: str, rows_after):
-    """Rebuild the subset, refit the recorded candidate and check it reproduces."""
-    from refit.errors import RefitError
-    from refit.validate.candidates import fit_whole
-    from refit.select.subsets import select
-    from refit.publish.verify import recipe_from_record, spec_from_record
-
-    recipe = recipe_from_record(record)
-    try:
-        sub = select(recipe, frame, source)
-    except RefitError as exc:
-        raise InvalidDataError(f"the run's subset cannot be rebuilt: {exc}") from None
-    if rows_after is not None and rows_after != len(sub.frame):
-        raise InvalidDataError(f"the run's subset kept {rows_after} records, rebuilding it "
-                               f"keeps {len(sub.frame)}: the data are not the run's")
-    fit, _ = fit_whole(sub.frame.reset_index(drop=True), recipe, spec_from_record(record))
+    data, fit = refit_record(record, location, dataset=dataset)
     got = np.asarray(fit.result.coefficients, dtype=float)
     want = np.asarray(record.get("coefficients", []), dtype=float)
     if got.shape != want.shape or not np.allclose(got, want, rtol=TOLERANCE, atol=0):
         raise InvalidDataError(f"refitting {record.get('candidate')} does not reproduce the "
                                f"run's coefficients (run {want.tolist()}, refit "
                                f"{got.tolist()}): the data or refit's version differ")
-    return recipe, sub, fit
+    return data, fit
 
 
 def load_run(run_dir, *, candidate: str | None = None, store=None) -> ReportInputs:
@@ -175,9 +126,17 @@ def load_run(run_dir, *, candidate: str | None = None, store=None) -> ReportInpu
     record = _read_json(run_dir / "fits" / fit_filename(label))
     oof = _read_csv(run_dir / "oof_predictions.csv")
     oof = oof[oof["candidate"] == label].reset_index(drop=True)
-    records, source = _dataset_records(run.get("dataset") or {}, store)
-    rows_after = (run.get("subset") or {}).get("rows_after")
-    recipe, sub, fit = _refit(record, records, source, rows_after)
-    kept = records.index.isin(sub.frame.index)
+    data, fit = _refit(record, store, _recorded_dataset(run, record))
+    kept = data.records.index.isin(data.frame.index)
     return ReportInputs(run_dir, run, board, board_json, oof, label, record,
-                        records, np.asarray(kept), sub, recipe, fit)
+                        data.records, np.asarray(kept), data.subset, data.recipe, fit)
+
+
+def _recorded_dataset(run: dict, record: dict) -> dict:
+    """The record's ``provenance.dataset`` with the run's path to the data (coefficient
+    records leave the path out; run.json keeps it)."""
+    ds = dict((record.get("provenance") or {}).get("dataset") or run.get("dataset") or {})
+    path = (run.get("dataset") or {}).get("path")
+    if path and not ds.get("path"):
+        ds["path"] = path
+    return ds

@@ -18,7 +18,8 @@ Forms are ``linear``, ``quadratic``, ``cubic``, ``polynomial-N`` (N = 2..6) and
 ``exponential``; estimators ``ols``, ``huber``, ``theil-sen``, ``quantile`` (``wls`` and
 ``york`` need weight or measurement-error columns that recipes do not name yet: they are
 accepted and reported as skipped by the fit matrix); directions ``inverse`` and ``forward``;
-schemes ``kfold``, ``loo``, ``group-kfold``, ``leave-one-group-out``, ``spatial-block``;
+schemes ``kfold``, ``loo`` (or ``leave-one-out``), ``group-kfold``, ``leave-one-group-out``,
+``spatial-block`` (:mod:`refit.select.schemes`);
 interval methods ``analytic``, ``bootstrap``, ``split-conformal``, ``jackknife+``, ``cv+``,
 ``quantile``.
 """
@@ -31,7 +32,8 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from refit.errors import InvalidDataError, UnreadableInputError, UsageError
+from refit.errors import InvalidDataError, RefitError, UnreadableInputError, UsageError
+from refit.select.schemes import ALIASES, NEEDS_GROUP_COLUMN, SCHEMES, canonical_scheme
 from refit.select.subsets import Filter, parse_filter
 
 SECTIONS = {
@@ -46,8 +48,6 @@ FORMS = ("linear", "quadratic", "cubic", "exponential")  # plus polynomial-N
 MAX_DEGREE = 6
 ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile")
 DIRECTIONS = ("inverse", "forward")
-SCHEMES = ("kfold", "loo", "group-kfold", "leave-one-group-out", "spatial-block")
-GROUPED = ("group-kfold", "leave-one-group-out")
 METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile")
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")
 
@@ -171,7 +171,8 @@ def _where(path: Path, lines: dict, key: str) -> str:
     return f"{path}" + (f", line {line}" if line else "")
 
 
-def _suggest(word: str, choices) -> str:
+def suggest(word: str, choices) -> str:
+    """``" (did you mean 'x'?)"`` for the closest of ``choices``, or ``""``."""
     close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
     return f" (did you mean {close[0]!r}?)" if close else ""
 
@@ -253,7 +254,8 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
     cand = doc.get("candidates", {})
     val = doc.get("validation", {})
     ivl = doc.get("intervals", {})
-    scheme = v.choice("validation.scheme", val.get("scheme", "kfold"), SCHEMES)
+    scheme = v.choice("validation.scheme", canonical_scheme(val.get("scheme", "kfold")),
+                      SCHEMES, aliases=tuple(ALIASES))
     groups = None
     if "groups" in val:
         groups = v.string("validation.groups", val["groups"])
@@ -289,7 +291,7 @@ def _check_keys(doc: dict, path: Path, lines: dict) -> None:
     for section, value in doc.items():
         if section not in SECTIONS:
             raise UsageError(f"{_where(path, lines, section)}: unknown section [{section}]"
-                             f"{_suggest(section, SECTIONS)}; a recipe has the sections "
+                             f"{suggest(section, SECTIONS)}; a recipe has the sections "
                              + ", ".join(f"[{s}]" for s in SECTIONS))
         if not isinstance(value, dict):
             raise UsageError(f"{_where(path, lines, section)}: {section!r} must be a "
@@ -301,7 +303,7 @@ def _check_keys(doc: dict, path: Path, lines: dict) -> None:
             if key not in allowed:
                 raise UsageError(
                     f"{_where(path, lines, f'{section}.{key}')}: unknown key {key!r} in "
-                    f"[{section}]{_suggest(key, allowed)}; the keys of [{section}] are: "
+                    f"[{section}]{suggest(key, allowed)}; the keys of [{section}] are: "
                     + ", ".join(allowed))
     if "data" not in doc:
         raise UsageError(f"{path}: the recipe needs a [data] section with table = \"...\" "
@@ -346,10 +348,10 @@ def _data_paths(data: dict, path: Path, lines: dict):
 
 
 def _check_groups(scheme: str, groups, path: Path, lines: dict) -> None:
-    if scheme in GROUPED and groups is None:
+    if scheme in NEEDS_GROUP_COLUMN and groups is None:
         raise UsageError(f"{_where(path, lines, 'validation.scheme')}: scheme {scheme!r} needs "
                          "groups = \"<column>\" in [validation] (e.g. groups = \"source\")")
-    if scheme not in GROUPED and groups is not None:
+    if scheme not in NEEDS_GROUP_COLUMN and groups is not None:
         raise UsageError(f"{_where(path, lines, 'validation.groups')}: groups = {groups!r} "
                          f"has no effect with scheme {scheme!r}; use scheme 'group-kfold' or "
                          "'leave-one-group-out', or remove the key")
@@ -380,10 +382,10 @@ class _Values:
             self.fail(key, "a list without repeats", value)
         return out
 
-    def choice(self, key, value, choices) -> str:
+    def choice(self, key, value, choices, *, aliases=()) -> str:
         if not isinstance(value, str) or value not in choices:
-            self.fail(key, "one of " + ", ".join(map(repr, choices))
-                      + _suggest(value, choices), value)
+            self.fail(key, "one of " + ", ".join(map(repr, choices + tuple(aliases)))
+                      + suggest(value, choices + tuple(aliases)), value)
         return value
 
     def list_of(self, key, value, choices, *, valid=None, extra="") -> tuple[str, ...]:
@@ -395,7 +397,7 @@ class _Values:
             if not isinstance(item, str) or not ok(item):
                 listed = ", ".join(map(repr, choices)) + (f", {extra}" if extra else "")
                 self.fail(key, f"a list of: {listed}; {item!r} is not one of them"
-                          + _suggest(item, choices), value)
+                          + suggest(item, choices), value)
         if len(set(items)) != len(items):
             self.fail(key, "a list without repeats", value)
         return tuple(items)
@@ -412,22 +414,35 @@ class _Values:
         return float(value)
 
 
-def check_columns(recipe: Recipe, columns, *, source: str) -> None:
-    """Refuse a response, predictor or group column that the data do not have.
+def recipe_from_dict(d, *, where: str = "recipe") -> Recipe:
+    """The :class:`Recipe` of :meth:`Recipe.to_dict` content (as coefficient files record it).
+
+    Data paths are not restored (a recorded recipe names its data through the file's
+    provenance); a scheme alias is read as its canonical name.
 
     Raises
     ------
     InvalidDataError
-        Naming the recipe line, the key, the missing column and the columns present.
+        ``d`` is not a recipe's content, or its subset filters cannot be read.
     """
-    have = [str(c) for c in columns]
-    wanted = [("function.response", recipe.response)]
-    wanted += [("function.predictors", p) for p in recipe.predictors]
-    if recipe.groups is not None:
-        wanted.append(("validation.groups", recipe.groups))
-    for key, name in wanted:
-        if name not in have:
-            section, k = key.split(".")
-            raise InvalidDataError(
-                f"{recipe.where(key)}: [{section}] {k} names column {name!r}, which {source} "
-                f"does not have{_suggest(name, have)}; its columns are: " + ", ".join(have))
+    if not isinstance(d, dict) or not isinstance(d.get("function"), dict):
+        raise InvalidDataError(f"the file does not record its recipe ({where} with the "
+                               "recipe's settings), so it cannot be refitted; publish it from "
+                               "a run of this refit version")
+    fn, cand = d["function"], d.get("candidates") or {}
+    val, ivl = d.get("validation") or {}, d.get("intervals") or {}
+    try:
+        filters = tuple(parse_filter(f["column"], f["value"], where=f"{where}.subset")
+                        for f in d.get("subset") or [])
+        return Recipe(
+            path=Path(d.get("path") or "recipe.toml"), sha256=d.get("sha256", ""),
+            table=None, store=None, subset=filters, function_id=fn["id"],
+            response=fn["response"], predictors=tuple(fn["predictors"]),
+            forms=tuple(cand.get("forms", ("linear",))),
+            estimators=tuple(cand.get("estimators", ("ols",))),
+            directions=tuple(cand.get("directions", ("inverse",))),
+            scheme=canonical_scheme(val.get("scheme", "kfold")), folds=val.get("folds", 5),
+            repeats=val.get("repeats", 1), groups=val.get("groups"), seed=val.get("seed", 0),
+            level=ivl.get("level", 0.95), methods=tuple(ivl.get("methods", ("analytic",))))
+    except (RefitError, KeyError, TypeError, AttributeError) as exc:
+        raise InvalidDataError(f"{where} cannot be read: {exc}") from None

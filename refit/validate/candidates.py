@@ -242,7 +242,7 @@ def _one(frame, recipe, spec, schemes, splits, n_jobs, tick):
 def _candidate_job(frame, recipe, spec, schemes, splits, n_jobs):
     """One candidate, run alike in this process or a worker: BLAS on one thread (so the
     bits do not depend on where it ran), failures returned as text, not raised."""
-    from refit.validate.splitters import _blas
+    from refit.validate.spatial import _blas
 
     t = time.perf_counter()
     try:
@@ -467,12 +467,12 @@ def run_recipe(recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Run:
         needed is said), or the validation scheme cannot split the subset.
     """
     from refit.errors import UsageError
-    from refit.select.subsets import load_data, select
+    from refit.select.dataset import dataset_from_recipe
 
     t0 = time.perf_counter()
-    frame, data, source = load_data(recipe)
+    ds = dataset_from_recipe(recipe)
     t1 = time.perf_counter()
-    sub = select(recipe, frame, source)
+    data, sub = ds.source.to_dict(), ds.subset
     specs, skipped = candidate_grid(recipe)
     if not specs:
         raise UsageError(f"{recipe.where('candidates')}: no combination of the recipe's "

@@ -26,9 +26,10 @@ import numpy as np
 
 from refit.models.inputs import as_frame
 from refit.errors import InvalidDataError, RefitError, UsageError
-from refit.validate.splitters import (BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, Scheme, Split,  # noqa: F401
-                     Splits, _loo_details, group_codes, make_splits, project_km,
-                     spatial_blocks)
+from refit.validate.splitters import (  # noqa: F401
+    BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, GroupKFoldSplitter, KFoldSplitter,
+    LeaveOneGroupOutSplitter, LeaveOneOutSplitter, Scheme, SpatialBlockSplitter, Split, Splits,
+    _loo_details, group_codes, make_splits, project_km, spatial_blocks, splitter_for)
 
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
 _CONFORMAL = ("split-conformal", "jackknife+", "cv+")

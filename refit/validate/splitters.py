@@ -1,11 +1,22 @@
-"""Cross-validation schemes and splitters: which rows train and which test.
+"""Cross-validation splitters: which rows train and which test.
 
-``make_splits(frame, scheme)`` turns a :class:`Scheme` into train/test index pairs with
-scikit-learn's splitters (``KFold``/``RepeatedKFold``, ``LeaveOneOut``, ``GroupKFold``,
-``LeaveOneGroupOut``); spatial blocks are groups made from the coordinates (a grid of
-``block_km`` or k-means clusters, :func:`spatial_blocks` on the equal-area plane of
-:func:`project_km`) and then split like groups. The driver that fits and scores each
-fold is :mod:`refit.validate.crossval` (which re-exports these names).
+Every scheme is an object in the scikit-learn splitter protocol: settings in the
+constructor, ``split(X, y=None, groups=None)`` yielding ``(train_idx, test_idx)``
+(positional row indices) and ``get_n_splits(X=None, y=None, groups=None)``, so they are
+interchangeable with ``sklearn.model_selection`` splitters (and built on them):
+
+- ``kfold`` (repeated): :class:`KFoldSplitter`, scikit-learn's ``RepeatedKFold``;
+- ``loo`` (alias ``leave-one-out``): :class:`LeaveOneOutSplitter`, ``LeaveOneOut``;
+- ``group-kfold``: :class:`GroupKFoldSplitter`, ``GroupKFold(shuffle=True)`` per repeat;
+- ``leave-one-group-out``: :class:`LeaveOneGroupOutSplitter`, ``LeaveOneGroupOut``;
+- ``spatial-block``: :class:`SpatialBlockSplitter`, blocks from the coordinates
+  (:mod:`refit.validate.spatial`) split as by :class:`GroupKFoldSplitter`.
+
+The names live in :mod:`refit.select.schemes` (shared with recipes). A :class:`Scheme`
+holds a scheme's settings as a recipe gives them; :func:`splitter_for` makes its splitter
+and :func:`make_splits` runs it on a table, naming rows and columns in its errors. The
+driver that fits and scores each fold is :mod:`refit.validate.crossval` (which re-exports
+these names).
 
 Calibration soils cluster by region and source, so random k-fold flatters a fit that has
 learnt the clusters: grouped or spatially blocked folds estimate the error on a region the
@@ -14,7 +25,6 @@ fit has never seen (Roberts et al. 2017, Ecography 40:913).
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass
 
@@ -23,22 +33,10 @@ import numpy as np
 from refit.models.inputs import as_frame, rows_text
 from refit.errors import InvalidDataError, UsageError
 
-SCHEMES = ("kfold", "loo", "group-kfold", "leave-one-group-out", "spatial-block")
-GROUPED = ("group-kfold", "leave-one-group-out", "spatial-block")
-#: mean Earth radius [km] (IUGG value, from memory)
-EARTH_RADIUS_KM = 6371.0088
-#: k-means blocks per fold when no block size is given (common practice: several blocks
-#: per fold so folds can be balanced)
-BLOCKS_PER_FOLD = 5
-_KMEANS_SITES = 10_000  # k-means runs on at most this many distinct sites (seeded sample)
-
-
-@functools.cache
-def _blas():
-    from threadpoolctl import ThreadpoolController  # a scikit-learn dependency
-
-    return ThreadpoolController()
-
+from refit.select.schemes import (GROUPED, NEEDS_GROUP_COLUMN, SCHEMES,  # noqa: F401
+                                  canonical_scheme)
+from refit.validate.spatial import (BLOCKS_PER_FOLD, EARTH_RADIUS_KM,  # noqa: F401
+                                   coordinates, project_km, spatial_blocks)
 
 
 # ----------------------------------------------------------------------------- schemes
@@ -79,13 +77,14 @@ class Scheme:
     block_km: float | None = None
 
     def __post_init__(self):
+        object.__setattr__(self, "name", canonical_scheme(self.name))
         if self.name not in SCHEMES:
             raise UsageError(f"unknown validation scheme {self.name!r}; choose one of: "
                              + ", ".join(SCHEMES))
         _whole(self.folds, "folds", 2)
         _whole(self.repeats, "repeats", 1)
         _whole(self.seed, "seed", 0)
-        if self.name in ("group-kfold", "leave-one-group-out") and not self.groups:
+        if self.name in NEEDS_GROUP_COLUMN and not self.groups:
             raise UsageError(f"scheme {self.name!r} needs groups = a column name (e.g. "
                              "'source' or a region column)")
         if self.block_km is not None and not (
@@ -146,115 +145,192 @@ def _check_groups(n_groups: int, folds: int | None, what: str, scheme: str):
                                "fewer, or scheme 'leave-one-group-out'")
 
 
-# ----------------------------------------------------------------------------- spatial
-def project_km(latitude, longitude) -> np.ndarray:
-    """Sinusoidal equal-area projection about the mean longitude, [km] east and north.
-
-    ``x = R (lon - lon0) cos(lat)``, ``y = R lat`` (angles in radians, R the mean Earth
-    radius). Areas are true; shapes stretch away from the central meridian, which matters
-    little for blocks of a study region (a grid across the date line is not supported).
-    """
-    lat = np.radians(np.asarray(latitude, dtype=float))
-    lon = np.asarray(longitude, dtype=float)
-    lon0 = np.mean(lon)
-    return np.column_stack([EARTH_RADIUS_KM * np.radians(lon - lon0) * np.cos(lat),
-                            EARTH_RADIUS_KM * lat])
+# ----------------------------------------------------------------------------- splitters
+def _n_rows(X) -> int:
+    if X is None:
+        raise UsageError("X is needed to count the rows (a table or an array of rows)")
+    shape = getattr(X, "shape", None)
+    return int(shape[0]) if shape else len(X)
 
 
-def _coordinates(frame, labels, kind):
-    out = []
-    for name, limit in (("latitude", 90.0), ("longitude", 180.0)):
-        if name not in frame.columns:
-            raise UsageError(f"scheme 'spatial-block' needs the column {name!r} (decimal "
-                             "degrees); it is not in the table")
-        import pandas as pd
-
-        v = pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-        bad = ~(np.abs(v) <= limit)
-        if bad.any():
-            raise InvalidDataError(f"column {name!r} is empty, not a number or beyond "
-                                   f"+-{limit:g} degrees at {rows_text(labels, bad, kind)}; "
-                                   "spatial blocks need every row's coordinates")
-        out.append(v)
-    return out
+def _dummy(X) -> np.ndarray:
+    return np.zeros((_n_rows(X), 1))
 
 
-def spatial_blocks(latitude, longitude, *, block_km=None, n_blocks=25, seed=0):
-    """Group rows into spatial blocks: grid cells of ``block_km`` or k-means clusters.
+def _need_groups(groups, who: str) -> np.ndarray:
+    if groups is None:
+        raise UsageError(f"{who}.split needs groups = one group label per row")
+    return np.asarray(groups)
+
+
+class _Splitter:
+    """The scikit-learn splitter protocol: settings in the constructor, then
+    ``split(X, y=None, groups=None)`` yields ``(train_idx, test_idx)`` (positional row
+    indices) and ``get_n_splits(X=None, y=None, groups=None)`` counts them."""
+
+    _params: tuple = ()
+
+    def __repr__(self) -> str:
+        args = ", ".join(f"{k}={getattr(self, k)!r}" for k in self._params)
+        return f"{type(self).__name__}({args})"
+
+
+class KFoldSplitter(_Splitter):
+    """Random k-fold, repeated with fresh folds: scikit-learn's ``RepeatedKFold``.
 
     Parameters
     ----------
-    latitude, longitude : array_like
-        Coordinates [decimal degrees].
-    block_km : float, optional
-        Side of the square grid cells in the projected plane [km] (:func:`project_km`).
-    n_blocks : int
-        Number of k-means clusters when ``block_km`` is None (at most the number of
-        distinct locations; clustered on a seeded sample of 10,000 sites when there are
-        more, then every row joins its nearest centre).
-    seed : int
-        Seed of k-means.
-
-    Returns
-    -------
-    codes : ndarray of int
-        Block of each row (0..b-1).
-    info : dict
-        ``block_method`` (``grid`` or ``kmeans``), ``n_blocks``, ``block_km`` (the grid
-        side, or for k-means the median block diameter: twice the largest distance of a
-        block's rows from its centre) [km], ``block_km_range`` (smallest and largest).
+    n_splits : int
+        Folds per repeat (at least 2).
+    n_repeats : int
+        Repeats (at least 1); ``n_repeats=1`` gives the folds of
+        ``KFold(n_splits, shuffle=True, random_state=random_state)``.
+    random_state : int
+        Seed; one generator runs across the repeats.
     """
-    xy = project_km(latitude, longitude)
-    if block_km is not None:
-        cells = np.floor((xy - xy.min(axis=0)) / float(block_km)).astype(np.int64)
-        _, codes = np.unique(cells, axis=0, return_inverse=True)
-        codes = codes.ravel()
-        return codes, {"block_method": "grid", "n_blocks": int(codes.max() + 1),
-                       "block_km": float(block_km)}
-    from sklearn.cluster import KMeans
 
-    sites = np.unique(xy, axis=0)
-    k = min(int(n_blocks), len(sites))
-    if k < 2:
-        return np.zeros(len(xy), dtype=int), {"block_method": "kmeans", "n_blocks": 1,
-                                              "block_km": 0.0}
-    if len(sites) > _KMEANS_SITES:  # cluster a seeded sample of sites, assign every row
-        pick = np.random.default_rng(seed).choice(len(sites), _KMEANS_SITES, replace=False)
-        sites = sites[np.sort(pick)]
-    with _blas().limit(limits=1):  # small problem: threads only wait on a busy machine
-        km = KMeans(n_clusters=k, random_state=seed, n_init=10).fit(sites)
-        raw = km.predict(xy)
-    dist = np.linalg.norm(xy - km.cluster_centers_[raw], axis=1)
-    _, codes = np.unique(raw, return_inverse=True)  # a cluster may get no rows
-    k = int(codes.max() + 1)
-    diam = np.zeros(k)
-    np.maximum.at(diam, codes, 2.0 * dist)
-    return codes, {"block_method": "kmeans", "n_blocks": int(k),
-                   "block_km": float(np.median(diam)),
-                   "block_km_range": [float(diam.min()), float(diam.max())]}
+    _params = ("n_splits", "n_repeats", "random_state")
+
+    def __init__(self, n_splits: int = 5, *, n_repeats: int = 1, random_state: int = 0):
+        self.n_splits = _whole(n_splits, "n_splits", 2)
+        self.n_repeats = _whole(n_repeats, "n_repeats", 1)
+        self.random_state = _whole(random_state, "random_state", 0)
+
+    def split(self, X, y=None, groups=None):
+        from sklearn.model_selection import RepeatedKFold
+
+        it = RepeatedKFold(n_splits=self.n_splits, n_repeats=self.n_repeats,
+                           random_state=self.random_state)
+        yield from it.split(_dummy(X))
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return self.n_splits * self.n_repeats
+
+
+class LeaveOneOutSplitter(_Splitter):
+    """Each row is the test set once: scikit-learn's ``LeaveOneOut``."""
+
+    def split(self, X, y=None, groups=None):
+        from sklearn.model_selection import LeaveOneOut
+
+        yield from LeaveOneOut().split(_dummy(X))
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return _n_rows(X)
+
+
+class GroupKFoldSplitter(_Splitter):
+    """Whole groups held out, groups shuffled into folds, repeated with fresh folds.
+
+    Each repeat is scikit-learn's ``GroupKFold(n_splits, shuffle=True)`` drawing from one
+    ``numpy.random.RandomState(random_state)`` across the repeats (as ``RepeatedKFold``
+    repeats ``KFold``); ``n_repeats=1`` gives the folds of
+    ``GroupKFold(n_splits, shuffle=True, random_state=random_state)``.
+    """
+
+    _params = ("n_splits", "n_repeats", "random_state")
+
+    def __init__(self, n_splits: int = 5, *, n_repeats: int = 1, random_state: int = 0):
+        self.n_splits = _whole(n_splits, "n_splits", 2)
+        self.n_repeats = _whole(n_repeats, "n_repeats", 1)
+        self.random_state = _whole(random_state, "random_state", 0)
+
+    def split(self, X, y=None, groups=None):
+        from sklearn.model_selection import GroupKFold
+
+        groups = _need_groups(groups, type(self).__name__)
+        rng = np.random.RandomState(self.random_state)
+        dummy = _dummy(X)
+        for _ in range(self.n_repeats):
+            splitter = GroupKFold(n_splits=self.n_splits, shuffle=True, random_state=rng)
+            yield from splitter.split(dummy, groups=groups)
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return self.n_splits * self.n_repeats
+
+
+class LeaveOneGroupOutSplitter(_Splitter):
+    """Each group is the test set once: scikit-learn's ``LeaveOneGroupOut``."""
+
+    def split(self, X, y=None, groups=None):
+        from sklearn.model_selection import LeaveOneGroupOut
+
+        groups = _need_groups(groups, type(self).__name__)
+        yield from LeaveOneGroupOut().split(_dummy(X), groups=groups)
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return int(len(np.unique(_need_groups(groups, type(self).__name__))))
+
+
+class SpatialBlockSplitter(_Splitter):
+    """Spatial blocks held out whole: blocks from the coordinates, then group k-fold.
+
+    Parameters
+    ----------
+    n_splits, n_repeats, random_state
+        As :class:`GroupKFoldSplitter`, which splits the blocks.
+    block_km : float, optional
+        Side of square grid cells [km]; None: k-means blocks
+        (:data:`BLOCKS_PER_FOLD` per fold), see :func:`spatial_blocks`.
+
+    Notes
+    -----
+    ``X`` is a table with ``latitude`` and ``longitude`` columns [decimal degrees] or an
+    array of rows ``(latitude, longitude)``. ``groups``, when given, are taken as the
+    blocks (e.g. the codes :meth:`blocks` returned, so k-means runs once).
+    """
+
+    _params = ("n_splits", "n_repeats", "block_km", "random_state")
+
+    def __init__(self, n_splits: int = 5, *, n_repeats: int = 1, block_km=None,
+                 random_state: int = 0):
+        self.n_splits = _whole(n_splits, "n_splits", 2)
+        self.n_repeats = _whole(n_repeats, "n_repeats", 1)
+        self.random_state = _whole(random_state, "random_state", 0)
+        self.block_km = block_km
+
+    def blocks(self, X):
+        """Block codes of the rows and the blocks' description (see :func:`spatial_blocks`)."""
+        if hasattr(X, "columns"):
+            lat, lon = X["latitude"], X["longitude"]
+        else:
+            xy = np.asarray(X, dtype=float)
+            lat, lon = xy[:, 0], xy[:, 1]
+        return spatial_blocks(lat, lon, block_km=self.block_km,
+                              n_blocks=BLOCKS_PER_FOLD * self.n_splits,
+                              seed=self.random_state)
+
+    def split(self, X, y=None, groups=None):
+        codes = self.blocks(X)[0] if groups is None else groups
+        yield from GroupKFoldSplitter(self.n_splits, n_repeats=self.n_repeats,
+                                      random_state=self.random_state).split(X, groups=codes)
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        return self.n_splits * self.n_repeats
+
+
+def splitter_for(scheme: Scheme) -> _Splitter:
+    """The splitter object of a :class:`Scheme` (its settings; no data)."""
+    s = scheme
+    if s.name == "kfold":
+        return KFoldSplitter(s.folds, n_repeats=s.repeats, random_state=s.seed)
+    if s.name == "loo":
+        return LeaveOneOutSplitter()
+    if s.name == "group-kfold":
+        return GroupKFoldSplitter(s.folds, n_repeats=s.repeats, random_state=s.seed)
+    if s.name == "leave-one-group-out":
+        return LeaveOneGroupOutSplitter()
+    return SpatialBlockSplitter(s.folds, n_repeats=s.repeats, block_km=s.block_km,
+                                random_state=s.seed)
 
 
 # ----------------------------------------------------------------------------- make_splits
-def _collect(iterator, folds_per_repeat: int | None) -> list[Split]:
+def _collect(pairs, folds_per_repeat: int | None) -> list[Split]:
     out = []
-    for i, (train, test) in enumerate(iterator):
+    for i, (train, test) in enumerate(pairs):
         r, k = (0, i) if folds_per_repeat is None else divmod(i, folds_per_repeat)
         out.append(Split(r, k, np.asarray(train, dtype=np.int64),
                          np.asarray(test, dtype=np.int64)))
-    return out
-
-
-def _grouped_kfold(codes, folds, repeats, seed) -> list[Split]:
-    """GroupKFold with shuffled groups, repeated as RepeatedKFold repeats KFold."""
-    from sklearn.model_selection import GroupKFold
-
-    rng = np.random.RandomState(seed)  # as RepeatedKFold: one generator across repeats
-    dummy = np.zeros((len(codes), 1))
-    out = []
-    for r in range(repeats):
-        splitter = GroupKFold(n_splits=folds, shuffle=True, random_state=rng)
-        out += [Split(r, k, tr.astype(np.int64), te.astype(np.int64))
-                for k, (tr, te) in enumerate(splitter.split(dummy, groups=codes))]
     return out
 
 
@@ -265,8 +341,29 @@ def _loo_details(n: int, s: Scheme) -> dict:
     return out
 
 
+def _group_codes_for(frame, s: Scheme, splitter, labels, kind, details: dict):
+    """Group codes of the rows (a column's groups or spatial blocks), checked."""
+    if s.name == "spatial-block":
+        lat, lon = coordinates(frame, labels, kind)
+        codes, info = splitter.blocks(np.column_stack([lat, lon]))
+        details.update(info)
+        what = (f"a grid of {s.block_km:g} km" if s.block_km is not None
+                else "the coordinates (k-means blocks)")
+        _check_groups(info["n_blocks"], s.folds, what, s.name)
+        return codes
+    codes, names = group_codes(frame, s.groups, labels, kind)
+    _check_groups(len(names), None if s.name == "leave-one-group-out" else s.folds,
+                  f"group column {s.groups!r}", s.name)
+    details["groups"] = s.groups
+    return codes
+
+
 def make_splits(frame, scheme: Scheme) -> Splits:
     """Train/test splits of a table's rows under a scheme.
+
+    The scheme's splitter (:func:`splitter_for`) is run through the scikit-learn protocol
+    (``split(X, y, groups)``); this function adds the checks that name rows and columns
+    and numbers each split by repeat and fold.
 
     Parameters
     ----------
@@ -288,10 +385,9 @@ def make_splits(frame, scheme: Scheme) -> Splits:
     InvalidDataError
         Empty group cells, a single group, more folds than groups or rows.
     """
-    from sklearn.model_selection import LeaveOneGroupOut, LeaveOneOut, RepeatedKFold
-
     if not isinstance(scheme, Scheme):
-        raise UsageError(f"scheme must be a refit.validate.crossval.Scheme; got {type(scheme).__name__}")
+        raise UsageError(f"scheme must be a refit.validate.crossval.Scheme; got "
+                         f"{type(scheme).__name__}")
     frame, labels, kind = as_frame(frame, dicts=False)
     n, s = len(frame), scheme
     details = {"scheme": s.name, "n_rows": n, "split_seed": s.seed}
@@ -301,30 +397,18 @@ def make_splits(frame, scheme: Scheme) -> Splits:
         raise InvalidDataError(f"scheme {s.name!r}" + (f" with {s.folds} folds" if
                                s.name == "kfold" else "") + f" needs at least {need} rows; "
                                f"the table has {n}")
+    splitter = splitter_for(s)
     if s.name == "kfold":
-        it = RepeatedKFold(n_splits=s.folds, n_repeats=s.repeats, random_state=s.seed)
         details.update(folds=s.folds, repeats=s.repeats)
-        return Splits(_collect(it.split(dummy), s.folds), details)
+        return Splits(_collect(splitter.split(dummy), s.folds), details)
     if s.name == "loo":
-        return Splits(_collect(LeaveOneOut().split(dummy), None), _loo_details(n, s))
-    if s.name == "spatial-block":
-        lat, lon = _coordinates(frame, labels, kind)
-        codes, info = spatial_blocks(lat, lon, block_km=s.block_km,
-                                     n_blocks=BLOCKS_PER_FOLD * s.folds, seed=s.seed)
-        details.update(info)
-        what = (f"a grid of {s.block_km:g} km" if s.block_km is not None
-                else "the coordinates (k-means blocks)")
-        _check_groups(info["n_blocks"], s.folds, what, s.name)
-    else:
-        codes, names = group_codes(frame, s.groups, labels, kind)
-        _check_groups(len(names), None if s.name == "leave-one-group-out" else s.folds,
-                      f"group column {s.groups!r}", s.name)
-        details["groups"] = s.groups
+        return Splits(_collect(splitter.split(dummy), None), _loo_details(n, s))
+    codes = _group_codes_for(frame, s, splitter, labels, kind, details)
     details["n_groups"] = int(codes.max() + 1)
     if s.name == "leave-one-group-out":
         details.update(folds=details["n_groups"], repeats=1)
         if s.repeats > 1:
             details["note"] = "repeats ignored: leave-one-group-out gives the same folds"
-        return Splits(_collect(LeaveOneGroupOut().split(dummy, groups=codes), None), details)
+        return Splits(_collect(splitter.split(dummy, groups=codes), None), details)
     details.update(folds=s.folds, repeats=s.repeats)
-    return Splits(_grouped_kfold(codes, s.folds, s.repeats, s.seed), details)
+    return Splits(_collect(splitter.split(dummy, groups=codes), s.folds), details)

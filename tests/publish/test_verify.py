@@ -181,3 +181,68 @@ def test_verify_registry(scenario, tmp_path):
     with pytest.raises(UnreadableInputError, match="not found"):
         verify_registry(tmp_path / "none")
 
+
+
+# ----------------------------------------------------------------------------- one rebuild
+@pytest.fixture(scope="module")
+def table_run(tmp_path_factory):
+    """A run on a table (invented, seeded soils), with 'leave-one-out' spelled out."""
+    from _harness import invented_soils
+    from refit.select.recipe import read_recipe
+    from refit.validate.candidates import run_recipe
+    from refit.validate.runfolder import write_run
+
+    root = tmp_path_factory.mktemp("table")
+    invented_soils(30, 11, [0, 40, 80]).to_csv(root / "soils.csv", index=False)
+    (root / "recipe.toml").write_text(recipe_toml(
+        data={"store": None, "table": "soils.csv"},
+        validation={"scheme": "leave-one-out"}), encoding="utf-8")
+    run_dir = write_run(run_recipe(read_recipe(root / "recipe.toml")), root / "run")
+    return {"root": root, "run": run_dir, "table": root / "soils.csv",
+            "file": run_dir / "fits" / LINEAR}
+
+
+def test_a_table_based_file_is_accepted_by_verify_and_the_report(table_run):
+    import pandas as pd
+    import statsmodels.api as sm
+
+    from refit.report.inputs import load_run
+
+    report = verify_file(table_run["file"], store=table_run["table"])
+    assert report.ok, report.to_dict()
+    assert "refitted from table 'soils.csv' (30 rows" in report.checks[-1].message
+    for where in (None, table_run["table"]):  # run.json's path, or named
+        inputs = load_run(table_run["run"], candidate="linear/ols/inverse/analytic",
+                          store=where)
+        assert inputs.kept.sum() == 30 and inputs.recipe.scheme == "loo"
+    # Reference: statsmodels OLS of map_mm on bk_depth_cm over the same table
+    soils = pd.read_csv(table_run["table"])
+    ref = sm.OLS(soils["map_mm"], sm.add_constant(soils["bk_depth_cm"])).fit()
+    content = json.loads(table_run["file"].read_text("utf-8"))
+    assert content["coefficients"] == pytest.approx(list(ref.params), rel=1e-9)
+    np_cov = inputs.fit.result.covariance
+    assert np_cov == pytest.approx(ref.cov_params().to_numpy(), rel=1e-8)
+
+
+def test_a_changed_table_gives_the_same_message_in_verify_and_the_report(table_run,
+                                                                          tmp_path):
+    from refit.errors import InvalidDataError
+    from refit.report.inputs import load_run
+
+    changed = tmp_path / "soils.csv"
+    text = table_run["table"].read_text("utf-8")
+    changed.write_text(text.replace("grassland", "Grassland", 1), encoding="utf-8")
+    report = verify_file(table_run["file"], store=changed)
+    assert [c.ok for c in report.checks] == [True, True, True, False]
+    with pytest.raises(InvalidDataError) as exc:
+        load_run(table_run["run"], candidate="linear/ols/inverse/analytic", store=changed)
+    assert report.checks[-1].message == str(exc.value)
+    assert "not the data it was fitted on" in str(exc.value)
+    assert "--store" in str(exc.value)
+
+
+def test_a_store_given_for_a_table_fit_is_named(table_run, scenario):
+    report = verify_file(table_run["file"], store=scenario["store"])
+    assert not report.ok
+    assert "was made on table 'soils.csv'" in report.checks[-1].message
+    assert "is a store" in report.checks[-1].message

@@ -8,7 +8,8 @@ from __future__ import annotations
 import pytest
 
 from refit.errors import InvalidDataError, UnreadableInputError, UsageError
-from refit.select.recipe import check_columns, form_degree, key_lines, read_recipe
+from refit.select.dataset import check_columns
+from refit.select.recipe import form_degree, key_lines, read_recipe
 
 GOOD = """\
 # a comment line
@@ -216,3 +217,27 @@ def test_demo_recipe_parses():
     r = read_recipe("calib_demo/recipe.toml")
     assert r.function_id == "map_from_bk_depth" and r.scheme == "group-kfold"
     assert r.store.name == "store" and len(r.subset) == 3
+
+
+def test_leave_one_out_is_read_as_loo(tmp_path):
+    # 'leave-one-out' is the usual name of the scheme (Allen 1974, Technometrics 16:125)
+    text = edit('scheme = "group-kfold"', 'scheme = "leave-one-out"').replace(
+        'groups = "source"\n', "")
+    r = read_recipe(write(tmp_path, text))
+    assert r.scheme == "loo"
+    assert r.to_dict()["validation"]["scheme"] == "loo"
+
+
+def test_scheme_names_are_shared_with_the_splitters():
+    from refit.select.schemes import ALIASES, GROUPED, NEEDS_GROUP_COLUMN, SCHEMES
+    from refit.validate import splitters
+
+    assert splitters.SCHEMES is SCHEMES and splitters.GROUPED is GROUPED
+    assert set(NEEDS_GROUP_COLUMN) < set(GROUPED) <= set(SCHEMES)
+    assert set(ALIASES.values()) <= set(SCHEMES)
+    assert not set(ALIASES) & set(SCHEMES)
+
+
+def test_unknown_scheme_lists_the_alias(tmp_path):
+    with pytest.raises(UsageError, match=r"one of 'kfold', .*'leave-one-out'.*did you mean"):
+        read_recipe(write(tmp_path, edit('scheme = "group-kfold"', 'scheme = "leave-one-ou"')))
