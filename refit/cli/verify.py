@@ -10,7 +10,8 @@ from refit.cli.common import guarded
 @click.command("verify", short_help="Check a coefficient file or registry; refit from a store.")
 @click.argument("target", type=click.Path(path_type=str))
 @click.option("--store", default=None, metavar="STORE", type=click.Path(path_type=str),
-              help="Calibration store: refit from the recorded dataset version and compare.")
+              help=("Calibration store, or the table file a table-based fit was made on: refit "
+                    "from the recorded dataset version and compare."))
 @click.option("--tolerance", type=click.FloatRange(min=0), default=1e-9, show_default=True,
               help="Largest difference allowed when refitting (relative above 1).")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
