@@ -231,8 +231,9 @@ def print_run(run, out, console=None) -> None:
     c.print(table)
     if len(m.leaderboard) > LEADERBOARD_SHOWN:
         c.print(f"({len(m.leaderboard) - LEADERBOARD_SHOWN} more in leaderboard.csv)")
-    c.print(f"* coverage more than {m.tolerance:.1%} from {r.level:.0%}: ranked after the "
-            "others")
+    if not m.leaderboard["coverage_ok"].all():
+        c.print(f"* coverage below {r.level - m.tolerance:.1%} falls short of {r.level:.0%} "
+                "(one-sided 95% exact binomial bound): ranked after every candidate that covers")
     c.print("R² in, AIC: fitted on the whole subset, each on its equation's own response "
             "(forward fits model the feature): compare AIC only within one direction.")
     c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))

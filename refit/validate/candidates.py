@@ -9,11 +9,16 @@ so the optimism of random cross-validation on clustered soils is visible.
 
 Ranking rule (:func:`rank_candidates`)
 --------------------------------------
-1. A candidate's intervals are *calibrated* when its out-of-fold coverage lies within
-   ``tol = max(0.05, 2 sqrt(level (1 - level) / n))`` of the nominal level, n the number
-   of soils in the subset (two binomial standard errors of a coverage estimated from n
-   rows, floored at 5 points: common practice).
-2. Calibrated candidates come first, ordered by the mean interval score under the
+1. A candidate's intervals *cover* when the data do not show them falling short of the
+   nominal level: the one-sided exact (Clopper-Pearson, 95 %) upper confidence bound of
+   its out-of-fold coverage reaches the nominal level, counting n = the soils of the
+   subset (repeats add no independent soils). Equivalently its coverage is at least
+   :func:`refit.validate.skill.least_passing_coverage` (e.g. 92.5 % for a 95 % interval
+   on 187 soils: a one-sided tolerance of 2.5 percentage points that shrinks as n grows).
+   Over-coverage is not penalised here; the interval score below charges its width.
+   Under a grouped scheme the out-of-fold predictions are of soils from held-out groups,
+   which is how a fossil from a new source is predicted.
+2. Covering candidates come first, ordered by the mean interval score under the
    recipe's scheme (Gneiting & Raftery 2007, JASA 102:359, eq. 43: width plus 2/alpha
    times each miss; lower is better); the others follow, ordered the same way.
 3. Ties go to fewer coefficients, then to the label.
@@ -38,7 +43,6 @@ INTERVAL_ENGINE = {"analytic": "analytic", "bootstrap": "bootstrap-pairs",
                    "cv+": "cv+", "quantile": "quantile"}
 RESAMPLING = ("bootstrap", "split-conformal", "jackknife+", "cv+")
 NEAR_FRACTION = 0.05   # a simpler candidate within 5 % of the winner's score is named
-TOL_FLOOR = 0.05       # coverage tolerance floor
 METRICS = ("rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
            "interval_score", "n")
 
@@ -347,23 +351,30 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
 
 # ----------------------------------------------------------------------------- ranking
 def coverage_tolerance(level: float, n: int) -> float:
-    """``max(0.05, 2 sqrt(level (1 - level) / n))`` (see the module notes)."""
-    se = math.sqrt(level * (1 - level) / n) if n > 0 else float("inf")
-    return max(TOL_FLOOR, 2 * se)
+    """How far below ``level`` [fraction] an out-of-fold coverage of n soils may fall and
+    still not be shown to under-cover (one-sided; see the module notes)."""
+    from refit.validate.skill import least_passing_coverage
+
+    return max(0.0, level - least_passing_coverage(level, n)) if n > 0 else float("inf")
 
 
 def rank_candidates(table, level: float, n: int):
     """Rank a leaderboard table by the documented rule; returns (ranked table, tolerance).
 
     ``table`` needs the columns ``candidate``, ``n_params``, ``coverage`` and
-    ``interval_score``; ``coverage_ok`` and ``rank`` (1 = best) are added.
+    ``interval_score``; ``coverage_upper`` (the one-sided 95 % upper confidence bound of
+    the coverage), ``coverage_ok`` and ``rank`` (1 = best) are added.
     """
+    from refit.validate.skill import coverage_upper_bound
+
     tol = coverage_tolerance(level, n)
     if len(table) == 0:
-        return table.assign(coverage_ok=[], rank=[]), tol
+        return table.assign(coverage_upper=[], coverage_ok=[], rank=[]), tol
     t = table.copy()
     cov = t["coverage"].astype(float)
-    t["coverage_ok"] = ((cov - level).abs() <= tol + 1e-12).fillna(False).astype(bool)
+    t["coverage_upper"] = [coverage_upper_bound(round(c * n), n) if np.isfinite(c) and n > 0
+                           else np.nan for c in cov]
+    t["coverage_ok"] = (t["coverage_upper"] >= level - 1e-12).fillna(False).astype(bool)
     score = t["interval_score"].astype(float).fillna(np.inf)
     t = t.assign(_miss=~t["coverage_ok"], _score=score)
     t = t.sort_values(["_miss", "_score", "n_params", "candidate"], kind="mergesort")
@@ -379,8 +390,10 @@ def _pct(x: float) -> str:
 def explain(board, level: float, tol: float, scheme: str) -> dict:
     """Why the top candidate wins, and a simpler one that is nearly as good (if any)."""
     rule = (f"mean interval score under {scheme} (lower is better) among candidates whose "
-            f"out-of-fold coverage is within {_pct(tol)} of the nominal {_pct(level)}; "
-            "ties to fewer coefficients")
+            f"out-of-fold coverage is not shown to fall short of the nominal {_pct(level)} "
+            f"(at least {_pct(level - tol)}: the one-sided 95% exact binomial bound, "
+            f"{100 * tol:.1f} percentage points below nominal at most); a candidate that "
+            "falls short is never ranked above one that covers; ties to fewer coefficients")
     if len(board) == 0:
         return {"rule": rule, "winner": None, "why": "no candidate could be fitted",
                 "simpler": None, "simpler_why": None}
@@ -389,11 +402,12 @@ def explain(board, level: float, tol: float, scheme: str) -> dict:
     if top["coverage_ok"]:
         why = (f"{top['candidate']} has the lowest mean interval score "
                f"({top['interval_score']:.4g}) under {scheme} of the {n_ok} candidate(s) "
-               f"with coverage within {_pct(tol)} of {_pct(level)} (its coverage "
+               f"whose coverage is not shown to fall short of {_pct(level)} (its coverage "
                f"{_pct(top['coverage'])}, mean width {top['mean_width']:.4g}, RMSEP "
                f"{top['rmsep']:.4g})")
     else:
-        why = (f"no candidate's coverage is within {_pct(tol)} of {_pct(level)}; "
+        why = (f"every candidate's out-of-fold coverage falls short of {_pct(level)} "
+               f"(below {_pct(level - tol)}); "
                f"{top['candidate']} has the lowest mean interval score "
                f"({top['interval_score']:.4g}) but its coverage is {_pct(top['coverage'])}: "
                "treat every interval here as unreliable")

@@ -9,6 +9,8 @@ References
 .. [1] Gneiting, T. & Raftery, A. E. (2007). Strictly proper scoring rules, prediction, and
    estimation. Journal of the American Statistical Association 102(477):359-378, eq. (43)
    (the interval score).
+.. [3] Clopper, C. J. & Pearson, E. S. (1934). The use of confidence or fiducial limits
+   illustrated in the case of the binomial. Biometrika 26(4):404-413 (the exact bound).
 .. [2] Allen, D. M. (1974). The relationship between variable selection and data
    augmentation and a method for prediction. Technometrics 16:125-127 (prediction error
    sum of squares; R^2 of prediction = 1 - PRESS / SS_tot).
@@ -23,7 +25,10 @@ import numpy as np
 from refit.errors import InvalidDataError, UsageError
 
 __all__ = ["rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
-           "interval_score", "skill_scores"]
+           "interval_score", "skill_scores", "coverage_upper_bound", "least_passing_coverage"]
+
+#: Confidence of the one-sided coverage check of the ranking rule (common practice: 95 %).
+COVERAGE_CONFIDENCE = 0.95
 
 
 def _arrays(*arrays, names):
@@ -199,3 +204,48 @@ def skill_scores(obs, pred, lower, upper, level) -> dict:
     else:
         out.update(coverage=nan, mean_width=nan, interval_score=nan)
     return out
+
+
+def coverage_upper_bound(covered: int, n: int, confidence: float = COVERAGE_CONFIDENCE) -> float:
+    """One-sided exact (Clopper-Pearson) upper confidence bound of a coverage.
+
+    Parameters
+    ----------
+    covered, n : int
+        Soils whose observed value fell inside their out-of-fold interval, of ``n`` soils.
+    confidence : float
+        Confidence of the one-sided bound.
+
+    Returns
+    -------
+    float
+        The largest coverage the data do not reject at ``1 - confidence``: the
+        ``confidence`` quantile of Beta(covered + 1, n - covered); 1 when every soil was
+        covered [3]_. An interval whose bound is below its nominal level *under-covers*:
+        an exact one-sided binomial test rejects "coverage >= nominal".
+    """
+    from scipy.stats import beta
+
+    k, n = int(covered), int(n)
+    if n <= 0 or not 0 <= k <= n:
+        raise InvalidDataError(f"a coverage needs 0 <= covered <= n and n > 0; got "
+                               f"covered = {covered}, n = {n}")
+    return 1.0 if k == n else float(beta.ppf(confidence, k + 1, n - k))
+
+
+def least_passing_coverage(level: float, n: int,
+                           confidence: float = COVERAGE_CONFIDENCE) -> float:
+    """The smallest out-of-fold coverage of ``n`` soils not shown to fall short of ``level``.
+
+    ``k / n`` for the smallest ``k`` whose :func:`coverage_upper_bound` reaches ``level``;
+    ``level - least_passing_coverage`` is the ranking rule's one-sided tolerance in
+    percentage points (it shrinks as n grows: about 1.645 binomial standard errors).
+    """
+    from scipy.stats import beta
+
+    n = int(n)
+    if n <= 0:
+        return float("inf")
+    k = np.arange(n)
+    upper = np.append(beta.ppf(confidence, k + 1, n - k), 1.0)
+    return float(np.flatnonzero(upper >= level)[0] / n)

@@ -130,3 +130,20 @@ def test_bad_input_messages():
         skill.interval_score([1.0], [0.0], [2.0], 1.5)
     with pytest.raises(UsageError, match="level"):
         skill.skill_scores([1.0], [1.0], [0.0], [2.0], 95)
+
+
+def test_coverage_upper_bound_is_the_exact_one_sided_bound():
+    # scipy.stats.binomtest (reference library): the two-sided 90 % Clopper-Pearson interval
+    # has the one-sided 95 % upper bound as its upper end
+    from scipy.stats import binomtest
+
+    from refit.validate.skill import coverage_upper_bound, least_passing_coverage
+
+    for k, n in ((170, 187), (91, 100), (9, 10), (0, 5)):
+        ref = binomtest(k, n).proportion_ci(confidence_level=0.90, method="exact").high
+        assert coverage_upper_bound(k, n) == pytest.approx(ref, rel=1e-12)
+    assert coverage_upper_bound(50, 50) == 1.0
+    # 91 of 100 soils covered is the least that passes 95 % (see test_candidates.py)
+    assert least_passing_coverage(0.95, 100) == pytest.approx(0.91)
+    with pytest.raises(InvalidDataError):
+        coverage_upper_bound(11, 10)
