@@ -8,8 +8,9 @@ evaluates a file without pandas, statsmodels or scikit-learn.
 
 from refit.coefficients.format import (  # noqa: F401  (the public names of the format)
     CANDIDATE_VERSION, CAUTION, SCHEMA_VERSION, Equation, Prediction, canonical_bytes,
-    check_schema_version, content_sha256, dumps, json_path, load, plain, read_record, schema, schema_problems, validate, with_hash,
-    write_record,
+    check_content_hash, check_schema, check_schema_version, content_sha256, dumps, json_path,
+    load, parse_bytes, plain, read_bytes, read_file, read_record, schema, schema_problems,
+    validate, with_hash, write_record,
 )
 
 

@@ -10,8 +10,10 @@ the README section "Evaluating a coefficient file"):
 - the stored conformal quantities: split-conformal calibration scores, the leave-one-out
   coefficient vectors of jackknife+, the fold coefficient vectors of CV+ (all exact), and
   the bootstrap summary (an approximation, said so in the file);
-- the classical-calibration inversion of forward fits, through
-  :func:`refit.models.inversion.forward.forward_predict` (imported on first use), shared with ``Fit.predict``.
+- the flags and back-transform of the inverse direction, through
+  :func:`refit.models.finish.inverse_finish`, and the classical-calibration inversion of
+  forward fits, through :func:`refit.models.inversion.forward.forward_predict` (imported
+  on first use): both shared with ``Fit.predict``.
 
 Nothing imports pandas, scipy, statsmodels or scikit-learn at module level; the Student t
 quantile for a level other than the file's own comes from scipy, imported only then.
@@ -21,18 +23,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from refit._util.flagcodes import FLAG_APPROX, FLAG_CROSS, FLAG_INVALID, FLAG_MISSING  # noqa: F401
-from refit._util.flagcodes import bit_codes, joined_names, text_by_code
-from refit.models.inversion.band import FLAG_BEYOND_TP, FLAG_OUTSIDE, FLAG_UNBOUNDED
 from refit._util.order import kth_in_place as _kth_in_place
-from refit._util.order import kth_smallest, rank_lower as _rank_lower
+from refit._util.order import kth_smallest
+from refit._util.order import rank_lower as _rank_lower
 from refit._util.order import rank_upper as _rank_upper
 from refit._util.threads import on_threads
-from refit.models.domain import extrapolation_mask
 from refit.errors import InvalidDataError, UsageError
-
-INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_APPROX,
-                      FLAG_BEYOND_TP)
+from refit.models.finish import INVERSE_FLAG_ORDER, flag_strings, inverse_finish
 
 
 # ----------------------------------------------------------------------------- terms
@@ -90,13 +87,6 @@ def t_quantile(level: float, df: float, stored: dict | None = None) -> float:
     from scipy import stats
 
     return float(stats.t.ppf(0.5 + level / 2.0, df))
-
-
-def flag_strings(masks: dict[str, np.ndarray], order, m: int) -> np.ndarray:
-    """';'-joined flag names per row (object array), built through bit codes (fast)."""
-    names = [nm for nm in order if nm in masks]
-    codes = bit_codes([masks[nm] for nm in names], m)
-    return text_by_code(codes, lambda code: joined_names(names, code))
 
 
 #: (new values x n) elements per block of a jackknife+/CV+ band: 256 KB of float64, kept in
@@ -250,62 +240,6 @@ def _ranges(rec: dict) -> dict:
     return {p["name"]: (p.get("valid_min"), p.get("valid_max")) for p in rec["predictors"]}
 
 
-def inverse_finish(eta, lo, hi, v, *, ok, method: str, ranges, approximate: bool, turning,
-                   log_response: bool, smearing: float):
-    """The flags and the back-transform of an inverse prediction, shared by ``Fit.predict``
-    (:mod:`refit.models.predict`) and the file evaluator, once the band is known.
-
-    Parameters
-    ----------
-    eta, lo, hi : ndarray
-        Estimate and limits on the equation's scale.
-    v : ndarray, shape (m, k)
-        The predictor values.
-    ok : ndarray of bool
-        Rows with every value present.
-    method : str
-        The interval method (``quantile`` may cross; resampled limits may be unbounded).
-    ranges : list of (float or None, float or None)
-        Calibration range of each predictor, in the columns' order.
-    approximate : bool
-        Flag rows with a value ``approximate-interval``.
-    turning : (float or None, int) or None
-        For a quadratic in one predictor: its turning point (None: not in the data's
-        reach) and the side holding the data; None for other forms (no such flag).
-    log_response, smearing : bool, float
-        The equation models ln(response): exponentiate, the estimate times Duan's
-        smearing factor for the analytic, none and published intervals.
-
-    Returns
-    -------
-    eta, lo, hi : ndarray
-        In the response's units.
-    masks : dict
-        Flag name -> boolean mask, in :data:`INVERSE_FLAG_ORDER`.
-    """
-    m = v.shape[0]
-    masks = {FLAG_MISSING: ~ok}
-    if method == "quantile":
-        masks[FLAG_CROSS] = lo > hi
-    elif method not in ("analytic", "none", "published"):
-        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
-    out = np.zeros(m, dtype=bool)
-    for j, (lo_r, hi_r) in enumerate(ranges):
-        out |= extrapolation_mask(v[:, j], lo_r, hi_r)
-    masks[FLAG_OUTSIDE] = out
-    if approximate:
-        masks[FLAG_APPROX] = ok
-    if turning is not None:
-        tp, side = turning
-        with np.errstate(invalid="ignore"):
-            masks[FLAG_BEYOND_TP] = (np.zeros(m, dtype=bool) if tp is None
-                                     else (v[:, 0] - tp) * side < 0)
-    if log_response:
-        smear = smearing if method in ("analytic", "none", "published") else 1.0
-        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
-    return eta, lo, hi, masks
-
-
 def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
     """Inverse direction (climate on feature): estimate, lower, upper, flags."""
     eq = rec["equation"]
@@ -331,7 +265,7 @@ def predict_inverse(rec: dict, v: np.ndarray, level: float, w0):
         log_response=eq["scale"] == "log", smearing=float(eq.get("smearing") or 1.0))
     if method == "published":  # the +- figure is in the response's own units
         lo, hi = published_band(iv, eta)
-    return eta, lo, hi, flag_strings(masks, INVERSE_FLAG_ORDER, m)
+    return eta, lo, hi, flag_strings(masks, m, INVERSE_FLAG_ORDER)
 
 
 def _branch_points(inv: dict) -> np.ndarray | None:

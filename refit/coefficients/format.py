@@ -14,15 +14,17 @@ scikit-learn at import)::
     res = eq.predict([40.0, 120.0])                # estimate, lower, upper, flags
     res.to_frame()                                 # a pandas DataFrame, if wanted
 
-Loading never executes anything from the file: it is parsed as JSON (NaN and infinities
-refused), its ``schema_version`` major checked, the schema validated, and the ``sha256`` of
-the canonical content (keys sorted, no whitespace, UTF-8, without the ``sha256`` key)
-compared with the stored one. Any failure names the file and the JSON path of the field.
+Loading never executes anything from the file. :func:`read_record` is the one reader every
+command uses: the bytes are read (a missing or unreadable path: exit code 2), parsed as a
+JSON object (NaN and infinities refused), the ``sha256`` of the canonical content (keys
+sorted, no whitespace, UTF-8, without the ``sha256`` key) compared with the stored one, its
+``schema_version`` major checked and the schema validated (a file that exists but fails any
+of these is not a coefficient file: exit code 1). Any failure names the file and the JSON
+path of the field.
 """
 
 from __future__ import annotations
 
-import datetime as _dt
 import json
 import math
 from dataclasses import dataclass
@@ -140,9 +142,32 @@ def check_schema_version(content: dict, where: str) -> None:
                                f"({SCHEMA_VERSION}); upgrade refit or re-export the file")
 
 
-def validate(content: dict, *, where: str = "coefficient record",
-             check_hash: bool = True) -> dict:
-    """Check schema version, schema and (optionally) the content hash; return ``content``.
+def check_content_hash(content: dict, where: str) -> None:
+    """Refuse content whose ``sha256`` is missing or is not the hash of the content.
+
+    The hash is :func:`content_sha256`: the README's language-neutral recipe (drop
+    ``sha256``, keys sorted, separators ``,`` and ``:``, UTF-8, SHA-256 hex).
+
+    Raises
+    ------
+    InvalidDataError
+        Naming ``where``, the stored and the computed hash.
+    """
+    stated = content.get("sha256")
+    if not isinstance(stated, str):
+        raise InvalidDataError(f"{where}: $.sha256 is missing or not text; a coefficient file "
+                               "carries the SHA-256 of its content: take the file again "
+                               "from its registry or run")
+    actual = content_sha256(content)
+    if actual != stated:
+        raise InvalidDataError(
+            f"{where}: $.sha256 does not match the content (stored {stated[:12]}..., "
+            f"computed {actual[:12]}...): the file was edited after it was written; take it "
+            "again from its registry or run")
+
+
+def check_schema(content: dict, where: str) -> None:
+    """Schema version (major 1), the JSON Schema, then the cross-field rules.
 
     Raises
     ------
@@ -157,14 +182,24 @@ def validate(content: dict, *, where: str = "coefficient record",
         more = f" (and {len(problems) - 1} more problem(s))" if len(problems) > 1 else ""
         raise InvalidDataError(f"{where}: {path}: {msg}{more}; the file does not follow "
                                f"the coefficient-file schema {SCHEMA_VERSION}")
-    if check_hash:
-        actual = content_sha256(content)
-        if actual != content["sha256"]:
-            raise InvalidDataError(
-                f"{where}: $.sha256 does not match the content (stored "
-                f"{content['sha256'][:12]}..., computed {actual[:12]}...): the file was "
-                "edited after it was written; restore the original or re-export it")
     _check_consistency(content, where)
+
+
+def validate(content: dict, *, where: str = "coefficient record",
+             check_hash: bool = True) -> dict:
+    """Check the content hash (optionally), then the schema; return ``content``.
+
+    The order of the README's recipe and of :func:`read_record`: a file whose hash fails
+    is refused before anything in it is interpreted.
+
+    Raises
+    ------
+    InvalidDataError
+        See :func:`check_content_hash` and :func:`check_schema`.
+    """
+    if check_hash:
+        check_content_hash(content, where)
+    check_schema(content, where)
     return content
 
 
@@ -185,35 +220,89 @@ def _check_consistency(c: dict, where: str) -> None:
 
 
 # ----------------------------------------------------------------------------- files
+#: JSON's names for the Python types :func:`json.loads` returns
+_JSON_TYPES = {"list": "an array", "str": "a string", "int": "a number", "float": "a number",
+               "bool": "true or false", "NoneType": "null"}
+
+
 def _reject_constant(token: str):
     raise ValueError(f"{token} is not allowed in a coefficient file (use null)")
 
 
-def read_record(path) -> dict:
-    """Parse, validate and hash-check a coefficient file; return its content (a dict).
+def read_bytes(path) -> bytes:
+    """The raw bytes of a coefficient file.
 
     Raises
     ------
     UnreadableInputError
-        Missing or unreadable file, or text that is not JSON (e.g. truncated).
-    InvalidDataError
-        Unknown schema version, schema violation or hash mismatch (naming the field).
+        The path does not exist, is a folder or cannot be read (exit code 2).
     """
     path = Path(path)
     try:
-        text = path.read_text("utf-8")
+        return path.read_bytes()
     except FileNotFoundError:
-        raise UnreadableInputError(f"{path}: no such coefficient file; check the path")
-    except (OSError, UnicodeDecodeError) as err:
-        raise UnreadableInputError(f"{path}: cannot be read as UTF-8 text ({err})")
+        raise UnreadableInputError(f"{path}: no such coefficient file; check the "
+                                   "path") from None
+    except IsADirectoryError:
+        raise UnreadableInputError(f"{path}: is a folder, not a coefficient file; name a "
+                                   "file such as <function_id>/<version>.json") from None
+    except OSError as err:
+        raise UnreadableInputError(f"{path}: cannot read the coefficient file "
+                                   f"({err.strerror}); check its permissions") from None
+
+
+def parse_bytes(raw: bytes, where) -> dict:
+    """The JSON object in a coefficient file's bytes; nothing in it is executed.
+
+    Raises
+    ------
+    InvalidDataError
+        The bytes are empty, not UTF-8, not JSON (NaN and infinities refused) or not a
+        JSON object: the file exists but is not a coefficient file (exit code 1).
+    """
+    if not raw.strip():
+        raise InvalidDataError(f"{where}: the file is empty, not a coefficient file; take "
+                               "it again from its registry or run")
     try:
-        content = json.loads(text, parse_constant=_reject_constant)
-    except (json.JSONDecodeError, ValueError) as err:
-        raise UnreadableInputError(f"{path}: not valid JSON ({err}); the file may be "
-                                   "truncated or damaged: restore it from its source")
+        content = json.loads(raw.decode("utf-8"), parse_constant=_reject_constant)
+    except UnicodeDecodeError as err:
+        raise InvalidDataError(f"{where}: not UTF-8 text (byte {err.start}), not a "
+                               "coefficient file; the file is damaged: take it again from "
+                               "its registry or run") from None
+    except ValueError as err:
+        raise InvalidDataError(f"{where}: not valid JSON ({err}); the file is truncated or "
+                               "damaged: take it again from its registry or run") from None
     if not isinstance(content, dict):
-        raise InvalidDataError(f"{path}: $: expected a JSON object, got "
-                               f"{type(content).__name__}")
+        found = _JSON_TYPES.get(type(content).__name__, type(content).__name__)
+        raise InvalidDataError(f"{where}: $: a coefficient file is a JSON object; found "
+                               f"{found}: name a file refit wrote (a run's fits/*.json or a "
+                               "registry's <function_id>/<version>.json)")
+    return content
+
+
+def read_file(path) -> tuple[dict, bytes]:
+    """The JSON content and raw bytes of a coefficient file, not yet checked
+    (:func:`read_bytes`, then :func:`parse_bytes`)."""
+    raw = read_bytes(path)
+    return parse_bytes(raw, str(path)), raw
+
+
+def read_record(path) -> dict:
+    """The one reader of coefficient files: read, parse, check the hash, then the schema.
+
+    Every command that takes a coefficient file (apply, compare, verify, diff, publish)
+    and :func:`load` read it here, so the same bad file gets the same message and exit
+    code everywhere.
+
+    Raises
+    ------
+    UnreadableInputError
+        The path does not exist, is a folder or cannot be read (exit code 2).
+    InvalidDataError
+        The file is empty, not UTF-8, not JSON or not a JSON object; its hash is missing
+        or does not match; unknown schema version or schema violation (exit code 1).
+    """
+    content, _ = read_file(path)
     return validate(content, where=str(path))
 
 
@@ -341,5 +430,5 @@ class Equation:
 
 
 def load(path) -> Equation:
-    """Load a coefficient file (validated and hash-checked); see :func:`read_record`."""
+    """Load a coefficient file (hash-checked and validated by :func:`read_record`)."""
     return Equation(read_record(path), Path(path))

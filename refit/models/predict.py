@@ -1,13 +1,17 @@
 """Apply an in-memory fit to fossil feature values: the engine of ``Fit.predict``.
 
 Input checks (values to an (m, k) float array, weights of new observations), the inverse
-direction's bands (analytic, resampling, quantile curves) and flags, and the forward
-direction through the shared numpy core :func:`refit.models.inversion.forward.forward_predict`.
+direction's bands (analytic, resampling, quantile curves), finished (flags, back-transform)
+by :func:`refit.models.finish.inverse_finish` as the coefficient-file evaluator does, and
+the forward direction through the shared numpy core
+:func:`refit.models.inversion.forward.forward_predict`.
 """
 
 from __future__ import annotations
 
 import numpy as np
+
+from refit.models import finish
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
 
@@ -66,46 +70,9 @@ def _t(level: float, df: float) -> float:
 
 
 def flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
-    """';'-joined flag names per row from boolean masks, as a pandas Categorical
-    (vectorised through bit codes: fast for many rows). ``sort``: categories in
-    lexicographic order, as ``pandas.Categorical`` of the texts would have them."""
-    import pandas as pd
-
-    from refit._util.flagcodes import bit_codes, present_codes
-
-    names = tuple(masks)
-    codes = bit_codes([masks[nm] for nm in names], m)
-    present = present_codes(codes)
-    lookup, dtype = _flag_categories(names, present, sort)
-    # the codes index the categories by construction, so pandas need not check them again
-    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
-
-
-_FLAG_CATEGORIES: dict = {}
-
-
-def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
-    """(code -> category position, Categorical dtype) of the flag combinations present,
-    built once per (names, combinations, order): a handful occur, and building and
-    checking the categories is most of the cost of the flags."""
-    import pandas as pd
-
-    key = (names, present.tobytes(), sort)
-    hit = _FLAG_CATEGORIES.get(key)
-    if hit is not None:
-        return hit
-    from refit._util.flagcodes import joined_names
-
-    text = [joined_names(names, int(code)) for code in present]
-    if sort:
-        order = sorted(range(len(text)), key=text.__getitem__)
-        present, text = present[order], [text[i] for i in order]
-    lookup = np.zeros(1 << len(names), dtype=np.int64)
-    lookup[present] = np.arange(len(present))
-    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
-        _FLAG_CATEGORIES.clear()
-    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
-    return hit
+    """';'-joined flag names per row as a pandas Categorical: the one flag-text builder,
+    :func:`refit.models.finish.flag_strings`, asked for a Categorical."""
+    return finish.flag_strings(masks, m, categorical=True, sort=sort)
 
 
 _COLUMN_INDEXES: dict = {}
@@ -234,8 +201,6 @@ def _quantile_band(fit, X0, level):
 
 
 def _predict_inverse(fit, v, level, interval, w0, opts):
-    from refit.coefficients.evaluate import inverse_finish
-
     m = v.shape[0]
     ok = ~np.isnan(v).any(axis=1)
     X0 = fit.form.design(v)
@@ -251,13 +216,13 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
     if fit.form.degree == 2 and v.shape[1] == 1:
         dom = fit._core_domain()
         turning = (dom.turning_point, dom.data_side)
-    eta, lo, hi, masks = inverse_finish(
+    eta, lo, hi, masks = finish.inverse_finish(
         eta, lo, hi, v, ok=ok, method=interval,
         ranges=[fit.ranges[name] for name in fit.x_names],
         approximate=interval == "analytic" and bool(
             fit.result.details.get("approximate_interval")),
         turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
-    return eta, lo, hi, flag_strings(masks, m)
+    return eta, lo, hi, finish.flag_strings(masks, m, categorical=True)
 
 
 def _predict_forward(fit, v, level, interval, w0):

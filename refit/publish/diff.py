@@ -200,11 +200,13 @@ def diff_files(path_a, path_b, *, at=None, level=None) -> dict:
     Raises
     ------
     UnreadableInputError
-        A file is missing or not JSON.
+        A path does not exist or cannot be read.
     InvalidDataError
-        A file's hash or schema is wrong.
+        A file is not a coefficient file: empty, not JSON, not an object, or its hash or
+        schema is wrong (:func:`refit.coefficients.format.read_record`).
     """
-    from refit.publish.registry import read_record, required_bump
+    from refit.coefficients.format import read_record
+    from refit.publish.registry import required_bump
 
     a, b = read_record(path_a), read_record(path_b)
     bump, changes = required_bump(a, b)

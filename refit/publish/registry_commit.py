@@ -1,16 +1,18 @@
 """How a publish lands safely: the registry lock, the publish journal, crash recovery.
 
-Used by :mod:`refit.publish.registry` (which re-exports :data:`PENDING` and
-:data:`LOCK_TIMEOUT_S`). A publish holds ``REGISTRY/.lock`` and then
+Used by :mod:`refit.publish.registry` (which re-exports :data:`PENDING`,
+:data:`LOCK_TIMEOUT_S` and :func:`open_registry`); imports only the layout
+(:mod:`refit.publish.registry_layout`). A publish holds ``REGISTRY/.lock`` and then
 
 1. writes the new index entry to the journal ``REGISTRY/.publishing.json``;
 2. writes the coefficient file (atomically) and makes it read-only;
 3. rewrites ``index.json`` (atomically) with the entry added;
 4. removes the journal.
 
-The next command that opens the registry (:func:`recover_locked`) finishes a publish whose
-file had landed (adds the entry to the index) or drops one whose file had not, removes
-stale temporary files (``TMP_PREFIX*``) and says what it did.
+The next command that opens the registry (:func:`open_registry`, through
+:func:`recover_locked`) finishes a publish whose file had landed (adds the entry to the
+index) or drops one whose file had not, removes stale temporary files (``TMP_PREFIX*``) and
+says what it did.
 """
 
 from __future__ import annotations
@@ -21,6 +23,8 @@ from pathlib import Path
 
 from refit._util.atomic import TMP_PREFIX, sha256_bytes, write_text_atomic
 from refit.errors import RefitError
+from refit.publish.registry_layout import (INDEX, INDEX_FORMAT, Registry, empty_index,
+                                           read_index)
 
 PENDING = ".publishing.json"                 # journal of a publish in progress
 LOCK_FILE = ".lock"
@@ -54,10 +58,30 @@ class RegistryLock:
         self.lock.release()
 
 
+def open_registry(path, *, create: bool = False, _held: bool = False) -> Registry:
+    """Read a registry's index, first finishing or undoing an interrupted publish.
+
+    Parameters
+    ----------
+    path : str or Path
+    create : bool
+        Accept a folder that does not exist yet or is empty (a new registry).
+
+    Raises
+    ------
+    UnreadableInputError
+        The folder is missing (and ``create`` is false), is not a registry, or its index
+        is not readable JSON (:func:`refit.publish.registry_layout.read_index`).
+    """
+    path = Path(path)
+    recovered = recover_locked(path, _held) if needs_recovery(path) else []
+    reg = read_index(path, create)
+    reg.recovered = recovered
+    return reg
+
+
 def write_index(reg) -> None:
     """Rewrite ``reg.path/index.json`` atomically from ``reg.index``."""
-    from refit.publish.registry import INDEX
-
     text = json.dumps(reg.index, indent=1, ensure_ascii=False, sort_keys=False) + "\n"
     write_text_atomic(reg.path / INDEX, text)
 
@@ -67,8 +91,6 @@ def commit(reg, function_id: str, target: Path, text: str, entry: dict) -> None:
 
     The caller holds the lock; ``reg`` is the registry opened under it.
     """
-    from refit.publish.registry import INDEX_FORMAT
-
     journal = {"function_id": function_id, "entry": entry}
     write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
     write_text_atomic(target, text)
@@ -117,16 +139,13 @@ def recover(path: Path) -> list[str]:
 
 def _replay_journal(path: Path, marker: Path) -> list[str]:
     """Add the journal's entry to the index if its file landed intact; say what happened."""
-    from refit.publish.registry import INDEX, Registry, _empty_index, _open_index
-
     try:
         plan = json.loads(marker.read_text("utf-8"))
         fid, entry = plan["function_id"], plan["entry"]
         target = Registry(path).file(fid, entry["version"])
     except (OSError, ValueError, KeyError, TypeError, RefitError):
         return [f"removed an unreadable publish journal {PENDING}"]
-    reg = _open_index(path, False) if (path / INDEX).is_file() else Registry(path,
-                                                                           _empty_index())
+    reg = read_index(path) if (path / INDEX).is_file() else Registry(path, empty_index())
     what = f"recovered an interrupted publish of {fid} {entry['version']}"
     landed = target.is_file() and sha256_bytes(target.read_bytes()) == entry.get("file_sha256")
     if any(e.get("version") == entry["version"] for e in reg.versions(fid)):

@@ -2,21 +2,23 @@
 
 Used by :func:`refit.publish.registry.publish` (a function's index and files must agree before a
 new version lands) and by :func:`refit.publish.verify.verify_registry`; re-exported from
-:mod:`refit.publish.registry`. Each problem is one plain sentence naming the file.
+:mod:`refit.publish.registry`. Each problem is one plain sentence naming the file. Files are
+read by the one coefficient-file reader (:func:`refit.coefficients.format.read_file`).
 """
 
 from __future__ import annotations
 
 from refit._util.atomic import sha256_bytes
+from refit.coefficients.format import read_file
 from refit.errors import RefitError
+from refit.publish.registry_commit import open_registry
+from refit.publish.registry_layout import INDEX
 
 
 def function_problems(reg, function_id: str) -> list[str]:
     """How the index and the files of one function disagree (empty when they agree).
 
-    ``reg`` is an open :class:`refit.publish.registry.Registry`."""
-    from refit.publish.registry import INDEX
-
+    ``reg`` is an open :class:`refit.publish.registry_layout.Registry`."""
     entries = reg.versions(function_id)
     listed = {e.get("version"): e for e in entries}
     folder = reg.path / function_id
@@ -31,12 +33,10 @@ def function_problems(reg, function_id: str) -> list[str]:
 
 
 def _entry_problems(reg, fid: str, entry: dict) -> list[str]:
-    from refit.publish.registry import INDEX, parse_record
-
     path = reg.file(fid, entry["version"])
     rel = f"{fid}/{entry['version']}.json"
     try:
-        content, raw = parse_record(path)
+        content, raw = read_file(path)
     except RefitError as exc:
         return [f"{rel}: {exc}"]
     out = []
@@ -53,8 +53,6 @@ def _entry_problems(reg, fid: str, entry: dict) -> list[str]:
 
 def registry_problems(registry) -> list[str]:
     """Every disagreement between a registry's index and its files."""
-    from refit.publish.registry import open_registry
-
     reg = open_registry(registry)
     fids = set(reg.index.get("functions", {}))
     fids |= {p.name for p in reg.path.iterdir() if p.is_dir() and not p.name.startswith(".")}

@@ -1,15 +1,21 @@
 """Verifying coefficient files: integrity, schema, and reproduction from the store.
 
-:func:`verify_file` runs these checks in order and stops at the first integrity failure
-(a damaged file is never evaluated):
+:func:`verify_file` reads the file with the one coefficient-file reader
+(:func:`refit.coefficients.format.read_file`: a missing path is exit code 2; empty, not JSON
+or not an object is exit code 1, with the same message as every other command) and runs
+these checks in order, stopping at the first integrity failure (a damaged file is never
+evaluated):
 
 ``sha256``
-    the content hash (keys sorted, compact, UTF-8, without ``sha256``) matches the field;
-``bytes``
-    the bytes are exactly as refit writes that content (:func:`refit.publish.registry.file_text`),
-    so an edit that leaves the content alone (a space, a line end) is caught too;
+    the content hash (keys sorted, compact, UTF-8, without ``sha256``) matches the field
+    (:func:`refit.coefficients.format.check_content_hash`);
 ``schema``
-    the JSON Schema of coefficient files, when :mod:`refit.coefficients` provides it;
+    the schema version and the JSON Schema of coefficient files
+    (:func:`refit.coefficients.format.check_schema`);
+``bytes``
+    the bytes are exactly as refit writes that content (:func:`refit.coefficients.format.dumps`),
+    so an edit that leaves the content alone (a space, a line end) is caught too.
+
 ``reproduce`` (given a store, or the table a fit was made on)
     the recorded data set is rebuilt by :func:`refit.select.dataset.dataset_from_record`
     (a store version from :meth:`refit.curate.store.Store.records_at`, or the table; the
@@ -19,6 +25,10 @@
     (coefficients, covariance, residual standard error, degrees of freedom, n, R^2, Duan's
     smearing factor and the interval's stored quantities) must agree within ``tol``:
     ``|a - b| <= tol * max(1, |b|)`` with ``tol = 1e-9``.
+
+The first two are the reader's own checks in the reader's order, so a file that
+:func:`refit.coefficients.load` or any command refuses fails here with the same message;
+``bytes`` is verify's own, stricter check.
 
 :func:`verify_registry` adds the agreement of a registry's index with its files.
 """
@@ -74,11 +84,13 @@ def verify_file(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
     Raises
     ------
     UnreadableInputError
-        The file (or the store) is missing or is not JSON: nothing can be checked.
+        The file (or the store) is missing or cannot be read: nothing can be checked.
+    InvalidDataError
+        The file is empty, not UTF-8, not JSON or not a JSON object.
     """
-    from refit.publish.registry import parse_record
+    from refit.coefficients.format import read_file
 
-    content, raw = parse_record(path)
+    content, raw = read_file(path)
     report = VerifyReport(str(path), integrity_checks(content, raw, str(path)))
     if store is not None and report.ok:
         report.checks.append(reproduce_check(content, store, tol=tol, name=str(path)))
@@ -87,20 +99,20 @@ def verify_file(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
 
 def verify_bytes(raw: bytes, name: str = "<bytes>") -> VerifyReport:
     """:func:`verify_file` on a file's bytes, without a store (raises as it does)."""
-    from refit.publish.registry import parse_bytes
+    from refit.coefficients.format import parse_bytes
 
     return VerifyReport(name, integrity_checks(parse_bytes(raw, name), raw, name))
 
 
 def integrity_checks(content: dict, raw: bytes, name: str) -> list:
-    """``sha256``, ``bytes``, ``schema`` in order, stopping at the first failure."""
-    from refit.publish.registry import check_hash, file_text, validate_schema
+    """``sha256``, ``schema``, ``bytes`` in order, stopping at the first failure."""
+    from refit.coefficients.format import check_content_hash, check_schema, dumps
 
-    steps = (("sha256", lambda: check_hash(content, name),
+    steps = (("sha256", lambda: check_content_hash(content, name),
               f"content hash matches ({str(content.get('sha256'))[:12]}...)"),
-             ("bytes", lambda: _same_bytes(raw, file_text(content), name),
-              "bytes are exactly as refit writes this content"),
-             ("schema", lambda: validate_schema(content, name), "schema valid"))
+             ("schema", lambda: check_schema(content, name), "schema valid"),
+             ("bytes", lambda: _same_bytes(raw, dumps(content), name),
+              "bytes are exactly as refit writes this content"))
     checks = []
     for check, fn, ok_message in steps:
         try:
@@ -271,7 +283,7 @@ def verify_registry(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport
     for file in sorted(reg.path.glob("*/*.json")):
         try:
             sub = verify_file(file, store=store, tol=tol)
-        except UnreadableInputError as exc:
+        except RefitError as exc:  # unreadable, or not a coefficient file at all
             report.checks.append(Check("read", False, str(exc), str(file)))
             continue
         report.checks += sub.checks

@@ -69,7 +69,7 @@ def test_publish_verify_diff(world, tmp_path):
 def test_verify_exit_codes(world, tmp_path):
     _, fits = world
     res = invoke(verify, tmp_path / "none.json")
-    assert res.exit_code == 2 and "not found" in res.output
+    assert res.exit_code == 2 and "no such coefficient file" in res.output
     edited = tmp_path / "edited.json"
     edited.write_text((fits / LINEAR).read_text("utf-8").replace('"n": ', '"n": 1', 1))
     res = invoke(verify, edited)

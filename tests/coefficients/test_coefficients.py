@@ -191,12 +191,12 @@ def test_unknown_schema_version(good):
 def test_truncated_missing_and_nan_files(good, tmp_path):
     text = good.read_text("utf-8")
     good.write_text(text[: len(text) // 2], "utf-8")
-    with pytest.raises(UnreadableInputError, match="not valid JSON.*truncated"):
+    with pytest.raises(InvalidDataError, match="not valid JSON.*truncated"):
         load(good)
     with pytest.raises(UnreadableInputError, match="no such coefficient file"):
         load(tmp_path / "absent.json")
     good.write_text(text.replace('"r_squared": ', '"r_squared": NaN, "x": '), "utf-8")
-    with pytest.raises(UnreadableInputError, match="NaN is not allowed"):
+    with pytest.raises(InvalidDataError, match="NaN is not allowed"):
         load(good)
 
 

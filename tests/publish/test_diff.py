@@ -17,7 +17,7 @@ import pytest
 from scipy import stats
 
 from _harness import make_fits, recipe_toml
-from refit.publish import registry as reg
+from refit.coefficients import dumps
 from refit._util.resources import demo_dir
 from refit.publish.diff import diff_files, reference_grid
 from refit.errors import InvalidDataError, UnreadableInputError
@@ -119,6 +119,6 @@ def test_bad_files(pair, tmp_path):
     content = _load(a / LINEAR)
     content["n"] += 1
     bad = tmp_path / "bad.json"
-    bad.write_text(reg.file_text(content), encoding="utf-8")
+    bad.write_text(dumps(content), encoding="utf-8")
     with pytest.raises(InvalidDataError, match="sha256"):
         diff_files(a / LINEAR, bad)

@@ -13,9 +13,10 @@ from pathlib import Path
 import pytest
 
 from _harness import make_fits, recipe_toml
+from refit.coefficients import content_sha256, dumps
 from refit.publish import registry as reg
 from refit._util.resources import demo_dir
-from refit.errors import RefitError, UnreadableInputError
+from refit.errors import InvalidDataError, RefitError, UnreadableInputError
 from refit.publish.verify import verify_bytes, verify_file, verify_registry
 
 RECIPE = recipe_toml(
@@ -52,7 +53,7 @@ def scenario(tmp_path_factory):
 def test_published_file_passes_integrity(scenario):
     report = verify_file(scenario["published"])
     assert report.ok
-    assert [c.name for c in report.checks] == ["sha256", "bytes", "schema"]
+    assert [c.name for c in report.checks] == ["sha256", "schema", "bytes"]
 
 
 def test_every_single_byte_change_is_detected(scenario):
@@ -78,27 +79,28 @@ def test_layout_only_edit_is_named(scenario, tmp_path):
     edited = tmp_path / "f.json"
     edited.write_bytes(raw.replace(b'\n "function_id"', b'\n  "function_id"', 1))
     report = verify_file(edited)
-    assert [(c.name, c.ok) for c in report.checks] == [("sha256", True), ("bytes", False)]
-    assert "content hash still matches" in report.checks[1].message
-    assert "line 3" in report.checks[1].message
+    assert [(c.name, c.ok) for c in report.checks] == [("sha256", True), ("schema", True),
+                                                       ("bytes", False)]
+    assert "content hash still matches" in report.checks[2].message
+    assert "line 3" in report.checks[2].message
 
 
 def test_edited_number_fails_hash_and_names_field(scenario, tmp_path):
     content = json.loads(Path(scenario["published"]).read_text("utf-8"))
     content["coefficients"][1] *= 1.01
     edited = tmp_path / "f.json"
-    edited.write_text(reg.file_text(content), encoding="utf-8")
+    edited.write_text(dumps(content), encoding="utf-8")
     report = verify_file(edited)
     assert not report.ok and report.checks[0].name == "sha256"
-    assert "'sha256' does not match" in report.checks[0].message
+    assert "$.sha256 does not match" in report.checks[0].message
 
 
 def test_unreadable_file(tmp_path, scenario):
-    with pytest.raises(UnreadableInputError, match="not found"):
+    with pytest.raises(UnreadableInputError, match="no such coefficient file"):
         verify_file(tmp_path / "missing.json")
     cut = tmp_path / "cut.json"
     cut.write_bytes(Path(scenario["published"]).read_bytes()[:500])
-    with pytest.raises(UnreadableInputError, match="not valid JSON"):
+    with pytest.raises(InvalidDataError, match="not valid JSON"):   # exists: invalid data
         verify_file(cut)
 
 
@@ -127,17 +129,17 @@ def test_reproduces_every_kind_of_candidate(scenario, name):
 def test_a_changed_coefficient_with_a_valid_hash_does_not_reproduce(scenario, tmp_path):
     content = json.loads(Path(scenario["published"]).read_text("utf-8"))
     content["coefficients"][0] += 1e-6 * abs(content["coefficients"][0])   # beyond 1e-9
-    content["sha256"] = reg.content_sha256(content)
+    content["sha256"] = content_sha256(content)
     forged = tmp_path / "forged.json"
-    forged.write_text(reg.file_text(content), encoding="utf-8")
+    forged.write_text(dumps(content), encoding="utf-8")
     report = verify_file(forged, store=scenario["store"])
     assert [c.ok for c in report.checks] == [True, True, True, False]
     assert "coefficients[0]" in report.checks[-1].message
     # but within the tolerance it is accepted
     content["coefficients"][0] = json.loads(
         Path(scenario["published"]).read_text("utf-8"))["coefficients"][0] * (1 + 1e-12)
-    content["sha256"] = reg.content_sha256(content)
-    forged.write_text(reg.file_text(content), encoding="utf-8")
+    content["sha256"] = content_sha256(content)
+    forged.write_text(dumps(content), encoding="utf-8")
     assert verify_file(forged, store=scenario["store"]).ok
 
 
@@ -159,9 +161,9 @@ def test_other_store_or_edited_store_is_refused(scenario, tmp_path):
 def test_file_without_recipe_cannot_be_refitted(scenario, tmp_path):
     content = json.loads(Path(scenario["published"]).read_text("utf-8"))
     content["provenance"]["recipe"] = None
-    content["sha256"] = reg.content_sha256(content)
+    content["sha256"] = content_sha256(content)
     f = tmp_path / "f.json"
-    f.write_text(reg.file_text(content), encoding="utf-8")
+    f.write_text(dumps(content), encoding="utf-8")
     report = verify_file(f, store=scenario["store"])
     assert not report.ok and "does not record its recipe" in report.checks[-1].message
 

@@ -277,11 +277,3 @@ def _bound_line_masks(est, lo, hi, unbounded: bool, bounds):
              FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
     return est, lo, hi, masks
 
-
-def __getattr__(name):
-    # predict_fit moved to refit.models.predict; kept reachable here
-    if name == "predict_fit":
-        from refit.models.predict import predict_fit
-
-        return predict_fit
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -1,0 +1,155 @@
+"""The shared tail of a prediction, once its band is known: flags, back-transform, flag texts.
+
+Two paths predict the inverse direction (climate on feature): ``Fit.predict`` on an
+in-memory fit (:mod:`refit.models.predict`) and the coefficient-file evaluator
+(:mod:`refit.coefficients.evaluate`). Each forms its own band; both then finish here, so a
+file and the fit it came from flag and back-transform the same rows the same way.
+
+Numpy and the standard library only at module level (the coefficient-file consumer imports
+this module); pandas is imported inside :func:`flag_strings` only when a Categorical is
+asked for, which the file evaluator never does.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from refit._util.flagcodes import (
+    FLAG_APPROX,
+    FLAG_CROSS,
+    FLAG_MISSING,
+    bit_codes,
+    joined_names,
+    present_codes,
+    text_by_code,
+)
+from refit.models.domain import extrapolation_mask
+from refit.models.inversion.band import FLAG_BEYOND_TP, FLAG_OUTSIDE, FLAG_UNBOUNDED
+
+#: order of the inverse direction's flags in a row's ';'-joined text
+INVERSE_FLAG_ORDER = (FLAG_MISSING, FLAG_CROSS, FLAG_UNBOUNDED, FLAG_OUTSIDE, FLAG_APPROX,
+                      FLAG_BEYOND_TP)
+
+_UNBOUNDED_FREE = ("analytic", "none", "published")
+
+
+def inverse_finish(eta, lo, hi, v, *, ok, method: str, ranges, approximate: bool, turning,
+                   log_response: bool, smearing: float):
+    """The flags and the back-transform of an inverse prediction, shared by ``Fit.predict``
+    (:mod:`refit.models.predict`) and the file evaluator, once the band is known.
+
+    Parameters
+    ----------
+    eta, lo, hi : ndarray
+        Estimate and limits on the equation's scale.
+    v : ndarray, shape (m, k)
+        The predictor values.
+    ok : ndarray of bool
+        Rows with every value present.
+    method : str
+        The interval method (``quantile`` may cross; resampled limits may be unbounded).
+    ranges : list of (float or None, float or None)
+        Calibration range of each predictor, in the columns' order.
+    approximate : bool
+        Flag rows with a value ``approximate-interval``.
+    turning : (float or None, int) or None
+        For a quadratic in one predictor: its turning point (None: not in the data's
+        reach) and the side holding the data; None for other forms (no such flag).
+    log_response, smearing : bool, float
+        The equation models ln(response): exponentiate, the estimate times Duan's
+        smearing factor for the analytic, none and published intervals.
+
+    Returns
+    -------
+    eta, lo, hi : ndarray
+        In the response's units.
+    masks : dict
+        Flag name -> boolean mask, in :data:`INVERSE_FLAG_ORDER`.
+
+    References
+    ----------
+    Duan, N. (1983). Smearing estimate: a nonparametric retransformation method. Journal
+    of the American Statistical Association 78(383), 605-610.
+    """
+    m = v.shape[0]
+    masks = {FLAG_MISSING: ~ok}
+    if method == "quantile":
+        masks[FLAG_CROSS] = lo > hi
+    elif method not in _UNBOUNDED_FREE:
+        masks[FLAG_UNBOUNDED] = ok & ~(np.isfinite(lo) & np.isfinite(hi))
+    out = np.zeros(m, dtype=bool)
+    for j, (lo_r, hi_r) in enumerate(ranges):
+        out |= extrapolation_mask(v[:, j], lo_r, hi_r)
+    masks[FLAG_OUTSIDE] = out
+    if approximate:
+        masks[FLAG_APPROX] = ok
+    if turning is not None:
+        tp, side = turning
+        with np.errstate(invalid="ignore"):
+            masks[FLAG_BEYOND_TP] = (np.zeros(m, dtype=bool) if tp is None
+                                     else (v[:, 0] - tp) * side < 0)
+    if log_response:
+        smear = smearing if method in _UNBOUNDED_FREE else 1.0
+        eta, lo, hi = np.exp(eta) * smear, np.exp(lo), np.exp(hi)
+    return eta, lo, hi, masks
+
+
+def flag_strings(masks: dict, m: int, order=None, *, categorical: bool = False,
+                 sort: bool = False):
+    """';'-joined flag names per row from boolean masks, through one bit code per row.
+
+    Parameters
+    ----------
+    masks : dict
+        Flag name -> boolean mask of shape (m,).
+    m : int
+        Number of rows.
+    order : sequence of str, optional
+        Order of the names in a row's text (names without a mask are skipped); default
+        the masks' own order.
+    categorical : bool
+        Return a ``pandas.Categorical`` (one category per combination present) instead
+        of an object array of str; pandas is imported only then.
+    sort : bool
+        With ``categorical``: categories in lexicographic order, as
+        ``pandas.Categorical`` of the texts would have them.
+
+    Returns
+    -------
+    ndarray of str (object) or pandas.Categorical
+        The same texts either way.
+    """
+    names = tuple(masks) if order is None else tuple(nm for nm in order if nm in masks)
+    codes = bit_codes([masks[nm] for nm in names], m)
+    if not categorical:
+        return text_by_code(codes, lambda code: joined_names(names, code))
+    import pandas as pd
+
+    lookup, dtype = _flag_categories(names, present_codes(codes), sort)
+    # the codes index the categories by construction, so pandas need not check them again
+    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
+
+
+_FLAG_CATEGORIES: dict = {}
+
+
+def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
+    """(code -> category position, Categorical dtype) of the flag combinations present,
+    built once per (names, combinations, order): a handful occur, and building and
+    checking the categories is most of the cost of the flags."""
+    import pandas as pd
+
+    key = (names, present.tobytes(), sort)
+    hit = _FLAG_CATEGORIES.get(key)
+    if hit is not None:
+        return hit
+    text = [joined_names(names, int(code)) for code in present]
+    if sort:
+        order = sorted(range(len(text)), key=text.__getitem__)
+        present, text = present[order], [text[i] for i in order]
+    lookup = np.zeros(1 << len(names), dtype=np.int64)
+    lookup[present] = np.arange(len(present))
+    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
+        _FLAG_CATEGORIES.clear()
+    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
+    return hit
