@@ -164,7 +164,7 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     estimates = out / "estimates.csv"
     write_text_atomic(estimates, result.applied.results.to_csv(index=False))
     result.outputs["fossil estimates"] = estimates
-    say(f"[bold]6. Compare[/bold] the intervals fit by fit")
+    say("[bold]6. Compare[/bold] the intervals fit by fit")
     result.comparison = comparison_table(result.applied.results)
     folder = out / "compare"
     write_text_atomic(folder / "comparison.csv", result.comparison.to_csv(index=False))

@@ -43,7 +43,6 @@ def stage(module: str) -> str:
     return parts[1] if len(parts) > 1 else ""
 
 
-@pytest.mark.xfail(strict=True, reason="the last circles are being broken on their branches")
 def test_import_linter_contracts_are_kept():
     run = _lint(ROOT)
     assert run.returncode == 0, run.stdout[-4000:] + run.stderr[-2000:]
@@ -103,7 +102,6 @@ def _cycles(graph) -> list[list[str]]:
     return out
 
 
-@pytest.mark.xfail(strict=True, reason="the last circles are being broken on their branches")
 def test_no_import_circles(graph):
     assert _cycles(graph) == []
 

@@ -24,7 +24,7 @@ from pathlib import Path
 import pytest
 
 from _harness import (LINEAR, QUADRATIC, cli, copy_demo_store, make_fits, n_runs,
-                      publish_all, run, run_killed, snapshot, timed_run, visible)
+                      publish_all, run_killed, snapshot, timed_run, visible)
 from refit._util.resources import demo_dir
 
 INCOMING = demo_dir() / "incoming_soils.csv"

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import math
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -58,13 +59,9 @@ def plain(value):
         return float(value) if math.isfinite(value) else None
     if value is None or isinstance(value, str):
         return value
-    try:
-        import pandas as pd
-
-        if value is pd.NA or value is pd.NaT:
-            return None
-    except ImportError:  # pragma: no cover
-        pass
+    pd = sys.modules.get("pandas")  # a pandas missing value exists only if pandas is loaded
+    if pd is not None and (value is pd.NA or value is pd.NaT):
+        return None
     return str(value)
 
 

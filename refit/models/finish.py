@@ -6,7 +6,7 @@ in-memory fit (:mod:`refit.models.predict`) and the coefficient-file evaluator
 file and the fit it came from flag and back-transform the same rows the same way.
 
 Numpy and the standard library only at module level (the coefficient-file consumer imports
-this module); pandas is imported inside :func:`flag_strings` only when a Categorical is
+this module); pandas is never imported here: the Categorical form of the flags is
 asked for, which the file evaluator never does.
 """
 
@@ -20,7 +20,6 @@ from refit._util.flagcodes import (
     FLAG_MISSING,
     bit_codes,
     joined_names,
-    present_codes,
     text_by_code,
 )
 from refit.models.domain import extrapolation_mask
@@ -94,8 +93,13 @@ def inverse_finish(eta, lo, hi, v, *, ok, method: str, ranges, approximate: bool
     return eta, lo, hi, masks
 
 
-def flag_strings(masks: dict, m: int, order=None, *, categorical: bool = False,
-                 sort: bool = False):
+def flag_codes(masks: dict, m: int, order=None) -> tuple[tuple, np.ndarray]:
+    """(names in order, one bit code per row) of boolean flag masks."""
+    names = tuple(masks) if order is None else tuple(nm for nm in order if nm in masks)
+    return names, bit_codes([masks[nm] for nm in names], m)
+
+
+def flag_strings(masks: dict, m: int, order=None) -> np.ndarray:
     """';'-joined flag names per row from boolean masks, through one bit code per row.
 
     Parameters
@@ -107,49 +111,12 @@ def flag_strings(masks: dict, m: int, order=None, *, categorical: bool = False,
     order : sequence of str, optional
         Order of the names in a row's text (names without a mask are skipped); default
         the masks' own order.
-    categorical : bool
-        Return a ``pandas.Categorical`` (one category per combination present) instead
-        of an object array of str; pandas is imported only then.
-    sort : bool
-        With ``categorical``: categories in lexicographic order, as
-        ``pandas.Categorical`` of the texts would have them.
 
     Returns
     -------
-    ndarray of str (object) or pandas.Categorical
-        The same texts either way.
+    ndarray of str (object)
+        The texts; :func:`refit.models.predict.flag_categorical` gives the same texts as a
+        pandas Categorical (numpy only here: the coefficient-file consumer imports this).
     """
-    names = tuple(masks) if order is None else tuple(nm for nm in order if nm in masks)
-    codes = bit_codes([masks[nm] for nm in names], m)
-    if not categorical:
-        return text_by_code(codes, lambda code: joined_names(names, code))
-    import pandas as pd
-
-    lookup, dtype = _flag_categories(names, present_codes(codes), sort)
-    # the codes index the categories by construction, so pandas need not check them again
-    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
-
-
-_FLAG_CATEGORIES: dict = {}
-
-
-def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
-    """(code -> category position, Categorical dtype) of the flag combinations present,
-    built once per (names, combinations, order): a handful occur, and building and
-    checking the categories is most of the cost of the flags."""
-    import pandas as pd
-
-    key = (names, present.tobytes(), sort)
-    hit = _FLAG_CATEGORIES.get(key)
-    if hit is not None:
-        return hit
-    text = [joined_names(names, int(code)) for code in present]
-    if sort:
-        order = sorted(range(len(text)), key=text.__getitem__)
-        present, text = present[order], [text[i] for i in order]
-    lookup = np.zeros(1 << len(names), dtype=np.int64)
-    lookup[present] = np.arange(len(present))
-    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
-        _FLAG_CATEGORIES.clear()
-    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
-    return hit
+    names, codes = flag_codes(masks, m, order)
+    return text_by_code(codes, lambda code: joined_names(names, code))

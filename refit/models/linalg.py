@@ -10,7 +10,6 @@ basis Q of the design as given.
 
 from __future__ import annotations
 
-import contextlib
 import functools
 
 import numpy as np

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from refit._util.flagcodes import joined_names, present_codes
 from refit.models import finish
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
@@ -69,10 +70,44 @@ def _t(level: float, df: float) -> float:
     return float(stats.t.ppf(0.5 + level / 2.0, df))
 
 
-def flag_strings(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
-    """';'-joined flag names per row as a pandas Categorical: the one flag-text builder,
-    :func:`refit.models.finish.flag_strings`, asked for a Categorical."""
-    return finish.flag_strings(masks, m, categorical=True, sort=sort)
+def flag_categorical(masks: dict[str, np.ndarray], m: int, *, sort: bool = False):
+    """';'-joined flag names per row as a pandas Categorical (one category per combination
+    present): the texts of :func:`refit.models.finish.flag_strings`, built per code.
+
+    ``sort`` orders the categories lexicographically, as ``pandas.Categorical`` of the
+    texts would have them.
+    """
+    import pandas as pd
+
+    names, codes = finish.flag_codes(masks, m)
+    lookup, dtype = _flag_categories(names, present_codes(codes), sort)
+    # the codes index the categories by construction, so pandas need not check them again
+    return pd.Categorical.from_codes(lookup[codes], dtype=dtype, validate=False)
+
+
+_FLAG_CATEGORIES: dict = {}
+
+
+def _flag_categories(names: tuple, present: np.ndarray, sort: bool):
+    """(code -> category position, Categorical dtype) of the flag combinations present,
+    built once per (names, combinations, order): a handful occur, and building and
+    checking the categories is most of the cost of the flags."""
+    import pandas as pd
+
+    key = (names, present.tobytes(), sort)
+    hit = _FLAG_CATEGORIES.get(key)
+    if hit is not None:
+        return hit
+    text = [joined_names(names, int(code)) for code in present]
+    if sort:
+        order = sorted(range(len(text)), key=text.__getitem__)
+        present, text = present[order], [text[i] for i in order]
+    lookup = np.zeros(1 << len(names), dtype=np.int64)
+    lookup[present] = np.arange(len(present))
+    if len(_FLAG_CATEGORIES) >= 4096:  # bound the cache
+        _FLAG_CATEGORIES.clear()
+    hit = _FLAG_CATEGORIES[key] = (lookup, pd.CategoricalDtype(categories=text))
+    return hit
 
 
 _COLUMN_INDEXES: dict = {}
@@ -222,7 +257,7 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
         approximate=interval == "analytic" and bool(
             fit.result.details.get("approximate_interval")),
         turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
-    return eta, lo, hi, finish.flag_strings(masks, m, categorical=True)
+    return eta, lo, hi, flag_categorical(masks, m)
 
 
 def _predict_forward(fit, v, level, interval, w0):

@@ -38,7 +38,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from refit.errors import InvalidDataError, UnreadableInputError
+from refit.errors import InvalidDataError, RefitError
 
 TOLERANCE = 1e-9
 #: Top-level fitted numbers compared on reproduction.

@@ -426,7 +426,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
 def _loo_part(arrays, usable, c: Candidate, level):
     """Closed-form leave-one-out of the usable rows: estimate, lower, upper and the flags
     as a Categorical (categories sorted, as ``pandas.Categorical`` of the texts)."""
-    from refit.models.predict import flag_strings
+    from refit.models.predict import flag_categorical
     from refit.models.forms import make_form
 
     form = make_form(c.form, list(c.predictors), degree=c.degree)
@@ -441,4 +441,4 @@ def _loo_part(arrays, usable, c: Candidate, level):
         est, lo, hi, masks = _loo_ols_masks(x, y, form, level, c.interval)
     except RefitError as err:
         raise type(err)(f"{c.label}, leave-one-out: {err}") from err
-    return est, lo, hi, flag_strings(masks, len(y), sort=True)
+    return est, lo, hi, flag_categorical(masks, len(y), sort=True)

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import matplotlib
 import numpy as np
-import pandas as pd
 import pytest
 import statsmodels.api as sm
 from matplotlib.collections import PolyCollection

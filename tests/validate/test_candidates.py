@@ -4,7 +4,6 @@ reproducibility. Data are invented (seeded) soils with a regional offset per sou
 from __future__ import annotations
 
 import json
-import math
 
 import numpy as np
 import pandas as pd
