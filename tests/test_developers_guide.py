@@ -23,3 +23,12 @@ def test_every_module_in_the_architecture_table_exists():
     table = guide.split("## Architecture in a page", 1)[1].split("## Glossary", 1)[0]
     for path in re.findall(r"`(refit/[A-Za-z0-9_/]+(?:\.py)?)`", table):
         assert (ROOT / path).exists(), path
+
+
+def test_the_architecture_table_has_a_row_per_stage_and_names_the_never_directions():
+    guide = (ROOT / "DEVELOPERS.md").read_text(encoding="utf-8")
+    table = guide.split("## Architecture in a page", 1)[1].split("## Glossary", 1)[0]
+    stages = sorted(p.parent.name for p in (ROOT / "refit").glob("*/__init__.py"))
+    for name in stages:
+        assert f"| `refit/{name}/` |" in table, name
+    assert "### Directions that never exist" in table and "lint-imports" in table
