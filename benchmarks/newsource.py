@@ -77,6 +77,7 @@ def _pooled(X, y, X0, level):
 
 def one_draw(rng, n_sources: int, level: float = 0.95, df_method: str = "satterthwaite"):
     """Coverage and mean width of each method for one calibration draw."""
+    from refit.errors import InvalidDataError
     from refit.models.intervals.group_conformal import group_jackknife_plus
     from refit.models.mixed import fit_mixed, new_source_interval
 
@@ -87,7 +88,10 @@ def one_draw(rng, n_sources: int, level: float = 0.95, df_method: str = "sattert
     out = {}
     lo, hi = _pooled(X, y, X0, level)
     out["pooled"] = (exact_coverage(lo, hi, x0), float(np.mean(hi - lo)))
-    res = fit_mixed(X, y, codes, df_method=df_method)
+    try:
+        res = fit_mixed(X, y, codes, df_method=df_method)
+    except InvalidDataError:  # counted: a refused fit is no interval at all
+        return None
     _, lo, hi = new_source_interval(res, X0, level)
     out["mixed"] = (exact_coverage(lo, hi, x0), float(np.mean(hi - lo)))
     out["mixed_fallback"] = res.details["fallback"] is not None
@@ -103,7 +107,8 @@ def simulate(n_draws: int, n_sources: int, *, seed: int = 20250, level: float = 
              df_method: str = "satterthwaite") -> dict:
     """Summary over ``n_draws`` seeded calibration draws (see the module notes)."""
     rng = np.random.default_rng([seed, n_sources])
-    draws = [one_draw(rng, n_sources, level, df_method) for _ in range(n_draws)]
+    every = [one_draw(rng, n_sources, level, df_method) for _ in range(n_draws)]
+    draws = [d for d in every if d is not None]
     oracle = 2 * 1.959963984540054 * SIGMA_NEW
     summary = {"n_draws": n_draws, "n_sources": n_sources, "oracle_width": oracle}
     for key in ("pooled", "mixed", "gjk80"):
@@ -114,6 +119,7 @@ def simulate(n_draws: int, n_sources: int, *, seed: int = 20250, level: float = 
     summary["gjk80"]["width_ratio_80"] = float(
         np.mean([d["gjk80"][1] for d in draws]) / (2 * 1.2815515655446004 * SIGMA_NEW))
     summary["mixed_fallbacks"] = int(sum(d["mixed_fallback"] for d in draws))
+    summary["mixed_refused"] = n_draws - len(draws)
     summary["gjk95_unbounded_share"] = float(np.mean([d["gjk_unbounded"] for d in draws]))
     return summary
 
@@ -127,7 +133,8 @@ def _print(s: dict) -> None:
         ratio = r.get("width_ratio_80", r["width_ratio"])
         print(f"    {label:<22} coverage mean {100 * r['coverage_mean']:5.1f}%  worst "
               f"{100 * r['coverage_worst']:5.1f}%  width / oracle {ratio:.3f}")
-    print(f"    mixed fell back to pooled OLS in {s['mixed_fallbacks']} draws; group "
+    print(f"    mixed refused (did not converge) in {s['mixed_refused']} draws, fell back to "
+          f"pooled OLS in {s['mixed_fallbacks']}; group "
           f"jackknife+ 95% unbounded in {100 * s['gjk95_unbounded_share']:.0f}% of draws")
 
 

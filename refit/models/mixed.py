@@ -43,9 +43,10 @@ stops without converging and no likelihood-ratio evidence for the variance,
 2 (l - l_0) < 3.84, chi^2(1) 5 %): the fit falls back to pooled OLS (its coefficients,
 covariance, residual SD and n - p degrees of freedom), never a narrower interval, and
 says so in ``details["warnings"]``. A random slope whose variance is at zero or that does
-not converge falls back to the random intercept, also recorded. A random-intercept fit
-that does not converge while the likelihood favours a between-source variance raises
-:class:`refit.errors.InvalidDataError`.
+not converge falls back to the random intercept, also recorded. A fit that does not converge
+is restarted from where it stopped with other optimisers (:data:`RETRY_METHODS`); one
+that still does not converge while the likelihood favours a between-source variance
+raises :class:`refit.errors.InvalidDataError`.
 
 References
 ----------
@@ -73,6 +74,9 @@ BOUNDARY_RATIO = 1e-3
 LR_CRITICAL = 3.841
 MIN_GROUPS_EXTRA = 1       # G - p must be at least this (a t quantile needs df >= 1)
 DF_METHODS = ("satterthwaite", "groups")
+#: optimisers tried, from where the first one stopped, when statsmodels' default does not
+#: converge
+RETRY_METHODS = ("bfgs", "nm", "powell")
 
 
 # ----------------------------------------------------------------------------- groups
@@ -126,6 +130,17 @@ def _run_mixedlm(X, y, codes, exog_re):
             result = model.fit(reml=True)
         except (np.linalg.LinAlgError, ValueError, FloatingPointError):
             result = None
+        for method in RETRY_METHODS:  # a stalled optimiser, restarted where it stopped
+            if result is None or result.converged:
+                break
+            try:
+                again = model.fit(reml=True, method=method, start_params=result.params_object,
+                                  maxiter=5000)
+            except (np.linalg.LinAlgError, ValueError, FloatingPointError):
+                continue
+            if again.converged:
+                warnings.warn(f"converged on restarting with {method}")
+                result = again
     return model, result, [str(w.message) for w in caught]
 
 
