@@ -45,7 +45,7 @@ from refit.errors import UsageError
 from refit.models.forms import Form, duan_smearing, make_form
 from refit.models.lsq import EstimatorResult, solve_lsq
 
-ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile")
+ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
 INTERVALS = ("analytic", "bootstrap-pairs", "bootstrap-residual", "split-conformal",
              "jackknife+", "cv+", "quantile", "none")
@@ -74,10 +74,15 @@ def _r_squared(y, fitted, w, intercept: bool) -> float:
     return float(1.0 - (w @ (e * e)) / tss) if tss > 0 else float("nan")
 
 
-def _estimate(estimator, X, y, form, w, x_sd, y_sd, quantiles, lsq: EstimatorResult):
+def _estimate(estimator, X, y, form, w, x_sd, y_sd, quantiles, lsq: EstimatorResult,
+              groups=None, random_slope=False):
     """Run the chosen estimator on the design; returns (result, extras)."""
     if estimator in ("ols", "wls"):
         return lsq, {}
+    if estimator == "mixed":
+        from refit.models.mixed import fit_mixed
+
+        return fit_mixed(X, y, groups, random_slope=random_slope, names=form.terms), {}
     if estimator == "huber":
         from refit.models.robust import fit_huber
 
@@ -119,11 +124,39 @@ def _check_estimator_args(estimator, form, weights, x_sd, y_sd, quantiles):
     if estimator == "york" and (x_sd is None or y_sd is None):
         raise UsageError("estimator 'york' needs x_sd= and y_sd= (measurement standard "
                          "deviations of the equation's x and y: column names or values)")
+    if estimator == "mixed" and form.through_origin:
+        raise UsageError("estimator 'mixed' has a random intercept per group, so the form "
+                         "needs an intercept; drop through_origin")
     if estimator == "quantile":
         q = tuple(quantiles)
         if len(q) != 2 or not (0 < q[0] < 0.5 < q[1] < 1):
             raise UsageError(f"quantiles must be two levels (lower, upper) with "
                              f"0 < lower < 0.5 < upper < 1; got {quantiles!r}")
+
+
+def _check_group_args(estimator, form, groups, random_slope):
+    if estimator == "mixed" and groups is None:
+        raise UsageError("estimator 'mixed' needs groups= (the column naming each soil's "
+                         "source or region, e.g. groups='source', or one label per row)")
+    if random_slope and estimator != "mixed":
+        raise UsageError(f"random_slope goes with estimator='mixed'; got {estimator!r}")
+    if random_slope and (form.name != "linear" or len(form.predictors) != 1):
+        raise UsageError("random_slope takes a straight line on one predictor (form "
+                         f"'linear'); got form {form.name!r} with {len(form.predictors)} "
+                         "predictor(s): drop random_slope or use form='linear'")
+
+
+def _add_groups(cols: dict, table, groups, n: int):
+    """Put the group codes (NaN = no label) among the fit's columns, so rows without a
+    label are refused (or dropped) with the others; returns (key, labels)."""
+    if groups is None:
+        return None, None
+    from refit.models.inputs import group_codes_column
+
+    codes, labels = group_codes_column(table, groups, n)
+    key = groups if isinstance(groups, str) and groups not in cols else "groups"
+    cols[key] = codes
+    return key, labels
 
 
 # ----------------------------------------------------------------------------- the Fit
@@ -221,7 +254,10 @@ class Fit:
     @property
     def cautions(self) -> list[str]:
         """Plain-language cautions about the fit's intervals (the domain's own cautions
-        are in ``domain.cautions``)."""
+        are in ``domain.cautions``); for ``mixed`` fits, every fallback (pooled OLS at
+        the boundary, random intercept for a failed random slope) and its reason."""
+        if self.estimator == "mixed":
+            return [f"between-source: {w}" for w in self.result.details.get("warnings", [])]
         if self.estimator != "theil-sen":
             return []
         return [f"{CAUTION_APPROXIMATE}: the Theil-Sen analytic interval is approximate: "
@@ -318,7 +354,8 @@ class Fit:
 def fit(table, response: str, predictors, form: str = "linear", degree: int | None = None,
         estimator: str = "ols", direction: str = "inverse", weights=None,
         through_origin: bool = False, x_sd=None, y_sd=None,
-        quantiles=(0.025, 0.975), *, missing: str = "error") -> Fit:
+        quantiles=(0.025, 0.975), *, missing: str = "error", groups=None,
+        random_slope: bool = False) -> Fit:
     """Fit a transfer function on a calibration table.
 
     Parameters
@@ -338,7 +375,9 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     estimator : str
         ``ols``, ``wls`` (needs ``weights``), ``huber`` (M-estimation, Huber 1964),
         ``theil-sen`` (straight line), ``york`` (errors in both variables, straight line;
-        needs ``x_sd`` and ``y_sd``) or ``quantile`` (lower and upper quantile curves).
+        needs ``x_sd`` and ``y_sd``), ``quantile`` (lower and upper quantile curves) or
+        ``mixed`` (random intercept per group, REML; needs ``groups``; its analytic
+        interval is for a soil of a NEW group: see :mod:`refit.models.mixed`).
     direction : str
         ``inverse`` (climate on feature) or ``forward`` (feature on climate, inverted as a
         classical calibration). See the module notes.
@@ -354,6 +393,11 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     missing : str
         ``error`` (default): refuse rows with empty values in the used columns, naming
         them; ``drop``: leave those rows out (counted in ``Fit.n_dropped``).
+    groups : str or array_like, optional
+        Group (source, region) of each row: a column name or one label per row. Required
+        by ``estimator='mixed'``; with other estimators kept in ``Fit.extras['groups']``.
+    random_slope : bool
+        ``mixed`` only: also a random slope on the single predictor (linear form).
 
     Returns
     -------
@@ -381,9 +425,12 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     x_names, y_name = (preds, response) if direction == "inverse" else ([response], preds[0])
     shape = make_form(form, x_names, degree=degree, through_origin=through_origin)
     _check_estimator_args(estimator, shape, weights, x_sd, y_sd, quantiles)
+    _check_group_args(estimator, shape, groups, random_slope)
     cols, labels, kind = fit_columns(table, [*x_names, y_name],
                                      {"weights": weights, "x_sd": x_sd, "y_sd": y_sd})
+    group_key, group_labels = _add_groups(cols, table, groups, len(labels))
     cols, labels, n_dropped = _drop_missing(cols, labels, kind, missing)
+    codes = None if group_key is None else cols.pop(group_key).astype(int)
     x = np.column_stack([cols[nm] for nm in x_names])
     y = cols[y_name]
     w = cols["weights"]
@@ -402,7 +449,9 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     y_model = shape.to_model_scale(y)
     lsq = solve_lsq(X, y_model, weights=w, intercept=shape.intercept, names=shape.terms)
     result, extras = _estimate(estimator, X, y_model, shape, w, cols["x_sd"], cols["y_sd"],
-                               quantiles, lsq)
+                               quantiles, lsq, codes, random_slope)
+    if codes is not None:
+        extras["groups"] = np.asarray(group_labels, dtype=object)[codes]
     r2 = (lsq.details["r_squared"] if result is lsq
           else _r_squared(y_model, result.fitted, None, shape.intercept))
     from refit.models.domain import variable_ranges

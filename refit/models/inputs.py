@@ -176,3 +176,34 @@ def _check_constant(x: np.ndarray, names, labels) -> None:
             raise InvalidDataError(
                 f"predictor {name!r} is constant (every row = {col[0]:g}); a slope cannot be "
                 "estimated from it: choose rows where it varies or drop it")
+
+
+def group_codes_column(table, groups, n: int):
+    """Group (source) labels for a mixed fit: float codes 0..G-1 with NaN where the label
+    is missing, and the labels in code order.
+
+    ``groups`` is a column name of ``table`` or ``n`` values (text or numbers).
+    """
+    import pandas as pd
+
+    if isinstance(groups, str):
+        if isinstance(table, dict) and groups in table:
+            values = table[groups]
+        else:
+            frame, _, _ = as_frame(table)
+            if groups not in frame.columns:
+                raise UsageError(f"groups column {groups!r} is not in the table; available "
+                                 "columns: " + ", ".join(map(str, frame.columns)))
+            values = frame[groups]
+    else:
+        values = groups
+    series = pd.Series(np.asarray(values, dtype=object).ravel())
+    if len(series) != n:
+        raise UsageError(f"groups must be a column name or one label per row ({n}); got "
+                         f"{len(series)} values")
+    text = series.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v))
+                      or (isinstance(v, str) and not v.strip()) else str(v))
+    codes, uniques = pd.factorize(text, use_na_sentinel=True)
+    out = codes.astype(float)
+    out[codes < 0] = np.nan
+    return out, [str(u) for u in uniques]
