@@ -402,7 +402,7 @@ def by_source(names, residuals, n, coverage, *, level: float, y_label: str,
         for i, r in enumerate(residuals):
             r = np.asarray(r, dtype=float)
             a.plot(i + _jitter(r.size), r, ls="none", marker="o", mfc="white", mec=st.DATA,
-                   mew=0.8, ms=3.6, alpha=0.85, gid="source-residuals",
+                   mew=0.8, ms=3.6, alpha=0.85, gid="source-residuals", zorder=3,
                    label="soil" if i == 0 else None)
         box = a.boxplot([np.asarray(r, dtype=float) for r in residuals], positions=pos,
                         widths=0.6, showfliers=False, manage_ticks=False,
@@ -414,7 +414,7 @@ def by_source(names, residuals, n, coverage, *, level: float, y_label: str,
             artist.set_gid("source-box")
         box["medians"][0].set_label("median, quartiles, 1.5 IQR whiskers")
         a.set_ylabel(y_label)
-        a.set_title(f"Residuals of the chosen fit by {column} (sorted by median)")
+        a.set_title(f"Residuals (observed - fitted) by {column}, sorted by median")
         ok = np.isfinite(cov) & ~below
         b.axhline(level, color=st.REFERENCE, lw=0.9, ls="--", gid="nominal",
                   label=f"nominal {100 * level:.0f}%")
@@ -424,6 +424,9 @@ def by_source(names, residuals, n, coverage, *, level: float, y_label: str,
                ms=6.5, gid="coverage-ok", label="at or above nominal")
         b.plot(pos[below], cov[below], ls="none", marker="v", color=st.FLAGGED, ms=7.5,
                gid="coverage-below", label="below nominal")
+        for i in np.flatnonzero(~np.isfinite(cov)):
+            b.text(pos[i], level, "no out-of-fold\nprediction", ha="center", va="bottom",
+                   fontsize=7, color=st.GREY, gid="coverage-missing")
         b.set_ylabel("out-of-fold coverage")
         b.yaxis.set_major_formatter(_percent())
         fin = cov[np.isfinite(cov)]

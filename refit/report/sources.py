@@ -188,8 +188,8 @@ def section(inp) -> dict:
         on="group", how="left")
     ri = dg.random_intercept(resid, np.where(groups == NO_GROUP, None, groups))
     unit = unit_of(inp.record, fit.y_name)
-    y_label = (f"ln {fit.y_name} residual (observed - fitted)" if fit.form.log_response
-               else f"{fit.y_name} residual (observed - fitted){f' [{unit}]' if unit else ''}")
+    y_label = (f"ln {fit.y_name} residual" if fit.form.log_response
+               else f"{fit.y_name} residual{f' [{unit}]' if unit else ''}")
     names = table["group"].tolist()
     by = {g: resid[groups == g] for g in names}
     fig = fg.by_source(names, [by[g] for g in names], table["n"].tolist(),
