@@ -22,7 +22,7 @@ def _grid(lo: float, hi: float, *, floor: float | None = 0.0) -> np.ndarray:
     return np.linspace(a, hi + pad, GRID)
 
 
-def _unit(record: dict, name: str) -> str:
+def unit_of(record: dict, name: str) -> str:
     if record.get("response", {}).get("name") == name:
         return record["response"].get("unit") or ""
     for p in record.get("predictors", []):
@@ -33,7 +33,7 @@ def _unit(record: dict, name: str) -> str:
 
 def axis_label(record: dict, name: str) -> str:
     """``bk_depth_cm [cm]``: the glossary name with its unit."""
-    unit = _unit(record, name)
+    unit = unit_of(record, name)
     return f"{name} [{unit}]" if unit else name
 
 
@@ -105,7 +105,7 @@ def oof_figure(inp):
     scheme = inp.board_json.get("scheme", {}).get("name") or inp.oof["scheme"].iloc[0]
     rows = inp.oof[inp.oof["scheme"] == scheme]
     row = inp.board[inp.board["candidate"] == inp.candidate].iloc[0]
-    unit = _unit(inp.record, inp.fit.response)
+    unit = unit_of(inp.record, inp.fit.response)
     metrics = {"RMSEP   ": f"{row['rmsep']:.4g} {unit}", "bias    ": f"{row['bias']:+.4g} {unit}",
                "coverage": f"{100 * row['coverage']:.1f}%"}
     return fg.out_of_fold(rows["observed"], rows["estimate"],
@@ -131,7 +131,7 @@ def coverage_figure(inp):
         b["kfold_mean_width"].to_numpy(float) if has_k else None,
         level=float(inp.board_json.get("level", 0.95)),
         tolerance=float(inp.board_json.get("coverage_tolerance", 0.05)),
-        scheme=str(b["scheme"].iloc[0]), unit=_unit(inp.record, inp.fit.response))
+        scheme=str(b["scheme"].iloc[0]), unit=unit_of(inp.record, inp.fit.response))
 
 
 def make_figures(inp) -> tuple[list[dict], dict]:
@@ -143,11 +143,13 @@ def make_figures(inp) -> tuple[list[dict], dict]:
     if cal is not None:
         out.append({"id": "calibration", "title": "Calibration fit", "figure": cal,
                     "caption": _calibration_caption(inp)})
+    bp = heteroscedasticity(inp, infl)
     out.append({"id": "residuals", "title": "Residuals", "figure": residual_figure(inp, infl),
                 "caption": "Residuals of the fit on the whole subset against its fitted "
                            "values (left) and their normal Q-Q plot (right; internally "
                            "studentized residuals). A funnel, a curve or heavy tails say "
-                           "the intervals may be wrong somewhere."})
+                           "the intervals may be wrong somewhere.",
+                "after": bp["text"]})
     fig, flagged = influence_figure(inp, infl)
     out.append({"id": "influence", "title": "Influence", "figure": fig,
                 "caption": "Leverage and Cook's distance of each record; records above "
@@ -169,7 +171,7 @@ def make_figures(inp) -> tuple[list[dict], dict]:
                            "joined by a line; labels are leaderboard ranks. Honest "
                            "candidates sit in the shaded band under the recipe's scheme; "
                            "random k-fold tends to flatter."})
-    return out, {"influential": flagged}
+    return out, {"influential": flagged, "heteroscedasticity": bp}
 
 
 def _calibration_caption(inp) -> str:
@@ -187,3 +189,41 @@ def _calibration_caption(inp) -> str:
     if fit.domain.turning_point is not None:
         text += " The dash-dotted line marks the quadratic's turning point."
     return text
+
+
+def heteroscedasticity(inp, infl) -> dict:
+    """The Breusch-Pagan test of the chosen fit's residuals against its design: the
+    numbers (:func:`refit.report.diagnostics.breusch_pagan`) and the sentence the report
+    prints below the residual figure (``text``); ``changes`` is True when p < 0.05."""
+    fit = inp.fit
+    e = np.asarray(infl["residuals"], dtype=float)
+    if fit.weights is not None:   # Pearson residuals: the weights' own variance removed
+        e = e * np.sqrt(np.asarray(fit.weights, dtype=float))
+    try:
+        bp = dg.breusch_pagan(e, fit.form.design(fit.x))
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        return {"changes": False, "text": f"Breusch-Pagan test not computed: {exc}."}
+    return {**bp, "changes": bp["p"] < dg.BP_ALPHA,
+            "text": bp_sentence(bp, fit.x_names)}
+
+
+def bp_sentence(bp: dict, regressors) -> str:
+    """The Breusch-Pagan result and what it means, in plain words."""
+    what = " and ".join(regressors)
+    stat = (f"Breusch-Pagan LM = {bp['lm']:.3g}, df {bp['df']}, {p_text(bp['p'])}; "
+            f"Koenker's form, statsmodels het_breuschpagan, n = {bp['n']}")
+    if bp["p"] < dg.BP_ALPHA:
+        return (f"The residual spread changes with {what} ({stat}): an interval of "
+                "constant width is too narrow where the data spread most and too wide "
+                "elsewhere. Weighted least squares (refit.fit(..., estimator=\"wls\", "
+                "weights=...)) with weights inversely proportional to the local residual "
+                "variance, or a model of the variance, would let the interval widen where "
+                "the data do.")
+    return (f"No evidence at the {100 * dg.BP_ALPHA:.0f}% level that the residual spread "
+            f"changes with {what} ({stat}): an interval of constant width is consistent "
+            "with these residuals.")
+
+
+def p_text(p: float) -> str:
+    """``p = 0.003``, ``p = 0.214``, or ``p < 0.001``."""
+    return "p < 0.001" if p < 0.001 else f"p = {p:.1g}" if p < 0.01 else f"p = {p:.3f}"

@@ -169,6 +169,10 @@ def flags(inp, facts: dict) -> list[str]:
     if facts.get("influential"):
         out.append("Influential records (Cook's distance or leverage above the guides): "
                    + ", ".join(facts["influential"]) + ".")
+    het = facts.get("heteroscedasticity") or {}
+    if het.get("changes"):
+        out.append(f"The residual spread changes with {', '.join(inp.fit.x_names)} "
+                   f"(Breusch-Pagan p = {het['p']:.2g}): see below the residual figure.")
     out += [f"Subset: {n}" for n in (inp.run.get("subset") or {}).get("notes") or []]
     return [f for f in out if f]
 

@@ -141,3 +141,135 @@ def normal_qq(values) -> tuple[np.ndarray, np.ndarray, tuple[float, float]]:
     v = v[np.isfinite(v)]
     (osm, osr), (slope, intercept, _) = stats.probplot(v, dist="norm")
     return np.asarray(osm), np.asarray(osr), (float(slope), float(intercept))
+
+
+#: significance level of the report's Breusch-Pagan sentence (common practice)
+BP_ALPHA = 0.05
+#: a between-source variance below this fraction of the within-source variance is read as
+#: on the boundary (zero): REML's optimiser stops near, not at, zero
+BOUNDARY = 1e-6
+
+
+#: optimisers tried in turn for the random-intercept model until one converges:
+#: statsmodels' default (gradient methods), then Nelder-Mead and Powell, which reach a
+#: between-source variance on the boundary (zero) where the gradient methods stall
+RI_METHODS = (None, "nm", "powell")
+
+
+def het_design(design) -> np.ndarray:
+    """The regressors of a Breusch-Pagan auxiliary regression from a fit's design.
+
+    A constant, then every non-constant column of ``design`` centred and divided by its
+    standard deviation (the test statistic n R² does not change under this; the
+    auxiliary least squares is better conditioned). Constant columns are dropped, so a
+    fit through the origin gets the constant the test needs.
+    """
+    X = np.asarray(design, dtype=float)
+    sd = X.std(axis=0)
+    keep = sd > 0
+    z = (X[:, keep] - X[:, keep].mean(axis=0)) / sd[keep]
+    return np.column_stack([np.ones(len(X)), z])
+
+
+def breusch_pagan(residuals, design) -> dict:
+    """Breusch-Pagan test: does the residual variance change with the regressors?
+
+    Parameters
+    ----------
+    residuals : array_like, shape (n,)
+        Residuals of the fit [unit of the equation's response].
+    design : array_like, shape (n, p)
+        The fit's design matrix (``Fit.form.design(Fit.x)``).
+
+    Returns
+    -------
+    dict
+        ``lm`` (the Lagrange-multiplier statistic n R²), ``df`` (its chi-square degrees
+        of freedom), ``p`` (its p-value), ``f`` and ``f_p`` (the F form), ``n``.
+
+    Notes
+    -----
+    Koenker's studentized form (robust to non-normal residuals), as
+    ``statsmodels.stats.diagnostic.het_breuschpagan`` computes it by default, on the
+    regressors of :func:`het_design`. Breusch & Pagan (1979), Econometrica 47:1287;
+    Koenker (1981), J. Econometrics 17:107.
+    """
+    from statsmodels.stats.diagnostic import het_breuschpagan
+
+    e = np.asarray(residuals, dtype=float)
+    Z = het_design(design)
+    lm, lm_p, f, f_p = het_breuschpagan(e, Z)
+    return {"lm": float(lm), "df": int(Z.shape[1] - 1), "p": float(lm_p), "f": float(f),
+            "f_p": float(f_p), "n": int(e.size)}
+
+
+def random_intercept(residuals, groups) -> dict:
+    """Between- and within-source spread of residuals: a random-intercept model.
+
+    Parameters
+    ----------
+    residuals : array_like, shape (n,)
+        Residuals of a fit [unit of its response].
+    groups : array_like, shape (n,)
+        The source (or other group) of each residual; rows without a group are left out.
+
+    Returns
+    -------
+    dict
+        ``between_sd`` and ``within_sd`` [unit of the residuals], ``icc`` (between
+        variance over total), ``n_groups``, ``n``, ``boundary`` (True when the between
+        variance is zero or on the boundary), ``converged`` and ``problem`` (a reason
+        when no model could be fitted, else None).
+
+    Notes
+    -----
+    residual_ij = mu + u_j + e_ij, u_j ~ N(0, tau²), e_ij ~ N(0, sigma²), fitted by REML
+    with ``statsmodels`` ``MixedLM`` (``residual ~ 1``, ``groups`` = source; the
+    optimisers of :data:`RI_METHODS` in turn until one converges); ICC =
+    tau² / (tau² + sigma²). Laird & Ware (1982), Biometrics 38:963.
+    """
+    import warnings
+
+    import pandas as pd
+
+    e = np.asarray(residuals, dtype=float)
+    g = pd.Series(np.asarray(groups, dtype=object))
+    ok = np.isfinite(e) & g.notna().to_numpy()
+    e, g = e[ok], g[ok].astype(str).to_numpy()
+    out = {"between_sd": np.nan, "within_sd": np.nan, "icc": np.nan,
+           "n_groups": int(len(set(g))), "n": int(e.size), "boundary": False,
+           "converged": False, "problem": None}
+    if out["n_groups"] < 2:
+        out["problem"] = (f"{out['n_groups']} source(s): a between-source variance needs at "
+                          "least two")
+        return out
+    if out["n"] <= out["n_groups"]:
+        out["problem"] = "every source has a single soil: no within-source variance"
+        return out
+    from statsmodels.regression.mixed_linear_model import MixedLM
+    from statsmodels.tools.sm_exceptions import ConvergenceWarning
+
+    model = MixedLM(e, np.ones((e.size, 1)), groups=g)
+    fits = []
+    for method in RI_METHODS:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            try:
+                res = model.fit(reml=True, **({"method": method} if method else {}))
+            except (np.linalg.LinAlgError, ValueError) as exc:
+                out["problem"] = f"the random-intercept model could not be fitted ({exc})"
+                continue
+        fits.append(res)
+        if res.converged:
+            break
+    if not fits:
+        return out
+    res = max(fits, key=lambda r: (bool(r.converged), float(r.llf)))
+    out["problem"] = None
+    tau2, sigma2 = float(np.asarray(res.cov_re)[0, 0]), float(res.scale)
+    out["converged"] = bool(res.converged)
+    out["boundary"] = tau2 <= BOUNDARY * sigma2
+    tau2 = 0.0 if out["boundary"] else tau2
+    out.update(between_sd=float(np.sqrt(tau2)), within_sd=float(np.sqrt(sigma2)),
+               icc=tau2 / (tau2 + sigma2) if tau2 + sigma2 > 0 else np.nan)
+    return out

@@ -26,6 +26,12 @@ def png_data_uri(fig, *, dpi: int = DPI) -> str:
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
+def embed(fig) -> dict:
+    """A figure as the template shows it: ``uri`` (PNG data URI) and ``width`` [px]."""
+    return {"width": int(round(fig.get_figwidth() * SCREEN_PX_PER_INCH)),
+            "uri": png_data_uri(fig)}
+
+
 def environment():
     """The jinja2 environment: templates shipped in the package, autoescape on."""
     import jinja2
@@ -63,6 +69,7 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
     """
     from refit.report import assemble, context
     from refit.report.inputs import load_run
+    from refit.report.sources import section as source_section
 
     say = progress or (lambda text: None)
     say("reloading the run's data and refitting the chosen candidate")
@@ -70,9 +77,11 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
     say("drawing the figures")
     figures, facts = assemble.make_figures(inp)
     for f in figures:
-        fig = f.pop("figure")
-        f["width"] = int(round(fig.get_figwidth() * SCREEN_PX_PER_INCH))
-        f["uri"] = png_data_uri(fig)
+        f.update(embed(f.pop("figure")))
+    say("drawing the per-source panel")
+    sources = source_section(inp)
+    if sources.get("figure") is not None:
+        sources.update(embed(sources.pop("figure")))
     section = None
     if compare is not None:
         from refit.report.comparison import section as comparison_section
@@ -81,7 +90,7 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
         section = comparison_section(compare, inp.record["function_id"])
     say("writing the report")
     ctx = context.build(inp, figures, facts, report_command=command)
-    return render({**ctx, "comparison": section})
+    return render({**ctx, "comparison": section, "sources": sources})
 
 
 def write_report(run_dir, out, *, candidate: str | None = None, store=None,

@@ -69,8 +69,10 @@ RC = {
 PANEL = (5.0, 3.8)
 
 
-def figure(ncols: int = 1, *, width: float | None = None, height: float | None = None):
-    """A new Agg figure with ``ncols`` panels in refit's style; returns (fig, axes list).
+def figure(ncols: int = 1, *, width: float | None = None, height: float | None = None,
+           nrows: int = 1, sharex: bool = False):
+    """A new Agg figure with ``nrows`` x ``ncols`` panels in refit's style; returns (fig,
+    axes list, row by row). ``sharex`` makes every panel share the first one's x axis.
 
     The figure is built without pyplot (no global state, no GUI backend), so it can be
     made in threads and tests without a display. Draw inside :func:`styled` so the
@@ -81,11 +83,14 @@ def figure(ncols: int = 1, *, width: float | None = None, height: float | None =
     from matplotlib.figure import Figure
 
     w = width if width is not None else PANEL[0] * ncols
-    h = height if height is not None else PANEL[1]
+    h = height if height is not None else PANEL[1] * nrows
     with mpl.rc_context(RC):
         fig = Figure(figsize=(w, h), layout="constrained")
         FigureCanvasAgg(fig)
-        axes = [fig.add_subplot(1, ncols, i + 1) for i in range(ncols)]
+        axes = []
+        for i in range(nrows * ncols):
+            share = axes[0] if (sharex and axes) else None
+            axes.append(fig.add_subplot(nrows, ncols, i + 1, sharex=share))
     return fig, axes
 
 

@@ -85,7 +85,7 @@ def written(run_dir):
 def test_html_parses_and_embeds_its_images(written):
     page = parse(written)
     imgs = [a for t, a in page.tags if t == "img"]
-    assert len(imgs) == 6
+    assert len(imgs) == 7            # six figures and the per-source panel
     for a in imgs:
         assert a["src"].startswith("data:image/png;base64,")
         raw = base64.b64decode(a["src"].split(",", 1)[1])
@@ -214,7 +214,7 @@ def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
     assert res.exit_code == 0, res.output
     page = parse(out)
     imgs = comparison_image(page)
-    assert len(imgs) == 1 and len([t for t, _ in page.tags if t == "img"]) == 7
+    assert len(imgs) == 1 and len([t for t, _ in page.tags if t == "img"]) == 8
     assert imgs[0]["src"].startswith("data:image/png;base64,")
     raw = base64.b64decode(imgs[0]["src"].split(",", 1)[1])
     # drawn from comparison.csv by the function `refit compare` drew comparison.png with:
