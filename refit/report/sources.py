@@ -210,9 +210,9 @@ def section(inp) -> dict:
 
 
 def _held_out(inp, column: str, scheme: str) -> bool:
-    from refit.select.recipe import GROUPED
+    from refit.select.schemes import NEEDS_GROUP_COLUMN
 
-    return scheme in GROUPED and inp.recipe.groups == column
+    return scheme in NEEDS_GROUP_COLUMN and inp.recipe.groups == column
 
 
 def _caption(column, scheme, level, k, below, *, held_out: bool) -> str:
