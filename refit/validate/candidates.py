@@ -13,7 +13,7 @@ Ranking rule (:func:`rank_candidates`)
    nominal level: the one-sided exact (Clopper-Pearson, 95 %) upper confidence bound of
    its out-of-fold coverage reaches the nominal level, counting n = the soils of the
    subset (repeats add no independent soils). Equivalently its coverage is at least
-   :func:`refit.validate.skill.least_passing_coverage` (e.g. 92.5 % for a 95 % interval
+   :func:`refit.validate.skill.least_passing_coverage` (e.g. 92.0 % for a 95 % interval
    on 187 soils: a one-sided tolerance of 2.5 percentage points that shrinks as n grows).
    Over-coverage is not penalised here; the interval score below charges its width.
    Under a grouped scheme the out-of-fold predictions are of soils from held-out groups,
@@ -372,7 +372,7 @@ def rank_candidates(table, level: float, n: int):
         return table.assign(coverage_upper=[], coverage_ok=[], rank=[]), tol
     t = table.copy()
     cov = t["coverage"].astype(float)
-    t["coverage_upper"] = [coverage_upper_bound(round(c * n), n) if np.isfinite(c) and n > 0
+    t["coverage_upper"] = [coverage_upper_bound(c * n, n) if np.isfinite(c) and n > 0
                            else np.nan for c in cov]
     t["coverage_ok"] = (t["coverage_upper"] >= level - 1e-12).fillna(False).astype(bool)
     score = t["interval_score"].astype(float).fillna(np.inf)

@@ -206,13 +206,18 @@ def skill_scores(obs, pred, lower, upper, level) -> dict:
     return out
 
 
-def coverage_upper_bound(covered: int, n: int, confidence: float = COVERAGE_CONFIDENCE) -> float:
+def coverage_upper_bound(covered: float, n: int,
+                         confidence: float = COVERAGE_CONFIDENCE) -> float:
     """One-sided exact (Clopper-Pearson) upper confidence bound of a coverage.
 
     Parameters
     ----------
-    covered, n : int
-        Soils whose observed value fell inside their out-of-fold interval, of ``n`` soils.
+    covered : float
+        Soils whose observed value fell inside their out-of-fold interval; under repeated
+        cross-validation the mean count over the repeats, which may be fractional (the
+        bound's Beta quantile is continuous in it).
+    n : int
+        Soils scored.
     confidence : float
         Confidence of the one-sided bound.
 
@@ -226,26 +231,26 @@ def coverage_upper_bound(covered: int, n: int, confidence: float = COVERAGE_CONF
     """
     from scipy.stats import beta
 
-    k, n = int(covered), int(n)
+    k, n = float(covered), int(n)
     if n <= 0 or not 0 <= k <= n:
         raise InvalidDataError(f"a coverage needs 0 <= covered <= n and n > 0; got "
                                f"covered = {covered}, n = {n}")
-    return 1.0 if k == n else float(beta.ppf(confidence, k + 1, n - k))
+    return 1.0 if k >= n else float(beta.ppf(confidence, k + 1, n - k))
 
 
 def least_passing_coverage(level: float, n: int,
                            confidence: float = COVERAGE_CONFIDENCE) -> float:
     """The smallest out-of-fold coverage of ``n`` soils not shown to fall short of ``level``.
 
-    ``k / n`` for the smallest ``k`` whose :func:`coverage_upper_bound` reaches ``level``;
-    ``level - least_passing_coverage`` is the ranking rule's one-sided tolerance in
-    percentage points (it shrinks as n grows: about 1.645 binomial standard errors).
+    The coverage c at which :func:`coverage_upper_bound` (c n, n) equals ``level`` (it
+    rises with c); ``level - least_passing_coverage`` is the ranking rule's one-sided
+    tolerance in percentage points (it shrinks as n grows: about 1.645 binomial standard
+    errors).
     """
-    from scipy.stats import beta
+    from scipy.optimize import brentq
 
     n = int(n)
     if n <= 0:
         return float("inf")
-    k = np.arange(n)
-    upper = np.append(beta.ppf(confidence, k + 1, n - k), 1.0)
-    return float(np.flatnonzero(upper >= level)[0] / n)
+    gap = lambda c: coverage_upper_bound(c * n, n, confidence) - level  # noqa: E731
+    return 0.0 if gap(0.0) >= 0 else float(brentq(gap, 0.0, 1.0, xtol=1e-12))

@@ -4,6 +4,7 @@ reproducibility. Data are invented (seeded) soils with a regional offset per sou
 from __future__ import annotations
 
 import json
+import math
 
 import numpy as np
 import pandas as pd
@@ -111,7 +112,8 @@ def test_ranking_rule_on_a_constructed_example():
     # and within 5 % of its score (21 <= 21): named as the simpler choice; E is simpler
     # but 25 % worse.
     board, tol = rank_candidates(_board(), 0.95, 100)
-    assert tol == pytest.approx(0.04)
+    assert 0.04 <= tol < 0.05   # 91 of 100 passes and 90 does not
+
     assert list(board.candidate) == ["B", "C", "E", "D", "A"]
     assert list(board["rank"]) == [1, 2, 3, 4, 5]
     assert list(board.coverage_ok) == [True, True, True, True, False]
@@ -138,7 +140,7 @@ def test_coverage_tolerance_is_one_sided_and_shrinks_with_n():
 
     for n in (10, 100, 187, 1000):
         tol = coverage_tolerance(0.95, n)
-        k = round((0.95 - tol) * n)
+        k = math.ceil((0.95 - tol) * n - 1e-9)   # the least whole count that passes
         assert binomtest(k, n, 0.95, alternative="less").pvalue >= 0.05
         assert binomtest(k - 1, n, 0.95, alternative="less").pvalue < 0.05
     assert coverage_tolerance(0.95, 10) > coverage_tolerance(0.95, 100) \
