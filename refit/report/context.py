@@ -153,16 +153,19 @@ def flags(inp, facts: dict) -> list[str]:
     row = inp.board[inp.board["candidate"] == inp.candidate].iloc[0]
     verdict = inp.board_json.get("verdict") or {}
     if not bool(row.get("coverage_ok")):
-        out.append(f"The chosen candidate's out-of-fold coverage ({pct(row['coverage'])}) is "
-                   f"not within {pct(inp.board_json.get('coverage_tolerance'))} of the "
-                   f"nominal {pct(inp.board_json.get('level'), 0)}: its intervals are not "
-                   "calibrated.")
+        level = inp.board_json.get("level")
+        least = level - inp.board_json.get("coverage_tolerance", 0.0)
+        out.append(f"The chosen candidate's out-of-fold coverage ({pct(row['coverage'])}) "
+                   f"falls short of the nominal {pct(level, 0)} (below {pct(least)}, the "
+                   "one-sided 95% exact binomial bound): its intervals are too narrow for "
+                   "a soil like the held-out ones.")
     if verdict.get("simpler"):
         out.append(verdict.get("simpler_why"))
     n_bad = int((~inp.board["coverage_ok"].astype(bool)).sum())
     if n_bad:
-        out.append(f"{n_bad} of {len(inp.board)} candidates miss the nominal coverage under "
-                   f"{row['scheme']}; they are ranked after the others.")
+        out.append(f"{n_bad} of {len(inp.board)} candidates fall short of the nominal "
+                   f"coverage under {row['scheme']}; they are ranked after every candidate "
+                   "that covers.")
     out += list((inp.record.get("domain") or {}).get("cautions") or [])
     out += list(((inp.record.get("cv") or {}).get("details") or {}).get("cautions") or [])
     out += _oof_flags(inp.oof)

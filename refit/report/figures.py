@@ -310,7 +310,8 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
     kfold_coverage, kfold_width : array_like or None
         The same under random k-fold (None when the scheme is k-fold).
     level, tolerance : float
-        Nominal coverage and the accepted distance from it.
+        Nominal coverage and how far below it a coverage may fall and still not be shown
+        to under-cover (one-sided; :func:`refit.validate.candidates.coverage_tolerance`).
     scheme : str
         Name of the recipe's scheme.
     """
@@ -321,9 +322,10 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
     wid = np.asarray(width, dtype=float)
     with st.styled():
         fig, (a,) = st.figure(1, width=6.4, height=4.6)
-        a.axhspan(level - tolerance, level + tolerance, color=st.KEPT, alpha=0.12, lw=0,
-                  gid="nominal-band", label=f"within {100 * tolerance:.0f} points of "
-                                            f"{100 * level:.0f}%")
+        a.axhspan(level - tolerance, 1.0, color=st.KEPT, alpha=0.12, lw=0,
+                  gid="nominal-band", label=f"covers: not shown to fall short of "
+                                            f"{100 * level:.0f}% (at least "
+                                            f"{100 * (level - tolerance):.1f}%)")
         a.axhline(level, color=st.REFERENCE, lw=0.9, ls="--", gid="nominal")
         if kfold_coverage is not None:
             kc = np.asarray(kfold_coverage, dtype=float)
