@@ -210,7 +210,7 @@ def section(inp) -> dict:
 
 
 def _held_out(inp, column: str, scheme: str) -> bool:
-    from refit.select.recipe import GROUPED
+    from refit.select.schemes import GROUPED
 
     return scheme in GROUPED and inp.recipe.groups == column
 
