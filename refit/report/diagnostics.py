@@ -113,6 +113,29 @@ def influence(fit) -> dict:
             "p": int(X.shape[1]), "n": int(len(X))}
 
 
+#: share of the points in each LOWESS window of the residual trend (statsmodels' default)
+TREND_FRAC = 2.0 / 3.0
+
+
+def residual_trend(fitted, residuals, *, frac: float = TREND_FRAC):
+    """A LOWESS smooth of residuals against fitted values, sorted by fitted value.
+
+    Returns
+    -------
+    (x, y) : ndarray, shape (m,)
+        Fitted values and the smoothed residual [unit of the residuals]; m the finite
+        pairs. ``statsmodels.nonparametric.smoothers_lowess.lowess`` (Cleveland 1979,
+        JASA 74:829), ``frac`` of the points per window, 3 robustifying iterations.
+    """
+    from statsmodels.nonparametric.smoothers_lowess import lowess
+
+    x = np.asarray(fitted, dtype=float)
+    e = np.asarray(residuals, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(e)
+    out = lowess(e[ok], x[ok], frac=frac, it=3, return_sorted=True)
+    return out[:, 0], out[:, 1]
+
+
 def influential(cooks, leverage, p: int, *, max_labels: int = MAX_LABELS) -> np.ndarray:
     """Indices of records to label: Cook's distance > 4/n or leverage > 2p/n, largest
     Cook's distance first, at most ``max_labels``."""

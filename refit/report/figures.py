@@ -133,7 +133,8 @@ def _inversion_panel(ax, points, inv, labels, domain, level):
     ax.legend(loc="best")
 
 
-def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
+def residuals(fitted, resid, qq, *, y_label: str, studentized=None, unit: str = "",
+              trend=None):
     """Residuals against fitted values, and a normal Q-Q plot.
 
     Parameters
@@ -145,6 +146,12 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         (slope, intercept) (:func:`refit.report.diagnostics.normal_qq`).
     y_label : str
         The response's label with its unit.
+    unit : str
+        The residuals' unit (on the residual axis); empty for a log response.
+    trend : (array_like, array_like), optional
+        A smooth of the residuals against the fitted values (x, y), e.g.
+        :func:`refit.report.diagnostics.residual_trend`: a curve in it is easier to see
+        than in the cloud.
     """
     osm, osr, (slope, intercept) = qq
     with st.styled():
@@ -152,8 +159,12 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
         a.plot(fitted, resid, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9,
                ms=4.2, gid="residuals")
+        if trend is not None:
+            a.plot(*trend, color=st.CURVE, lw=1.6, gid="residual-trend",
+                   label="LOWESS trend")
+            a.legend(loc="upper right")
         a.set_xlabel(f"fitted {y_label}")
-        a.set_ylabel("residual (observed - fitted)")
+        a.set_ylabel(f"residual (observed - fitted){f' [{unit}]' if unit else ''}")
         a.set_title("Residuals against fitted values")
         b.plot(osm, osr, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
                gid="qq-points")
@@ -161,7 +172,7 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         b.plot(line_x, slope * line_x + intercept, color=st.CURVE, lw=1.2, gid="qq-line",
                label="reference line")
         b.set_xlabel("normal quantile")
-        b.set_ylabel("standardized residual")
+        b.set_ylabel("internally studentized residual")
         b.set_title("Normal Q-Q plot")
         b.legend(loc="upper left")
     return fig
@@ -358,6 +369,8 @@ def _percent():
 SOURCE_WIDTH = (0.62, 6.4, 10.4)
 #: spread of a source's points across its column (fraction of the column)
 JITTER = 0.5
+#: a source with fewer soils than this is drawn as points without a box
+MIN_BOX = 5
 
 
 def _jitter(n: int) -> np.ndarray:
@@ -407,23 +420,29 @@ def by_source(names, residuals, n, coverage, *, level: float, y_label: str,
 
 
 def _residual_panel(a, residuals, *, y_label: str, column: str) -> None:
-    """Each source's residuals as a strip of points over its box (top panel)."""
+    """Each source's residuals as a strip of points over its box (top panel); a source
+    with fewer than :data:`MIN_BOX` soils gets its points only (a box of one to four
+    points would look like a spread it does not have)."""
     a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
     for i, r in enumerate(residuals):
         r = np.asarray(r, dtype=float)
         a.plot(i + _jitter(r.size), r, ls="none", marker="o", mfc="white", mec=st.DATA,
                mew=0.8, ms=3.6, alpha=0.85, gid="source-residuals", zorder=3,
                label="soil" if i == 0 else None)
-    box = a.boxplot([np.asarray(r, dtype=float) for r in residuals],
-                    positions=np.arange(len(residuals), dtype=float), widths=0.6,
-                    showfliers=False, manage_ticks=False,
-                    medianprops={"color": st.CURVE, "lw": 1.8},
-                    boxprops={"color": st.DATA, "lw": 0.9},
-                    whiskerprops={"color": st.DATA, "lw": 0.9},
-                    capprops={"color": st.DATA, "lw": 0.9})
-    for artist in box["boxes"]:
-        artist.set_gid("source-box")
-    box["medians"][0].set_label("median, quartiles, 1.5 IQR whiskers")
+    boxed = [i for i, r in enumerate(residuals) if np.size(r) >= MIN_BOX]
+    if boxed:
+        box = a.boxplot([np.asarray(residuals[i], dtype=float) for i in boxed],
+                        positions=np.asarray(boxed, dtype=float), widths=0.6,
+                        showfliers=False, manage_ticks=False,
+                        medianprops={"color": st.CURVE, "lw": 1.8},
+                        boxprops={"color": st.DATA, "lw": 0.9},
+                        whiskerprops={"color": st.DATA, "lw": 0.9},
+                        capprops={"color": st.DATA, "lw": 0.9})
+        for artist in box["boxes"]:
+            artist.set_gid("source-box")
+        box["medians"][0].set_label("median, quartiles, 1.5 IQR whiskers"
+                                    + (f" ({MIN_BOX}+ soils)" if len(boxed) < len(residuals)
+                                       else ""))
     a.set_ylabel(y_label)
     a.set_title(f"Residuals (observed - fitted) by {column}, sorted by median")
 

@@ -244,12 +244,15 @@ def _held_out(inp, column: str, scheme: str) -> bool:
 
 
 def _caption(column, scheme, level, k, below, *, held_out: bool) -> str:
+    from refit.report import figures as fg
+
     how = (f"each {column} held out whole by {scheme}" if held_out else
            f"under {scheme}, which does not hold a {column} out whole, so this flatters "
            "what a new source would see")
     text = (f"Top: residuals of the chosen fit on the whole subset, one column per "
             f"{column} ({k}), sorted by median residual, with each {column}'s number of "
-            f"soils (n). A column whose box sits off zero is a {column} with its own "
+            f"soils (n); a {column} with fewer than {fg.MIN_BOX} soils is shown as points "
+            f"only. A column whose box sits off zero is a {column} with its own "
             f"offset. Bottom: out-of-fold coverage of the chosen candidate for the soils "
             f"of each {column} ({how}; pooled over repeats) against the nominal "
             f"{100 * level:.0f}% (dashed).")

@@ -133,12 +133,14 @@ def test_figure_draws_one_column_per_source(inp, section):
     med = resid.groupby(frame["source"].to_numpy()).median()
     order = med.reset_index().sort_values(["r", "index"]).iloc[:, 0].tolist()
     k = frame["source"].nunique()
-    assert len(by_gid(fig, "source-box")) == k
+    counts = frame["source"].value_counts()
+    # a box for each source with at least 5 soils; fewer (TUGP-2016 has 1 here): points only
+    assert (counts < 5).any()
+    assert len(by_gid(fig, "source-box")) == int((counts >= 5).sum())
     assert len(by_gid(fig, "source-residuals")) == k
     ticks = [t.get_text().split("\n")[0] for t in fig.axes[1].get_xticklabels()]
     assert ticks == order                                  # sorted by median residual
     n_ticks = [t.get_text().split("\n")[1] for t in fig.axes[1].get_xticklabels()]
-    counts = frame["source"].value_counts()
     assert n_ticks == [f"n = {counts[s]}" for s in order]
     # each strip holds its source's residuals
     for line, s in zip(by_gid(fig, "source-residuals"), order):
