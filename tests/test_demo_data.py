@@ -320,3 +320,81 @@ def test_fossils_table(tables):
     # burial deepens down-section: lower levels lie deeper
     for _, sec in fossils.groupby("section"):
         assert sec.sort_values("level_m")["burial_depth_km"].is_monotonic_decreasing
+
+
+# --- the clustered compilation (calib_demo/make_clustered.py) ------------------------------
+
+@pytest.fixture(scope="module")
+def clustered_gen():
+    """The clustered generator, loaded from its file (calib_demo/ is not a package)."""
+    spec = importlib.util.spec_from_file_location("make_clustered",
+                                                  DEMO / "make_clustered.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+@pytest.fixture(scope="module")
+def clustered(clustered_gen):
+    return clustered_gen.make_soils()
+
+
+def test_clustered_files_equal_a_fresh_run(clustered_gen, clustered, tmp_path):
+    clustered_gen.write_csv(clustered, tmp_path / "soils.csv")
+    committed = DEMO / "clustered"
+    assert (tmp_path / "soils.csv").read_bytes() == (committed / "soils.csv").read_bytes()
+    assert clustered_gen.recipe_text().encode("utf-8") == \
+        (committed / "recipe.toml").read_bytes()
+    pd.testing.assert_frame_equal(clustered_gen.make_soils(clustered_gen.SEED), clustered,
+                                  check_exact=True)
+    other = clustered_gen.make_soils(clustered_gen.SEED + 1)
+    assert not np.array_equal(other["map_mm"].to_numpy(), clustered["map_mm"].to_numpy())
+
+
+def test_clustered_table_is_ten_sources_on_slices_of_the_depth_range(clustered_gen,
+                                                                     clustered):
+    from refit import check_file
+
+    counts = clustered["source"].value_counts()
+    assert len(counts) == 10 and (counts == 25).all()
+    assert clustered["profile_id"].is_unique
+    span = clustered.groupby("source")["bk_depth_cm"].agg(lambda v: v.max() - v.min())
+    total = clustered["bk_depth_cm"].max() - clustered["bk_depth_cm"].min()
+    assert (span <= clustered_gen.WINDOW_CM).all() and total > 2.5 * clustered_gen.WINDOW_CM
+    report = check_file(DEMO / "clustered" / "soils.csv")   # refit's own check accepts it
+    assert report.ok and report.n_rows == 250 and len(report.warnings) == 0
+
+
+def test_clustered_between_to_within_sd_ratio_is_as_intended(clustered_gen, clustered):
+    """statsmodels MixedLM (REML, map_mm ~ bk_depth_cm, random intercept by source) on
+    the table recovers the between-source / within-source SD ratio the generator intended.
+
+    Tolerance 0.15: the offsets are scaled to a sample SD of exactly 50 mm, so what
+    remains is the within-source noise in each source's mean (50 / sqrt(25) = 10 mm, about
+    4% of the between variance), the REML within SD's own error (about 1 / sqrt(2 x 240),
+    5%) and the slope absorbing part of the offsets; a ratio of 0.5 or 2 fails.
+    """
+    import statsmodels.formula.api as smf
+
+    m = smf.mixedlm("map_mm ~ bk_depth_cm", clustered,
+                    groups=clustered["source"]).fit(reml=True)
+    assert m.converged
+    ratio = np.sqrt(float(m.cov_re.iloc[0, 0]) / float(m.scale))
+    intended = clustered_gen.BETWEEN_SD_MM / clustered_gen.WITHIN_SD_MM
+    assert intended == 1.0
+    assert ratio == pytest.approx(intended, abs=0.15)
+    assert np.sqrt(m.scale) == pytest.approx(clustered_gen.WITHIN_SD_MM, rel=0.1)
+    # the slope the generator drew MAP with (mm per cm), within two standard errors
+    assert abs(m.fe_params["bk_depth_cm"] - clustered_gen.SLOPE_MM_PER_CM) \
+        < 2 * m.bse_fe["bk_depth_cm"]
+
+
+def test_clustered_recipe_names_what_the_scenario_needs():
+    recipe = tomllib.loads((DEMO / "clustered" / "recipe.toml").read_text("utf-8"))
+    assert recipe["data"] == {"table": "soils.csv"}
+    assert recipe["function"]["id"] == "map_from_bk_depth"
+    assert recipe["candidates"]["estimators"] == ["ols", "mixed"]
+    assert recipe["validation"]["scheme"] == "group-kfold"
+    assert recipe["validation"]["groups"] == "source"
+    assert recipe["intervals"] == {"level": 0.95, "methods": [
+        "analytic", "jackknife+", "group-jackknife+", "group-cv+"]}

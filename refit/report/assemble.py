@@ -89,9 +89,11 @@ def _seed(inp) -> int:
 
 def residual_figure(inp, infl):
     qq = dg.normal_qq(infl["studentized"])
-    scale = "ln " if inp.fit.form.log_response else ""
+    log = inp.fit.form.log_response
     return fg.residuals(infl["fitted"], infl["residuals"], qq,
-                        y_label=scale + axis_label(inp.record, inp.fit.y_name))
+                        y_label=("ln " if log else "") + axis_label(inp.record, inp.fit.y_name),
+                        unit="" if log else unit_of(inp.record, inp.fit.y_name),
+                        trend=dg.residual_trend(infl["fitted"], infl["residuals"]))
 
 
 def influence_figure(inp, infl):
@@ -146,9 +148,11 @@ def make_figures(inp) -> tuple[list[dict], dict]:
     bp = heteroscedasticity(inp, infl)
     out.append({"id": "residuals", "title": "Residuals", "figure": residual_figure(inp, infl),
                 "caption": "Residuals of the fit on the whole subset against its fitted "
-                           "values (left) and their normal Q-Q plot (right; internally "
-                           "studentized residuals). A funnel, a curve or heavy tails say "
-                           "the intervals may be wrong somewhere.",
+                           "values (left; the line is a LOWESS smooth, statsmodels, 2/3 of "
+                           "the points per window) and their normal Q-Q plot (right; "
+                           "internally studentized residuals). A funnel, a trend line that "
+                           "bends away from zero or heavy tails say the intervals may be "
+                           "wrong somewhere.",
                 "after": bp["text"]})
     fig, flagged = influence_figure(inp, infl)
     out.append({"id": "influence", "title": "Influence", "figure": fig,

@@ -113,6 +113,29 @@ def influence(fit) -> dict:
             "p": int(X.shape[1]), "n": int(len(X))}
 
 
+#: share of the points in each LOWESS window of the residual trend (statsmodels' default)
+TREND_FRAC = 2.0 / 3.0
+
+
+def residual_trend(fitted, residuals, *, frac: float = TREND_FRAC):
+    """A LOWESS smooth of residuals against fitted values, sorted by fitted value.
+
+    Returns
+    -------
+    (x, y) : ndarray, shape (m,)
+        Fitted values and the smoothed residual [unit of the residuals]; m the finite
+        pairs. ``statsmodels.nonparametric.smoothers_lowess.lowess`` (Cleveland 1979,
+        JASA 74:829), ``frac`` of the points per window, 3 robustifying iterations.
+    """
+    from statsmodels.nonparametric.smoothers_lowess import lowess
+
+    x = np.asarray(fitted, dtype=float)
+    e = np.asarray(residuals, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(e)
+    out = lowess(e[ok], x[ok], frac=frac, it=3, return_sorted=True)
+    return out[:, 0], out[:, 1]
+
+
 def influential(cooks, leverage, p: int, *, max_labels: int = MAX_LABELS) -> np.ndarray:
     """Indices of records to label: Cook's distance > 4/n or leverage > 2p/n, largest
     Cook's distance first, at most ``max_labels``."""
@@ -145,17 +168,6 @@ def normal_qq(values) -> tuple[np.ndarray, np.ndarray, tuple[float, float]]:
 
 #: significance level of the report's Breusch-Pagan sentence (common practice)
 BP_ALPHA = 0.05
-#: a between-source variance below this fraction of the within-source variance is read as
-#: on the boundary (zero): REML's optimiser stops near, not at, zero
-BOUNDARY = 1e-6
-
-
-#: optimisers tried in turn for the random-intercept model until one converges:
-#: statsmodels' default (gradient methods), then Nelder-Mead and Powell, which reach a
-#: between-source variance on the boundary (zero) where the gradient methods stall
-RI_METHODS = (None, "nm", "powell")
-
-
 def het_design(design) -> np.ndarray:
     """The regressors of a Breusch-Pagan auxiliary regression from a fit's design.
 
@@ -218,19 +230,24 @@ def random_intercept(residuals, groups) -> dict:
     dict
         ``between_sd`` and ``within_sd`` [unit of the residuals], ``icc`` (between
         variance over total), ``n_groups``, ``n``, ``boundary`` (True when the between
-        variance is zero or on the boundary), ``converged`` and ``problem`` (a reason
-        when no model could be fitted, else None).
+        variance is zero or on the boundary), ``converged``, ``problem`` (a reason when no
+        model could be fitted, else None), ``fallback`` and ``warnings`` (as the mixed
+        estimator records them) and ``of`` (``"residuals"``).
 
     Notes
     -----
     residual_ij = mu + u_j + e_ij, u_j ~ N(0, tau²), e_ij ~ N(0, sigma²), fitted by REML
-    with ``statsmodels`` ``MixedLM`` (``residual ~ 1``, ``groups`` = source; the
-    optimisers of :data:`RI_METHODS` in turn until one converges); ICC =
-    tau² / (tau² + sigma²). Laird & Ware (1982), Biometrics 38:963.
+    with refit's mixed estimator (:func:`refit.models.mixed.fit_mixed`: statsmodels
+    ``MixedLM``, an intercept-only design, ``groups`` = source, the same optimiser
+    restarts and boundary rule as every mixed fit in refit); ICC = tau² / (tau² + sigma²).
+    On the boundary (tau² below ``refit.models.mixed.BOUNDARY_RATIO`` sigma²) the
+    estimator falls back to the pooled SD of the residuals, which is REML's sigma when
+    tau² = 0. Laird & Ware (1982), Biometrics 38:963.
     """
-    import warnings
-
     import pandas as pd
+
+    from refit.errors import InvalidDataError
+    from refit.models.mixed import fit_mixed
 
     e = np.asarray(residuals, dtype=float)
     g = pd.Series(np.asarray(groups, dtype=object))
@@ -238,7 +255,8 @@ def random_intercept(residuals, groups) -> dict:
     e, g = e[ok], g[ok].astype(str).to_numpy()
     out = {"between_sd": np.nan, "within_sd": np.nan, "icc": np.nan,
            "n_groups": int(len(set(g))), "n": int(e.size), "boundary": False,
-           "converged": False, "problem": None}
+           "converged": False, "problem": None, "fallback": None, "warnings": [],
+           "of": "residuals"}
     if out["n_groups"] < 2:
         out["problem"] = (f"{out['n_groups']} source(s): a between-source variance needs at "
                           "least two")
@@ -246,30 +264,22 @@ def random_intercept(residuals, groups) -> dict:
     if out["n"] <= out["n_groups"]:
         out["problem"] = "every source has a single soil: no within-source variance"
         return out
-    from statsmodels.regression.mixed_linear_model import MixedLM
-    from statsmodels.tools.sm_exceptions import ConvergenceWarning
-
-    model = MixedLM(e, np.ones((e.size, 1)), groups=g)
-    fits = []
-    for method in RI_METHODS:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            try:
-                res = model.fit(reml=True, **({"method": method} if method else {}))
-            except (np.linalg.LinAlgError, ValueError) as exc:
-                out["problem"] = f"the random-intercept model could not be fitted ({exc})"
-                continue
-        fits.append(res)
-        if res.converged:
-            break
-    if not fits:
+    try:
+        res = fit_mixed(np.ones((e.size, 1)), e, g, names=["intercept"])
+    except InvalidDataError as exc:
+        out["problem"] = f"the random-intercept model could not be fitted ({exc})"
         return out
-    res = max(fits, key=lambda r: (bool(r.converged), float(r.llf)))
-    out["problem"] = None
-    tau2, sigma2 = float(np.asarray(res.cov_re)[0, 0]), float(res.scale)
-    out["converged"] = bool(res.converged)
-    out["boundary"] = tau2 <= BOUNDARY * sigma2
-    tau2 = 0.0 if out["boundary"] else tau2
-    out.update(between_sd=float(np.sqrt(tau2)), within_sd=float(np.sqrt(sigma2)),
-               icc=tau2 / (tau2 + sigma2) if tau2 + sigma2 > 0 else np.nan)
-    return out
+    return {**out, **components(res.details)}
+
+
+def components(details: dict) -> dict:
+    """The between- and within-source SDs, ICC and flags of a mixed fit's ``details``
+    (:func:`refit.models.mixed.fit_mixed`), as the report states them."""
+    return {"between_sd": float(details["between_sd"]),
+            "within_sd": float(details["within_sd"]), "icc": float(details["icc"]),
+            "boundary": bool(details.get("boundary")),
+            "converged": bool(details.get("converged", False)),
+            "fallback": details.get("fallback"),
+            "warnings": list(details.get("warnings", [])),
+            "between_sd_se": float(details.get("between_sd_se", np.nan)),
+            "icc_se": float(details.get("icc_se", np.nan))}

@@ -133,7 +133,8 @@ def _inversion_panel(ax, points, inv, labels, domain, level):
     ax.legend(loc="best")
 
 
-def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
+def residuals(fitted, resid, qq, *, y_label: str, studentized=None, unit: str = "",
+              trend=None):
     """Residuals against fitted values, and a normal Q-Q plot.
 
     Parameters
@@ -145,6 +146,12 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         (slope, intercept) (:func:`refit.report.diagnostics.normal_qq`).
     y_label : str
         The response's label with its unit.
+    unit : str
+        The residuals' unit (on the residual axis); empty for a log response.
+    trend : (array_like, array_like), optional
+        A smooth of the residuals against the fitted values (x, y), e.g.
+        :func:`refit.report.diagnostics.residual_trend`: a curve in it is easier to see
+        than in the cloud.
     """
     osm, osr, (slope, intercept) = qq
     with st.styled():
@@ -152,8 +159,12 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
         a.plot(fitted, resid, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9,
                ms=4.2, gid="residuals")
+        if trend is not None:
+            a.plot(*trend, color=st.CURVE, lw=1.6, gid="residual-trend",
+                   label="LOWESS trend")
+            a.legend(loc="upper right")
         a.set_xlabel(f"fitted {y_label}")
-        a.set_ylabel("residual (observed - fitted)")
+        a.set_ylabel(f"residual (observed - fitted){f' [{unit}]' if unit else ''}")
         a.set_title("Residuals against fitted values")
         b.plot(osm, osr, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
                gid="qq-points")
@@ -161,7 +172,7 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None):
         b.plot(line_x, slope * line_x + intercept, color=st.CURVE, lw=1.2, gid="qq-line",
                label="reference line")
         b.set_xlabel("normal quantile")
-        b.set_ylabel("standardized residual")
+        b.set_ylabel("internally studentized residual")
         b.set_title("Normal Q-Q plot")
         b.legend(loc="upper left")
     return fig
@@ -360,6 +371,8 @@ def _percent():
 SOURCE_WIDTH = (0.62, 6.4, 10.4)
 #: spread of a source's points across its column (fraction of the column)
 JITTER = 0.5
+#: a source with fewer soils than this is drawn as points without a box
+MIN_BOX = 5
 
 
 def _jitter(n: int) -> np.ndarray:
@@ -390,66 +403,96 @@ def by_source(names, residuals, n, coverage, *, level: float, y_label: str,
     column, scheme : str
         The group column and the cross-validation scheme (titles).
     """
-    from refit.report.labels import freeze_layout, place_labels
+    from refit.report.labels import freeze_layout
 
     k = len(names)
     cov = np.asarray(coverage, dtype=float)
-    pos = np.arange(k, dtype=float)
-    below = np.isfinite(cov) & (cov < level)
     per, lo_w, hi_w = SOURCE_WIDTH
     with st.styled():
         fig, (a, b) = st.figure(1, nrows=2, sharex=True, height=6.8,
                                 width=float(np.clip(per * k + 2.2, lo_w, hi_w)))
-        a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
-        for i, r in enumerate(residuals):
-            r = np.asarray(r, dtype=float)
-            a.plot(i + _jitter(r.size), r, ls="none", marker="o", mfc="white", mec=st.DATA,
-                   mew=0.8, ms=3.6, alpha=0.85, gid="source-residuals", zorder=3,
-                   label="soil" if i == 0 else None)
-        box = a.boxplot([np.asarray(r, dtype=float) for r in residuals], positions=pos,
-                        widths=0.6, showfliers=False, manage_ticks=False,
+        _residual_panel(a, residuals, y_label=y_label, column=column)
+        _coverage_panel(b, cov, level=level, column=column, scheme=scheme)
+        _source_ticks(a, b, names, n, column)
+        handles = [h for ax in (a, b) for h in ax.get_legend_handles_labels()[0]]
+        labels = [t for ax in (a, b) for t in ax.get_legend_handles_labels()[1]]
+        fig.legend(handles, labels, loc="outside lower center", ncol=3)
+        _label_coverage(b, freeze_layout(fig), cov, level)
+    return fig
+
+
+def _residual_panel(a, residuals, *, y_label: str, column: str) -> None:
+    """Each source's residuals as a strip of points over its box (top panel); a source
+    with fewer than :data:`MIN_BOX` soils gets its points only (a box of one to four
+    points would look like a spread it does not have)."""
+    a.axhline(0.0, color=st.REFERENCE, lw=0.9, gid="zero")
+    for i, r in enumerate(residuals):
+        r = np.asarray(r, dtype=float)
+        a.plot(i + _jitter(r.size), r, ls="none", marker="o", mfc="white", mec=st.DATA,
+               mew=0.8, ms=3.6, alpha=0.85, gid="source-residuals", zorder=3,
+               label="soil" if i == 0 else None)
+    boxed = [i for i, r in enumerate(residuals) if np.size(r) >= MIN_BOX]
+    if boxed:
+        box = a.boxplot([np.asarray(residuals[i], dtype=float) for i in boxed],
+                        positions=np.asarray(boxed, dtype=float), widths=0.6,
+                        showfliers=False, manage_ticks=False,
                         medianprops={"color": st.CURVE, "lw": 1.8},
                         boxprops={"color": st.DATA, "lw": 0.9},
                         whiskerprops={"color": st.DATA, "lw": 0.9},
                         capprops={"color": st.DATA, "lw": 0.9})
         for artist in box["boxes"]:
             artist.set_gid("source-box")
-        box["medians"][0].set_label("median, quartiles, 1.5 IQR whiskers")
-        a.set_ylabel(y_label)
-        a.set_title(f"Residuals (observed - fitted) by {column}, sorted by median")
-        ok = np.isfinite(cov) & ~below
-        b.axhline(level, color=st.REFERENCE, lw=0.9, ls="--", gid="nominal",
-                  label=f"nominal {100 * level:.0f}%")
-        b.vlines(pos[np.isfinite(cov)], level, cov[np.isfinite(cov)], color=st.GREY,
-                 lw=0.9, gid="coverage-stems")
-        b.plot(pos[ok], cov[ok], ls="none", marker="o", mfc="white", mec=st.CURVE, mew=1.4,
-               ms=6.5, gid="coverage-ok", label="at or above nominal")
-        b.plot(pos[below], cov[below], ls="none", marker="v", color=st.FLAGGED, ms=7.5,
-               gid="coverage-below", label="below nominal")
-        for i in np.flatnonzero(~np.isfinite(cov)):
-            b.text(pos[i], level, "no out-of-fold\nprediction", ha="center", va="bottom",
-                   fontsize=7, color=st.GREY, gid="coverage-missing")
-        b.set_ylabel("out-of-fold coverage")
-        b.yaxis.set_major_formatter(_percent())
-        fin = cov[np.isfinite(cov)]
-        b.set_ylim(min(level - 0.1, float(fin.min()) - 0.06) if fin.size else level - 0.1,
-                   1.04)
-        b.set_title(f"Out-of-fold coverage by {column} ({scheme}, all repeats)")
-        b.set_xlim(-0.6, k - 0.4)
-        b.set_xticks(pos, [f"{s}\nn = {m}" for s, m in zip(names, n)],
-                     rotation=0 if k <= 8 else 35, ha="center" if k <= 8 else "right")
-        b.set_xlabel(column)
-        a.tick_params(labelbottom=False)
-        handles = [h for ax in (a, b) for h in ax.get_legend_handles_labels()[0]]
-        labels = [t for ax in (a, b) for t in ax.get_legend_handles_labels()[1]]
-        fig.legend(handles, labels, loc="outside lower center", ncol=3)
-        renderer = freeze_layout(fig)
-        order = np.concatenate([np.flatnonzero(below), np.flatnonzero(ok)])
-        stem_pts = [(np.full(20, pos[i]), np.linspace(level, cov[i], 20))
-                    for i in np.flatnonzero(np.isfinite(cov))]
-        ax_ = np.concatenate([pos] + [s[0] for s in stem_pts])
-        ay_ = np.concatenate([np.where(np.isfinite(cov), cov, level)] + [s[1] for s in stem_pts])
-        place_labels(b, renderer, pos[order], cov[order],
-                     [f"{100 * c:.1f}%" for c in cov[order]], avoid=(ax_, ay_),
-                     gid="coverage-label")
-    return fig
+        box["medians"][0].set_label("median, quartiles, 1.5 IQR whiskers"
+                                    + (f" ({MIN_BOX}+ soils)" if len(boxed) < len(residuals)
+                                       else ""))
+    a.set_ylabel(y_label)
+    a.set_title(f"Residuals (observed - fitted) by {column}, sorted by median")
+
+
+def _coverage_panel(b, cov, *, level: float, column: str, scheme: str) -> None:
+    """Each source's out-of-fold coverage against the nominal level (bottom panel)."""
+    pos = np.arange(cov.size, dtype=float)
+    fin = np.isfinite(cov)
+    below = fin & (cov < level)
+    ok = fin & ~below
+    b.axhline(level, color=st.REFERENCE, lw=0.9, ls="--", gid="nominal",
+              label=f"nominal {100 * level:.0f}%")
+    b.vlines(pos[fin], level, cov[fin], color=st.GREY, lw=0.9, gid="coverage-stems")
+    b.plot(pos[ok], cov[ok], ls="none", marker="o", mfc="white", mec=st.CURVE, mew=1.4,
+           ms=6.5, gid="coverage-ok", label="at or above nominal")
+    b.plot(pos[below], cov[below], ls="none", marker="v", color=st.FLAGGED, ms=7.5,
+           gid="coverage-below", label="below nominal")
+    for i in np.flatnonzero(~fin):
+        b.text(pos[i], level, "no out-of-fold\nprediction", ha="center", va="bottom",
+               fontsize=7, color=st.GREY, gid="coverage-missing")
+    b.set_ylabel("out-of-fold coverage")
+    b.yaxis.set_major_formatter(_percent())
+    b.set_ylim(min(level - 0.1, float(cov[fin].min()) - 0.06) if fin.any() else level - 0.1,
+               1.04)
+    b.set_title(f"Out-of-fold coverage by {column} ({scheme}, all repeats)")
+
+
+def _source_ticks(a, b, names, n, column: str) -> None:
+    """Source names and soil counts under the bottom panel (slanted beyond 8 sources)."""
+    k = len(names)
+    b.set_xlim(-0.6, k - 0.4)
+    b.set_xticks(np.arange(k, dtype=float), [f"{s}\nn = {m}" for s, m in zip(names, n)],
+                 rotation=0 if k <= 8 else 35, ha="center" if k <= 8 else "right")
+    b.set_xlabel(column)
+    a.tick_params(labelbottom=False)
+
+
+def _label_coverage(b, renderer, cov, level: float) -> None:
+    """Coverage in percent beside each point, below-nominal sources first, kept clear of
+    the points and stems."""
+    from refit.report.labels import place_labels
+
+    pos = np.arange(cov.size, dtype=float)
+    fin = np.isfinite(cov)
+    below = fin & (cov < level)
+    order = np.concatenate([np.flatnonzero(below), np.flatnonzero(fin & ~below)])
+    stems = [(np.full(20, pos[i]), np.linspace(level, cov[i], 20)) for i in np.flatnonzero(fin)]
+    ax_ = np.concatenate([pos] + [s[0] for s in stems])
+    ay_ = np.concatenate([np.where(fin, cov, level)] + [s[1] for s in stems])
+    place_labels(b, renderer, pos[order], cov[order], [f"{100 * c:.1f}%" for c in cov[order]],
+                 avoid=(ax_, ay_), gid="coverage-label")

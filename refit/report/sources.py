@@ -4,8 +4,10 @@ A fossil soil always comes from a source (survey, region, author) the calibratio
 saw, and compilations pool sources with their own offsets. This module turns a reloaded
 run (:class:`refit.report.inputs.ReportInputs`) into the numbers and words of that
 section: the chosen fit's residuals by source, the out-of-fold coverage of each held-out
-source, and the between-source spread of the residuals (a random-intercept model, see
-:func:`refit.report.diagnostics.random_intercept`). No drawing details, no HTML.
+source, and the between-source spread: the chosen fit's own variance components when it
+is a mixed fit, else a random-intercept model of its residuals (both by
+:func:`refit.models.mixed.fit_mixed`, the one mixed-model path). No drawing details, no
+HTML.
 """
 
 from __future__ import annotations
@@ -116,27 +118,53 @@ def coverage_by_group(oof, groups, scheme: str):
     return t.reset_index()
 
 
+def spread(fit, residuals, groups) -> dict:
+    """The between- and within-source spread the section states.
+
+    A mixed fit states its own variance components (its ``details``, from
+    :func:`refit.models.mixed.fit_mixed`): they are what its interval for a new source
+    uses. Any other fit: a random-intercept model of its residuals by group
+    (:func:`refit.report.diagnostics.random_intercept`, the same estimator).
+    """
+    if getattr(fit, "estimator", None) == "mixed":
+        d = fit.result.details
+        return {**dg.components(d), "n_groups": int(d.get("n_groups", len(set(groups)))),
+                "n": int(np.asarray(residuals).size), "problem": None, "of": "fit"}
+    return dg.random_intercept(residuals, np.where(groups == NO_GROUP, None, groups))
+
+
 def spread_sentence(ri: dict, column: str, unit: str) -> str:
-    """The between-source SD and ICC of the residuals in one or two sentences."""
+    """The between-source SD and ICC in one or two sentences (of the residuals, or of
+    the chosen mixed fit itself when ``ri['of'] == 'fit'``)."""
     from refit.report.context import num
 
     u = f" {unit}" if unit else ""
-    how = (f"a random-intercept model of the residuals (REML, statsmodels MixedLM, "
-           f"{ri['n_groups']} groups by {column}, {ri['n']} soils)")
     if ri["problem"]:
         return f"The between-source spread is not estimated: {ri['problem']}."
+    if ri.get("of") == "fit":
+        how = (f"the chosen fit itself, a random-intercept model (REML, statsmodels "
+               f"MixedLM, {ri['n_groups']} groups by {column}, {ri['n']} soils)")
+    else:
+        how = (f"a random-intercept model of the residuals (REML, statsmodels MixedLM, "
+               f"{ri['n_groups']} groups by {column}, {ri['n']} soils)")
     if ri["boundary"]:
-        return (f"No between-source variance detected: {how} puts it on the boundary "
-                f"(zero); the within-source SD is {num(ri['within_sd'], 3)}{u}.")
+        why = (" put it on the boundary (zero)" if ri["converged"] else
+               " did not converge, and the likelihood gives no evidence for it")
+        text = (f"No between-source variance detected: {how}{why}; the within-source SD "
+                f"is {num(ri['within_sd'], 3)}{u}.")
+        if ri.get("of") == "fit":
+            text += (" The fit fell back to pooled least squares, so its interval is the "
+                     "pooled one.")
+        return text
     text = (f"Between-source SD {num(ri['between_sd'], 3)}{u}, within-source SD "
             f"{num(ri['within_sd'], 3)}{u}, intraclass correlation (ICC) "
             f"{num(ri['icc'], 2)}, from {how}. {100 * ri['icc']:.0f}% of the residual "
             "variance is an offset shared by the soils of one source: a fossil soil from "
-            "a new source carries such an offset too, which an interval built as if "
-            "soils were independent leaves out.")
-    if not ri["converged"]:
-        text += " (The model's optimiser reported a convergence warning: read as rough.)"
-    return text
+            "a new source carries such an offset too")
+    if ri.get("of") == "fit":
+        return text + (", and this fit's interval for a new source includes it (the "
+                       "residuals drawn are observed minus the fixed-effects line).")
+    return text + (", which an interval built as if soils were independent leaves out.")
 
 
 def _groups_by_row(oof, frame, groups):
@@ -186,7 +214,7 @@ def section(inp) -> dict:
     table = residuals_by_group(resid, groups).merge(
         coverage_by_group(_groups_by_row(inp.oof, frame, groups), groups, scheme),
         on="group", how="left")
-    ri = dg.random_intercept(resid, np.where(groups == NO_GROUP, None, groups))
+    ri = spread(fit, resid, groups)
     unit = unit_of(inp.record, fit.y_name)
     y_label = (f"ln {fit.y_name} residual" if fit.form.log_response
                else f"{fit.y_name} residual{f' [{unit}]' if unit else ''}")
@@ -216,12 +244,15 @@ def _held_out(inp, column: str, scheme: str) -> bool:
 
 
 def _caption(column, scheme, level, k, below, *, held_out: bool) -> str:
+    from refit.report import figures as fg
+
     how = (f"each {column} held out whole by {scheme}" if held_out else
            f"under {scheme}, which does not hold a {column} out whole, so this flatters "
            "what a new source would see")
     text = (f"Top: residuals of the chosen fit on the whole subset, one column per "
             f"{column} ({k}), sorted by median residual, with each {column}'s number of "
-            f"soils (n). A column whose box sits off zero is a {column} with its own "
+            f"soils (n); a {column} with fewer than {fg.MIN_BOX} soils is shown as points "
+            f"only. A column whose box sits off zero is a {column} with its own "
             f"offset. Bottom: out-of-fold coverage of the chosen candidate for the soils "
             f"of each {column} ({how}; pooled over repeats) against the nominal "
             f"{100 * level:.0f}% (dashed).")

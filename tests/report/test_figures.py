@@ -172,6 +172,21 @@ def test_residual_and_influence_figures(norris):
     fig = fg.residuals(infl["fitted"], infl["residuals"], qq, y_label="y")
     np.testing.assert_allclose(line(fig, "residuals").get_ydata(), f.result.residuals)
     np.testing.assert_allclose(line(fig, "qq-points").get_xdata(), qq[0])
+    assert fig.axes[0].get_ylabel() == "residual (observed - fitted)"
+    assert fig.axes[1].get_ylabel() == "internally studentized residual"
+    assert not [a for a in fig.axes[0].get_lines() if a.get_gid() == "residual-trend"]
+    # with a trend and a unit: the trend is statsmodels' LOWESS of the residuals on the
+    # fitted values (computed here, frac 2/3, 3 iterations), the unit on the residual axis
+    from statsmodels.nonparametric.smoothers_lowess import lowess
+
+    trend = dg.residual_trend(infl["fitted"], infl["residuals"])
+    ref = lowess(infl["residuals"], infl["fitted"], frac=2 / 3, it=3)
+    np.testing.assert_allclose(trend[0], ref[:, 0])
+    np.testing.assert_allclose(trend[1], ref[:, 1])
+    fig = fg.residuals(infl["fitted"], infl["residuals"], qq, y_label="y [mm]", unit="mm",
+                       trend=trend)
+    np.testing.assert_allclose(line(fig, "residual-trend").get_ydata(), ref[:, 1])
+    assert fig.axes[0].get_ylabel() == "residual (observed - fitted) [mm]"
     labels = [f"N{i:02d}" for i in range(len(d))]
     hi = dg.influential(infl["cooks"], infl["leverage"], infl["p"])
     assert len(hi) > 0
