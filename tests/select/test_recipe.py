@@ -108,7 +108,8 @@ def test_duplicate_key_is_invalid_toml(tmp_path):
 @pytest.mark.parametrize("old, new, line, key", [
     ("seed = 42", "sead = 42", 25, "'sead'"),
     ("[intervals]", "[interval]", 27, "[interval]"),
-    ('response = "map_mm"', 'response = "map_mm"\nweights = "w"', 13, "'weights'"),
+    ('response = "map_mm"', 'response = "map_mm"\nweight = "w"', 13,
+     "'weight' in [function] (did you mean 'weights'?)"),
 ])
 def test_unknown_key_or_section_names_its_line(tmp_path, old, new, line, key):
     with pytest.raises(UsageError) as e:
