@@ -292,3 +292,20 @@ def test_spatial_blocks_with_groups_and_block_km(tmp_path):
     r = read_recipe(write(tmp_path, edit('scheme = "group-kfold"',
                                          'scheme = "spatial-block"\nblock_km = 40')))
     assert (r.scheme, r.groups, r.block_km) == ("spatial-block", "source", 40.0)
+
+
+def test_readme_recipe_reference_example_parses(tmp_path):
+    # the README's "Recipe reference" example is a valid recipe, read as documented
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text("utf-8")
+    section = readme.split("## Recipe reference", 1)[1].split("\n## ", 1)[0]
+    (block,) = re.findall(r"```toml\n(.*?)```", section, flags=re.S)
+    r = read_recipe(write(tmp_path, block))
+    assert (r.version, r.weights, r.x_sd, r.y_sd) == (3, "bk_weight", "bk_depth_sd_cm",
+                                                      "map_sd_mm")
+    assert r.methods == ("analytic", "group-jackknife+", "group-cv+") and r.defaults == ()
+    for key in ("version", "weights", "x_sd", "random_slope", "block_km", "groups", "methods",
+                "leave-one-out", "{ min = 5 }"):
+        assert key in section, key
