@@ -266,3 +266,4 @@ def python_and_refit() -> tuple[str, str]:
 
 
 import fitcases  # noqa: E402,F401  (registers fit, loo, jackknife+, bootstrap, evaluate, ...)
+import groupcases  # noqa: E402,F401  (registers grouped, newsource)

@@ -216,6 +216,10 @@ def print_run(run, out, console=None) -> None:
             + (f"; beside it random {_scheme_text(kf)}" if kf is not None else ""))
     c.print(f"Candidates: {len(m.specs)} fitted, {len(m.skipped)} skipped; interval level "
             f"{r.level:g}")
+    for note in getattr(run, "defaults", []):
+        c.print(Text(f"Default: {note}.", style="cyan"))
+    for warning in getattr(run, "warnings", []):
+        c.print(Text(f"Warning: {warning}.", style="bold yellow"))
     table = Table(title=f"Leaderboard: {r.function_id} ({main.name})", title_justify="left")
     heads = ["#", "candidate", "RMSEP", "bias", "coverage", "width", "score", "k-fold RMSEP",
              "k-fold score", "R² in", "AIC"]
@@ -240,6 +244,8 @@ def print_run(run, out, console=None) -> None:
     c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
     if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
+    for note in m.verdict.get("unbounded", []):
+        c.print(Text(f"Unbounded: {note}.", style="yellow"))
     opt = m.verdict.get("optimism")
     if opt:
         c.print(f"Optimism: random k-fold flatters; {main.name}'s RMSEP is "

@@ -6,8 +6,9 @@ refit that verifies a coefficient file, and the report. All three use this modul
 accept the same files and say the same things when the data are not the recorded ones:
 
 :func:`dataset_from_recipe`
-    open the store (at its current version) or the table the recipe names, apply the
-    subset;
+    open the store (at the recipe's ``[data] version``, default its current version) or
+    the table the recipe names, apply the subset, check the weight and measurement-SD
+    columns;
 :func:`dataset_from_record`
     open the data a coefficient record names in ``provenance.dataset`` (store version ``k``
     = the first ``n_k`` rows of ``records.csv``, see :mod:`refit.curate.store`; or a table),
@@ -103,6 +104,8 @@ def check_columns(recipe: Recipe, columns, *, source: str) -> None:
     wanted += [("function.predictors", p) for p in recipe.predictors]
     if recipe.groups is not None:
         wanted.append(("validation.groups", recipe.groups))
+    wanted += [(f"function.{k}", getattr(recipe, k)) for k in ("weights", "x_sd", "y_sd")
+               if getattr(recipe, k) is not None]
     for key, name in wanted:
         if name not in have:
             section, k = key.split(".")
@@ -153,27 +156,48 @@ def _checked_table(path: Path, where: str):
     return report.frame, int(report.n_rows)
 
 
+def _store_at(recipe: Recipe):
+    """The store's records at the recipe's ``[data] version`` (default the latest)."""
+    from refit.curate.store import typed_records
+
+    store = _open_store(recipe.store, f"{recipe.where('data.store')}: [data] ",
+                        "check the path, relative to the recipe's folder")
+    version = recipe.version
+    if version is None or version == store.version:
+        return store.records, DataSource("store", recipe.store, store.name, store.version,
+                                         store.manifest.get("records_sha256"),
+                                         int(len(store.records)))
+    entry = next((e for e in store.manifest.get("changelog", []) if e["version"] == version),
+                 None)
+    if entry is None:
+        raise InvalidDataError(f"{recipe.where('data.version')}: [data] version = {version}, "
+                               f"but store {store.name!r} has versions 1 to {store.version}; "
+                               "name one of them, or remove the key for the latest")
+    frame = typed_records(store.records_at(version))
+    return frame, DataSource("store", recipe.store, store.name, version,
+                             entry["records_sha256"], int(len(frame)))
+
+
 def open_recipe_data(recipe: Recipe):
     """The records a recipe names and their :class:`DataSource`.
 
-    A store is read at its current version; a table is read, its units and column names
-    normalised and checked, and refused if the check finds errors.
+    A store is read at the recipe's ``[data] version`` (dataset version k: the first
+    ``n_k`` rows of ``records.csv``, checked against version k's recorded sha256; default
+    the current version); a table is read, its units and column names normalised and
+    checked, and refused if the check finds errors.
 
     Raises
     ------
     UnreadableInputError
         The store or table is not found.
     InvalidDataError
-        The table has errors, or the store's records do not match its manifest.
+        The table has errors, the store has no such version, or the store's records do
+        not match its manifest.
     """
     from refit._util.atomic import sha256_file
 
     if recipe.store is not None:
-        store = _open_store(recipe.store, f"{recipe.where('data.store')}: [data] ",
-                            "check the path, relative to the recipe's folder")
-        source = DataSource("store", recipe.store, store.name, store.version,
-                            store.manifest.get("records_sha256"), int(len(store.records)))
-        return store.records, source
+        return _store_at(recipe)
     where = f"{recipe.where('data.table')}: [data] "
     frame, rows = _checked_table(recipe.table, where)
     source = DataSource("table", recipe.table, recipe.table.name, None,
@@ -279,10 +303,43 @@ def _subset(recipe: Recipe, frame, source: str, *, recorded: bool) -> SubsetResu
         raise InvalidDataError(f"the recorded subset cannot be rebuilt: {exc}") from None
 
 
+def check_positive_columns(recipe: Recipe, frame) -> None:
+    """Refuse empty or non-positive weights and measurement SDs in the subset.
+
+    ``[function] weights`` (relative inverse variances), ``x_sd`` and ``y_sd``
+    (measurement standard deviations) must be numbers > 0 in every row the fit uses.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming the recipe line, the column and the first offending rows (profile ids).
+    """
+    import numpy as np
+    import pandas as pd
+
+    ids = frame["profile_id"] if "profile_id" in frame.columns else pd.Series(frame.index)
+    for key in ("weights", "x_sd", "y_sd"):
+        col = getattr(recipe, key)
+        if col is None:
+            continue
+        values = pd.to_numeric(frame[col], errors="coerce").to_numpy(float)
+        for bad, what in ((np.isnan(values), "no number"),
+                          (~np.isnan(values) & ~(values > 0), "a value <= 0")):
+            if bad.any():
+                rows = ", ".join(map(str, ids.to_numpy()[bad][:8]))
+                more = f" and {int(bad.sum()) - 8} more" if bad.sum() > 8 else ""
+                raise InvalidDataError(
+                    f"{recipe.where(f'function.{key}')}: [function] {key} = {col!r} has "
+                    f"{what} in {int(bad.sum())} row(s) of the subset ({rows}{more}); "
+                    f"{key} must be > 0 in every row: fill or correct them, or leave those "
+                    "rows out with [subset]")
+
+
 def dataset_from_recipe(recipe: Recipe) -> Dataset:
     """Open the data a recipe names and apply its subset (see :func:`open_recipe_data`)."""
     frame, source = open_recipe_data(recipe)
     sub = _subset(recipe, frame, source.describe(), recorded=False)
+    check_positive_columns(recipe, sub.frame)
     return Dataset(frame, sub, source, recipe)
 
 

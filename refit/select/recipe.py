@@ -4,10 +4,12 @@ to judge them.
 A recipe has these sections (every key is optional unless marked *required*)::
 
     [data]          table = "soils.csv"  or  store = "path/to/store"    (one of them, required)
+                    version (a store's dataset version; default the latest)
     [subset]        <column> = "value" | ["value", ...] | { min = ..., max = ... }
-    [function]      id (required), response (required), predictors (required)
-    [candidates]    forms, estimators, directions
-    [validation]    scheme, folds, repeats, groups, seed
+    [function]      id (required), response (required), predictors (required),
+                    weights (wls), x_sd and y_sd (york)
+    [candidates]    forms, estimators, directions, random_slope (mixed)
+    [validation]    scheme, folds, repeats, groups, seed, block_km (spatial-block)
     [intervals]     level, methods
 
 Paths in ``[data]`` are relative to the recipe file. The file is parsed with the standard
@@ -15,40 +17,46 @@ library's TOML reader (``tomllib``, TOML 1.0); nothing in it is ever evaluated a
 Unknown sections or keys and bad values are errors that name the file, the line and the key.
 
 Forms are ``linear``, ``quadratic``, ``cubic``, ``polynomial-N`` (N = 2..6) and
-``exponential``; estimators ``ols``, ``huber``, ``theil-sen``, ``quantile`` (``wls`` and
-``york`` need weight or measurement-error columns that recipes do not name yet: they are
-accepted and reported as skipped by the fit matrix); directions ``inverse`` and ``forward``;
+``exponential``; estimators ``ols``, ``wls`` (needs ``[function] weights``), ``huber``,
+``theil-sen``, ``york`` (needs ``[function] x_sd`` and ``y_sd``: measurement SDs of the
+feature and of the climate column), ``quantile``, ``mixed`` (needs ``[validation] groups``);
+directions ``inverse`` and ``forward``;
 schemes ``kfold``, ``loo`` (or ``leave-one-out``), ``group-kfold``, ``leave-one-group-out``,
 ``spatial-block`` (:mod:`refit.select.schemes`);
 interval methods ``analytic``, ``bootstrap``, ``split-conformal``, ``jackknife+``, ``cv+``,
-``quantile``.
+``quantile``, ``group-jackknife+``, ``group-cv+`` (whole groups left out; need ``groups``).
+What a recipe leaves out gets the defaults of :mod:`refit.select.defaults`.
 """
 
 from __future__ import annotations
 
-import difflib
 import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from refit.errors import InvalidDataError, RefitError, UnreadableInputError, UsageError
+from refit.select.defaults import resolve
+from refit.select.values import Values, suggest  # noqa: F401  (suggest: public here too)
+from refit.select.values import where as _where
 from refit.select.schemes import ALIASES, NEEDS_GROUP_COLUMN, SCHEMES, canonical_scheme
 from refit.select.subsets import Filter, parse_filter
 
 SECTIONS = {
-    "data": ("table", "store"),
+    "data": ("table", "store", "version"),
     "subset": None,  # any column name
-    "function": ("id", "response", "predictors"),
-    "candidates": ("forms", "estimators", "directions"),
-    "validation": ("scheme", "folds", "repeats", "groups", "seed"),
+    "function": ("id", "response", "predictors", "weights", "x_sd", "y_sd"),
+    "candidates": ("forms", "estimators", "directions", "random_slope"),
+    "validation": ("scheme", "folds", "repeats", "groups", "seed", "block_km"),
     "intervals": ("level", "methods"),
 }
 FORMS = ("linear", "quadratic", "cubic", "exponential")  # plus polynomial-N
 MAX_DEGREE = 6
-ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile")
+ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
-METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile")
+GROUP_METHODS = ("group-jackknife+", "group-cv+")
+METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile",
+           *GROUP_METHODS)
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")
 
 
@@ -79,7 +87,14 @@ class Recipe:
     seed: int = 0
     level: float = 0.95
     methods: tuple[str, ...] = ("analytic",)
+    version: int | None = None
+    weights: str | None = None
+    x_sd: str | None = None
+    y_sd: str | None = None
+    random_slope: bool = False
+    block_km: float | None = None
     lines: dict = field(default_factory=dict, compare=False, repr=False)
+    defaults: tuple[str, ...] = field(default=(), compare=False)
 
     def where(self, key: str) -> str:
         """``"recipe.toml, line 12"`` for a ``section.key`` (or the file alone)."""
@@ -91,15 +106,19 @@ class Recipe:
         return {
             "path": self.path.name, "sha256": self.sha256,
             "data": {"table": _relative(self.table, self.path),
-                     "store": _relative(self.store, self.path)},
+                     "store": _relative(self.store, self.path), "version": self.version},
             "subset": [f.to_dict() for f in self.subset],
             "function": {"id": self.function_id, "response": self.response,
-                         "predictors": list(self.predictors)},
+                         "predictors": list(self.predictors), "weights": self.weights,
+                         "x_sd": self.x_sd, "y_sd": self.y_sd},
             "candidates": {"forms": list(self.forms), "estimators": list(self.estimators),
-                           "directions": list(self.directions)},
+                           "directions": list(self.directions),
+                           "random_slope": self.random_slope},
             "validation": {"scheme": self.scheme, "folds": self.folds,
-                           "repeats": self.repeats, "groups": self.groups, "seed": self.seed},
+                           "repeats": self.repeats, "groups": self.groups, "seed": self.seed,
+                           "block_km": self.block_km},
             "intervals": {"level": self.level, "methods": list(self.methods)},
+            "defaults_applied": list(self.defaults),
         }
 
 
@@ -166,17 +185,6 @@ def key_lines(text: str) -> dict[str, int]:
     return out
 
 
-def _where(path: Path, lines: dict, key: str) -> str:
-    line = lines.get(key) or lines.get(key.split(".")[0])
-    return f"{path}" + (f", line {line}" if line else "")
-
-
-def suggest(word: str, choices) -> str:
-    """``" (did you mean 'x'?)"`` for the closest of ``choices``, or ``""``."""
-    close = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
-    return f" (did you mean {close[0]!r}?)" if close else ""
-
-
 # ----------------------------------------------------------------------------- reading
 def read_recipe(path, *, data: dict | None = None) -> Recipe:
     """Read and check a recipe file.
@@ -233,7 +241,7 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
     given = data
     lines = key_lines(text)
     _check_keys(doc, path, lines)
-    v = _Values(path, lines)
+    v = Values(path, lines)
     data = doc.get("data", {})
     table, store = _data_paths(data, path, lines) if given is None else _given_paths(given)
     fn = doc.get("function", {})
@@ -254,12 +262,18 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
     cand = doc.get("candidates", {})
     val = doc.get("validation", {})
     ivl = doc.get("intervals", {})
-    scheme = v.choice("validation.scheme", canonical_scheme(val.get("scheme", "kfold")),
-                      SCHEMES, aliases=tuple(ALIASES))
     groups = None
     if "groups" in val:
         groups = v.string("validation.groups", val["groups"])
+    given = {k: sec[k] for sec, k in ((val, "scheme"), (cand, "estimators"), (ivl, "methods"))
+             if k in sec}
+    filled, notes = resolve(given, groups)
+    scheme = v.choice("validation.scheme", canonical_scheme(filled["scheme"]), SCHEMES,
+                      aliases=tuple(ALIASES))
     _check_groups(scheme, groups, path, lines)
+    estimators = v.list_of("candidates.estimators", filled["estimators"], ESTIMATORS)
+    methods = v.list_of("intervals.methods", filled["methods"], METHODS)
+    _needs_groups(groups, estimators, methods, path, lines)
     return Recipe(
         path=path, sha256=sha256, table=table, store=store,
         subset=tuple(parse_filter(col, value, where=_where(path, lines, f"subset.{col}"),
@@ -268,8 +282,7 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
         function_id=fid, response=response, predictors=predictors,
         forms=v.list_of("candidates.forms", cand.get("forms", ["linear"]), FORMS,
                         valid=_valid_form, extra="polynomial-N (N = 2..6)"),
-        estimators=v.list_of("candidates.estimators", cand.get("estimators", ["ols"]),
-                             ESTIMATORS),
+        estimators=estimators,
         directions=v.list_of("candidates.directions", cand.get("directions", ["inverse"]),
                              DIRECTIONS),
         scheme=scheme,
@@ -278,9 +291,48 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
         groups=groups,
         seed=v.integer("validation.seed", val.get("seed", 0), minimum=0),
         level=v.level("intervals.level", ivl.get("level", 0.95)),
-        methods=v.list_of("intervals.methods", ivl.get("methods", ["analytic"]), METHODS),
-        lines=lines,
+        methods=methods, lines=lines, defaults=tuple(notes),
+        **_extras(v, doc, scheme, store, path, lines),
     )
+
+
+def _extras(v, doc: dict, scheme: str, store, path: Path, lines: dict) -> dict:
+    """``version``, ``weights``, ``x_sd``, ``y_sd``, ``random_slope`` and ``block_km``."""
+    data, fn = doc.get("data", {}), doc.get("function", {})
+    out = {k: v.string(f"function.{k}", fn[k]) for k in ("weights", "x_sd", "y_sd")
+           if k in fn}
+    version = data.get("version", "latest")
+    if version != "latest":
+        out["version"] = v.integer("data.version", version, minimum=1)
+        if store is None:
+            raise UsageError(f"{_where(path, lines, 'data.version')}: [data] version pins a "
+                             "store's dataset version; a table has no versions (name a store, "
+                             "or remove the key)")
+    slope = doc.get("candidates", {}).get("random_slope", False)
+    if not isinstance(slope, bool):
+        v.fail("candidates.random_slope", "true or false", slope)
+    out["random_slope"] = slope
+    if "block_km" in doc.get("validation", {}):
+        km = doc["validation"]["block_km"]
+        if isinstance(km, bool) or not isinstance(km, (int, float)) or not 0 < km < 1e5:
+            v.fail("validation.block_km", "a positive number of kilometres, e.g. 50", km)
+        if scheme != "spatial-block":
+            raise UsageError(f"{_where(path, lines, 'validation.block_km')}: block_km sets the "
+                             f"size of spatial blocks; it has no effect with scheme "
+                             f"{scheme!r} (use scheme = \"spatial-block\" or remove it)")
+        out["block_km"] = float(km)
+    return out
+
+
+def _needs_groups(groups, estimators, methods, path: Path, lines: dict) -> None:
+    if groups is not None:
+        return
+    for key, name in (("candidates.estimators", "mixed"),
+                      *(("intervals.methods", m) for m in GROUP_METHODS)):
+        if name in (estimators if key.startswith("candidates") else methods):
+            raise UsageError(f"{_where(path, lines, key)}: {name!r} needs the groups of the "
+                             "soils: add groups = \"<column>\" to [validation] (e.g. groups = "
+                             "\"source\")")
 
 
 _EXAMPLES = {"id": 'id = "map_from_bk_depth"', "response": 'response = "map_mm"',
@@ -351,67 +403,11 @@ def _check_groups(scheme: str, groups, path: Path, lines: dict) -> None:
     if scheme in NEEDS_GROUP_COLUMN and groups is None:
         raise UsageError(f"{_where(path, lines, 'validation.scheme')}: scheme {scheme!r} needs "
                          "groups = \"<column>\" in [validation] (e.g. groups = \"source\")")
-    if scheme not in NEEDS_GROUP_COLUMN and groups is not None:
+    if scheme not in NEEDS_GROUP_COLUMN + ("spatial-block",) and groups is not None:
         raise UsageError(f"{_where(path, lines, 'validation.groups')}: groups = {groups!r} "
                          f"has no effect with scheme {scheme!r}; use scheme 'group-kfold' or "
-                         "'leave-one-group-out', or remove the key")
-
-
-class _Values:
-    """Type and choice checks that name the file, line and key."""
-
-    def __init__(self, path: Path, lines: dict):
-        self.path, self.lines = path, lines
-
-    def fail(self, key: str, what: str, value):
-        section, name = key.split(".", 1)
-        raise UsageError(f"{_where(self.path, self.lines, key)}: [{section}] {name} must be "
-                         f"{what}; got {value!r}")
-
-    def string(self, key, value) -> str:
-        if not isinstance(value, str) or not value.strip():
-            self.fail(key, "a non-empty text in quotes", value)
-        return value.strip()
-
-    def names(self, key, value) -> tuple[str, ...]:
-        items = [value] if isinstance(value, str) else value
-        if not isinstance(items, list) or not items:
-            self.fail(key, "a column name or a list of column names", value)
-        out = tuple(self.string(key, v) for v in items)
-        if len(set(out)) != len(out):
-            self.fail(key, "a list without repeats", value)
-        return out
-
-    def choice(self, key, value, choices, *, aliases=()) -> str:
-        if not isinstance(value, str) or value not in choices:
-            self.fail(key, "one of " + ", ".join(map(repr, choices + tuple(aliases)))
-                      + suggest(value, choices + tuple(aliases)), value)
-        return value
-
-    def list_of(self, key, value, choices, *, valid=None, extra="") -> tuple[str, ...]:
-        items = [value] if isinstance(value, str) else value
-        ok = valid or (lambda s: s in choices)
-        if not isinstance(items, list) or not items:
-            self.fail(key, "a non-empty list", value)
-        for item in items:
-            if not isinstance(item, str) or not ok(item):
-                listed = ", ".join(map(repr, choices)) + (f", {extra}" if extra else "")
-                self.fail(key, f"a list of: {listed}; {item!r} is not one of them"
-                          + suggest(item, choices), value)
-        if len(set(items)) != len(items):
-            self.fail(key, "a list without repeats", value)
-        return tuple(items)
-
-    def integer(self, key, value, *, minimum: int) -> int:
-        if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
-            self.fail(key, f"a whole number >= {minimum}", value)
-        return int(value)
-
-    def level(self, key, value) -> float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)) \
-                or not 0.5 <= value < 1:
-            self.fail(key, "a coverage between 0.5 and 1, e.g. 0.95", value)
-        return float(value)
+                         "'leave-one-group-out' (the default when groups is named), or "
+                         "remove the key")
 
 
 def recipe_from_dict(d, *, where: str = "recipe") -> Recipe:
@@ -443,6 +439,10 @@ def recipe_from_dict(d, *, where: str = "recipe") -> Recipe:
             directions=tuple(cand.get("directions", ("inverse",))),
             scheme=canonical_scheme(val.get("scheme", "kfold")), folds=val.get("folds", 5),
             repeats=val.get("repeats", 1), groups=val.get("groups"), seed=val.get("seed", 0),
-            level=ivl.get("level", 0.95), methods=tuple(ivl.get("methods", ("analytic",))))
+            level=ivl.get("level", 0.95), methods=tuple(ivl.get("methods", ("analytic",))),
+            version=(d.get("data") or {}).get("version"), weights=fn.get("weights"),
+            x_sd=fn.get("x_sd"), y_sd=fn.get("y_sd"),
+            random_slope=bool(cand.get("random_slope", False)), block_km=val.get("block_km"),
+            defaults=tuple(d.get("defaults_applied") or ()))
     except (RefitError, KeyError, TypeError, AttributeError) as exc:
         raise InvalidDataError(f"{where} cannot be read: {exc}") from None

@@ -7,24 +7,7 @@ AIC and BIC) and cross-validated with :func:`refit.validate.crossval.cross_valid
 recipe's scheme and, beside it, under random k-fold with the same folds, repeats and seed,
 so the optimism of random cross-validation on clustered soils is visible.
 
-Ranking rule (:func:`rank_candidates`)
---------------------------------------
-1. A candidate's intervals *cover* when the data do not show them falling short of the
-   nominal level: the one-sided exact (Clopper-Pearson, 95 %) upper confidence bound of
-   its out-of-fold coverage reaches the nominal level, counting n = the soils of the
-   subset (repeats add no independent soils). Equivalently its coverage is at least
-   :func:`refit.validate.skill.least_passing_coverage` (e.g. 92.0 % for a 95 % interval
-   on 187 soils: a one-sided tolerance of 2.5 percentage points that shrinks as n grows).
-   Over-coverage is not penalised here; the interval score below charges its width.
-   Under a grouped scheme the out-of-fold predictions are of soils from held-out groups,
-   which is how a fossil from a new source is predicted.
-2. Covering candidates come first, ordered by the mean interval score under the
-   recipe's scheme (Gneiting & Raftery 2007, JASA 102:359, eq. 43: width plus 2/alpha
-   times each miss; lower is better); the others follow, ordered the same way.
-3. Ties go to fewer coefficients, then to the label.
-
-A *simpler* candidate is pointed out when a calibrated one with fewer coefficients than
-the winner scores within 5 % of it.
+The ranking rule is in :mod:`refit.validate.ranking` (re-exported here).
 """
 
 from __future__ import annotations
@@ -36,15 +19,17 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from refit.errors import RefitError
-from refit.select.recipe import Recipe, form_degree
+from refit.select.recipe import GROUP_METHODS, Recipe, form_degree
+from refit.validate.ranking import (NEAR_FRACTION, coverage_tolerance, explain,  # noqa: F401
+                                    optimism, rank_candidates)
 
 INTERVAL_ENGINE = {"analytic": "analytic", "bootstrap": "bootstrap-pairs",
                    "split-conformal": "split-conformal", "jackknife+": "jackknife+",
-                   "cv+": "cv+", "quantile": "quantile"}
-RESAMPLING = ("bootstrap", "split-conformal", "jackknife+", "cv+")
-NEAR_FRACTION = 0.05   # a simpler candidate within 5 % of the winner's score is named
+                   "cv+": "cv+", "quantile": "quantile",
+                   "group-jackknife+": "group-jackknife+", "group-cv+": "group-cv+"}
+RESAMPLING = ("bootstrap", "split-conformal", "jackknife+", "cv+", *GROUP_METHODS)
 METRICS = ("rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
-           "interval_score", "n")
+           "interval_score", "n", "n_unbounded")
 
 
 @dataclass(frozen=True)
@@ -76,18 +61,31 @@ class Spec:
 
 # ----------------------------------------------------------------------------- the grid
 def impossible_reason(form: str, estimator: str, direction: str, method: str,
-                      n_predictors: int) -> str | None:
-    """Why a combination cannot be fitted or given an interval (None when it can)."""
-    if estimator == "wls":
-        return "estimator 'wls' needs a weights column, which recipes do not name yet"
-    if estimator == "york":
-        return ("estimator 'york' needs measurement standard deviations of x and y, which "
-                "recipes do not name yet")
+                      n_predictors: int, *, groups: str | None = None,
+                      weights: str | None = None, sds: bool = False,
+                      random_slope: bool = False) -> str | None:
+    """Why a combination cannot be fitted or given an interval (None when it can).
+
+    ``groups``, ``weights``, ``sds`` (both ``x_sd`` and ``y_sd`` named) and
+    ``random_slope`` are what the recipe names beside the combination.
+    """
+    if estimator == "wls" and weights is None:
+        return ("estimator 'wls' needs a weights column: name it in [function] weights = "
+                "\"<column>\"")
+    if estimator == "york" and not sds:
+        return ("estimator 'york' needs measurement standard deviations of x and y: name "
+                "their columns in [function] x_sd and y_sd")
+    if estimator in ("mixed",) and groups is None:
+        return "estimator 'mixed' needs [validation] groups (each soil's source)"
+    if method in GROUP_METHODS and groups is None:
+        return f"interval {method!r} leaves out whole groups: it needs [validation] groups"
     if direction == "forward" and n_predictors != 1:
         return (f"the forward direction inverts one feature; the function has "
                 f"{n_predictors} predictors")
-    if estimator == "theil-sen" and (form != "linear" or n_predictors != 1):
-        return "estimator 'theil-sen' fits straight lines with one predictor only"
+    if estimator in ("theil-sen", "york") and (form != "linear" or n_predictors != 1):
+        return f"estimator {estimator!r} fits straight lines with one predictor only"
+    if estimator == "mixed" and random_slope and (form != "linear" or n_predictors != 1):
+        return "random_slope takes a straight line on one predictor (form 'linear')"
     if direction == "forward" and method != "analytic":
         return ("the forward direction's interval is the classical-calibration band "
                 f"('analytic'); {method!r} does not apply")
@@ -117,7 +115,10 @@ def candidate_grid(recipe: Recipe) -> tuple[list[Spec], list[dict]]:
                 for method in recipe.methods:
                     spec = Spec(form_label, form, degree, estimator, direction, method,
                                 n_params)
-                    why = impossible_reason(form, estimator, direction, method, k)
+                    why = impossible_reason(
+                        form, estimator, direction, method, k, groups=recipe.groups,
+                        weights=recipe.weights, sds=bool(recipe.x_sd and recipe.y_sd),
+                        random_slope=recipe.random_slope)
                     if why is None:
                         specs.append(spec)
                     else:
@@ -145,12 +146,29 @@ def information_criteria(residuals, n_params: int) -> tuple[float, float]:
     return -2 * llf + 2 * n_params, -2 * llf + n_params * math.log(n)
 
 
+def fit_arguments(recipe: Recipe, spec: Spec) -> dict:
+    """What :func:`refit.fit` takes beside the form: the weights (``wls``), the
+    measurement SDs (``york``; the recipe's ``x_sd`` is the feature's, ``y_sd`` the
+    climate column's, so the forward direction, whose equation has climate as x, swaps
+    them) and the groups and random slope (``mixed``)."""
+    kw = {}
+    if spec.estimator == "wls":
+        kw["weights"] = recipe.weights
+    if spec.estimator == "york":
+        pair = (recipe.x_sd, recipe.y_sd)
+        kw["x_sd"], kw["y_sd"] = pair if spec.direction == "inverse" else pair[::-1]
+    if spec.estimator == "mixed":
+        kw.update(groups=recipe.groups, random_slope=recipe.random_slope)
+    return kw
+
+
 def fit_whole(frame, recipe: Recipe, spec: Spec):
     """The candidate fitted on the whole subset, and its in-sample figures."""
     from refit.models.fitting import fit
 
     f = fit(frame, recipe.response, list(recipe.predictors), form=spec.form,
-            degree=spec.degree, estimator=spec.estimator, direction=spec.direction)
+            degree=spec.degree, estimator=spec.estimator, direction=spec.direction,
+            **fit_arguments(recipe, spec))
     aic, bic = information_criteria(f.result.residuals, spec.n_params)
     return f, {"r2_in_sample": f.r_squared, "residual_se": f.residual_std_error,
                "aic": aic, "bic": bic}
@@ -180,7 +198,8 @@ def schemes_for(recipe: Recipe, n: int):
     from refit.validate.crossval import Scheme
 
     main = Scheme(name=recipe.scheme, folds=recipe.folds, repeats=recipe.repeats,
-                  groups=recipe.groups, seed=recipe.seed)
+                  groups=recipe.groups if recipe.scheme != "spatial-block" else None,
+                  seed=recipe.seed, block_km=recipe.block_km)
     if recipe.scheme == "kfold":
         return main, None
     folds = min(recipe.folds, n)
@@ -192,7 +211,9 @@ def _candidate(recipe: Recipe, spec: Spec):
 
     return Candidate(response=recipe.response, predictors=tuple(recipe.predictors),
                      form=spec.form, degree=spec.degree, estimator=spec.estimator,
-                     direction=spec.direction, interval=spec.interval)
+                     direction=spec.direction, interval=spec.interval,
+                     groups=recipe.groups, **{k: v for k, v in fit_arguments(recipe, spec)
+                                             .items() if k != "groups"})
 
 
 def _make_splits(frame, scheme, recipe: Recipe):
@@ -215,6 +236,7 @@ def _row(spec: Spec, main, kfold, insample: dict) -> dict:
         row[f"kfold_{m}"] = None if kfold is None else kfold.metrics.get(m)
     row["rmsep_ratio"] = (None if kfold is None or not kfold.metrics.get("rmsep")
                           else main.metrics["rmsep"] / kfold.metrics["rmsep"])
+    row["unbounded_reason"] = main.details.get("unbounded_reason")
     row.update(insample)
     return row
 
@@ -349,102 +371,6 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
                         details, tol, len(frame), times)
 
 
-# ----------------------------------------------------------------------------- ranking
-def coverage_tolerance(level: float, n: int) -> float:
-    """How far below ``level`` [fraction] an out-of-fold coverage of n soils may fall and
-    still not be shown to under-cover (one-sided; see the module notes)."""
-    from refit.validate.skill import least_passing_coverage
-
-    return max(0.0, level - least_passing_coverage(level, n)) if n > 0 else float("inf")
-
-
-def rank_candidates(table, level: float, n: int):
-    """Rank a leaderboard table by the documented rule; returns (ranked table, tolerance).
-
-    ``table`` needs the columns ``candidate``, ``n_params``, ``coverage`` and
-    ``interval_score``; ``coverage_upper`` (the one-sided 95 % upper confidence bound of
-    the coverage), ``coverage_ok`` and ``rank`` (1 = best) are added.
-    """
-    from refit.validate.skill import coverage_upper_bound
-
-    tol = coverage_tolerance(level, n)
-    if len(table) == 0:
-        return table.assign(coverage_upper=[], coverage_ok=[], rank=[]), tol
-    t = table.copy()
-    cov = t["coverage"].astype(float)
-    t["coverage_upper"] = [coverage_upper_bound(c * n, n) if np.isfinite(c) and n > 0
-                           else np.nan for c in cov]
-    t["coverage_ok"] = (t["coverage_upper"] >= level - 1e-12).fillna(False).astype(bool)
-    score = t["interval_score"].astype(float).fillna(np.inf)
-    t = t.assign(_miss=~t["coverage_ok"], _score=score)
-    t = t.sort_values(["_miss", "_score", "n_params", "candidate"], kind="mergesort")
-    t = t.drop(columns=["_miss", "_score"]).reset_index(drop=True)
-    t.insert(0, "rank", np.arange(1, len(t) + 1))
-    return t, tol
-
-
-def _pct(x: float) -> str:
-    return f"{100 * x:.1f}%"
-
-
-def explain(board, level: float, tol: float, scheme: str) -> dict:
-    """Why the top candidate wins, and a simpler one that is nearly as good (if any)."""
-    rule = (f"mean interval score under {scheme} (lower is better) among candidates whose "
-            f"out-of-fold coverage is not shown to fall short of the nominal {_pct(level)} "
-            f"(at least {_pct(level - tol)}: the one-sided 95% exact binomial bound, "
-            f"{100 * tol:.1f} percentage points below nominal at most); a candidate that "
-            "falls short is never ranked above one that covers; ties to fewer coefficients")
-    if len(board) == 0:
-        return {"rule": rule, "winner": None, "why": "no candidate could be fitted",
-                "simpler": None, "simpler_why": None}
-    top = board.iloc[0]
-    n_ok = int(board["coverage_ok"].sum())
-    if top["coverage_ok"]:
-        why = (f"{top['candidate']} has the lowest mean interval score "
-               f"({top['interval_score']:.4g}) under {scheme} of the {n_ok} candidate(s) "
-               f"whose coverage is not shown to fall short of {_pct(level)} (its coverage "
-               f"{_pct(top['coverage'])}, mean width {top['mean_width']:.4g}, RMSEP "
-               f"{top['rmsep']:.4g})")
-    else:
-        why = (f"every candidate's out-of-fold coverage falls short of {_pct(level)} "
-               f"(below {_pct(level - tol)}); "
-               f"{top['candidate']} has the lowest mean interval score "
-               f"({top['interval_score']:.4g}) but its coverage is {_pct(top['coverage'])}: "
-               "treat every interval here as unreliable")
-    simpler, simpler_why = _simpler(board, top)
-    return {"rule": rule, "winner": str(top["candidate"]), "why": why,
-            "simpler": simpler, "simpler_why": simpler_why}
-
-
-def _simpler(board, top) -> tuple[str | None, str | None]:
-    """A candidate with fewer coefficients within 5 % of the winner's score, if any."""
-    fewer = board[(board["coverage_ok"] == top["coverage_ok"])
-                  & (board["n_params"] < top["n_params"])]
-    if not len(fewer):
-        return None, None
-    s = fewer.iloc[0]
-    gap = s["interval_score"] / top["interval_score"] - 1
-    if not s["interval_score"] <= top["interval_score"] * (1 + NEAR_FRACTION):
-        return None, (f"no candidate with fewer coefficients comes within "
-                      f"{_pct(NEAR_FRACTION)} of the winner's score; the best of them, "
-                      f"{s['candidate']}, scores {_pct(gap)} worse ({s['interval_score']:.4g})")
-    return str(s["candidate"]), (
-        f"{s['candidate']} has {int(top['n_params'] - s['n_params'])} fewer coefficient(s) "
-        f"and scores within {_pct(gap)} of the winner ({s['interval_score']:.4g}); prefer "
-        "it unless the difference matters to you")
-
-
-def optimism(board) -> dict | None:
-    """How much random k-fold flatters: median ratio of the scheme's RMSEP and interval
-    score to random k-fold's over the candidates (None without a k-fold run beside)."""
-    if "kfold_rmsep" not in board or board["kfold_rmsep"].isna().all():
-        return None
-    r = (board["rmsep"] / board["kfold_rmsep"]).replace([np.inf, -np.inf], np.nan)
-    s = (board["interval_score"] / board["kfold_interval_score"]).replace(
-        [np.inf, -np.inf], np.nan)
-    return {"median_rmsep_ratio": float(r.median()), "median_score_ratio": float(s.median())}
-
-
 # ----------------------------------------------------------------------------- a recipe
 @dataclass
 class Run:
@@ -455,6 +381,18 @@ class Run:
     subset: object      # refit.select.subsets.SubsetResult
     matrix: MatrixResult
     timings: dict
+    #: the random k-fold warning of :func:`refit.validate.sources.source_flattery`, or None
+    source_check: dict | None = None
+
+    @property
+    def warnings(self) -> list[str]:
+        """Warnings about the recipe's choices on these data (printed and kept)."""
+        return [self.source_check["message"]] if self.source_check else []
+
+    @property
+    def defaults(self) -> list[str]:
+        """The defaults applied to what the recipe leaves out (one sentence each)."""
+        return list(self.recipe.defaults)
 
 
 def _enough_rows(recipe: Recipe, specs: list, sub) -> None:
@@ -482,6 +420,7 @@ def run_recipe(recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Run:
     """
     from refit.errors import UsageError
     from refit.select.dataset import dataset_from_recipe
+    from refit.validate.sources import source_flattery
 
     t0 = time.perf_counter()
     ds = dataset_from_recipe(recipe)
@@ -494,6 +433,9 @@ def run_recipe(recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Run:
                          + "; ".join(f"{s['candidate']}: {s['reason']}" for s in skipped))
     _enough_rows(recipe, specs, sub)
     result = run_matrix(sub.frame, recipe, n_jobs=n_jobs, progress=progress)
+    t2 = time.perf_counter()
+    check = source_flattery(sub.frame, recipe)
     timings = {"load_s": round(t1 - t0, 4), "matrix_s": result.timings["total"],
+               "source_check_s": round(time.perf_counter() - t2, 4),
                "total_s": round(time.perf_counter() - t0, 4)}
-    return Run(recipe, data, sub, result, timings)
+    return Run(recipe, data, sub, result, timings, check)

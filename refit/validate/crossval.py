@@ -26,6 +26,7 @@ import numpy as np
 
 from refit.models.inputs import as_frame
 from refit.errors import InvalidDataError, RefitError, UsageError
+from refit.validate.loo import loo_part, loo_ols  # noqa: F401
 from refit.validate.splitters import (  # noqa: F401
     BLOCKS_PER_FOLD, EARTH_RADIUS_KM, GROUPED, SCHEMES, GroupKFoldSplitter, KFoldSplitter,
     LeaveOneGroupOutSplitter, LeaveOneOutSplitter, Scheme, SpatialBlockSplitter, Split, Splits,
@@ -33,6 +34,11 @@ from refit.validate.splitters import (  # noqa: F401
 
 _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
 _CONFORMAL = ("split-conformal", "jackknife+", "cv+")
+#: whole groups left out (refit.models.intervals.group_conformal), computed here on each
+#: training fold; they need the candidate's ``groups``
+GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
+#: folds of group-cv+ inside a training fold (at most its number of groups)
+GROUP_CV_FOLDS = 5
 #: columns of CVResult.predictions
 PREDICTION_COLUMNS = ("row", "profile_id", "repeat", "fold", "observed", "estimate", "lower",
                       "upper", "flags")
@@ -45,8 +51,12 @@ class Candidate:
 
     ``interval`` is a method of ``Fit.predict`` (``analytic``, ``bootstrap-pairs``,
     ``bootstrap-residual``, ``split-conformal``, ``jackknife+``, ``cv+``, ``quantile``,
-    ``none``; ``bootstrap`` means ``bootstrap-pairs``). ``weights``, ``x_sd`` and ``y_sd``
-    are passed to :func:`refit.fit` (column names or values) for WLS and York fits.
+    ``none``; ``bootstrap`` means ``bootstrap-pairs``) or a group-level conformal method
+    (``group-jackknife+``, ``group-cv+``: whole groups of the training fold left out, see
+    :mod:`refit.models.intervals.group_conformal`). ``weights``, ``x_sd`` and ``y_sd``
+    are passed to :func:`refit.fit` (column names or values) for WLS and York fits;
+    ``groups`` (a column) and ``random_slope`` to the mixed fit, each fold's fit getting
+    the groups of its training soils only.
     """
 
     response: str
@@ -59,6 +69,8 @@ class Candidate:
     weights: str | None = None
     x_sd: str | float | None = None
     y_sd: str | float | None = None
+    groups: str | None = None
+    random_slope: bool = False
 
     def __post_init__(self):
         from refit.models.fitting import DIRECTIONS, ESTIMATORS, INTERVALS
@@ -73,9 +85,13 @@ class Candidate:
                 raise UsageError(f"unknown {what} {value!r}; choose one of: "
                                  + ", ".join(valid))
         interval = _INTERVAL_ALIASES.get(self.interval, self.interval)
-        if interval not in INTERVALS:
+        if interval not in INTERVALS + GROUP_INTERVALS:
             raise UsageError(f"unknown interval method {self.interval!r}; choose one of: "
-                             + ", ".join(INTERVALS + tuple(_INTERVAL_ALIASES)))
+                             + ", ".join(INTERVALS + GROUP_INTERVALS
+                                         + tuple(_INTERVAL_ALIASES)))
+        if (interval in GROUP_INTERVALS or self.estimator == "mixed") and not self.groups:
+            raise UsageError(f"{interval if interval in GROUP_INTERVALS else 'mixed'!r} "
+                             "needs groups= (the column naming each soil's source)")
         object.__setattr__(self, "interval", interval)
 
     @property
@@ -126,12 +142,15 @@ def _fold_seed(seed: int, repeat: int, fold: int) -> int:
 def _fit_kwargs(c: Candidate, level: float) -> dict:
     kw = dict(form=c.form, degree=c.degree, estimator=c.estimator, direction=c.direction,
               weights=c.weights, x_sd=c.x_sd, y_sd=c.y_sd)
+    if c.estimator == "mixed":
+        kw["random_slope"] = c.random_slope
     if c.estimator == "quantile":
         kw["quantiles"] = ((1.0 - level) / 2.0, (1.0 + level) / 2.0)
     return kw
 
 
-def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: int):
+def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: int,
+              groups=None):
     """Fit on the training rows, predict the test rows: (estimate, lower, upper, flags)."""
     import pandas as pd
 
@@ -139,162 +158,88 @@ def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: in
 
     tr, te = split.train_idx, split.test_idx
     kwargs = _fit_kwargs(c, level)
+    if groups is not None and c.estimator == "mixed":
+        kwargs["groups"] = groups[tr]
     test = np.column_stack([arrays[p][te] for p in c.predictors])
+    fold_seed = _fold_seed(seed, split.repeat, split.fold)
     try:  # plain arrays: no table per fold (the same numbers as through a DataFrame)
         f = fit({k: v[tr] for k, v in arrays.items()}, c.response, list(c.predictors),
                 **kwargs)
-        out = f.predict(test, level=level, interval=c.interval,
-                        seed=_fold_seed(seed, split.repeat, split.fold))
-    except RefitError:
+        if c.interval in GROUP_INTERVALS:
+            return _group_band(f, test, groups[tr], c.interval, level, fold_seed)
+        out = f.predict(test, level=level, interval=c.interval, seed=fold_seed)
+    except RefitError as err:
         # again through a table indexed by the records' labels, so the message names them
         train = pd.DataFrame({k: v[tr] for k, v in arrays.items()}, index=labels[tr],
                              copy=False)
         try:
             f = fit(train, c.response, list(c.predictors), **kwargs)
-            f.predict(test, level=level, interval=c.interval,
-                      seed=_fold_seed(seed, split.repeat, split.fold))
-        except RefitError as err:
-            raise type(err)(f"{c.label}, repeat {split.repeat + 1} fold {split.fold + 1} "
-                            f"({len(tr)} training rows): {err}") from err
-        raise
+            if c.interval in GROUP_INTERVALS:
+                _group_band(f, test, groups[tr], c.interval, level, fold_seed)
+            else:
+                f.predict(test, level=level, interval=c.interval, seed=fold_seed)
+        except RefitError as again:
+            raise type(again)(f"{c.label}, repeat {split.repeat + 1} fold {split.fold + 1} "
+                              f"({len(tr)} training rows): {again}") from again
+        raise err
     return (out["estimate"].to_numpy(float), out["lower"].to_numpy(float),
             out["upper"].to_numpy(float), np.asarray(out["flags"], dtype=object))
 
 
-def _run_batch(arrays, labels, c, batch, level, seed):
+def _group_band(f, test, train_groups, method: str, level: float, seed: int):
+    """A group-level conformal interval for the test rows from the training fold only.
+
+    The fitted equation's design and response (model scale) on the training soils, their
+    groups, and :func:`refit.models.intervals.group_conformal.group_jackknife_plus` (or
+    ``group_cv_plus`` with up to :data:`GROUP_CV_FOLDS` folds). Estimate and flags are the
+    fit's (``interval='none'``); limits are back-transformed for the exponential form;
+    an infinite limit (too few groups for the level) adds the ``unbounded`` flag.
+    """
+    from refit.models.intervals import group_conformal as gc
+
+    X, x0 = f.form.design(f.x), f.form.design(test)
+    if method == "group-jackknife+":
+        pi = gc.group_jackknife_plus(X, f.y_model, train_groups, x0, level=level)
+    else:
+        n_groups = len(np.unique(train_groups))
+        pi = gc.group_cv_plus(X, f.y_model, train_groups, x0, level=level, seed=seed,
+                              folds=min(GROUP_CV_FOLDS, n_groups))
+    none = f.predict(test, level=level, interval="none")
+    lo, hi = pi.lower, pi.upper
+    if f.form.log_response:
+        with np.errstate(over="ignore"):
+            lo, hi = np.exp(lo), np.exp(hi)
+    flags = np.asarray(none["flags"], dtype=object).astype(str)
+    unb = ~(np.isfinite(lo) & np.isfinite(hi))
+    flags[unb] = [";".join(filter(None, (fl, "unbounded"))) for fl in flags[unb]]
+    est = np.exp(pi.estimate) if f.form.log_response else pi.estimate
+    return est, lo, hi, flags.astype(object)
+
+
+def _run_batch(arrays, labels, c, batch, level, seed, groups=None):
     from refit.models.linalg import one_blas_thread
 
     with one_blas_thread():  # the same bits in any process
-        return [_one_fold(arrays, labels, c, s, level, seed) for s in batch]
+        return [_one_fold(arrays, labels, c, s, level, seed, groups) for s in batch]
 
 
-def _run_folds(arrays, labels, c, splits, level, seed, n_jobs):
+def _run_folds(arrays, labels, c, splits, level, seed, n_jobs, groups=None):
     if n_jobs == 1 or len(splits) < 2:
-        return _run_batch(arrays, labels, c, splits, level, seed)
+        return _run_batch(arrays, labels, c, splits, level, seed, groups)
     from joblib import Parallel, delayed, effective_n_jobs
 
     workers = effective_n_jobs(n_jobs)
     n_batches = min(len(splits), 4 * workers)
     bounds = np.linspace(0, len(splits), n_batches + 1).astype(int)
     batches = [splits[a:b] for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
-    parts = Parallel(n_jobs=workers)(delayed(_run_batch)(arrays, labels, c, b, level, seed)
-                                     for b in batches)
+    parts = Parallel(n_jobs=workers)(delayed(_run_batch)(arrays, labels, c, b, level, seed,
+                                                         groups) for b in batches)
     return [r for part in parts for r in part]
-
-
-# ----------------------------------------------------------------------------- LOO closed form
-def loo_ols(x, y, form, level: float = 0.95, interval: str = "analytic"):
-    """Leave-one-out predictions of an OLS transfer function, without refitting.
-
-    Parameters
-    ----------
-    x : ndarray, shape (n, k)
-        Predictor values [their units].
-    y : ndarray, shape (n,)
-        Response [its unit].
-    form : refit.models.forms.Form
-        A form linear in y (not exponential).
-    level : float
-        Level of the analytic prediction interval.
-    interval : str
-        ``analytic`` or ``none``.
-
-    Returns
-    -------
-    estimate, lower, upper : ndarray, shape (n,)
-        ``yhat_(-i) = y_i - e_i / (1 - h_ii)``; limits ``yhat_(-i) -+ t(n - p - 1)
-        s_(-i) / sqrt(1 - h_ii)`` [units of y]: the analytic interval of the fit without
-        row i, evaluated at row i.
-    flags : ndarray of str
-        As ``Fit.predict``: ``outside-calibration-range`` when row i lies outside the range
-        of the other rows, ``beyond-turning-point`` (single-predictor quadratics) when it
-        lies past the turning point of the fit without it, on the far side from most data.
-
-    Notes
-    -----
-    With the leverages h_ii and residuals e_i of the full fit, Sherman-Morrison gives the
-    left-out residual e_i/(1 - h_ii) (PRESS, [2]_), the deleted variance
-    s_(-i)^2 = ((n - p) s^2 - e_i^2/(1 - h_ii)) / (n - p - 1), the variance factor
-    x_i'(X_(-i)'X_(-i))^-1 x_i = h_ii/(1 - h_ii) and the coefficients
-    b_(-i) = b - (X'X)^-1 x_i e_i/(1 - h_ii). Cost O(n p^2): one QR.
-    """
-    est, lower, upper, masks = _loo_ols_masks(x, y, form, level, interval)
-    return est, lower, upper, _flag_text(masks)
-
-
-def _loo_ols_masks(x, y, form, level, interval):
-    """:func:`loo_ols` with the flags as named boolean masks (row by row)."""
-    from scipy.special import stdtrit
-
-    from refit.models.lsq import leverages, solve_lsq
-
-    x = np.asarray(x, dtype=float).reshape(len(y), -1)
-    X = form.design(x)
-    res = solve_lsq(X, y, intercept=form.intercept, names=form.terms)
-    h = leverages(res)
-    if (h > 1.0 - 1e-10).any():
-        raise InvalidDataError(f"row {int(np.argmax(h)) + 1} alone determines the fit "
-                               "(leverage 1): its leave-one-out fit does not exist; add rows "
-                               "near it or use a simpler form")
-    e, df = res.residuals, res.df_resid
-    loo = e / (1.0 - h)
-    est = y - loo
-    if interval == "none":
-        lower = upper = np.full_like(est, np.nan)
-    else:
-        s2_del = (df * res.residual_std_error ** 2 - e * loo) / (df - 1.0)
-        # stdtrit is what scipy.stats.t.ppf evaluates, without its argument handling
-        half = float(stdtrit(df - 1.0, 0.5 + level / 2.0)) * np.sqrt(s2_del / (1.0 - h))
-        lower, upper = est - half, est + half
-    masks = {"outside-calibration-range": _outside_others(x)}
-    if form.degree == 2 and x.shape[1] == 1:
-        masks["beyond-turning-point"] = _beyond_turning_loo(x[:, 0], X, res, loo, form)
-    return est, lower, upper, masks
-
-
-def _flag_text(masks: dict) -> np.ndarray:
-    """';'-joined names of the true masks per row (through bit codes: no per-row loop)."""
-    names = list(masks)
-    codes = sum(np.asarray(m, dtype=np.int64) << i for i, m in enumerate(masks.values()))
-    table = np.array([";".join(nm for i, nm in enumerate(names) if c >> i & 1)
-                      for c in range(1 << len(names))], dtype=object)
-    return table[codes]
-
-
-def _outside_others(x: np.ndarray) -> np.ndarray:
-    """True where a row holds the unique minimum or maximum of a column (so it lies
-    outside the range of the other rows)."""
-    out = np.zeros(x.shape[0], dtype=bool)
-    for col in x.T:
-        for extreme in (col.min(), col.max()):
-            at = col == extreme
-            if at.sum() == 1:
-                out |= at
-    return out
-
-
-def _beyond_turning_loo(x, X, res, loo, form) -> np.ndarray:
-    """Leave-one-out version of refit.models.domain.beyond_turning_mask for a quadratic."""
-    s2 = res.residual_std_error ** 2
-    if not s2 > 0:
-        return np.zeros(len(x), dtype=bool)
-    xtx_inv = res.covariance / s2
-    b = res.coefficients[None, :] - (X @ xtx_inv) * loo[:, None]   # b_(-i), one row each
-    if not form.intercept:
-        b = np.column_stack([np.zeros(len(x)), b])
-    b1, b2 = b[:, 1], b[:, 2]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        tp = -b1 / (2.0 * b2)
-    ok = (b2 != 0) & np.isfinite(b2) & np.isfinite(tp)
-    xs = np.sort(x)
-    above = len(x) - np.searchsorted(xs, tp, side="right") - (x > tp)
-    below = np.searchsorted(xs, tp, side="left") - (x < tp)
-    side = np.where(above > below, 1, -1)
-    return ok & ((x - tp) * side < 0)
 
 
 def _closed_form_applies(c: Candidate, scheme: Scheme) -> bool:
     return (scheme.name == "loo" and c.estimator == "ols" and c.direction == "inverse"
+            and c.interval not in GROUP_INTERVALS
             and c.form != "exponential" and c.interval in ("analytic", "none")
             and c.weights is None)
 
@@ -308,7 +253,15 @@ def _used_columns(frame, labels, kind, c: Candidate):
     usable = np.ones(len(frame), dtype=bool)
     for v in arrays.values():
         usable &= ~np.isnan(v)
-    return arrays, usable
+    groups = None
+    if c.groups is not None and (c.estimator == "mixed" or c.interval in GROUP_INTERVALS):
+        from refit.models.inputs import group_codes_column
+
+        codes, names = group_codes_column(frame, c.groups, len(frame))
+        usable &= ~np.isnan(codes)
+        groups = np.asarray(names + ["?"], dtype=object)[np.nan_to_num(codes, nan=-1)
+                                                          .astype(int)]
+    return arrays, usable, groups
 
 
 def _restrict(splits, usable) -> list[Split]:
@@ -376,7 +329,7 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
 
     _check(frame, candidate, scheme, level, n_jobs)
     frame, labels, kind = as_frame(frame, dicts=False)
-    arrays, usable = _used_columns(frame, labels, kind, candidate)
+    arrays, usable, groups = _used_columns(frame, labels, kind, candidate)
     fast = _closed_form_applies(candidate, scheme)
     if splits is None:
         splits = Splits([], _loo_details(len(frame), scheme)) if fast \
@@ -389,11 +342,11 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
                                + ", ".join(map(repr, candidate.columns()))
                                + "; fill them or choose other columns")
     if fast:
-        parts, folds = _loo_part(arrays, usable, candidate, level), None
+        parts, folds = loo_part(arrays, usable, candidate, level), None
         details["method"] = "closed-form"
     else:
         folds = [s for s in _restrict(splits, usable) if len(s.test_idx)]
-        parts = _run_folds(arrays, labels, candidate, folds, level, seed, n_jobs)
+        parts = _run_folds(arrays, labels, candidate, folds, level, seed, n_jobs, groups)
         details["method"] = "refits"
     if folds is None:
         rows = np.flatnonzero(usable)
@@ -415,6 +368,8 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
             f"{candidate.interval} intervals assume exchangeable rows; soils clustered by "
             "region or source are not, so their coverage on new regions can fall short of "
             "the nominal level: judge it under a grouped or spatial scheme"]
+    if candidate.interval in GROUP_INTERVALS and folds:
+        details.update(_unbounded_details(groups, folds, lo, hi, level))
     metrics = skill_scores(obs, est, lo, hi, level) if len(rows) else {}
     reps = np.unique(repeat) if folds is not None else (0,)  # closed form: one repeat
     details["by_repeat"] = [metrics] if len(reps) == 1 else [
@@ -423,22 +378,12 @@ def cross_validate(frame, candidate: Candidate, scheme: Scheme, *, level: float 
     return CVResult(candidate, scheme, pred, metrics, details)
 
 
-def _loo_part(arrays, usable, c: Candidate, level):
-    """Closed-form leave-one-out of the usable rows: estimate, lower, upper and the flags
-    as a Categorical (categories sorted, as ``pandas.Categorical`` of the texts)."""
-    from refit.models.predict import flag_categorical
-    from refit.models.forms import make_form
+def _unbounded_details(groups, folds, lo, hi, level) -> dict:
+    """How many training groups the folds had and, when a limit is infinite, why."""
+    from refit.models.intervals.group_conformal import too_few_groups
 
-    form = make_form(c.form, list(c.predictors), degree=c.degree)
-    x = np.column_stack([arrays[p][usable] for p in c.predictors])
-    y = arrays[c.response][usable]
-    if len(y) < form.min_rows + 1:
-        raise InvalidDataError(f"{c.label}, leave-one-out: each fit leaves out one of "
-                               f"{len(y)} rows; form {form.name!r} has {form.n_params} "
-                               f"coefficient(s) and needs at least {form.min_rows + 1} rows "
-                               "with values")
-    try:
-        est, lo, hi, masks = _loo_ols_masks(x, y, form, level, c.interval)
-    except RefitError as err:
-        raise type(err)(f"{c.label}, leave-one-out: {err}") from err
-    return est, lo, hi, flag_categorical(masks, len(y), sort=True)
+    n_train = [len(np.unique(groups[s.train_idx])) for s in folds]
+    out = {"training_groups": [int(min(n_train)), int(max(n_train))]}
+    if not np.all(np.isfinite(lo) & np.isfinite(hi)):
+        out["unbounded_reason"] = too_few_groups(int(min(n_train)), 1.0 - level)
+    return out

@@ -28,6 +28,9 @@ from refit.coefficients import CAUTION, plain
 from refit.coefficients.build import fit_record
 from refit.errors import UsageError
 
+#: interval methods whose coefficient file falls back to ``none`` when the format cannot
+#: carry them (never to another interval)
+GROUP_FILE_FALLBACK = ("group-jackknife+", "group-cv+")
 OOF_COLUMNS = ("candidate", "scheme", "row", "profile_id", "repeat", "fold", "observed",
                "estimate", "lower", "upper", "flags")
 
@@ -80,7 +83,9 @@ def _leaderboard_json(run) -> dict:
             "split_details": m.split_details,
             "coverage_tolerance": m.tolerance, "n": m.n, "verdict": m.verdict,
             "dataset": run.data, "rows": m.leaderboard.to_dict(orient="records"),
-            "skipped": m.skipped, "cautions": [CAUTION]}
+            "skipped": m.skipped, "cautions": [CAUTION],
+            "warnings": run.warnings, "source_check": run.source_check,
+            "defaults_applied": run.defaults}
 
 
 def _run_json(run, argv, created: str) -> dict:
@@ -98,24 +103,55 @@ def _run_json(run, argv, created: str) -> dict:
             "split_details": m.split_details,
             "candidates": len(m.specs), "skipped": m.skipped,
             "timings": {**run.timings, "per_candidate_s": m.timings},
+            "warnings": run.warnings, "source_check": run.source_check,
+            "defaults_applied": run.defaults,
             "software": {"refit": refit.__version__, "numpy": np.__version__,
                          "pandas": pd.__version__},
             "cautions": [CAUTION]}
 
 
+def file_interval(method: str) -> tuple[str, str | None]:
+    """The interval method a candidate's coefficient file carries, and why it differs.
+
+    A group-level conformal interval goes into the file only when the coefficient format
+    knows it (its name among ``refit.models.fitting.INTERVALS``); until then the file
+    carries the equation with interval ``none`` and says so, never another interval.
+    """
+    from refit.models.fitting import INTERVALS
+
+    if method in INTERVALS:
+        return method, None
+    return "none", (f"the {method} interval is cross-validated in this run, but this "
+                    "version's coefficient files do not carry it yet: the file holds the "
+                    "equation without an interval")
+
+
 def fit_records(run, created: str) -> dict[str, dict]:
     """``file name -> coefficient record`` for every valid candidate."""
+    from refit.errors import RefitError
+
     m = run.matrix
     out = {}
     for spec in m.specs:
         subset = run.subset.to_dict() | {"filters": [f.to_dict() for f in run.recipe.subset]}
-        rec = fit_record(
-            m.fits[spec.label], function_id=run.recipe.function_id,
-            provenance={"dataset": shareable(run.data), "subset": subset,
-                        "recipe": run.recipe.to_dict(), "recipe_sha256": run.recipe.sha256},
-            cv=cv_summary(m.cv[spec.label]), interval_method=spec.interval,
-            level=run.recipe.level, seed=run.recipe.seed, candidate=spec.label,
-            form_label=spec.form_label, created=created)
+        kw = dict(function_id=run.recipe.function_id,
+                  provenance={"dataset": shareable(run.data), "subset": subset,
+                              "recipe": run.recipe.to_dict(),
+                              "recipe_sha256": run.recipe.sha256},
+                  cv=cv_summary(m.cv[spec.label]), level=run.recipe.level,
+                  seed=run.recipe.seed, candidate=spec.label, form_label=spec.form_label,
+                  created=created)
+        method, why = file_interval(spec.interval)
+        if why:
+            kw["cv"]["file_interval_note"] = why
+        try:
+            rec = fit_record(m.fits[spec.label], interval_method=method, **kw)
+        except RefitError as exc:
+            if spec.interval not in GROUP_FILE_FALLBACK:
+                raise
+            kw["cv"]["file_interval_note"] = (f"the {method} interval cannot go into the "
+                                              f"file ({exc}): the file holds no interval")
+            rec = fit_record(m.fits[spec.label], interval_method="none", **kw)
         out[fit_filename(spec.label)] = rec
     return out
 

@@ -262,3 +262,56 @@ def test_candidate_files_carry_no_machine_path(demo):
         text = f.read_text()
         assert str(demo) not in text and str(demo.resolve()) not in text
         assert set(json.loads(text)["provenance"]["dataset"]) >= {"name", "version", "sha256"}
+
+
+# ----------------------------------------------------------------------------- new sources
+def test_grouped_defaults_and_unbounded_intervals_are_printed(tmp_path):
+    # groups named, no scheme, estimators or methods: the documented defaults; 8 sources,
+    # 4 training sources per fold of group 2-fold at level 0.9: group-level conformal
+    # limits infinite (4 / 5 < 0.9), said with the reason
+    soils(64, n_sources=8).to_csv(tmp_path / "soils.csv", index=False)
+    path = tmp_path / "recipe.toml"
+    path.write_text('[data]\ntable = "soils.csv"\n\n[function]\nid = "map_from_bk_depth"\n'
+                    'response = "map_mm"\npredictors = ["bk_depth_cm"]\n\n[validation]\n'
+                    'groups = "source"\nfolds = 2\n\n[intervals]\nlevel = 0.9\n',
+                    encoding="utf-8")
+    out = tmp_path / "run"
+    r = invoke(path, "--out", out, "--quiet")
+    assert r.exit_code == 0, r.output
+    assert "Default: scheme defaults to 'group-kfold'" in r.stdout
+    assert "Default: estimators default to 'ols' and 'mixed'" in r.stdout
+    assert "Unbounded: linear/ols/inverse/group-jackknife+ is unbounded" in r.stdout
+    assert "4 groups are too few for a 90% group-level interval" in r.stdout
+    board = pd.read_csv(out / "leaderboard.csv")
+    assert {"linear/mixed/inverse/analytic", "linear/ols/inverse/group-cv+"} <= set(
+        board["candidate"])
+    kept = json.loads((out / "leaderboard.json").read_text())
+    assert len(kept["defaults_applied"]) == 3 and len(kept["verdict"]["unbounded"]) == 2
+    rec = json.loads((out / "fits" / "linear__ols__inverse__group-cv-plus.json").read_text())
+    assert rec["interval"]["method"] in ("group-cv+", "none")
+
+
+def test_random_kfold_warning_is_printed_and_kept(tmp_path):
+    recipe = table_case(tmp_path, scheme="kfold", groups=None)
+    out = tmp_path / "run"
+    r = invoke(recipe, "--out", out, "--quiet")
+    assert r.exit_code == 0, r.output
+    run = json.loads((out / "run.json").read_text())
+    ratio = run["source_check"]["rmsep_ratio"]
+    assert "Warning: the data have a 'source' column (4 sources)" in r.stdout
+    assert f"{ratio:.2f}x random k-fold's" in " ".join(r.stdout.split())
+    assert json.loads((out / "leaderboard.json").read_text())["warnings"] == run["warnings"]
+
+
+def test_bad_weights_are_one_error_line(tmp_path):
+    data = soils()
+    data["w"] = 1.0
+    data.loc[5, "w"] = -2.0
+    recipe = table_case(tmp_path, data=data)
+    text = recipe.read_text().replace('predictors = ["bk_depth_cm"]',
+                                      'predictors = ["bk_depth_cm"]\nweights = "w"')
+    recipe.write_text(text.replace('"ols", "huber"', '"ols", "wls"'), encoding="utf-8")
+    r = invoke(recipe, "--out", tmp_path / "run", "--quiet")
+    no_traceback(r)
+    assert r.exit_code == 1 and r.output.startswith("Error:")
+    assert "[function] weights = 'w' has a value <= 0 in 1 row(s) of the subset (P005)" in r.output

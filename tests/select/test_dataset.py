@@ -98,3 +98,38 @@ def test_a_missing_store_names_the_option(tmp_path):
         open_recorded_data({"kind": "store", "name": "x", "version": 1, "sha256": "a"},
                            tmp_path / "gone")
     assert "not found" in str(e.value) and WHERE_HINT in str(e.value)
+
+
+def test_recipe_data_version_is_the_first_n_k_rows(two_versions):
+    # records.csv read with pandas: store version k is its first n_k rows (the store's
+    # documented layout), n_k from the manifest's changelog
+    root, store, v = two_versions
+    text = recipe_toml(data={"version": v})
+    (root / "pinned.toml").write_text(text, encoding="utf-8")
+    made = dataset_from_recipe(read_recipe(root / "pinned.toml"))
+    raw = pd.read_csv(store / "records.csv", dtype=str, keep_default_na=False)
+    ds, entry = _recorded(store, v)
+    assert len(raw) > entry["row_count_after"] == len(made.records) == made.source.rows
+    assert list(made.records["profile_id"]) == list(raw["profile_id"][: entry["row_count_after"]])
+    assert made.source.version == v and made.source.sha256 == ds["sha256"]
+    assert made.recipe.to_dict()["data"]["version"] == v
+    latest = root / "latest.toml"
+    latest.write_text(recipe_toml(data={"version": "latest"}), encoding="utf-8")
+    assert dataset_from_recipe(read_recipe(latest)).source.version == v + 1
+
+
+def test_recipe_data_version_that_does_not_exist(two_versions):
+    from refit.errors import UsageError
+
+    root, store, v = two_versions
+    (root / "v9.toml").write_text(recipe_toml(data={"version": v + 7}), encoding="utf-8")
+    with pytest.raises(InvalidDataError, match=rf"line \d+: \[data\] version = {v + 7}, but "
+                                               rf"store .* has versions 1 to {v + 1}"):
+        dataset_from_recipe(read_recipe(root / "v9.toml"))
+    (root / "v0.toml").write_text(recipe_toml(data={"version": 0}), encoding="utf-8")
+    with pytest.raises(UsageError, match=r"\[data\] version must be a whole number >= 1"):
+        read_recipe(root / "v0.toml")
+    (root / "tv.toml").write_text(recipe_toml(data={"store": None, "table": "t.csv",
+                                                    "version": 1}), encoding="utf-8")
+    with pytest.raises(UsageError, match="a table has no versions"):
+        read_recipe(root / "tv.toml")

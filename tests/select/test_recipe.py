@@ -108,7 +108,8 @@ def test_duplicate_key_is_invalid_toml(tmp_path):
 @pytest.mark.parametrize("old, new, line, key", [
     ("seed = 42", "sead = 42", 25, "'sead'"),
     ("[intervals]", "[interval]", 27, "[interval]"),
-    ('response = "map_mm"', 'response = "map_mm"\nweights = "w"', 13, "'weights'"),
+    ('response = "map_mm"', 'response = "map_mm"\nweight = "w"', 13,
+     "'weight' in [function] (did you mean 'weights'?)"),
 ])
 def test_unknown_key_or_section_names_its_line(tmp_path, old, new, line, key):
     with pytest.raises(UsageError) as e:
@@ -241,3 +242,70 @@ def test_scheme_names_are_shared_with_the_splitters():
 def test_unknown_scheme_lists_the_alias(tmp_path):
     with pytest.raises(UsageError, match=r"one of 'kfold', .*'leave-one-out'.*did you mean"):
         read_recipe(write(tmp_path, edit('scheme = "group-kfold"', 'scheme = "leave-one-ou"')))
+
+
+def test_new_keys_are_read(tmp_path):
+    text = (edit('predictors = ["bk_depth_cm"]', 'predictors = ["bk_depth_cm"]\nweights = "w"\n'
+                 'x_sd = "bk_sd"\ny_sd = "map_sd"')
+            .replace('estimators = ["ols", "huber"]', 'estimators = ["ols", "mixed", "wls"]\n'
+                     'random_slope = true')
+            .replace('methods = ["analytic", "jackknife+"]',
+                     'methods = ["analytic", "group-jackknife+", "group-cv+"]')
+            .replace('store = "store"', 'store = "store"\nversion = 3'))
+    r = read_recipe(write(tmp_path, text))
+    assert (r.weights, r.x_sd, r.y_sd, r.random_slope, r.version) == ("w", "bk_sd", "map_sd",
+                                                                     True, 3)
+    assert r.estimators == ("ols", "mixed", "wls") and r.methods[1:] == ("group-jackknife+",
+                                                                          "group-cv+")
+    d = r.to_dict()
+    assert d["function"]["weights"] == "w" and d["candidates"]["random_slope"] is True
+    from refit.select.recipe import recipe_from_dict
+
+    back = recipe_from_dict(d)
+    assert (back.weights, back.random_slope, back.version, back.methods) == (
+        "w", True, 3, r.methods)
+
+
+@pytest.mark.parametrize("old, new, fragment", [
+    ('estimators = ["ols", "huber"]', 'estimators = ["mixed"]\nrandom_slope = "yes"',
+     "random_slope must be true or false"),
+    ('groups = "source"\n', 'block_km = 50\n', "needs groups"),
+    ('scheme = "group-kfold"', 'scheme = "spatial-block"\nblock_km = -3',
+     "block_km must be a positive number"),
+    ('seed = 42', 'seed = 42\nblock_km = 50', "block_km sets the size of spatial blocks"),
+])
+def test_bad_new_keys(tmp_path, old, new, fragment):
+    with pytest.raises(UsageError, match=fragment):
+        read_recipe(write(tmp_path, edit(old, new)))
+
+
+def test_mixed_and_group_methods_need_groups(tmp_path):
+    text = edit('scheme = "group-kfold"', 'scheme = "kfold"').replace('groups = "source"\n', "")
+    with pytest.raises(UsageError, match=r"line 17: 'mixed' needs the groups"):
+        read_recipe(write(tmp_path, text.replace('["ols", "huber"]', '["ols", "mixed"]')))
+    with pytest.raises(UsageError, match=r"line 28: 'group-cv\+' needs the groups"):
+        read_recipe(write(tmp_path, text.replace('["analytic", "jackknife+"]',
+                                                 '["analytic", "group-cv+"]')))
+
+
+def test_spatial_blocks_with_groups_and_block_km(tmp_path):
+    r = read_recipe(write(tmp_path, edit('scheme = "group-kfold"',
+                                         'scheme = "spatial-block"\nblock_km = 40')))
+    assert (r.scheme, r.groups, r.block_km) == ("spatial-block", "source", 40.0)
+
+
+def test_readme_recipe_reference_example_parses(tmp_path):
+    # the README's "Recipe reference" example is a valid recipe, read as documented
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text("utf-8")
+    section = readme.split("## Recipe reference", 1)[1].split("\n## ", 1)[0]
+    (block,) = re.findall(r"```toml\n(.*?)```", section, flags=re.S)
+    r = read_recipe(write(tmp_path, block))
+    assert (r.version, r.weights, r.x_sd, r.y_sd) == (3, "bk_weight", "bk_depth_sd_cm",
+                                                      "map_sd_mm")
+    assert r.methods == ("analytic", "group-jackknife+", "group-cv+") and r.defaults == ()
+    for key in ("version", "weights", "x_sd", "random_slope", "block_km", "groups", "methods",
+                "leave-one-out", "{ min = 5 }"):
+        assert key in section, key
