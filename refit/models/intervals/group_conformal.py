@@ -21,8 +21,12 @@ never narrowed to a finite one.
 For OLS the leave-group-out fits come from the full fit's QR, X = QR, by block deletion:
 with e_S the residuals and Q_S the rows of Q of group S,
 d_S = (I - Q_S Q_S')^-1 e_S are the group's leave-group-out residuals and
-mu_(-S)(x0) = x0'b - (R^-T x0)' Q_S' d_S (Belsley, Kuh & Welsch 1980, ch. 2, from
-memory). Each group costs one m_g x m_g solve; X'X is never formed.
+b_(-S) = b - R^-1 Q_S' d_S its leave-group-out coefficients, so
+mu_(-S)(x0) = x0' b_(-S) (Belsley, Kuh & Welsch 1980, ch. 2, from memory). Each group
+costs one m_g x m_g solve; X'X is never formed. Other estimators refit on the kept rows
+(``fit`` or ``fit_rows``). :func:`leave_group_out` returns the coefficient vectors, the
+scores and the groups (:class:`LeaveGroupOut`): what a coefficient file stores to
+rebuild the interval for any new row.
 
 References
 ----------
