@@ -262,9 +262,14 @@ def leave_group_out_of(fit, interval: str, *, folds: int = 10, seed: int = 0):
     from refit.models.intervals.group_conformal import leave_group_out
 
     k = None if interval == "group-jackknife+" else group_folds(fit, folds)
-    return leave_group_out(fit.form.design(fit.x), fit.y_model, fit.extras["groups"],
-                           folds=k, seed=seed, fit_rows=leave_out_fitter(fit),
-                           who=f"interval {interval!r}")
+    key = (interval, k, None if k is None else seed)
+    cache = fit.extras.setdefault("_leave_group_out", {})  # refits run once per setting
+    if key not in cache:
+        cache[key] = leave_group_out(fit.form.design(fit.x), fit.y_model,
+                                     fit.extras["groups"], folds=k, seed=seed,
+                                     fit_rows=leave_out_fitter(fit),
+                                     who=f"interval {interval!r}")
+    return cache[key]
 
 
 def _group_band(fit, X0, eta, ok, level, interval, opts):
