@@ -16,7 +16,14 @@ block holds what a consumer needs to rebuild the interval without the calibratio
 - ``cv+``: the K fold coefficient vectors, each row's fold and |residual| (exact).
 - ``bootstrap-*``: an approximation (the resampled draws are not carried): the bootstrap
   covariance of the coefficients and the pool of modified residuals.
+- ``group-jackknife+`` / ``group-cv+``: per left-out unit (a group, or a fold of groups)
+  its coefficient vector, per calibration soil its |residual| and its group index, per
+  group its unit (cv+); the two-layer weights follow from the group sizes (exact).
 - ``quantile``: the lower and upper quantile curves.
+
+A mixed fit also carries ``between_source`` (variance components, their standard errors,
+the groups column, the df rule, any fallback) and ``interval.between_covariance`` (B,
+terms x terms): a new source's soil has variance ``s_e^2 / w0 + x0' (C + B) x0``.
 """
 
 from __future__ import annotations
@@ -145,9 +152,40 @@ def _bootstrap(fit, X, y, method, level, seed, n_boot=1000) -> dict:
             "exact": False, "approximation": APPROX_BOOTSTRAP}
 
 
-def interval_record(fit, method: str, level: float, seed: int) -> dict:
-    """The ``interval`` block (see the module docstring)."""
+def _group_plus(fit, method, level, seed, folds) -> dict:
+    from refit.models.intervals.group_conformal import too_few_groups
+    from refit.models.predict import leave_group_out_of
+
+    lgo = leave_group_out_of(fit, method, folds=folds, seed=seed)
+    reason = too_few_groups(lgo.n_groups, 1.0 - level)
+    out = {"centre_coefficients": fit.result.coefficients,
+           "left_out_coefficients": lgo.unit_coefficients,
+           "row_groups": lgo.row_groups, "row_abs_residuals": lgo.scores,
+           "n_groups": lgo.n_groups, "groups": fit.extras.get("groups_column"),
+           "unbounded": reason is not None, "reason": reason, "exact": True,
+           "rebuild": "w_i = 1 / ((n_groups + 1) m_g), m_g the soils of soil i's group; "
+                      "mu_i = x0' left_out_coefficients[u_i] (u_i = row_groups[i], or "
+                      "group_folds[row_groups[i]] for group-cv+); upper = the smallest "
+                      "mu_i + r_i whose cumulative weight (ascending) reaches level, lower "
+                      "= the largest mu_i - r_i whose cumulative weight (descending) "
+                      "reaches level; infinite when the weights sum to less than level"}
+    if method == "group-cv+":
+        out |= {"group_folds": lgo.group_units, "folds": int(lgo.unit_coefficients.shape[0]),
+                "seed": seed}
+    return out
+
+
+def interval_record(fit, method: str, level: float, seed: int, *, folds: int = 10) -> dict:
+    """The ``interval`` block (see the module docstring); ``folds`` of group-cv+ (capped
+    at the number of groups, as ``Fit.predict`` does)."""
+    from refit.models.predict import GROUP_INTERVALS, between_covariance
+
     out = {"method": method, "level": float(level)}
+    between = between_covariance(fit)
+    if between is not None and method == "analytic":
+        out["between_covariance"] = between
+    if method in GROUP_INTERVALS:
+        return out | _group_plus(fit, method, level, seed, folds)
     if method == "analytic":
         return out | _analytic(fit, level)
     if method == "none":
@@ -184,6 +222,19 @@ def _method_cautions(fit, method) -> list[str]:
     return out
 
 
+def between_source_record(fit) -> dict | None:
+    """The ``between_source`` block of a mixed fit (None for other estimators)."""
+    if fit.estimator != "mixed":
+        return None
+    d = fit.result.details
+    keys = ("between_sd", "within_sd", "icc", "between_sd_se", "within_sd_se", "icc_se",
+            "n_groups", "df_method", "fallback", "random_slope", "boundary", "method",
+            "uncertainty")
+    out = {k: d.get(k) for k in keys if k in d}
+    out["groups"] = fit.extras.get("groups_column")
+    return out
+
+
 def _domain(fit) -> dict:
     from refit.errors import InvalidDataError
 
@@ -197,7 +248,8 @@ def _domain(fit) -> dict:
 
 
 def build_record(fit, *, function_id, provenance, cv, interval_method, level, seed,
-                 candidate, form_label, version, status, created, cautions) -> dict:
+                 candidate, form_label, version, status, created, cautions,
+                 folds=10) -> dict:
     """Content of a coefficient file (without its hash); see ``fit_record``."""
     import refit
 
@@ -206,6 +258,9 @@ def build_record(fit, *, function_id, provenance, cv, interval_method, level, se
     # so the file reproduces it (other estimators: the result as it is)
     res = fit._filled()
     dom = _domain(fit)
+    interval = interval_record(fit, interval_method, level, seed, folds=folds)
+    if interval.get("reason"):
+        cautions = [*cautions, interval["reason"]]
     return {
         "schema_version": SCHEMA_VERSION, "function_id": function_id, "version": version,
         "status": status, "created": created, "candidate": candidate,
@@ -221,13 +276,30 @@ def build_record(fit, *, function_id, provenance, cv, interval_method, level, se
         "covariance": (res.covariance if np.all(np.isfinite(res.covariance)) else None),
         "residual_std_error": fit.residual_std_error, "df_resid": fit.df_resid,
         "n": fit.n, "r_squared": fit.r_squared,
-        "interval": interval_record(fit, interval_method, level, seed),
+        "interval": interval,
         "cv": cv, "domain": dom,
-        "provenance": {"kind": "refit", **provenance,
+        "provenance": {"kind": "refit", **provenance, **_groups_provenance(fit),
                        "software": {"refit": refit.__version__, "numpy": np.__version__}},
         "cautions": [CAUTION, *dom["cautions"], *_method_cautions(fit, interval_method),
-                     *cautions],
-    }
+                     *(fit.cautions if fit.estimator == "mixed" else []), *cautions],
+    } | _optional_blocks(fit)
+
+
+def _groups_provenance(fit) -> dict:
+    """``groups`` (the column a fit with groups was given) and ``random_slope``, so a
+    refit (``refit verify``) passes the same settings."""
+    if "groups" not in fit.extras:
+        return {}
+    return {"groups": fit.extras.get("groups_column"),
+            "random_slope": bool(fit.extras.get("random_slope", False))}
+
+
+def _optional_blocks(fit) -> dict:
+    out = {}
+    block = between_source_record(fit)
+    if block is not None:
+        out["between_source"] = block
+    return out
 
 
 # ----------------------------------------------------------------------------- building
@@ -242,7 +314,7 @@ def fit_record(fit, *, function_id: str, provenance: dict, cv: dict | None,
                interval_method: str, level: float, seed: int = 0,
                candidate: str | None = None, form_label: str | None = None,
                version: str = CANDIDATE_VERSION, status: str = "candidate",
-               created: str | None = None, cautions=()) -> dict:
+               created: str | None = None, cautions=(), folds: int = 10) -> dict:
     """The coefficient record of a :class:`refit.models.fitting.Fit` (validated, with its hash).
 
     Parameters
@@ -258,12 +330,14 @@ def fit_record(fit, *, function_id: str, provenance: dict, cv: dict | None,
         Cross-validation summary (scheme settings and skill).
     interval_method : str
         The fitting engine's interval name (``analytic``, ``split-conformal``,
-        ``jackknife+``, ``cv+``, ``bootstrap-pairs``, ``bootstrap-residual``,
-        ``quantile``, ``none``).
+        ``jackknife+``, ``cv+``, ``group-jackknife+``, ``group-cv+``,
+        ``bootstrap-pairs``, ``bootstrap-residual``, ``quantile``, ``none``).
     level : float
         Interval level.
     seed : int
         Seed of the resampling interval (as passed to ``Fit.predict``).
+    folds : int
+        Folds of ``group-cv+`` (as passed to ``Fit.predict``; capped at the groups).
     candidate, form_label : str, optional
         The run's candidate label and the recipe's form name.
     version, status, created : str
@@ -275,6 +349,7 @@ def fit_record(fit, *, function_id: str, provenance: dict, cv: dict | None,
                            interval_method=interval_method, level=level, seed=seed,
                            candidate=candidate, form_label=form_label, version=version,
                            status=status, created=created or _dt.datetime.now(
-                               _dt.UTC).isoformat(timespec="seconds"), cautions=cautions)
+                               _dt.UTC).isoformat(timespec="seconds"), cautions=cautions,
+                           folds=folds)
     content = with_hash(content)
     return validate(content, where=f"record of {candidate or function_id}")

@@ -7,8 +7,10 @@ the README section "Evaluating a coefficient file"):
 - the design row of each new value from the ordered ``terms`` (``intercept``, ``x``,
   ``x^k``, ``ln(x)``);
 - the analytic band ``eta +- t sqrt(s^2 / w0 + x0' V x0)``;
+- the between-source covariance of mixed fits (``x0' (C + B) x0``, both directions);
 - the stored conformal quantities: split-conformal calibration scores, the leave-one-out
-  coefficient vectors of jackknife+, the fold coefficient vectors of CV+ (all exact), and
+  coefficient vectors of jackknife+, the fold coefficient vectors of CV+, the
+  leave-group-out vectors and group indices of group-jackknife+/CV+ (all exact), and
   the bootstrap summary (an approximation, said so in the file);
 - the flags and back-transform of the inverse direction, through
   :func:`refit.models.finish.inverse_finish`, and the classical-calibration inversion of
@@ -102,13 +104,19 @@ def _matrix(value, what: str) -> np.ndarray:
 
 # ----------------------------------------------------------------------------- bands
 def analytic_band(rec: dict, X0, eta, w0, level):
-    """``eta -+ t sqrt(s^2 / w0 + x0' V x0)`` from the file's covariance and residual SE."""
+    """``eta -+ t sqrt(s^2 / w0 + x0' V x0)`` from the file's covariance and residual SE;
+    with ``interval.between_covariance`` B (mixed fits) ``s`` is the residual (within-
+    source) SE and ``V = covariance + B``."""
     cov = _matrix(rec.get("covariance"), "coefficient covariance")
     s = rec.get("residual_std_error")
     if s is None or not np.all(np.isfinite(cov)):
         raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
                          "covariance, so there is no analytic interval")
-    s = rec["interval"].get("prediction_sd") or s  # Theil-Sen: the RMS residual
+    between = rec["interval"].get("between_covariance")
+    if between is not None:  # mixed: s_e^2 / w0 + x0' (C + B) x0
+        cov = cov + _matrix(between, "between-source covariance")
+    else:
+        s = rec["interval"].get("prediction_sd") or s  # Theil-Sen: the RMS residual
     q = np.einsum("ij,jk,ik->i", X0, cov, X0)
     t = t_quantile(level, float(rec["df_resid"]), rec["interval"])
     half = t * np.sqrt(s * s / w0 + q)
@@ -206,6 +214,8 @@ def resampled_band(iv: dict, X0, ok, w0, level):
         fold = np.asarray(iv["row_folds"], int)
         r = np.asarray(iv["row_abs_residuals"], float)
         lo, hi = _plus_band(x0, B[fold], b, r, alpha)
+    elif method in GROUP_METHODS:
+        lo, hi = group_plus_band(iv, x0, alpha)
     else:  # bootstrap: approximation (see the file's interval.approximation)
         pool = np.asarray(iv["residual_pool"], float)
         vb = _matrix(iv["coefficient_covariance"], "bootstrap coefficient covariance")
@@ -217,6 +227,29 @@ def resampled_band(iv: dict, X0, ok, w0, level):
     out = np.full((3, len(ok)), np.nan)
     out[:, ok] = np.vstack([est, lo, hi])
     return out
+
+
+GROUP_METHODS = ("group-jackknife+", "group-cv+")
+
+
+def group_plus_band(iv: dict, x0, alpha: float):
+    """Group-level jackknife+ / CV+ limits from the stored leave-group-out quantities.
+
+    ``mu_i = x0' left_out_coefficients[u_i]`` with ``u_i = row_groups[i]``
+    (group-jackknife+) or ``group_folds[row_groups[i]]`` (group-cv+), two-layer weights
+    ``1 / ((G + 1) m_g)`` from the group sizes, and the weighted quantiles of
+    :func:`refit.models.intervals.group_conformal.weighted_plus_limits` (numpy only)."""
+    from refit.models.intervals.group_conformal import group_weights, weighted_plus_limits
+
+    B = np.asarray(iv["left_out_coefficients"], float)
+    g = np.asarray(iv["row_groups"], int)
+    n_groups = int(iv["n_groups"])
+    if g.size and (g.min() < 0 or g.max() >= n_groups):
+        raise InvalidDataError(f"interval.row_groups must lie in 0..{n_groups - 1} "
+                               "(interval.n_groups - 1)")
+    unit = g if iv["method"] == "group-jackknife+" else np.asarray(iv["group_folds"], int)[g]
+    r = np.asarray(iv["row_abs_residuals"], float)
+    return weighted_plus_limits(x0 @ B[unit].T, r, group_weights(g, n_groups), alpha)
 
 
 def quantile_band(iv: dict, X0, level):
@@ -312,7 +345,12 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
         raise UsageError(f"estimator {rec.get('estimator')!r} gives no coefficient "
                          "covariance, so the calibration interval cannot be formed")
     inv = iv.get("inversion") or {}
-    s = float(inv.get("prediction_sd") or rec["residual_std_error"])
+    between = iv.get("between_covariance") if method == "analytic" else None
+    if between is not None:  # mixed: s_e^2 / w0 + g(x)' B g(x) per climate value x
+        between = _matrix(between, "between-source covariance")
+        s = float(rec["residual_std_error"])
+    else:
+        s = float(inv.get("prediction_sd") or rec["residual_std_error"])
     b_lo, b_hi = inv.get("bounds") or (None, None)
     bounds = (-np.inf if b_lo is None else float(b_lo),
               np.inf if b_hi is None else float(b_hi))
@@ -323,7 +361,7 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
         domain=tuple(inv.get("x_range") or rec["domain"]["ranges"][eq["x"][0]]),
         degree=int(rec["degree"]), through_origin="intercept" not in rec["terms"],
         log_response=eq["scale"] == "log", x_cal=_branch_points(inv), bounds=bounds,
-        with_interval=method != "none",
+        with_interval=method != "none", between_covariance=between,
         approximate=method == "analytic" and bool(inv.get("approximate", False)))
 
 
@@ -336,8 +374,8 @@ def _repeats_pay(rec: dict, v: np.ndarray, w0) -> bool:
     interval (a forward inversion, jackknife+ or CV+), one predictor whose values repeat
     (measurements recorded to a fixed resolution, e.g. 0.1 cm: fewer than half the values
     of a leading sample distinct) and one weight for all rows."""
-    costly = rec["direction"] == "forward" or rec["interval"]["method"] in ("jackknife+",
-                                                                           "cv+")
+    costly = rec["direction"] == "forward" or rec["interval"]["method"] in (
+        "jackknife+", "cv+", *GROUP_METHODS)
     if not costly or v.shape[1] != 1 or v.shape[0] < DEDUP_ROWS or np.ptp(w0) != 0:
         return False
     sample = v[:DEDUP_ROWS // 8, 0]

@@ -35,7 +35,7 @@ import numpy as np
 
 from refit.errors import InvalidDataError, UnreadableInputError, UsageError
 
-SCHEMA_VERSION = "1.1.0"
+SCHEMA_VERSION = "1.2.0"
 CANDIDATE_VERSION = "0.0.0-candidate"
 SCHEMA_FILE = "coefficients.schema.json"
 CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "
@@ -206,14 +206,41 @@ def _check_consistency(c: dict, where: str) -> None:
     if len(c["coefficients"]) != p:
         raise InvalidDataError(f"{where}: $.coefficients has {len(c['coefficients'])} "
                                f"value(s) but $.terms names {p}")
-    cov = c.get("covariance")
-    if cov is not None and (len(cov) != p or any(len(r) != p for r in cov)):
-        raise InvalidDataError(f"{where}: $.covariance must be {p} x {p} (one row and "
-                               "column per term)")
+    for path, mat in (("$.covariance", c.get("covariance")),
+                      ("$.interval.between_covariance",
+                       (c.get("interval") or {}).get("between_covariance"))):
+        if mat is not None and (len(mat) != p or any(len(r) != p for r in mat)):
+            raise InvalidDataError(f"{where}: {path} must be {p} x {p} (one row and "
+                                   "column per term)")
+    _check_group_interval(c.get("interval") or {}, p, where)
     for name in c["equation"]["x"]:
         if not any(name in t for t in c["terms"]):
             raise InvalidDataError(f"{where}: $.equation.x names {name!r}, which no term "
                                    "uses")
+
+
+def _check_group_interval(iv: dict, p: int, where: str) -> None:
+    """Shapes of a group-level interval's stored quantities."""
+    if iv.get("method") not in ("group-jackknife+", "group-cv+"):
+        return
+    B, g, r = iv["left_out_coefficients"], iv["row_groups"], iv["row_abs_residuals"]
+    G = iv["n_groups"]
+    units = G if iv["method"] == "group-jackknife+" else len(B)
+    problems = []
+    if len(B) != units or any(len(row) != p for row in B):
+        problems.append(f"$.interval.left_out_coefficients must be {units} x {p}")
+    if len(g) != len(r):
+        problems.append("$.interval.row_groups and row_abs_residuals must have one entry "
+                        "per calibration soil each")
+    if any(v >= G for v in g) or len(set(g)) != G:
+        problems.append(f"$.interval.row_groups must use every group index 0..{G - 1}")
+    folds = iv.get("group_folds")
+    if iv["method"] == "group-cv+" and (folds is None or len(folds) != G
+                                        or any(v >= len(B) for v in folds)):
+        problems.append(f"$.interval.group_folds must give a fold below {len(B)} for each "
+                        f"of the {G} groups")
+    if problems:
+        raise InvalidDataError(f"{where}: {problems[0]}")
 
 
 # ----------------------------------------------------------------------------- files
@@ -316,7 +343,9 @@ def write_record(content: dict, path) -> Path:
 # ----------------------------------------------------------------------------- consumer
 @dataclass
 class Prediction:
-    """Estimates and intervals [units of the response] and flags (';'-joined text)."""
+    """Estimates and intervals [units of the response] and flags (';'-joined text);
+    ``cautions`` says why limits are infinite (a group-level interval with too few
+    groups for the level)."""
 
     estimate: np.ndarray
     lower: np.ndarray
@@ -325,6 +354,7 @@ class Prediction:
     level: float | None
     method: str
     exact: bool
+    cautions: tuple = ()
 
     def __len__(self) -> int:
         return len(self.estimate)
@@ -420,10 +450,16 @@ class Equation:
         if not np.all(np.isfinite(w0) & (w0 > 0)):
             raise InvalidDataError("weights of new observations must be finite and > 0")
         est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+        cautions = ()
+        if iv["method"] in ("group-jackknife+", "group-cv+"):
+            from refit.models.intervals.group_conformal import too_few_groups
+
+            reason = too_few_groups(int(iv["n_groups"]), 1.0 - float(level))
+            cautions = (reason,) if reason else ()
         if iv["method"] in ("published", "none"):
             level = iv.get("level")
         return Prediction(est, lo, hi, flags, level, iv["method"],
-                          bool(iv.get("exact", True)))
+                          bool(iv.get("exact", True)), cautions)
 
 
 def load(path) -> Equation:

@@ -48,7 +48,9 @@ from refit.models.lsq import EstimatorResult, solve_lsq
 ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
 INTERVALS = ("analytic", "bootstrap-pairs", "bootstrap-residual", "split-conformal",
-             "jackknife+", "cv+", "quantile", "none")
+             "jackknife+", "cv+", "group-jackknife+", "group-cv+", "quantile", "none")
+#: intervals that leave out whole groups: they need ``fit(..., groups=...)``
+GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
 #: Theil-Sen's coefficient covariance comes from this many seeded case resamples
 #: (refit.models.robust.fit_theil_sen), drawn on first need (an analytic interval, the forward
 #: inversion, ``covariance`` or ``std_errors``); cost grows as n_boot n^2.
@@ -318,12 +320,19 @@ class Fit:
             ``analytic`` (t-based; default, and the only one for the forward direction),
             ``bootstrap-pairs``, ``bootstrap-residual``, ``split-conformal``, ``jackknife+``,
             ``cv+`` (OLS/WLS fits, inverse direction; see :mod:`refit.models.intervals`),
+            ``group-jackknife+``, ``group-cv+`` (a fit made with ``groups=``, any
+            estimator but York, inverse direction: whole sources left out, each refit with
+            the fit's own estimator; for a soil of an unseen source; see
+            :mod:`refit.models.intervals.group_conformal`; with too few groups for the
+            level the limits are infinite, flagged ``unbounded``, and the reason is in
+            ``result.attrs['cautions']``),
             ``quantile`` (the quantile curves; default for ``estimator='quantile'``) or
             ``none`` (estimate only).
         weights : float or array_like, optional
             Weight ``w0`` of each new observation (variance ``sigma^2 / w0``); default 1.
         seed, n_boot, folds, calib_fraction
-            Settings of the resampling intervals.
+            Settings of the resampling intervals (``group-cv+``: ``min(folds, number of
+            groups)`` folds of whole groups, shuffled with ``seed``).
 
         Returns
         -------
@@ -344,6 +353,10 @@ class Fit:
         if interval is None:
             interval = "quantile" if self.estimator == "quantile" else "analytic"
         _choice(interval, INTERVALS, "interval")
+        if interval in GROUP_INTERVALS and "groups" not in self.extras:
+            raise UsageError(f"interval {interval!r} leaves out whole groups (sources), but "
+                             "this fit was made without groups: refit with groups= (e.g. "
+                             "refit.fit(..., groups='source'))")
         if not (isinstance(level, (int, float)) and 0 < level < 1):
             raise UsageError(f"level must be a number between 0 and 1 (e.g. 0.95); got {level!r}")
         return predict_fit(self, values, float(level), interval, weights=weights, seed=seed,
@@ -395,7 +408,9 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
         them; ``drop``: leave those rows out (counted in ``Fit.n_dropped``).
     groups : str or array_like, optional
         Group (source, region) of each row: a column name or one label per row. Required
-        by ``estimator='mixed'``; with other estimators kept in ``Fit.extras['groups']``.
+        by ``estimator='mixed'`` and by the ``group-jackknife+``/``group-cv+`` intervals;
+        kept in ``Fit.extras['groups']`` (the column's name in
+        ``Fit.extras['groups_column']``, recorded in coefficient files).
     random_slope : bool
         ``mixed`` only: also a random slope on the single predictor (linear form).
 
@@ -452,6 +467,8 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
                                quantiles, lsq, codes, random_slope)
     if codes is not None:
         extras["groups"] = np.asarray(group_labels, dtype=object)[codes]
+        extras["groups_column"] = groups if isinstance(groups, str) else None
+    extras["random_slope"] = bool(random_slope)
     r2 = (lsq.details["r_squared"] if result is lsq
           else _r_squared(y_model, result.fitted, None, shape.intercept))
     from refit.models.domain import variable_ranges

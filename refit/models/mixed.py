@@ -9,11 +9,15 @@ lazily). For a new soil of a NEW group the prediction variance is
 
     s_e^2 + z0' G z0 + x0' Cov(b) x0,
 
-Cov(b) the GLS covariance of the fixed effects from the mixed fit. A random-intercept
-fit returns ``prediction_sd = sqrt(s_e^2 + s_u^2)`` in its details, so refit's analytic
-interval ``t(df) sqrt(prediction_sd^2 / w0 + x0' C x0)`` (both directions) is the
-new-source interval with no other change. :func:`new_source_interval` gives the interval
-for any design row, including the random slope's x-dependent part.
+Cov(b) the GLS covariance of the fixed effects from the mixed fit. Every analytic interval of a
+mixed fit (``Fit.predict`` in both directions, the coefficient file) uses
+``details["between_covariance"]`` B (terms x terms; s_u^2 in the intercept cell, the
+random slope's block in original units) row by row:
+``t(df) sqrt(s_e^2 / w0 + x0' (C + B) x0)``, exact for a random intercept and for a
+random slope alike (:func:`new_source_interval` is the same formula). ``prediction_sd``
+(``sqrt(s_e^2 + s_u^2)`` for a random intercept; for a random slope the widest
+``s_e^2 + x' B x`` over the calibration rows) is kept for readers that know no B: for
+them it is exact (intercept, w0 = 1) or conservative (slope).
 
 Degrees of freedom (small number of groups)
 -------------------------------------------
@@ -225,7 +229,8 @@ def _describe(details, scale, between, ratio_se, n, n_groups, p):
 
 def _prediction_sd(scale, between, X):
     """sqrt(s_e^2 + max over the calibration rows of x' G x): exact for a random
-    intercept, the widest in the calibration range for a random slope."""
+    intercept, the widest in the calibration range for a random slope (for readers that
+    know no between-source covariance; refit's own intervals use B row by row)."""
     zgz = np.einsum("ij,jk,ik->i", X, between, X)
     return float(np.sqrt(scale + max(float(zgz.max()), 0.0))), float(zgz.mean())
 
@@ -350,10 +355,6 @@ def _finish(fitted, X, y, n, n_groups, p, details, df_method, *, names=None, slo
     df = (float(n_groups - p) if df_method == "groups"
           else _satterthwaite_df(scale, zgz_mean, q_mean, n, n_groups, p))
     details.update(prediction_sd=pred_sd, between_covariance=between, boundary=False)
-    if k_re == 2:
-        details["warnings"].append(
-            "random slope: prediction_sd takes the widest between-source variance in the "
-            "calibration range; new_source_interval gives it row by row")
     fitted_values = X @ b
     return EstimatorResult(b, cov, float(np.sqrt(scale)), df, fitted_values,
                            y - fitted_values, None, details)

@@ -167,14 +167,120 @@ def _analytic_band(fit, X0, eta, w0, level):
         raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
                          "there is no analytic interval; use interval='bootstrap-pairs' or a "
                          "conformal interval with an OLS fit, or interval='none'")
-    s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
-    factor = res.details.get("factor")
-    if factor is not None:
-        q = factor.quad_form(X0) * s2
+    between = between_covariance(fit)
+    if between is not None:  # mixed: s_e^2 / w0 + x0' (C + B) x0, row by row
+        s2 = res.residual_std_error ** 2
+        q = np.einsum("ij,jk,ik->i", X0, res.covariance + between, X0)
     else:
-        q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
+        s2 = res.details.get("prediction_sd", res.residual_std_error) ** 2
+        factor = res.details.get("factor")
+        if factor is not None:
+            q = factor.quad_form(X0) * s2
+        else:
+            q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
     half = _t(level, res.df_resid) * np.sqrt(s2 / w0 + q)
     return eta - half, eta + half
+
+
+def between_covariance(fit):
+    """The between-source covariance B (terms x terms) of a mixed fit, else None.
+
+    A soil of a new source has variance ``s_e^2 / w0 + x0' B x0`` about the fixed
+    effects (Searle, Casella & McCulloch 1992, ch. 6, from memory): the random
+    intercept's B holds s_u^2 in its first cell, so ``x0' B x0 = s_u^2``; a random slope
+    adds its x-dependent part. Every analytic interval of a mixed fit (inverse band,
+    forward band, coefficient file) uses it."""
+    if fit.estimator != "mixed":
+        return None
+    b = fit.result.details.get("between_covariance")
+    return None if b is None else np.asarray(b, dtype=float)
+
+
+# ----------------------------------------------------------------------------- group-level
+GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
+
+
+def leave_out_fitter(fit):
+    """``fit_rows(row indices) -> coefficients`` refitting with the fit's own estimator,
+    or None for OLS (the fast QR path of :mod:`refit.models.intervals.group_conformal`).
+
+    Raises
+    ------
+    UsageError
+        York (the measurement SDs are not kept with the fit).
+    """
+    from refit.errors import UsageError
+
+    X = fit.form.design(fit.x)
+    y = fit.y_model
+    est = fit.estimator
+    if est == "ols":
+        return None
+    if est == "wls":
+        from refit.models.lsq import solve_lsq
+
+        return lambda rows: solve_lsq(X[rows], y[rows], weights=fit.weights[rows],
+                                      intercept=fit.form.intercept).coefficients
+    if est == "huber":
+        from refit.models.robust import fit_huber
+
+        return lambda rows: fit_huber(X[rows], y[rows]).coefficients
+    if est == "theil-sen":
+        from refit.models.robust import fit_theil_sen
+
+        how = fit.result.details.get("intercept", "joint")
+        return lambda rows: fit_theil_sen(X[rows, 1], y[rows], intercept=how).coefficients
+    if est == "quantile":
+        from refit.models.quantile import fit_quantiles
+
+        def median(rows):
+            return np.asarray(next(iter(fit_quantiles(X[rows], y[rows],
+                                                      quantiles=(0.5,)).values())), float)
+        return median
+    if est == "mixed":
+        from refit.models.mixed import fit_mixed
+
+        labels = np.asarray(fit.extras["groups"], dtype=object)
+        slope = bool(fit.extras.get("random_slope", False))
+        return lambda rows: fit_mixed(X[rows], y[rows], labels[rows], random_slope=slope,
+                                      names=fit.terms).coefficients
+    raise UsageError(f"interval 'group-jackknife+'/'group-cv+' refits the estimator on "
+                     f"the kept sources; {est!r} needs per-row measurement SDs that the fit "
+                     "does not keep: use estimator 'ols' or 'huber' for a group-level "
+                     "interval")
+
+
+def group_folds(fit, folds: int) -> int:
+    """Folds of group-cv+: ``folds`` capped at the number of groups."""
+    n_groups = np.unique(np.asarray(fit.extras["groups"], dtype=str)).size
+    return int(min(folds, n_groups))
+
+
+def leave_group_out_of(fit, interval: str, *, folds: int = 10, seed: int = 0):
+    """The :class:`refit.models.intervals.group_conformal.LeaveGroupOut` of a fit (its own
+    estimator, its groups): what both ``Fit.predict`` and the coefficient file use."""
+    from refit.models.intervals.group_conformal import leave_group_out
+
+    k = None if interval == "group-jackknife+" else group_folds(fit, folds)
+    key = (interval, k, None if k is None else seed)
+    cache = fit.extras.setdefault("_leave_group_out", {})  # refits run once per setting
+    if key not in cache:
+        cache[key] = leave_group_out(fit.form.design(fit.x), fit.y_model,
+                                     fit.extras["groups"], folds=k, seed=seed,
+                                     fit_rows=leave_out_fitter(fit),
+                                     who=f"interval {interval!r}")
+    return cache[key]
+
+
+def _group_band(fit, X0, eta, ok, level, interval, opts):
+    """Group-level jackknife+ / CV+ limits; the reason when they are unbounded."""
+    from refit.models.intervals.group_conformal import too_few_groups
+
+    lgo = leave_group_out_of(fit, interval, folds=opts["folds"], seed=opts["seed"])
+    alpha = 1.0 - level
+    lo, hi = np.full(len(ok), np.nan), np.full(len(ok), np.nan)
+    lo[ok], hi[ok] = lgo.limits(X0[ok], alpha)
+    return lo, hi, too_few_groups(lgo.n_groups, alpha)
 
 
 def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
@@ -241,8 +347,11 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
     X0 = fit.form.design(v)
     eta = X0 @ fit.result.coefficients
     lo = hi = np.full(m, np.nan)
+    reason = None
     if interval == "analytic":
         lo, hi = _analytic_band(fit, X0, eta, w0, level)
+    elif interval in GROUP_INTERVALS:
+        lo, hi, reason = _group_band(fit, X0, eta, ok, level, interval, opts)
     elif interval == "quantile":
         lo, hi = _quantile_band(fit, X0, level)
     elif interval != "none":
@@ -257,7 +366,7 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
         approximate=interval == "analytic" and bool(
             fit.result.details.get("approximate_interval")),
         turning=turning, log_response=fit.form.log_response, smearing=fit.smearing)
-    return eta, lo, hi, flag_categorical(masks, m)
+    return eta, lo, hi, flag_categorical(masks, m), reason
 
 
 def _predict_forward(fit, v, level, interval, w0):
@@ -278,15 +387,19 @@ def _predict_forward(fit, v, level, interval, w0):
                          "the estimate alone, or estimator 'ols'")
     # the band also decides whether a value beyond the turning point is consistent with
     # the curve, so it is used for interval='none' too (limits then blanked)
-    s2new = res.details.get("prediction_sd", res.residual_std_error) ** 2 / w0 if cov_ok \
-        else 0.0
+    between = between_covariance(fit) if cov_ok and interval == "analytic" else None
+    s2new = 0.0
+    if cov_ok:
+        sd = res.residual_std_error if between is not None else \
+            res.details.get("prediction_sd", res.residual_std_error)
+        s2new = sd ** 2 / w0
     return forward_predict(
         v[:, 0], coefficients=res.coefficients,
         covariance=res.covariance if cov_ok else np.zeros_like(res.covariance),
         sigma2_new=s2new, t=_t(level, res.df_resid), domain=fit.ranges[fit.x_names[0]],
         degree=fit.form.degree, through_origin=fit.form.through_origin,
         log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
-        with_interval=interval != "none",
+        with_interval=interval != "none", between_covariance=between,
         approximate=interval == "analytic" and bool(res.details.get("approximate_interval")))
 
 
@@ -302,8 +415,12 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
     if not np.all(np.isfinite(w0) & (w0 > 0)):
         raise InvalidDataError("weights of new observations must be finite and > 0")
     opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
+    reason = None
     if fit.direction == "forward":
         est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
     else:
-        est, lo, hi, flags = _predict_inverse(fit, v, level, interval, w0, opts)
-    return result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
+        est, lo, hi, flags, reason = _predict_inverse(fit, v, level, interval, w0, opts)
+    frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
+    if reason:  # the limits are infinite: say why, with the result
+        frame.attrs["cautions"] = [reason]
+    return frame

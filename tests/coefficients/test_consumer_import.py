@@ -51,3 +51,34 @@ def test_fitted_file_in_fresh_process(tmp_path):
     assert got["heavy"] == []
     ref = f.predict([50.0, 100.0])                  # the in-memory fit
     assert abs(got["upper"][1] - ref["upper"].iloc[1]) < 1e-9 * abs(ref["upper"].iloc[1])
+
+
+def _clustered(n_sources=20, soils=5, seed=3):
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    codes = np.repeat(np.arange(n_sources), soils)
+    depth = rng.uniform(30, 120, n_sources)[codes] + rng.uniform(-20, 20, codes.size)
+    map_mm = (150 + 5 * depth + rng.normal(0, 60, n_sources)[codes]
+              + rng.normal(0, 50, codes.size))
+    return pd.DataFrame({"bk_depth_cm": depth, "map_mm": map_mm,
+                         "source": [f"s{c}" for c in codes]})
+
+
+def test_new_source_files_in_fresh_process(tmp_path):
+    from refit.coefficients import fit_record, write_record
+    from refit.models.fitting import fit
+
+    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
+            "recipe": None, "recipe_sha256": None}
+    for kw, method in (({"estimator": "mixed", "random_slope": True}, "analytic"),
+                       ({"estimator": "huber"}, "group-jackknife+"),
+                       ({}, "group-cv+")):
+        f = fit(_clustered(), "map_mm", "bk_depth_cm", groups="source", **kw)
+        rec = fit_record(f, function_id="map_from_bk_depth", cv=None, level=0.9,
+                         interval_method=method, provenance=prov)
+        got = _run(write_record(rec, tmp_path / "f.json"))
+        assert got["heavy"] == []
+        ref = f.predict([50.0, 100.0], level=0.9, interval=method)
+        assert abs(got["upper"][1] - ref["upper"].iloc[1]) < 1e-9 * abs(ref["upper"].iloc[1])

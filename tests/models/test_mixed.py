@@ -116,9 +116,10 @@ def test_random_slope_between_covariance_matches_statsmodels():
     est, lo, hi = new_source_interval(f.result, X0, 0.95)
     np.testing.assert_allclose(hi - est, stats.t.ppf(0.975, f.df_resid) * np.sqrt(var),
                                rtol=1e-6)
-    # Fit.predict uses the widest between variance of the calibration range: never narrower
+    # Fit.predict uses the between-source covariance row by row: the same interval
     p = f.predict(X0[:, 1])
-    assert np.all(p.upper.to_numpy() >= hi - 1e-9)
+    np.testing.assert_allclose(p.lower, lo, rtol=1e-12)
+    np.testing.assert_allclose(p.upper, hi, rtol=1e-12)
 
 
 def test_forward_direction_contains_classical_estimate_and_is_wider_than_pooled():

@@ -21,8 +21,12 @@ never narrowed to a finite one.
 For OLS the leave-group-out fits come from the full fit's QR, X = QR, by block deletion:
 with e_S the residuals and Q_S the rows of Q of group S,
 d_S = (I - Q_S Q_S')^-1 e_S are the group's leave-group-out residuals and
-mu_(-S)(x0) = x0'b - (R^-T x0)' Q_S' d_S (Belsley, Kuh & Welsch 1980, ch. 2, from
-memory). Each group costs one m_g x m_g solve; X'X is never formed.
+b_(-S) = b - R^-1 Q_S' d_S its leave-group-out coefficients, so
+mu_(-S)(x0) = x0' b_(-S) (Belsley, Kuh & Welsch 1980, ch. 2, from memory). Each group
+costs one m_g x m_g solve; X'X is never formed. Other estimators refit on the kept rows
+(``fit`` or ``fit_rows``). :func:`leave_group_out` returns the coefficient vectors, the
+scores and the groups (:class:`LeaveGroupOut`): what a coefficient file stores to
+rebuild the interval for any new row.
 
 References
 ----------
@@ -36,6 +40,7 @@ References
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -99,15 +104,13 @@ def weighted_plus_limits(mu_out: np.ndarray, r: np.ndarray, w: np.ndarray, alpha
     return lower, upper
 
 
-def _ols_leave_group_out(X, y, x0, codes, n_groups, who):
-    """Leave-group-out predictions at x0 (m, n) and scores (n,) of OLS, by block deletion
-    from the full QR; the full fit's x0'b."""
+def _ols_leave_group_out(X, y, codes, n_groups, who):
+    """Full-fit coefficients, leave-group-out coefficient vectors (G, p) and scores (n,)
+    of OLS, by block deletion from the full QR (see the module notes)."""
     Q, R = _qr(X, who)
     b = np.linalg.solve(R, Q.T @ y)
     e = y - X @ b
-    A = np.linalg.solve(R.T, x0.T).T           # rows R^-T x0
-    est = x0 @ b
-    mu = np.empty((x0.shape[0], X.shape[0]))
+    B = np.empty((n_groups, X.shape[1]))
     r = np.empty(X.shape[0])
     for g in range(n_groups):
         rows = np.flatnonzero(codes == g)
@@ -119,22 +122,111 @@ def _ols_leave_group_out(X, y, x0, codes, n_groups, who):
                                    "with another group or use a simpler form")
         d = np.linalg.solve(M, e[rows])
         r[rows] = np.abs(d)
-        mu[:, rows] = (est - A @ (Qs.T @ d))[:, None]
-    return est, mu, r
+        B[g] = b - np.linalg.solve(R, Qs.T @ d)   # b_(-S) = b - R^-1 Q_S' d_S
+    return b, B, r
 
 
-def _refit_leave_group_out(X, y, x0, codes, fold_of_group, n_folds, fit, who):
-    """Leave-fold-out predictions (m, n) and scores (n,) by refitting ``fit``."""
-    mu = np.empty((x0.shape[0], X.shape[0]))
+def _refit_leave_group_out(X, y, codes, fold_of_group, n_folds, fit, fit_rows, who):
+    """Full-fit coefficients, leave-fold-out coefficient vectors (K, p) and scores (n,)
+    by refitting: ``fit(X, y)`` on the kept rows, or ``fit_rows(kept row indices)``."""
+    def refit(rows):
+        if fit_rows is not None:
+            return np.asarray(fit_rows(rows), dtype=float)
+        return np.asarray(fit(X[rows], y[rows]), dtype=float)
+
+    B = np.empty((n_folds, X.shape[1]))
     r = np.empty(X.shape[0])
     fold = fold_of_group[codes]
     for k in range(n_folds):
         out = fold == k
-        b = np.asarray(fit(X[~out], y[~out]), dtype=float)
-        r[out] = np.abs(y[out] - X[out] @ b)
-        mu[:, out] = (x0 @ b)[:, None]
-    est = x0 @ np.asarray(fit(X, y), dtype=float)
-    return est, mu, r
+        B[k] = refit(np.flatnonzero(~out))
+        r[out] = np.abs(y[out] - X[out] @ B[k])
+    return refit(np.arange(X.shape[0])), B, r
+
+
+def _ols_fit(who):
+    def fit(Xt, yt):
+        Q, R = _qr(Xt, who)
+        return np.linalg.solve(R, Q.T @ yt)
+    return fit
+
+
+@dataclass
+class LeaveGroupOut:
+    """What a group-level jackknife+ / CV+ interval needs, for any new row.
+
+    Attributes
+    ----------
+    centre : ndarray, shape (p,)
+        Coefficients fitted on every row.
+    unit_coefficients : ndarray, shape (K, p)
+        Coefficients fitted without each left-out unit: a group (jackknife+, K = G) or a
+        fold of groups (CV+).
+    row_groups : ndarray of int, shape (n,)
+        Group index (0..G-1) of each calibration soil.
+    group_units : ndarray of int, shape (G,)
+        Left-out unit of each group (the identity for jackknife+).
+    scores : ndarray, shape (n,)
+        ``|y_i - x_i' unit_coefficients[group_units[row_groups[i]]]|``.
+    n_groups : int
+    """
+
+    centre: np.ndarray
+    unit_coefficients: np.ndarray
+    row_groups: np.ndarray
+    group_units: np.ndarray
+    scores: np.ndarray
+    n_groups: int
+
+    @property
+    def row_coefficients(self) -> np.ndarray:
+        """Leave-out coefficients of each soil's unit, shape (n, p)."""
+        return self.unit_coefficients[self.group_units[self.row_groups]]
+
+    def limits(self, x0: np.ndarray, alpha: float):
+        """Lower and upper limits (m,) at design rows ``x0`` (m, p)."""
+        mu = np.asarray(x0, float) @ self.row_coefficients.T
+        return weighted_plus_limits(mu, self.scores,
+                                    group_weights(self.row_groups, self.n_groups), alpha)
+
+
+def leave_group_out(X, y, groups, *, folds: int | None = None, seed: int = 0, fit=None,
+                    fit_rows=None, who: str = "group_jackknife_plus") -> LeaveGroupOut:
+    """Leave-group-out (``folds=None``) or leave-fold-of-groups-out quantities.
+
+    Parameters
+    ----------
+    X, y, groups
+        As in :func:`group_jackknife_plus`.
+    folds : int, optional
+        None: each group is left out alone (jackknife+); K: the groups are shuffled with
+        ``seed`` and dealt into K folds of near-equal group counts (CV+).
+    fit : callable, optional
+        ``fit(X, y) -> coefficients``; default OLS (block deletion from one QR for
+        jackknife+, a QR per fold for CV+).
+    fit_rows : callable, optional
+        ``fit_rows(row indices) -> coefficients`` (takes precedence over ``fit``): for
+        estimators that need more than X and y of the kept rows (weights, groups).
+    """
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float)
+    codes, n_groups = _groups(groups, X.shape[0], who)
+    if folds is None:
+        units = np.arange(n_groups)
+        if fit is None and fit_rows is None:
+            b, B, r = _ols_leave_group_out(X, y, codes, n_groups, who)
+        else:
+            b, B, r = _refit_leave_group_out(X, y, codes, units, n_groups, fit, fit_rows, who)
+        return LeaveGroupOut(b, B, codes, units, r, n_groups)
+    if not isinstance(folds, (int, np.integer)) or not 2 <= folds <= n_groups:
+        raise UsageError(f"{who}: folds must be an integer from 2 to the number of groups "
+                         f"({n_groups}); got {folds!r}")
+    perm = np.random.default_rng(seed).permutation(n_groups)
+    units = np.empty(n_groups, dtype=int)
+    units[perm] = np.arange(n_groups) % folds
+    b, B, r = _refit_leave_group_out(X, y, codes, units, int(folds), fit or _ols_fit(who),
+                                     fit_rows, who)
+    return LeaveGroupOut(b, B, codes, units, r, n_groups)
 
 
 def _result(est, lower, upper, method, level, n_groups, alpha, extra):
@@ -146,8 +238,8 @@ def _result(est, lower, upper, method, level, n_groups, alpha, extra):
 
 
 @with_one_blas_thread
-def group_jackknife_plus(X, y, groups, x0, *, level: float = 0.95, fit=None
-                         ) -> PredictionInterval:
+def group_jackknife_plus(X, y, groups, x0, *, level: float = 0.95, fit=None,
+                         fit_rows=None) -> PredictionInterval:
     """Jackknife+ with each whole group (source) left out in turn, two-layer weights.
 
     Parameters
@@ -165,35 +257,34 @@ def group_jackknife_plus(X, y, groups, x0, *, level: float = 0.95, fit=None
         group, as for jackknife+ [1]_).
     fit : callable, optional
         ``fit(X, y) -> coefficients``; default OLS, by block deletion from one QR.
+    fit_rows : callable, optional
+        ``fit_rows(kept row indices) -> coefficients``, for estimators that need more
+        than the kept rows' X and y (weights, groups); takes precedence over ``fit``.
 
     Returns
     -------
     PredictionInterval
         ``estimate`` from the fit on all rows; ``details``: ``n_groups``, ``unbounded``,
-        ``reason`` (why the limits are infinite, else None), ``scores``.
+        ``reason`` (why the limits are infinite, else None), ``scores``,
+        ``leave_group_out`` (:class:`LeaveGroupOut`: what a coefficient file stores).
     """
     who = "group_jackknife_plus"
     X, y, x0, _ = _prepare(X, y, x0, None, who)
     alpha = _alpha(level, who)
-    codes, n_groups = _groups(groups, X.shape[0], who)
-    if fit is None:
-        est, mu, r = _ols_leave_group_out(X, y, x0, codes, n_groups, who)
-    else:
-        est, mu, r = _refit_leave_group_out(X, y, x0, codes, np.arange(n_groups), n_groups,
-                                            fit, who)
-    lower, upper = weighted_plus_limits(mu, r, group_weights(codes, n_groups), alpha)
-    return _result(est, lower, upper, "group-jackknife+", level, n_groups, alpha,
-                   {"scores": r})
+    lgo = leave_group_out(X, y, groups, fit=fit, fit_rows=fit_rows, who=who)
+    lower, upper = lgo.limits(x0, alpha)
+    return _result(x0 @ lgo.centre, lower, upper, "group-jackknife+", level, lgo.n_groups,
+                   alpha, {"scores": lgo.scores, "leave_group_out": lgo})
 
 
 @with_one_blas_thread
 def group_cv_plus(X, y, groups, x0, *, level: float = 0.95, folds: int = 5, seed: int = 0,
-                  fit=None) -> PredictionInterval:
+                  fit=None, fit_rows=None) -> PredictionInterval:
     """CV+ with folds of whole groups (sources), two-layer weights.
 
     Parameters
     ----------
-    X, y, groups, x0, level, fit
+    X, y, groups, x0, level, fit, fit_rows
         As in :func:`group_jackknife_plus`.
     folds : int
         Number of folds K (2 <= K <= G); the groups are shuffled with ``seed`` and dealt
@@ -209,19 +300,9 @@ def group_cv_plus(X, y, groups, x0, *, level: float = 0.95, folds: int = 5, seed
     who = "group_cv_plus"
     X, y, x0, _ = _prepare(X, y, x0, None, who)
     alpha = _alpha(level, who)
-    codes, n_groups = _groups(groups, X.shape[0], who)
-    if not isinstance(folds, (int, np.integer)) or not 2 <= folds <= n_groups:
-        raise UsageError(f"{who}: folds must be an integer from 2 to the number of groups "
-                         f"({n_groups}); got {folds!r}")
-    perm = np.random.default_rng(seed).permutation(n_groups)
-    fold_of_group = np.empty(n_groups, dtype=int)
-    fold_of_group[perm] = np.arange(n_groups) % folds
-    if fit is None:
-        def fit(Xt, yt):
-            Q, R = _qr(Xt, who)
-            return np.linalg.solve(R, Q.T @ yt)
-    est, mu, r = _refit_leave_group_out(X, y, x0, codes, fold_of_group, folds, fit, who)
-    lower, upper = weighted_plus_limits(mu, r, group_weights(codes, n_groups), alpha)
-    return _result(est, lower, upper, "group-cv+", level, n_groups, alpha,
-                   {"scores": r, "fold_of_group": fold_of_group, "folds": int(folds),
-                    "seed": seed})
+    lgo = leave_group_out(X, y, groups, folds=folds, seed=seed, fit=fit, fit_rows=fit_rows,
+                          who=who)
+    lower, upper = lgo.limits(x0, alpha)
+    return _result(x0 @ lgo.centre, lower, upper, "group-cv+", level, lgo.n_groups, alpha,
+                   {"scores": lgo.scores, "fold_of_group": lgo.group_units,
+                    "folds": int(folds), "seed": seed, "leave_group_out": lgo})

@@ -60,7 +60,7 @@ def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool)
 def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,
                     degree: int, through_origin: bool = False, log_response: bool = False,
                     x_cal=None, bounds=(-np.inf, np.inf), with_interval: bool = True,
-                    approximate: bool = False):
+                    approximate: bool = False, between_covariance=None):
     """Invert a fitted ``feature = f(climate)`` at measured feature values.
 
     Parameters
@@ -95,6 +95,13 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         are dropped.
     approximate : bool
         Add ``approximate-interval`` to rows with a value.
+    between_covariance : ndarray, optional
+        Between-source covariance B of a mixed fit (terms x terms, as ``covariance``):
+        the new observation's variance is then ``sigma2_new + g(x)' B g(x)`` at each
+        climate value x (a random slope makes it depend on x). The band variance
+        ``sigma2_new + g(x)' (V + B) g(x)`` is the same quadratic form in g(x) as
+        without B, so the line's Fieller inversion and the polynomial band search stay
+        exact with V + B.
 
     Returns
     -------
@@ -104,6 +111,8 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         ';'-joined flag names per row (see :mod:`refit.models.inversion.classical`).
     """
     y0, missing, invalid = _model_scale(values, log_response)
+    if between_covariance is not None:
+        covariance = np.asarray(covariance, float) + np.asarray(between_covariance, float)
     poly = np.concatenate([[0.0] if through_origin else [], coefficients])
     cov = np.pad(covariance, ((1, 0), (1, 0))) if through_origin else covariance
     if degree == 1:
