@@ -229,7 +229,7 @@ def resampled_band(iv: dict, X0, ok, w0, level):
     return out
 
 
-GROUP_METHODS = ("group-jackknife+", "group-cv+")
+from refit.models.intervals.group_conformal import GROUP_INTERVALS as GROUP_METHODS  # noqa: E402
 
 
 def group_plus_band(iv: dict, x0, alpha: float):

@@ -43,14 +43,13 @@ from refit.models.inputs import (STRAIGHT_LINE_ONLY, _check_constant, _check_pos
                           _drop_missing, fit_columns)
 from refit.errors import UsageError
 from refit.models.forms import Form, duan_smearing, make_form
+from refit.models.intervals.group_conformal import GROUP_INTERVALS  # noqa: F401  (need groups=)
 from refit.models.lsq import EstimatorResult, solve_lsq
 
 ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
 INTERVALS = ("analytic", "bootstrap-pairs", "bootstrap-residual", "split-conformal",
              "jackknife+", "cv+", "group-jackknife+", "group-cv+", "quantile", "none")
-#: intervals that leave out whole groups: they need ``fit(..., groups=...)``
-GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
 #: Theil-Sen's coefficient covariance comes from this many seeded case resamples
 #: (refit.models.robust.fit_theil_sen), drawn on first need (an analytic interval, the forward
 #: inversion, ``covariance`` or ``std_errors``); cost grows as n_boot n^2.

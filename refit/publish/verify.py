@@ -23,7 +23,7 @@ evaluated):
     the same rows, the same form, estimator and direction are refitted the
     way the run fitted them (:func:`refit.validate.candidates.fit_whole`; a file fitted
     with groups, a mixed fit or a group-level interval, is refitted with the recorded
-    groups column and random-slope setting, :func:`refit_with_groups`) and every fitted
+    groups column and random-slope setting, :func:`refit.validate.refits.refit_record`) and every fitted
     number (coefficients, covariance, residual standard error, degrees of freedom, n, R^2,
     Duan's smearing factor, the ``between_source`` block and the interval's stored
     quantities) must agree within ``tol``:
@@ -174,63 +174,11 @@ def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool
         The file lacks what a refit needs (dataset version, recipe), the data are not the
         recorded ones (name, version, sha256) or the recorded subset no longer rebuilds.
     """
-    data, fit = refit_with_groups(content, store_dir)
+    from refit.validate.refits import refit_record
+
+    data, fit = refit_record(content, store_dir)
     diffs = compare(content, refitted_numbers(fit, content, data.recipe), tol)
     return diffs, (data if details else len(data.frame))
-
-
-def recorded_groups(content: dict) -> tuple[bool, str | None]:
-    """(was the fit given groups, the groups column) as the file records them
-    (``provenance.groups``, else ``between_source.groups`` or ``interval.groups``)."""
-    prov = content.get("provenance") or {}
-    for block in (prov, content.get("between_source"), content.get("interval")):
-        if isinstance(block, dict) and "groups" in block:
-            return True, block["groups"]
-    return False, None
-
-
-def refit_with_groups(content: dict, store_dir):
-    """Rebuild the data and refit the record's candidate, passing the recorded groups
-    column and random-slope setting (mixed fits, group-level intervals) the way the fit
-    was made; other files through :func:`refit.validate.refits.refit_record`.
-
-    Raises
-    ------
-    InvalidDataError
-        The fit was given group labels rather than a column, so they cannot be rebuilt.
-    """
-    from refit.validate.refits import refit_record, spec_from_record
-
-    had_groups, column = recorded_groups(content)
-    if not had_groups:
-        return refit_record(content, store_dir)
-    if not column:
-        raise InvalidDataError("the file was fitted with group labels given directly, not "
-                               "a groups column, so a refit cannot rebuild them; verify "
-                               "checks its integrity only (run without --store)")
-    from refit.models.fitting import fit as fit_engine
-    from refit.select.dataset import dataset_from_record
-
-    data = dataset_from_record(content, store_dir)
-    spec = spec_from_record(content)
-    recipe = data.recipe
-    prov = content.get("provenance") or {}
-    slope = bool(prov.get("random_slope", False))
-    if "random_slope" not in prov and isinstance(content.get("between_source"), dict):
-        b = content["between_source"]
-        slope = bool(b.get("random_slope")) or b.get("fallback") == "random-intercept"
-    frame = data.frame.reset_index(drop=True)
-    if column not in frame.columns:
-        raise InvalidDataError(f"the file records groups column {column!r}, which the "
-                               "rebuilt data do not have; check --store")
-    try:
-        fit = fit_engine(frame, recipe.response, list(recipe.predictors), form=spec.form,
-                         degree=spec.degree, estimator=spec.estimator,
-                         direction=spec.direction, groups=column, random_slope=slope)
-    except RefitError as exc:
-        raise InvalidDataError(f"the refit with groups column {column!r} failed: "
-                               f"{exc}") from None
-    return data, fit
 
 
 def recipe_from_record(content: dict):

@@ -54,7 +54,7 @@ FORMS = ("linear", "quadratic", "cubic", "exponential")  # plus polynomial-N
 MAX_DEGREE = 6
 ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
-GROUP_METHODS = ("group-jackknife+", "group-cv+")
+from refit.models.intervals.group_conformal import GROUP_INTERVALS as GROUP_METHODS  # noqa: E402
 METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile",
            *GROUP_METHODS)
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")

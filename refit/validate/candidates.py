@@ -94,7 +94,10 @@ def impossible_reason(form: str, estimator: str, direction: str, method: str,
     if method == "analytic" and estimator == "quantile":
         return ("estimator 'quantile' gives its own interval from the quantile curves; use "
                 "interval 'quantile'")
-    if method in RESAMPLING and estimator != "ols":
+    if method in GROUP_METHODS and estimator == "york":
+        return (f"interval {method!r} refits the line without each source, and a York fit "
+                "keeps no measurement SDs to refit with")
+    if method in RESAMPLING and method not in GROUP_METHODS and estimator != "ols":
         return (f"interval {method!r} refits by least squares, so it goes with estimator "
                 f"'ols', not {estimator!r}")
     return None
@@ -159,6 +162,8 @@ def fit_arguments(recipe: Recipe, spec: Spec) -> dict:
         kw["x_sd"], kw["y_sd"] = pair if spec.direction == "inverse" else pair[::-1]
     if spec.estimator == "mixed":
         kw.update(groups=recipe.groups, random_slope=recipe.random_slope)
+    elif spec.interval in GROUP_METHODS:
+        kw["groups"] = recipe.groups   # the group-level interval leaves out whole sources
     return kw
 
 

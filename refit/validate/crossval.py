@@ -36,7 +36,7 @@ _INTERVAL_ALIASES = {"bootstrap": "bootstrap-pairs"}
 _CONFORMAL = ("split-conformal", "jackknife+", "cv+")
 #: whole groups left out (refit.models.intervals.group_conformal), computed here on each
 #: training fold; they need the candidate's ``groups``
-GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
+from refit.models.intervals.group_conformal import GROUP_INTERVALS  # noqa: E402
 #: folds of group-cv+ inside a training fold (at most its number of groups)
 GROUP_CV_FOLDS = 5
 #: columns of CVResult.predictions
@@ -158,62 +158,29 @@ def _one_fold(arrays, labels, c: Candidate, split: Split, level: float, seed: in
 
     tr, te = split.train_idx, split.test_idx
     kwargs = _fit_kwargs(c, level)
-    if groups is not None and c.estimator == "mixed":
-        kwargs["groups"] = groups[tr]
+    if groups is not None and (c.estimator == "mixed" or c.interval in GROUP_INTERVALS):
+        kwargs["groups"] = groups[tr]   # the training fold's sources only
     test = np.column_stack([arrays[p][te] for p in c.predictors])
     fold_seed = _fold_seed(seed, split.repeat, split.fold)
     try:  # plain arrays: no table per fold (the same numbers as through a DataFrame)
         f = fit({k: v[tr] for k, v in arrays.items()}, c.response, list(c.predictors),
                 **kwargs)
-        if c.interval in GROUP_INTERVALS:
-            return _group_band(f, test, groups[tr], c.interval, level, fold_seed)
-        out = f.predict(test, level=level, interval=c.interval, seed=fold_seed)
+        out = f.predict(test, level=level, interval=c.interval, seed=fold_seed,
+                        folds=GROUP_CV_FOLDS)
     except RefitError as err:
         # again through a table indexed by the records' labels, so the message names them
         train = pd.DataFrame({k: v[tr] for k, v in arrays.items()}, index=labels[tr],
                              copy=False)
         try:
             f = fit(train, c.response, list(c.predictors), **kwargs)
-            if c.interval in GROUP_INTERVALS:
-                _group_band(f, test, groups[tr], c.interval, level, fold_seed)
-            else:
-                f.predict(test, level=level, interval=c.interval, seed=fold_seed)
+            f.predict(test, level=level, interval=c.interval, seed=fold_seed,
+                      folds=GROUP_CV_FOLDS)
         except RefitError as again:
             raise type(again)(f"{c.label}, repeat {split.repeat + 1} fold {split.fold + 1} "
                               f"({len(tr)} training rows): {again}") from again
         raise err
     return (out["estimate"].to_numpy(float), out["lower"].to_numpy(float),
             out["upper"].to_numpy(float), np.asarray(out["flags"], dtype=object))
-
-
-def _group_band(f, test, train_groups, method: str, level: float, seed: int):
-    """A group-level conformal interval for the test rows from the training fold only.
-
-    The fitted equation's design and response (model scale) on the training soils, their
-    groups, and :func:`refit.models.intervals.group_conformal.group_jackknife_plus` (or
-    ``group_cv_plus`` with up to :data:`GROUP_CV_FOLDS` folds). Estimate and flags are the
-    fit's (``interval='none'``); limits are back-transformed for the exponential form;
-    an infinite limit (too few groups for the level) adds the ``unbounded`` flag.
-    """
-    from refit.models.intervals import group_conformal as gc
-
-    X, x0 = f.form.design(f.x), f.form.design(test)
-    if method == "group-jackknife+":
-        pi = gc.group_jackknife_plus(X, f.y_model, train_groups, x0, level=level)
-    else:
-        n_groups = len(np.unique(train_groups))
-        pi = gc.group_cv_plus(X, f.y_model, train_groups, x0, level=level, seed=seed,
-                              folds=min(GROUP_CV_FOLDS, n_groups))
-    none = f.predict(test, level=level, interval="none")
-    lo, hi = pi.lower, pi.upper
-    if f.form.log_response:
-        with np.errstate(over="ignore"):
-            lo, hi = np.exp(lo), np.exp(hi)
-    flags = np.asarray(none["flags"], dtype=object).astype(str)
-    unb = ~(np.isfinite(lo) & np.isfinite(hi))
-    flags[unb] = [";".join(filter(None, (fl, "unbounded"))) for fl in flags[unb]]
-    est = np.exp(pi.estimate) if f.form.log_response else pi.estimate
-    return est, lo, hi, flags.astype(object)
 
 
 def _run_batch(arrays, labels, c, batch, level, seed, groups=None):

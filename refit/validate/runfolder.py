@@ -27,6 +27,7 @@ from refit._util.atomic import TMP_PREFIX, fsync_dir, write_text_atomic
 from refit.coefficients import CAUTION, plain
 from refit.coefficients.build import fit_record
 from refit.errors import UsageError
+from refit.validate.crossval import GROUP_CV_FOLDS
 
 #: interval methods whose coefficient file falls back to ``none`` when the format cannot
 #: carry them (never to another interval)
@@ -141,6 +142,8 @@ def fit_records(run, created: str) -> dict[str, dict]:
                   cv=cv_summary(m.cv[spec.label]), level=run.recipe.level,
                   seed=run.recipe.seed, candidate=spec.label, form_label=spec.form_label,
                   created=created)
+        if spec.interval == "group-cv+":
+            kw["folds"] = GROUP_CV_FOLDS   # the folds of whole sources cross-validation used
         method, why = file_interval(spec.interval)
         if why:
             kw["cv"]["file_interval_note"] = why

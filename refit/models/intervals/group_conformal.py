@@ -48,6 +48,8 @@ from refit.errors import InvalidDataError, UsageError
 from refit.models.intervals.base import PredictionInterval, _alpha, _prepare
 from refit.models.linalg import _qr, with_one_blas_thread
 
+#: The interval methods that leave out whole groups (they need the groups of the soils).
+GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
 _SINGULAR = 1e-10      # pivot size (relative) below which leaving a group out is rank-deficient
 
 
