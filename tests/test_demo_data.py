@@ -261,7 +261,7 @@ def test_recipe_sections_and_subset_size(base):
     assert recipe["validation"] == {"scheme": "group-kfold", "folds": 5, "repeats": 10,
                                     "groups": "source", "seed": 20261201}
     assert recipe["candidates"]["forms"] == ["linear", "quadratic"]
-    assert recipe["candidates"]["estimators"] == ["ols", "huber"]
+    assert recipe["candidates"]["estimators"] == ["ols", "huber", "mixed"]
     assert recipe["intervals"]["methods"] == ["analytic", "split-conformal", "jackknife+"]
     fitted = _recipe_subset(base, recipe).dropna(subset=["bk_depth_cm", "map_mm"])
     assert len(fitted) >= 100
