@@ -13,6 +13,7 @@ import numpy as np
 
 from refit._util.flagcodes import joined_names, present_codes
 from refit.models import finish
+from refit.models.intervals.group_conformal import GROUP_INTERVALS
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
 
@@ -167,6 +168,18 @@ def _analytic_band(fit, X0, eta, w0, level):
         raise UsageError(f"estimator {fit.estimator!r} gives no coefficient covariance, so "
                          "there is no analytic interval; use interval='bootstrap-pairs' or a "
                          "conformal interval with an OLS fit, or interval='none'")
+    half = _t(level, res.df_resid) * np.sqrt(new_observation_variance(fit, X0, w0))
+    return eta - half, eta + half
+
+
+def new_observation_variance(fit, X0, w0=1.0) -> np.ndarray:
+    """Variance of a new observation about the fitted equation at the design rows ``X0``
+    [response unit^2, model scale]: ``s^2 / w0 + x0' C x0``, with s the new observation's
+    SD (``prediction_sd`` where the estimator gives one, else the residual SE) and C the
+    coefficient covariance; for a mixed fit ``s_e^2 / w0 + x0' (C + B) x0`` (see
+    :func:`between_covariance`). The one formula of every analytic band (the report draws
+    it too)."""
+    res = fit.result
     between = between_covariance(fit)
     if between is not None:  # mixed: s_e^2 / w0 + x0' (C + B) x0, row by row
         s2 = res.residual_std_error ** 2
@@ -178,8 +191,7 @@ def _analytic_band(fit, X0, eta, w0, level):
             q = factor.quad_form(X0) * s2
         else:
             q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
-    half = _t(level, res.df_resid) * np.sqrt(s2 / w0 + q)
-    return eta - half, eta + half
+    return s2 / w0 + q
 
 
 def between_covariance(fit):
@@ -197,7 +209,6 @@ def between_covariance(fit):
 
 
 # ----------------------------------------------------------------------------- group-level
-GROUP_INTERVALS = ("group-jackknife+", "group-cv+")
 
 
 def leave_out_fitter(fit):

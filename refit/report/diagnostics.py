@@ -20,12 +20,6 @@ LEVERAGE_FACTOR = 2.0
 MAX_LABELS = 10
 
 
-def _scale2(fit) -> float:
-    """Variance of a new observation's error [response unit^2], as Fit.predict uses it."""
-    res = fit.result
-    return float(res.details.get("prediction_sd", res.residual_std_error)) ** 2
-
-
 def regression_bands(fit, x, level: float = 0.95) -> dict:
     """Fitted curve with its confidence band (the mean) and prediction band (a new soil).
 
@@ -48,12 +42,15 @@ def regression_bands(fit, x, level: float = 0.95) -> dict:
     Notes
     -----
     ``fitted +- t(df) sqrt(x0' V x0)`` for the mean and ``fitted +- t(df) sqrt(s^2 +
-    x0' V x0)`` for a new observation, V the coefficient covariance, s the residual
-    scale (Draper & Smith 1998, Applied Regression Analysis, 3rd ed., sec. 3.1, from
+    x0' V x0)`` for a new observation (a mixed fit adds the between-source covariance:
+    :func:`refit.models.predict.new_observation_variance`), V the coefficient
+    covariance, s the residual scale (Draper & Smith 1998, Applied Regression Analysis, 3rd ed., sec. 3.1, from
     memory); the same band ``Fit.predict`` gives for an inverse fit with the analytic
     interval.
     """
     from scipy import stats
+
+    from refit.models.predict import new_observation_variance
 
     x = np.asarray(x, dtype=float).ravel()
     X0 = fit.form.design(x[:, None])
@@ -63,9 +60,9 @@ def regression_bands(fit, x, level: float = 0.95) -> dict:
     q = np.einsum("ij,jk,ik->i", X0, cov, X0)
     t = float(stats.t.ppf(0.5 + level / 2.0, fit.df_resid))
     half_mean = t * np.sqrt(q)
-    half_pred = t * np.sqrt(_scale2(fit) + q)
+    half_pred = t * np.sqrt(new_observation_variance(fit, X0))
     back = _back_transform(fit)
-    return {"x": x, "fitted": back(eta, smear=True),
+    return {"x": x, "fitted": back(eta, smear=True), "new_source": fit.estimator == "mixed",
             "mean_lower": back(eta - half_mean), "mean_upper": back(eta + half_mean),
             "pred_lower": back(eta - half_pred), "pred_upper": back(eta + half_pred)}
 

@@ -58,7 +58,8 @@ def _curve_panel(ax, points, bands, *, x_label, y_label, domain, turning, level,
     how = f", {bands['method']}" if bands.get("method") else ""
     _band(ax, x, bands["pred_lower"], bands["pred_upper"], color=st.PREDICTION_BAND,
           alpha=st.PREDICTION_ALPHA, gid="prediction", edges="--",
-          label=f"{pct} prediction band (a new soil{how})")
+          label=f"{pct} prediction band (a soil of a new source{how})"
+          if bands.get("new_source") else f"{pct} prediction band (a new soil{how})")
     if bands.get("mean_lower") is not None:
         _band(ax, x, bands["mean_lower"], bands["mean_upper"], color=st.MEAN_BAND,
               alpha=st.MEAN_ALPHA, gid="mean", edges=None,
