@@ -72,12 +72,12 @@ def test_possible_combinations_pass(combo):
 
 
 def test_grid_of_the_demo_recipe():
-    # 2 forms x 2 estimators x 2 directions x 3 methods = 24 combinations; valid: OLS inverse
-    # with all 3 methods (x2 forms = 6), Huber inverse analytic (2), OLS and Huber forward
-    # analytic (4): 12.
+    # 2 forms x 3 estimators x 2 directions x 3 methods = 36 combinations; valid: OLS inverse
+    # with all 3 methods (x2 forms = 6), Huber and mixed inverse analytic (4), OLS, Huber and
+    # mixed forward analytic (6): 16.
     specs, skipped = candidate_grid(read_recipe("calib_demo/recipe.toml"))
-    assert len(specs) == 12 and len(skipped) == 12
-    assert {s.estimator for s in specs} == {"ols", "huber"}
+    assert len(specs) == 16 and len(skipped) == 20
+    assert {s.estimator for s in specs} == {"ols", "huber", "mixed"}
     assert all("theil-sen" not in s.label for s in specs)
     assert {s.n_params for s in specs if s.form == "quadratic"} == {3}
 
