@@ -156,7 +156,7 @@ def _publish(out: Path, result: DemoResult, say) -> None:
 
 def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.apply.compare import comparison_table, figure_png
+    from refit.apply.compare import comparison_table, figure_pngs, page_names
 
     files = [result.published.path, *published_equations()]
     fossils = demo_dir() / "fossils.csv"
@@ -176,7 +176,10 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     result.comparison = comparison_table(result.applied.results)
     folder = out / "compare"
     write_text_atomic(folder / "comparison.csv", result.comparison.to_csv(index=False))
-    write_bytes_atomic(folder / "comparison.png", figure_png(result.comparison))
+    pngs = figure_pngs(result.comparison)
+    for name, png in zip(page_names(len(pngs)), pngs):
+        write_bytes_atomic(folder / name, png)
+    say(f"   every paleosol drawn: {len(pngs)} figure file(s) in {folder}")
     result.outputs["interval comparison (csv, png)"] = folder
 
 

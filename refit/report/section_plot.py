@@ -19,8 +19,8 @@ and MAT in degC never share an axis), the level (or age) upward:
 
 from __future__ import annotations
 
-import base64
 import re
+import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -42,6 +42,8 @@ SHORT = {"outside-calibration-range": "outside range",
 #: vertical offset between the fits drawn at one paleosol [points]
 DODGE_PT = 3.0
 LABEL_SIZE = 7.0
+#: characters per line of a legend entry (longer entries wrap)
+LEGEND_WIDTH = 62
 FILE = "section.csv"
 
 
@@ -50,9 +52,26 @@ def serious_flags(flags) -> list[str]:
     return [f for f in str(flags or "").split(";") if f in SERIOUS]
 
 
-def flag_label(flags) -> str:
-    """The short text drawn beside a flagged estimate."""
-    return ", ".join(SHORT.get(f, f.replace("-", " ")) for f in serious_flags(flags))
+def flag_label(flags, common=()) -> str:
+    """The short text drawn beside a flagged estimate (flags in ``common``, shared by
+    every estimate of the fit in the figure, are said once in the legend instead)."""
+    return ", ".join(SHORT.get(f, f.replace("-", " ")) for f in serious_flags(flags)
+                     if f not in common)
+
+
+def common_flags(t) -> dict:
+    """Per fit, the serious flags every one of its drawn estimates carries."""
+    out = {}
+    for fit, g in t.groupby("fit", sort=False):
+        sets = [set(serious_flags(f)) for f in g["flags"]]
+        out[fit] = sorted(set.intersection(*sets)) if sets else []
+    return out
+
+
+def age_axis_label(name: str) -> str:
+    """``age_ma`` -> ``age [Ma]`` (the unit in the column's name), else the name."""
+    unit = {"ma": "Ma", "ka": "ka", "yr": "yr", "ga": "Ga"}.get(str(name).rpartition("_")[2])
+    return f"age [{unit}]" if unit else str(name)
 
 
 def fit_name(row) -> str:
@@ -106,21 +125,27 @@ def section_figure(table, section: str, *, axis: str = "level_m", y_label: str =
     with style.styled():
         clips = [_limits(ax, g, axis, span) for ax, g in zip(axes, groups)]
         for ax in axes:
-            ax.set_ylabel(y_label or ("level [m]" if axis == "level_m" else "age"))
+            ax.set_ylabel("level [m]" if axis == "level_m" else age_axis_label(y_label))
         if axis == "age" and _ages_fall_upward(t):
             for ax in axes:
                 ax.invert_yaxis()
         fig.suptitle(f"{section}: climate up the section", x=0.01, ha="left",
                      fontsize=11, fontweight="bold")
+        common = common_flags(t)
         handles = [Line2D([], [], color=style_of[f][0], marker=style_of[f][1], lw=1.0,
-                          label=fit_name(t[t["fit"] == f].iloc[0]))
+                          mfc="white" if common[f] else style_of[f][0],
+                          label=fit_name(t[t["fit"] == f].iloc[0]) + (
+                              "; all flagged: " + flag_label(";".join(common[f]))
+                              if common[f] else ""))
                    for f in dict.fromkeys(t["fit"])]
         handles += _style_handles(t, axis)
+        for h in handles:  # two legend columns fit the figure's width
+            h.set_label(textwrap.fill(h.get_label(), LEGEND_WIDTH, subsequent_indent="  "))
         fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=7.5)
         renderer = freeze_layout(fig)
         for ax, g, clip in zip(axes, groups, clips):
             _panel(ax, g, axis, clip, style_of)
-            _labels(ax, renderer, g, axis, span)
+            _labels(ax, renderer, g, axis, common)
     return fig
 
 
@@ -197,21 +222,22 @@ def _panel(ax, g, axis: str, xclip: tuple, style_of: dict) -> None:
             if sel.any():
                 ax.plot(est[sel], yy[sel], ls="none", marker=marker, ms=5.5, mfc=face,
                         mec=colour, mew=1.3, zorder=4, gid=f"{gid}:{fit}")
-        sd = rows["age_sd"].to_numpy(float)
-        if axis == "age" and np.isfinite(sd).any():
-            k = np.isfinite(sd)
-            ax.errorbar(est[k], yy[k], yerr=sd[k], fmt="none", ecolor=style.GREY,
-                        elinewidth=0.8, zorder=1, gid=f"age-sd:{fit}")
+    sd = g["age_sd"].to_numpy(float)
+    first = ~g["paleosol_id"].duplicated().to_numpy() & np.isfinite(sd)
+    if axis == "age" and first.any():  # once per paleosol, at its first fit's estimate
+        ax.errorbar(g["estimate"].to_numpy(float)[first], _yvalues(g, axis)[first],
+                    yerr=sd[first], fmt="none", ecolor=style.GREY, elinewidth=0.9,
+                    capsize=2, zorder=1, gid="age-sd")
 
 
-def _labels(ax, renderer, g, axis: str, span: float) -> None:
+def _labels(ax, renderer, g, axis: str, common: dict) -> None:
     """Flag names beside flagged estimates, then paleosol ids at the right of each
     level, placed apart (labels with no free place are left out; the table has all)."""
     from refit.report.labels import place_labels
 
     y = _yvalues(g, axis)
     est = g["estimate"].to_numpy(float)
-    texts = [flag_label(f) for f in g["flags"]]
+    texts = [flag_label(f, common.get(fit, ())) for f, fit in zip(g["flags"], g["fit"])]
     k = np.array([bool(s) for s in texts])
     pts, taken = (est, y), []
     place_labels(ax, renderer, est[k], y[k], [s for s, kk in zip(texts, k) if kk],
@@ -246,8 +272,8 @@ def _style_handles(t, axis: str) -> list:
                           label="published ±1 SE (not a prediction interval)"))
     if any(serious_flags(f) for f in t["flags"]):
         out.append(Line2D([], [], ls="none", marker="o", mfc="white", mec="#444444",
-                          label="hollow: flagged, the equation does not hold here "
-                                "(flag named beside it)"))
+                          label="hollow: flagged, the equation does not hold here (flag "
+                                "named beside it or in the fit's entry)"))
     if "none" in kinds:
         out.append(Line2D([], [], ls="none", marker="o", color="#444444",
                           label="marker alone: the file gives no interval"))
