@@ -74,6 +74,6 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
                   + ", ".join(map(str, figures)))
     console.print(f"Table: {csv}")
     for warning in result.warnings:
-        console.print(f"Warning: {warning}", style="yellow")
+        console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
     ctx.exit(0 if result.ok else 1)

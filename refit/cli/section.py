@@ -66,13 +66,14 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
     console.print(f"{drawn['paleosol_id'].nunique()} of {t['paleosol_id'].nunique()} "
                   f"paleosols drawn in {len(written) - 2} figure(s), "
                   f"{drawn['fit'].nunique()} fit(s), against "
-                  f"{'level [m]' if result.axis == 'level_m' else result.age_label}:")
+                  f"{'level [m]' if result.axis == 'level_m' else result.age_label}:",
+                  markup=False)
     for p in written[2:]:
-        console.print(f"  {p}")
-    console.print(f"Table: {written[0]}; notes: {written[1]}")
+        console.print(f"  {p}", markup=False)
+    console.print(f"Table: {written[0]}; notes: {written[1]}", markup=False)
     for note in result.notes:
-        console.print(f"Note: {note}")
+        console.print(f"Note: {note}", markup=False)
     for warning in result.applied.warnings:
-        console.print(f"Warning: {warning}", style="yellow")
+        console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result.applied, console)
     ctx.exit(0 if result.applied.ok else 1)
