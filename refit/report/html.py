@@ -98,6 +98,8 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
 
         say("drawing the climate up each section")
         strata = report_section(section)
+        for f in strata["figures"]:
+            f.update(embed(f.pop("figure")))
     say("writing the report")
     ctx = context.build(inp, figures, facts, report_command=command)
     return render({**ctx, "comparison": compared, "sources": sources, "strata": strata})

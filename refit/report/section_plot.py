@@ -324,10 +324,9 @@ def read_section_table(path):
 
 
 def report_section(path) -> dict:
-    """What the HTML report shows of a ``refit section`` folder: one embedded figure per
-    section, its caption, and the notes written beside the table."""
-    from refit.report.html import embed
-
+    """What the HTML report shows of a ``refit section`` folder: one figure per section
+    (``figure``: a matplotlib Figure the report embeds), the caption, and the notes
+    written beside the table."""
     table = read_section_table(path)
     folder = Path(path) if Path(path).is_dir() else Path(path).parent
     notes_file = folder / "notes.txt"
@@ -339,7 +338,7 @@ def report_section(path) -> dict:
     for sec in dict.fromkeys(table["section"]):
         fig = section_figure(table, sec, axis=axis, y_label=label)
         if fig is not None:
-            figures.append({"section": sec, **embed(fig)})
+            figures.append({"section": sec, "figure": fig})
     return {"figures": figures, "notes": notes, "caption": caption(table),
             "source": str(folder / FILE), "n_rows": len(table)}
 

@@ -112,5 +112,5 @@ def test_written_folder_and_report_section(result, tmp_path):
     assert written[2].read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     part = report_section(tmp_path / "s")
     assert [f["section"] for f in part["figures"]] == ["Murrenhal Bluff", "Coldstave Gorge"]
-    assert part["figures"][0]["uri"].startswith("data:image/png;base64,")
+    assert part["figures"][0]["figure"].axes[0].get_ylabel() == "level [m]"
     assert part["notes"] == result.notes and part["n_rows"] == len(result.table)
