@@ -2,7 +2,8 @@
 
 Steps: check the incoming soils, admit them into a copy of the demo store, run the demo
 recipe's fit matrix, publish the winning fit into a demo registry, apply it and the
-published equations to the demo fossils, compare the intervals, and write the HTML report.
+published equations to the demo fossils (decompacted for burial with the demo's constants
+file), compare the intervals, draw the climate up each section, and write the HTML report.
 Everything is written under one output folder; the bundled ``calib_demo/`` is never
 modified (its store and recipe are copied first).
 """
@@ -19,6 +20,7 @@ from refit._util.resources import demo_dir
 from refit.errors import UsageError
 
 MARKER = ".refit-demo"
+CONSTANTS = "compaction_constants.csv"  # invented compaction constants of the demo
 SEED = 20261201  # Monte Carlo draws of the apply step
 
 
@@ -34,6 +36,7 @@ class DemoResult:
     published: object = None  # refit.publish.registry.PublishResult
     applied: object = None    # refit.apply.estimates.ApplyResult
     comparison: object = None  # pandas.DataFrame from refit.apply.compare
+    section: object = None     # refit.apply.section.SectionResult
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -85,6 +88,7 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
     _publish(out, result, say)
     _apply_and_compare(out, result, say)
     shown("compare", result)
+    _section(out, result, say)
     _report(out, result, say)
     return result
 
@@ -152,15 +156,19 @@ def _publish(out: Path, result: DemoResult, say) -> None:
 
 def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.apply.compare import comparison_table, figure_png
+    from refit.apply.compare import comparison_table, figure_pngs, page_names
 
     files = [result.published.path, *published_equations()]
     fossils = demo_dir() / "fossils.csv"
+    constants = demo_dir() / CONSTANTS
     say(f"[bold]5. Apply[/bold] the published fit and {len(files) - 1} published equations "
-        f"to the demo fossils ({fossils.name}), measurement SDs propagated by Monte Carlo")
+        f"to the demo fossils ({fossils.name}), depths decompacted for burial (constants: "
+        f"{constants.name}, invented for the demo), measurement and burial SDs propagated "
+        "by Monte Carlo")
     from refit.apply.estimates import apply_files
 
-    result.applied = apply_files([str(f) for f in files], fossils, seed=SEED)
+    result.applied = apply_files([str(f) for f in files], fossils, seed=SEED,
+                                 decompact=True, constants_file=constants)
     estimates = out / "estimates.csv"
     write_text_atomic(estimates, result.applied.results.to_csv(index=False))
     result.outputs["fossil estimates"] = estimates
@@ -168,17 +176,37 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     result.comparison = comparison_table(result.applied.results)
     folder = out / "compare"
     write_text_atomic(folder / "comparison.csv", result.comparison.to_csv(index=False))
-    write_bytes_atomic(folder / "comparison.png", figure_png(result.comparison))
+    pngs = figure_pngs(result.comparison)
+    for name, png in zip(page_names(len(pngs)), pngs):
+        write_bytes_atomic(folder / name, png)
+    say(f"   every paleosol drawn: {len(pngs)} figure file(s) in {folder}")
     result.outputs["interval comparison (csv, png)"] = folder
+
+
+def _section(out: Path, result: DemoResult, say) -> None:
+    from refit.apply.section import section_table, layout_notes, resolution_notes
+    from refit.apply.section import SectionResult
+    from refit.report.section_plot import write_section
+
+    say("[bold]7. Section[/bold]: the climate up each section, every fit side by side")
+    applied = result.applied
+    table = section_table(applied.results, applied.fossils)
+    notes = layout_notes(table, applied.fossils, "level_m") + resolution_notes(table)
+    result.section = SectionResult(table, "level_m", "level [m]", notes, applied)
+    written = write_section(result.section, out / "section")
+    say(f"   {len(written) - 2} section figure(s), section.csv and notes.txt -> "
+        f"{out / 'section'}")
+    result.outputs["sections (csv, png)"] = out / "section"
 
 
 def _report(out: Path, result: DemoResult, say) -> None:
     from refit.report import write_report
 
-    say("[bold]7. Report[/bold]: figures, the fits compared and the self-contained HTML page")
+    say("[bold]8. Report[/bold]: figures, the fits compared, the sections and the "
+        "self-contained HTML page")
     target = out / "report.html"
     compared = out / "compare"   # the comparison figure and table go into the report too
-    write_report(result.run_dir, target, compare=compared,
+    write_report(result.run_dir, target, compare=compared, section=out / "section",
                  command=["refit", "report", str(result.run_dir), "--compare",
                           str(compared), "--out", str(target)])
     result.outputs["report (open in a browser)"] = target

@@ -89,10 +89,34 @@ def coverage_text(coverage, scheme, level, interval) -> str:
     return f"CV coverage {float(coverage):.0%}{nominal}" + (f" ({scheme})" if scheme else "")
 
 
-def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
+def figure_pngs(table: pd.DataFrame, *, title: str = "") -> list[bytes]:
+    """Every panel of the interval figure: one PNG per page of at most
+    :data:`MAX_PANELS` panels, so no paleosol is left out.
+
+    Raises
+    ------
+    UsageError
+        No paleosol has an estimate.
+    """
+    panels = panel_groups(table)
+    if not panels:
+        raise UsageError("nothing to draw: no paleosol has an estimate")
+    pages = [panels[i:i + MAX_PANELS] for i in range(0, len(panels), MAX_PANELS)]
+    return [figure_png(table, title=title + (f" (page {k + 1} of {len(pages)})"
+                                             if len(pages) > 1 else ""), panels=page)
+            for k, page in enumerate(pages)]
+
+
+def page_names(n: int) -> list[str]:
+    """File names of ``n`` pages: ``comparison.png``, ``comparison-2.png``, ..."""
+    return ["comparison.png"] + [f"comparison-{k}.png" for k in range(2, n + 1)]
+
+
+def figure_png(table: pd.DataFrame, *, title: str = "", panels=None) -> bytes:
     """The interval figure as PNG bytes (matplotlib, Agg backend).
 
-    One panel per paleosol (at most :data:`MAX_PANELS`), one row per fit: a bar from
+    One panel per paleosol (``panels`` from :func:`panel_groups`; default the first
+    :data:`MAX_PANELS`, :func:`figure_pngs` draws them all), one row per fit: a bar from
     lower to upper, the estimate as a black diamond, the cross-validated coverage and
     flags printed at the right. Fits with a serious flag are drawn paler; fits without an
     interval show the estimate only.
@@ -102,7 +126,7 @@ def figure_png(table: pd.DataFrame, *, title: str = "") -> bytes:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    panels = panel_groups(table)[:MAX_PANELS]
+    panels = panel_groups(table)[:MAX_PANELS] if panels is None else panels
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
@@ -152,7 +176,7 @@ def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
 #: Flags that say the equation does not hold here (drawn paler); the others are notes.
 SERIOUS_FLAGS = ("outside-calibration-range", "beyond-turning-point", "unbounded",
                  "two-roots", "open-below", "open-above", "setting-mismatch",
-                 "beyond-search-window")
+                 "beyond-search-window", "not-decompacted")
 
 
 def _serious(flags) -> bool:

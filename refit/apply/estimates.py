@@ -10,7 +10,9 @@ paleosol's recorded setting is outside the subset the fit was made on, read from
 ``provenance.subset.filters``), ``setting-not-recorded`` (the fit was filtered on a state
 factor the paleosol does not record) and ``published-plus-minus-only`` (a published
 equation whose interval is only its published +- figure), ``no-interval`` (a file that
-gives no error figure at all).
+gives no error figure at all), ``not-decompacted`` (a depth or thickness applied as
+measured although the table gives a burial depth above zero: the equation expects the
+value before burial; ``--decompact`` fixes it).
 
 Measurement uncertainty (the ``<stem>_sd_<unit>`` columns) and, when decompacting, the
 burial-depth uncertainty (``burial_depth_sd_km``) are propagated by seeded Monte Carlo:
@@ -43,6 +45,7 @@ FLAG_UNRECORDED = "setting-not-recorded"
 FLAG_PUBLISHED = "published-plus-minus-only"
 FLAG_CORRELATED = "proxies-may-be-correlated"
 FLAG_NO_INTERVAL = "no-interval"
+FLAG_NOT_DECOMPACTED = "not-decompacted"
 CAUTIONS = (
     "These are research estimates with wide intervals, valid only within the calibration's "
     "domain and setting; they are not a basis for engineering, hazard or regulatory "
@@ -74,6 +77,10 @@ class ApplyResult:
     problems: list[dict] = field(default_factory=list)
     cautions: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: what a user must read on the terminal (e.g. depths applied without decompaction)
+    warnings: list[str] = field(default_factory=list)
+    #: the checked fossil table, indexed by file row (sections and levels for ``section``)
+    fossils: pd.DataFrame | None = None
 
     @property
     def ok(self) -> bool:
@@ -311,8 +318,24 @@ def apply_equations(equations, report, *, level: float | None = None,
     if combine and len(results):
         lv = 0.95 if level is None else level
         results = pd.concat([results, combine_proxies(results, lv)], ignore_index=True)
-    return ApplyResult(results, record, problems, cautions,
-                       list(report.notes))
+    return ApplyResult(results, record, problems, cautions, list(report.notes),
+                       burial_warnings(results), frame.set_axis(rows))
+
+
+def burial_warnings(results: pd.DataFrame) -> list[str]:
+    """The terminal note for rows flagged ``not-decompacted`` (empty when none)."""
+    if not len(results):
+        return []
+    hit = results[results["flags"].fillna("").str.split(";").apply(
+        lambda f: FLAG_NOT_DECOMPACTED in f)]
+    if hit.empty:
+        return []
+    files = ", ".join(dict.fromkeys(hit["function_id"].astype(str)))
+    return [f"{len(hit)} estimate(s) ({files}) used depths or thicknesses as measured, "
+            "although the fossil table gives a burial depth: they are compacted, so the "
+            "estimates are biased (flag not-decompacted). Rerun with --decompact (and "
+            "--compaction-constants FILE for soil orders refit has no constants for; "
+            "see the README, 'Burial and decompaction')."]
 
 
 def _rejected(report) -> dict[int, str]:
@@ -357,6 +380,8 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
             out.append(r)
             continue
         flags, details = _row_flags(rec, str(pred.flags[i]), frame.iloc[i])
+        if not decompact:
+            _burial_flag(preds, frame.iloc[i], flags, details)
         r.update(estimate=pred.estimate[i], lower=pred.lower[i], upper=pred.upper[i],
                  lower_without_propagation=pred.lower[i],
                  upper_without_propagation=pred.upper[i], propagation="none")
@@ -397,6 +422,21 @@ def _row_flags(rec: dict, predicted: str, fossil_row) -> tuple[list[str], list[s
         flags.append(FLAG_NO_INTERVAL)
         details.append("the file gives no error figure: estimate only")
     return flags, details
+
+
+def _burial_flag(preds, fossil_row, flags: list, details: list) -> None:
+    """Flag a depth or thickness applied as measured in a row that was buried."""
+    from refit.soil.decompaction import DECOMPACTED_COLUMNS
+
+    depth = [p for p in preds if p in DECOMPACTED_COLUMNS]
+    burial = fossil_row.get("burial_depth_km") if "burial_depth_km" in fossil_row.index \
+        else None
+    if not depth or burial is None or pd.isna(burial) or float(burial) <= 0:
+        return
+    flags.append(FLAG_NOT_DECOMPACTED)
+    details.append(f"{', '.join(depth)} applied as measured, compacted under "
+                   f"{float(burial):g} km of burial; the equation expects the value before "
+                   "burial: rerun with --decompact")
 
 
 def _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols) -> str:

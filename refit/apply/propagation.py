@@ -15,6 +15,35 @@ import numpy as np
 
 #: Monte Carlo draws per paleosol and coefficient file
 N_DRAWS = 4000
+#: a limit this close to a bound, relative to the interval's spread, is the bound
+#: (the root finder stops at about 1e-12 of the spread; 1e-9 leaves room for rounding)
+SNAP_RELATIVE = 1e-9
+
+
+def snap_to_bounds(value: float, bounds, spread: float) -> float:
+    """``value`` written as the bound it differs from only by float noise.
+
+    A Monte Carlo limit at a physical bound (MAP >= 0) comes back from the root finder
+    as 3.5e-14 or -8.1e-12 mm; within ``SNAP_RELATIVE * spread`` of a bound it is that
+    bound. Other values, and infinite ones, pass unchanged.
+
+    Parameters
+    ----------
+    value : float
+        A lower or upper limit [response unit].
+    bounds : iterable of float or None
+        Candidate bounds [response unit] (the file's physical bounds, the draws' extreme
+        limits); None and non-finite entries are skipped.
+    spread : float
+        Size of the interval [response unit] the tolerance is relative to.
+    """
+    if not math.isfinite(value):
+        return value
+    tol = SNAP_RELATIVE * max(abs(spread), abs(value) if value else 0.0, 1e-300)
+    for b in bounds:
+        if b is not None and math.isfinite(float(b)) and abs(value - float(b)) <= tol:
+            return float(b)
+    return value
 
 
 def mixture_interval(est, lo, hi, level: float, df: float | None = None):
@@ -77,6 +106,7 @@ def propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> dic
     """Monte Carlo interval of one paleosol under one file."""
     mp = eq.predict(draws, lvl)
     lo, hi, used = mixture_interval(mp.estimate, mp.lower, mp.upper, mc_level, df)
+    lo, hi = _snapped(eq, mp, lo, hi)
     n = len(draws)
     uniq, counts = np.unique(np.asarray(mp.flags, dtype=str), return_counts=True)
     for flag in ("outside-calibration-range", "beyond-turning-point", "unbounded",
@@ -89,5 +119,17 @@ def propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> dic
             + ", ".join(varied) + "; per-draw interval as a "
             + ("Student t" if df else "split normal") + " with the draw's limits")
     return {"lower": lo, "upper": hi, "propagation": text}
+
+
+def _snapped(eq, mp, lo: float, hi: float) -> tuple[float, float]:
+    """The limits with float noise at a bound removed (:func:`snap_to_bounds`): the
+    file's physical bounds (``inversion.bounds``) and the draws' own extreme limits."""
+    declared = list((eq.record.get("inversion") or {}).get("bounds") or [])
+    los, his = np.asarray(mp.lower, float), np.asarray(mp.upper, float)
+    los, his = los[np.isfinite(los)], his[np.isfinite(his)]
+    spread = (hi - lo) if math.isfinite(hi - lo) else 1.0
+    lo = snap_to_bounds(lo, declared + ([float(los.min())] if los.size else []), spread)
+    hi = snap_to_bounds(hi, declared + ([float(his.max())] if his.size else []), spread)
+    return lo, hi
 
 

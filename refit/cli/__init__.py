@@ -19,6 +19,7 @@ from refit.cli.diff import diff
 from refit.cli.fit import fit
 from refit.cli.publish import publish
 from refit.cli.report import report
+from refit.cli.section import section
 from refit.cli.verify import verify
 
 CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
@@ -48,5 +49,6 @@ main.add_command(verify)
 main.add_command(diff)
 main.add_command(apply)
 main.add_command(compare)
+main.add_command(section)
 main.add_command(report)
 main.add_command(demo)

@@ -58,6 +58,8 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     if out:
         _write(result, out)
         console.print(f"Results written to {out}")
+    for warning in result.warnings:  # e.g. depths applied without decompaction
+        console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
     ctx.exit(0 if result.ok else 1)
 

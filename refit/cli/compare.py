@@ -32,7 +32,9 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     Writes DIR/comparison.csv (one row per paleosol and fit: estimate, interval, width,
     cross-validated coverage, flags) and DIR/comparison.png (intervals as horizontal
     bars, one row per fit, the estimate marked, the CV coverage printed beside each
-    interval: the narrowest interval is not necessarily the best).
+    interval: the narrowest interval is not necessarily the best). Every paleosol is
+    drawn: beyond 12 panels the figure continues in comparison-2.png, comparison-3.png,
+    ... and the terminal names each file.
 
     \b
     Exit codes: 0 written, 1 some fits or rows could not be evaluated (the rest is still
@@ -46,21 +48,32 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     from pathlib import Path
 
     from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.apply.compare import compare_files, figure_png
+    from refit.apply.compare import compare_files, figure_pngs, page_names, panel_groups
     from refit.errors import UsageError
 
     folder = Path(out)
-    targets = [folder / "comparison.csv", folder / "comparison.png"]
-    if any(t.exists() for t in targets) and not overwrite:
+    csv = folder / "comparison.csv"
+    if (csv.exists() or (folder / "comparison.png").exists()) and not overwrite:
         raise UsageError(f"--out {out} already holds a comparison; pass --overwrite")
     table, result = compare_files(list(coefficients), fossils=fossils, at=at,
                                   paleosols=paleosols, level=level, decompact=decompact,
                                   constants_file=constants_file, seed=seed)
+    pngs = figure_pngs(table)
     folder.mkdir(parents=True, exist_ok=True)
-    write_text_atomic(targets[0], table.to_csv(index=False))
-    write_bytes_atomic(targets[1], figure_png(table))
+    for old in folder.glob("comparison-*.png"):  # pages of an earlier, longer comparison
+        old.unlink()
+    write_text_atomic(csv, table.to_csv(index=False))
+    figures = [folder / name for name in page_names(len(pngs))]
+    for target, png in zip(figures, pngs):
+        write_bytes_atomic(target, png)
     console = stdout_console()
     print_comparison(table, console)
-    console.print(f"Written: {targets[0]}, {targets[1]}")
+    n_panels = len(panel_groups(table))
+    console.print(f"Drawn: all {n_panels} panel(s) ({table['paleosol_id'].nunique()} "
+                  f"paleosol(s)) in {len(figures)} figure file(s): "
+                  + ", ".join(map(str, figures)))
+    console.print(f"Table: {csv}")
+    for warning in result.warnings:
+        console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
     ctx.exit(0 if result.ok else 1)

@@ -2,7 +2,7 @@
 
 ``refit compare`` (and ``refit demo``) write ``comparison.csv`` and ``comparison.png`` in
 one folder. A report given that folder redraws the figure from the table with
-:func:`refit.apply.compare.figure_png` (so figure and table always agree) and lists the table;
+:func:`refit.apply.compare.figure_pngs` (so figure and table always agree) and lists the table;
 both are embedded, so the report stays one self-contained file.
 """
 
@@ -65,25 +65,30 @@ def read_comparison(path):
 
 
 def figure(table) -> dict | None:
-    """The interval figure as an embeddable PNG (``uri``, ``width`` [px], ``panels`` drawn,
-    ``of`` panels in all), or None when no paleosol has an estimate."""
-    from refit.apply.compare import MAX_PANELS, figure_png, panel_groups
-    from refit.errors import UsageError
-
-    panels = len(panel_groups(table))
-    try:
-        png = figure_png(table)
-    except UsageError:
-        return None
+    """The interval figure as embeddable PNGs: ``pages`` (each ``uri`` and ``width``
+    [px]; a page holds at most :data:`refit.apply.compare.MAX_PANELS` panels, so every
+    paleosol is drawn), the first page's ``uri`` and ``width``, and ``panels`` drawn of
+    ``of`` panels in all (always equal). None when no paleosol has an estimate."""
     from io import BytesIO
 
     from PIL import Image
 
-    with Image.open(BytesIO(png)) as im:
-        dpi = float((im.info.get("dpi") or (130.0, 130.0))[0])
-        width = int(round(im.size[0] / dpi * SCREEN_PX_PER_INCH))
-    return {"uri": "data:image/png;base64," + base64.b64encode(png).decode("ascii"),
-            "width": width, "panels": min(panels, MAX_PANELS), "of": panels}
+    from refit.apply.compare import figure_pngs, panel_groups
+    from refit.errors import UsageError
+
+    panels = len(panel_groups(table))
+    try:
+        pngs = figure_pngs(table)
+    except UsageError:
+        return None
+    pages = []
+    for png in pngs:
+        with Image.open(BytesIO(png)) as im:
+            dpi = float((im.info.get("dpi") or (130.0, 130.0))[0])
+            width = int(round(im.size[0] / dpi * SCREEN_PX_PER_INCH))
+        pages.append({"uri": "data:image/png;base64," + base64.b64encode(png).decode("ascii"),
+                      "width": width})
+    return {**pages[0], "pages": pages, "panels": panels, "of": panels}
 
 
 def _interval(r) -> str:
@@ -131,9 +136,9 @@ def caption(table, fig: dict | None, source: str, function_id: str) -> str:
     ids = set(table["function_id"].astype(str)) if "function_id" in table else set()
     if function_id not in ids:
         text += f" None of the compared fits is {function_id}, the function reported above."
-    if fig and fig["of"] > fig["panels"]:
-        text += (f" The first {fig['panels']} of {fig['of']} panels are drawn; every row "
-                 "is in the table below.")
+    if fig and len(fig["pages"]) > 1:
+        text += (f" All {fig['of']} panels are drawn, on {len(fig['pages'])} images of at "
+                 "most 12 panels each.")
     return text + (" Intervals are estimates for research use, not for engineering, "
                    "hazard or regulatory decisions.")
 

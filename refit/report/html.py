@@ -48,7 +48,8 @@ def render(context: dict) -> str:
 
 
 def report_html(run_dir, *, candidate: str | None = None, store=None,
-                command: list[str] | None = None, progress=None, compare=None) -> str:
+                command: list[str] | None = None, progress=None, compare=None,
+                section=None) -> str:
     """Build the report of a run folder and return its HTML.
 
     Parameters
@@ -66,6 +67,9 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
     compare : str or Path, optional
         A folder written by ``refit compare`` (its ``comparison.csv``): its interval
         figure and table are added to the report. None: no comparison section.
+    section : str or Path, optional
+        A folder written by ``refit section`` (its ``section.csv``): one figure per
+        section of the climate up the section. None: no section figures.
     """
     from refit.report import assemble, context
     from refit.report.inputs import load_run
@@ -82,19 +86,28 @@ def report_html(run_dir, *, candidate: str | None = None, store=None,
     sources = source_section(inp)
     if sources.get("figure") is not None:
         sources.update(embed(sources.pop("figure")))
-    section = None
+    compared = None
     if compare is not None:
         from refit.report.comparison import section as comparison_section
 
         say("drawing the comparison of fits")
-        section = comparison_section(compare, inp.record["function_id"])
+        compared = comparison_section(compare, inp.record["function_id"])
+    strata = None
+    if section is not None:
+        from refit.report.section_plot import report_section
+
+        say("drawing the climate up each section")
+        strata = report_section(section)
+        for f in strata["figures"]:
+            f.update(embed(f.pop("figure")))
     say("writing the report")
     ctx = context.build(inp, figures, facts, report_command=command)
-    return render({**ctx, "comparison": section, "sources": sources})
+    return render({**ctx, "comparison": compared, "sources": sources, "strata": strata})
 
 
 def write_report(run_dir, out, *, candidate: str | None = None, store=None,
-                 command: list[str] | None = None, progress=None, compare=None) -> Path:
+                 command: list[str] | None = None, progress=None, compare=None,
+                 section=None) -> Path:
     """Write the report of ``run_dir`` to ``out`` atomically; returns the path.
 
     The parameters are :func:`report_html`'s.
@@ -102,7 +115,7 @@ def write_report(run_dir, out, *, candidate: str | None = None, store=None,
     from refit._util.atomic import write_text_atomic
 
     html = report_html(run_dir, candidate=candidate, store=store, command=command,
-                       progress=progress, compare=compare)
+                       progress=progress, compare=compare, section=section)
     out = Path(out)
     out.parent.mkdir(parents=True, exist_ok=True)
     write_text_atomic(out, html)

@@ -70,7 +70,7 @@ def _candidates():
 
 def place_labels(ax, renderer, x, y, texts, *, avoid=None, stems=None,
                  fontsize: float = 7.5, color: str = "black",
-                 gid: str = "point-label") -> list:
+                 gid: str = "point-label", taken: list | None = None) -> list:
     """Label points (x[i], y[i]) with texts[i] where no two labels touch.
 
     Parameters
@@ -91,6 +91,9 @@ def place_labels(ax, renderer, x, y, texts, *, avoid=None, stems=None,
     color : str
     gid : str
         Given to every label (tests find them by it).
+    taken : list, optional
+        Boxes [pixels] of labels placed by an earlier call, kept clear of; the boxes
+        placed here are appended to it, so several calls share one set of labels.
 
     Returns
     -------
@@ -111,7 +114,8 @@ def place_labels(ax, renderer, x, y, texts, *, avoid=None, stems=None,
         # a stem as a row of points one marker apart along it, from base to top
         steps = [base + (top - base) * f for f in np.linspace(0.0, 1.0, 80)]
         pts = np.vstack([pts, *steps])
-    placed, out = [], []
+    placed = taken if taken is not None else []
+    out = []
     for xi, yi, s in zip(np.asarray(x, float), np.asarray(y, float), texts):
         if not (np.isfinite(xi) and np.isfinite(yi)):
             continue

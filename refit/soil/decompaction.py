@@ -140,6 +140,8 @@ def load_constants(path) -> dict[str, CompactionConstants]:
 
     JSON: ``{"Mollisols": {"initial_solidity": 0.6, "k_per_km": 0.1, "source": "..."}}``.
     CSV: columns ``key``, ``initial_solidity``, ``k_per_km`` and optionally ``source``.
+    Complete examples: ``calib_demo/compaction_constants.csv`` and ``.json`` (invented
+    numbers); the format is documented in the README ("Burial and decompaction").
 
     Raises
     ------

@@ -37,6 +37,9 @@ def test_apply_demo_writes_csv_and_prints_cautions(tmp_path):
     flags = dict(zip(bk["paleosol_id"], bk["flags"]))
     assert "beyond-turning-point" in flags["CG-P08"]
     assert "beyond-turning-point" not in flags["CG-P07"]
+    # the demo gives burial depths but was not decompacted: flagged and said on the terminal
+    assert bk["flags"].str.contains("not-decompacted").all()
+    assert "Warning: 14 estimate(s) (map_from_bk_depth) used depths" in res.output
 
 
 def test_apply_at_worked_value_and_refuses_overwrite(tmp_path):

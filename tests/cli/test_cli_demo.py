@@ -28,7 +28,7 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     # the accounting the issue asks for: rows read = accepted + rejected, where each went
     assert "Rows read 40 = accepted 26 + rejected 14." in text
     for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
-                 "7. Report", "Where everything went"):
+                 "7. Section", "8. Report", "Where everything went"):
         assert step in text
     assert "Leaderboard: map_from_bk_depth" in text and "not for engineering" in text
 
@@ -70,6 +70,29 @@ def test_demo_fit_publish_apply_compare(demo_run):
     table = pd.read_csv(out / "compare" / "comparison.csv")
     assert set(table["paleosol_id"]) == set(estimates["paleosol_id"])
     assert (out / "compare" / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # the demo decompacts (its constants file): no depth is applied as measured
+    assert not estimates["flags"].fillna("").str.contains("not-decompacted").any()
+    assert (estimates["problem"].fillna("") == "").sum() > 0
+    assert mine["predictors_used"].str.contains("decompacted").all()
+    # every panel drawn (14 paleosols, a MAT panel for the 7 with oxides): 12 a page
+    pages = sorted((out / "compare").glob("comparison*.png"))
+    assert len(pages) == 2
+
+
+def test_demo_draws_each_section_and_embeds_it(demo_run):
+    out, result = demo_run
+    folder = out / "section"
+    assert sorted(p.name for p in folder.glob("*.png")) == [
+        "section-coldstave-gorge.png", "section-murrenhal-bluff.png"]
+    t = pd.read_csv(folder / "section.csv")
+    est = pd.read_csv(out / "estimates.csv")
+    assert len(t) == len(est)
+    merged = t.merge(est, on=["paleosol_id", "coefficient_file"], suffixes=("", "_a"))
+    assert (merged["estimate"].fillna(-1) == merged["estimate_a"].fillna(-1)).all()
+    assert t["fit"].nunique() == 6 and (t["origin"] == "refit").any()
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert 'id="sections"' in html and html.count('class="section-figure"') == 2
+    assert "Notes on the sections" in html
 
 
 def test_demo_report_is_self_contained(demo_run):
@@ -92,7 +115,9 @@ def test_demo_report_is_self_contained(demo_run):
     run = json.loads((out / "run" / "run.json").read_text(encoding="utf-8"))
     assert run["dataset"]["sha256"] in html
     # the demo's comparison of fits is in the report too, embedded like the other figures
-    assert sum("compared fits" in a for a in parser.alts) == 1
+    # every page of it: all panels drawn, 12 a page
+    pages = len(list((out / "compare").glob("comparison*.png")))
+    assert sum("compared fits" in a for a in parser.alts) == pages == 2
     table = pd.read_csv(out / "compare" / "comparison.csv")
     assert f"The comparison table ({len(table)} rows" in html
     assert "--compare" in html

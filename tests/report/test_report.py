@@ -198,6 +198,8 @@ def compared(run_dir):
                                        str(demo_dir() / "fossils.csv"), "--out", str(out)])
     assert res.exit_code in (0, 1), res.output
     assert (out / "comparison.csv").is_file() and (out / "comparison.png").is_file()
+    assert "Drawn: all 14 panel(s) (14 paleosol(s)) in 2 figure file(s)" in res.output
+    assert str(out / "comparison-2.png") in res.output
     return out
 
 
@@ -214,7 +216,10 @@ def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
     assert res.exit_code == 0, res.output
     page = parse(out)
     imgs = comparison_image(page)
-    assert len(imgs) == 1 and len([t for t, _ in page.tags if t == "img"]) == 8
+    # every paleosol drawn: 14 demo paleosols = 14 panels, 12 a page -> 2 images
+    pages = sorted(compared.glob("comparison*.png"))
+    assert len(imgs) == len(pages) == 2
+    assert len([t for t, _ in page.tags if t == "img"]) == 7 + len(pages)
     assert imgs[0]["src"].startswith("data:image/png;base64,")
     raw = base64.b64decode(imgs[0]["src"].split(",", 1)[1])
     # drawn from comparison.csv by the function `refit compare` drew comparison.png with:

@@ -114,3 +114,29 @@ def test_decompact_frame_records_every_step():
     assert np.isnan(out["bk_depth_cm"][3])
     assert "'Vertisols'" in rec["decompaction_problem"][4]
     assert np.isnan(out["bk_depth_cm"][4])
+
+
+def test_example_constants_files_agree_and_say_they_are_invented():
+    # calib_demo's example in both documented formats: the same constants, each marked
+    from refit._util.resources import demo_dir
+
+    csv_c = dc.load_constants(demo_dir() / "compaction_constants.csv")
+    json_c = dc.load_constants(demo_dir() / "compaction_constants.json")
+    assert set(csv_c) == set(json_c) == {"Mollisols", "Alfisols", "Vertisols"}
+    for key, c in csv_c.items():
+        assert (c.initial_solidity, c.k_per_km) == (json_c[key].initial_solidity,
+                                                    json_c[key].k_per_km)
+        assert "INVENTED" in c.source and c.status == dc.STATUS_USER
+    # user constants never replace the built-in Aridisols unless they name it
+    assert dc.constants_table(csv_c)["Aridisols"] is dc.BUILT_IN["Aridisols"]
+
+
+def test_readme_lists_every_built_in_constant_with_its_status():
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text("utf-8")
+    part = readme.split("## Burial and decompaction", 1)[1].split("\n## ", 1)[0]
+    for c in dc.BUILT_IN.values():
+        row = f"| {c.key} | {c.initial_solidity:g} | {c.k_per_km:g} |"
+        assert row in part and "LOW CONFIDENCE" in part
+    assert "calib_demo/compaction_constants.csv" in part and "```" in part

@@ -1,0 +1,79 @@
+"""`refit section`: climate against stratigraphic level (or age), one figure per section."""
+
+from __future__ import annotations
+
+import click
+
+from refit.cli.common import fossil_options, guarded, print_problems_and_cautions, stdout_console
+
+
+@click.command("section", short_help="Climate up each section: figure and table.")
+@click.argument("coefficients", nargs=-1, required=True,
+                type=click.Path(dir_okay=False, path_type=str))
+@click.option("--fossils", required=True, metavar="TABLE",
+              type=click.Path(dir_okay=False, path_type=str),
+              help="Fossil table with section and level_m columns.")
+@click.option("--age-column", metavar="NAME",
+              help="Column of TABLE with each paleosol's age (unit in its name, e.g. "
+                   "age_ma; its SD from age_sd_ma when present).")
+@click.option("--age-sd-column", metavar="NAME", help="Column with the age's SD.")
+@click.option("--age-model", metavar="TABLE", type=click.Path(dir_okay=False, path_type=str),
+              help="Dated levels (section, level_m, age_ma[, age_sd_ma]); ages of the "
+                   "paleosols by linear interpolation between them.")
+@fossil_options
+@click.option("--out", required=True, metavar="DIR",
+              type=click.Path(file_okay=False, path_type=str),
+              help="Folder for section.csv, notes.txt and section-<name>.png.")
+@click.option("--overwrite", is_flag=True, help="Replace a section table already in --out.")
+@click.pass_context
+@guarded
+def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, level,
+            decompact, constants_file, seed, out, overwrite) -> None:
+    """Draw the estimates of COEFFICIENTS files up each section of TABLE.
+
+    One figure per section: estimate and interval of every fit against level_m (or age),
+    one colour per fit, prediction intervals solid, published ±1 SE dashed, flagged
+    estimates hollow with the flag named. DIR/section.csv holds the same numbers (one
+    row per paleosol and fit); DIR/notes.txt the choices made (missing or repeated
+    levels, ...) and where adjacent levels differ by less than their intervals resolve.
+
+    \b
+    Exit codes: 0 written, 1 some fits or rows could not be evaluated (the rest is still
+    written), 2 unreadable input or usage error.
+
+    \b
+    Examples:
+      refit section runs/bk/fits/*.json --fossils calib_demo/fossils.csv --out sections \\
+          --decompact --compaction-constants calib_demo/compaction_constants.csv
+      refit section map.json --fossils fossils.csv --age-model calib_demo/age_model.csv \\
+          --out sections
+    """
+    from pathlib import Path
+
+    from refit.apply.section import section_files
+    from refit.errors import UsageError
+    from refit.report.section_plot import write_section
+
+    if (Path(out) / "section.csv").exists() and not overwrite:
+        raise UsageError(f"--out {out} already holds section.csv; pass --overwrite")
+    result = section_files(list(coefficients), fossils, age_column=age_column,
+                           age_sd_column=age_sd_column, age_model=age_model, level=level,
+                           decompact=decompact, constants_file=constants_file, seed=seed)
+    written = write_section(result, out)
+    console = stdout_console()
+    t = result.table
+    drawn = t[t[result.axis].notna() & t["estimate"].notna()]
+    console.print(f"{drawn['paleosol_id'].nunique()} of {t['paleosol_id'].nunique()} "
+                  f"paleosols drawn in {len(written) - 2} figure(s), "
+                  f"{drawn['fit'].nunique()} fit(s), against "
+                  f"{'level [m]' if result.axis == 'level_m' else result.age_label}:",
+                  markup=False)
+    for p in written[2:]:
+        console.print(f"  {p}", markup=False)
+    console.print(f"Table: {written[0]}; notes: {written[1]}", markup=False)
+    for note in result.notes:
+        console.print(f"Note: {note}", markup=False)
+    for warning in result.applied.warnings:
+        console.print(f"Warning: {warning}", style="yellow", markup=False)
+    print_problems_and_cautions(result.applied, console)
+    ctx.exit(0 if result.applied.ok else 1)
