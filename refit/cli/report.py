@@ -22,10 +22,13 @@ from refit.cli.common import guarded, stderr_console
 @click.option("--compare", "compare", type=click.Path(path_type=str), default=None,
               metavar="DIR", help="Folder written by `refit compare` (comparison.csv): add "
                                   "its interval figure and table to the report.")
+@click.option("--section", "section", type=click.Path(path_type=str), default=None,
+              metavar="DIR", help="Folder written by `refit section` (section.csv): add its "
+                                  "climate-through-the-section figures to the report.")
 @click.option("--overwrite", is_flag=True, help="Replace an existing report file.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress messages.")
 @guarded
-def report(run, out, candidate, store, compare, overwrite, quiet) -> None:
+def report(run, out, candidate, store, compare, section, overwrite, quiet) -> None:
     """Write one HTML file reporting the fit RUN folder (from `refit fit --out RUN`).
 
     The report reloads the run's calibration data (the store version or table recorded in
@@ -34,7 +37,9 @@ def report(run, out, candidate, store, compare, overwrite, quiet) -> None:
     chosen equation with coefficients and standard errors, the recipe's cross-validation
     against random k-fold, flags and cautions, the figures (embedded; the file needs no
     network) and the commands that reproduce it. With --compare DIR it also shows the
-    fossil estimates of several fits side by side (from `refit compare --out DIR`).
+    fossil estimates of several fits side by side (from `refit compare --out DIR`); with
+    --section DIR the climate of each measured section against level or age (from
+    `refit section --out DIR`).
 
     \b
     Exit codes: 0 written, 1 the data are no longer the run's, 2 unreadable run folder,
@@ -61,15 +66,17 @@ def report(run, out, candidate, store, compare, overwrite, quiet) -> None:
     with err.status("reading the run") as status:
         written = write_report(run, target, candidate=candidate, store=store,
                                command=_command(run, target, candidate, store, compare,
-                                                overwrite),
-                               progress=lambda text: status.update(text), compare=compare)
+                                                section, overwrite),
+                               progress=lambda text: status.update(text), compare=compare,
+                               section=section)
     click.echo(f"Report written to {written}")
 
 
-def _command(run, target, candidate, store, compare, overwrite) -> list[str]:
+def _command(run, target, candidate, store, compare, section, overwrite) -> list[str]:
     """The command that rewrites this report (shown in it)."""
     cmd = ["refit", "report", str(run), "--out", str(target)]
     cmd += ["--overwrite"] if overwrite else []
     cmd += ["--candidate", candidate] if candidate else []
     cmd += ["--compare", str(compare)] if compare else []
+    cmd += ["--section", str(section)] if section else []
     return cmd + (["--store", str(store)] if store else [])
