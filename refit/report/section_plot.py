@@ -139,9 +139,14 @@ def section_figure(table, section: str, *, axis: str = "level_m", y_label: str =
                               if common[f] else ""))
                    for f in dict.fromkeys(t["fit"])]
         handles += _style_handles(t, axis)
-        for h in handles:  # two legend columns fit the figure's width
-            h.set_label(textwrap.fill(h.get_label(), LEGEND_WIDTH, subsequent_indent="  "))
-        fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=7.5)
+        # as many legend columns of LEGEND_WIDTH characters as the figure's width holds
+        # (about 15 characters per inch at this size), the entries wrapped to fit
+        room = int(fig.get_figwidth() * 15)
+        ncol = 2 if room >= 2 * LEGEND_WIDTH + 6 else 1
+        width = min(LEGEND_WIDTH, room // ncol - 6)
+        for h in handles:
+            h.set_label(textwrap.fill(h.get_label(), width, subsequent_indent="  "))
+        fig.legend(handles=handles, loc="outside lower center", ncol=ncol, fontsize=7.5)
         renderer = freeze_layout(fig)
         for ax, g, clip in zip(axes, groups, clips):
             _panel(ax, g, axis, clip, style_of)
