@@ -11,7 +11,7 @@ No cumulative sum over the whole grid is formed: the grid is cut into chunks of 
 The highest-density interval (HDI) of level L is the set ``{x : p(x) >= lam}`` holding
 mass L (Hyndman 1996, The American Statistician 50:120, "highest density regions"; from
 memory). For a unimodal row it is one interval ``[a, b]`` with ``p(a) = p(b)`` and
-``F(b) - F(a) = L``, found by bisection on ``u = F(a)`` (:func:`hdi_unimodal`); otherwise
+``F(b) - F(a) = L``, found by the Illinois method on ``u = F(a)`` (:func:`hdi_unimodal`); otherwise
 the threshold is found by bisection on lam with the exact trapezoid mass above it, and the
 HDI is a union of intervals (:func:`hdi_pieces`).
 """
@@ -22,9 +22,9 @@ import math
 
 import numpy as np
 
-#: bisection steps of the unimodal HDI on u = F(a) in [0, 1 - level]: (1 - level) 2^-30,
-#: i.e. 5e-11 of probability at level 0.95
-HDI_STEPS = 30
+#: Illinois (regula falsi) steps of the unimodal HDI on u = F(a) in [0, 1 - level]
+#: (superlinear; 12 steps reach the grid's own precision)
+HDI_STEPS = 12
 #: bisection steps on the density threshold of a multimodal row
 THRESHOLD_STEPS = 60
 
@@ -57,6 +57,8 @@ class GridRows:
         self.F_end = h * (self.S_end - 0.5 * (p[:, :1] + p[:, ends]))
         self.total = self.F_end[:, -1].copy()                   # normaliser Z
         self.rows = np.arange(B)
+        self.flat = p.reshape(-1)                               # p is C-contiguous
+        self.offsets = self.rows * G
 
     def _chunk_values(self, c: np.ndarray):
         """(indices (B, w+1), values, S at the first index) of chunk ``c`` per row, with the
@@ -64,7 +66,7 @@ class GridRows:
         G = self.p.shape[1]
         first = np.maximum(self.starts[c] - 1, 0)
         idx = np.minimum(first[:, None] + np.arange(self.width + 1), G - 1)
-        vals = self.p[self.rows[:, None], idx]
+        vals = np.take(self.flat, idx + self.offsets[:, None])
         s0 = np.where(c > 0, self.S_end[self.rows, np.maximum(c - 1, 0)], self.p[:, 0])
         return idx, vals, s0
 
@@ -104,26 +106,35 @@ class GridRows:
 
 
 def hdi_unimodal(rows: GridRows, level: float, x0: float):
-    """HDI ``[a, b]`` of unimodal rows: bisection on ``u = F(a) / Z`` for
+    """HDI ``[a, b]`` of unimodal rows: Illinois iteration on ``u = F(a) / Z`` for
     ``p(a) = p(b)``, ``F(b) - F(a) = level`` (``p(Q(u)) - p(Q(u + level))`` increases in u
     for a unimodal density). A density falling from the left edge gives ``u = 0``, one
     rising to the right edge ``u = 1 - level``."""
     B = rows.total.shape[0]
-    lo, hi = np.zeros(B), np.full(B, 1.0 - level)
 
     def gap(u):
         i, t = rows.quantile_index(u * rows.total)
         k, s = rows.quantile_index((u + level) * rows.total)
         return rows.density_at(i, t) - rows.density_at(k, s)
 
-    for _ in range(HDI_STEPS):
-        mid = 0.5 * (lo + hi)
-        up = gap(mid) < 0          # left end still below the right end: move right
-        lo = np.where(up, mid, lo)
-        hi = np.where(up, hi, mid)
+    lo, hi = np.zeros(B), np.full(B, 1.0 - level)
+    g_lo, g_hi = gap(lo), gap(hi)
+    left, right = g_lo >= 0, g_hi <= 0               # the HDI touches an edge
+    side = np.zeros(B)                               # Illinois: which end was kept twice
     u = 0.5 * (lo + hi)
-    u = np.where(gap(np.zeros(B)) >= 0, 0.0, u)
-    u = np.where(gap(np.full(B, 1.0 - level)) <= 0, 1.0 - level, u)
+    for _ in range(HDI_STEPS):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            u = np.where(g_hi != g_lo, hi - g_hi * (hi - lo) / (g_hi - g_lo), 0.5 * (lo + hi))
+        u = np.where((u > lo) & (u < hi), u, 0.5 * (lo + hi))
+        g = gap(u)
+        up = g < 0
+        lo, g_lo = np.where(up, u, lo), np.where(up, g, g_lo)
+        hi, g_hi = np.where(up, hi, u), np.where(up, g_hi, g)
+        # Illinois step: halve the value at the end kept twice in a row
+        g_hi = np.where(up & (side > 0), 0.5 * g_hi, g_hi)
+        g_lo = np.where(~up & (side < 0), 0.5 * g_lo, g_lo)
+        side = np.where(up, 1.0, -1.0)
+    u = np.where(left, 0.0, np.where(right, 1.0 - level, u))
     return rows.quantile(u, x0), rows.quantile(u + level, x0)
 
 

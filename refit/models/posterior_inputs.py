@@ -53,9 +53,19 @@ N_GRID = 2000
 MODE_FRACTION = 0.05
 #: two modes are distinct when the density between them falls below this share of the lower
 DIP_FRACTION = 0.9
-#: the prior cuts the posterior when the density at a prior edge (not a physical bound) is
-#: at least this fraction of the peak
-CUT_FRACTION = 0.01
+#: the prior (or a physical bound) cuts the posterior when the density at the grid's edge
+#: is at least ``exp(-z^2 / 2)`` of the peak, z the normal quantile of the level (0.146 at
+#: 95 %): where an uncut normal posterior would still be inside its equal-tailed interval
+CUT_FRACTION = None
+
+
+def cut_fraction(level: float) -> float:
+    """Density at an edge, as a share of the peak, from which the edge cuts the
+    posterior: ``exp(-z^2 / 2)``, ``z = Phi^-1(0.5 + level / 2)``."""
+    from statistics import NormalDist
+
+    z = NormalDist().inv_cdf(0.5 + level / 2.0)
+    return math.exp(-0.5 * z * z)
 #: proxies disagree when the chi-square consistency p-value is below this (common practice)
 DISAGREE_P = 0.05
 #: the prior must put at least this mass on the proxies' calibration range
