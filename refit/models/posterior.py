@@ -33,7 +33,6 @@ from refit.errors import UsageError
 from refit.models import posterior_grid as pg
 from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     BLOCK_ROWS,
-    CUT_FRACTION,
     DIP_FRACTION,
     DISAGREE_P,
     FLAG_CUT_BOUND,
@@ -55,6 +54,7 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     calibration_hull,
     check_prior_overlap,
     chi2_sf,
+    cut_fraction,
     forward_proxy,
     log_prior,
     model_scale_inputs,

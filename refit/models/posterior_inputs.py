@@ -56,7 +56,7 @@ DIP_FRACTION = 0.9
 #: the prior (or a physical bound) cuts the posterior when the density at the grid's edge
 #: is at least ``exp(-z^2 / 2)`` of the peak, z the normal quantile of the level (0.146 at
 #: 95 %): where an uncut normal posterior would still be inside its equal-tailed interval
-CUT_FRACTION = None
+
 
 
 def cut_fraction(level: float) -> float:
