@@ -30,12 +30,24 @@ import numpy as np
 from refit.coefficients.evaluate import design_rows
 from refit.errors import UsageError
 from refit.models.posterior import (
-    ForwardProxy, Posterior, Prior, climate_posterior, normal_prior, prior_from_dict,
+    ForwardProxy,
+    Posterior,
+    Prior,
+    climate_posterior,
+    normal_prior,
+    prior_from_dict,
     uniform_prior,
 )
 
-__all__ = ["proxy_from_record", "posterior_from_records", "Prior", "Posterior",
-           "uniform_prior", "normal_prior", "prior_from_dict"]
+__all__ = [
+    "Posterior",
+    "Prior",
+    "normal_prior",
+    "posterior_from_records",
+    "prior_from_dict",
+    "proxy_from_record",
+    "uniform_prior",
+]
 
 
 def _matrix(value, what: str, who: str) -> np.ndarray:

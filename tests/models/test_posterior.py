@@ -18,7 +18,12 @@ from scipy import integrate, optimize, stats
 from refit.errors import InvalidDataError, UsageError
 from refit.models.fitting import fit
 from refit.models.posterior import (
-    ForwardProxy, chi2_sf, climate_posterior, forward_proxy, normal_prior, student_t_logpdf,
+    ForwardProxy,
+    chi2_sf,
+    climate_posterior,
+    forward_proxy,
+    normal_prior,
+    student_t_logpdf,
     uniform_prior,
 )
 
@@ -68,10 +73,10 @@ def test_grid_posterior_matches_quad(two_fits):
     dens = _scipy_density(proxies, [50.0, 5.0], [2.0, 0.1])
     lo, hi = post.grid["low"], post.grid["high"]
     Z = integrate.quad(dens, lo, hi, limit=200)[0]
-    F = lambda q: integrate.quad(dens, lo, q, limit=200)[0] / Z  # noqa: E731
+    F = lambda q: integrate.quad(dens, lo, q, limit=200)[0] / Z
     width = post.upper[0] - post.lower[0]
     for q, got in ((0.5, post.median[0]), (0.025, post.lower[0]), (0.975, post.upper[0])):
-        ref = optimize.brentq(lambda u: F(u) - q, lo, hi, xtol=1e-10)
+        ref = optimize.brentq(lambda u, q=q: F(u) - q, lo, hi, xtol=1e-10)
         assert abs(got - ref) < 1e-4 * width
     mean = integrate.quad(lambda x: x * dens(x), lo, hi, limit=200)[0] / Z
     assert abs(post.mean[0] - mean) < 1e-4 * width
