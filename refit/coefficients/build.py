@@ -178,7 +178,8 @@ def _group_plus(fit, method, level, seed, folds) -> dict:
 def interval_record(fit, method: str, level: float, seed: int, *, folds: int = 10) -> dict:
     """The ``interval`` block (see the module docstring); ``folds`` of group-cv+ (capped
     at the number of groups, as ``Fit.predict`` does)."""
-    from refit.models.predict import GROUP_INTERVALS, between_covariance
+    from refit.models.finish import between_covariance
+    from refit.models.intervals.group_conformal import GROUP_INTERVALS
 
     out = {"method": method, "level": float(level)}
     between = between_covariance(fit)

@@ -120,3 +120,17 @@ def flag_strings(masks: dict, m: int, order=None) -> np.ndarray:
     """
     names, codes = flag_codes(masks, m, order)
     return text_by_code(codes, lambda code: joined_names(names, code))
+
+
+def between_covariance(fit):
+    """The between-source covariance B (terms x terms) of a mixed fit, else None.
+
+    A soil of a new source has variance ``s_e^2 / w0 + x0' B x0`` about the fixed
+    effects (Searle, Casella & McCulloch 1992, ch. 6, from memory): the random
+    intercept's B holds s_u^2 in its first cell, so ``x0' B x0 = s_u^2``; a random slope
+    adds its x-dependent part. Every analytic interval of a mixed fit (inverse band,
+    forward band, coefficient file) uses it."""
+    if fit.estimator != "mixed":
+        return None
+    b = fit.result.details.get("between_covariance")
+    return None if b is None else np.asarray(b, dtype=float)

@@ -274,7 +274,7 @@ def forward_proxy(fit) -> ForwardProxy:
         An inverse fit, or one without a coefficient covariance.
     """
     from refit.models.inversion.classical import physical_bounds
-    from refit.models.predict import between_covariance
+    from refit.models.finish import between_covariance
 
     if fit.direction != "forward":
         raise UsageError("the posterior for climate needs a forward fit (the feature "

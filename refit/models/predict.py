@@ -13,6 +13,7 @@ import numpy as np
 
 from refit._util.flagcodes import joined_names, present_codes
 from refit.models import finish
+from refit.models.finish import between_covariance
 from refit.models.intervals.group_conformal import GROUP_INTERVALS
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
@@ -192,20 +193,6 @@ def new_observation_variance(fit, X0, w0=1.0) -> np.ndarray:
         else:
             q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
     return s2 / w0 + q
-
-
-def between_covariance(fit):
-    """The between-source covariance B (terms x terms) of a mixed fit, else None.
-
-    A soil of a new source has variance ``s_e^2 / w0 + x0' B x0`` about the fixed
-    effects (Searle, Casella & McCulloch 1992, ch. 6, from memory): the random
-    intercept's B holds s_u^2 in its first cell, so ``x0' B x0 = s_u^2``; a random slope
-    adds its x-dependent part. Every analytic interval of a mixed fit (inverse band,
-    forward band, coefficient file) uses it."""
-    if fit.estimator != "mixed":
-        return None
-    b = fit.result.details.get("between_covariance")
-    return None if b is None else np.asarray(b, dtype=float)
 
 
 # ----------------------------------------------------------------------------- group-level
