@@ -24,14 +24,13 @@ Choices made for awkward sections (each is said in ``SectionResult.notes``):
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from refit.errors import InvalidDataError, UnreadableInputError, UsageError
+from refit.errors import InvalidDataError, UsageError
 
 #: columns of the long-format section table (one row per paleosol and fit)
 TABLE_COLUMNS = [

@@ -111,7 +111,7 @@ def section_figure(table, section: str, *, axis: str = "level_m", y_label: str =
     """
     from matplotlib.lines import Line2D
 
-    from refit.report.labels import freeze_layout, place_labels
+    from refit.report.labels import freeze_layout
 
     style_of = colours(table)
     t = table[(table["section"] == section) & np.isfinite(_yvalues(table, axis))
