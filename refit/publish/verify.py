@@ -109,12 +109,12 @@ def verify_bytes(raw: bytes, name: str = "<bytes>") -> VerifyReport:
 
 def integrity_checks(content: dict, raw: bytes, name: str) -> list:
     """``sha256``, ``schema``, ``bytes`` in order, stopping at the first failure."""
-    from refit.coefficients.format import check_content_hash, check_schema, dumps
+    from refit.coefficients.format import check_bytes, check_content_hash, check_schema
 
     steps = (("sha256", lambda: check_content_hash(content, name),
               f"content hash matches ({str(content.get('sha256'))[:12]}...)"),
              ("schema", lambda: check_schema(content, name), "schema valid"),
-             ("bytes", lambda: _same_bytes(raw, dumps(content), name),
+             ("bytes", lambda: check_bytes(raw, content, name),
               "bytes are exactly as refit writes this content"))
     checks = []
     for check, fn, ok_message in steps:
@@ -125,18 +125,6 @@ def integrity_checks(content: dict, raw: bytes, name: str) -> list:
             break
         checks.append(Check(check, True, ok_message, name))
     return checks
-
-
-def _same_bytes(raw: bytes, text: str, path) -> None:
-    want = text.encode("utf-8")
-    if raw == want:
-        return
-    at = next((i for i, (a, b) in enumerate(zip(raw, want)) if a != b), min(len(raw), len(want)))
-    line = raw[:at].count(b"\n") + 1
-    raise InvalidDataError(
-        f"{path}: the bytes differ from how refit writes this content (first at byte {at}, "
-        f"line {line}); the content hash still matches, so the numbers are intact, but the "
-        "file was edited by hand or re-formatted; take it again from its registry")
 
 
 # ----------------------------------------------------------------------------- reproduce

@@ -24,7 +24,7 @@ import shutil
 from pathlib import Path
 
 from refit._util.atomic import TMP_PREFIX, fsync_dir, write_text_atomic
-from refit.coefficients import CAUTION, plain
+from refit.coefficients import CAUTION, dumps, plain
 from refit.coefficients.build import fit_record
 from refit.errors import UsageError
 from refit.validate.crossval import GROUP_CV_FOLDS
@@ -181,7 +181,7 @@ def write_run(run, out, *, argv=None, overwrite: bool = False) -> Path:
         write_text_atomic(stage / "oof_predictions.csv",
                           _oof_frame(run.matrix.predictions).to_csv(index=False))
         for name, rec in fit_records(run, created).items():
-            write_text_atomic(stage / "fits" / name, _dumps(rec))
+            write_text_atomic(stage / "fits" / name, dumps(rec))  # the one file spelling
         write_text_atomic(stage / "run.json", _dumps(_run_json(run, argv, created)))
         _swap_into_place(stage, out)
     except BaseException:
