@@ -13,6 +13,7 @@ from refit import __version__
 from refit.cli.admit import admit
 from refit.cli.apply import apply
 from refit.cli.check import check
+from refit.cli.common import RefitGroup
 from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
@@ -24,7 +25,7 @@ from refit.cli.verify import verify
 CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
 
 
-@click.group(context_settings=CONTEXT)
+@click.group(cls=RefitGroup, context_settings=CONTEXT)
 @click.version_option(__version__, prog_name="refit")
 def main() -> None:
     """refit: curate modern-soil calibration sets and refit paleosol transfer functions.

@@ -569,7 +569,10 @@ class Equation:
         w0 = _weights(weights, v.shape[0])
         if not np.all(np.isfinite(w0) & (w0 > 0)):
             raise InvalidDataError("weights of new observations must be finite and > 0")
-        est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+        # values far outside the domain overflow to inf; the evaluator turns non-finite
+        # results into an empty estimate with a flag, so numpy's warning says nothing more
+        with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+            est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
         cautions = ()
         if iv["method"] in ("group-jackknife+", "group-cv+"):
             from refit.models.intervals.group_conformal import too_few_groups

@@ -37,7 +37,13 @@ class RegistryLock:
     def __init__(self, folder: Path, timeout: float):
         from filelock import FileLock
 
-        folder.mkdir(parents=True, exist_ok=True)
+        from refit.errors import UnreadableInputError
+
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise UnreadableInputError(f"registry {folder} cannot be created ({exc.strerror}); "
+                                       "choose a writable place for it") from None
         self.folder = folder
         self.lock = FileLock(str(folder / LOCK_FILE), timeout=timeout)
 
@@ -48,6 +54,13 @@ class RegistryLock:
 
         try:
             self.lock.acquire()
+        except OSError as exc:  # a read-only registry, or not a folder where the lock goes
+            from refit.errors import UnreadableInputError
+
+            raise UnreadableInputError(
+                f"registry {self.folder} cannot be written ({exc.strerror or exc}: "
+                f"{self.folder / LOCK_FILE}); a publish needs a writable registry: check its "
+                "permissions, or use --dry-run to see what would be published") from None
         except Timeout:
             raise StoreBusyError(f"registry {self.folder} is busy: another refit process "
                                  "holds its lock; wait for it to finish, then run the "

@@ -269,6 +269,7 @@ def _number(v) -> bool:
 def verify_registry(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
     """Index consistency of a registry, then :func:`verify_file` on every file in it."""
     from refit.publish.registry import open_registry, registry_problems
+    from refit.publish.registry_layout import check_inside
 
     reg = open_registry(path)
     report = VerifyReport(str(path))
@@ -280,6 +281,7 @@ def verify_registry(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport
                                    str(reg.path / "index.json")))
     for file in sorted(reg.path.glob("*/*.json")):
         try:
+            check_inside(reg.path, file)
             sub = verify_file(file, store=store, tol=tol)
         except RefitError as exc:  # unreadable, or not a coefficient file at all
             report.checks.append(Check("read", False, str(exc), str(file)))
