@@ -18,6 +18,7 @@ from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
 from refit.cli.fit import fit
+from refit.cli.keygen import keygen
 from refit.cli.publish import publish
 from refit.cli.report import report
 from refit.cli.verify import verify
@@ -46,6 +47,7 @@ main.add_command(admit)
 main.add_command(fit)
 main.add_command(publish)
 main.add_command(verify)
+main.add_command(keygen)
 main.add_command(diff)
 main.add_command(apply)
 main.add_command(compare)

@@ -76,6 +76,36 @@ def cv_summary(res: dict) -> dict:
     return out
 
 
+def recompute_cv(content: dict, data) -> dict:
+    """The ``cv`` block of a coefficient record, computed again from rebuilt data.
+
+    ``data`` is the :class:`refit.select.dataset.Dataset` that
+    :func:`refit.validate.refits.refit_record` rebuilt from the record. The record's
+    recipe (scheme, folds, repeats, seed, level; a fit with groups: its groups column and
+    random slope) drives the same splits and the same out-of-fold predictions as the run,
+    so every number agrees with the file's when nothing was edited (``refit verify
+    --store``). The ``file_interval_note`` text, which no computation makes, is kept.
+    """
+
+    from refit.validate.candidates import _make_splits, _one, schemes_for
+    from refit.validate.refits import (recorded_groups, recorded_random_slope,
+                                       spec_from_record)
+
+    frame = data.frame.reset_index(drop=True)
+    recipe = data.recipe
+    had_groups, column = recorded_groups(content)
+    if had_groups and column:
+        recipe = dataclasses.replace(recipe, groups=column,
+                                     random_slope=recorded_random_slope(content))
+    main, kfold = schemes_for(recipe, len(frame))
+    schemes = {"main": main, "kfold": kfold}
+    splits = {k: None if s is None else _make_splits(frame, s, recipe)
+              for k, s in schemes.items()}
+    _, _, res = _one(frame, recipe, spec_from_record(content), schemes, splits, 1,
+                     lambda label: None)
+    return plain(cv_summary(res))
+
+
 def _leaderboard_json(run) -> dict:
     m = run.matrix
     return {"function_id": run.recipe.function_id, "level": run.recipe.level,
