@@ -217,7 +217,7 @@ def recomputed_domain_and_skill(content: dict, data, fit) -> dict:
         from refit.validate.runfolder import recompute_cv
 
         cv = recompute_cv(content, data)
-        out["cv"] = {k: v for k, v in cv.items() if k in content["cv"]}
+        out["cv"] = {k: cv.get(k) for k in content["cv"] if k != "file_interval_note"}
     return co.plain(out)
 
 
