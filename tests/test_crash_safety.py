@@ -180,3 +180,72 @@ def test_publish_killed_between_file_and_index_is_completed(registry_states, tmp
     # and a second publish of the same candidate is refused: nothing new to add
     code, out = cli("publish", registry_states["fits"] / QUADRATIC, "--to", work)
     assert code == 1 and "nothing to publish" in out, out
+
+
+# ----------------------------------------------------------------------------- signed
+@pytest.fixture(scope="module")
+def signed_states(tmp_path_factory):
+    """A signed registry with 1.0.0; the state after a signed publish of 2.0.0; run time.
+    Ed25519 signatures are deterministic (RFC 8032), so 'after' is one state."""
+    from refit.publish.registry import publish
+    from refit.publish.signing import new_key_pair
+
+    root = tmp_path_factory.mktemp("crash-signed")
+    fits = make_fits(root)
+    key, pub, _ = new_key_pair(root / "lab.key")
+    base = root / "base"
+    publish(fits / LINEAR, base, create=True, sign=key)
+    done = root / "done"
+    shutil.copytree(base, done)
+    duration = timed_run("publish", fits / QUADRATIC, "--to", done, "--sign", key)
+    assert (done / "map_from_bk_depth" / "2.0.0.json.sig").is_file()
+    return {"base": base, "fits": fits, "key": key, "pub": pub,
+            "before": normalised(snapshot(base)), "after": normalised(snapshot(done)),
+            "duration": duration}
+
+
+def test_killed_signed_publish_leaves_the_registry_before_or_after(signed_states, tmp_path):
+    s = signed_states
+    outcomes = []
+    for i, delay in enumerate(kill_moments(s["duration"], n_runs(4), SEED + 2)):
+        work = copy_registry(s["base"], tmp_path / f"r{i}")
+        run_killed("publish", s["fits"] / QUADRATIC, "--to", work, "--sign", s["key"],
+                   delay=delay)
+        code, out = cli("verify", work, "--trust", s["pub"])  # recovers, then verifies
+        assert code == 0, (delay, out)
+        state = normalised(snapshot(work))
+        assert state in (s["before"], s["after"]), (delay, sorted(set(state) ^
+                                                                  set(s["after"])))
+        outcomes.append("before" if state == s["before"] else "after")
+    assert outcomes[0] == "before" and outcomes[1] == "after"
+    print(f"signed publish kills: {outcomes.count('before')} before, "
+          f"{outcomes.count('after')} after")
+
+
+DIE_AFTER_SIGNATURE = """
+import os, sys
+import refit.publish.registry_commit as commit
+import refit.publish.registry as registry
+real = commit.write_text_atomic
+def write(path, text):
+    real(path, text)
+    if str(path).endswith(".sig"):
+        os._exit(9)                  # the signature landed, its file did not
+commit.write_text_atomic = write
+registry.publish(sys.argv[1], sys.argv[2], sign=sys.argv[3])
+"""
+
+
+def test_signed_publish_killed_between_signature_and_file_is_undone(signed_states,
+                                                                    tmp_path):
+    s = signed_states
+    work = copy_registry(s["base"], tmp_path / "r")
+    proc = subprocess.run([sys.executable, "-c", DIE_AFTER_SIGNATURE,
+                           str(s["fits"] / QUADRATIC), str(work), str(s["key"])],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 9, proc.stderr
+    assert (work / "map_from_bk_depth" / "2.0.0.json.sig").is_file()
+    code, out = cli("verify", work, "--trust", s["pub"])
+    assert code == 0, out
+    assert "its file had not landed, so it was undone" in out
+    assert normalised(snapshot(work)) == s["before"]

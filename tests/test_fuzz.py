@@ -333,3 +333,145 @@ def test_the_property_catches_a_traceback():
         output = "Traceback (most recent call last):"
     with pytest.raises(AssertionError):
         assert_well_behaved(Fake())
+
+
+# ----------------------------------------------------------------------------- attacks
+# Tamper attacks a content hash alone cannot see, and inputs sized to exhaust refit. The
+# reference for "same content" is Python's json module (RFC 8259): an edit that json.loads
+# reads as the same document must still be refused, because load() checks the exact bytes.
+ATTACKS = {"non-finite": 0, "respelled": 0, "nested": 0, "recipe sizes": 0}
+
+
+def _null_offsets(raw: bytes) -> list[int]:
+    import re
+
+    return [m.start(1) for m in re.finditer(rb"[:\[,]\s*(null)", raw)]
+
+
+@pytest.fixture(scope="module")
+def written(candidate):
+    from refit.coefficients import dumps
+
+    return dumps(candidate).encode("utf-8")
+
+
+@FUZZ
+@given(data=st.data())
+def test_a_non_finite_number_in_place_of_a_null_never_loads(written, data):
+    from refit import coefficients
+    from refit.errors import RefitError
+
+    offsets = _null_offsets(written)
+    assert offsets
+    at = data.draw(st.sampled_from(offsets))
+    token = data.draw(st.sampled_from([b"1e999", b"-1e999", b"1E400", b"-9.9e9999",
+                                       b"1" + b"0" * 400, b"NaN", b"Infinity", b"-Infinity"]))
+    raw = written[:at] + token + written[at + 4:]
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "fit.json"
+        path.write_bytes(raw)
+        with pytest.raises(RefitError):
+            coefficients.load(path)
+        result = invoke("verify", path)
+        assert_well_behaved(result, path)
+        assert result.exit_code == 1
+    ATTACKS["non-finite"] += 1
+
+
+@st.composite
+def respelled(draw, raw: bytes) -> bytes:
+    """The same JSON document in other bytes: whitespace, key order or a \\u escape."""
+    text = raw.decode("utf-8")
+    how = draw(st.sampled_from(["space", "key order", "escape", "indent", "line ends"]))
+    if how == "space":
+        spots = [i + 1 for i, c in enumerate(text) if c in ",:[{"]
+        i = draw(st.sampled_from(spots))
+        return (text[:i] + draw(st.sampled_from([" ", "\t", "\n", "  "])) + text[i:]).encode()
+    if how == "escape":
+        spots = [i for i, c in enumerate(text) if c.isalpha() and text.count('"', 0, i) % 2]
+        i = draw(st.sampled_from(spots))
+        return (text[:i] + f"\\u{ord(text[i]):04x}" + text[i + 1:]).encode()
+    doc = json.loads(text)
+    if how == "key order":
+        keys = list(doc)
+        order = draw(st.permutations(keys).filter(lambda p: list(p) != sorted(keys)))
+        return (json.dumps({k: doc[k] for k in order}, indent=1, ensure_ascii=False)
+                + "\n").encode()
+    if how == "indent":
+        return (json.dumps(doc, indent=draw(st.sampled_from([None, 0, 2, 4])),
+                           sort_keys=True, ensure_ascii=False) + "\n").encode()
+    return text.replace("\n", "\r\n").encode()
+
+
+@FUZZ
+@given(data=st.data())
+def test_the_same_content_in_other_bytes_never_loads(written, data):
+    from refit import coefficients
+    from refit.errors import InvalidDataError
+
+    raw = data.draw(respelled(written))
+    assert json.loads(raw) == json.loads(written)       # the hash cannot tell them apart
+    if raw == written:
+        return
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "fit.json"
+        path.write_bytes(raw)
+        with pytest.raises(InvalidDataError, match="bytes check failed"):
+            coefficients.load(path)
+        result = invoke("verify", path)
+        assert_well_behaved(result, path)
+        assert result.exit_code == 1 and "FAIL bytes" in result.output
+    ATTACKS["respelled"] += 1
+
+
+@FUZZ
+@given(depth=st.integers(100, 200_000), opener=st.sampled_from(["[", '{"a":']),
+       where=st.sampled_from(["top", "field"]))
+def test_deeply_nested_json_is_a_clear_error(depth, opener, where):
+    closer = "]" if opener == "[" else "}"
+    body = opener * depth + "1" * (opener == "[") + "null" * (opener != "[") + closer * depth
+    text = body if where == "top" else '{"coefficients": ' + body + "}"
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "deep.json"
+        path.write_text(text)
+        result = invoke("verify", path)
+        assert_well_behaved(result, path)
+        assert result.exit_code == 1
+        assert len(result.output.strip().splitlines()) <= 4
+    ATTACKS["nested"] += 1
+
+
+sizes = st.one_of(st.integers(10 ** 3, 10 ** 30), st.just(99999999999999999999),
+                  st.just(2 ** 32), st.just(100_000_000))
+
+
+@FUZZ
+@given(key=st.sampled_from(["seed", "repeats", "folds"]), value=sizes,
+       list_key=st.sampled_from([None, "forms", "estimators", "methods"]),
+       n=st.integers(65, 250_000))
+def test_fit_refuses_recipe_sizes_beyond_the_limits_at_once(soils, key, value, list_key, n):
+    doc = json.loads(json.dumps(BASE_RECIPE))
+    # beyond each limit (folds and repeats 1,000; seeds 0 .. 2**32 - 1)
+    doc["validation"][key] = value + (2 ** 32 if key == "seed" else 1_000)
+    if list_key:
+        section = "intervals" if list_key == "methods" else "candidates"
+        doc[section][list_key] = doc[section][list_key] * n
+    text = "\n".join(f"[{s}]\n" + "\n".join(f"{json.dumps(k)} = {toml_value(v)}"
+                                            for k, v in d.items()) for s, d in doc.items())
+    with tempfile.TemporaryDirectory() as tmp:
+        shutil.copy(soils, Path(tmp) / "soils.csv")
+        recipe = Path(tmp) / "recipe.toml"
+        recipe.write_text(text)
+        result = invoke("fit", recipe, "--out", Path(tmp) / "run", "--quiet")
+        assert_well_behaved(result, recipe)
+        assert result.exit_code == 2 and len(result.output) < 1000, result.output[:2000]
+        assert "refit's limit" in result.output
+        assert not (Path(tmp) / "run").exists()
+    ATTACKS["recipe sizes"] += 1
+
+
+def test_zz_report_attack_counts():
+    # runs last in file order: how many attacks of each kind ran (-s shows the line)
+    print("attacks run:", ", ".join(f"{k} {v}" for k, v in ATTACKS.items()))
+    if not os.environ.get("PYTEST_XDIST_WORKER"):
+        assert all(v > 0 for v in ATTACKS.values()) or not any(ATTACKS.values())

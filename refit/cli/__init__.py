@@ -13,10 +13,12 @@ from refit import __version__
 from refit.cli.admit import admit
 from refit.cli.apply import apply
 from refit.cli.check import check
+from refit.cli.common import RefitGroup
 from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
 from refit.cli.fit import fit
+from refit.cli.keygen import keygen
 from refit.cli.publish import publish
 from refit.cli.report import report
 from refit.cli.section import section
@@ -25,7 +27,7 @@ from refit.cli.verify import verify
 CONTEXT = {"help_option_names": ["-h", "--help"], "max_content_width": 100}
 
 
-@click.group(context_settings=CONTEXT)
+@click.group(cls=RefitGroup, context_settings=CONTEXT)
 @click.version_option(__version__, prog_name="refit")
 def main() -> None:
     """refit: curate modern-soil calibration sets and refit paleosol transfer functions.
@@ -46,6 +48,7 @@ main.add_command(admit)
 main.add_command(fit)
 main.add_command(publish)
 main.add_command(verify)
+main.add_command(keygen)
 main.add_command(diff)
 main.add_command(apply)
 main.add_command(compare)

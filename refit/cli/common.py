@@ -43,17 +43,85 @@ def guarded(fn: F) -> F:
         except KeyboardInterrupt:
             click.echo("Error: interrupted; nothing was half-written.", err=True)
             sys.exit(1)
-        except Exception as exc:  # last resort: one line, not a traceback
-            if os.environ.get("REFIT_DEBUG"):
-                traceback.print_exc()
-            click.echo(
-                f"Error: unexpected {type(exc).__name__}: {exc}. This is a refit bug; "
-                "please report it with the command you ran (REFIT_DEBUG=1 shows details).",
-                err=True,
-            )
+        except OSError as exc:
+            message = os_error_message(exc)
+            if message is None:
+                raise_unexpected(exc)
+            click.echo(f"Error: {message}", err=True)
             sys.exit(1)
+        except RecursionError:
+            click.echo("Error: an input is nested too deeply to be read (JSON or TOML nested "
+                       "thousands of levels); check the files named on the command line",
+                       err=True)
+            sys.exit(1)
+        except Exception as exc:  # last resort: one line, not a traceback
+            raise_unexpected(exc)
 
     return wrapper  # type: ignore[return-value]
+
+
+#: errno values that mean "the file system refuses the write", whatever the command
+_WRITE_REFUSED = {"EACCES": "permission denied", "EPERM": "not permitted",
+                  "EROFS": "the file system is read-only", "ENOSPC": "the disk is full",
+                  "EDQUOT": "the disk quota is used up"}
+
+
+def os_error_message(exc: OSError) -> str | None:
+    """One line for a write the file system refused (read-only, full, no permission);
+    None for any other OSError. Nothing half-written stays: writes are atomic."""
+    import errno
+
+    name = errno.errorcode.get(exc.errno or 0, "")
+    if name not in _WRITE_REFUSED:
+        return None
+    where = exc.filename or "a file"
+    return (f"{where}: {_WRITE_REFUSED[name]} ({exc.strerror}); nothing was changed (writes "
+            "are atomic): free space, make the folder writable or choose another one, then "
+            "run the command again")
+
+
+def raise_unexpected(exc: BaseException) -> None:
+    """Report an exception refit did not foresee in one line and exit 1."""
+    if os.environ.get("REFIT_DEBUG"):
+        traceback.print_exc()
+    text = " ".join(str(exc).split())
+    text = text if len(text) <= 300 else text[:300] + "..."
+    click.echo(f"Error: unexpected {type(exc).__name__}: {text}. This is a refit bug; please "
+               "report it with the command you ran (REFIT_DEBUG=1 shows details).", err=True)
+    sys.exit(1)
+
+
+def usage_line(exc: click.UsageError) -> str:
+    """A click usage error as one line: what is wrong, the usage and where help is."""
+    message = " ".join(exc.format_message().split())
+    ctx = exc.ctx
+    if ctx is None:
+        return f"Error: {message}"
+    usage = " ".join(ctx.get_usage().split()).removeprefix("Usage: ")
+    return (f"Error: {message.rstrip('.')}; usage: {usage} "
+            f"(see `{ctx.command_path} --help`)")
+
+
+class RefitGroup(click.Group):
+    """The command group: a usage error is one ``Error: ...`` line (exit code 2), not
+    click's usage block followed by the error."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
+             **extra):
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, False, **extra)
+        try:
+            code = super().main(args, prog_name, complete_var, False, **extra)
+        except click.UsageError as exc:
+            click.echo(usage_line(exc), err=True)
+            sys.exit(exc.exit_code)
+        except click.ClickException as exc:
+            click.echo(f"Error: {' '.join(exc.format_message().split())}", err=True)
+            sys.exit(exc.exit_code)
+        except click.Abort:
+            click.echo("Error: aborted; nothing was half-written.", err=True)
+            sys.exit(1)
+        sys.exit(code if isinstance(code, int) else 0)
 
 
 def stderr_console(quiet: bool = False):

@@ -9,13 +9,22 @@ import click
 from refit.cli.common import Progress, guarded, print_run, stderr_console
 
 
+def _jobs(value: int) -> int:
+    if value == 0:
+        raise click.BadParameter("0 workers cannot fit anything; give 1 or more, or -1 for "
+                                 "all cores")
+    return value
+
+
 @click.command("fit", short_help="Cross-validate a recipe's candidate fits and rank them.")
 @click.argument("recipe", type=click.Path(dir_okay=False, path_type=str))
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=str), default=None,
               metavar="RUN", help="Run folder to write [default: runs/<function id>-<time>].")
 @click.option("--overwrite", is_flag=True, help="Replace an existing run folder.")
-@click.option("--jobs", type=click.IntRange(min=-1), default=1, show_default=True,
-              help="Parallel worker processes for the candidates (-1: all cores; 1 is usually fastest on 2 cores).")
+@click.option("--jobs", type=click.IntRange(min=-1, max=1024), default=1, show_default=True,
+              callback=lambda ctx, param, value: _jobs(value),
+              help="Parallel worker processes for the candidates, 1 or more (-1: all cores; "
+                   "1 is usually fastest on 2 cores).")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
 @click.option("--store", "store", type=click.Path(path_type=str), default=None,
               help="Use this calibration store instead of the recipe's [data] (may lie anywhere).")
@@ -33,7 +42,8 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
 
     \b
     Exit codes: 0 done, 1 invalid data (missing column, too few rows, a scheme that
-    cannot split the subset), 2 unreadable or invalid recipe, usage error.
+    cannot split the subset, no candidate could be fitted), 2 unreadable or invalid
+    recipe, usage error.
 
     \b
     Examples:
@@ -61,5 +71,22 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
     err = stderr_console(quiet=quiet or not sys.stderr.isatty())
     with Progress(err) as progress:
         run = run_recipe(rec, n_jobs=jobs, progress=progress)
+    if not run.matrix.specs:
+        raise_nothing_fitted(recipe, run.matrix.skipped)
     written = write_run(run, out, argv=["refit", "fit", *sys.argv[2:]], overwrite=overwrite)
     print_run(run, written)
+
+
+def raise_nothing_fitted(recipe, skipped: list) -> None:
+    """Stop with exit code 1 when every candidate failed or was skipped (nothing written)."""
+    from refit.errors import InvalidDataError
+
+    by_reason: dict[str, int] = {}
+    for s in skipped:
+        by_reason[s["reason"]] = by_reason.get(s["reason"], 0) + 1
+    reason, n = max(by_reason.items(), key=lambda kv: kv[1]) if by_reason else ("none", 0)
+    more = (f" ({len(by_reason) - 1} other reason(s))" if len(by_reason) > 1 else "")
+    raise InvalidDataError(
+        f"{recipe}: no candidate could be fitted ({len(skipped)} tried); {n} failed with: "
+        f"{reason.removeprefix('failed: ')[:300]}{more}; no run was written: fix the data or the recipe's "
+        "[subset] and [candidates], then run `refit fit` again")

@@ -16,11 +16,15 @@ from refit.cli.common import guarded
 @click.option("--init", "create", is_flag=True,
               help="Start a new registry if REGISTRY is missing or empty.")
 @click.option("--dry-run", is_flag=True, help="Say which version it would be; write nothing.")
+@click.option("--sign", "sign", default=None, metavar="KEYFILE",
+              type=click.Path(dir_okay=False, path_type=str),
+              help="Sign the published file with this Ed25519 private key (made by `refit "
+                   "keygen`); the signature lands beside it as <version>.json.sig.")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Report for people (text) or programs (json).")
 @guarded
 def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_run: bool,
-            fmt: str) -> None:
+            sign: str | None, fmt: str) -> None:
     """Publish CANDIDATE (a run's fits/<candidate>.json) into REGISTRY.
 
     Writes REGISTRY/<function_id>/<version>.json (read-only, never replaced) and adds it to
@@ -38,12 +42,14 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
     Examples:
       refit publish runs/bk/fits/linear__ols__inverse__analytic.json --to registry --init
       refit publish runs/bk2/fits/linear__ols__inverse__analytic.json --to registry --bump major
+      refit publish runs/bk/fits/linear__ols__inverse__analytic.json --to registry --sign lab.key
     """
     import json
 
     from refit.publish.registry import publish as run_publish
 
-    result = run_publish(candidate, registry, bump=bump, create=create, dry_run=dry_run)
+    result = run_publish(candidate, registry, bump=bump, create=create, dry_run=dry_run,
+                         sign=sign)
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
         return
@@ -61,3 +67,5 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
             if result.changes.get(kind):
                 click.echo(f"  {kind} changes: {', '.join(result.changes[kind])}")
     click.echo(f"  sha256 {result.sha256}")
+    if sign and not dry_run:
+        click.echo(f"  signed: {result.path.name}.sig")

@@ -14,17 +14,25 @@ from refit.cli.common import guarded
                     "from the recorded dataset version and compare."))
 @click.option("--tolerance", type=click.FloatRange(min=0), default=1e-9, show_default=True,
               help="Largest difference allowed when refitting (relative above 1).")
+@click.option("--trust", "trust", multiple=True, metavar="PUBKEYFILE",
+              type=click.Path(dir_okay=False, path_type=str),
+              help="Also require a signature by this Ed25519 public key (KEYFILE.pub from "
+                   "`refit keygen`; repeatable: any of them).")
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Report for people (text) or programs (json).")
 @guarded
-def verify(target: str, store: str | None, tolerance: float, fmt: str) -> None:
+def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, ...],
+           fmt: str) -> None:
     """Check TARGET: a coefficient file, or a registry folder (every file and its index).
 
     A file must carry the sha256 of its content, be byte for byte as refit writes it and
     match the coefficient-file schema. With --store, the recorded dataset version is rebuilt
     from the store, the recorded subset and recipe settings are applied, the same equation
-    is refitted, and every fitted number must agree within the tolerance. For a registry,
-    index.json must agree with the files (versions, hashes); what disagrees is named.
+    is refitted and cross-validated again, and every fitted number, the valid domain and
+    the cross-validated skill must agree within the tolerance. For a registry, index.json
+    must agree with the files (versions, hashes) and each file with its own hash; what
+    disagrees is named. With --trust, each file must also carry a signature
+    (<file>.sig) by one of the trusted keys: only a signature tells who published a file.
 
     \b
     Exit codes: 0 every check passed, 1 a check failed (edited file, index disagrees,
@@ -34,21 +42,23 @@ def verify(target: str, store: str | None, tolerance: float, fmt: str) -> None:
     Examples:
       refit verify registry/map_from_bk_depth/1.0.0.json --store calib_demo/store
       refit verify registry
+      refit verify registry --trust lab.key.pub
     """
     import json
     from pathlib import Path
 
-    from refit.publish.verify import verify_file, verify_registry
+    from refit.publish.verify import trusted_keys, verify_file, verify_registry
 
+    keys = trusted_keys(trust) if trust else None
     path = Path(target)
     if path.is_dir():
         from refit.publish.registry import open_registry
 
         for message in open_registry(path).recovered:  # finish an interrupted publish
             click.echo(f"Note: {message}.", err=True)
-        report = verify_registry(path, store=store, tol=tolerance)
+        report = verify_registry(path, store=store, tol=tolerance, trust=keys)
     else:
-        report = verify_file(path, store=store, tol=tolerance)
+        report = verify_file(path, store=store, tol=tolerance, trust=keys)
     if fmt == "json":
         click.echo(json.dumps(report.to_dict(), indent=2, ensure_ascii=False))
     else:

@@ -65,9 +65,40 @@ def plain(value):
     return str(value)
 
 
+def non_finite_path(value, path: str = "$") -> str | None:
+    """The JSON path of the first NaN or infinite number in ``value`` (None if none)."""
+    stack = [(value, path)]
+    while stack:  # iterative: a deeply nested value cannot exhaust the recursion limit
+        item, where = stack.pop()
+        if isinstance(item, dict):
+            stack.extend((v, f"{where}.{k}") for k, v in reversed(list(item.items())))
+        elif isinstance(item, (list, tuple)):
+            stack.extend((v, f"{where}[{i}]") for i, v in reversed(list(enumerate(item))))
+        elif isinstance(item, (float, np.floating)) and not math.isfinite(item):
+            return where
+        elif isinstance(item, np.ndarray) and item.dtype.kind == "f" and \
+                not np.isfinite(item).all():
+            return where
+    return None
+
+
 def canonical_bytes(content: dict) -> bytes:
     """Canonical JSON bytes of ``content`` without its ``sha256`` key (keys sorted,
-    compact separators, UTF-8, no NaN)."""
+    compact separators, UTF-8).
+
+    The canonical form is one-to-one: a NaN or an infinite number is refused here, never
+    written as ``null`` (two contents that differ only there would share a hash).
+
+    Raises
+    ------
+    InvalidDataError
+        ``content`` holds a NaN or infinite number (its JSON path is named).
+    """
+    bad = non_finite_path(content)
+    if bad is not None:
+        raise InvalidDataError(f"{bad} is not a finite number; a coefficient file holds "
+                               "finite numbers only (null where there is none), so its "
+                               "hash is not computed: correct the value or use null")
     body = {k: v for k, v in plain(content).items() if k != "sha256"}
     return json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
                       allow_nan=False).encode("utf-8")
@@ -88,8 +119,15 @@ def with_hash(content: dict) -> dict:
 
 
 def dumps(content: dict) -> str:
-    """The file text: indented JSON (key order as built), newline at the end."""
-    return json.dumps(plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+    """The file text: JSON indented by one space, keys sorted, UTF-8 characters as they
+    are (no ``\\u`` escapes), newline at the end.
+
+    A function of the content alone (the same content has one spelling), so
+    :func:`check_bytes` can refuse any other spelling: an edit of whitespace, key order or
+    escapes is caught even though it leaves the content hash unchanged.
+    """
+    return json.dumps(plain(content), indent=1, sort_keys=True, ensure_ascii=False,
+                      allow_nan=False) + "\n"
 
 
 # ----------------------------------------------------------------------------- schema
@@ -249,8 +287,27 @@ _JSON_TYPES = {"list": "an array", "str": "a string", "int": "a number", "float"
                "bool": "true or false", "NoneType": "null"}
 
 
+#: The largest JSON number a coefficient file may hold (the largest finite double).
+_MAX_FLOAT = float(np.finfo(float).max)
+
+
 def _reject_constant(token: str):
     raise ValueError(f"{token} is not allowed in a coefficient file (use null)")
+
+
+def _finite_float(token: str) -> float:
+    value = float(token)
+    if not math.isfinite(value):
+        raise ValueError(f"the number {token[:40]} overflows to infinity; a coefficient file "
+                         "holds finite numbers only (use null)")
+    return value
+
+
+def _finite_int(token: str) -> int:
+    if len(token.lstrip("-")) > 309:
+        raise ValueError(f"the integer {token[:20]}... ({len(token)} digits) is beyond any "
+                         "finite number; a coefficient file holds finite numbers only")
+    return int(token)
 
 
 def read_bytes(path) -> bytes:
@@ -261,6 +318,11 @@ def read_bytes(path) -> bytes:
     UnreadableInputError
         The path does not exist, is a folder or cannot be read (exit code 2).
     """
+    import os
+
+    if not isinstance(path, (str, os.PathLike)) or not str(path):
+        raise UsageError(f"a coefficient file is named by a path (text or pathlib.Path); "
+                         f"got {type(path).__name__} {str(path)[:40]!r}")
     path = Path(path)
     try:
         return path.read_bytes()
@@ -288,7 +350,12 @@ def parse_bytes(raw: bytes, where) -> dict:
         raise InvalidDataError(f"{where}: the file is empty, not a coefficient file; take "
                                "it again from its registry or run")
     try:
-        content = json.loads(raw.decode("utf-8"), parse_constant=_reject_constant)
+        content = json.loads(raw.decode("utf-8"), parse_constant=_reject_constant,
+                             parse_float=_finite_float, parse_int=_finite_int)
+    except RecursionError:
+        raise InvalidDataError(f"{where}: the JSON is nested too deeply to be a coefficient "
+                               "file (a coefficient file nests a few levels); take it again "
+                               "from its registry or run") from None
     except UnicodeDecodeError as err:
         raise InvalidDataError(f"{where}: not UTF-8 text (byte {err.start}), not a "
                                "coefficient file; the file is damaged: take it again from "
@@ -311,8 +378,34 @@ def read_file(path) -> tuple[dict, bytes]:
     return parse_bytes(raw, str(path)), raw
 
 
+def check_bytes(raw: bytes, content: dict, where) -> None:
+    """Refuse bytes that are not exactly :func:`dumps` of their own content.
+
+    The content hash covers the numbers and texts; this covers the rest: whitespace, key
+    order, ``\\u`` escapes, line ends. refit writes only :func:`dumps` output, so any
+    other spelling of the same content was edited after refit wrote it.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming the first differing byte and its line.
+    """
+    want = dumps(content).encode("utf-8")
+    if raw == want:
+        return
+    at = next((i for i, (a, b) in enumerate(zip(raw, want)) if a != b),
+              min(len(raw), len(want)))
+    line = raw[:at].count(b"\n") + 1
+    raise InvalidDataError(
+        f"{where}: bytes check failed: the bytes differ from how refit writes this content "
+        f"(first at byte {at}, line {line}); the content hash still matches, but spaces, line "
+        "ends, key order or escapes were changed by hand or by another program: take the "
+        "file again from its registry or run")
+
+
 def read_record(path) -> dict:
-    """The one reader of coefficient files: read, parse, check the hash, then the schema.
+    """The one reader of coefficient files: read, parse, check the hash, the schema, then
+    the exact bytes (:func:`check_bytes`).
 
     Every command that takes a coefficient file (apply, compare, verify, diff, publish)
     and :func:`load` read it here, so the same bad file gets the same message and exit
@@ -324,10 +417,13 @@ def read_record(path) -> dict:
         The path does not exist, is a folder or cannot be read (exit code 2).
     InvalidDataError
         The file is empty, not UTF-8, not JSON or not a JSON object; its hash is missing
-        or does not match; unknown schema version or schema violation (exit code 1).
+        or does not match; unknown schema version or schema violation; the bytes are not
+        exactly as refit writes the content (exit code 1).
     """
-    content, _ = read_file(path)
-    return validate(content, where=str(path))
+    content, raw = read_file(path)
+    validate(content, where=str(path))
+    check_bytes(raw, content, str(path))
+    return content
 
 
 def write_record(content: dict, path) -> Path:
@@ -367,14 +463,24 @@ class Prediction:
                              "upper": self.upper, "flags": self.flags}, index=index)
 
 
+def _refuse_complex(values, names) -> None:
+    kind = getattr(getattr(values, "dtype", None), "kind", None)
+    if kind == "c" or isinstance(values, complex):
+        raise InvalidDataError(f"values for {names} are complex numbers; a measurement is "
+                               "a real number: pass the real values")
+
+
 def _values(values, names: list[str]) -> np.ndarray:
     """New values as an (m, k) float array; a mapping or DataFrame is read by column."""
     k = len(names)
+    _refuse_complex(values, names)
     if hasattr(values, "keys") and not isinstance(values, np.ndarray):
         missing = [n for n in names if n not in values]
         if missing:
             raise UsageError(f"values lack column(s) {missing}; the equation needs {names}")
         cols = [values[n] for n in names]
+        for c in cols:
+            _refuse_complex(c, names)
         try:
             return np.column_stack([np.atleast_1d(np.asarray(c, dtype=float)) for c in cols])
         except (TypeError, ValueError) as err:
@@ -389,6 +495,21 @@ def _values(values, names: list[str]) -> np.ndarray:
     if arr.ndim != 2 or arr.shape[1] != k:
         raise UsageError(f"values must have {k} column(s) ({names}); got shape {arr.shape}")
     return arr
+
+
+def _weights(weights, m: int) -> np.ndarray:
+    """Weights of ``m`` new observations: one number, or one per value."""
+    if weights is None:
+        return np.ones(m)
+    _refuse_complex(weights, "weights")
+    try:
+        w = np.asarray(weights, dtype=float)
+    except (TypeError, ValueError):
+        raise InvalidDataError(f"weights must be numbers; got {str(weights)[:60]}") from None
+    if w.ndim > 1 or (w.ndim == 1 and w.size not in (1, m)):
+        raise UsageError(f"weights must be one number or one per value ({m}); got "
+                         f"{w.size} in shape {w.shape}")
+    return np.broadcast_to(w.reshape(-1)[0] if w.size == 1 else w, (m,))
 
 
 @dataclass
@@ -445,11 +566,13 @@ class Equation:
         v = _values(values, self.predictor_names)
         if np.isinf(v).any():
             raise InvalidDataError("values hold infinite numbers; use finite values or NaN")
-        w0 = np.ones(v.shape[0]) if weights is None else np.broadcast_to(
-            np.asarray(weights, dtype=float), (v.shape[0],))
+        w0 = _weights(weights, v.shape[0])
         if not np.all(np.isfinite(w0) & (w0 > 0)):
             raise InvalidDataError("weights of new observations must be finite and > 0")
-        est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+        # values far outside the domain overflow to inf; the evaluator turns non-finite
+        # results into an empty estimate with a flag, so numpy's warning says nothing more
+        with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+            est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
         cautions = ()
         if iv["method"] in ("group-jackknife+", "group-cv+"):
             from refit.models.intervals.group_conformal import too_few_groups

@@ -127,7 +127,12 @@ def _centre_scale(x: np.ndarray, w: np.ndarray | None, intercept: bool):
         xc = x
     if w is not None:
         xc = xc * np.sqrt(w)[:, None]
-    scale = np.sqrt(np.einsum("ij,ij->j", xc, xc))
+    # the norm of each column, scaled by its largest entry first so the squares neither
+    # overflow (x ~ 1e154) nor underflow (x ~ 1e-300): a column is zero only if it is
+    big = np.max(np.abs(xc), axis=0) if xc.shape[0] else np.zeros(xc.shape[1])
+    safe = np.where(big > 0, big, 1.0)
+    unit = xc / safe
+    scale = np.where(big > 0, safe * np.sqrt(np.einsum("ij,ij->j", unit, unit)), 0.0)
     return xc, centre, scale
 
 
@@ -246,7 +251,7 @@ def _qr_slopes(z, scale, yz, names, intercept, rank_tol):
     bz = _solve_upper(r, qty)
     resid_z = yz - qmat @ qty
     rinv = _solve_upper(r, np.eye(q_dim))
-    cov_slopes = (rinv @ rinv.T) / np.outer(scale, scale)
+    cov_slopes = (rinv @ rinv.T) / scale[:, None] / scale[None, :]  # no overflow of s_i s_j
     return qmat, r, rinv, float(sv[0] / sv[-1]), resid_z, bz / scale, cov_slopes
 
 

@@ -30,6 +30,24 @@ def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
     return arr
 
 
+def _has_complex(values) -> bool:
+    """Whether ``values`` hold a complex number (numpy would drop its imaginary part)."""
+    kind = getattr(getattr(values, "dtype", None), "kind", None)
+    if kind is None:
+        try:
+            arr = np.asarray(values)
+        except (TypeError, ValueError):
+            arr = np.asarray(values, dtype=object)
+        kind = arr.dtype.kind
+        values = arr
+    if kind == "c":
+        return True
+    if kind == "O":
+        return any(isinstance(v, (complex, np.complexfloating))
+                   for v in np.asarray(values, dtype=object).ravel())
+    return False
+
+
 def _values_matrix(values, names: list[str]):
     """Fossil feature values as an (m, k) float array plus the index for the output."""
     import pandas as pd
@@ -43,6 +61,12 @@ def _values_matrix(values, names: list[str]):
             raise UsageError(f"values lack column(s) {missing}; the fit needs {names} "
                              f"(got {list(values.keys())})")
         cols = [values[n] for n in names]
+        if any(_has_complex(c) for c in cols):
+            raise InvalidDataError(f"values for {names} hold complex numbers; a measurement "
+                                   "is a real number: pass the real values")
+    elif _has_complex(values):
+        raise InvalidDataError(f"values for {names} hold complex numbers; a measurement is "
+                               "a real number: pass the real values")
     else:
         try:  # fast path: already numeric
             arr = _shape_values(np.asarray(values, dtype=float), names)

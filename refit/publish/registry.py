@@ -34,6 +34,7 @@ lands; if the two ever disagree (a crash between the writes, a hand edit),
 from __future__ import annotations
 
 import datetime as _dt
+import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -196,7 +197,7 @@ def plan_version(previous: dict | None, prev_version: str | None, candidate: dic
 
 def publish(candidate_path, registry, *, bump: str | None = None, create: bool = False,
             dry_run: bool = False, now: str | None = None,
-            lock_timeout: float = LOCK_TIMEOUT_S) -> PublishResult:
+            lock_timeout: float = LOCK_TIMEOUT_S, sign=None) -> PublishResult:
     """Publish a candidate coefficient file into a registry.
 
     Parameters
@@ -213,6 +214,9 @@ def publish(candidate_path, registry, *, bump: str | None = None, create: bool =
         Work out the version and changes; write nothing.
     now : str, optional
         ISO 8601 publication time for the index (default: now, UTC).
+    sign : str or Path, optional
+        An Ed25519 private key file (:func:`refit.publish.signing.new_key_pair`): the
+        file's bytes are signed and the signature lands beside it as ``<version>.json.sig``.
 
     Raises
     ------
@@ -224,6 +228,10 @@ def publish(candidate_path, registry, *, bump: str | None = None, create: bool =
     """
     if bump is not None and bump not in BUMPS:
         raise UsageError(f"--bump must be one of {', '.join(BUMPS)}; got {bump!r}")
+    if sign is not None:
+        from refit.publish.signing import load_private_key
+
+        load_private_key(sign)          # a bad key stops before anything is written
     candidate = read_record(candidate_path)
     fid = candidate.get("function_id")
     if not isinstance(fid, str) or not FUNCTION_ID.match(fid):
@@ -239,7 +247,7 @@ def publish(candidate_path, registry, *, bump: str | None = None, create: bool =
         reg = open_registry(registry, create=create, _held=True)   # re-read under the lock
         result, content = _plan(reg, candidate, candidate_path, bump, dry_run=False)
         result.recovered = first + reg.recovered
-        _land(reg, result, content, candidate_path, now)
+        _land(reg, result, content, candidate_path, now, sign)
     return result
 
 
@@ -266,11 +274,18 @@ def _plan(reg: Registry, candidate: dict, source, bump, *, dry_run: bool):
     return result, content
 
 
-def _land(reg: Registry, result: PublishResult, content: dict, source, now) -> None:
+def _land(reg: Registry, result: PublishResult, content: dict, source, now, sign) -> None:
     text = dumps(content)
+    signature = None
+    if sign is not None:
+        from refit.publish.signing import signature_text
+
+        signature = signature_text(text.encode("utf-8"), result.path.name, sign)
     entry = {"version": result.version, "file": f"{result.function_id}/{result.version}.json",
              "published": now or _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
              "sha256": result.sha256, "file_sha256": sha256_bytes(text.encode("utf-8")),
              "bump": result.bump, "previous": result.previous,
              "changes": result.changes, "source_file": Path(source).name}
-    commit(reg, result.function_id, result.path, text, entry)
+    if signature is not None:
+        entry["signed_by"] = json.loads(signature)["key_id"]
+    commit(reg, result.function_id, result.path, text, entry, signature)

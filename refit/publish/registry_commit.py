@@ -5,7 +5,8 @@ Used by :mod:`refit.publish.registry` (which re-exports :data:`PENDING`,
 (:mod:`refit.publish.registry_layout`). A publish holds ``REGISTRY/.lock`` and then
 
 1. writes the new index entry to the journal ``REGISTRY/.publishing.json``;
-2. writes the coefficient file (atomically) and makes it read-only;
+2. writes the signature ``<version>.json.sig`` if the publish is signed, then the
+   coefficient file (atomically), and makes them read-only;
 3. rewrites ``index.json`` (atomically) with the entry added;
 4. removes the journal.
 
@@ -37,7 +38,13 @@ class RegistryLock:
     def __init__(self, folder: Path, timeout: float):
         from filelock import FileLock
 
-        folder.mkdir(parents=True, exist_ok=True)
+        from refit.errors import UnreadableInputError
+
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise UnreadableInputError(f"registry {folder} cannot be created ({exc.strerror}); "
+                                       "choose a writable place for it") from None
         self.folder = folder
         self.lock = FileLock(str(folder / LOCK_FILE), timeout=timeout)
 
@@ -48,6 +55,13 @@ class RegistryLock:
 
         try:
             self.lock.acquire()
+        except OSError as exc:  # a read-only registry, or not a folder where the lock goes
+            from refit.errors import UnreadableInputError
+
+            raise UnreadableInputError(
+                f"registry {self.folder} cannot be written ({exc.strerror or exc}: "
+                f"{self.folder / LOCK_FILE}); a publish needs a writable registry: check its "
+                "permissions, or use --dry-run to see what would be published") from None
         except Timeout:
             raise StoreBusyError(f"registry {self.folder} is busy: another refit process "
                                  "holds its lock; wait for it to finish, then run the "
@@ -86,13 +100,18 @@ def write_index(reg) -> None:
     write_text_atomic(reg.path / INDEX, text)
 
 
-def commit(reg, function_id: str, target: Path, text: str, entry: dict) -> None:
+def commit(reg, function_id: str, target: Path, text: str, entry: dict,
+           signature: str | None = None) -> None:
     """Land one published file and its index entry (steps 1-4 of the module docstring).
 
     The caller holds the lock; ``reg`` is the registry opened under it.
     """
     journal = {"function_id": function_id, "entry": entry}
     write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
+    if signature is not None:
+        sig = target.parent / (target.name + ".sig")
+        write_text_atomic(sig, signature)
+        os.chmod(sig, 0o444)
     write_text_atomic(target, text)
     os.chmod(target, 0o444)
     reg.index.setdefault("format", INDEX_FORMAT)
@@ -155,4 +174,6 @@ def _replay_journal(path: Path, marker: Path) -> list[str]:
         reg.index["functions"].setdefault(fid, []).append(entry)
         write_index(reg)
         return [f"{what}: its file had landed, so it was added to {INDEX}"]
+    if not target.exists():   # a signature written before its file landed goes too
+        (target.parent / (target.name + ".sig")).unlink(missing_ok=True)
     return [f"{what}: its file had not landed, so it was undone"]

@@ -33,10 +33,9 @@ def function_problems(reg, function_id: str) -> list[str]:
 
 
 def _entry_problems(reg, fid: str, entry: dict) -> list[str]:
-    path = reg.file(fid, entry["version"])
     rel = f"{fid}/{entry['version']}.json"
     try:
-        content, raw = read_file(path)
+        content, raw = read_file(reg.file(fid, entry["version"]))
     except RefitError as exc:
         return [f"{rel}: {exc}"]
     out = []

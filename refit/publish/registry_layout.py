@@ -60,7 +60,27 @@ class Registry:
                                    "lower case letters, digits and '_'; the index was edited "
                                    "outside refit: restore it")
         parse_version(version, where=f"{self.path / INDEX}: {function_id} version")
-        return self.path / function_id / f"{version}.json"
+        target = self.path / function_id / f"{version}.json"
+        check_inside(self.path, target)
+        return target
+
+
+def check_inside(registry: Path, target: Path) -> None:
+    """Refuse a registry path that a symbolic link leads outside the registry.
+
+    Raises
+    ------
+    InvalidDataError
+        Naming the path and where it really leads.
+    """
+    from refit._util.paths import outside
+
+    real = outside(registry, target)
+    if real is not None:
+        raise InvalidDataError(f"{target}: a symbolic link leads it outside the registry "
+                               f"{registry}, to {real}; a registry's files live in its "
+                               "folder: replace the link by the file (or restore the "
+                               "registry from a copy)")
 
 
 def empty_index() -> dict:
@@ -99,8 +119,12 @@ def read_index(path, create: bool = False) -> Registry:
             f"{path} is not a refit registry (no {INDEX}); "
             + ("the folder is not empty, choose another" if create else
                "check the path, or pass --init to start a new registry in an empty folder"))
+    check_inside(path, index_path)
     try:
         index = json.loads(index_path.read_text("utf-8"))
+    except RecursionError:
+        raise UnreadableInputError(f"{index_path}: the registry index is nested too deeply "
+                                   "to be one; restore it from a copy") from None
     except (OSError, UnicodeDecodeError, ValueError) as exc:
         raise UnreadableInputError(f"{index_path}: cannot read the registry index ({exc}); "
                                    "run `refit verify` on the registry to see what "
@@ -108,4 +132,30 @@ def read_index(path, create: bool = False) -> Registry:
     if not isinstance(index, dict) or not isinstance(index.get("functions"), dict):
         raise UnreadableInputError(f"{index_path}: not a refit registry index (no "
                                    "'functions' object)")
+    problem = index_shape_problem(index)
+    if problem:
+        raise UnreadableInputError(f"{index_path}: not a refit registry index: {problem}; "
+                                   "it was edited outside refit: restore it from a copy")
     return Registry(path, index)
+
+
+#: Index entry fields that must be text when present.
+_ENTRY_TEXT = ("version", "file", "published", "sha256", "file_sha256", "bump", "previous",
+               "source_file")
+
+
+def index_shape_problem(index: dict) -> str | None:
+    """What is wrong with the shape of an index (None when every entry is an object with a
+    text ``version``, as :func:`refit.publish.registry_commit.commit` writes them)."""
+    for fid, entries in index["functions"].items():
+        if not isinstance(entries, list):
+            return f"'functions.{fid}' must be a list of versions; found {type(entries).__name__}"
+        for i, entry in enumerate(entries):
+            if not isinstance(entry, dict) or not isinstance(entry.get("version"), str):
+                return (f"'functions.{fid}[{i}]' must be an object with a text 'version'; "
+                        f"found {str(entry)[:60]}")
+            bad = [k for k in _ENTRY_TEXT if k in entry and entry[k] is not None
+                   and not isinstance(entry[k], str)]
+            if bad:
+                return f"'functions.{fid}[{i}].{bad[0]}' must be text"
+    return None

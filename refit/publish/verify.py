@@ -81,7 +81,7 @@ class VerifyReport:
 
 
 # ----------------------------------------------------------------------------- one file
-def verify_file(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
+def verify_file(path, *, store=None, tol: float = TOLERANCE, trust=None) -> VerifyReport:
     """Check a coefficient file (see the module docstring).
 
     Raises
@@ -95,6 +95,8 @@ def verify_file(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
 
     content, raw = read_file(path)
     report = VerifyReport(str(path), integrity_checks(content, raw, str(path)))
+    if trust is not None:
+        report.checks.append(signature_check(path, raw, trust))
     if store is not None and report.ok:
         report.checks.append(reproduce_check(content, store, tol=tol, name=str(path)))
     return report
@@ -109,12 +111,12 @@ def verify_bytes(raw: bytes, name: str = "<bytes>") -> VerifyReport:
 
 def integrity_checks(content: dict, raw: bytes, name: str) -> list:
     """``sha256``, ``schema``, ``bytes`` in order, stopping at the first failure."""
-    from refit.coefficients.format import check_content_hash, check_schema, dumps
+    from refit.coefficients.format import check_bytes, check_content_hash, check_schema
 
     steps = (("sha256", lambda: check_content_hash(content, name),
               f"content hash matches ({str(content.get('sha256'))[:12]}...)"),
              ("schema", lambda: check_schema(content, name), "schema valid"),
-             ("bytes", lambda: _same_bytes(raw, dumps(content), name),
+             ("bytes", lambda: check_bytes(raw, content, name),
               "bytes are exactly as refit writes this content"))
     checks = []
     for check, fn, ok_message in steps:
@@ -127,16 +129,22 @@ def integrity_checks(content: dict, raw: bytes, name: str) -> list:
     return checks
 
 
-def _same_bytes(raw: bytes, text: str, path) -> None:
-    want = text.encode("utf-8")
-    if raw == want:
-        return
-    at = next((i for i, (a, b) in enumerate(zip(raw, want)) if a != b), min(len(raw), len(want)))
-    line = raw[:at].count(b"\n") + 1
-    raise InvalidDataError(
-        f"{path}: the bytes differ from how refit writes this content (first at byte {at}, "
-        f"line {line}); the content hash still matches, so the numbers are intact, but the "
-        "file was edited by hand or re-formatted; take it again from its registry")
+def signature_check(path, raw: bytes, trust: list) -> Check:
+    """``signature``: the file's bytes are signed by one of the trusted public keys
+    (:func:`refit.publish.signing.check_signature`)."""
+    from refit.publish.signing import check_signature
+
+    try:
+        return Check("signature", True, check_signature(path, raw, trust), str(path))
+    except InvalidDataError as exc:
+        return Check("signature", False, str(exc), str(path))
+
+
+def trusted_keys(paths) -> list:
+    """The Ed25519 public keys in ``paths`` (PEM files), for ``trust=``."""
+    from refit.publish.signing import load_public_key
+
+    return [load_public_key(p) for p in paths]
 
 
 # ----------------------------------------------------------------------------- reproduce
@@ -152,8 +160,9 @@ def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str =
         return Check("reproduce", False, f"{name}: the refit does not reproduce the file "
                      f"(tolerance {tol:g}): {shown}{more}", name)
     return Check("reproduce", True, f"refitted from {data.source.describe()} "
-                 f"({len(data.frame)} rows after the subset): every fitted number "
-                 f"agrees within {tol:g}", name)
+                 f"({len(data.frame)} rows after the subset): every fitted number, the valid "
+                 f"domain and the cross-validated skill "
+                 f"agree within {tol:g}", name)
 
 
 def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool = False):
@@ -177,8 +186,39 @@ def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool
     from refit.validate.refits import refit_record
 
     data, fit = refit_record(content, store_dir)
-    diffs = compare(content, refitted_numbers(fit, content, data.recipe), tol)
+    numbers = refitted_numbers(fit, content, data.recipe)
+    numbers.update(recomputed_domain_and_skill(content, data, fit))
+    diffs = compare(content, numbers, tol)
     return diffs, (data if details else len(data.frame))
+
+
+def recomputed_domain_and_skill(content: dict, data, fit) -> dict:
+    """The file's valid ranges, domain block and cross-validated skill, computed again.
+
+    ``predictors`` (names with ``valid_min``/``valid_max``: the range the extrapolation
+    flag tests), ``domain`` (ranges, turning point, broken-stick comparison) from the
+    refitted :class:`refit.models.fitting.Fit`; ``cv`` (coverage, RMSEP, bias, interval
+    score, ... and random k-fold's) by cross-validating again with the recorded scheme and
+    seed (:func:`refit.validate.runfolder.recompute_cv`). A file without a ``cv`` block
+    (none was recorded) is compared on its domain only.
+    """
+    from refit import coefficients as co
+    from refit.errors import InvalidDataError
+
+    out = {"predictors": [{"name": p, "valid_min": fit.ranges[p][0],
+                           "valid_max": fit.ranges[p][1]} for p in fit.predictors]}
+    try:
+        dom = fit.domain
+    except InvalidDataError:   # too few rows for the broken-stick comparison
+        dom = None
+    if dom is not None:
+        out["domain"] = dom.to_dict() | {"data_side": int(dom.data_side)}
+    if isinstance(content.get("cv"), dict):
+        from refit.validate.runfolder import recompute_cv
+
+        cv = recompute_cv(content, data)
+        out["cv"] = {k: cv.get(k) for k in content["cv"] if k != "file_interval_note"}
+    return co.plain(out)
 
 
 def recipe_from_record(content: dict):
@@ -278,9 +318,10 @@ def _number(v) -> bool:
 
 
 # ----------------------------------------------------------------------------- a registry
-def verify_registry(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport:
+def verify_registry(path, *, store=None, tol: float = TOLERANCE, trust=None) -> VerifyReport:
     """Index consistency of a registry, then :func:`verify_file` on every file in it."""
     from refit.publish.registry import open_registry, registry_problems
+    from refit.publish.registry_layout import check_inside
 
     reg = open_registry(path)
     report = VerifyReport(str(path))
@@ -292,7 +333,8 @@ def verify_registry(path, *, store=None, tol: float = TOLERANCE) -> VerifyReport
                                    str(reg.path / "index.json")))
     for file in sorted(reg.path.glob("*/*.json")):
         try:
-            sub = verify_file(file, store=store, tol=tol)
+            check_inside(reg.path, file)
+            sub = verify_file(file, store=store, tol=tol, trust=trust)
         except RefitError as exc:  # unreadable, or not a coefficient file at all
             report.checks.append(Check("read", False, str(exc), str(file)))
             continue

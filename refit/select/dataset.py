@@ -134,9 +134,17 @@ def select(recipe: Recipe, frame, source: str) -> SubsetResult:
 def _open_store(path: Path, where: str, fix: str):
     from refit.curate.store import open_store
 
+    from refit._util.paths import outside
+
     if not (path / "manifest.json").is_file():
         raise UnreadableInputError(f"{where}store {str(path)!r} is not found or is not a refit "
                                    f"store (no manifest.json); {fix}")
+    for name in ("manifest.json", "records.csv"):
+        real = outside(path, path / name)
+        if real is not None:
+            raise InvalidDataError(f"{where}store {str(path)!r}: {name} is a symbolic link "
+                                   f"that leads outside the store, to {real}; a store's "
+                                   "files live in its folder: replace the link by the file")
     return open_store(path)
 
 

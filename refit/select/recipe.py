@@ -35,6 +35,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from refit._util.paths import outside
 from refit.errors import InvalidDataError, RefitError, UnreadableInputError, UsageError
 from refit.select.defaults import resolve
 from refit.select.values import Values, suggest  # noqa: F401  (suggest: public here too)
@@ -52,6 +53,13 @@ SECTIONS = {
 }
 FORMS = ("linear", "quadratic", "cubic", "exponential")  # plus polynomial-N
 MAX_DEGREE = 6
+#: Limits of recipe sizes (README, "Recipes"): each one well above any real use, so a
+#: typo (repeats = 100000000) stops at once instead of running for days.
+MAX_FOLDS = 1_000
+MAX_REPEATS = 1_000
+#: Seeds are 0 .. 2**32 - 1, the range numpy's legacy generators and scikit-learn's
+#: random_state accept (common practice), so one seed drives every random step.
+MAX_SEED = 2**32 - 1
 ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
 DIRECTIONS = ("inverse", "forward")
 from refit.models.intervals.group_conformal import GROUP_INTERVALS as GROUP_METHODS  # noqa: E402
@@ -286,10 +294,12 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
         directions=v.list_of("candidates.directions", cand.get("directions", ["inverse"]),
                              DIRECTIONS),
         scheme=scheme,
-        folds=v.integer("validation.folds", val.get("folds", 5), minimum=2),
-        repeats=v.integer("validation.repeats", val.get("repeats", 1), minimum=1),
+        folds=v.integer("validation.folds", val.get("folds", 5), minimum=2,
+                        maximum=MAX_FOLDS),
+        repeats=v.integer("validation.repeats", val.get("repeats", 1), minimum=1,
+                          maximum=MAX_REPEATS),
         groups=groups,
-        seed=v.integer("validation.seed", val.get("seed", 0), minimum=0),
+        seed=v.integer("validation.seed", val.get("seed", 0), minimum=0, maximum=MAX_SEED),
         level=v.level("intervals.level", ivl.get("level", 0.95)),
         methods=methods, lines=lines, defaults=tuple(notes),
         **_extras(v, doc, scheme, store, path, lines),
@@ -303,7 +313,7 @@ def _extras(v, doc: dict, scheme: str, store, path: Path, lines: dict) -> dict:
            if k in fn}
     version = data.get("version", "latest")
     if version != "latest":
-        out["version"] = v.integer("data.version", version, minimum=1)
+        out["version"] = v.integer("data.version", version, minimum=1, maximum=2**31 - 1)
         if store is None:
             raise UsageError(f"{_where(path, lines, 'data.version')}: [data] version pins a "
                              "store's dataset version; a table has no versions (name a store, "
@@ -396,6 +406,13 @@ def _data_paths(data: dict, path: Path, lines: dict):
             "other files. Put the recipe in the folder that holds the data, or copy the data "
             "next to it")
     full = (path.parent / value).resolve()
+    real = outside(folder, full)
+    if real is not None:
+        raise UsageError(
+            f"{_where(path, lines, f'data.{key}')}: [data] {key} = {value!r} is a symbolic "
+            f"link (or lies under one) that leads outside the recipe's folder, to {real}; a "
+            "recipe may only name data inside its own folder. Name data elsewhere on the "
+            f"command line instead: refit fit {path.name} --{key} PATH")
     return (full, None) if key == "table" else (None, full)
 
 

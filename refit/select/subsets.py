@@ -22,6 +22,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from refit.errors import InvalidDataError, UsageError
+from refit.select.values import shown
+
+#: Most values a one-of filter may list (README, "Recipes"; e.g. profile ids).
+MAX_ONE_OF = 10_000
 
 EXTRA_ROWS = 2  # rows beyond the coefficient count for a fit worth cross-validating
 
@@ -101,7 +105,10 @@ def parse_filter(column: str, value, *, where: str = "", line: int | None = None
     if isinstance(value, list):
         if not value or not all(_scalar(v) for v in value):
             raise UsageError(f"{head} must list at least one text or number, e.g. "
-                             f"{column} = [\"a\", \"b\"]; got {value!r}")
+                             f"{column} = [\"a\", \"b\"]; got {shown(value)}")
+        if len(value) > MAX_ONE_OF:
+            raise UsageError(f"{head} lists {len(value):,} values; refit's limit is "
+                             f"{MAX_ONE_OF:,}: filter on a column that groups them instead")
         return Filter(column, "one-of", tuple(value), where, line)
     if isinstance(value, dict):
         unknown = sorted(set(value) - {"min", "max"})
@@ -112,14 +119,14 @@ def parse_filter(column: str, value, *, where: str = "", line: int | None = None
             raise UsageError(f"{head}: the range names neither min nor max")
         for k, v in value.items():
             if not _number(v):
-                raise UsageError(f"{head}: {k} must be a number; got {v!r}")
+                raise UsageError(f"{head}: {k} must be a number; got {shown(v)}")
         lo, hi = value.get("min"), value.get("max")
         if lo is not None and hi is not None and lo > hi:
             raise UsageError(f"{head}: min ({lo}) is larger than max ({hi})")
         return Filter(column, "range", (lo, hi), where, line)
     raise UsageError(f"{head} must be a value (\"loess\" or 5), a list of values "
                      f"([\"grassland\", \"savanna\"]) or a range ({{ min = 5, max = 40 }}); "
-                     f"got {value!r}")
+                     f"got {shown(value)}")
 
 
 # ----------------------------------------------------------------------------- applying

@@ -7,6 +7,20 @@ from pathlib import Path
 
 from refit.errors import UsageError
 
+#: Longest list a recipe key may hold (forms, estimators, methods, predictors, ...).
+MAX_ITEMS = 64
+#: Characters of an offending value quoted in a message.
+SHOWN_CHARS = 80
+
+
+def shown(value) -> str:
+    """``repr(value)`` cut to :data:`SHOWN_CHARS` characters, saying how long it was."""
+    text = repr(value)
+    if len(text) <= SHOWN_CHARS:
+        return text
+    size = f"{len(value):,} items, " if isinstance(value, (list, tuple, dict)) else ""
+    return f"{text[:SHOWN_CHARS]}... ({size}{len(text):,} characters)"
+
 
 def where(path: Path, lines: dict, key: str) -> str:
     """``"recipe.toml, line 12"`` for a ``section.key`` (or the file alone)."""
@@ -29,7 +43,12 @@ class Values:
     def fail(self, key: str, what: str, value):
         section, name = key.split(".", 1)
         raise UsageError(f"{where(self.path, self.lines, key)}: [{section}] {name} must be "
-                         f"{what}; got {value!r}")
+                         f"{what}; got {shown(value)}")
+
+    def not_too_long(self, key, items) -> None:
+        if isinstance(items, list) and len(items) > MAX_ITEMS:
+            self.fail(key, f"a list of at most {MAX_ITEMS} items (refit's limit; found "
+                      f"{len(items):,})", items)
 
     def string(self, key, value) -> str:
         if not isinstance(value, str) or not value.strip():
@@ -40,6 +59,7 @@ class Values:
         items = [value] if isinstance(value, str) else value
         if not isinstance(items, list) or not items:
             self.fail(key, "a column name or a list of column names", value)
+        self.not_too_long(key, items)
         out = tuple(self.string(key, v) for v in items)
         if len(set(out)) != len(out):
             self.fail(key, "a list without repeats", value)
@@ -56,18 +76,21 @@ class Values:
         ok = valid or (lambda s: s in choices)
         if not isinstance(items, list) or not items:
             self.fail(key, "a non-empty list", value)
+        self.not_too_long(key, items)
         for item in items:
             if not isinstance(item, str) or not ok(item):
                 listed = ", ".join(map(repr, choices)) + (f", {extra}" if extra else "")
-                self.fail(key, f"a list of: {listed}; {item!r} is not one of them"
+                self.fail(key, f"a list of: {listed}; {shown(item)} is not one of them"
                           + suggest(item, choices), value)
         if len(set(items)) != len(items):
             self.fail(key, "a list without repeats", value)
         return tuple(items)
 
-    def integer(self, key, value, *, minimum: int) -> int:
-        if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
-            self.fail(key, f"a whole number >= {minimum}", value)
+    def integer(self, key, value, *, minimum: int, maximum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) \
+                or not minimum <= value <= maximum:
+            self.fail(key, f"a whole number >= {minimum} and <= {maximum:,} (refit's "
+                      "limit)", value)
         return int(value)
 
     def level(self, key, value) -> float:

@@ -24,7 +24,7 @@ import shutil
 from pathlib import Path
 
 from refit._util.atomic import TMP_PREFIX, fsync_dir, write_text_atomic
-from refit.coefficients import CAUTION, plain
+from refit.coefficients import CAUTION, dumps, plain
 from refit.coefficients.build import fit_record
 from refit.errors import UsageError
 from refit.validate.crossval import GROUP_CV_FOLDS
@@ -74,6 +74,36 @@ def cv_summary(res: dict) -> dict:
     if kfold is not None:
         out["random_kfold"] = {**_scheme_dict(kfold.scheme), **kfold.metrics}
     return out
+
+
+def recompute_cv(content: dict, data) -> dict:
+    """The ``cv`` block of a coefficient record, computed again from rebuilt data.
+
+    ``data`` is the :class:`refit.select.dataset.Dataset` that
+    :func:`refit.validate.refits.refit_record` rebuilt from the record. The record's
+    recipe (scheme, folds, repeats, seed, level; a fit with groups: its groups column and
+    random slope) drives the same splits and the same out-of-fold predictions as the run,
+    so every number agrees with the file's when nothing was edited (``refit verify
+    --store``). The ``file_interval_note`` text, which no computation makes, is kept.
+    """
+
+    from refit.validate.candidates import _make_splits, _one, schemes_for
+    from refit.validate.refits import (recorded_groups, recorded_random_slope,
+                                       spec_from_record)
+
+    frame = data.frame.reset_index(drop=True)
+    recipe = data.recipe
+    had_groups, column = recorded_groups(content)
+    if had_groups and column:
+        recipe = dataclasses.replace(recipe, groups=column,
+                                     random_slope=recorded_random_slope(content))
+    main, kfold = schemes_for(recipe, len(frame))
+    schemes = {"main": main, "kfold": kfold}
+    splits = {k: None if s is None else _make_splits(frame, s, recipe)
+              for k, s in schemes.items()}
+    _, _, res = _one(frame, recipe, spec_from_record(content), schemes, splits, 1,
+                     lambda label: None)
+    return plain(cv_summary(res))
 
 
 def _leaderboard_json(run) -> dict:
@@ -181,7 +211,7 @@ def write_run(run, out, *, argv=None, overwrite: bool = False) -> Path:
         write_text_atomic(stage / "oof_predictions.csv",
                           _oof_frame(run.matrix.predictions).to_csv(index=False))
         for name, rec in fit_records(run, created).items():
-            write_text_atomic(stage / "fits" / name, _dumps(rec))
+            write_text_atomic(stage / "fits" / name, dumps(rec))  # the one file spelling
         write_text_atomic(stage / "run.json", _dumps(_run_json(run, argv, created)))
         _swap_into_place(stage, out)
     except BaseException:

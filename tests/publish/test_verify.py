@@ -82,7 +82,8 @@ def test_layout_only_edit_is_named(scenario, tmp_path):
     assert [(c.name, c.ok) for c in report.checks] == [("sha256", True), ("schema", True),
                                                        ("bytes", False)]
     assert "content hash still matches" in report.checks[2].message
-    assert "line 3" in report.checks[2].message
+    line = raw[:raw.index(b'\n "function_id"') + 1].count(b"\n") + 1  # where the edit is
+    assert f"line {line})" in report.checks[2].message
 
 
 def test_edited_number_fails_hash_and_names_field(scenario, tmp_path):
