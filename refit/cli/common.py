@@ -284,6 +284,27 @@ def _scheme_text(s) -> str:
     return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
 
 
+def problem_block_lines(groups, max_blocks: int | None = None) -> list[str]:
+    """Text lines of grouped problems (:func:`refit.curate.problems.group_problems`): a
+    line locating each block (rule, column, value, count, rows), then its message once."""
+    import textwrap
+
+    lines = []
+    shown = groups if max_blocks is None else groups.head(max_blocks)
+    for g in shown.itertuples(index=False):
+        where = f"  [{g.rule}] {g.column}" if g.column else f"  [{g.rule}]"
+        if g.value:
+            where += f" = {g.value!r}"
+        if g.rows:
+            pid = f" ({g.profile_id})" if g.profile_id else ""
+            where += f": {plural(int(g.count), 'row')} {g.rows}{pid}"
+        lines.append(where)
+        lines += textwrap.wrap(str(g.message), width=96, initial_indent="      ",
+                               subsequent_indent="      ", break_long_words=False,
+                               break_on_hyphens=False)
+    return lines
+
+
 def render_admit(result) -> list[str]:
     """The text report of an admit, one line per item."""
     from pathlib import Path
