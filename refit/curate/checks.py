@@ -169,7 +169,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     vocab = load_vocabularies() if vocabularies is None else vocabularies
     desc = _schema.load_descriptor()
     work, probs = parse_cells(frame, rows, desc)
-    check_vocabularies(work, probs, vocab)
+    vocab_lines = check_vocabularies(work, probs, vocab)
     run_pandera(work, probs, desc)
     _check_climate(work, probs, desc)
     _check_cross_columns(work, probs, desc)
@@ -180,7 +180,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     out_frame = work.set_axis(frame.index, axis=0)
     return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
                        path=None if path is None else str(path),
-                       notes=list(notes or []), source_rows=rows)
+                       notes=list(notes or []) + vocab_lines, source_rows=rows)
 
 
 def _check_climate(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
