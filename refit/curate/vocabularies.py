@@ -208,7 +208,10 @@ def check_vocabularies(work: pd.DataFrame, probs, vocab: dict) -> list[str]:
         synonyms = vocab.get(SYNONYMS, {}).get(name, {})
         canonical, variant, unknown = match_vocabulary(values, vocab[name], synonyms)
         loose = {vocab_key(t) for t in vocab[name]}
-        is_syn = variant & ~values.map(lambda v: isinstance(v, str) and vocab_key(v) in loose)
+        in_loose = np.array([isinstance(v, str) and vocab_key(v) in loose
+                             for v in values.unique()], dtype=bool)
+        lookup = dict(zip(values.unique(), in_loose))
+        is_syn = variant & ~values.map(lookup).astype(bool)
         if is_syn.any():
             pos = np.flatnonzero(is_syn.to_numpy())
             vals, canon = values.iloc[pos], canonical.iloc[pos]
