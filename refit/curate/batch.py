@@ -96,3 +96,68 @@ def _cell(value) -> str:
     if isinstance(value, (np.integer,)):
         return str(int(value))
     return str(value)
+
+
+def _refuse_readmit(store, table, again: bool) -> None:
+    """Stop when the file's sha256 is already in the changelog (unless ``again``)."""
+    earlier = [e for e in store.manifest.get("changelog", [])
+               if e.get("source_sha256") == table.sha256]
+    if not earlier or again:
+        return
+    e = earlier[-1]
+    what = ("an attempt that accepted nothing" if e.get("kind") == "attempt" else
+            f"version {e['version']}")
+    from refit.curate.store import AlreadyAdmittedError
+
+    raise AlreadyAdmittedError(
+        f"{table.path} was already admitted into {store.path}: the same file (sha256 "
+        f"{table.sha256[:12]}...) came in as {e.get('source_file')!r} on {e.get('date')} "
+        f"({what}: {e.get('accepted')} accepted, {e.get('rejected')} rejected). Nothing was "
+        "written; pass --again to admit it once more (its rows would then be caught as "
+        "duplicates of the stored ones).")
+
+
+def _screen(report, store, incoming, table, rejected, problems, units, accept_suspect):
+    """The consistency test of the rows not already rejected: (suspect mask, problems
+    with the suspects added, the AdmitResult fields it fills)."""
+    from refit.curate.columns import parse_column, unmapped_columns
+    from refit.curate.problems import PROBLEM_COLUMNS, group_problems
+    from refit.curate.slips import screen_batch
+    from refit.curate.units import column_origins
+
+    n = len(report.frame)
+    origins = column_origins(incoming.columns, parse_column)
+    confirmed = {origins_target for origins_target, (col, _) in origins.items()
+                 if col in units or origins_target in units}
+    suspects, notes = screen_batch(report.frame.reset_index(drop=True), store.records,
+                                   origins, confirmed, ~rejected, table.path,
+                                   table.source_rows)
+    suspect = np.zeros(n, dtype=bool)
+    rows = []
+    for item in suspects:
+        suspect[item["pos"]] = not accept_suspect
+        ids = report.frame["profile_id"] if "profile_id" in report.frame else None
+        rows.append({"severity": "warning" if accept_suspect else "suspect",
+                     "rule": "suspect-residual",
+                     "row": int(table.source_rows[item["pos"]]),
+                     "profile_id": None if ids is None else ids.iloc[item["pos"]],
+                     "column": item["column"], "value": f"{item['value']:g}",
+                     "message": item["message"],
+                     "file_column": origins.get(item["column"], (item["column"],))[0],
+                     "outcome": "admitted" if accept_suspect else "quarantined"})
+    held_rows = table.source_rows[suspect]
+    problems["outcome"] = np.where(problems["row"].isin(held_rows), "quarantined",
+                                   problems["outcome"])
+    if rows:
+        extra = pd.DataFrame(rows, columns=[*PROBLEM_COLUMNS, "file_column", "outcome"])
+        extra["row"] = extra["row"].astype("Int64")
+        problems = pd.concat([problems, extra], ignore_index=True)
+    unmapped = unmapped_columns(incoming.columns, "calibration")
+    quarantined = problems["outcome"] == "quarantined"
+    shown = problems[problems["row"].isna() | (quarantined & problems["severity"].isin(
+        ("error", "suspect"))) | (~quarantined & (problems["severity"] == "warning"))]
+    fields = {"suspect": int(suspect.sum()),
+              "suspect_accepted": len(suspects) if accept_suspect else 0,
+              "suspect_rows": suspects, "unmapped": unmapped, "consistency": notes,
+              "problem_groups": group_problems(shown).to_dict(orient="records")}
+    return suspect, problems, fields

@@ -32,7 +32,7 @@ Rules (``rule`` ids; severity error unless noted):
 ``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
 
 Plausibility rules (:mod:`refit.curate.plausibility`; each with its source and why it is a
-warning or an error): ``bk-too-shallow`` (warning), ``bk-in-hyperarid-climate``
+warning or an error): ``bk-too-shallow`` (error), ``bk-in-hyperarid-climate``
 (warning), ``map-below-bk-minimum`` (error), ``horizon-below-profile`` (error).
 ``sequence-*``       (warnings) see :mod:`refit.curate.sequences`
 ``no-rows``          (warning) a header without data rows

@@ -7,12 +7,13 @@ says *common practice* / *from memory*) and why it is a warning or an error:
 =========================  ========  ==========================================================
 rule                       severity  what and why
 =========================  ========  ==========================================================
-``bk-too-shallow``         warning   Bk top shallower than :data:`BK_MIN_DEPTH_CM` (2 cm). Common
-                                     practice: a calcic horizon under at least a thin A horizon;
-                                     the usual cause is a depth in metres (0.85 for 85 cm). A
-                                     warning because truncated (eroded) profiles can expose a
-                                     Bk; the consistency test of ``admit``
-                                     (:mod:`refit.curate.consistency`) catches the slip itself.
+``bk-too-shallow``         error     Bk top shallower than :data:`BK_MIN_DEPTH_CM` (2 cm). Common
+                                     practice: a calcic horizon lies under at least a thin A
+                                     horizon; the usual cause is a depth in metres (0.85 for
+                                     85 cm). An error by choice: MAP barely depends on depth
+                                     there, so the consistency test cannot see the slip, and a
+                                     truncated (eroded) profile, which can expose a Bk, is no
+                                     calibration soil anyway; the row goes to quarantine.
 ``bk-in-hyperarid-climate`` warning  a Bk with MAP below :data:`HYPERARID_MAP_MM` (100 mm).
                                      Hyperarid lands (aridity index below 0.05; UNEP 1992,
                                      World Atlas of Desertification) mostly receive under about
@@ -86,10 +87,10 @@ def plausibility_problems(work: pd.DataFrame, probs: Problems) -> None:
     """Run every plausibility rule of the module table on a checked frame."""
     bk, mapp = _num(work, "bk_depth_cm"), _num(work, "map_mm")
     pos = bk_too_shallow(work)
-    probs.add("warning", "bk-too-shallow", pos, "bk_depth_cm", fmt_values(bk.iloc[pos]),
+    probs.add("error", "bk-too-shallow", pos, "bk_depth_cm", fmt_values(bk.iloc[pos]),
               f"the Bk horizon starts less than {BK_MIN_DEPTH_CM:g} cm below the surface; "
               "a depth in metres (0.85 for 85 cm) or a misplaced decimal point is the usual "
-              "cause. Check the value and its unit; keep it if the profile is truncated.")
+              "cause. Check the value and its unit (e.g. 'Depth to Bk (m)').")
     pos = bk_in_hyperarid(work)
     probs.add("warning", "bk-in-hyperarid-climate", pos, "map_mm",
               fmt_values(mapp.iloc[pos]),
