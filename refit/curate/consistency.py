@@ -23,8 +23,8 @@ Regression*, ch. 2; the tests compare it with statsmodels' ``OLSInfluence``).
 - A **unit slip of a column** (the whole file in another unit than declared or assumed): the
   median ``|z|`` of the file's rows exceeds :data:`SLIP_MEDIAN_Z` while one other unit
   brings it under :data:`FITS_Z`; for columns outside the reference relationship, the
-  file's median is more than :data:`SLIP_RATIO` times off the store's and one unit factor
-  brings it within 1.5 times. Said once per file, with the evidence; the admit is refused
+  file's median is more than :data:`SLIP_RATIO` (3) times off the store's and one unit
+  factor brings it within 1.5 times. Said once per file, with the evidence; the admit is refused
   unless ``--unit COLUMN=UNIT`` confirms the unit.
 - **Mixed units in a column**: at least :data:`MIXED_MIN_ROWS` rows and
   :data:`MIXED_MIN_SHARE` of the rows fit only in one other unit: refused with those rows.
@@ -53,8 +53,11 @@ SUSPECT_Z = 3.5
 FITS_Z = 2.0
 #: A column slip: the file's median |z| above this while one other unit fits.
 SLIP_MEDIAN_Z = 2.5
-#: A column slip without a reference: the medians differ by more than this factor.
-SLIP_RATIO = 2.0
+#: A column slip without a reference: the medians differ by more than this factor (3, so
+#: that a regional batch, drier or wetter than the store, is not taken for inches vs cm:
+#: without a reference line only slips of 3x or more, e.g. mm vs cm, m vs cm, in vs mm,
+#: are seen from the medians).
+SLIP_RATIO = 3.0
 #: Mixed units: at least this many rows and this share of the rows fit only in one unit.
 MIXED_MIN_ROWS, MIXED_MIN_SHARE = 3, 0.2
 #: Units tried for each canonical unit (pint names).

@@ -67,6 +67,7 @@ def column_slips(frame, records, refs, origins, confirmed=()) -> list[dict]:
         if both.sum() < 5:
             continue
         now = np.median(np.abs(ref.z(x[both], y[both])))
+        done |= {ref.predictor, ref.response}  # judged by the line, not by the medians
         for column in (ref.predictor, ref.response):
             if column in confirmed or now <= cs.SLIP_MEDIAN_Z:
                 continue
@@ -76,7 +77,6 @@ def column_slips(frame, records, refs, origins, confirmed=()) -> list[dict]:
                 out.append(_slip(column, frame, records, origins, best[1], best[2],
                                  f"median |z| against {ref.describe()} is {now:.1f} as "
                                  f"declared and {best[0]:.1f} if in {cs.unit_label(best[1])}"))
-                done.add(column)
     for column in cs.SLIP_COLUMNS:
         if column in done or column in confirmed or column not in frame:
             continue

@@ -26,7 +26,7 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     assert result.exit_code == 0, result.output
     text = result.output
     # the accounting the issue asks for: rows read = accepted + rejected, where each went
-    assert "Rows read 40 = accepted 26 + rejected 14." in text
+    assert "Rows read 40 = accepted 26 + rejected 14 + suspect 0." in text
     for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
                  "7. Report", "Where everything went"):
         assert step in text
