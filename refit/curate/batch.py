@@ -129,22 +129,26 @@ def _screen(report, store, incoming, table, rejected, problems, units, accept_su
     origins = column_origins(incoming.columns, parse_column)
     confirmed = {origins_target for origins_target, (col, _) in origins.items()
                  if col in units or origins_target in units}
+    # every row is scored (a slip also trips range and plausibility errors: the score then
+    # says which unit the value fits in); only rows without errors count as suspect
     suspects, notes = screen_batch(report.frame.reset_index(drop=True), store.records,
-                                   origins, confirmed, ~rejected, table.path,
+                                   origins, confirmed, np.ones(n, dtype=bool), table.path,
                                    table.source_rows)
     suspect = np.zeros(n, dtype=bool)
     rows = []
     for item in suspects:
-        suspect[item["pos"]] = not accept_suspect
+        suspect[item["pos"]] = not accept_suspect and not rejected[item["pos"]]
         ids = report.frame["profile_id"] if "profile_id" in report.frame else None
-        rows.append({"severity": "warning" if accept_suspect else "suspect",
+        rows.append({"severity": "suspect" if suspect[item["pos"]] or rejected[item["pos"]]
+                     else "warning",
                      "rule": "suspect-residual",
                      "row": int(table.source_rows[item["pos"]]),
                      "profile_id": None if ids is None else ids.iloc[item["pos"]],
                      "column": item["column"], "value": f"{item['value']:g}",
                      "message": item["message"],
                      "file_column": origins.get(item["column"], (item["column"],))[0],
-                     "outcome": "admitted" if accept_suspect else "quarantined"})
+                     "outcome": "quarantined" if suspect[item["pos"]] or rejected[item["pos"]]
+                     else "admitted"})
     held_rows = table.source_rows[suspect]
     problems["outcome"] = np.where(problems["row"].isin(held_rows), "quarantined",
                                    problems["outcome"])
@@ -157,7 +161,8 @@ def _screen(report, store, incoming, table, rejected, problems, units, accept_su
     shown = problems[problems["row"].isna() | (quarantined & problems["severity"].isin(
         ("error", "suspect"))) | (~quarantined & (problems["severity"] == "warning"))]
     fields = {"suspect": int(suspect.sum()),
-              "suspect_accepted": len(suspects) if accept_suspect else 0,
+              "suspect_accepted": sum(not rejected[i["pos"]] for i in suspects)
+              if accept_suspect else 0,
               "suspect_rows": suspects, "unmapped": unmapped, "consistency": notes,
               "problem_groups": group_problems(shown).to_dict(orient="records")}
     return suspect, problems, fields
