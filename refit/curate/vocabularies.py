@@ -207,11 +207,12 @@ def check_vocabularies(work: pd.DataFrame, probs, vocab: dict) -> list[str]:
         values = work[name]
         synonyms = vocab.get(SYNONYMS, {}).get(name, {})
         canonical, variant, unknown = match_vocabulary(values, vocab[name], synonyms)
-        loose = {vocab_key(t) for t in vocab[name]}
-        in_loose = np.array([isinstance(v, str) and vocab_key(v) in loose
-                             for v in values.unique()], dtype=bool)
-        lookup = dict(zip(values.unique(), in_loose))
-        is_syn = variant & ~values.map(lookup).astype(bool)
+        is_syn = _false(values)
+        if variant.any() and synonyms:  # a synonym, not a spelling variant of a term
+            loose = {vocab_key(t) for t in vocab[name]}
+            syn_values = [v for v in values[variant].unique()
+                          if isinstance(v, str) and vocab_key(v) not in loose]
+            is_syn = values.isin(syn_values) if syn_values else is_syn
         if is_syn.any():
             pos = np.flatnonzero(is_syn.to_numpy())
             vals, canon = values.iloc[pos], canonical.iloc[pos]
