@@ -22,7 +22,7 @@ def records_bytes(frame: pd.DataFrame) -> bytes:
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(list(frame.columns))
-    writer.writerows(frame.itertuples(index=False, name=None))
+    writer.writerows(frame.to_numpy(dtype=object).tolist())
     return buf.getvalue().encode("utf-8")
 
 
