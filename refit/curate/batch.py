@@ -13,6 +13,13 @@ import io
 import numpy as np
 import pandas as pd
 
+from refit.errors import InvalidDataError
+
+
+class AlreadyAdmittedError(InvalidDataError):
+    """The file's SHA-256 is already in the store's changelog (exit code 1)."""
+
+
 #: Severities that hold a row back (quarantine).
 HOLDING = ("error", "suspect")
 
@@ -107,8 +114,6 @@ def _refuse_readmit(store, table, again: bool) -> None:
     e = earlier[-1]
     what = ("an attempt that accepted nothing" if e.get("kind") == "attempt" else
             f"version {e['version']}")
-    from refit.curate.store import AlreadyAdmittedError
-
     raise AlreadyAdmittedError(
         f"{table.path} was already admitted into {store.path}: the same file (sha256 "
         f"{table.sha256[:12]}...) came in as {e.get('source_file')!r} on {e.get('date')} "

@@ -19,9 +19,13 @@ from __future__ import annotations
 import difflib
 import functools
 import re
+from typing import TYPE_CHECKING
 
 from refit.curate import units as _units
 from refit.errors import UsageError
+
+if TYPE_CHECKING:  # pandas is imported inside the functions (fast `import`)
+    import pandas as pd
 
 KINDS = ("calibration", "fossil")
 #: Words that mark a column as a measurement SD or error (matched on the normalised key).
@@ -88,9 +92,8 @@ def parse_column(name: str, kind: str = "calibration") -> tuple[str, str | None]
         parsed = _units.parse_name(stripped) if stripped.strip() else None
         if parsed is None or _units._canonical_unit(parsed[0]) is None:
             return None
-        from refit.curate.fossils import sd_column
-
-        target = sd_column(parsed[0])
+        stem, _, unit = parsed[0].rpartition("_")  # as refit.curate.fossils.sd_column
+        target = f"{stem}_sd_{unit}"
         return (target, parsed[1]) if target in _fossil_names() else None
     parsed = _units.parse_name(raw)
     if parsed is not None and kind == "fossil" and parsed[0] == "profile_id":

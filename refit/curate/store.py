@@ -47,7 +47,7 @@ from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: 
     DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
 )
 from refit.curate.batch import (  # records_bytes re-exported: store API
-    records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
+    AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
 from refit.curate.store_commit import _commit, _locked, recover
 from refit.errors import InvalidDataError, UsageError
@@ -237,10 +237,6 @@ class AdmitResult:
 
     def to_dict(self) -> dict:
         return asdict(self)
-
-
-class AlreadyAdmittedError(InvalidDataError):
-    """The file's SHA-256 is already in the store's changelog (exit code 1)."""
 
 
 def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
