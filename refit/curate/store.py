@@ -46,7 +46,7 @@ from refit._util.atomic import TMP_PREFIX, sha256_bytes, sha256_file
 from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
     DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
 )
-from refit.curate.batch import (  # records_bytes re-exported: store API
+from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
 from refit.curate.store_commit import _commit, _locked, recover
