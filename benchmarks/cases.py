@@ -267,3 +267,71 @@ def python_and_refit() -> tuple[str, str]:
 
 import fitcases  # noqa: E402,F401  (registers fit, loo, jackknife+, bootstrap, evaluate, ...)
 import groupcases  # noqa: E402,F401  (registers grouped, newsource)
+
+
+# --------------------------------------------------------------------------- admit
+
+ADMIT_STORE_ROWS, ADMIT_BATCH_ROWS, ADMIT_LIMIT_S = 100_000, 10_000, 5.0
+
+
+def _admit_tables(ctx: Context) -> tuple[Path, Path]:
+    """A store of 10^5 generated soils (built once, cached) and a batch of 10^4 new ones
+    (ids renamed so they are new soils, not duplicate ids)."""
+    import os
+    import shutil
+
+    import pandas as pd
+
+    store = ctx.data_dir / f"admit_store_{ADMIT_STORE_ROWS}_{ctx.seed}"
+    batch = ctx.data_dir / f"admit_batch_{ADMIT_BATCH_ROWS}_{ctx.seed}.csv"
+    if not (store / "manifest.json").is_file():
+        base = datagen.ensure_table(ctx.data_dir, ADMIT_STORE_ROWS, seed=ctx.seed,
+                                    schemas_dir=REPO / "schemas")
+        shutil.rmtree(store, ignore_errors=True)
+        sys.path.insert(0, str(REPO))
+        from refit.curate.store import admit
+
+        admit(base, store, today="2026-12-01")
+    if not batch.is_file():
+        frame = datagen.generate_frame(ADMIT_BATCH_ROWS, seed=ctx.seed + 1)
+        frame["profile_id"] = "NEW" + frame["profile_id"].astype(str)
+        frame.to_csv(batch.with_suffix(".part"), index=False)
+        os.replace(batch.with_suffix(".part"), batch)
+    return store, batch
+
+
+@case("admit", "refit admit of 10^4 rows into a store of 10^5 (with the consistency test) "
+               "vs reading both tables with pandas and writing them back")
+def admit_batch(ctx: Context) -> CaseResult:
+    import shutil
+    import tempfile
+
+    result = CaseResult()
+    store, batch = _admit_tables(ctx)
+    work = Path(tempfile.mkdtemp(prefix="refit-bench-admit-"))
+    walls, naive_walls, codes = [], [], []
+    try:
+        for k in range(ctx.repeats_for(ADMIT_BATCH_ROWS)):
+            copy = work / f"store{k}"
+            shutil.copytree(store, copy)
+            run = measure.run_once([ctx.refit, "admit", str(batch), "--into", str(copy),
+                                    "--format", "json"])
+            walls.append(run.wall_s)
+            codes.append(run.returncode)
+            naive = measure.run_once([ctx.python, "-c", (
+                "import pandas as pd; a = pd.read_csv(%r, dtype=str); "
+                "b = pd.read_csv(%r, dtype=str); "
+                "pd.concat([a, b]).to_csv(%r, index=False)") % (
+                str(copy / "records.csv"), str(batch), str(work / "naive.csv"))])
+            naive_walls.append(naive.wall_s)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+    note = f"median of {len(walls)}" + ("" if all(c == 0 for c in codes) else
+                                        f"; EXIT {codes}")
+    refit_s, naive_s = statistics.median(walls), statistics.median(naive_walls)
+    result.rows.append(Row("admit", ADMIT_BATCH_ROWS, "refit admit BATCH --into STORE(10^5)",
+                           "pandas read both + concat + to_csv", refit_s, naive_s, note=note,
+                           refit_runs=walls, naive_runs=naive_walls))
+    result.targets.append(Target("`refit admit` 10^4 rows into 10^5 (consistency test)",
+                                 refit_s, ADMIT_LIMIT_S, "s"))
+    return result

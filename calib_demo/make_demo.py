@@ -353,7 +353,23 @@ BAD_ROWS = [
     ("oxide total above 101 wt%", "oxide-total",
      dict(zip(OXIDES, [72.4, 1.1, 17.8, 6.2, 0.12, 1.9, 2.1, 1.6, 2.4, 0.2]))),
     ("duplicated id within the file (both copies)", "unique-id", {"profile_id": "OST25-DUP"}),
+    # unit slips of single rows, caught against the store's reference line (admit only)
+    ("MAP typed in mm in the inches column (300)", "suspect-residual",
+     {"map_mm": 300 * 25.4, "bk_depth_cm": 25.4, "bk_thickness_cm": 40.64}),
+    ("Bk depth typed in cm in the inches column (150)", "suspect-residual",
+     {"map_mm": 740.0, "bk_depth_cm": 150 * 2.54, "bk_thickness_cm": 40.64}),
+    ("Bk depth typed in mm in the inches column (350)", "suspect-residual",
+     {"map_mm": 420.0, "bk_depth_cm": 350 * 2.54, "bk_thickness_cm": 40.64}),
+    ("Bk depth typed in metres in the inches column (0.6)", "bk-too-shallow",
+     {"map_mm": 500.0, "bk_depth_cm": 0.6 * 2.54, "bk_thickness_cm": 40.64}),
+    ("MAP of 5 mm with a Bk at 180 cm", "map-below-bk-minimum",
+     {"map_mm": 0.2 * 25.4, "mar_mm": 0.1 * 25.4, "bk_depth_cm": 180.0,
+      "bk_thickness_cm": 40.64}),
 ]
+#: Rows of BAD_ROWS that only warn and are admitted (labelled "demo: warning row - ...").
+ADMITTED_BAD_ROWS = ("Bk depth without a Bk thickness",)
+#: An incoming column that maps to no canonical column (listed by check and admit).
+UNMAPPED_HEADER = "Bk depth SD (in)"
 WARNING_ROW = ("Bk horizon above 760 mm MAP (warning only, admitted)",
                "carbonate-in-wet-climate")
 
@@ -399,7 +415,8 @@ def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:
         row = row.copy()
         changes = from_store[change] if isinstance(change, str) else pd.Series(change)
         row[changes.index] = changes.to_list()
-        row["notes"] = "demo: bad row - " + label
+        kind = "warning row" if label in ADMITTED_BAD_ROWS else "bad row"
+        row["notes"] = f"demo: {kind} - {label}"
         out += [row, row.copy()] if label.startswith("duplicated") else [row]
     return out
 
@@ -420,6 +437,9 @@ def to_spreadsheet(table: pd.DataFrame) -> pd.DataFrame:
                                 for v, keep in zip(values, exact)], index=table.index,
                                dtype=object)
         sheet[header] = values
+        if col == "bk_depth_cm":  # a measurement SD: a calibration table has no SD column
+            sheet[UNMAPPED_HEADER] = np.where(pd.to_numeric(table[col], errors="coerce")
+                                              .notna(), 1.5, np.nan)
     return pd.DataFrame(sheet)
 
 

@@ -170,15 +170,16 @@ def test_incoming_file_looks_like_a_spreadsheet_export():
 
 def test_incoming_labels_one_bad_row_per_kind(gen, tables):
     notes = tables["incoming_soils"]["Notes"].fillna("")
-    assert len(notes) == 40
+    assert len(notes) == 45
     bad = notes[notes.str.startswith("demo: bad row - ")].str.removeprefix("demo: bad row - ")
     counts = bad.value_counts().to_dict()
-    expected = {label: 1 for label, _, _ in gen.BAD_ROWS}
+    expected = {label: 1 for label, _, _ in gen.BAD_ROWS if label not in gen.ADMITTED_BAD_ROWS}
     expected["duplicated id within the file (both copies)"] = 2
     assert counts == expected
-    assert len(gen.BAD_ROWS) == 13
-    assert notes.str.startswith("demo: warning row").sum() == 1
+    assert len(gen.BAD_ROWS) == 18
+    assert notes.str.startswith("demo: warning row").sum() == 2
     assert (notes == "").sum() == 25
+    assert gen.UNMAPPED_HEADER in tables["incoming_soils"].columns
 
 
 def test_refit_check_flags_each_bad_row_for_its_reason(gen):
@@ -188,8 +189,9 @@ def test_refit_check_flags_each_bad_row_for_its_reason(gen):
     errors = report.errors
     rows = pd.Series(report.source_rows, index=report.frame.index)
     for label, rule, _ in gen.BAD_ROWS:
-        if rule.startswith("duplicate-"):
-            continue  # found by admit against the store, not by check
+        if rule.startswith("duplicate-") or rule == "suspect-residual" \
+                or label in gen.ADMITTED_BAD_ROWS:
+            continue  # found by admit against the store, not by check; or a warning
         where = notes.index[notes == "demo: bad row - " + label]
         got = errors[errors["row"].isin(rows[where])]
         assert set(got["rule"]) == {rule}, (label, got[["rule", "message"]].to_string())
@@ -197,9 +199,14 @@ def test_refit_check_flags_each_bad_row_for_its_reason(gen):
     erring = set(errors["row"].dropna().astype(int))
     clean = rows[~notes.str.startswith("demo: bad row")]
     assert not erring & set(clean), "a good row was reported as an error"
-    warned = report.warnings
-    assert list(warned["rule"]) == ["carbonate-in-wet-climate"]
-    assert notes[rows[rows == warned["row"].iloc[0]].index[0]].startswith("demo: warning row")
+    warned = report.warnings[report.warnings["row"].notna()]
+    assert set(warned["rule"]) == {"carbonate-in-wet-climate", "bk-depth-without-thickness"}
+    for r in warned["row"]:
+        note = notes[rows[rows == r].index[0]]
+        # the MAP typed in mm (7620 mm once converted from inches) also warns as wet
+        assert note.startswith("demo: warning row") or "MAP typed in mm" in note, note
+    unmapped = report.warnings[report.warnings["rule"] == "unmapped-column"]
+    assert set(unmapped["column"]) == {"region", gen.UNMAPPED_HEADER}
 
 
 # --- store and admit -------------------------------------------------------------------------
@@ -223,27 +230,43 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
     shutil.copytree(DEMO / "store", store)
     result = store_mod.admit(DEMO / "incoming_soils.csv", store, today="2026-12-02")
     after = store_mod.open_store(store)
-    assert result.rows_read == 40 and result.accepted == 26 and result.rejected == 14
+    assert (result.rows_read, result.accepted, result.rejected, result.suspect) == \
+        (45, 27, 15, 3)
     added = after.records.iloc[300:]
-    assert after.version == 2 and len(after.records) == 326
+    assert after.version == 2 and len(after.records) == 327
     notes = added["notes"].fillna("")
-    assert (notes == "").sum() == 25 and notes.str.startswith("demo: warning row").sum() == 1
-    assert result.warnings == {"carbonate-in-wet-climate": 1}
+    assert (notes == "").sum() == 25 and notes.str.startswith("demo: warning row").sum() == 2
+    probs = pd.read_csv(store / result.problems_file, keep_default_na=False)
+    admitted_warnings = probs[(probs["severity"] == "warning") & (probs["outcome"] == "admitted")]
+    assert sorted(admitted_warnings["rule"]) == ["bk-depth-without-thickness",
+                                                 "carbonate-in-wet-climate"]
+    # each single-row unit slip is suspect and the message names the unit it fits in
+    # (the MAP of 5 mm is scored too: rejected already, and no other unit makes it fit)
+    fits = {s["fits"] for s in result.suspect_rows}
+    assert fits == {"millimeter", "centimeter", None}
+    assert sum("fits if it is in mm" in s["message"] for s in result.suspect_rows) == 2
+    assert sum("fits if it is in cm" in s["message"] for s in result.suspect_rows) == 1
+    assert {u["column"] for u in result.unmapped} == {"region", gen.UNMAPPED_HEADER}
     # inches -> mm by the exact inch (NIST SP 811: 1 in = 25.4 mm): the warning row's 32.99 in
-    warned = added[notes.str.startswith("demo: warning row")].iloc[0]
+    warned = added[notes.str.startswith("demo: warning row - Bk horizon")].iloc[0]
     assert warned["map_mm"] == pytest.approx(32.99 * 25.4, abs=1e-9)
     reasons = _rejected_rules(store / result.quarantine_file, store / result.problems_file)
     for label, rule, _ in gen.BAD_ROWS:
+        if label in gen.ADMITTED_BAD_ROWS:
+            assert (added["notes"] == "demo: warning row - " + label).sum() == 1
+            continue
         mine = reasons[reasons["notes"] == "demo: bad row - " + label]
         assert len(mine) >= 1, label
-        assert all(r == {rule} for r in mine["rules"]), (label, mine["rules"].to_list())
+        # a rejected row is scored too: its reasons may add the residual (MAP of 5 mm)
+        assert all(r - {"suspect-residual"} == {rule} or r == {rule} for r in mine["rules"]), \
+            (label, mine["rules"].to_list())
 
 
 def _rejected_rules(quarantine, problems) -> pd.DataFrame:
     """Each quarantined row's Notes cell and the set of error rules the store gave it."""
     rows = pd.read_csv(quarantine, dtype=str, keep_default_na=False)
     probs = pd.read_csv(problems, dtype={"row": "Int64"}, keep_default_na=False)
-    errors = probs[probs["severity"] == "error"].groupby("row")["rule"].agg(set)
+    errors = probs[probs["severity"].isin(["error", "suspect"])].groupby("row")["rule"].agg(set)
     return pd.DataFrame({"notes": rows["Notes"],
                          "rules": rows["_source_row"].astype(int).map(errors)})
 

@@ -20,9 +20,20 @@ from refit.cli.common import guarded, render_admit
               show_default=True, help="Report for people (text) or programs (json).")
 @click.option("--strict", is_flag=True,
               help="Exit with code 1 when any row was rejected (the admit still lands).")
+@click.option("--unit", "unit_items", metavar="COLUMN=UNIT", multiple=True,
+              help="Confirm or set the unit of a column (file or canonical name), e.g. "
+                   "--unit 'MAP (in)=in' or --unit bk_depth_cm=m; repeatable.")
+@click.option("--accept-suspect", is_flag=True,
+              help="Admit the rows the consistency test holds as suspect (listed as "
+                   "warnings) instead of quarantining them.")
+@click.option("--again", is_flag=True,
+              help="Admit a file whose SHA-256 the store's changelog already holds.")
+@click.option("--max-rows", type=click.IntRange(min=0), default=50, show_default=True,
+              help="Blocks of problems (one per rule, column and value) listed.")
 @guarded
 def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
-          strict: bool) -> None:
+          strict: bool, unit_items: tuple[str, ...], accept_suspect: bool, again: bool,
+          max_rows: int) -> None:
     """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
 
     Column names and units are mapped to the canonical ones (e.g. 'MAP (in)' -> map_mm),
@@ -31,6 +42,11 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     STORE/quarantine/. The whole admit lands or nothing does; an interrupted admit is
     finished or undone by the next command that opens the store. A second admit into the
     same store waits up to 5 s for the first, then stops with a 'busy' error.
+
+    Rows that disagree with the store's reference line (MAP on Bk depth) beyond a robust
+    |z| of 3.5 are held as suspect in quarantine (--accept-suspect admits them); a column
+    whose values look like another unit stops the admit until --unit confirms it; the same
+    file twice stops unless --again.
 
     \b
     Exit codes: 0 admitted (rejected rows are in quarantine; see --strict), 1 invalid
@@ -42,12 +58,15 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     """
     import json
 
+    from refit.curate.columns import parse_unit_options
     from refit.curate.store import admit as run_admit
 
-    result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files))
+    result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files),
+                       units=parse_unit_options(unit_items), accept_suspect=accept_suspect,
+                       again=again)
     if fmt == "json":
-        click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
+        click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False, default=str))
     else:
-        click.echo("\n".join(render_admit(result)))
+        click.echo("\n".join(render_admit(result, max_rows=max_rows)))
     if strict and result.rejected:
         raise SystemExit(1)

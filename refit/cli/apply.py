@@ -21,10 +21,13 @@ from refit.cli.common import (
 @click.option("--overwrite", is_flag=True, help="Replace an existing --out file.")
 @click.option("--combine", is_flag=True,
               help="Add an inverse-variance combined estimate per paleosol across proxies.")
+@click.option("--ignore-columns", "ignore_columns", metavar="COLUMN", multiple=True,
+              help="Go on without an unmapped column that looks like a measurement SD "
+                   "(its error is then not propagated); repeatable.")
 @click.pass_context
 @guarded
 def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, out,
-          overwrite, combine) -> None:
+          overwrite, combine, ignore_columns) -> None:
     """Estimate the climate of each paleosol in TABLE with each COEFFICIENTS file.
 
     For each paleosol and each file whose predictors the table has: estimate, lower and
@@ -47,12 +50,14 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     from pathlib import Path
 
     from refit.apply.estimates import apply_files
+    from refit.curate.fossils import ignoring_columns
     from refit.errors import UsageError
 
     if out and Path(out).exists() and not overwrite:
         raise UsageError(f"--out {out} exists; pass --overwrite to replace it")
-    result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
-                         constants_file=constants_file, seed=seed, combine=combine)
+    with ignoring_columns(ignore_columns):
+        result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
+                             constants_file=constants_file, seed=seed, combine=combine)
     console = stdout_console()
     print_results(result.results, console)
     if out:

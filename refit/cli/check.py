@@ -20,7 +20,9 @@ MAX_ROWS_DEFAULT = 50
               help='Extra vocabulary terms, a JSON file like {"vegetation": ["new term"]}; '
                    "repeatable.")
 @click.option("--max-rows", type=click.IntRange(min=0), default=MAX_ROWS_DEFAULT,
-              show_default=True, help="Problems listed per severity in text mode.")
+              show_default=True,
+              help="Blocks of problems (one per rule, column and value) listed per "
+                   "severity in text mode.")
 @click.pass_context
 @guarded
 def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
@@ -79,31 +81,24 @@ def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> N
 
 
 def _problem_table(console, frame, title, style, max_rows) -> None:
-    """One entry per problem: a line locating it, then the reason and fix, indented.
-
-    (A list rather than a grid: the reasons are sentences and stay readable in a narrow
-    terminal or a log file.)
-    """
-    from rich.padding import Padding
+    """One block per (rule, column, value): where and how often, then the reason and fix
+    once (a list rather than a grid: the reasons are sentences and stay readable in a
+    narrow terminal or a log file)."""
     from rich.text import Text
 
+    from refit.cli.common import problem_block_lines
+    from refit.curate.problems import group_problems
+
+    groups = group_problems(frame)
     label = title if len(frame) != 1 else title.rstrip("s")
-    console.print(Text(f"{len(frame)} {label}", style=f"bold {style}"))
-    shown = frame.head(max_rows)
-    for rec in shown.itertuples(index=False):
-        where = Text("  ")
-        where.append(f"row {_text(rec.row)}" if _text(rec.row) else "table", style="bold")
-        if _text(rec.profile_id):
-            where.append(f"  profile_id {rec.profile_id}")
-        where.append(f"  {rec.column}")
-        if _text(rec.value):
-            where.append(f" = {rec.value!r}")
-        where.append(f"  [{rec.rule}]", style=style)
-        console.print(where)
-        console.print(Padding(Text(_text(rec.message)), (0, 0, 0, 4)), soft_wrap=False)
-    if len(frame) > len(shown):
-        console.print(Text(f"... {len(frame) - len(shown)} more {title} "
-                           "(use --format json for all)", style=style))
+    console.print(Text(f"{len(frame)} {label} in {plural(len(groups), 'block')} "
+                       "(one per rule, column and value)", style=f"bold {style}"))
+    for line in problem_block_lines(groups, max_rows):
+        console.print(Text(line), soft_wrap=True)
+    if len(groups) > max_rows:
+        console.print(Text(f"... {len(groups) - max_rows} more blocks of {title} "
+                           "(raise --max-rows, or --format json for every problem)",
+                           style=style))
     console.print()
 
 

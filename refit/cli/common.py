@@ -358,9 +358,33 @@ def _scheme_text(s) -> str:
     return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
 
 
-def render_admit(result) -> list[str]:
-    """The text report of an admit, one line per item."""
+def problem_block_lines(groups, max_blocks: int | None = None) -> list[str]:
+    """Text lines of grouped problems (:func:`refit.curate.problems.group_problems`): a
+    line locating each block (rule, column, value, count, rows), then its message once."""
+    import textwrap
+
+    lines = []
+    shown = groups if max_blocks is None else groups.head(max_blocks)
+    for g in shown.itertuples(index=False):
+        where = f"  [{g.rule}] {g.column}" if g.column else f"  [{g.rule}]"
+        if g.value:
+            where += f" = {g.value!r}"
+        if g.rows:
+            pid = f" ({g.profile_id})" if g.profile_id else ""
+            where += f": {plural(int(g.count), 'row')} {g.rows}{pid}"
+        lines.append(where)
+        lines += textwrap.wrap(str(g.message), width=96, initial_indent="      ",
+                               subsequent_indent="      ", break_long_words=False,
+                               break_on_hyphens=False)
+    return lines
+
+
+def render_admit(result, max_rows: int | None = None) -> list[str]:
+    """The text report of an admit, one line per item; problems grouped per rule, column
+    and value (``max_rows`` blocks at most)."""
     from pathlib import Path
+
+    import pandas as pd
 
     store = Path(result.store)
     out = [f"Note: {m}." for m in result.recovered]
@@ -371,39 +395,45 @@ def render_admit(result) -> list[str]:
     if result.mappings:
         out.append("Columns mapped:")
         out += [f"  {line}" for line in compact_notes(result.mappings)]
+    if result.unmapped:
+        out.append("Columns not mapped (kept as extra columns, unchecked):")
+        out += [f"  {u['column']!r}: {u['how']}" for u in result.unmapped]
+    out += [f"Note: {line}." for line in result.consistency]
     out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
-               f"{result.rejected}.")
+               f"{result.rejected} + suspect {result.suspect}.")
     would = "would go" if result.dry_run else "went"
-    version = result.version_before + 1
-    out.append(f"  accepted {result.accepted} {would} to {store / result.records_file} "
-               f"(version {version}, {result.row_count_after} rows)")
+    if result.new_version:
+        out.append(f"  accepted {result.accepted} {would} to {store / result.records_file} "
+                   f"(version {result.version_before + 1}, {result.row_count_after} rows)")
+    else:
+        out.append(f"  nothing accepted: no new dataset version (the store stays at version "
+                   f"{result.version_before}); the attempt is recorded in the changelog")
+    if result.suspect_accepted:
+        out.append(f"  {result.suspect_accepted} suspect rows admitted with --accept-suspect")
     if result.quarantine_file:
-        out.append(f"  rejected {result.rejected} {would} to {store / result.quarantine_file} "
+        out.append(f"  rejected and suspect rows {would} to {store / result.quarantine_file} "
                    "(each row unchanged, with _reasons and _source_row)")
     if result.problems_file:
         out.append(f"  every problem {would} to {store / result.problems_file}")
-    if result.reasons:
-        out.append("Rejected rows by reason (a row may have several):")
-        width = max(len(k) for k in result.reasons)
-        out += [f"  {k:<{width}}  {v}" for k, v in result.reasons.items()]
-        out.append("Rejected rows:")
-        for item in result.rejected_rows[:ADMIT_MAX_LISTED]:
-            pid = f" ({item['profile_id']})" if item["profile_id"] else ""
-            for reason in item["reasons"] or ["rejected"]:
-                out.append(f"  row {item['row']}{pid}: {reason}")
-        if len(result.rejected_rows) > ADMIT_MAX_LISTED:
-            out.append(f"  ... and {len(result.rejected_rows) - ADMIT_MAX_LISTED} more rows; "
-                       "see the quarantine file")
-    if result.warnings:
-        out.append("Warnings (rows admitted anyway; see the problems file):")
-        width = max(len(k) for k in result.warnings)
-        out += [f"  {k:<{width}}  {v}" for k, v in result.warnings.items()]
+    groups = pd.DataFrame(result.problem_groups)
+    for severity, title in (("error", "Rejected"), ("suspect", "Suspect (quarantined)"),
+                            ("warning", "Warnings (rows admitted anyway)")):
+        part = groups[groups["severity"] == severity] if len(groups) else groups
+        if len(part):
+            out.append(f"{title}: {plural(int(part['count'].sum()), 'problem')} in "
+                       f"{plural(len(part), 'block')}:")
+            out += problem_block_lines(part, max_rows)
+            if max_rows is not None and len(part) > max_rows:
+                out.append(f"  ... {len(part) - max_rows} more blocks (raise --max-rows; "
+                           "every row is in the problems file)")
     if result.dry_run:
         out.append("Dry run: nothing was written.")
-    else:
+    elif result.new_version:
         out.append(f"Store '{store.name}' is now at version {result.version_after} "
                    f"({result.row_count_after} rows, records sha256 "
                    f"{result.records_sha256[:12]}...).")
+    else:
+        out.append(f"Store '{store.name}' stays at version {result.version_after}.")
     return out
 
 

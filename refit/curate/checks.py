@@ -25,9 +25,15 @@ Rules (``rule`` ids; severity error unless noted):
 ``vocabulary``       a term outside the controlled vocabulary
 ``vocabulary-form``  (warning) a known term written in another case, separator or number
 ``mar-above-map``    ``mar_mm`` larger than ``map_mm``
-``bk-depth-without-thickness``  a Bk depth without a positive Bk thickness
+``bk-depth-without-thickness``  (warning) a Bk depth without a positive Bk thickness:
+                     many compilations record the depth to carbonate only; the row is
+                     admitted and is simply not used by thickness equations
 ``oxide-total``      the sum of the ``*_wt`` oxides above 101 wt%
 ``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
+
+Plausibility rules (:mod:`refit.curate.plausibility`; each with its source and why it is a
+warning or an error): ``bk-too-shallow`` (error), ``bk-in-hyperarid-climate``
+(warning), ``map-below-bk-minimum`` (error), ``horizon-below-profile`` (error).
 ``sequence-*``       (warnings) see :mod:`refit.curate.sequences`
 ``no-rows``          (warning) a header without data rows
 """
@@ -41,6 +47,7 @@ import pandas as pd
 
 from refit.curate import schema as _schema
 from refit.curate.cells import parse_cells
+from refit.curate.plausibility import plausibility_problems
 from refit.curate.problems import PROBLEM_COLUMNS, Problems, fmt_values
 from refit.curate.rules import (  # CheckReport is re-exported: part of the checks API
     CheckReport, check_oxide_total, default_rows, run_pandera,
@@ -96,17 +103,23 @@ def _check_file(path, kind: str, vocabularies) -> CheckReport:
         from refit.curate.fossils import check_fossil_file
 
         return check_fossil_file(path, vocabularies=vocabularies)
+    from refit.curate.columns import (
+        parse_column, unmapped_columns, unmapped_problems, with_problems,
+    )
     from refit.curate.tables import read_table
     from refit.curate.units import normalise_columns
 
     table = read_table(path, as_text=False, digest=False)
-    frame, mapped = normalise_columns(table.frame, positions=table.file_columns)
+    frame, mapped = normalise_columns(table.frame, positions=table.file_columns,
+                                      parser=parse_column)
     report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
                          path=str(path), kind=kind, notes=list(table.notes) + list(mapped))
     if mapped and not report.problems.empty:
         from refit.curate.units import add_file_context
 
         report.problems = add_file_context(report.problems, table.frame, table.source_rows)
+    report.problems = with_problems(report.problems, unmapped_problems(
+        unmapped_columns(table.frame.columns, "calibration"), "calibration"))
     return report
 
 
@@ -156,7 +169,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     vocab = load_vocabularies() if vocabularies is None else vocabularies
     desc = _schema.load_descriptor()
     work, probs = parse_cells(frame, rows, desc)
-    check_vocabularies(work, probs, vocab)
+    vocab_lines = check_vocabularies(work, probs, vocab)
     run_pandera(work, probs, desc)
     _check_climate(work, probs, desc)
     _check_cross_columns(work, probs, desc)
@@ -167,7 +180,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     out_frame = work.set_axis(frame.index, axis=0)
     return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
                        path=None if path is None else str(path),
-                       notes=list(notes or []), source_rows=rows)
+                       notes=list(notes or []) + vocab_lines, source_rows=rows)
 
 
 def _check_climate(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
@@ -205,16 +218,19 @@ def _check_cross_columns(work: pd.DataFrame, probs: Problems, desc: dict) -> Non
         depth = work["bk_depth_cm"]
         thick = work["bk_thickness_cm"] if "bk_thickness_cm" in cols else pd.Series(
             np.nan, index=work.index)
-        # a negative thickness is already a range error; here: missing or zero
+        # a negative thickness is already a range error; here: missing or zero. A warning
+        # by choice: many compilations give the depth to carbonate without a thickness.
         pos = np.flatnonzero((depth.notna() & (thick.isna() | (thick == 0))).to_numpy())
         if len(pos):
-            probs.add("error", "bk-depth-without-thickness", pos, "bk_thickness_cm",
+            probs.add("warning", "bk-depth-without-thickness", pos, "bk_thickness_cm",
                       fmt_values(thick.iloc[pos]),
-                      "a Bk depth (" + fmt_values(depth.iloc[pos]) + " cm) is given but "
-                      "no positive Bk thickness; enter bk_thickness_cm, or leave "
-                      "bk_depth_cm empty if the profile has no Bk horizon.")
+                      "a Bk depth is given but no positive Bk thickness; the row is "
+                      "admitted and used by depth equations only. Enter bk_thickness_cm "
+                      "if it was measured, or leave bk_depth_cm empty if the profile has "
+                      "no Bk horizon.")
     check_oxide_total(work, probs, desc)
     _warn_horizons(work, probs)
+    plausibility_problems(work, probs)
 
 
 def _warn_horizons(work: pd.DataFrame, probs: Problems) -> None:

@@ -24,11 +24,33 @@ MEASUREMENTS = ("map_mm", "mat_c", "mar_mm", "bk_depth_cm", "bk_thickness_cm", "
                 "na2o_wt", "k2o_wt", "p2o5_wt")
 
 
-def _measurement_key(row: dict) -> tuple | None:
-    """The present measurements of a record, as a hashable key (None if fewer than two)."""
-    items = tuple((c, float(f"{row[c]:.9g}")) for c in MEASUREMENTS
-                  if c in row and row[c] == row[c] and row[c] is not None)
-    return items if len(items) >= 2 else None
+def measurement_keys(frame: pd.DataFrame) -> np.ndarray:
+    """The present measurements of each record as one hashable text key, ``None`` where
+    fewer than two are present (vectorised: ``%.9g`` of each value, as ``f"{x:.9g}"``).
+
+    Two records share a key exactly when every present measurement agrees to 9
+    significant digits and the same measurements are present.
+    """
+    n = len(frame)
+    key = np.full(n, "", dtype=object)
+    count = np.zeros(n, dtype=int)
+    for c in MEASUREMENTS:
+        if c not in frame:
+            continue
+        v = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype="float64") + 0.0
+        ok = np.isfinite(v)
+        if not ok.any():
+            continue
+        text = np.full(n, "", dtype=object)
+        text[ok] = np.char.add(f"{c}=", np.char.mod("%.9g", v[ok])).astype(object) + ";"
+        key = key + text
+        count += ok
+    return np.where(count >= 2, key, None)
+
+
+def _key_items(key: str) -> list[tuple[str, float]]:
+    """``"map_mm=400;mat_c=12;"`` -> ``[("map_mm", 400.0), ("mat_c", 12.0)]``."""
+    return [(c, float(v)) for c, v in (p.split("=") for p in key.split(";") if p)]
 
 
 def longitude_gap(a: float, b: float) -> float:
@@ -74,7 +96,36 @@ class _Seen:
         self.sites: dict[tuple, list] = {}
         self.measurements: dict[tuple, str] = {}
 
-    def add(self, row: dict, where: str) -> None:
+    def add_store(self, stored: pd.DataFrame, keys: np.ndarray) -> None:
+        """Index every stored record at once (ids, sites, measurement keys)."""
+        ids = stored["profile_id"] if "profile_id" in stored else pd.Series(
+            [None] * len(stored), index=stored.index)
+        raw_ids = ids.to_numpy(dtype=object)
+        pids = [str(p) for p in raw_ids]
+        for pid, raw in zip(pids, raw_ids):
+            if isinstance(raw, str):
+                self.ids.setdefault(pid, "the store")
+        for key, pid in zip(keys, pids):
+            if key is not None:
+                self.measurements.setdefault(key, pid)
+        if not all(c in stored for c in ("source", "latitude", "longitude")):
+            return
+        lat = pd.to_numeric(stored["latitude"], errors="coerce").to_numpy(float)
+        lon = pd.to_numeric(stored["longitude"], errors="coerce").to_numpy(float)
+        src = stored["source"].to_numpy(dtype=object)
+        with np.errstate(invalid="ignore"):
+            ok = (np.array([isinstance(v, str) for v in src], dtype=bool)
+                  & (np.abs(lat) <= 90.0) & (np.abs(lon) <= 180.0))
+        ci = np.floor(lat / self.tol)
+        cj = np.floor(lon / self.tol)
+        folded: dict[str, str] = {}
+        for k in np.flatnonzero(ok).tolist():
+            name = src[k]
+            fold = folded.get(name) or folded.setdefault(name, name.strip().casefold())
+            self.sites.setdefault((fold, int(ci[k]), int(cj[k])), []).append(
+                (float(lat[k]), float(lon[k]), pids[k]))
+
+    def add(self, row: dict, where: str, key=None) -> None:
         pid = row.get("profile_id")
         if isinstance(pid, str):
             self.ids.setdefault(pid, where)
@@ -83,7 +134,6 @@ class _Seen:
             src, lat, lon = site
             cell = (src, *_home_cell(lat, lon, self.tol))
             self.sites.setdefault(cell, []).append((lat, lon, str(pid)))
-        key = _measurement_key(row)
         if key:
             self.measurements.setdefault(key, str(pid))
 
@@ -125,8 +175,8 @@ def find_duplicates(batch: pd.DataFrame, stored: pd.DataFrame, bad: np.ndarray,
         ``pos`` (0-based batch row), ``rule``, ``column``, ``value``, ``message``.
     """
     seen = _Seen(tolerance_deg)
-    for row in stored.to_dict("records"):
-        seen.add(row, "the store")
+    seen.add_store(stored, measurement_keys(stored))
+    batch_keys = measurement_keys(batch)
     out = []
     for pos, row in enumerate(batch.to_dict("records")):
         found = []
@@ -142,15 +192,16 @@ def find_duplicates(batch: pd.DataFrame, stored: pd.DataFrame, bad: np.ndarray,
                           f"same source and place as profile '{other}' (within "
                           f"{tolerance_deg:g} degree); if it is a different soil at the "
                           "same site, give coordinates that tell them apart"))
-        key = _measurement_key(row)
+        key = batch_keys[pos]
         if key and key in seen.measurements:
-            shown = ", ".join(f"{c}={v:g}" for c, v in key[:4])
-            found.append(("duplicate-measurements", "|".join(c for c, _ in key), "",
-                          f"the same {len(key)} measurements as profile "
-                          f"'{seen.measurements[key]}' ({shown}{', ...' if len(key) > 4 else ''}"
+            items = _key_items(key)
+            shown = ", ".join(f"{c}={v:g}" for c, v in items[:4])
+            found.append(("duplicate-measurements", "|".join(c for c, _ in items), "",
+                          f"the same {len(items)} measurements as profile "
+                          f"'{seen.measurements[key]}' ({shown}{', ...' if len(items) > 4 else ''}"
                           "); probably a copy of that record"))
         out += [{"pos": pos, "rule": r, "column": c, "value": v, "message": m}
                 for r, c, v, m in found]
         if not found and not bad[pos]:
-            seen.add(row, "this table")
+            seen.add(row, "this table", key)
     return out

@@ -13,6 +13,10 @@ machinery (:mod:`refit.curate.rules`: the report, pandera's column rules and the
 ``partial-constants``      only one of ``initial_solidity`` and ``compaction_k_per_km``
 ``no-feature``             (warning) a row without any measured feature
 ``oxide-total``            oxides adding up to more than 101 wt%
+``unmapped-column``        (warning) a column that maps to no fossil column (did-you-mean)
+``unmapped-sd-column``     a column that looks like a measurement SD (``SD``, ``±``,
+                           ``error``, ``1σ``) but maps to no feature's SD: stops ``apply``
+                           unless ``--ignore-columns`` names it
 
 plus ``required-column``, ``required-value``, ``unique-id``, ``not-a-number``, ``range``
 (negative depths, burial depth outside 0-12 km, ...) and ``vocabulary``. In the problems
@@ -21,6 +25,8 @@ table the ``profile_id`` column holds the ``paleosol_id``.
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 from pathlib import Path
 
 import numpy as np
@@ -51,8 +57,20 @@ def feature_columns(desc: dict | None = None) -> list[str]:
     return list(_schema.refit_rules(desc or load_descriptor())["feature_columns"])
 
 
-def check_fossil_file(path, *, vocabularies=None, constants=None):
+def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns=None):
     """Read (csv/tsv/xlsx/parquet), map unit names, and check a fossil table.
+
+    Every column that maps to no fossil column is reported (``unmapped-column``, a
+    warning, with a did-you-mean); one that looks like a measurement SD (``SD``, ``±``,
+    ``error``, ``1σ`` in its name) is an error, ``unmapped-sd-column``, which stops
+    ``refit apply`` (it would propagate no measurement error and give intervals too
+    narrow) unless ``ignore_columns`` names it.
+
+    Parameters
+    ----------
+    ignore_columns : sequence of str, optional
+        Unmapped columns to go on without (``refit apply --ignore-columns``); default
+        those set by :func:`ignoring_columns`.
 
     Returns
     -------
@@ -65,13 +83,19 @@ def check_fossil_file(path, *, vocabularies=None, constants=None):
         Column names that cannot be mapped (e.g. two columns for one feature), with the
         file named.
     """
-    from refit.errors import InvalidDataError
+    import functools
+
+    from refit.curate.columns import (
+        parse_column, unmapped_columns, unmapped_problems, with_problems,
+    )
+    from refit.errors import InvalidDataError, UsageError
     from refit.curate.tables import read_table
     from refit.curate.units import add_file_context, normalise_columns
 
     table = read_table(path, as_text=False)
+    parser = functools.partial(parse_column, kind="fossil")
     try:
-        frame, mapped = normalise_columns(table.frame)
+        frame, mapped = normalise_columns(table.frame, parser=parser)
     except InvalidDataError as exc:  # e.g. two columns mapping to one: say which file
         raise InvalidDataError(f"{path}: {exc}") from None
     report = check_fossil_frame(frame, source_rows=table.source_rows,
@@ -79,7 +103,31 @@ def check_fossil_file(path, *, vocabularies=None, constants=None):
                                 notes=list(table.notes) + list(mapped), constants=constants)
     if mapped and not report.problems.empty:
         report.problems = add_file_context(report.problems, table.frame, table.source_rows)
+    ignore = list(_IGNORED.get() if ignore_columns is None else ignore_columns)
+    unknown = [c for c in ignore if c not in [str(n) for n in table.frame.columns]]
+    if unknown:
+        raise UsageError(f"--ignore-columns names {', '.join(map(repr, unknown))}, which "
+                         f"{path} does not have; its columns are: "
+                         + ", ".join(map(str, table.frame.columns)))
+    unmapped = unmapped_columns(table.frame.columns, "fossil")
+    report.problems = with_problems(report.problems,
+                                    unmapped_problems(unmapped, "fossil", ignore))
     return report
+
+
+#: Unmapped fossil columns the caller goes on without (see :func:`ignoring_columns`).
+_IGNORED = contextvars.ContextVar("refit_ignored_fossil_columns", default=())
+
+
+@contextlib.contextmanager
+def ignoring_columns(names):
+    """Within the block, fossil tables are read as if ``ignore_columns=names`` were given
+    (how ``refit apply --ignore-columns`` reaches :func:`read_fossils`)."""
+    token = _IGNORED.set(tuple(names or ()))
+    try:
+        yield
+    finally:
+        _IGNORED.reset(token)
 
 
 def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None,
@@ -269,6 +317,22 @@ def decompact_frame(work: pd.DataFrame, constants: dict | None = None):
     return out, pd.DataFrame(rec, index=work.index)
 
 
-def read_fossils(path: str | Path, *, vocabularies=None, constants=None):
-    """Check a fossil table for ``apply``/``compare``; see :func:`check_fossil_file`."""
-    return check_fossil_file(path, vocabularies=vocabularies, constants=constants)
+def read_fossils(path: str | Path, *, vocabularies=None, constants=None,
+                 ignore_columns=None):
+    """Check a fossil table for ``apply``/``compare``; see :func:`check_fossil_file`.
+
+    Raises
+    ------
+    InvalidDataError
+        A column looks like a measurement SD but maps to no feature (``unmapped-sd-column``)
+        and is not in ``ignore_columns``: the intervals would silently be too narrow.
+    """
+    from refit.errors import InvalidDataError
+
+    report = check_fossil_file(path, vocabularies=vocabularies, constants=constants,
+                               ignore_columns=ignore_columns)
+    stop = report.problems[report.problems["rule"] == "unmapped-sd-column"]
+    if len(stop):
+        raise InvalidDataError(f"{path}: " + " ".join(stop["message"]) + " Nothing was "
+                               "applied.")
+    return report

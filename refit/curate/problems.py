@@ -207,3 +207,49 @@ def _unique_problems(column, pos, values, probs: Problems) -> None:
     probs.add("error", "unique-id", pos, column, values,
               f"{column} '" + pd.Series(values) + "' is used by rows " + where
               + "; every profile needs its own id. Rename one or remove the duplicate.")
+
+
+#: Row numbers listed in one group of problems before "and N more".
+GROUP_ROWS_SHOWN = 10
+
+
+def group_problems(problems: pd.DataFrame, rows_shown: int = GROUP_ROWS_SHOWN) -> pd.DataFrame:
+    """One block per (severity, rule, column, value): its count, rows and one message.
+
+    The per-row detail stays in the problems table (and in an admit's problems file); this
+    is what people read: a vocabulary term misspelt in 156 rows is one block, its fix said
+    once.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``severity``, ``rule``, ``column``, ``value``, ``count``, ``rows`` (text: the
+        first ``rows_shown`` file rows, then "and N more"; "" for table-level problems),
+        ``profile_id`` (of a single-row block, else ""), ``message`` (the first one), in the
+        order of the problems table (errors first).
+    """
+    cols = ["severity", "rule", "column", "value", "count", "rows", "profile_id", "message"]
+    if problems.empty:
+        return pd.DataFrame({c: pd.Series(dtype="object") for c in cols})
+    frame = problems.reset_index(drop=True)
+    value = frame["value"].astype(str)
+    table = frame["row"].isna().to_numpy()
+    # table-level problems each stay a block of their own
+    keys = pd.Series(np.where(table, "#" + frame.index.astype(str), ""), index=frame.index)
+    grouped = frame.assign(_v=value, _k=keys).groupby(
+        ["severity", "rule", "column", "_v", "_k"], sort=False, dropna=False)
+    out = []
+    for (sev, rule, col, val, _), grp in grouped:
+        rows = grp["row"].dropna().astype("int64").tolist()
+        text = ", ".join(map(str, rows[:rows_shown]))
+        if len(rows) > rows_shown:
+            text += f" and {len(rows) - rows_shown} more"
+        pid = grp["profile_id"].iloc[0] if len(grp) == 1 else ""
+        out.append({"severity": sev, "rule": rule, "column": col, "value": val,
+                    "count": len(grp), "rows": text,
+                    "profile_id": "" if pid is None or pid != pid else str(pid),
+                    "message": str(grp["message"].iloc[0]), "_first": grp.index[0]})
+    res = pd.DataFrame(out)
+    sev_order = (res["severity"] != "error").astype(int)
+    res = res.assign(_s=sev_order).sort_values(["_s", "_first"], kind="stable")
+    return res[cols].reset_index(drop=True)

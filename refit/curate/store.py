@@ -14,8 +14,11 @@ Layout::
 Dataset version k is the first ``row_count_after`` rows of records.csv given in the
 changelog entry of version k, restricted to that entry's ``columns``
 (:meth:`Store.records_at` rebuilds it and checks its sha256). Version 0 is the empty store.
-Every admit that reads at least one row makes a new version, even when it accepts nothing,
-so each batch, its quarantine file and its sha256 stay on record.
+Every admit that accepts at least one row makes a new version. An admit that accepts
+nothing makes no new dataset version but is recorded in the changelog as an attempt
+(``"kind": "attempt"``, the unchanged version, records hash and row count), with its
+quarantine file, so each batch and its sha256 stay on record. A file whose sha256 is
+already in the changelog is refused (:class:`AlreadyAdmittedError`) unless ``again``.
 
 An admit lands whole or not at all: the new files are staged in ``STORE/.pending-<id>/``,
 a ``COMMIT`` marker is written atomically once all are complete, then each file is moved
@@ -28,10 +31,8 @@ in ``refit/curate/duplicates.py``.
 
 from __future__ import annotations
 
-import csv
 import datetime as dt
 import functools
-import io
 import json
 import re
 import shutil
@@ -44,6 +45,9 @@ import pandas as pd
 from refit._util.atomic import TMP_PREFIX, sha256_bytes, sha256_file
 from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
     DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
+)
+from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
+    AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
 from refit.curate.store_commit import _commit, _locked, recover
 from refit.errors import InvalidDataError, UsageError
@@ -114,15 +118,6 @@ def canonical_order(columns) -> list[str]:
     schema = canonical_columns()
     extras = sorted({str(c) for c in columns} - set(schema))
     return schema + extras
-
-
-def records_bytes(frame: pd.DataFrame) -> bytes:
-    """records.csv bytes for a text frame (UTF-8, ``\\n`` line ends, minimal quoting)."""
-    buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(list(frame.columns))
-    writer.writerows(frame.itertuples(index=False, name=None))
-    return buf.getvalue().encode("utf-8")
 
 
 def _read_records(path: Path) -> pd.DataFrame:
@@ -232,6 +227,13 @@ class AdmitResult:
     reader_notes: list[str]
     recovered: list[str]
     records_sha256: str | None
+    suspect: int = 0
+    suspect_accepted: int = 0
+    suspect_rows: list = field(default_factory=list)
+    unmapped: list = field(default_factory=list)
+    consistency: list = field(default_factory=list)
+    problem_groups: list = field(default_factory=list)
+    new_version: bool = True
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -239,7 +241,8 @@ class AdmitResult:
 
 def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
           today: str | dt.date | None = None, tolerance_deg: float = DUPLICATE_TOLERANCE_DEG,
-          lock_timeout: float | None = None) -> AdmitResult:
+          lock_timeout: float | None = None, units=None, accept_suspect: bool = False,
+          again: bool = False) -> AdmitResult:
     """Admit the rows of a table into a store: check, split, append, quarantine, version.
 
     Parameters
@@ -263,6 +266,14 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     lock_timeout : float, optional
         Seconds to wait for another process to release the store [s]; default
         ``LOCK_TIMEOUT_S``.
+    units : dict of str to str, optional
+        Units confirmed by the user (``--unit COLUMN=UNIT``; file or canonical column name
+        to unit); they replace the declared unit and skip that column's slip test.
+    accept_suspect : bool
+        Admit the rows the consistency test holds as suspect (they are listed as warnings)
+        instead of quarantining them.
+    again : bool
+        Admit a file whose sha256 is already in the changelog.
 
     Returns
     -------
@@ -271,15 +282,20 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     Raises
     ------
     InvalidDataError
-        Table-level problems (missing required or climate columns, unconvertible units);
+        Table-level problems (missing required or climate columns, unconvertible units),
+        a column that looks like another unit than declared, mixed units in a column;
         nothing is written.
+    AlreadyAdmittedError
+        The same file (sha256) was admitted before and ``again`` is false.
     UnreadableInputError, UsageError, StoreBusyError
         See :func:`refit.curate.tables.read_table`, :func:`open_store`.
     """
+    from refit.curate.columns import check_unit_options, parse_column
     from refit.curate.tables import read_table
     from refit.curate.units import normalise_columns
 
     store_dir, today = Path(store_dir), _iso_day(today)
+    units = dict(units or {})
     state = _state(store_dir)
     try:
         table = read_table(table_path, as_text=True)
@@ -288,15 +304,18 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
                                f"{exc}") from None
     original = table.frame
     incoming = original.drop(columns=[c for c in QUARANTINE_EXTRA if c in original.columns])
+    check_unit_options(units, incoming.columns)
     try:
         frame, mappings = normalise_columns(_as_numbers_read(table, incoming),
-                                            positions=table.file_columns)
+                                            positions=table.file_columns,
+                                            parser=parse_column, units=units)
     except InvalidDataError as exc:
         raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
                                f"{exc}") from None
     if state != "store" and dry_run:  # nothing to lock or recover; create nothing
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
-                             True, vocabularies, vocab_files, today, tolerance_deg)
+                             True, vocabularies, vocab_files, today, tolerance_deg,
+                             (units, accept_suspect, again))
     was_missing = state == "missing"
     store_dir.mkdir(parents=True, exist_ok=True)
     try:
@@ -306,7 +325,8 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
             store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
             store.recovered = recovered
             return _admit_locked(table, incoming, frame, mappings, store, state != "store",
-                                 dry_run, vocabularies, vocab_files, today, tolerance_deg)
+                                 dry_run, vocabularies, vocab_files, today, tolerance_deg,
+                                 (units, accept_suspect, again))
     finally:
         if was_missing and not (store_dir / "manifest.json").exists():
             shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
@@ -327,9 +347,11 @@ def _iso_day(today) -> str:
 
 
 def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, vocabularies,
-                  vocab_files, today, tolerance_deg) -> AdmitResult:
+                  vocab_files, today, tolerance_deg, options) -> AdmitResult:
     from refit.curate.checks import check_frame, load_vocabularies
 
+    units, accept_suspect, again = options
+    _refuse_readmit(store, table, again)
     if vocabularies is None:
         own = store.path / "vocabularies.json"
         vocabularies = load_vocabularies(own if own.is_file() else None, *vocab_files)
@@ -341,37 +363,50 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written:\n"
                                + "\n".join(lines))
     n = len(frame)
-    rejected, problems = _split_rows(report, frame, store, table.source_rows,
-                                     _as_numbers_read(table, incoming), tolerance_deg)
-    version = store.version + 1
+    original = _as_numbers_read(table, incoming)
+    rejected, problems = _split_rows(report, frame, store, table.source_rows, original,
+                                     tolerance_deg)
+    suspect, problems, screening = _screen(report, store, incoming, table, rejected,
+                                           problems, units, accept_suspect)
+    held = rejected | suspect
+    new_version = bool((~held).any())
+    version = store.version + 1 if new_version else store.version
     stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(table.path).stem) or "table"
-    q_rel = f"quarantine/{version:04d}-{stem}.csv" if rejected.any() else None
+    if not new_version:  # an attempt: named apart from the version's own batch
+        stem = f"attempt{len(store.manifest.get('changelog', [])) + 1}-{stem}"
+    q_rel = f"quarantine/{version:04d}-{stem}.csv" if held.any() else None
     p_rel = f"quarantine/{version:04d}-{stem}.problems.csv" if len(problems) else None
-    records = _new_records(store.records_text, report.frame.loc[~rejected], today)
+    records = (_new_records(store.records_text, report.frame.loc[~held], today)
+               if new_version or created else store.records_text)
     data = records_bytes(records)
-    reasons = _reason_counts(problems, table.source_rows[rejected])
+    reasons = _reason_counts(problems, table.source_rows[held])
     entry = {
         "version": version, "date": today, "source_file": Path(table.path).name,
-        "source_sha256": table.sha256, "rows_read": n, "accepted": int((~rejected).sum()),
-        "rejected": int(rejected.sum()), "quarantine_file": q_rel, "problems_file": p_rel,
+        "source_sha256": table.sha256, "rows_read": n, "accepted": int((~held).sum()),
+        "rejected": int(rejected.sum()), "suspect": int(suspect.sum()),
+        "quarantine_file": q_rel, "problems_file": p_rel,
         "row_count_after": len(records), "records_sha256": sha256_bytes(data),
         "columns": list(records.columns), "reasons": reasons, "mappings": list(mappings),
     }
+    if not new_version:
+        entry = {"kind": "attempt", **entry}
     result = AdmitResult(
         table=str(table.path), store=str(store.path), dry_run=dry_run, created=created,
         version_before=store.version, version_after=store.version if dry_run else version,
         rows_read=n, accepted=entry["accepted"], rejected=entry["rejected"],
         row_count_after=len(records), reasons=reasons,
-        rejected_rows=_rejected_rows(problems, report.frame, table.source_rows, rejected),
+        rejected_rows=_rejected_rows(problems, report.frame, table.source_rows, held),
         warnings=_warning_counts(problems), quarantine_file=q_rel, problems_file=p_rel,
-        records_file="records.csv", mappings=list(mappings), reader_notes=list(table.notes),
-        recovered=list(store.recovered), records_sha256=entry["records_sha256"])
+        records_file="records.csv", mappings=list(mappings) + list(report.notes),
+        reader_notes=list(table.notes), recovered=list(store.recovered),
+        records_sha256=entry["records_sha256"], new_version=new_version, **screening)
     if dry_run:
         return result
-    files = {"records.csv": data,
-             "manifest.json": _manifest_bytes(store, entry, tolerance_deg)}
+    files = {"manifest.json": _manifest_bytes(store, entry, tolerance_deg)}
+    if new_version or created:
+        files["records.csv"] = data
     if q_rel:
-        files[q_rel] = _quarantine_bytes(incoming, rejected, problems, table.source_rows)
+        files[q_rel] = _quarantine_bytes(incoming, held, problems, table.source_rows)
     if p_rel:
         files[p_rel] = problems.to_csv(index=False, lineterminator="\n").encode("utf-8")
     _commit(store.path, files, {"version": version, "source_file": entry["source_file"]})
@@ -396,78 +431,6 @@ def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
 
 # --------------------------------------------------------------------------------------
 # building the files
-
-
-def _all_problems(report, dups: list[dict], source_rows: np.ndarray) -> pd.DataFrame:
-    from refit.curate.problems import PROBLEM_COLUMNS
-
-    ids = report.frame["profile_id"] if "profile_id" in report.frame else None
-    extra = pd.DataFrame([{
-        "severity": "error", "rule": d["rule"], "row": int(source_rows[d["pos"]]),
-        "profile_id": None if ids is None else ids.iloc[d["pos"]],
-        "column": d["column"], "value": d["value"], "message": d["message"]} for d in dups],
-        columns=PROBLEM_COLUMNS)
-    parts = [p for p in (report.problems[PROBLEM_COLUMNS], extra) if len(p)]
-    if not parts:
-        return report.problems[PROBLEM_COLUMNS].copy()
-    out = pd.concat(parts, ignore_index=True)
-    out["row"] = out["row"].astype("Int64")
-    return out
-
-
-def _reason_counts(problems: pd.DataFrame, rejected_rows: np.ndarray) -> dict[str, int]:
-    """Rule -> number of rejected rows with an error of that rule."""
-    err = problems[(problems["severity"] == "error") & problems["row"].isin(rejected_rows)]
-    counts = err.drop_duplicates(["rule", "row"])["rule"].value_counts()
-    return {str(k): int(v) for k, v in counts.items()}
-
-
-def _warning_counts(problems: pd.DataFrame) -> dict[str, int]:
-    counts = problems.loc[problems["severity"] == "warning", "rule"].value_counts()
-    return {str(k): int(v) for k, v in counts.items()}
-
-
-def _row_reasons(problems: pd.DataFrame) -> dict[int, list[str]]:
-    """Source row -> "rule (column 'name in the file'): message" for each of its errors."""
-    out: dict[int, list[str]] = {}
-    err = problems[(problems["severity"] == "error") & problems["row"].notna()]
-    for row, rule, col, message in zip(err["row"], err["rule"], err["file_column"],
-                                       err["message"]):
-        where = f" (column {col!r})" if col else ""
-        out.setdefault(int(row), []).append(f"{rule}{where}: {message}")
-    return out
-
-
-def _rejected_rows(problems, frame, source_rows, rejected) -> list[dict]:
-    reasons = _row_reasons(problems)
-    ids = frame["profile_id"] if "profile_id" in frame else pd.Series(None, index=frame.index)
-    return [{"row": int(source_rows[p]), "profile_id": _cell(ids.iloc[p]),
-             "reasons": reasons.get(int(source_rows[p]), [])}
-            for p in np.flatnonzero(rejected)]
-
-
-def _quarantine_bytes(incoming, rejected, problems, source_rows) -> bytes:
-    """The rejected rows exactly as read, plus ``_reasons`` and ``_source_row``."""
-    reasons = _row_reasons(problems)
-    rows = incoming.loc[rejected].astype(str).copy()
-    rows["_reasons"] = ["; ".join(reasons.get(int(r), [])) for r in source_rows[rejected]]
-    rows["_source_row"] = [str(int(r)) for r in source_rows[rejected]]
-    return records_bytes(rows)
-
-
-def _cell(value) -> str:
-    """Text of one stored cell: '' for missing, numbers without float noise."""
-    if value is None or value is pd.NA or value is pd.NaT:
-        return ""
-    if isinstance(value, (float, np.floating)):
-        if value != value:
-            return ""
-        if float(value).is_integer() and abs(value) < 1e15:
-            return str(int(value))
-        return f"{float(value):.12g}"
-    if isinstance(value, (np.integer,)):
-        return str(int(value))
-    return str(value)
 
 
 def _new_records(old: pd.DataFrame, accepted: pd.DataFrame, today: str) -> pd.DataFrame:

@@ -23,7 +23,8 @@ from refit.errors import InvalidDataError
 # A key may carry no unit (the canonical unit is then assumed) or carry one as a suffix.
 SYNONYMS: dict[str, tuple[str, ...]] = {
     "profile_id": ("profile", "profileid", "profile_name", "profile_no", "profile_number",
-                   "pedon", "pedon_id", "site_id", "sample_id", "soil_id"),
+                   "pedon", "pedon_id", "site_id", "sample_id", "soil_id", "id", "sample",
+                   "sample_no", "sample_name", "sample_number", "profile_code"),
     "latitude": ("lat", "lat_dd", "decimal_latitude", "latitude_dd", "y_lat"),
     "longitude": ("lon", "long", "lng", "lon_dd", "decimal_longitude", "longitude_dd", "x_lon"),
     "source": ("reference", "ref", "citation", "citation_key", "source_key", "data_source"),
@@ -47,6 +48,8 @@ SYNONYMS: dict[str, tuple[str, ...]] = {
     "age": ("age", "soil_age", "surface_age"),
     "soil_order": ("order", "usda_order", "taxonomic_order", "soil_taxonomy_order"),
     "elevation": ("elevation", "elev", "altitude", "alt"),
+    "profile_depth": ("profile_depth", "depth_of_profile", "pit_depth", "described_depth",
+                      "profile_bottom", "total_depth"),
     "sequence_id": ("sequence", "seq_id"),
     "sequence_kind": ("sequence_type", "seq_kind"),
     "added_on": ("date_added", "admitted_on"),
@@ -59,6 +62,7 @@ _QUANTITY = {
     "map": ("map_mm", "millimeter"), "mat": ("mat_c", "degC"), "mar": ("mar_mm", "millimeter"),
     "bk_depth": ("bk_depth_cm", "centimeter"), "bk_thickness": ("bk_thickness_cm", "centimeter"),
     "by_depth": ("by_depth_cm", "centimeter"), "slope": ("slope_deg", "degree"),
+    "profile_depth": ("profile_depth_cm", "centimeter"),
     "age": ("age_ka", "kiloyear"), "elevation": ("elevation_m", "meter"),
     "latitude": ("latitude", "degree"), "longitude": ("longitude", "degree"),
     **{ox: (f"{ox}_wt", "percent") for ox in OXIDES},
@@ -185,6 +189,8 @@ def canonical_for(name: str) -> str | None:
 
 
 def _canonical_unit(column: str) -> str | None:
+    if "_sd_" in column:  # a measurement SD takes the unit of its measurement
+        column = column.replace("_sd_", "_", 1)
     for canon, unit in _QUANTITY.values():
         if canon == column:
             return unit
@@ -297,7 +303,8 @@ def _two_columns(first: str, second: str, target: str, columns, positions=None) 
             f"{written!r} (column {j}, {column_letter(j)}) both map to {target}; {fix}")
 
 
-def normalise_columns(frame: pd.DataFrame, positions: dict | None = None
+def normalise_columns(frame: pd.DataFrame, positions: dict | None = None, *,
+                      parser=None, units: dict | None = None
                       ) -> tuple[pd.DataFrame, list[str]]:
     """Map synonyms and declared units onto the canonical columns.
 
@@ -308,6 +315,14 @@ def normalise_columns(frame: pd.DataFrame, positions: dict | None = None
     positions : dict of str to int, optional
         1-based position of each column in the file (``Table.file_columns``), for the
         messages; default the place of the column in ``frame``.
+    parser : callable, optional
+        ``name -> (canonical column, unit text) or None``; default :func:`parse_name`
+        (:func:`refit.curate.columns.parse_column` adds SD columns and fossil names).
+    units : dict of str to str, optional
+        Units confirmed by the user (``--unit COLUMN=UNIT``), keyed by the file's column
+        name or the canonical name; they replace the unit the name declares (or assumes).
+        Keys that name no column are for the caller to refuse
+        (:func:`refit.curate.columns.check_unit_options`).
 
     Returns
     -------
@@ -328,11 +343,17 @@ def normalise_columns(frame: pd.DataFrame, positions: dict | None = None
     lines, problems = [], []
     claimed: dict[str, str] = {}
     converted = {}
+    parser = parser or parse_name
+    units = dict(units or {})
     for name in frame.columns:
-        parsed = parse_name(file_name_of(str(name), frame.columns))
+        parsed = parser(file_name_of(str(name), frame.columns))
         if parsed is None:
             continue
         target, unit_text = parsed
+        confirmed = units.get(str(name), units.get(target))
+        if confirmed is not None:
+            unit_text = confirmed
+            lines.append(f"column {name!r}: unit {confirmed!r} confirmed with --unit")
         if target in claimed:
             problems.append(_two_columns(claimed[target], str(name), target, frame.columns,
                                          positions))
@@ -374,7 +395,7 @@ def normalise_columns(frame: pd.DataFrame, positions: dict | None = None
     return out.rename(columns=plan), lines
 
 
-def column_origins(columns) -> dict[str, tuple[str, str | None]]:
+def column_origins(columns, parser=None) -> dict[str, tuple[str, str | None]]:
     """Where each canonical column came from in a file: ``{canonical: (file column, unit)}``.
 
     ``unit`` is the unit text declared in the file's column name when the values were
@@ -383,7 +404,7 @@ def column_origins(columns) -> dict[str, tuple[str, str | None]]:
     """
     out: dict[str, tuple[str, str | None]] = {}
     for name in columns:
-        parsed = parse_name(str(name))
+        parsed = (parser or parse_name)(str(name))
         if parsed is None:
             out.setdefault(str(name), (str(name), None))
             continue

@@ -56,12 +56,16 @@ def load_vocabularies(*extra_files: str | Path | None) -> dict[str, set[str]]:
     """
     base = _read_json(_schema_file("vocabularies.json"))
     closed = _closed()
-    vocab = {k: set(v) for k, v in base.items() if not k.startswith("$") and k != "closed"}
+    vocab = {k: set(v) for k, v in base.items()
+             if not k.startswith("$") and k not in ("closed", SYNONYMS)}
+    synonyms: dict[str, dict[str, str]] = {}
+    _add_synonyms(synonyms, base.get(SYNONYMS, {}), vocab, "schemas/vocabularies.json")
     for path in extra_files:
         if path is None:
             continue
-        for key, terms in _read_json(Path(path)).items():
-            if key.startswith("$"):
+        extra = _read_json(Path(path))
+        for key, terms in extra.items():
+            if key.startswith("$") or key == SYNONYMS:
                 continue
             if key in closed or key not in vocab:
                 raise UsageError(
@@ -74,7 +78,29 @@ def load_vocabularies(*extra_files: str | Path | None) -> dict[str, set[str]]:
                     f"{path}: {key!r} must be a list of non-empty texts, e.g. "
                     f'{{"{key}": ["new term"]}}.')
             vocab[key] |= {t.strip() for t in terms}
+        _add_synonyms(synonyms, extra.get(SYNONYMS, {}), vocab, path)
+    vocab[SYNONYMS] = synonyms
     return vocab
+
+
+#: Key of the synonym section of a vocabulary file: ``{vocabulary: {synonym: term}}``.
+SYNONYMS = "synonyms"
+
+
+def _add_synonyms(out: dict, section, vocab: dict, path) -> None:
+    """Merge a ``synonyms`` section into ``out`` (keys loosened with :func:`vocab_key`)."""
+    if not isinstance(section, dict):
+        raise UsageError(f"{path}: 'synonyms' must be an object such as "
+                         '{"parent_material": {"till": "glacial till"}}.')
+    for name, pairs in section.items():
+        if name not in vocab or not isinstance(pairs, dict):
+            raise UsageError(f"{path}: synonyms for {name!r}: give an object of synonym -> "
+                             f"term for one of {', '.join(sorted(vocab))}.")
+        for syn, term in pairs.items():
+            if term not in vocab[name]:
+                raise UsageError(f"{path}: synonym {syn!r} points to {term!r}, which is not "
+                                 f"a {name} term; point it to one of the vocabulary's terms.")
+            out.setdefault(name, {})[vocab_key(syn)] = term
 
 
 def _schema_file(name: str) -> Path:
@@ -106,8 +132,11 @@ def vocab_key(term: str) -> str:
     return key[:-1] if len(key) > 3 and key.endswith("s") else key
 
 
-def match_vocabulary(values: pd.Series, terms: Iterable[str]):
+def match_vocabulary(values: pd.Series, terms: Iterable[str], synonyms=None):
     """Match text values to a vocabulary (work is done once per distinct value).
+
+    ``synonyms`` maps loosened synonyms (:func:`vocab_key`) to terms; a value matching one
+    is a variant too (the caller tells the two kinds apart with :func:`synonym_of`).
 
     Returns
     -------
@@ -125,6 +154,9 @@ def match_vocabulary(values: pd.Series, terms: Iterable[str]):
     seen = [v for v in values.unique() if isinstance(v, str)]
     variants = {v: by_key[vocab_key(v)] for v in seen
                 if v not in terms and vocab_key(v) in by_key}
+    for v in seen:
+        if v not in terms and v not in variants and vocab_key(v) in (synonyms or {}):
+            variants[v] = synonyms[vocab_key(v)]
     unknowns = [v for v in seen if v not in terms and v not in variants]
     variant = values.isin(list(variants)) if variants else _false(values)
     unknown = values.isin(unknowns) if unknowns else _false(values)
@@ -135,6 +167,19 @@ def match_vocabulary(values: pd.Series, terms: Iterable[str]):
     return canonical, variant, unknown
 
 
+def _did_you_mean(terms, synonyms) -> "dict":
+    """A function value -> " (did you mean 'term'?)" or "" (difflib ratio at least 0.6)."""
+    import difflib
+
+    loose = {vocab_key(t): t for t in terms}
+    loose.update({k: v for k, v in (synonyms or {}).items()})
+
+    def hint(value) -> str:
+        hit = difflib.get_close_matches(vocab_key(str(value)), list(loose), n=1, cutoff=0.6)
+        return f" (did you mean '{loose[hit[0]]}'?)" if hit else ""
+    return hint
+
+
 def _false(values: pd.Series) -> pd.Series:
     return pd.Series(np.zeros(len(values), dtype=bool), index=values.index)
 
@@ -143,14 +188,43 @@ def _closed() -> set[str]:
     return set(_read_json(_schema_file("vocabularies.json")).get("closed", []))
 
 
-def check_vocabularies(work: pd.DataFrame, probs, vocab: dict) -> None:
-    """Report unknown terms (errors) and variant spellings (warnings, canonicalised)."""
+def check_vocabularies(work: pd.DataFrame, probs, vocab: dict) -> list[str]:
+    """Report unknown terms (errors), variant spellings and synonyms (warnings; the frame
+    then holds the term).
+
+    Returns
+    -------
+    list of str
+        One line per synonym read as its term, e.g.
+        ``"parent_material 'till' -> 'glacial till' (synonym; 156 rows)"``, for the notes
+        beside the column mappings.
+    """
     closed = _closed()
+    lines = []
     for name in VOCABULARY_COLUMNS:
         if name not in work.columns or name not in vocab:
             continue
         values = work[name]
-        canonical, variant, unknown = match_vocabulary(values, vocab[name])
+        synonyms = vocab.get(SYNONYMS, {}).get(name, {})
+        canonical, variant, unknown = match_vocabulary(values, vocab[name], synonyms)
+        is_syn = _false(values)
+        if variant.any() and synonyms:  # a synonym, not a spelling variant of a term
+            loose = {vocab_key(t) for t in vocab[name]}
+            syn_values = [v for v in values[variant].unique()
+                          if isinstance(v, str) and vocab_key(v) not in loose]
+            is_syn = values.isin(syn_values) if syn_values else is_syn
+        if is_syn.any():
+            pos = np.flatnonzero(is_syn.to_numpy())
+            vals, canon = values.iloc[pos], canonical.iloc[pos]
+            probs.add("warning", "vocabulary-synonym", pos, name, vals,
+                      "'" + vals + f"' in {name} is read as '" + canon + "' (a synonym "
+                      "in vocabularies.json); write '" + canon + "' to silence this warning.")
+            counts = vals.groupby([vals, canon], sort=False).size()
+            lines += [f"{name} {v!r} -> {t!r} (synonym; {k} row{'s' if k != 1 else ''})"
+                      for (v, t), k in counts.items()]
+            variant = variant & ~is_syn
+        if variant.any() or is_syn.any():
+            work[name] = canonical
         if variant.any():
             pos = np.flatnonzero(variant.to_numpy())
             vals, canon = values.iloc[pos], canonical.iloc[pos]
@@ -170,6 +244,8 @@ def check_vocabularies(work: pd.DataFrame, probs, vocab: dict) -> None:
                        "vocabularies.json or a file passed with --vocab, e.g. "
                        f'{{"{name}": ["new term"]}}.')
             probs.add("error", "vocabulary", pos, name, vals,
-                      "'" + vals + f"' is not in the {name} vocabulary. Allowed: "
+                      "'" + vals + f"' is not in the {name} vocabulary" + vals.map(
+                          _did_you_mean(vocab[name], synonyms)) + f". Allowed: "
                       f"{allowed}; {how}")
             probs.flag(pos, name)
+    return lines

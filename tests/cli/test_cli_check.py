@@ -39,11 +39,12 @@ def test_invalid_table_json_lists_every_problem():
         ("error", "not-a-number", 5, "VX-13", "map_mm", "dry"),
         ("error", "vocabulary", 5, "VX-13", "vegetation", "prairie"),
         ("error", "unique-id", 5, "VX-13", "profile_id", "VX-13"),
-        ("error", "bk-depth-without-thickness", 5, "VX-13", "bk_thickness_cm", ""),
         ("error", "unique-id", 6, "VX-13", "profile_id", "VX-13"),
         ("error", "range", 6, "VX-13", "bk_depth_cm", "-5"),
         ("error", "mar-above-map", 6, "VX-13", "mar_mm", "700"),
         ("warning", "gypsum-above-carbonate", 3, "VX-11", "by_depth_cm", "10"),
+        # a Bk depth without a thickness: a warning (many compilations give no thickness)
+        ("warning", "bk-depth-without-thickness", 5, "VX-13", "bk_thickness_cm", ""),
         ("warning", "vocabulary-form", 6, "VX-13", "soil_order", "mollisol"),
     ]
     assert {"rule": "range", "severity": "error", "count": 2} in doc["summary"]
@@ -56,17 +57,33 @@ def test_invalid_table_text_report():
     result = run(DATA / "check_invalid.csv")
     assert result.exit_code == 1
     out = result.output
-    assert "8 errors" in out and "2 warnings" in out
-    assert "row 5  profile_id VX-13  map_mm = 'dry'  [not-a-number]" in out
+    assert "7 errors" in out and "3 warnings" in out
+    assert "[not-a-number] map_mm = 'dry': 1 row 5 (VX-13)" in out
+    # the duplicated id: one block for both rows, its fix said once
+    assert "[unique-id] profile_id = 'VX-13': 2 rows 5, 6" in out
+    assert out.count("every profile needs its own id") == 1
     assert "summary per rule" in out and "mar-above-map" in out
-    assert "INVALID: 8 errors in 3 rows" in out
-    assert out.index("8 errors") < out.index("2 warnings") < out.index("summary per rule")
+    assert "INVALID: 7 errors in 3 rows" in out
+    assert out.index("7 errors") < out.index("3 warnings") < out.index("summary per rule")
+
+
+def test_grouped_blocks_say_a_repeated_problem_once(tmp_path):
+    rows = ["profile_id,latitude,longitude,source,map_mm,parent_material"]
+    rows += [f"T-{k},-40,53,S,400,gravel" for k in range(30)]
+    (tmp_path / "t.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    result = run(tmp_path / "t.csv")
+    assert result.exit_code == 1
+    out = result.output
+    assert "30 errors in 1 block" in out
+    assert "[vocabulary] parent_material = 'gravel': 30 rows 2, 3, 4, 5, 6, 7, 8, 9, 10, 11 " \
+           "and 20 more" in out
+    assert out.count("is not in the parent_material vocabulary") == 1
 
 
 def test_text_report_is_capped_but_summary_complete():
     result = run(DATA / "check_invalid.csv", "--max-rows", "2")
     assert result.exit_code == 1
-    assert "... 6 more errors (use --format json for all)" in result.output
+    assert "... 4 more blocks of errors (raise --max-rows" in result.output
     assert "not-a-number" in result.output.split("summary per rule")[1]
 
 

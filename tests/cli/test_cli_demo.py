@@ -25,8 +25,18 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     out, result = demo_run
     assert result.exit_code == 0, result.output
     text = result.output
-    # the accounting the issue asks for: rows read = accepted + rejected, where each went
-    assert "Rows read 40 = accepted 26 + rejected 14." in text
+    # the accounting: rows read = accepted + rejected + suspect, where each went
+    assert "Rows read 45 = accepted 27 + rejected 15 + suspect 3." in text
+    # the planted slips and rows caught, each with what refit says about it
+    text = " ".join(text.split())  # messages are wrapped to the terminal
+    assert "This value fits if it is in mm: MAP (in) read in mm gives map_mm 300" in text
+    assert "This value fits if it is in cm: Depth to Bk (in) read in cm gives bk_depth_cm 150" \
+        in text
+    assert "This value fits if it is in mm: Depth to Bk (in) read in mm gives bk_depth_cm 35" \
+        in text
+    assert "[bk-too-shallow] bk_depth_cm = '1.524'" in text
+    assert "[map-below-bk-minimum] map_mm = '5.08'" in text
+    assert "'Bk depth SD (in)': refit keeps it as an extra column" in text
     for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
                  "7. Section", "8. Report", "Where everything went"):
         assert step in text
@@ -39,11 +49,12 @@ def test_demo_store_and_quarantine(demo_run):
     assert store.version == 2
     assert len(store.records) == store.manifest["row_count"]
     entry = store.manifest["changelog"][-1]
-    assert (entry["rows_read"], entry["accepted"], entry["rejected"]) == (40, 26, 14)
+    assert (entry["rows_read"], entry["accepted"], entry["rejected"], entry["suspect"]) == \
+        (45, 27, 15, 3)
     quarantined = pd.read_csv(out / "store" / entry["quarantine_file"], dtype=str)
-    assert len(quarantined) == 14 and quarantined["_reasons"].str.len().gt(0).all()
+    assert len(quarantined) == 18 and quarantined["_reasons"].str.len().gt(0).all()
     check = json.loads((out / "check-incoming.json").read_text(encoding="utf-8"))
-    assert check["n_rows"] == 40 and not check["ok"]
+    assert check["n_rows"] == 45 and not check["ok"]
 
 
 def test_demo_fit_publish_apply_compare(demo_run):

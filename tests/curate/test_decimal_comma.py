@@ -199,7 +199,7 @@ def test_refit_admit_stores_points_and_quarantines_the_file_text(tmp_path):
     store = tmp_path / "store"
     res = invoke("admit", path, "--into", store)
     assert res.exit_code == 0, res.output
-    assert "Rows read 3 = accepted 2 + rejected 1." in res.output
+    assert "Rows read 3 = accepted 2 + rejected 1 + suspect 0." in res.output
     assert "decimal comma: 9 number(s)" in res.output
     records = open_store(store).records
     assert records["latitude"].tolist() == [35.5, 36.1]

@@ -279,14 +279,31 @@ def test_table_level_errors_refuse_everything(tmp_path, base_store, header, rows
     assert snapshot(base_store) == before
 
 
-def test_batch_with_nothing_accepted_still_makes_a_version(tmp_path, base_store):
+def test_batch_with_nothing_accepted_is_recorded_without_a_new_version(tmp_path, base_store):
     records = (base_store / "records.csv").read_bytes()
     result = admit(write_csv(tmp_path / "bad.csv", [row("B-1", 1, 1)]), base_store, today=DAY)
-    assert (result.accepted, result.rejected, result.version_after) == (0, 1, 2)
+    assert (result.accepted, result.rejected, result.version_after) == (0, 1, 1)
+    assert not result.new_version
     assert (base_store / "records.csv").read_bytes() == records
     store = open_store(base_store)
-    assert store.version == 2 and store.manifest["changelog"][-1]["rejected"] == 1
-    assert (base_store / "quarantine" / "0002-bad.csv").is_file()
+    entry = store.manifest["changelog"][-1]
+    assert store.version == 1 and entry["kind"] == "attempt" and entry["rejected"] == 1
+    assert entry["version"] == 1 and entry["records_sha256"] == store.manifest["records_sha256"]
+    assert (base_store / entry["quarantine_file"]).is_file()
+    assert store.records_at(1).shape[0] == len(store.records_text)  # version 1 unchanged
+
+
+def test_same_file_twice_stops_unless_again(tmp_path, base_store):
+    from refit.curate.store import AlreadyAdmittedError
+
+    table = write_csv(tmp_path / "new.csv", [row("N-1", -41, 53)])
+    admit(table, base_store, today=DAY)
+    before = snapshot(base_store)
+    with pytest.raises(AlreadyAdmittedError, match="version 2.*--again"):
+        admit(table, base_store, today=DAY)
+    assert snapshot(base_store) == before  # nothing written
+    again = admit(table, base_store, today=DAY, again=True)
+    assert again.accepted == 0 and again.reasons["duplicate-id"] == 1
 
 
 def test_dry_run_writes_nothing(tmp_path, base_store):
@@ -359,7 +376,8 @@ def test_recovery_rolls_back_an_uncommitted_stage(base_store):
 def test_recovery_rolls_forward_a_committed_stage(tmp_path, base_store):
     done = tmp_path / "done"
     shutil.copytree(base_store, done)
-    admit(write_csv(tmp_path / "n.csv", [row("N-1", -41, 53, map_mm="x")]), done, today=DAY)
+    admit(write_csv(tmp_path / "n.csv", [row("N-1", -41, 53, map_mm="x"),
+                                        row("N-2", -42, 54)]), done, today=DAY)
     after = snapshot(done)
     stage = base_store / ".pending-test"
     for rel in ("records.csv", "manifest.json", "quarantine/0002-n.csv",

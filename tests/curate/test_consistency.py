@@ -1,0 +1,177 @@
+"""Admitting soils a reviewer would trust: unit slips, suspect rows, mixed units, accounting.
+
+References computed in the tests:
+- statsmodels ``RLM`` with ``HuberT`` (t = 1.345) and ``scale_est="mad"`` for the robust line;
+- statsmodels ``OLSInfluence.resid_studentized_external`` (the externally studentised
+  residual) for the standardised leave-one-out predictive residual with an OLS reference;
+- unit factors: NIST SP 811 (appendix B): 1 in = 25.4 mm exactly, 1 m = 100 cm, 1 cm = 10 mm.
+The store and incoming tables are seeded simulations (invented data).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from refit.curate import consistency as cs
+from refit.curate.store import admit, open_store
+from refit.errors import InvalidDataError, UsageError
+
+DAY = "2025-03-01"
+
+
+def soils(n, seed, *, start=0, prefix="S"):
+    """Seeded soils on the line MAP = 150 + 3.5 * Bk depth [mm, cm], SD 40 mm."""
+    rng = np.random.default_rng(seed)
+    depth = np.round(rng.uniform(20, 150, n), 1)
+    return pd.DataFrame({
+        "profile_id": [f"{prefix}-{k}" for k in range(start, start + n)],
+        "latitude": np.round(-40 - rng.uniform(0, 1, n), 5),
+        "longitude": np.round(52 + rng.uniform(0, 1, n), 5), "source": "SIM-2025",
+        "map_mm": np.round(150 + 3.5 * depth + rng.normal(0, 40, n), 1),
+        "bk_depth_cm": depth, "bk_thickness_cm": 30.0})
+
+
+@pytest.fixture
+def store(tmp_path):
+    path = tmp_path / "store"
+    soils(120, 1).to_csv(tmp_path / "base.csv", index=False)
+    admit(tmp_path / "base.csv", path, today=DAY)
+    return path
+
+
+def write(tmp_path, frame, name="new.csv"):
+    frame.to_csv(tmp_path / name, index=False)
+    return tmp_path / name
+
+
+# --- the reference line and the residual, against statsmodels -------------------------------
+
+def test_huber_line_matches_statsmodels_rlm():
+    sm = pytest.importorskip("statsmodels.api")
+    rng = np.random.default_rng(7)
+    x = rng.uniform(10, 200, 200)
+    y = 150 + 3 * x + rng.standard_t(3, 200) * 60
+    coef, scale, *_ = cs.huber_line(x, y)
+    ref = sm.RLM(y, sm.add_constant(x), M=sm.robust.norms.HuberT()).fit()  # scale_est="mad"
+    np.testing.assert_allclose(coef, ref.params, rtol=1e-6)
+    assert scale == pytest.approx(ref.scale, rel=1e-6)
+
+
+def test_loo_predictive_residual_is_the_externally_studentised_residual():
+    sm = pytest.importorskip("statsmodels.api")
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    frame = soils(60, 3)
+    ref = cs.reference_fit(frame, "map_mm", "bk_depth_cm", robust=False)
+    new_x, new_y = np.array([40.0, 140.0, 95.0]), np.array([900.0, 300.0, 480.0])
+    z = ref.z(new_x, new_y)
+    for k in range(3):  # each new soil appended alone to the store: its external residual
+        x = np.append(frame["bk_depth_cm"], new_x[k])
+        y = np.append(frame["map_mm"], new_y[k])
+        infl = OLSInfluence(sm.OLS(y, sm.add_constant(x)).fit())
+        assert z[k] == pytest.approx(infl.resid_studentized_external[-1], rel=1e-9)
+
+
+# --- unit slips of whole columns: refused with the evidence, --unit confirms ------------------
+
+@pytest.mark.parametrize("column, header, factor, likely", [
+    ("map_mm", "map_mm", 1 / 25.4, "inches"),      # MAP typed in inches (NIST SP 811)
+    ("bk_depth_cm", "bk_depth_cm", 1 / 100, "metres"),   # depths in metres
+    ("bk_depth_cm", "bk_depth_cm", 10, "mm"),       # depths in mm under a cm header
+])
+def test_column_slip_is_refused_once_with_evidence(tmp_path, store, column, header, factor,
+                                                   likely):
+    new = soils(20, 5, start=500)
+    new[column] = np.round(new[column] * factor, 4)
+    before = (store / "manifest.json").read_bytes()
+    with pytest.raises(InvalidDataError) as err:
+        admit(write(tmp_path, new), store, today=DAY)
+    text = str(err.value)
+    assert f"looks like {likely}" in text and "median" in text and "--unit" in text
+    assert text.count("looks like") == 1 and "nothing was written" in text
+    assert (store / "manifest.json").read_bytes() == before
+    unit = {"inches": "in", "metres": "m", "mm": "mm"}[likely]
+    result = admit(write(tmp_path, new), store, today=DAY, units={header: unit})
+    assert result.accepted == 20 and result.suspect == 0
+    back = open_store(store).records.set_index("profile_id").loc["S-500", column]
+    assert back == pytest.approx(new.loc[0, column] / factor, rel=1e-9)
+
+
+def test_unit_option_for_a_missing_column_is_a_usage_error(tmp_path, store):
+    with pytest.raises(UsageError, match="does not have"):
+        admit(write(tmp_path, soils(5, 9, start=700)), store, units={"MAP (in)": "mm"})
+
+
+# --- single rows: suspect, with the unit they fit in ------------------------------------------
+
+def test_single_row_slips_are_suspect_and_say_which_unit_fits(tmp_path, store):
+    new = soils(20, 11, start=900)
+    new.loc[0, "map_mm"] = round(new.loc[0, "map_mm"] / 25.4, 2)      # inches
+    new.loc[1, "bk_depth_cm"] = round(new.loc[1, "bk_depth_cm"] * 10, 1)  # mm for cm
+    result = admit(write(tmp_path, new), store, today=DAY)
+    # the MAP in inches (about 16 mm) is also below any Bk soil: rejected, and its reasons
+    # say which unit it fits in; the depth in mm is legal alone: suspect
+    assert (result.rows_read, result.accepted, result.rejected, result.suspect) == \
+        (20, 18, 1, 1)
+    by_row = {s["pos"]: s for s in result.suspect_rows}
+    assert "This value fits if it is in inches" in by_row[0]["message"]
+    assert "fits if it is in mm" in by_row[1]["message"]
+    assert abs(by_row[0]["z"]) > cs.SUSPECT_Z and "threshold is |z| 3.5" in by_row[0]["message"]
+    quarantine = pd.read_csv(store / result.quarantine_file, dtype=str)
+    assert set(quarantine["profile_id"]) == {"S-900", "S-901"}
+    assert quarantine["_reasons"].str.contains("suspect-residual").all()
+    assert quarantine.set_index("profile_id").loc["S-900", "_reasons"].count(
+        "map-below-bk-minimum") == 1
+
+
+def test_accept_suspect_admits_them_with_a_warning(tmp_path, store):
+    new = soils(10, 12, start=950)
+    new.loc[0, "bk_depth_cm"] = round(new.loc[0, "bk_depth_cm"] * 10, 1)  # mm for cm
+    result = admit(write(tmp_path, new), store, today=DAY, accept_suspect=True)
+    assert (result.accepted, result.suspect, result.suspect_accepted) == (10, 0, 1)
+
+
+def test_mixed_units_in_one_column_are_refused_with_the_rows(tmp_path, store):
+    new = soils(12, 13, start=1000)
+    new.loc[:3, "map_mm"] = (new.loc[:3, "map_mm"] / 25.4).round(2)  # 4 of 12 rows in inches
+    with pytest.raises(InvalidDataError, match=r"(?s)mixed units.*4 rows fit only in inches "
+                                               r"\(file rows 2, 3, 4, 5\)"):
+        admit(write(tmp_path, new), store, today=DAY)
+
+
+def test_tiny_store_skips_the_consistency_test_and_says_so(tmp_path):
+    soils(5, 2).to_csv(tmp_path / "b.csv", index=False)
+    admit(tmp_path / "b.csv", tmp_path / "s", today=DAY)
+    new = soils(5, 4, start=50)
+    new.loc[0, "map_mm"] = 20.0
+    result = admit(write(tmp_path, new), tmp_path / "s", today=DAY)
+    assert result.suspect == 0 and "skipped: the store has 5 soils" in result.consistency[0]
+
+
+def test_all_missing_column_is_admitted_without_a_slip(tmp_path, store):
+    new = soils(8, 14, start=1100)
+    new["bk_thickness_cm"] = np.nan
+    result = admit(write(tmp_path, new), store, today=DAY)
+    assert result.accepted == 8 and result.warnings == {"bk-depth-without-thickness": 8}
+
+
+# --- accounting: nothing lost ----------------------------------------------------------------
+
+@settings(max_examples=12, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(seed=st.integers(0, 10_000), n_inch=st.integers(0, 2), n_bad=st.integers(0, 3))
+def test_rows_read_equal_accepted_rejected_and_suspect(tmp_path_factory, seed, n_inch, n_bad):
+    tmp = tmp_path_factory.mktemp("acc")
+    soils(60, 1).to_csv(tmp / "b.csv", index=False)
+    admit(tmp / "b.csv", tmp / "s", today=DAY)
+    new = soils(15, seed, start=2000)
+    new.loc[: n_inch - 1, "map_mm"] = (new.loc[: n_inch - 1, "map_mm"] / 25.4).round(2)
+    new.loc[14 - n_bad + 1:, "latitude"] = 95.0
+    result = admit(write(tmp, new), tmp / "s", today=DAY)
+    assert result.rows_read == result.accepted + result.rejected + result.suspect == 15
+    held = pd.read_csv(tmp / "s" / result.quarantine_file) if result.quarantine_file else []
+    assert len(held) == result.rejected + result.suspect
