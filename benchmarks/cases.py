@@ -280,7 +280,6 @@ def _admit_tables(ctx: Context) -> tuple[Path, Path]:
     import os
     import shutil
 
-    import pandas as pd
 
     store = ctx.data_dir / f"admit_store_{ADMIT_STORE_ROWS}_{ctx.seed}"
     batch = ctx.data_dir / f"admit_batch_{ADMIT_BATCH_ROWS}_{ctx.seed}.csv"
