@@ -37,6 +37,7 @@ class DemoResult:
     applied: object = None    # refit.apply.estimates.ApplyResult
     comparison: object = None  # pandas.DataFrame from refit.apply.compare
     section: object = None     # refit.apply.section.SectionResult
+    forward: list = field(default_factory=list)  # forward coefficient files (posterior)
 
 
 def prepare_out_dir(out: Path) -> None:
@@ -86,6 +87,7 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
     _fit(out, result, say, progress)
     shown("fit", result)
     _publish(out, result, say)
+    _forward_fits(out, result, say)
     _apply_and_compare(out, result, say)
     shown("compare", result)
     _section(out, result, say)
@@ -154,23 +156,60 @@ def _publish(out: Path, result: DemoResult, say) -> None:
     result.outputs["registry (published fit)"] = result.published.path
 
 
+FORWARD_RECIPES = ("forward_bk_depth.toml", "forward_cia_k.toml")
+
+
+def _forward_fits(out: Path, result: DemoResult, say) -> None:
+    """Forward fits of two proxies (depth to Bk, CIA-K) on the updated store, for the
+    posterior of the fossils measured by both."""
+    import pandas as pd
+
+    from refit._util.atomic import write_text_atomic
+    from refit.select.recipe import read_recipe
+    from refit.soil.indices import derive_indices
+    from refit.validate.candidates import run_recipe
+    from refit.validate.runfolder import write_run
+
+    folder = out / "forward"
+    say("[bold]4b. Forward fits[/bold] of two proxies (depth to Bk, CIA-K on MAP) for the "
+        "posterior")
+    soils = derive_indices(pd.read_csv(out / "store" / "records.csv", low_memory=False))
+    write_text_atomic(folder / "soils_with_indices.csv", soils.to_csv(index=False))
+    for name in FORWARD_RECIPES:
+        recipe = folder / name
+        shutil.copyfile(demo_dir() / name, recipe)
+        run = run_recipe(read_recipe(recipe))
+        run_dir = write_run(run, folder / f"run_{recipe.stem}",
+                            argv=["refit", "fit", str(recipe)])
+        result.forward.append(winning_fit(run_dir, run.matrix.leaderboard))
+    say(f"   {', '.join(p.name for p in result.forward)} -> {folder}")
+    result.outputs["forward fits (posterior)"] = folder
+
+
 def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     from refit._util.atomic import write_bytes_atomic, write_text_atomic
     from refit.apply.compare import comparison_table, figure_pngs, page_names
 
-    files = [result.published.path, *published_equations()]
+    files = [result.published.path, *result.forward, *published_equations()]
     fossils = demo_dir() / "fossils.csv"
     constants = demo_dir() / CONSTANTS
-    say(f"[bold]5. Apply[/bold] the published fit and {len(files) - 1} published equations "
+    say(f"[bold]5. Apply[/bold] the published fit, {len(result.forward)} forward fits and "
+        f"{len(files) - 1 - len(result.forward)} published equations "
         f"to the demo fossils ({fossils.name}), depths decompacted for burial (constants: "
         f"{constants.name}, invented for the demo), measurement and burial SDs propagated "
-        "by Monte Carlo")
+        "by Monte Carlo; the posterior for MAP from the two forward files (one proxy, and "
+        "both together where a paleosol has both)")
     from refit.apply.estimates import apply_files
+    from refit.apply.posterior import posterior_record
 
     result.applied = apply_files([str(f) for f in files], fossils, seed=SEED,
-                                 decompact=True, constants_file=constants)
+                                 decompact=True, constants_file=constants, posterior=True)
     estimates = out / "estimates.csv"
     write_text_atomic(estimates, result.applied.results.to_csv(index=False))
+    write_text_atomic(out / "estimates.csv.posterior.json",
+                      json.dumps(posterior_record(result.applied.posteriors, 0.95),
+                                 indent=2) + "\n")
+    _say_posterior(result.applied.results, say)
     result.outputs["fossil estimates"] = estimates
     say("[bold]6. Compare[/bold] the intervals fit by fit")
     result.comparison = comparison_table(result.applied.results)
@@ -181,6 +220,16 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
         write_bytes_atomic(folder / name, png)
     say(f"   every paleosol drawn: {len(pngs)} figure file(s) in {folder}")
     result.outputs["interval comparison (csv, png)"] = folder
+
+
+def _say_posterior(results, say) -> None:
+    """One line per paleosol with two proxies: the combined posterior and the test."""
+    both = results[results["function_id"] == "posterior"]
+    for r in both.itertuples(index=False):
+        verdict = "DISAGREE" if "proxies-disagree" in str(r.flags) else "agree"
+        say(f"   {r.paleosol_id}: posterior median {r.posterior_median:.0f} mm "
+            f"[{r.posterior_lower:.0f}, {r.posterior_upper:.0f}] from both proxies; "
+            f"consistency chi2 {r.proxy_chi2:.2f}, p {r.proxy_chi2_p:.2f}: {verdict}")
 
 
 def _section(out: Path, result: DemoResult, say) -> None:

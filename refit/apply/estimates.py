@@ -38,12 +38,12 @@ import pandas as pd
 
 from refit.errors import RefitError
 
+from refit.apply.combine import FLAG_CORRELATED, FLAG_DISAGREE, combine_proxies  # noqa: F401
 from refit.apply.propagation import N_DRAWS, mixture_interval, propagate, truncated_normal  # noqa: F401
 
 FLAG_SETTING = "setting-mismatch"
 FLAG_UNRECORDED = "setting-not-recorded"
 FLAG_PUBLISHED = "published-plus-minus-only"
-FLAG_CORRELATED = "proxies-may-be-correlated"
 FLAG_NO_INTERVAL = "no-interval"
 FLAG_NOT_DECOMPACTED = "not-decompacted"
 CAUTIONS = (
@@ -81,6 +81,8 @@ class ApplyResult:
     warnings: list[str] = field(default_factory=list)
     #: the checked fossil table, indexed by file row (sections and levels for ``section``)
     fossils: pd.DataFrame | None = None
+    #: with ``posterior``: the prior, grid and files of every posterior (JSON beside the CSV)
+    posteriors: list[dict] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -120,44 +122,6 @@ def _filter_text(kind: str, value) -> str:
         return " and ".join(t for t in (f">= {lo:g}" if lo is not None else "",
                                         f"<= {hi:g}" if hi is not None else "") if t)
     return f"= {value!r}"
-
-
-def combine_proxies(results: pd.DataFrame, level: float) -> pd.DataFrame:
-    """Inverse-variance weighted estimate per paleosol and response across proxies.
-
-    One file per predictor set is used (the first); each file's standard error is its
-    interval width over ``2 z`` (``z`` the normal quantile of its level; a published
-    +- is one standard error). Returns rows shaped like ``results`` with ``function_id``
-    ``combined``, flagged ``proxies-may-be-correlated``.
-    """
-    from scipy import special
-
-    ok = results[np.isfinite(results["lower"]) & np.isfinite(results["upper"])
-                 & results["problem"].eq("")]
-    rows = []
-    for (pid, resp), grp in ok.groupby(["paleosol_id", "response"], sort=False):
-        grp = grp.drop_duplicates("predictors_used")
-        if grp["predictors_used"].nunique() < 2:
-            continue
-        z = np.where(grp["level"].isna(), 1.0,
-                     special.ndtri(0.5 + grp["level"].fillna(0.6827).to_numpy() / 2))
-        se = (grp["upper"] - grp["lower"]).to_numpy() / (2 * z)
-        w = 1.0 / se**2
-        est = float(np.sum(w * grp["estimate"]) / w.sum())
-        s = 1.0 / math.sqrt(w.sum())
-        zq = float(special.ndtri(0.5 + level / 2))
-        first = grp.iloc[0]
-        rows.append({**{c: None for c in results.columns}, "version": "",
-                     "status": "combined", "candidate": "", "paleosol_id": pid,
-                     "row": first["row"], "function_id": "combined", "response": resp,
-                     "unit": first["unit"], "coefficient_file": " + ".join(grp["coefficient_file"]),
-                     "predictors_used": " + ".join(grp["predictors_used"]),
-                     "estimate": est, "lower": est - zq * s, "upper": est + zq * s,
-                     "level": level, "interval": "inverse-variance combination (normal)",
-                     "flags": FLAG_CORRELATED, "flag_details": "the proxies' errors may be "
-                     "correlated (same soil, same calibration data); the combined interval "
-                     "is then too narrow", "problem": "", "propagation": "none"})
-    return pd.DataFrame(rows, columns=results.columns)
 
 
 # ----------------------------------------------------------------------------- inputs
@@ -264,7 +228,8 @@ RESULT_COLUMNS = [
 
 def apply_equations(equations, report, *, level: float | None = None,
                     decompact: bool = False, constants=None, seed: int = 0,
-                    n_draws: int = N_DRAWS, combine: bool = False) -> ApplyResult:
+                    n_draws: int = N_DRAWS, combine: bool = False,
+                    posterior: bool = False, prior=None) -> ApplyResult:
     """Evaluate coefficient files on a checked fossil table.
 
     Parameters
@@ -285,7 +250,13 @@ def apply_equations(equations, report, *, level: float | None = None,
     n_draws : int
         Monte Carlo draws per paleosol.
     combine : bool
-        Add inverse-variance combined estimates across proxies (:func:`combine_proxies`).
+        Add combined estimates across proxies, weighted by cross-validated errors and
+        tested for consistency (:func:`refit.apply.combine.combine_proxies`).
+    posterior : bool
+        Add the posterior for climate of forward files, one proxy and all proxies
+        together (:func:`refit.apply.posterior.add_posteriors`).
+    prior : refit.models.posterior.Prior, optional
+        The posterior's prior (default uniform over the calibration range).
 
     Returns
     -------
@@ -315,11 +286,33 @@ def apply_equations(equations, report, *, level: float | None = None,
         out += _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems,
                           level=level, decompact=decompact, seed=seed, n_draws=n_draws)
     results = pd.DataFrame(out, columns=RESULT_COLUMNS)
+    lv = 0.95 if level is None else level
     if combine and len(results):
-        lv = 0.95 if level is None else level
-        results = pd.concat([results, combine_proxies(results, lv)], ignore_index=True)
+        recs = {label: eq.record for label, eq in equations}
+        results = pd.concat([results, combine_proxies(results, lv, recs)],
+                            ignore_index=True)
+    posteriors = []
+    if posterior and len(results):
+        results, posteriors = _posteriors(results, equations, frame, inputs, record,
+                                          problems, decompact=decompact, seed=seed,
+                                          n_draws=n_draws, prior=prior, level=lv)
     return ApplyResult(results, record, problems, cautions, list(report.notes),
-                       burial_warnings(results), frame.set_axis(rows))
+                       burial_warnings(results), frame.set_axis(rows), posteriors)
+
+
+def _posteriors(results, equations, frame, inputs, record, problems, *, decompact, seed,
+                n_draws, prior, level):
+    """The results with the posterior columns and rows (:mod:`refit.apply.posterior`)."""
+    from refit.apply.posterior import add_posteriors, measurement_sds
+
+    def sds_for(preds):
+        return measurement_sds(frame, inputs, preds, decompact, record, seed, n_draws,
+                               _draws, base_columns)
+
+    results, records, more = add_posteriors(results, equations, inputs, sds_for,
+                                            prior=prior, level=level)
+    problems += more
+    return results, records
 
 
 def burial_warnings(results: pd.DataFrame) -> list[str]:
@@ -455,7 +448,7 @@ def _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols) -> str:
 
 def apply_files(coefficient_files, fossils, *, level=None, decompact=False,
                 constants_file=None, seed=0, n_draws=N_DRAWS, combine=False,
-                vocabularies=None) -> ApplyResult:
+                vocabularies=None, posterior=False, prior=None) -> ApplyResult:
     """:func:`apply_equations` from paths: coefficient files, a fossil table (path, or a
     frame already holding canonical columns) and an optional compaction-constants file.
 
@@ -487,6 +480,6 @@ def apply_files(coefficient_files, fossils, *, level=None, decompact=False,
                                " (run `refit check --kind fossil` for every problem)")
     result = apply_equations(equations, report, level=level, decompact=decompact,
                              constants=constants, seed=seed, n_draws=n_draws,
-                             combine=combine)
+                             combine=combine, posterior=posterior, prior=prior)
     result.problems[:0] = problems
     return result

@@ -20,14 +20,21 @@ from refit.cli.common import (
               help="Write the results (and, with --decompact, CSV.decompaction.csv).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing --out file.")
 @click.option("--combine", is_flag=True,
-              help="Add an inverse-variance combined estimate per paleosol across proxies.")
+              help="Add a combined estimate per paleosol across proxies, weighted by "
+                   "cross-validated errors and tested for consistency (proxies-disagree).")
+@click.option("--posterior", is_flag=True,
+              help="Add the posterior for climate from forward files (one proxy, and all "
+                   "proxies of a paleosol together); its prior and grid go to CSV.posterior.json.")
+@click.option("--prior", metavar="SPEC",
+              help="Prior of --posterior: uniform:LOW:HIGH or normal:MEAN:SD in climate "
+                   "units (default uniform over the calibration range).")
 @click.option("--ignore-columns", "ignore_columns", metavar="COLUMN", multiple=True,
               help="Go on without an unmapped column that looks like a measurement SD "
                    "(its error is then not propagated); repeatable.")
 @click.pass_context
 @guarded
 def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, out,
-          overwrite, combine, ignore_columns) -> None:
+          overwrite, combine, ignore_columns, posterior=False, prior=None) -> None:
     """Estimate the climate of each paleosol in TABLE with each COEFFICIENTS file.
 
     For each paleosol and each file whose predictors the table has: estimate, lower and
@@ -36,6 +43,12 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     Measurement SDs (columns like bk_depth_sd_cm) and, with --decompact, the burial
     depth SD are propagated into the interval by seeded Monte Carlo. Rows with bad
     values are reported and the others still evaluated.
+
+    With --posterior, forward files also give the posterior for climate (columns
+    posterior_median, posterior_mode, posterior_lower, posterior_upper, HDI, flags,
+    proxy_chi2 and proxy_chi2_p beside the frequentist ones); a paleosol measured by two
+    or more proxies gets one "posterior" row, the combined answer, flagged
+    proxies-disagree when they do not agree.
 
     \b
     Exit codes: 0 every row evaluated, 1 some rows or files could not be (the rest is
@@ -46,6 +59,8 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
       refit apply runs/bk/fits/*.json --fossils calib_demo/fossils.csv
       refit apply map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
           --compaction-constants constants.csv --out estimates.csv
+      refit apply bk_forward.json cia_k_forward.json --fossils fossils.csv \\
+          --posterior --prior uniform:100:1500 --out estimates.csv
     """
     from pathlib import Path
 
@@ -53,11 +68,17 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     from refit.curate.fossils import ignoring_columns
     from refit.errors import UsageError
 
+    from refit.apply.posterior import parse_prior
+
     if out and Path(out).exists() and not overwrite:
         raise UsageError(f"--out {out} exists; pass --overwrite to replace it")
+    if prior and not posterior:
+        raise UsageError("--prior is the prior of --posterior; add --posterior")
+    prior_obj = parse_prior(prior)
     with ignoring_columns(ignore_columns):
         result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
-                             constants_file=constants_file, seed=seed, combine=combine)
+                             constants_file=constants_file, seed=seed, combine=combine,
+                             posterior=posterior, prior=prior_obj)
     console = stdout_console()
     print_results(result.results, console)
     if out:
@@ -73,6 +94,15 @@ def _write(result, out: str) -> None:
     from refit._util.atomic import write_text_atomic
 
     write_text_atomic(out, result.results.to_csv(index=False))
+    if result.posteriors:
+        import json
+
+        from refit.apply.posterior import posterior_record
+
+        level = result.posteriors[0]["level"]
+        write_text_atomic(out + ".posterior.json",
+                          json.dumps(posterior_record(result.posteriors, level), indent=2,
+                                     default=float) + "\n")
     if result.decompaction is not None:
         write_text_atomic(out + ".decompaction.csv",
                           result.decompaction.to_csv(index=False))

@@ -585,6 +585,40 @@ class Equation:
                           bool(iv.get("exact", True)), cautions)
 
 
+    def posterior(self, values, sd=None, prior=None, level: float = 0.95, **options):
+        """Posterior for climate of each fossil from this forward file alone.
+
+        Parameters
+        ----------
+        values : array_like (m,)
+            The feature as measured [unit of ``predictors[0].unit``]; NaN: not measured.
+        sd : float or array_like, optional
+            Measurement SDs of the values [same unit]; NaN beside a value is taken as 0
+            and flagged ``measurement-sd-missing``.
+        prior : refit.models.posterior.Prior or dict, optional
+            Default uniform over the file's calibration range of climate.
+        level : float
+            Probability of the equal-tailed interval and the highest-density region.
+        **options
+            ``n_grid``, ``keep_density``, ``hdi`` of
+            :func:`refit.coefficients.posterior.posterior_from_records`.
+
+        Returns
+        -------
+        refit.models.posterior.Posterior
+
+        Raises
+        ------
+        UsageError
+            An inverse file, a file whose only error figure is a published +-, a file
+            without a covariance (see :mod:`refit.coefficients.posterior`).
+        """
+        from refit.coefficients.posterior import posterior_from_records
+
+        return posterior_from_records([self.record], values, sd, prior=prior, level=level,
+                                      **options)
+
+
 def load(path) -> Equation:
     """Load a coefficient file (hash-checked and validated by :func:`read_record`)."""
     return Equation(read_record(path), Path(path))
