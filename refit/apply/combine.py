@@ -137,8 +137,8 @@ def _row(columns, grp, keep, se, hows, pid, resp, level, zq) -> dict:
     left = [h for h, k in zip(hows, keep) if not k]
     used = [h for h, k in zip(hows, keep) if k]
     flags = [FLAG_CORRELATED] + ([FLAG_LEFT_OUT] if left else [])
-    details = ["the proxies' errors may be correlated (same soil, same calibration "
-               "data); the combined interval is then too narrow"] + left
+    details = [("the proxies' errors may be correlated (same soil, same calibration "
+                "data); the combined interval is then too narrow"), *left]
     if keep.sum() < 2:
         r.update(flags=";".join(flags), flag_details="; ".join(details),
                  problem="fewer than two proxies with a cross-validated (predictive) error: "

@@ -100,7 +100,7 @@ def measurement_sds(frame, inputs, preds, decompact, record, seed, n_draws, draw
             continue
         for i in range(m):
             rng = np.random.default_rng([int(seed), i])
-            d, varied = draws_fn(frame, i, [p], decompact, record, rng, n_draws)
+            d, _ = draws_fn(frame, i, [p], decompact, record, rng, n_draws)
             if d is not None:
                 v = d[:, 0][np.isfinite(d[:, 0])]
                 out[i, k] = float(np.std(v, ddof=1)) if v.size > 1 else math.nan
@@ -167,7 +167,7 @@ def add_posteriors(results: pd.DataFrame, equations, inputs, sds_for, *, prior=N
             continue
         if rows.sum() == m:
             groups.setdefault(eq.record["response"]["name"], []).append((label, eq, rows))
-    for response, members in groups.items():
+    for members in groups.values():
         combined += _group(out, members, inputs, sds_for, prior, level, records,
                            problems, posterior_from_records)
     if combined:
@@ -260,5 +260,5 @@ def posterior_record(records: list[dict], level: float) -> dict:
             "posteriors": records}
 
 
-__all__ = ["COMBINED_ID", "POSTERIOR_COLUMNS", "add_posteriors", "measurement_sds",
-           "parse_prior", "posterior_record", "usable", "UsageError"]
+__all__ = ["COMBINED_ID", "POSTERIOR_COLUMNS", "UsageError", "add_posteriors",
+           "measurement_sds", "parse_prior", "posterior_record", "usable"]

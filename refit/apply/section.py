@@ -40,6 +40,8 @@ TABLE_COLUMNS = [
 ]
 #: what an interval is, for the figure's line styles
 PREDICTION, PUBLISHED_SE, NO_INTERVAL = "prediction", "published ±1 SE", "none"
+#: a posterior's median and equal-tailed interval (``apply --posterior``)
+POSTERIOR = "posterior"
 UNNAMED_SECTION = "(no section given)"
 
 
@@ -234,12 +236,37 @@ def section_table(results: pd.DataFrame, fossils: pd.DataFrame, *,
         t[c] = t[c].astype(float)
     t["interval_kind"] = [interval_kind(f, lo, hi) for f, lo, hi in
                           zip(t["flags"], t["lower"], t["upper"])]
+    t = with_posteriors(t)
     t["age"], t["age_sd"], t["age_unit"] = np.nan, np.nan, ""
     order = {s: i for i, s in enumerate(dict.fromkeys(t["section"]))}
     fits = {f: i for i, f in enumerate(dict.fromkeys(t["fit"]))}
     t = t.assign(_s=t["section"].map(order), _f=t["fit"].map(fits))
     t = t.sort_values(["_s", "level_m", "row", "_f"], kind="stable", na_position="last")
     return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
+
+
+def with_posteriors(t: pd.DataFrame) -> pd.DataFrame:
+    """The section rows plus, for each forward file's row with a posterior, a row of the
+    fit ``"<fit> posterior"`` holding its posterior median and interval; the combined
+    posterior rows (``function_id`` ``posterior``) are of interval kind posterior too.
+    A table without posterior columns is returned as it is."""
+    if "posterior_median" not in t.columns:
+        return t
+    t = t.copy()
+    combined = (t["function_id"] == "posterior").to_numpy()
+    t.loc[combined, "interval_kind"] = POSTERIOR
+    t.loc[combined, "origin"] = "refit"
+    med = pd.to_numeric(t["posterior_median"], errors="coerce").to_numpy(float)
+    one = t[np.isfinite(med) & ~combined].copy()
+    if one.empty:
+        return t
+    one["fit"] = one["fit"] + " posterior"
+    one["estimate"] = one["posterior_median"].astype(float)
+    one["lower"] = one["posterior_lower"].astype(float)
+    one["upper"] = one["posterior_upper"].astype(float)
+    one["flags"] = one["posterior_flags"].fillna("")
+    one["interval_kind"] = POSTERIOR
+    return pd.concat([t, one], ignore_index=True)
 
 
 def add_ages(table: pd.DataFrame, ages, sds, unit: str) -> pd.DataFrame:
@@ -336,7 +363,7 @@ def resolution_notes(table: pd.DataFrame, axis: str = "level_m") -> list[str]:
 def section_files(coefficient_files, fossils, *, age_column: str | None = None,
                   age_sd_column: str | None = None, age_model=None, level=None,
                   decompact: bool = False, constants_file=None,
-                  seed: int = 0) -> SectionResult:
+                  seed: int = 0, posterior: bool = False, prior=None) -> SectionResult:
     """Apply coefficient files to a fossil table and lay the estimates out by section.
 
     Parameters
@@ -351,8 +378,9 @@ def section_files(coefficient_files, fossils, *, age_column: str | None = None,
         Its standard deviation; default ``age_sd_<unit>`` when the table has it.
     age_model : str or Path, optional
         An age model table (:func:`read_age_model`); not with ``age_column``.
-    level, decompact, constants_file, seed
-        As :func:`refit.apply.estimates.apply_files`.
+    level, decompact, constants_file, seed, posterior, prior
+        As :func:`refit.apply.estimates.apply_files` (with ``posterior`` the forward
+        files' posteriors are drawn beside their frequentist intervals).
 
     Returns
     -------
@@ -371,6 +399,7 @@ def section_files(coefficient_files, fossils, *, age_column: str | None = None,
     if age_column and age_model:
         raise UsageError("give either --age-column or --age-model, not both")
     applied = apply_files(coefficient_files, fossils, level=level, decompact=decompact,
+                          posterior=posterior, prior=prior,
                           constants_file=constants_file, seed=seed)
     table = section_table(applied.results, applied.fossils, name=Path(str(fossils)).stem)
     axis, label = "level_m", "level [m]"

@@ -28,6 +28,7 @@ import numpy as np
 from refit.report import style
 
 PREDICTION, PUBLISHED_SE = "prediction", "published ±1 SE"  # refit.apply.section
+POSTERIOR = "posterior"  # refit.apply.section: a posterior's median and interval
 #: one colour per fit, in order (Okabe-Ito without black and yellow first; yellow last,
 #: it is faint on white)
 PALETTE = (style.BLUE, style.VERMILLION, style.BLUISH_GREEN, style.REDDISH_PURPLE,
@@ -78,6 +79,8 @@ def fit_name(row) -> str:
     """A fit's name in the legend: a literature equation by its file's name (which
     carries the source), a refit fit by function, version and candidate."""
     stem = Path(str(row["coefficient_file"] or "")).stem
+    if row["function_id"] == "posterior":
+        return "posterior of all proxies together (refit)"
     if row["origin"] == "literature":
         return (stem if stem and stem != str(row["function_id"]) else str(row["fit"])) + \
             " (published)"
@@ -87,7 +90,10 @@ def fit_name(row) -> str:
 def colours(table) -> dict:
     """Colour and marker of each fit, in the table's order of fits."""
     fits = list(dict.fromkeys(table["fit"]))
-    return {f: (PALETTE[i % len(PALETTE)], MARKERS[i % len(MARKERS)])
+    post = set(table.loc[table["interval_kind"] == POSTERIOR, "fit"]) \
+        if "interval_kind" in table else set()
+    others = [m for m in MARKERS if m != "D"]    # the diamond marks a posterior
+    return {f: (PALETTE[i % len(PALETTE)], "D" if f in post else others[i % len(others)])
             for i, f in enumerate(fits)}
 
 
@@ -208,7 +214,8 @@ def _panel(ax, g, axis: str, xclip: tuple, style_of: dict) -> None:
         order = np.argsort(yy, kind="stable")
         ax.plot(est[order], yy[order], color=colour, lw=0.8, alpha=0.55, zorder=2,
                 gid=f"path:{fit}")
-        for kind, ls, lw in ((PREDICTION, "-", 2.4), (PUBLISHED_SE, "--", 1.3)):
+        for kind, ls, lw in ((PREDICTION, "-", 2.4), (PUBLISHED_SE, "--", 1.3),
+                             (POSTERIOR, ":", 2.4)):
             k = (rows["interval_kind"] == kind).to_numpy()
             if not k.any():
                 continue
@@ -272,6 +279,11 @@ def _style_handles(t, axis: str) -> list:
         what = f"{float(lv.iloc[0]):.0%} " if len(lv) and lv.nunique() == 1 else ""
         out.append(Line2D([], [], color="#444444", lw=2.4,
                           label=f"{what}prediction interval"))
+    if POSTERIOR in kinds:
+        out.append(Line2D([], [], color="#444444", lw=2.4, ls=":", marker="D", ms=4,
+                          label="posterior median and equal-tailed interval (dotted; "
+                                "fits named '... posterior', 'posterior combined': all "
+                                "proxies together)"))
     if "published ±1 SE" in kinds:
         out.append(Line2D([], [], color="#444444", lw=1.3, ls="--",
                           label="published ±1 SE (not a prediction interval)"))

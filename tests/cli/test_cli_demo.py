@@ -97,10 +97,19 @@ def test_demo_draws_each_section_and_embeds_it(demo_run):
         "section-coldstave-gorge.png", "section-murrenhal-bluff.png"]
     t = pd.read_csv(folder / "section.csv")
     est = pd.read_csv(out / "estimates.csv")
-    assert len(t) == len(est)
-    merged = t.merge(est, on=["paleosol_id", "coefficient_file"], suffixes=("", "_a"))
+    # one row per estimate, plus one per forward file's posterior (drawn beside it)
+    plain = t[~t["fit"].str.endswith(" posterior")]
+    assert len(plain) == len(est)
+    merged = plain.merge(est, on=["paleosol_id", "coefficient_file", "function_id"],
+                         suffixes=("", "_a"))
+    assert len(merged) == len(est)
     assert (merged["estimate"].fillna(-1) == merged["estimate_a"].fillna(-1)).all()
-    assert t["fit"].nunique() == 6 and (t["origin"] == "refit").any()
+    single = t[t["fit"].str.endswith(" posterior")]
+    assert len(single) == est["posterior_median"].notna().sum() - \
+        (est["function_id"] == "posterior").sum()
+    # the published fit, 5 literature equations, 2 forward fits, their 2 posteriors and
+    # the posterior of both proxies together
+    assert t["fit"].nunique() == 11 and (t["origin"] == "refit").any()
     html = (out / "report.html").read_text(encoding="utf-8")
     assert 'id="sections"' in html and html.count('class="section-figure"') == 2
     assert "Notes on the sections" in html
@@ -150,3 +159,25 @@ def test_demo_replaces_its_own_earlier_output(demo_run):
     assert CliRunner().invoke(main, ["demo", "--out", str(out), "--quiet"]).exit_code == 0
     # same recipe, same data version, same seed: the same numbers
     assert (out / "run" / "leaderboard.csv").read_bytes() == first
+
+
+def test_demo_shows_the_posterior_of_two_proxies(demo_run):
+    out, result = demo_run
+    est = pd.read_csv(out / "estimates.csv", keep_default_na=False, na_values=[""])
+    for col in ("posterior_median", "posterior_mode", "posterior_lower", "posterior_upper",
+                "proxy_chi2", "proxy_chi2_p", "posterior_flags"):
+        assert col in est.columns
+    both = est[est["function_id"] == "posterior"]
+    # the paleosols with oxides and a Bk depth (calib_demo/fossils.csv): MB-P01, -P03,
+    # -P05, -P07, CG-P02, CG-P04
+    assert sorted(both["paleosol_id"]) == sorted(["MB-P01", "MB-P03", "MB-P05", "MB-P07",
+                                                  "CG-P02", "CG-P04"])
+    assert (both["posterior_lower"] < both["posterior_median"]).all()
+    assert (both["posterior_median"] < both["posterior_upper"]).all()
+    assert both["proxy_chi2_p"].between(0, 1).all()
+    # the frequentist rows of the same forward files stand beside it
+    fwd = est[(est["direction"] == "forward") & (est["function_id"] != "posterior")]
+    assert fwd["estimate"].notna().any() and fwd["posterior_median"].notna().any()
+    meta = json.loads((out / "estimates.csv.posterior.json").read_text(encoding="utf-8"))
+    assert meta["posteriors"][-1]["grid"]["points"] == 2000
+    assert "posterior median" in result.output

@@ -114,3 +114,59 @@ def test_written_folder_and_report_section(result, tmp_path):
     assert [f["section"] for f in part["figures"]] == ["Murrenhal Bluff", "Coldstave Gorge"]
     assert part["figures"][0]["figure"].axes[0].get_ylabel() == "level [m]"
     assert part["notes"] == result.notes and part["n_rows"] == len(result.table)
+
+
+def test_posterior_marks_match_the_table(tmp_path):
+    """Forward files applied with the posterior: each posterior is drawn (dotted interval,
+    diamond at the median) at the numbers of the estimates table, and the legend says
+    what the dotted line is. Calibration: a seeded simulation (invented data)."""
+    import pandas as pd
+
+    from refit.apply.section import POSTERIOR
+    from refit.coefficients import fit_record, write_record
+    from refit.models.fitting import fit
+
+    rng = np.random.default_rng(5)
+    x = rng.uniform(200, 1200, 60)
+    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 10 + 0.1 * x + rng.normal(0, 8, 60),
+                      "bk_thickness_cm": 20 + 0.05 * x + rng.normal(0, 6, 60)})
+    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
+            "recipe": None, "recipe_sha256": None}
+    files = []
+    for p in ("bk_depth_cm", "bk_thickness_cm"):
+        rec = fit_record(fit(t, "map_mm", [p], direction="forward"),
+                         function_id=f"map_from_{p}", cv=None, level=0.95,
+                         interval_method="analytic", provenance=prov)
+        files.append(str(write_record(rec, tmp_path / f"{p}.json")))
+    res = section_files(files, DEMO, seed=1, posterior=True)
+    table = res.table
+    post = table[table["interval_kind"] == POSTERIOR]
+    est = res.applied.results
+    combined = est[est["function_id"] == "posterior"]
+    # one posterior row per forward file and paleosol, plus the combined ones
+    assert len(post) == 2 * 14 + len(combined) and len(combined) == 14
+    ref = est.set_index(["paleosol_id", "function_id"])
+    for r in post.itertuples(index=False):
+        row = ref.loc[(r.paleosol_id, r.function_id)]
+        assert r.estimate == row["posterior_median"] and r.lower == row["posterior_lower"]
+        assert r.upper == row["posterior_upper"]
+    section = "Murrenhal Bluff"
+    fig = section_figure(table, section)
+    drawn = table[(table["section"] == section) & (table["interval_kind"] == POSTERIOR)]
+    for fit_name_, g in drawn.groupby("fit"):
+        (coll,) = _artists(fig, f"interval:{POSTERIOR}:{fit_name_}")[
+            f"interval:{POSTERIOR}:{fit_name_}"]
+        assert coll.get_linestyle()[0][1] is not None          # dotted, not solid
+        segs = coll.get_segments()
+        np.testing.assert_allclose(np.sort([s[0][0] for s in segs]), np.sort(g["lower"]),
+                                   atol=1e-9)
+        np.testing.assert_allclose(np.sort([s[1][0] for s in segs]), np.sort(g["upper"]),
+                                   atol=1e-9)
+        marks = [a for k, v in _artists(fig, "estimates:").items() if k.endswith(fit_name_)
+                 for a in v] + [a for k, v in _artists(fig, "flagged:").items()
+                                if k.endswith(fit_name_) for a in v]
+        xs = np.concatenate([np.asarray(m.get_xdata(), float) for m in marks])
+        assert all(m.get_marker() == "D" for m in marks)
+        np.testing.assert_allclose(np.sort(xs), np.sort(g["estimate"]), rtol=0)
+    legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
+    assert "posterior median and equal-tailed interval (dotted" in legend
