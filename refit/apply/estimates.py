@@ -448,9 +448,14 @@ def _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols) -> str:
 
 def apply_files(coefficient_files, fossils, *, level=None, decompact=False,
                 constants_file=None, seed=0, n_draws=N_DRAWS, combine=False,
-                vocabularies=None, posterior=False, prior=None) -> ApplyResult:
+                vocabularies=None, posterior=False, prior=None,
+                ignore_columns=(), consumed=()) -> ApplyResult:
     """:func:`apply_equations` from paths: coefficient files, a fossil table (path, or a
     frame already holding canonical columns) and an optional compaction-constants file.
+
+    ``ignore_columns`` names unmapped columns of the fossil table to go on without
+    (``refit apply --ignore-columns``; an unmapped column that looks like a measurement SD
+    stops the run otherwise); ``consumed`` names columns the caller reads itself.
 
     Raises
     ------
@@ -471,7 +476,8 @@ def apply_files(coefficient_files, fossils, *, level=None, decompact=False,
         report = check_fossil_frame(fossils, vocabularies=vocabularies, path="--at",
                                     constants=constants)
     else:
-        report = read_fossils(fossils, vocabularies=vocabularies, constants=constants)
+        report = read_fossils(fossils, vocabularies=vocabularies, constants=constants,
+                              ignore_columns=ignore_columns, consumed=consumed)
     if report.table_errors().shape[0]:
         from refit.errors import InvalidDataError
 

@@ -172,14 +172,19 @@ def interpolate_age(levels, model_levels, model_ages, model_sd=None, *, where: s
     return age, age_sd
 
 
-def _age_from_column(path, column: str, sd_column: str | None, rows) -> tuple:
-    """Ages (and SDs) of the file rows ``rows`` from a column as written in the file."""
+def _raw_with_age(path, column: str):
+    """The fossil table as written in the file, refused unless it has the age column."""
     from refit.curate.tables import read_table
 
     raw = read_table(path, as_text=False, digest=False)
     if column not in raw.frame.columns:
         raise UsageError(f"--age-column {column}: no such column in {path}; its columns "
                          "are " + ", ".join(map(str, raw.frame.columns)))
+    return raw
+
+
+def _age_from_column(raw, path, column: str, sd_column: str | None, rows) -> tuple:
+    """Ages (and SDs) of the file rows ``rows`` from a column as written in the file."""
     by_row = pd.Series(np.arange(len(raw.frame)), index=np.asarray(raw.source_rows))
     pos = by_row.reindex(rows).to_numpy()
     pick = (lambda c: np.array([np.nan if pd.isna(p) else v for p, v in zip(
@@ -398,14 +403,19 @@ def section_files(coefficient_files, fossils, *, age_column: str | None = None,
 
     if age_column and age_model:
         raise UsageError("give either --age-column or --age-model, not both")
+    # the age column and its SD are the section's own: not measurements to apply
+    own = [c for c in (age_column, age_sd_column or (age_column and sd_column(age_column)))
+           if c]
+    raw = _raw_with_age(fossils, age_column) if age_column else None
     applied = apply_files(coefficient_files, fossils, level=level, decompact=decompact,
-                          posterior=posterior, prior=prior,
-                          constants_file=constants_file, seed=seed)
+                          posterior=posterior, prior=prior, constants_file=constants_file,
+                          seed=seed, consumed=own)
     table = section_table(applied.results, applied.fossils, name=Path(str(fossils)).stem)
     axis, label = "level_m", "level [m]"
     if age_column:
         sd_col = age_sd_column or sd_column(age_column)
-        ages, sds = _age_from_column(fossils, age_column, sd_col, table["row"].to_numpy())
+        ages, sds = _age_from_column(raw, fossils, age_column, sd_col,
+                                     table["row"].to_numpy())
         table, axis, label = add_ages(table, ages, sds, age_column), "age", age_column
     elif age_model:
         model, name = read_age_model(age_model)

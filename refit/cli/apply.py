@@ -65,7 +65,6 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     from pathlib import Path
 
     from refit.apply.estimates import apply_files
-    from refit.curate.fossils import ignoring_columns
     from refit.errors import UsageError
 
     from refit.apply.posterior import parse_prior
@@ -75,10 +74,9 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     if prior and not posterior:
         raise UsageError("--prior is the prior of --posterior; add --posterior")
     prior_obj = parse_prior(prior)
-    with ignoring_columns(ignore_columns):
-        result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
-                             constants_file=constants_file, seed=seed, combine=combine,
-                             posterior=posterior, prior=prior_obj)
+    result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
+                         constants_file=constants_file, seed=seed, combine=combine,
+                         posterior=posterior, prior=prior_obj, ignore_columns=ignore_columns)
     console = stdout_console()
     print_results(result.results, console)
     if out:

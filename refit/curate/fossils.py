@@ -25,8 +25,6 @@ table the ``profile_id`` column holds the ``paleosol_id``.
 
 from __future__ import annotations
 
-import contextlib
-import contextvars
 from pathlib import Path
 
 import numpy as np
@@ -57,7 +55,8 @@ def feature_columns(desc: dict | None = None) -> list[str]:
     return list(_schema.refit_rules(desc or load_descriptor())["feature_columns"])
 
 
-def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns=None):
+def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns=None,
+                      consumed=()):
     """Read (csv/tsv/xlsx/parquet), map unit names, and check a fossil table.
 
     Every column that maps to no fossil column is reported (``unmapped-column``, a
@@ -69,8 +68,11 @@ def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns
     Parameters
     ----------
     ignore_columns : sequence of str, optional
-        Unmapped columns to go on without (``refit apply --ignore-columns``); default
-        those set by :func:`ignoring_columns`.
+        Unmapped columns to go on without (``refit apply --ignore-columns``); each must
+        be a column of the file.
+    consumed : sequence of str, optional
+        Columns the caller reads itself (e.g. ``refit section``'s age column and its SD):
+        not reported as unmapped where the file has them.
 
     Returns
     -------
@@ -103,7 +105,7 @@ def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns
                                 notes=list(table.notes) + list(mapped), constants=constants)
     if mapped and not report.problems.empty:
         report.problems = add_file_context(report.problems, table.frame, table.source_rows)
-    ignore = list(_IGNORED.get() if ignore_columns is None else ignore_columns)
+    ignore = list(ignore_columns or ())
     unknown = [c for c in ignore if c not in [str(n) for n in table.frame.columns]]
     if unknown:
         raise UsageError(f"--ignore-columns names {', '.join(map(repr, unknown))}, which "
@@ -111,23 +113,9 @@ def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns
                          + ", ".join(map(str, table.frame.columns)))
     unmapped = unmapped_columns(table.frame.columns, "fossil")
     report.problems = with_problems(report.problems,
-                                    unmapped_problems(unmapped, "fossil", ignore))
+                                    unmapped_problems(unmapped, "fossil",
+                                                      ignore + list(consumed)))
     return report
-
-
-#: Unmapped fossil columns the caller goes on without (see :func:`ignoring_columns`).
-_IGNORED = contextvars.ContextVar("refit_ignored_fossil_columns", default=())
-
-
-@contextlib.contextmanager
-def ignoring_columns(names):
-    """Within the block, fossil tables are read as if ``ignore_columns=names`` were given
-    (how ``refit apply --ignore-columns`` reaches :func:`read_fossils`)."""
-    token = _IGNORED.set(tuple(names or ()))
-    try:
-        yield
-    finally:
-        _IGNORED.reset(token)
 
 
 def check_fossil_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None,
@@ -318,7 +306,7 @@ def decompact_frame(work: pd.DataFrame, constants: dict | None = None):
 
 
 def read_fossils(path: str | Path, *, vocabularies=None, constants=None,
-                 ignore_columns=None):
+                 ignore_columns=None, consumed=()):
     """Check a fossil table for ``apply``/``compare``; see :func:`check_fossil_file`.
 
     Raises
@@ -330,7 +318,7 @@ def read_fossils(path: str | Path, *, vocabularies=None, constants=None,
     from refit.errors import InvalidDataError
 
     report = check_fossil_file(path, vocabularies=vocabularies, constants=constants,
-                               ignore_columns=ignore_columns)
+                               ignore_columns=ignore_columns, consumed=consumed)
     stop = report.problems[report.problems["rule"] == "unmapped-sd-column"]
     if len(stop):
         raise InvalidDataError(f"{path}: " + " ".join(stop["message"]) + " Nothing was "
