@@ -310,6 +310,7 @@ def print_run(run, out, console=None) -> None:
             "(forward fits model the feature): compare AIC only within one direction.")
     c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
     c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
+    _print_top_equation(c, out, m.verdict.get("winner"))
     if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
     for note in m.verdict.get("unbounded", []):
@@ -322,6 +323,38 @@ def print_run(run, out, console=None) -> None:
     _print_skipped(c, m.skipped)
     c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
+
+
+def _print_top_equation(c, out, winner) -> None:
+    """The top candidate's equation as it produces estimates (its file's numbers)."""
+    import json
+    from pathlib import Path
+
+    from rich.text import Text
+
+    from refit.report.equations import used_equation
+    from refit.validate.runfolder import fit_filename
+
+    if not winner or out is None:
+        return
+    try:
+        record = json.loads((Path(out) / "fits" / fit_filename(winner)).read_text("utf-8"))
+    except (OSError, ValueError):
+        return
+    used = used_equation(record, ascii_only=not can_encode(c, "×±²"))
+    c.print(Text(f"Equation: {used['text']}", style="bold"))
+    if used["note"]:
+        c.print(Text(f"  The {used['note']}.", style="cyan"))
+
+
+def can_encode(console, text: str) -> bool:
+    """Whether the console's stream can write ``text`` (an ASCII-only terminal cannot)."""
+    encoding = getattr(console, "encoding", None) or "utf-8"
+    try:
+        text.encode(encoding)
+    except (UnicodeEncodeError, LookupError):
+        return False
+    return True
 
 
 def _print_skipped(c, skipped) -> None:
