@@ -38,8 +38,14 @@ def main() -> None:
     hazard or regulatory decisions.
 
     \b
-    Example:
-      refit check calib_demo/incoming_soils.csv
+    Examples (every --help example runs in the folder `refit demo --out DIR` writes):
+      refit demo --out refit-demo && cd refit-demo
+      refit check incoming_soils.csv
+
+    \b
+    -q/--quiet and -v/--verbose work on every command; REFIT_DEBUG=1 is -v everywhere.
+    Shell completion (bash; zsh and fish alike, see README):
+      eval "$(_REFIT_COMPLETE=bash_source refit)"
     """
 
 

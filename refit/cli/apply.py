@@ -45,10 +45,10 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
 
     \b
     Examples:
-      refit apply runs/bk/fits/*.json --fossils calib_demo/fossils.csv
-      refit apply map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
-          --compaction-constants constants.csv --out estimates.csv
-      refit apply map_from_bk_depth/1.0.0.json --fossils fossils.csv --format json
+      refit apply run/fits/*.json --fossils fossils.csv
+      refit apply registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
+          --compaction-constants compaction_constants.csv --out my-estimates.csv
+      refit apply registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv --format json
     """
     from pathlib import Path
 

@@ -45,8 +45,9 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     \b
     Examples:
       refit compare registry/map_from_bk_depth/*.json --at bk_depth_cm=100
-      refit compare runs/bk/fits/*.json --fossils calib_demo/fossils.csv --paleosol MB-P03
-      refit compare registry/map_from_bk_depth/*.json --at bk_depth_cm=100 --format csv
+      refit compare run/fits/*.json --fossils fossils.csv --paleosol MB-P03 --out cmp
+      refit compare registry/map_from_bk_depth/*.json --at bk_depth_cm=100 --format csv \\
+          --out cmp-100 > at-100.csv
     """
     from pathlib import Path
 

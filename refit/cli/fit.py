@@ -49,10 +49,8 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table, fmt) -> None:
 
     \b
     Examples:
-      refit fit calib_demo/recipe.toml
-      refit fit my_recipe.toml --out runs/bk-map --jobs 2
-      refit fit recipes/bk.toml --store /data/soils/store   # data outside the recipe folder
-      refit fit recipe.toml --out runs/bk --format csv > leaderboard.csv
+      refit fit recipe.toml --out runs/bk-map
+      refit fit recipe.toml --store store --out runs/bk --format csv > leaderboard.csv
     """
     import datetime as dt
     from pathlib import Path

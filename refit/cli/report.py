@@ -47,9 +47,9 @@ def report(run, out, candidate, store, compare, section, overwrite, quiet) -> No
 
     \b
     Examples:
-      refit fit calib_demo/recipe.toml --out runs/bk-map
-      refit report runs/bk-map --out reports/bk-map.html
-      refit report runs/bk-map --compare refit-compare --out reports/bk-map.html
+      refit report run --out reports/run.html
+      refit report run --candidate linear__ols__inverse__analytic --compare compare \
+          --section section --out reports/linear.html
     """
     from pathlib import Path
 
