@@ -467,9 +467,13 @@ def print_run(run, out, console=None) -> None:
         c.print(Text(f"Unbounded: {note}.", style="yellow"))
     opt = m.verdict.get("optimism")
     if opt:
-        c.print(f"Optimism: random k-fold flatters; {main.name}'s RMSEP is "
-                f"{opt['median_rmsep_ratio']:.2f}x and its interval score "
-                f"{opt['median_score_ratio']:.2f}x random k-fold's (median over candidates).")
+        ratio = opt["median_rmsep_ratio"]
+        verdict = ("random k-fold flatters" if ratio > 1.005 else
+                   "random k-fold does not flatter on this subset")
+        name = "leave-one-out" if main.name == "loo" else main.name
+        c.print(f"Optimism: {verdict}: {name}'s RMSEP is {ratio:.2f} times "
+                f"and its interval score {opt['median_score_ratio']:.2f} times random "
+                "k-fold's (median over candidates).")
     _print_skipped(c, m.skipped)
     c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
