@@ -95,6 +95,11 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
     return result
 
 
+#: the demo's input tables, copied into the output folder beside the store and the recipe
+INPUTS = ("incoming_soils.csv", "fossils.csv", "age_model.csv", "compaction_constants.csv",
+          "compaction_constants.json")
+
+
 def _check_and_admit(out: Path, result: DemoResult, say) -> None:
     from refit.curate.checks import check_file, load_vocabularies
     from refit.curate.store import admit
@@ -103,7 +108,10 @@ def _check_and_admit(out: Path, result: DemoResult, say) -> None:
     store = out / "store"
     shutil.copytree(src / "store", store)
     result.outputs["calibration store"] = store
-    incoming = src / "incoming_soils.csv"
+    for name in INPUTS:  # the inputs too, so every --help example runs from this folder
+        shutil.copyfile(src / name, out / name)
+    result.outputs["incoming table, fossils, age model, constants"] = out / INPUTS[0]
+    incoming = out / "incoming_soils.csv"
     say(f"[bold]1. Check[/bold] the incoming soils: {incoming.name}")
     vocab_files = [p for p in [store / "vocabularies.json"] if p.exists()]
     report = check_file(incoming, vocabularies=load_vocabularies(*vocab_files))
@@ -191,8 +199,8 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     from refit.apply.compare import comparison_table, figure_pngs, page_names
 
     files = [result.published.path, *result.forward, *published_equations()]
-    fossils = demo_dir() / "fossils.csv"
-    constants = demo_dir() / CONSTANTS
+    fossils = out / "fossils.csv"
+    constants = out / CONSTANTS
     say(f"[bold]5. Apply[/bold] the published fit, {len(result.forward)} forward fits and "
         f"{len(files) - 1 - len(result.forward)} published equations "
         f"to the demo fossils ({fossils.name}), depths decompacted for burial (constants: "

@@ -32,8 +32,16 @@ def test_every_schema_file_is_shipped():
 def test_every_demo_file_is_shipped():
     files, missing = _shipped("refit.calib_demo", "calib_demo")
     assert {"incoming_soils.csv", "recipe.toml", "store/records.csv",
-            "store/manifest.json"} <= set(files)
+            "store/manifest.json", "guide/README.md", "guide/my_soils.csv"} <= set(files)
     assert missing == []
+
+
+def test_the_distribution_name_is_free_and_the_command_stays_refit():
+    # the name 'refit' on the public package index belongs to an unrelated project
+    config = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
+    assert config["project"]["name"] == "paleosol-refit"
+    assert config["project"]["scripts"] == {"refit": "refit.cli:main"}
+    assert "python -m pip install paleosol-refit" in (ROOT / "README.md").read_text("utf-8")
 
 
 def test_package_dirs_point_at_the_top_level_folders():

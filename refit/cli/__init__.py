@@ -13,7 +13,7 @@ from refit import __version__
 from refit.cli.admit import admit
 from refit.cli.apply import apply
 from refit.cli.check import check
-from refit.cli.common import RefitGroup
+from refit.cli.common import RefitGroup, add_common_options
 from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
@@ -38,20 +38,17 @@ def main() -> None:
     hazard or regulatory decisions.
 
     \b
-    Example:
-      refit check calib_demo/incoming_soils.csv
+    Examples (every --help example runs in the folder `refit demo --out DIR` writes):
+      refit demo --out refit-demo && cd refit-demo
+      refit check incoming_soils.csv
+
+    \b
+    -q/--quiet and -v/--verbose work on every command; REFIT_DEBUG=1 is -v everywhere.
+    Shell completion (bash; zsh and fish alike, see README):
+      eval "$(_REFIT_COMPLETE=bash_source refit)"
     """
 
 
-main.add_command(check)
-main.add_command(admit)
-main.add_command(fit)
-main.add_command(publish)
-main.add_command(verify)
-main.add_command(keygen)
-main.add_command(diff)
-main.add_command(apply)
-main.add_command(compare)
-main.add_command(section)
-main.add_command(report)
-main.add_command(demo)
+for _command in (check, admit, fit, publish, verify, keygen, diff, apply, compare, section,
+                 report, demo):
+    main.add_command(add_common_options(_command))

@@ -54,7 +54,7 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
 
     \b
     Example:
-      refit admit calib_demo/incoming_soils.csv --into my_store --dry-run
+      refit admit incoming_soils.csv --into store --dry-run
     """
     import json
 

@@ -5,7 +5,8 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    fmt_number, fossil_options, guarded, print_problems_and_cautions, stdout_console,
+    emit_csv, emit_json, fmt_number, format_option, fossil_options, guarded,
+    print_problems_and_cautions, stdout_console,
 )
 
 
@@ -31,10 +32,12 @@ from refit.cli.common import (
 @click.option("--ignore-columns", "ignore_columns", metavar="COLUMN", multiple=True,
               help="Go on without an unmapped column that looks like a measurement SD "
                    "(its error is then not propagated); repeatable.")
+@format_option("json", "csv")
 @click.pass_context
 @guarded
 def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, out,
-          overwrite, combine, ignore_columns, posterior=False, prior=None) -> None:
+          overwrite, combine, ignore_columns, fmt, posterior=False,
+          prior=None) -> None:
     """Estimate the climate of each paleosol in TABLE with each COEFFICIENTS file.
 
     For each paleosol and each file whose predictors the table has: estimate, lower and
@@ -56,11 +59,13 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
 
     \b
     Examples:
-      refit apply runs/bk/fits/*.json --fossils calib_demo/fossils.csv
-      refit apply map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
-          --compaction-constants constants.csv --out estimates.csv
-      refit apply bk_forward.json cia_k_forward.json --fossils fossils.csv \\
-          --posterior --prior uniform:100:1500 --out estimates.csv
+      refit apply run/fits/*.json --fossils fossils.csv
+      refit apply registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv --decompact \\
+          --compaction-constants compaction_constants.csv --out my-estimates.csv
+      refit apply registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv --format json
+      refit apply forward/run_forward_bk_depth/fits/linear__ols__forward__analytic.json \\
+          forward/run_forward_cia_k/fits/linear__ols__forward__analytic.json \\
+          --fossils fossils.csv --posterior --prior uniform:100:1500 --out posterior.csv
     """
     from pathlib import Path
 
@@ -77,15 +82,29 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
                          constants_file=constants_file, seed=seed, combine=combine,
                          posterior=posterior, prior=prior_obj, ignore_columns=ignore_columns)
+    if out:
+        _write(result, out)
+    if fmt != "text":
+        _emit(result, fmt)
+        ctx.exit(0 if result.ok else 1)
     console = stdout_console()
     print_results(result.results, console)
     if out:
-        _write(result, out)
         console.print(f"Results written to {out}")
     for warning in result.warnings:  # e.g. depths applied without decompaction
         console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
     ctx.exit(0 if result.ok else 1)
+
+
+def _emit(result, fmt: str) -> None:
+    """``--format csv``: the results table; ``json``: it with the problems, warnings and
+    cautions (every column of ``--out``)."""
+    if fmt == "csv":
+        emit_csv(result.results)
+        return
+    emit_json({"results": result.results, "problems": result.problems,
+               "warnings": result.warnings, "cautions": result.cautions, "ok": result.ok})
 
 
 def _write(result, out: str) -> None:

@@ -37,10 +37,9 @@ def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
 
     \b
     Examples:
-      refit check calib_demo/incoming_soils.csv
-      refit check soils.xlsx --format json > problems.json
-      refit check soils.csv --vocab my_terms.json
-      refit check calib_demo/fossils.csv --kind fossil
+      refit check incoming_soils.csv
+      refit check incoming_soils.csv --format json > problems.json
+      refit check fossils.csv --kind fossil
     """
     import json
 

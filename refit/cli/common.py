@@ -81,13 +81,14 @@ def os_error_message(exc: OSError) -> str | None:
 
 
 def raise_unexpected(exc: BaseException) -> None:
-    """Report an exception refit did not foresee in one line and exit 1."""
-    if os.environ.get("REFIT_DEBUG"):
+    """Report an exception refit did not foresee in one line and exit 1 (the traceback
+    with ``-v/--verbose`` or ``REFIT_DEBUG=1``)."""
+    if is_verbose():
         traceback.print_exc()
     text = " ".join(str(exc).split())
     text = text if len(text) <= 300 else text[:300] + "..."
     click.echo(f"Error: unexpected {type(exc).__name__}: {text}. This is a refit bug; please "
-               "report it with the command you ran (REFIT_DEBUG=1 shows details).", err=True)
+               "report it with the command you ran (-v or REFIT_DEBUG=1 shows details).", err=True)
     sys.exit(1)
 
 
@@ -108,6 +109,7 @@ class RefitGroup(click.Group):
 
     def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True,
              **extra):
+        encode_safely()
         if not standalone_mode:
             return super().main(args, prog_name, complete_var, False, **extra)
         try:
@@ -124,18 +126,166 @@ class RefitGroup(click.Group):
         sys.exit(code if isinstance(code, int) else 0)
 
 
+#: width of a console that is not a terminal (a file, a pipe, a log): wide enough that no
+#: table is ever cut; rich draws tables at their natural width, never padded to this
+PIPE_WIDTH = 10_000
+
+#: symbols refit prints and their ASCII spelling, for terminals that cannot encode them
+ASCII_SYMBOLS = {"°": "deg", "²": "^2", "³": "^3", "×": "x", "±": "+/-", "→": "->",
+                 "←": "<-", "≥": ">=", "≤": "<=", "≈": "~", "–": "-", "—": "-", "…": "...",
+                 "“": '"', "”": '"', "‘": "'", "’": "'", "σ": "sigma", "µ": "u", "μ": "u",
+                 "∞": "inf", "•": "*", "✓": "ok", "✗": "x", "⁰": "^0", "¹": "^1", "⁴": "^4",
+                 "⁵": "^5", "⁶": "^6", "⁷": "^7", "⁸": "^8", "⁹": "^9", "\u00a0": " "}
+ASCII_ERRORS = "refit-ascii"
+
+
+def _ascii_fallback(exc: UnicodeError):
+    """Codec error handler: the ASCII spelling of a symbol, ``?`` for anything else."""
+    if not isinstance(exc, UnicodeEncodeError):
+        raise exc
+    bad = exc.object[exc.start:exc.end]
+    return "".join(ASCII_SYMBOLS.get(ch, "?") for ch in bad), exc.end
+
+
+def encode_safely() -> None:
+    """Let stdout and stderr write any text whatever their encoding.
+
+    A stream whose encoding cannot write refit's symbols (``PYTHONIOENCODING=ascii``, a
+    latin-1 terminal) gets them in ASCII (``°C`` -> ``deg C``, ``×`` -> ``x``) instead of
+    a crash; rich draws ASCII table borders for such a stream by itself.
+    """
+    import codecs
+
+    try:
+        codecs.lookup_error(ASCII_ERRORS)
+    except LookupError:
+        codecs.register_error(ASCII_ERRORS, _ascii_fallback)
+    for stream in (sys.stdout, sys.stderr):
+        encoding = getattr(stream, "encoding", None) or "utf-8"
+        try:
+            "°×±→²…".encode(encoding)
+            continue
+        except (UnicodeEncodeError, LookupError):
+            pass
+        if hasattr(stream, "reconfigure"):
+            try:
+                stream.reconfigure(errors=ASCII_ERRORS)
+            except (ValueError, OSError):  # a stream that cannot be reconfigured
+                pass
+
+
 def stderr_console(quiet: bool = False):
-    """A rich console on stderr (progress, logs); quiet when asked or not a terminal."""
+    """A rich console on stderr (progress, logs); quiet when asked (``-q``) or not a
+    terminal."""
     from rich.console import Console
 
-    return Console(stderr=True, quiet=quiet)
+    encode_safely()
+    quiet = quiet or is_quiet()
+    probe = Console(stderr=True)
+    return Console(stderr=True, quiet=quiet,
+                   width=None if probe.is_terminal else PIPE_WIDTH)
 
 
 def stdout_console():
-    """A rich console on stdout (results)."""
+    """A rich console on stdout (results): in a file or a pipe no table is cut and no
+    line is padded."""
     from rich.console import Console
 
-    return Console(highlight=False, soft_wrap=True)
+    encode_safely()
+    probe = Console()
+    return Console(highlight=False, soft_wrap=True,
+                   width=None if probe.is_terminal else PIPE_WIDTH)
+
+
+# --- the options every command has: -q/--quiet, -v/--verbose -------------------------
+
+def is_quiet() -> bool:
+    """Whether the running command was given ``-q/--quiet``."""
+    ctx = click.get_current_context(silent=True)
+    return bool(ctx and ctx.find_root().meta.get("refit.quiet"))
+
+
+def is_verbose() -> bool:
+    """Whether the running command was given ``-v/--verbose`` (or ``REFIT_DEBUG`` is set)."""
+    if os.environ.get("REFIT_DEBUG"):
+        return True
+    ctx = click.get_current_context(silent=True)
+    return bool(ctx and ctx.find_root().meta.get("refit.verbose"))
+
+
+def _remember(key):
+    def callback(ctx, param, value):
+        if value:
+            ctx.find_root().meta[key] = True
+        return value
+    return callback
+
+
+def add_common_options(command: click.Command) -> click.Command:
+    """Give a command ``-q/--quiet`` and ``-v/--verbose`` (unless it has its own ``--quiet``,
+    which then also answers to ``-q``)."""
+    names = {opt for p in command.params for opt in getattr(p, "opts", [])}
+    if "--quiet" not in names:
+        command.params.append(click.Option(
+            ["-q", "--quiet", "refit_quiet"], is_flag=True, expose_value=False,
+            callback=_remember("refit.quiet"),
+            help="No progress bars or status messages (results and errors still print)."))
+    else:
+        for p in command.params:
+            if "--quiet" in getattr(p, "opts", []):
+                if "-q" not in p.opts:
+                    p.opts.append("-q")
+                user = p.callback
+                p.callback = (lambda ctx, param, value, _u=user:
+                              _remember("refit.quiet")(ctx, param, _u(ctx, param, value)
+                                                       if _u else value))
+    if "--verbose" not in names:
+        command.params.append(click.Option(
+            ["-v", "--verbose", "refit_verbose"], is_flag=True, expose_value=False,
+            callback=_remember("refit.verbose"),
+            help="More detail: an unexpected error prints its traceback (as REFIT_DEBUG=1)."))
+    return command
+
+
+# --- machine-readable output: --format json | csv ---------------------------------------
+
+def format_option(*choices: str):
+    """``--format`` with ``text`` first (for people) and the given machine formats."""
+    return click.option("--format", "fmt", type=click.Choice(["text", *choices]),
+                        default="text", show_default=True,
+                        help="Output for people (text) or programs (" + ", ".join(choices)
+                             + "); json and csv go to stdout, nothing else does.")
+
+
+def jsonable(value):
+    """Plain JSON values: numpy numbers and arrays, frames (records), NaN -> null."""
+    import math
+
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set)):
+        return [jsonable(v) for v in value]
+    if hasattr(value, "to_dict") and hasattr(value, "columns"):
+        return [jsonable(r) for r in value.to_dict(orient="records")]
+    if hasattr(value, "tolist"):
+        return jsonable(value.tolist())
+    if isinstance(value, float) and (math.isnan(value) or math.isinf(value)):
+        return None
+    if value is None or isinstance(value, (str, int, float, bool)):
+        return value
+    return str(value)
+
+
+def emit_json(obj) -> None:
+    """One JSON document on stdout."""
+    import json
+
+    click.echo(json.dumps(jsonable(obj), indent=1, ensure_ascii=False, allow_nan=False))
+
+
+def emit_csv(frame) -> None:
+    """A table as CSV on stdout (no index)."""
+    click.echo(frame.to_csv(index=False), nl=False)
 
 
 def plural(n: int, word: str) -> str:
@@ -310,18 +460,55 @@ def print_run(run, out, console=None) -> None:
             "(forward fits model the feature): compare AIC only within one direction.")
     c.print(Text(f"Rule: {m.verdict['rule']}.", style="dim"))
     c.print(Text(f"Top: {m.verdict['why']}.", style="bold green"))
+    _print_top_equation(c, out, m.verdict.get("winner"))
     if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
     for note in m.verdict.get("unbounded", []):
         c.print(Text(f"Unbounded: {note}.", style="yellow"))
     opt = m.verdict.get("optimism")
     if opt:
-        c.print(f"Optimism: random k-fold flatters; {main.name}'s RMSEP is "
-                f"{opt['median_rmsep_ratio']:.2f}x and its interval score "
-                f"{opt['median_score_ratio']:.2f}x random k-fold's (median over candidates).")
+        ratio = opt["median_rmsep_ratio"]
+        verdict = ("random k-fold flatters" if ratio > 1.005 else
+                   "random k-fold does not flatter on this subset")
+        name = "leave-one-out" if main.name == "loo" else main.name
+        c.print(f"Optimism: {verdict}: {name}'s RMSEP is {ratio:.2f} times "
+                f"and its interval score {opt['median_score_ratio']:.2f} times random "
+                "k-fold's (median over candidates).")
     _print_skipped(c, m.skipped)
     c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
+
+
+def _print_top_equation(c, out, winner) -> None:
+    """The top candidate's equation as it produces estimates (its file's numbers)."""
+    import json
+    from pathlib import Path
+
+    from rich.text import Text
+
+    from refit.report.equations import used_equation
+    from refit.validate.runfolder import fit_filename
+
+    if not winner or out is None:
+        return
+    try:
+        record = json.loads((Path(out) / "fits" / fit_filename(winner)).read_text("utf-8"))
+    except (OSError, ValueError):
+        return
+    used = used_equation(record, ascii_only=not can_encode(c, "×±²"))
+    c.print(Text(f"Equation: {used['text']}", style="bold"))
+    if used["note"]:
+        c.print(Text(f"  The {used['note']}.", style="cyan"))
+
+
+def can_encode(console, text: str) -> bool:
+    """Whether the console's stream can write ``text`` (an ASCII-only terminal cannot)."""
+    encoding = getattr(console, "encoding", None) or "utf-8"
+    try:
+        text.encode(encoding)
+    except (UnicodeEncodeError, LookupError):
+        return False
+    return True
 
 
 def _print_skipped(c, skipped) -> None:

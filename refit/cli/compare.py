@@ -5,7 +5,8 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    fossil_options, guarded, print_comparison, print_problems_and_cautions, stdout_console,
+    emit_csv, emit_json, format_option, fossil_options, guarded, print_comparison,
+    print_problems_and_cautions, stdout_console,
 )
 
 
@@ -23,10 +24,11 @@ from refit.cli.common import (
               default="refit-compare", show_default=True,
               help="Folder for comparison.csv and comparison.png.")
 @click.option("--overwrite", is_flag=True, help="Replace files already in --out.")
+@format_option("json", "csv")
 @click.pass_context
 @guarded
 def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constants_file,
-            seed, out, overwrite) -> None:
+            seed, out, overwrite, fmt) -> None:
     """Compare COEFFICIENTS files (fits, versions, published equations) on one input.
 
     Writes DIR/comparison.csv (one row per paleosol and fit: estimate, interval, width,
@@ -43,7 +45,9 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     \b
     Examples:
       refit compare registry/map_from_bk_depth/*.json --at bk_depth_cm=100
-      refit compare runs/bk/fits/*.json --fossils calib_demo/fossils.csv --paleosol MB-P03
+      refit compare run/fits/*.json --fossils fossils.csv --paleosol MB-P03 --out cmp
+      refit compare registry/map_from_bk_depth/*.json --at bk_depth_cm=100 --format csv \\
+          --out cmp-100 > at-100.csv
     """
     from pathlib import Path
 
@@ -66,6 +70,14 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     figures = [folder / name for name in page_names(len(pngs))]
     for target, png in zip(figures, pngs):
         write_bytes_atomic(target, png)
+    if fmt == "csv":
+        emit_csv(table)
+        ctx.exit(0 if result.ok else 1)
+    if fmt == "json":
+        emit_json({"comparison": table, "figures": [str(f) for f in figures],
+                   "table": str(csv), "problems": result.problems,
+                   "warnings": result.warnings, "cautions": result.cautions, "ok": result.ok})
+        ctx.exit(0 if result.ok else 1)
     console = stdout_console()
     print_comparison(table, console)
     n_panels = len(panel_groups(table))

@@ -35,8 +35,8 @@ def diff(file_a: str, file_b: str, at: tuple[float, ...], level: float | None,
 
     \b
     Examples:
-      refit diff registry/map_from_bk_depth/1.0.0.json registry/map_from_bk_depth/1.1.0.json
-      refit diff old.json new.json --at 50 --at 100 --format json
+      refit diff run/fits/linear__ols__inverse__analytic.json registry/map_from_bk_depth/1.0.0.json
+      refit diff run/fits/linear__ols__inverse__analytic.json run/fits/linear__huber__inverse__analytic.json --at 50 --at 100 --format json
     """
     import json
 

@@ -6,7 +6,8 @@ import sys
 
 import click
 
-from refit.cli.common import Progress, guarded, print_run, stderr_console
+from refit.cli.common import (Progress, emit_csv, emit_json, format_option, guarded, print_run,
+                              stderr_console)
 
 
 def _jobs(value: int) -> int:
@@ -30,8 +31,9 @@ def _jobs(value: int) -> int:
               help="Use this calibration store instead of the recipe's [data] (may lie anywhere).")
 @click.option("--table", "table", type=click.Path(dir_okay=False, path_type=str), default=None,
               help="Use this calibration table instead of the recipe's [data].")
+@format_option("json", "csv")
 @guarded
-def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
+def fit(recipe, out, overwrite, jobs, quiet, store, table, fmt) -> None:
     """Cross-validate every candidate of a RECIPE and rank them.
 
     Reads the recipe (TOML), selects the subset of the store or table it names, fits
@@ -47,9 +49,8 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
 
     \b
     Examples:
-      refit fit calib_demo/recipe.toml
-      refit fit my_recipe.toml --out runs/bk-map --jobs 2
-      refit fit recipes/bk.toml --store /data/soils/store   # data outside the recipe folder
+      refit fit recipe.toml --out runs/bk-map
+      refit fit recipe.toml --store store --out runs/bk --format csv > leaderboard.csv
     """
     import datetime as dt
     from pathlib import Path
@@ -74,7 +75,34 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table) -> None:
     if not run.matrix.specs:
         raise_nothing_fitted(recipe, run.matrix.skipped)
     written = write_run(run, out, argv=["refit", "fit", *sys.argv[2:]], overwrite=overwrite)
-    print_run(run, written)
+    if fmt == "csv":
+        emit_csv(run.matrix.leaderboard)
+    elif fmt == "json":
+        emit_json(run_summary(run, written))
+    else:
+        print_run(run, written)
+
+
+def run_summary(run, written) -> dict:
+    """What `refit fit --format json` prints: where the run went, the verdict, the top
+    candidate's equation as used, the leaderboard, skipped candidates and notes."""
+    import json
+    from pathlib import Path
+
+    from refit.report.equations import used_equation
+    from refit.validate.runfolder import fit_filename
+
+    m = run.matrix
+    winner = m.verdict.get("winner")
+    equation = None
+    if winner:
+        record = json.loads((Path(written) / "fits" / fit_filename(winner)).read_text("utf-8"))
+        equation = used_equation(record)
+    return {"run": str(written), "function_id": run.recipe.function_id,
+            "level": run.recipe.level, "scheme": m.schemes["main"].name,
+            "verdict": m.verdict, "equation": equation, "leaderboard": m.leaderboard,
+            "skipped": m.skipped, "defaults_applied": list(getattr(run, "defaults", [])),
+            "warnings": list(getattr(run, "warnings", []))}
 
 
 def raise_nothing_fitted(recipe, skipped: list) -> None:

@@ -22,7 +22,7 @@ def keygen(keyfile: str) -> None:
 
     \b
     Example:
-      refit keygen ~/.refit/lab.key
+      refit keygen lab.key
     """
     from refit.publish.signing import new_key_pair
 

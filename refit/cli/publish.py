@@ -40,9 +40,9 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
 
     \b
     Examples:
-      refit publish runs/bk/fits/linear__ols__inverse__analytic.json --to registry --init
-      refit publish runs/bk2/fits/linear__ols__inverse__analytic.json --to registry --bump major
-      refit publish runs/bk/fits/linear__ols__inverse__analytic.json --to registry --sign lab.key
+      refit publish run/fits/linear__ols__inverse__analytic.json --to registry --dry-run
+      refit publish run/fits/quadratic__ols__inverse__analytic.json --to registry --sign lab.key
+      refit publish run/fits/linear__ols__inverse__analytic.json --to new-registry --init
     """
     import json
 

@@ -15,7 +15,7 @@ from refit.cli.common import guarded, stderr_console
               metavar="FILE.html",
               help="Report file to write [default: reports/<run folder name>.html].")
 @click.option("--candidate", default=None, metavar="LABEL",
-              help="Report this leaderboard candidate (e.g. quadratic/ols/forward/analytic) "
+              help="Report this leaderboard candidate (e.g. quadratic__ols__forward__analytic, as the leaderboard and fits/ name it) "
                    "instead of the run's top one.")
 @click.option("--store", "store", type=click.Path(path_type=str), default=None,
               metavar="PATH", help="Where the run's store (or table) is now, if it moved.")
@@ -47,9 +47,9 @@ def report(run, out, candidate, store, compare, section, overwrite, quiet) -> No
 
     \b
     Examples:
-      refit fit calib_demo/recipe.toml --out runs/bk-map
-      refit report runs/bk-map --out reports/bk-map.html
-      refit report runs/bk-map --compare refit-compare --out reports/bk-map.html
+      refit report run --out reports/run.html
+      refit report run --candidate linear__ols__inverse__analytic --compare compare \
+          --section section --out reports/linear.html
     """
     from pathlib import Path
 

@@ -43,10 +43,10 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
 
     \b
     Examples:
-      refit section runs/bk/fits/*.json --fossils calib_demo/fossils.csv --out sections \\
-          --decompact --compaction-constants calib_demo/compaction_constants.csv
-      refit section map.json --fossils fossils.csv --age-model calib_demo/age_model.csv \\
-          --out sections
+      refit section run/fits/*.json --fossils fossils.csv --out sections \\
+          --decompact --compaction-constants compaction_constants.csv
+      refit section registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv \\
+          --age-model age_model.csv --out sections-by-age
     """
     from pathlib import Path
 

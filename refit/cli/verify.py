@@ -40,7 +40,7 @@ def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, .
 
     \b
     Examples:
-      refit verify registry/map_from_bk_depth/1.0.0.json --store calib_demo/store
+      refit verify registry/map_from_bk_depth/1.0.0.json --store store
       refit verify registry
       refit verify registry --trust lab.key.pub
     """

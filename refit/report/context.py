@@ -9,7 +9,8 @@ from pathlib import Path
 
 import numpy as np
 
-_SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+from refit.report.equations import equation_text, lhs_text, term_text, used_equation
+
 
 
 def num(v, digits: int = 4) -> str:
@@ -47,33 +48,27 @@ def shown_path(path) -> str:
     return str(path) if rel.startswith("..") else rel
 
 
-def term_text(term: str) -> str:
-    """``bk_depth_cm^2`` -> ``bk_depth_cm²``."""
-    if "^" in term:
-        name, power = term.rsplit("^", 1)
-        return name + power.translate(_SUPERSCRIPT)
-    return term
-
-
 def equation(record: dict, fit) -> dict:
-    """The chosen fit's equation written out, and one row per coefficient."""
+    """The chosen fit's equation as used for its estimates, and one row per coefficient.
+
+    For split-conformal the estimates come from the training part's fit: that equation is
+    shown (without standard errors, which belong to the full-data fit) and ``note`` says
+    so and gives the full-data fit beside it.
+    """
     terms = list(record["terms"])
-    b = np.asarray(record["coefficients"], dtype=float)
+    used = used_equation(record)
+    b = np.asarray(used["coefficients"], dtype=float)
     se = fit.std_errors.to_numpy(dtype=float)
-    eq = record.get("equation") or {}
-    lhs = eq.get("y") or fit.y_name
-    if eq.get("scale") == "log" or fit.form.log_response:
+    if used["source"] != "full-data":
+        se = np.full(len(terms), np.nan)
+    lhs = lhs_text(record)
+    if lhs == (record.get("equation") or {}).get("y") and fit.form.log_response:
         lhs = f"ln({lhs})"
-    parts = []
-    for i, (t, c, s) in enumerate(zip(terms, b, se)):
-        sign = "-" if c < 0 else "+"
-        body = f"{num(abs(c))} (± {num(s, 3)})"
-        if t != "intercept":
-            body += f" × {term_text(t)}"
-        parts.append((("-" if sign == "-" else "") if i == 0 else f" {sign} ") + body)
+    text = equation_text(terms, b, lhs, None if used["note"] else se)
     rows = [{"term": term_text(t), "coefficient": num(c, 6), "std_error": num(s, 4),
              "t": num(c / s, 3) if s > 0 else ""} for t, c, s in zip(terms, b, se)]
-    return {"text": f"{lhs} = " + "".join(parts), "rows": rows,
+    eq = record.get("equation") or {}
+    return {"text": text, "rows": rows, "note": used["note"],
             "residual_se": num(record.get("residual_std_error")),
             "df": num(record.get("df_resid"), 6), "n": record.get("n"),
             "r_squared": num(record.get("r_squared"), 3),

@@ -72,10 +72,13 @@ def _chosen(board, board_json: dict, candidate: str | None) -> str:
             raise InvalidDataError("the run's leaderboard is empty: no candidate could be "
                                    "fitted, so there is nothing to report")
         return str(winner or labels[0])
-    if candidate not in labels:
+    from refit.validate.candidates import normalise_candidate
+
+    name = normalise_candidate(candidate)
+    if name not in labels:
         raise UsageError(f"--candidate {candidate!r} is not in the run's leaderboard; "
                          "choose one of: " + ", ".join(labels))
-    return candidate
+    return name
 
 
 def _refit(record: dict, location, dataset: dict):

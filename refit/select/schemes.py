@@ -19,7 +19,8 @@ the name into a splitter. Both read the names here (select never imports validat
 from __future__ import annotations
 
 SCHEMES = ("kfold", "loo", "group-kfold", "leave-one-group-out", "spatial-block")
-ALIASES = {"leave-one-out": "loo"}
+ALIASES = {"leave-one-out": "loo", "k-fold": "kfold", "group-k-fold": "group-kfold",
+           "logo": "leave-one-group-out", "spatial-blocks": "spatial-block"}
 NEEDS_GROUP_COLUMN = ("group-kfold", "leave-one-group-out")
 GROUPED = NEEDS_GROUP_COLUMN + ("spatial-block",)
 NEEDS_COORDINATES = ("spatial-block",)

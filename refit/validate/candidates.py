@@ -32,6 +32,32 @@ METRICS = ("rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
            "interval_score", "n", "n_unbounded")
 
 
+#: the separator between the four parts of a candidate's name (safe in file names)
+NAME_SEPARATOR = "__"
+
+
+def candidate_name(form: str, estimator: str, direction: str, method: str) -> str:
+    """A candidate's one name: ``linear__ols__inverse__analytic``."""
+    return NAME_SEPARATOR.join((form, estimator, direction, method))
+
+
+def normalise_candidate(text: str) -> str:
+    """A candidate name as the user may type it, in its one spelling.
+
+    Accepts the name itself (``linear__ols__inverse__jackknife+``), the parts joined by
+    ``/`` (``linear/ols/inverse/jackknife+``), ``-plus`` for ``+`` and a trailing
+    ``.json`` (a file name of an older run folder).
+    """
+    t = str(text).strip().removesuffix(".json")
+    parts = t.replace("/", NAME_SEPARATOR).split(NAME_SEPARATOR)
+    if len(parts) != 4:
+        return t
+    method = parts[3]
+    if method.endswith("-plus"):
+        method = method[: -len("-plus")] + "+"
+    return candidate_name(*parts[:3], method)
+
+
 @dataclass(frozen=True)
 class Spec:
     """One candidate of the matrix, in the recipe's words.
@@ -50,8 +76,10 @@ class Spec:
 
     @property
     def label(self) -> str:
-        """``form/estimator/direction/method``, e.g. ``quadratic/ols/inverse/jackknife+``."""
-        return f"{self.form_label}/{self.estimator}/{self.direction}/{self.method}"
+        """The candidate's one name, ``form__estimator__direction__method`` (e.g.
+        ``quadratic__ols__inverse__jackknife+``): the same on screen, in the leaderboard,
+        in JSON, as the file name ``fits/<name>.json`` and after ``--candidate``."""
+        return candidate_name(self.form_label, self.estimator, self.direction, self.method)
 
     @property
     def interval(self) -> str:

@@ -96,9 +96,11 @@ class Candidate:
 
     @property
     def label(self) -> str:
-        """``form/estimator/direction/interval``, e.g. ``quadratic/ols/inverse/jackknife+``."""
+        """``form__estimator__direction__interval``, e.g.
+        ``quadratic__ols__inverse__jackknife+`` (the spelling of
+        :func:`refit.validate.candidates.candidate_name`)."""
         form = f"polynomial{self.degree}" if self.form == "polynomial" else self.form
-        return f"{form}/{self.estimator}/{self.direction}/{self.interval}"
+        return "__".join((form, self.estimator, self.direction, self.interval))
 
     def columns(self) -> list[str]:
         """The table columns the candidate reads."""

@@ -44,8 +44,11 @@ def shareable(dataset: dict) -> dict:
 
 
 def fit_filename(label: str) -> str:
-    """File name of a candidate's record: ``quadratic__ols__inverse__jackknife-plus.json``."""
-    return label.replace("/", "__").replace("+", "-plus") + ".json"
+    """File name of a candidate's record: its one name and ``.json``
+    (``quadratic__ols__inverse__jackknife+.json``); other spellings are normalised."""
+    from refit.validate.candidates import normalise_candidate
+
+    return normalise_candidate(label) + ".json"
 
 
 def check_target(out: Path, *, overwrite: bool) -> None:

@@ -181,3 +181,78 @@ def test_demo_shows_the_posterior_of_two_proxies(demo_run):
     meta = json.loads((out / "estimates.csv.posterior.json").read_text(encoding="utf-8"))
     assert meta["posteriors"][-1]["grid"]["points"] == 2000
     assert "posterior median" in result.output
+
+
+# --------------------------------------------------- every --help example, from the demo folder
+
+def help_examples(command) -> list[str]:
+    """The example lines of a command's help: ``refit ...`` lines, continuations joined,
+    comments dropped."""
+    lines, out, joined = (command.help or "").splitlines(), [], ""
+    in_examples = False
+    for line in lines:
+        text = line.strip()
+        if text.startswith("Example"):
+            in_examples = True
+            continue
+        if not in_examples:
+            continue
+        if joined:
+            joined += " " + text
+        elif text.startswith("refit "):
+            joined = text
+        if joined and not joined.endswith("\\"):
+            out.append(joined.split(" # ")[0].strip())
+            joined = ""
+        elif joined:
+            joined = joined[:-1].rstrip()
+    return out
+
+
+ORDER = ("check", "admit", "fit", "report", "keygen", "publish", "verify", "diff", "apply",
+         "compare", "section")
+
+
+def test_every_help_example_runs_in_the_demo_folder(demo_run, tmp_path, monkeypatch):
+    import glob
+    import shlex
+    import shutil
+
+    out, result = demo_run
+    assert result.exit_code == 0, result.output
+    for name in ("incoming_soils.csv", "fossils.csv", "age_model.csv",
+                 "compaction_constants.csv", "recipe.toml"):
+        assert (out / name).is_file(), name  # the demo writes its inputs too
+    folder = tmp_path / "demo"
+    shutil.copytree(out, folder)
+    monkeypatch.chdir(folder)
+    assert set(ORDER) | {"demo"} == set(main.commands)
+    ran = 0
+    for name in ORDER:
+        for example in help_examples(main.commands[name]):
+            words = shlex.split(example)
+            target = None
+            if ">" in words:
+                target, words = words[words.index(">") + 1], words[: words.index(">")]
+            args = []
+            for w in words[1:]:
+                args += sorted(glob.glob(w)) if "*" in w else [w]
+            res = CliRunner().invoke(main, args)
+            assert res.exit_code in (0, 1), f"{example}\n{res.output}"
+            assert "Error: unexpected" not in res.output and "Traceback" not in res.output
+            if name in ("fit", "report", "keygen", "publish", "diff", "compare", "section"):
+                assert res.exit_code == 0, f"{example}\n{res.output}"
+            if target:
+                (folder / target).write_text(res.stdout, encoding="utf-8")
+                assert (folder / target).stat().st_size > 0
+            ran += 1
+    assert ran >= 20
+    # what they wrote, re-opened
+    board = pd.read_csv(folder / "leaderboard.csv")
+    assert list(board.columns)[:2] == ["rank", "candidate"] and len(board) > 5
+    assert json.loads((folder / "problems.json").read_text())["n_rows"] == 45
+    assert (folder / "reports" / "linear.html").is_file()
+    signed = sorted((folder / "registry" / "map_from_bk_depth").glob("*.json.sig"))
+    assert len(signed) == 1
+    est = pd.read_csv(folder / "my-estimates.csv")
+    assert est["propagation"].str.startswith("monte-carlo").any()

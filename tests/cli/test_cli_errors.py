@@ -23,7 +23,8 @@ BK = published_path("map_from_bk_depth.retallack1994")
     (["fit"], "Missing argument 'RECIPE'"),
     (["verify", "--tolerance", "x", "f.json"], "'--tolerance'"),
     (["nosuch"], "No such command 'nosuch'"),
-    (["fit", "r.toml", "--format", "x"], "No such option '--format'"),
+    (["fit", "r.toml", "--format", "x"], "'x' is not one of 'text', 'json', 'csv'"),
+    (["fit", "r.toml", "--colour"], "No such option '--colour'"),
     (["publish", "f.json"], "Missing option '--to'"),
     (["diff", "a.json"], "Missing argument 'FILE_B'"),
 ])

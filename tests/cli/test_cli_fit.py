@@ -283,14 +283,14 @@ def test_grouped_defaults_and_unbounded_intervals_are_printed(tmp_path):
     assert r.exit_code == 0, r.output
     assert "Default: scheme defaults to 'group-kfold'" in r.stdout
     assert "Default: estimators default to 'ols' and 'mixed'" in r.stdout
-    assert "Unbounded: linear/ols/inverse/group-jackknife+ is unbounded" in r.stdout
+    assert "Unbounded: linear__ols__inverse__group-jackknife+ is unbounded" in r.stdout
     assert "4 groups are too few for a 90% group-level interval" in r.stdout
     board = pd.read_csv(out / "leaderboard.csv")
-    assert {"linear/mixed/inverse/analytic", "linear/ols/inverse/group-cv+"} <= set(
+    assert {"linear__mixed__inverse__analytic", "linear__ols__inverse__group-cv+"} <= set(
         board["candidate"])
     kept = json.loads((out / "leaderboard.json").read_text())
     assert len(kept["defaults_applied"]) == 3 and len(kept["verdict"]["unbounded"]) == 4
-    rec = json.loads((out / "fits" / "linear__ols__inverse__group-cv-plus.json").read_text())
+    rec = json.loads((out / "fits" / "linear__ols__inverse__group-cv+.json").read_text())
     assert rec["interval"]["method"] in ("group-cv+", "none")
 
 

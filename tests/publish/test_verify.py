@@ -215,7 +215,7 @@ def test_a_table_based_file_is_accepted_by_verify_and_the_report(table_run):
     assert report.ok, report.to_dict()
     assert "refitted from table 'soils.csv' (30 rows" in report.checks[-1].message
     for where in (None, table_run["table"]):  # run.json's path, or named
-        inputs = load_run(table_run["run"], candidate="linear/ols/inverse/analytic",
+        inputs = load_run(table_run["run"], candidate="linear__ols__inverse__analytic",
                           store=where)
         assert inputs.kept.sum() == 30 and inputs.recipe.scheme == "loo"
     # Reference: statsmodels OLS of map_mm on bk_depth_cm over the same table
@@ -238,7 +238,7 @@ def test_a_changed_table_gives_the_same_message_in_verify_and_the_report(table_r
     report = verify_file(table_run["file"], store=changed)
     assert [c.ok for c in report.checks] == [True, True, True, False]
     with pytest.raises(InvalidDataError) as exc:
-        load_run(table_run["run"], candidate="linear/ols/inverse/analytic", store=changed)
+        load_run(table_run["run"], candidate="linear__ols__inverse__analytic", store=changed)
     assert report.checks[-1].message == str(exc.value)
     assert "not the data it was fitted on" in str(exc.value)
     assert "--store" in str(exc.value)

@@ -129,7 +129,7 @@ def test_html_holds_the_runs_numbers(run_dir, written):
 def test_forward_candidate_on_request(run_dir, tmp_path):
     out = tmp_path / "fw.html"
     res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet",
-                                      "--candidate", "quadratic/ols/forward/analytic"])
+                                      "--candidate", "quadratic__ols__forward__analytic"])
     assert res.exit_code == 0, res.output
     body = parse(out).body
     assert "reported as asked" in body
@@ -141,7 +141,7 @@ def test_refuses_to_overwrite_and_unknown_candidate(run_dir, written):
     res = CliRunner().invoke(report, [str(run_dir), "--out", str(written)])
     assert res.exit_code == 2 and "--overwrite" in res.output
     res = CliRunner().invoke(report, [str(run_dir), "--out", str(written), "--overwrite",
-                                      "--candidate", "cubic/ols/inverse/analytic"])
+                                      "--candidate", "cubic__ols__inverse__analytic"])
     assert res.exit_code == 2 and "choose one of" in res.output
 
 
@@ -168,7 +168,7 @@ def test_a_run_the_data_do_not_reproduce_is_refused(run_dir, tmp_path):
     rec["coefficients"] = list(np.asarray(rec["coefficients"]) * 1.01)
     path.write_text(json.dumps(rec))
     res = CliRunner().invoke(report, [str(moved), "--out", str(tmp_path / "b.html"),
-                                      "--candidate", "linear/ols/inverse/analytic"])
+                                      "--candidate", "linear__ols__inverse__analytic"])
     assert res.exit_code == 1
     assert "does not reproduce the run's coefficients" in res.output
 

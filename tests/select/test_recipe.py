@@ -229,6 +229,16 @@ def test_leave_one_out_is_read_as_loo(tmp_path):
     assert r.to_dict()["validation"]["scheme"] == "loo"
 
 
+@pytest.mark.parametrize("alias, name", [("k-fold", "kfold"), ("group-k-fold", "group-kfold"),
+                                         ("logo", "leave-one-group-out"),
+                                         ("spatial-blocks", "spatial-block")])
+def test_other_spellings_of_a_scheme(alias, name):
+    # the spellings of scikit-learn's splitters (KFold, GroupKFold, LeaveOneGroupOut)
+    from refit.select.schemes import canonical_scheme
+
+    assert canonical_scheme(alias) == name
+
+
 def test_scheme_names_are_shared_with_the_splitters():
     from refit.select.schemes import ALIASES, GROUPED, NEEDS_GROUP_COLUMN, SCHEMES
     from refit.validate import splitters

@@ -215,7 +215,7 @@ def test_run_folder_reopened(tmp_path):
                                       "flags"]
     fits = sorted(p.name for p in (out / "fits").iterdir())
     assert fits == sorted(fit_filename(c) for c in board.candidate)
-    rec1 = json.loads((out / "fits" / fit_filename("quadratic/ols/inverse/analytic"))
+    rec1 = json.loads((out / "fits" / fit_filename("quadratic__ols__inverse__analytic"))
                       .read_text())
     for key in ("schema_version", "function_id", "version", "created", "response",
                 "predictors", "direction", "form", "estimator", "terms", "coefficients",
@@ -229,7 +229,7 @@ def test_run_folder_reopened(tmp_path):
     assert rec1["n"] == 45 and rec1["df_resid"] == 42
     assert rec1["provenance"]["dataset"]["sha256"] == run.data["sha256"]
     assert rec1["interval"]["t_quantile"] == pytest.approx(1.68195235747, rel=1e-10)  # t(0.95, 42): scipy.stats.t.ppf
-    row = board.set_index("candidate").loc["quadratic/ols/inverse/analytic"]
+    row = board.set_index("candidate").loc["quadratic__ols__inverse__analytic"]
     assert rec1["cv"]["interval_score"] == pytest.approx(row.interval_score, rel=1e-12)
     run_doc = json.loads((out / "run.json").read_text())
     assert run_doc["seed"] == 11 and run_doc["dataset"]["kind"] == "table"
@@ -240,9 +240,9 @@ def test_conformal_record_rebuilds_the_full_fit_interval(tmp_path):
     # the record's centre coefficients and quantile give the interval refit itself gives
     run = run_recipe(read_recipe(write_case(tmp_path)))
     out = write_run(run, tmp_path / "run")
-    rec = json.loads((out / "fits" / fit_filename("linear/ols/inverse/split-conformal"))
+    rec = json.loads((out / "fits" / fit_filename("linear__ols__inverse__split-conformal"))
                      .read_text())
-    f = run.matrix.fits["linear/ols/inverse/split-conformal"]
+    f = run.matrix.fits["linear__ols__inverse__split-conformal"]
     p = f.predict([50.0, 100.0], level=0.9, interval="split-conformal", seed=11)
     b, q = np.array(rec["interval"]["centre_coefficients"]), rec["interval"]["quantile"]
     centre = b[0] + b[1] * np.array([50.0, 100.0])
@@ -251,8 +251,8 @@ def test_conformal_record_rebuilds_the_full_fit_interval(tmp_path):
 
 def test_spec_label():
     s = Spec("cubic", "polynomial", 3, "ols", "inverse", "jackknife+", 4)
-    assert s.label == "cubic/ols/inverse/jackknife+" and s.interval == "jackknife+"
-    assert fit_filename(s.label) == "cubic__ols__inverse__jackknife-plus.json"
+    assert s.label == "cubic__ols__inverse__jackknife+" and s.interval == "jackknife+"
+    assert fit_filename(s.label) == "cubic__ols__inverse__jackknife+.json"
 
 
 def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
@@ -264,12 +264,12 @@ def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
     res = run_matrix(soils(60).iloc[:6], rec)
     failed = {s["candidate"]: s["reason"] for s in res.skipped
               if s["reason"].startswith("failed")}
-    assert set(failed) == {"linear/ols/inverse/split-conformal",
-                           "quadratic/ols/inverse/split-conformal",
-                           "quadratic/ols/inverse/jackknife+",
-                           "quadratic/huber/inverse/analytic",
-                           "quadratic/huber/forward/analytic"}
-    assert "at least 5 rows are needed" in failed["quadratic/huber/inverse/analytic"]
+    assert set(failed) == {"linear__ols__inverse__split-conformal",
+                           "quadratic__ols__inverse__split-conformal",
+                           "quadratic__ols__inverse__jackknife+",
+                           "quadratic__huber__inverse__analytic",
+                           "quadratic__huber__forward__analytic"}
+    assert "at least 5 rows are needed" in failed["quadratic__huber__inverse__analytic"]
     assert len(res.specs) == 9 and len(res.leaderboard) == 9
 
 

@@ -194,10 +194,10 @@ def test_scheme_errors(kwargs, words):
 
 
 def test_candidate_label_and_interval_names():
-    assert QUAD.label == "quadratic/ols/inverse/analytic"
+    assert QUAD.label == "quadratic__ols__inverse__analytic"
     c = Candidate("map_mm", "bk_depth_cm", "polynomial", 3, "ols", "inverse", "bootstrap")
     assert c.predictors == ("bk_depth_cm",) and c.interval == "bootstrap-pairs"
-    assert c.label == "polynomial3/ols/inverse/bootstrap-pairs"
+    assert c.label == "polynomial3__ols__inverse__bootstrap-pairs"
     with pytest.raises(UsageError, match="unknown interval"):
         Candidate("map_mm", ("bk_depth_cm",), interval="wide")
     with pytest.raises(UsageError, match="unknown estimator 'lasso'; choose one of: ols"):
@@ -369,7 +369,7 @@ def test_forward_and_quantile_candidates_run():
 def test_fold_failure_names_the_fold():
     frame = _table(30, seed=13)
     frame["site"] = ["big"] * 28 + ["a", "b"]  # holding out 'big' leaves 2 training rows
-    with pytest.raises(InvalidDataError, match=r"quadratic/ols/inverse/analytic, repeat 1 "
+    with pytest.raises(InvalidDataError, match=r"quadratic__ols__inverse__analytic, repeat 1 "
                                                r"fold \d \(2 training rows\): too few rows"):
         cross_validate(frame, QUAD, Scheme("leave-one-group-out", groups="site"))
 
@@ -456,5 +456,5 @@ def test_an_error_inside_a_fold_names_the_candidate_fold_and_record():
     with pytest.raises(InvalidDataError) as err:
         cross_validate(frame, cand, Scheme("group-kfold", folds=4, groups="source"))
     text = str(err.value)
-    assert text.startswith("quadratic/ols/inverse/jackknife+, repeat 1 fold ")
+    assert text.startswith("quadratic__ols__inverse__jackknife+, repeat 1 fold ")
     assert "(11 training rows)" in text and "leverage 1" in text

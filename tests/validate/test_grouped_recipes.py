@@ -62,9 +62,9 @@ def test_a_grouped_recipe_gets_the_documented_defaults(grouped_run):
     labels = set(run.matrix.leaderboard["candidate"])
     # the group intervals refit each source's left-out fit with the candidate's own
     # estimator, so the mixed line gets them too
-    assert labels == {"linear/ols/inverse/analytic", "linear/mixed/inverse/analytic",
-                      "linear/ols/inverse/group-jackknife+", "linear/ols/inverse/group-cv+",
-                      "linear/mixed/inverse/group-jackknife+", "linear/mixed/inverse/group-cv+"}
+    assert labels == {"linear__ols__inverse__analytic", "linear__mixed__inverse__analytic",
+                      "linear__ols__inverse__group-jackknife+", "linear__ols__inverse__group-cv+",
+                      "linear__mixed__inverse__group-jackknife+", "linear__mixed__inverse__group-cv+"}
     assert run.source_check is None  # it names groups: no warning
 
 
@@ -80,8 +80,8 @@ def test_ungrouped_defaults_are_unchanged(tmp_path):
 def test_out_of_fold_coverage_is_of_held_out_sources(grouped_run):
     df, run = grouped_run
     m = run.matrix
-    for label in ("linear/mixed/inverse/analytic", "linear/ols/inverse/group-jackknife+",
-                  "linear/ols/inverse/group-cv+"):
+    for label in ("linear__mixed__inverse__analytic", "linear__ols__inverse__group-jackknife+",
+                  "linear__ols__inverse__group-cv+"):
         p = m.cv[label]["main"].predictions
         src = df["source"].to_numpy()[p["row"].to_numpy()]
         # every source is tested in exactly one fold: whole sources held out
@@ -99,7 +99,7 @@ def test_each_mixed_fold_is_fitted_on_its_training_sources(grouped_run):
     import statsmodels.api as sm
 
     df, run = grouped_run
-    p = run.matrix.cv["linear/mixed/inverse/analytic"]["main"].predictions
+    p = run.matrix.cv["linear__mixed__inverse__analytic"]["main"].predictions
     test_rows = p.loc[p["fold"] == 0, "row"].to_numpy()
     train = df.drop(index=test_rows)
     res = sm.MixedLM(train["map_mm"], sm.add_constant(train["bk_depth_cm"]),
@@ -114,7 +114,7 @@ def test_the_mixed_fit_of_the_whole_subset_matches_statsmodels(grouped_run):
     import statsmodels.api as sm
 
     df, run = grouped_run
-    f = run.matrix.fits["linear/mixed/inverse/analytic"]
+    f = run.matrix.fits["linear__mixed__inverse__analytic"]
     res = sm.MixedLM(df["map_mm"], sm.add_constant(df["bk_depth_cm"]),
                      groups=df["source"]).fit(reml=True)
     assert f.result.coefficients == pytest.approx(res.fe_params.to_numpy(), rel=1e-5)
@@ -128,7 +128,7 @@ def test_too_few_sources_give_unbounded_intervals_ranked_last_with_the_reason(tm
                         intervals={"level": 0.95, "methods": ["analytic", "group-cv+"]})
     run = run_recipe(read_recipe(path))
     board = run.matrix.leaderboard.set_index("candidate")
-    g = board.loc["linear/ols/inverse/group-cv+"]
+    g = board.loc["linear__ols__inverse__group-cv+"]
     # 8 training sources: the weights of the finite scores sum to 8/9 < 0.95, so the limits
     # are infinite (two-layer conformal, refit.models.intervals.group_conformal notes)
     assert g["coverage"] == 1.0 and np.isinf(g["mean_width"]) and np.isinf(g["interval_score"])
@@ -184,12 +184,12 @@ def test_weights_and_measurement_sds_reach_wls_and_york(tmp_path):
     run = run_recipe(read_recipe(path))
     assert not [s for s in run.matrix.skipped if "wls" in s["candidate"]
                 or "york" in s["candidate"]]
-    wls = run.matrix.fits["linear/wls/inverse/analytic"]
+    wls = run.matrix.fits["linear__wls__inverse__analytic"]
     ref = sm.WLS(df["map_mm"], sm.add_constant(df["bk_depth_cm"]), weights=df["w"]).fit()
     assert wls.coefficients.to_numpy() == pytest.approx(ref.params.to_numpy(), rel=1e-10)
     assert wls.weights == pytest.approx(df["w"].to_numpy())
-    york = run.matrix.fits["linear/york/inverse/analytic"]
-    assert york.estimator == "york" and "linear/york/inverse/analytic" in set(
+    york = run.matrix.fits["linear__york__inverse__analytic"]
+    assert york.estimator == "york" and "linear__york__inverse__analytic" in set(
         run.matrix.leaderboard["candidate"])
 
 
