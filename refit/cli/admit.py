@@ -28,12 +28,14 @@ from refit.cli.common import guarded, render_admit
                    "warnings) instead of quarantining them.")
 @click.option("--again", is_flag=True,
               help="Admit a file whose SHA-256 the store's changelog already holds.")
+@click.option("--sheet", metavar="NAME", default=None,
+              help="Worksheet of an xlsx workbook; default the first visible sheet.")
 @click.option("--max-rows", type=click.IntRange(min=0), default=50, show_default=True,
               help="Blocks of problems (one per rule, column and value) listed.")
 @guarded
 def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
           strict: bool, unit_items: tuple[str, ...], accept_suspect: bool, again: bool,
-          max_rows: int) -> None:
+          sheet: str | None, max_rows: int) -> None:
     """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
 
     Column names and units are mapped to the canonical ones (e.g. 'MAP (in)' -> map_mm),
@@ -63,7 +65,7 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
 
     result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files),
                        units=parse_unit_options(unit_items), accept_suspect=accept_suspect,
-                       again=again)
+                       again=again, sheet=sheet)
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False, default=str))
     else:

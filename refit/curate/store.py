@@ -242,7 +242,7 @@ class AdmitResult:
 def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
           today: str | dt.date | None = None, tolerance_deg: float = DUPLICATE_TOLERANCE_DEG,
           lock_timeout: float | None = None, units=None, accept_suspect: bool = False,
-          again: bool = False) -> AdmitResult:
+          again: bool = False, sheet: str | None = None) -> AdmitResult:
     """Admit the rows of a table into a store: check, split, append, quarantine, version.
 
     Parameters
@@ -274,6 +274,8 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
         instead of quarantining them.
     again : bool
         Admit a file whose sha256 is already in the changelog.
+    sheet : str, optional
+        Worksheet of an xlsx file; default the first visible one.
 
     Returns
     -------
@@ -298,7 +300,7 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     units = dict(units or {})
     state = _state(store_dir)
     try:
-        table = read_table(table_path, as_text=True)
+        table = read_table(table_path, as_text=True, sheet=sheet)
     except InvalidDataError as exc:  # a repeated or blank column name, mixed decimals
         raise InvalidDataError(f"{Path(table_path)} cannot be admitted; nothing was written: "
                                f"{exc}") from None
@@ -359,9 +361,10 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
                          path=str(table.path))
     table_errors = report.table_errors()
     if len(table_errors):
-        lines = [f"  - {m}" for m in table_errors["message"]]
-        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written:\n"
-                               + "\n".join(lines))
+        messages = [" ".join(str(m).split()) for m in table_errors["message"]]
+        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
+                               + " | ".join(f"({k}) {m}" for k, m in
+                                            enumerate(messages, start=1)))
     n = len(frame)
     original = _as_numbers_read(table, incoming)
     rejected, problems = _split_rows(report, frame, store, table.source_rows, original,
