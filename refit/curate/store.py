@@ -35,7 +35,6 @@ import datetime as dt
 import functools
 import json
 import re
-import shutil
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -49,7 +48,9 @@ from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: 
 from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
-from refit.curate.store_commit import _commit, _locked, recover
+from refit.curate.store_commit import (
+    StoreNotWritableError, _commit, _locked, create_store, recover,
+)
 from refit.errors import InvalidDataError, UsageError
 
 FORMAT = "refit-store/1"
@@ -145,7 +146,7 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
     try:
         lock = _locked(store_dir, lock_timeout)
         lock.__enter__()
-    except PermissionError:  # a read-only store (e.g. installed with the package)
+    except (StoreNotWritableError, PermissionError):  # read-only (e.g. installed with refit)
         if list(store_dir.glob(".pending-*")):
             raise InvalidDataError(
                 f"{store_dir} holds an interrupted admit but is read-only; open it once with "
@@ -176,9 +177,9 @@ def _load(store_dir: Path, recovered: list[str]) -> Store:
     return Store(store_dir, manifest, _read_records(records), recovered)
 
 
-def _empty_store(store_dir: Path) -> Store:
+def _empty_store(store_dir: Path, name: str | None = None) -> Store:
     columns = canonical_order([])
-    return Store(store_dir, {"name": store_dir.name, "version": 0, "changelog": [],
+    return Store(store_dir, {"name": name or store_dir.name, "version": 0, "changelog": [],
                              "columns": columns}, pd.DataFrame(columns=columns, dtype=str))
 
 
@@ -318,20 +319,27 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
                              True, vocabularies, vocab_files, today, tolerance_deg,
                              (units, accept_suspect, again))
-    was_missing = state == "missing"
-    store_dir.mkdir(parents=True, exist_ok=True)
-    try:
-        with _locked(store_dir, LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout):
-            recovered = recover(store_dir)
-            state = _state(store_dir)
-            store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
-            store.recovered = recovered
-            return _admit_locked(table, incoming, frame, mappings, store, state != "store",
-                                 dry_run, vocabularies, vocab_files, today, tolerance_deg,
-                                 (units, accept_suspect, again))
-    finally:
-        if was_missing and not (store_dir / "manifest.json").exists():
-            shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
+    timeout = LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout
+    args = (table, incoming, frame, mappings)
+    options = (vocabularies, vocab_files, today, tolerance_deg, (units, accept_suspect, again))
+    if state == "missing" and not dry_run:
+        result = create_store(store_dir, timeout, lambda stage: _admit_locked(
+            *args, _empty_store(stage, store_dir.name), True, False, *options))
+        if result is not None:
+            return result
+        # another process created the store first: admit into it, after it
+    if dry_run:
+        try:
+            with _locked(store_dir, timeout):
+                pass
+        except StoreNotWritableError:  # a read-only store: read it without its lock
+            return _admit_locked(*args, open_store(store_dir), False, True, *options)
+    with _locked(store_dir, timeout):
+        recovered = recover(store_dir)
+        state = _state(store_dir)
+        store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
+        store.recovered = recovered
+        return _admit_locked(*args, store, state != "store", dry_run, *options)
 
 
 def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:
