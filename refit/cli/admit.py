@@ -8,9 +8,13 @@ from refit.cli.common import guarded, render_admit
 
 
 @click.command("admit", short_help="Admit new soils into a versioned calibration store.")
-@click.argument("table", type=click.Path(dir_okay=True, path_type=str))
-@click.option("--into", "store", required=True, metavar="STORE", type=click.Path(path_type=str),
+@click.argument("table", required=False, type=click.Path(dir_okay=True, path_type=str))
+@click.option("--into", "store", metavar="STORE", type=click.Path(path_type=str),
               help="Store folder; created (named after the folder) if it does not exist.")
+@click.option("--repair-manifest", "repair", metavar="STORE", type=click.Path(path_type=str),
+              help="Recompute STORE/manifest.json from records.csv (hash, row count, "
+                   "version; a 'repair' changelog entry when records.csv changed) and say "
+                   "what changed; admits nothing.")
 @click.option("--dry-run", is_flag=True, help="Show what would happen; write nothing.")
 @click.option("--vocab", "vocab_files", metavar="FILE", multiple=True,
               type=click.Path(dir_okay=False, path_type=str),
@@ -33,7 +37,7 @@ from refit.cli.common import guarded, render_admit
 @click.option("--max-rows", type=click.IntRange(min=0), default=50, show_default=True,
               help="Blocks of problems (one per rule, column and value) listed.")
 @guarded
-def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
+def admit(table: str | None, store: str | None, repair: str | None, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
           strict: bool, unit_items: tuple[str, ...], accept_suspect: bool, again: bool,
           sheet: str | None, max_rows: int) -> None:
     """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
@@ -54,12 +58,27 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     Exit codes: 0 admitted (rejected rows are in quarantine; see --strict), 1 invalid
     table (nothing written) or busy store, 2 unreadable input or usage error.
 
+    A store whose manifest disagrees with its records.csv (hand edits, a lost changelog)
+    is refused until 'refit admit --repair-manifest STORE' recomputes the manifest from
+    records.csv; it prints every change it makes.
+
     \b
     Example:
       refit admit calib_demo/incoming_soils.csv --into my_store --dry-run
     """
     import json
 
+    from refit.errors import UsageError
+
+    if repair is not None:
+        if table is not None or store is not None:
+            raise UsageError("--repair-manifest STORE works alone; run it without TABLE and "
+                             "--into, then admit")
+        _repair(repair)
+        return
+    if table is None or store is None:
+        raise UsageError("give the TABLE to admit and the store with --into STORE, e.g. "
+                         "'refit admit soils.csv --into my_store'")
     from refit.curate.columns import parse_unit_options
     from refit.curate.store import admit as run_admit
 
@@ -72,3 +91,15 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
         click.echo("\n".join(render_admit(result, max_rows=max_rows)))
     if strict and result.rejected:
         raise SystemExit(1)
+
+
+def _repair(store: str) -> None:
+    from refit.curate.store_manifest import repair_manifest
+
+    changes = repair_manifest(store)
+    if not changes:
+        click.echo(f"{store}: manifest.json already agrees with records.csv; nothing changed.")
+        return
+    click.echo(f"{store}: manifest.json rebuilt from records.csv:")
+    for change in changes:
+        click.echo(f"  - {change}")

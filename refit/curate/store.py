@@ -48,6 +48,7 @@ from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: 
 from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
+from refit.curate.store_manifest import check_manifest
 from refit.curate.store_commit import (
     StoreNotWritableError, _commit, _locked, create_store, recover,
 )
@@ -161,20 +162,18 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
 def _load(store_dir: Path, recovered: list[str]) -> Store:
     try:
         manifest = json.loads((store_dir / "manifest.json").read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InvalidDataError(f"{store_dir / 'manifest.json'} cannot be read ({exc}); restore "
-                               "it from a backup or version control") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
+        raise InvalidDataError(
+            f"{store_dir / 'manifest.json'} cannot be read ({str(exc)[:200]}); restore it from "
+            f"a backup, or rebuild it with 'refit admit --repair-manifest {store_dir}'") from None
     records = store_dir / "records.csv"
     if not records.is_file():
         raise InvalidDataError(f"{records} is missing; restore it from a backup")
-    actual = sha256_file(records)
-    if actual != manifest.get("records_sha256"):
-        raise InvalidDataError(
-            f"{records} does not match its manifest (sha256 {actual[:12]}... but manifest.json "
-            f"records {str(manifest.get('records_sha256'))[:12]}...): it was edited outside "
-            "refit. Restore records.csv (e.g. 'git checkout' or a backup); add new soils with "
-            "'refit admit' instead of editing the file")
-    return Store(store_dir, manifest, _read_records(records), recovered)
+    sha = sha256_file(records)
+    check_manifest(store_dir, manifest, sha)  # its schema and the hash, before parsing
+    text = _read_records(records)
+    check_manifest(store_dir, manifest, sha, len(text))
+    return Store(store_dir, manifest, text, recovered)
 
 
 def _empty_store(store_dir: Path, name: str | None = None) -> Store:
