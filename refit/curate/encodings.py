@@ -91,7 +91,7 @@ def detect_encoding(sample: bytes, path: Path) -> tuple[str, str]:
         utf8_prefix(sample)
         return "utf-8", "encoding utf-8"
     except UnicodeDecodeError:
-        pass
+        refuse_mixed(sample, path)
     from charset_normalizer import from_bytes
 
     best = from_bytes(sample, cp_isolation=["cp1252", "latin_1"]).best()
