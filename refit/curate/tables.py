@@ -281,6 +281,8 @@ def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
 def csv_rows(source, delim: str, path: Path) -> list[list[str]]:
     """All rows of delimited text; a cell over ``MAX_FIELD_CHARS`` is refused with its line."""
     reader = csv.reader(source, delimiter=delim)
+    # the limit is process-wide and other libraries raise it (frictionless does): set ours
+    previous = csv.field_size_limit(MAX_FIELD_CHARS)
     try:
         return list(reader)
     except csv.Error as exc:
@@ -291,6 +293,8 @@ def csv_rows(source, delim: str, path: Path) -> list[list[str]]:
                 "(\") opened and never closed? Close the quote or shorten the cell") from None
         raise UnreadableInputError(f"{path}: line {reader.line_num} is not valid delimited "
                                    f"text ({exc}); export the table again as CSV") from None
+    finally:
+        csv.field_size_limit(previous)
 
 
 _DELIM_NAMES = {",": "comma ','", ";": "semicolon ';'", "\t": "tab", "|": "pipe '|'"}

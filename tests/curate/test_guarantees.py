@@ -251,6 +251,7 @@ def test_a_read_only_store_dry_run_reads_and_admit_is_a_clear_error(tmp_path, mo
 
 def test_a_lock_of_the_wrong_kind_is_named(tmp_path):
     store = _store(tmp_path)
+    (store / ".lock").unlink(missing_ok=True)  # the demo store's own lock file, if any
     (store / ".lock").mkdir()
     res = cli("admit", demo_dir() / "incoming_soils.csv", "--into", store)
     assert res.exit_code == 2
