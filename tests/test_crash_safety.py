@@ -88,6 +88,38 @@ def test_killed_admit_leaves_the_store_before_or_after(store_states, tmp_path):
           f"after, {recovered} recovered with a message")
 
 
+def test_killed_first_admit_leaves_no_store_or_a_whole_one(store_states, tmp_path):
+    """A first admit into a missing folder is staged beside it and renamed into place: a
+    kill leaves no store folder at all or the whole new store; never a half one."""
+    done = tmp_path / "reference"
+    code, out = cli("admit", INCOMING, "--into", done)
+    assert code == 0, out
+    whole = {k: v for k, v in snapshot(done).items()}
+    duration = store_states["duration"]
+    outcomes = []
+    for i, delay in enumerate(kill_moments(duration, n_runs(4), SEED + 1)):
+        parent = tmp_path / f"p{i}"
+        parent.mkdir()
+        target = parent / "reference"  # same name: same manifest name
+        run_killed("admit", INCOMING, "--into", target, delay=delay)
+        if target.exists():
+            seen = snapshot(target)
+            manifest = json.loads(seen["manifest.json"])
+            assert seen["records.csv"] == whole["records.csv"], delay
+            assert manifest["version"] == 1 and manifest["row_count"] == \
+                json.loads(whole["manifest.json"])["row_count"]
+            outcomes.append("after")
+        else:
+            outcomes.append("before")
+        # whatever the moment, the next admit works (a staging folder left by the kill is
+        # beside the store, never inside it)
+        code, out = cli("admit", INCOMING, "--into", target, "--dry-run", "--again")
+        assert code == 0, out
+    assert outcomes[0] == "before" and outcomes[1] == "after"
+    print(f"first-admit kills: {outcomes.count('before')} no store, "
+          f"{outcomes.count('after')} whole store")
+
+
 def test_stale_staging_and_temporary_files_are_recovered_with_a_message(store_states,
                                                                        tmp_path):
     work = tmp_path / "s"

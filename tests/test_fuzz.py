@@ -339,7 +339,8 @@ def test_the_property_catches_a_traceback():
 # Tamper attacks a content hash alone cannot see, and inputs sized to exhaust refit. The
 # reference for "same content" is Python's json module (RFC 8259): an edit that json.loads
 # reads as the same document must still be refused, because load() checks the exact bytes.
-ATTACKS = {"non-finite": 0, "respelled": 0, "nested": 0, "recipe sizes": 0}
+ATTACKS = {"non-finite": 0, "respelled": 0, "nested": 0, "recipe sizes": 0,
+           "rows above the header": 0, "encodings and ids": 0, "manifest edits": 0}
 
 
 def _null_offsets(raw: bytes) -> list[int]:
@@ -468,6 +469,89 @@ def test_fit_refuses_recipe_sizes_beyond_the_limits_at_once(soils, key, value, l
         assert "refit's limit" in result.output
         assert not (Path(tmp) / "run").exists()
     ATTACKS["recipe sizes"] += 1
+
+
+# Curate attacks: data rows above the header, mixed and wide encodings, look-alike ids,
+# formula-like text, manifests of the wrong shape.
+ID_SPELLINGS = ["P{i}", "Ve\u0300sk{i}", "V\u00e8sk{i}", "P\u200b{i}", "={i}+1", "@SUM({i})",
+                "+{i}", "-x{i}", "P\ufeff{i}"]
+
+
+@st.composite
+def shaped_table(draw):
+    n = draw(st.integers(1, 12))
+    ids = [draw(st.sampled_from(ID_SPELLINGS)).format(i=i) for i in range(n)]
+    rows = [f"{pid},{30 + i / 7:.4f},{-100 - i / 9:.4f},SRC-{i % 3},{250 + 13 * i},"
+            f"{20 + 3 * i},{10 + i}" for i, pid in enumerate(ids)]
+    header = "profile_id,latitude,longitude,source,map_mm,bk_depth_cm,bk_thickness_cm"
+    above = draw(st.integers(0, n - 1))
+    lines = rows[:above] + [header] + rows[above:]
+    if draw(st.booleans()):
+        lines.insert(0, draw(st.sampled_from(["Survey 2024", "Notes: depths in cm", ""])))
+    text = "\n".join(lines) + "\n"
+    codec = draw(st.sampled_from(["utf-8", "utf-8", "utf-16-le", "utf-16-be", "utf-32-le",
+                                  "mixed"]))
+    if codec == "mixed":  # UTF-8 then Latin-1 at a drawn line
+        cut = draw(st.integers(0, len(lines)))
+        data = ("\n".join(lines[:cut]) + "\nVèsk").encode("utf-8") + \
+            ("\n" + "\n".join(lines[cut:]) + "\nVèsk\n").encode("latin-1", "replace")
+    else:
+        data = text.encode(codec)
+    return data, n, above, codec
+
+
+@FUZZ
+@given(shaped=shaped_table())
+def test_every_data_row_is_accounted_for_whatever_its_place_or_encoding(shaped):
+    data, n, above, codec = shaped
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "incoming.csv"
+        path.write_bytes(data)
+        result = invoke("admit", path, "--into", Path(tmp) / "store", "--format", "json")
+        assert_well_behaved(result, path)
+        if codec == "mixed":
+            assert result.exit_code == 2 and "mixes encodings" in result.output
+        else:
+            assert result.exit_code == 0, result.output
+            report = json.loads(result.stdout)
+            # every data row written, above the header or below it, is read and accounted
+            assert report["rows_read"] == n
+            assert n == report["accepted"] + report["rejected"] + report["suspect"]
+    ATTACKS["rows above the header" if above else "encodings and ids"] += 1
+
+
+MANIFEST_EDITS = st.sampled_from([
+    ("version", -1), ("version", 0), ("version", 99), ("version", "1"), ("version", None),
+    ("changelog", None), ("changelog", {}), ("changelog", []), ("row_count", -5),
+    ("row_count", 10 ** 30), ("records_sha256", "x"), ("name", 7), ("name", None),
+])
+
+
+@FUZZ
+@given(edits=st.lists(MANIFEST_EDITS, min_size=1, max_size=3), top=st.booleans())
+def test_a_manifest_of_the_wrong_shape_is_a_clear_error(edits, top):
+    with tempfile.TemporaryDirectory() as tmp:
+        store = Path(tmp) / "store"
+        shutil.copytree(demo_dir() / "store", store)
+        manifest = json.loads((store / "manifest.json").read_text("utf-8"))
+        for key, value in edits:
+            if value is None:
+                manifest.pop(key, None)
+            else:
+                manifest[key] = value
+        doc = manifest if top else [manifest]
+        (store / "manifest.json").write_text(json.dumps(doc), encoding="utf-8")
+        result = invoke("admit", demo_dir() / "incoming_soils.csv", "--into", store,
+                        "--dry-run")
+        assert_well_behaved(result)
+        assert result.exit_code == 1 and "--repair-manifest" in result.output, result.output
+        repaired = invoke("admit", "--repair-manifest", store)
+        assert_well_behaved(repaired)
+        assert repaired.exit_code == 0 and "rebuilt" in repaired.output
+        again = invoke("admit", demo_dir() / "incoming_soils.csv", "--into", store,
+                       "--dry-run")
+        assert again.exit_code == 0, again.output
+    ATTACKS["manifest edits"] += 1
 
 
 def test_zz_report_attack_counts():

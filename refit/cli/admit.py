@@ -8,9 +8,13 @@ from refit.cli.common import guarded, render_admit
 
 
 @click.command("admit", short_help="Admit new soils into a versioned calibration store.")
-@click.argument("table", type=click.Path(dir_okay=True, path_type=str))
-@click.option("--into", "store", required=True, metavar="STORE", type=click.Path(path_type=str),
+@click.argument("table", required=False, type=click.Path(dir_okay=True, path_type=str))
+@click.option("--into", "store", metavar="STORE", type=click.Path(path_type=str),
               help="Store folder; created (named after the folder) if it does not exist.")
+@click.option("--repair-manifest", "repair", metavar="STORE", type=click.Path(path_type=str),
+              help="Recompute STORE/manifest.json from records.csv (hash, row count, "
+                   "version; a 'repair' changelog entry when records.csv changed) and say "
+                   "what changed; admits nothing.")
 @click.option("--dry-run", is_flag=True, help="Show what would happen; write nothing.")
 @click.option("--vocab", "vocab_files", metavar="FILE", multiple=True,
               type=click.Path(dir_okay=False, path_type=str),
@@ -28,12 +32,14 @@ from refit.cli.common import guarded, render_admit
                    "warnings) instead of quarantining them.")
 @click.option("--again", is_flag=True,
               help="Admit a file whose SHA-256 the store's changelog already holds.")
+@click.option("--sheet", metavar="NAME", default=None,
+              help="Worksheet of an xlsx workbook; default the first visible sheet.")
 @click.option("--max-rows", type=click.IntRange(min=0), default=50, show_default=True,
               help="Blocks of problems (one per rule, column and value) listed.")
 @guarded
-def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
+def admit(table: str | None, store: str | None, repair: str | None, dry_run: bool, vocab_files: tuple[str, ...], fmt: str,
           strict: bool, unit_items: tuple[str, ...], accept_suspect: bool, again: bool,
-          max_rows: int) -> None:
+          sheet: str | None, max_rows: int) -> None:
     """Admit the soils of TABLE (csv, tsv, xlsx, parquet) into the store STORE.
 
     Column names and units are mapped to the canonical ones (e.g. 'MAP (in)' -> map_mm),
@@ -52,21 +58,48 @@ def admit(table: str, store: str, dry_run: bool, vocab_files: tuple[str, ...], f
     Exit codes: 0 admitted (rejected rows are in quarantine; see --strict), 1 invalid
     table (nothing written) or busy store, 2 unreadable input or usage error.
 
+    A store whose manifest disagrees with its records.csv (hand edits, a lost changelog)
+    is refused until 'refit admit --repair-manifest STORE' recomputes the manifest from
+    records.csv; it prints every change it makes.
+
     \b
     Example:
       refit admit incoming_soils.csv --into store --dry-run
     """
     import json
 
+    from refit.errors import UsageError
+
+    if repair is not None:
+        if table is not None or store is not None:
+            raise UsageError("--repair-manifest STORE works alone; run it without TABLE and "
+                             "--into, then admit")
+        _repair(repair)
+        return
+    if table is None or store is None:
+        raise UsageError("give the TABLE to admit and the store with --into STORE, e.g. "
+                         "'refit admit soils.csv --into my_store'")
     from refit.curate.columns import parse_unit_options
     from refit.curate.store import admit as run_admit
 
     result = run_admit(table, store, dry_run=dry_run, vocab_files=list(vocab_files),
                        units=parse_unit_options(unit_items), accept_suspect=accept_suspect,
-                       again=again)
+                       again=again, sheet=sheet)
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False, default=str))
     else:
         click.echo("\n".join(render_admit(result, max_rows=max_rows)))
     if strict and result.rejected:
         raise SystemExit(1)
+
+
+def _repair(store: str) -> None:
+    from refit.curate.store_manifest import repair_manifest
+
+    changes = repair_manifest(store)
+    if not changes:
+        click.echo(f"{store}: manifest.json already agrees with records.csv; nothing changed.")
+        return
+    click.echo(f"{store}: manifest.json rebuilt from records.csv:")
+    for change in changes:
+        click.echo(f"  - {change}")

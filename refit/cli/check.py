@@ -19,13 +19,15 @@ MAX_ROWS_DEFAULT = 50
               metavar="FILE",
               help='Extra vocabulary terms, a JSON file like {"vegetation": ["new term"]}; '
                    "repeatable.")
+@click.option("--sheet", metavar="NAME", default=None,
+              help="Worksheet of an xlsx workbook; default the first visible sheet.")
 @click.option("--max-rows", type=click.IntRange(min=0), default=MAX_ROWS_DEFAULT,
               show_default=True,
               help="Blocks of problems (one per rule, column and value) listed per "
                    "severity in text mode.")
 @click.pass_context
 @guarded
-def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
+def check(ctx, table, kind, fmt, vocab_files, sheet, max_rows) -> None:
     """Check a calibration table (csv, tsv, xlsx or parquet) against refit's schema.
 
     Every problem is reported at once with its file row, profile_id, column, value,
@@ -46,7 +48,7 @@ def check(ctx, table, kind, fmt, vocab_files, max_rows) -> None:
     from refit.curate.checks import check_file, load_vocabularies
 
     vocab = load_vocabularies(*vocab_files)
-    report = check_file(table, kind=kind, vocabularies=vocab)
+    report = check_file(table, kind=kind, vocabularies=vocab, sheet=sheet)
     if fmt == "json":
         click.echo(json.dumps(report.to_dict(), ensure_ascii=False, indent=1))
     else:

@@ -30,6 +30,8 @@ Rules (``rule`` ids; severity error unless noted):
                      admitted and is simply not used by thickness equations
 ``oxide-total``      the sum of the ``*_wt`` oxides above 101 wt%
 ``gypsum-above-carbonate``, ``carbonate-in-wet-climate`` (warnings, common practice)
+``formula-like-text`` (warning) text starting with =, +, -, @ (:mod:`refit.curate.text_cells`;
+                     ids are normalised there too, before the unique-id rule)
 
 Plausibility rules (:mod:`refit.curate.plausibility`; each with its source and why it is a
 warning or an error): ``bk-too-shallow`` (error), ``bk-in-hyperarid-climate``
@@ -52,6 +54,7 @@ from refit.curate.problems import PROBLEM_COLUMNS, Problems, fmt_values
 from refit.curate.rules import (  # CheckReport is re-exported: part of the checks API
     CheckReport, check_oxide_total, default_rows, run_pandera,
 )
+from refit.curate.text_cells import formula_like_problems, normalise_ids
 from refit.errors import InvalidDataError, UsageError
 from refit.curate.vocabularies import (  # noqa: F401  (re-exported: part of the checks API)
     VOCABULARY_COLUMNS, check_vocabularies, load_vocabularies, match_vocabulary, vocab_key,
@@ -67,7 +70,8 @@ CARBONATE_WET_LIMIT_MM = 760.0
 
 # --- checking ---------------------------------------------------------------------------
 
-def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckReport:
+def check_file(path, *, kind: str = "calibration", vocabularies=None,
+               sheet: str | None = None) -> CheckReport:
     """Read a table (csv/tsv/xlsx/parquet), map its units and column names, and check it.
 
     Parameters
@@ -78,6 +82,8 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
         Table kind; a fossil table is checked by :mod:`refit.curate.fossils`.
     vocabularies : dict, optional
         From :func:`load_vocabularies`; default the shipped vocabularies.
+    sheet : str, optional
+        Worksheet of an xlsx file; default the first visible one.
 
     Returns
     -------
@@ -91,25 +97,25 @@ def check_file(path, *, kind: str = "calibration", vocabularies=None) -> CheckRe
     """
     _check_kind(kind)
     try:
-        return _check_file(path, kind, vocabularies)
+        return _check_file(path, kind, vocabularies, sheet)
     except InvalidDataError as exc:  # e.g. two columns mapping to one: say which file
         if Path(path).name in str(exc):
             raise
         raise InvalidDataError(f"{path}: {exc}") from None
 
 
-def _check_file(path, kind: str, vocabularies) -> CheckReport:
+def _check_file(path, kind: str, vocabularies, sheet=None) -> CheckReport:
     if kind == "fossil":
         from refit.curate.fossils import check_fossil_file
 
-        return check_fossil_file(path, vocabularies=vocabularies)
+        return check_fossil_file(path, vocabularies=vocabularies, sheet=sheet)
     from refit.curate.columns import (
         parse_column, unmapped_columns, unmapped_problems, with_problems,
     )
     from refit.curate.tables import read_table
     from refit.curate.units import normalise_columns
 
-    table = read_table(path, as_text=False, digest=False)
+    table = read_table(path, as_text=False, digest=False, sheet=sheet)
     frame, mapped = normalise_columns(table.frame, positions=table.file_columns,
                                       parser=parse_column)
     report = check_frame(frame, source_rows=table.source_rows, vocabularies=vocabularies,
@@ -168,7 +174,9 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
         raise ValueError(f"source_rows has {len(rows)} entries for {n} rows")
     vocab = load_vocabularies() if vocabularies is None else vocabularies
     desc = _schema.load_descriptor()
+    frame, id_notes = normalise_ids(frame, rows)
     work, probs = parse_cells(frame, rows, desc)
+    formula_like_problems(work, probs, list(work.columns))
     vocab_lines = check_vocabularies(work, probs, vocab)
     run_pandera(work, probs, desc)
     _check_climate(work, probs, desc)
@@ -180,7 +188,7 @@ def check_frame(frame: pd.DataFrame, *, source_rows=None, vocabularies=None, pat
     out_frame = work.set_axis(frame.index, axis=0)
     return CheckReport(problems=probs.build(), frame=out_frame, n_rows=n,
                        path=None if path is None else str(path),
-                       notes=list(notes or []) + vocab_lines, source_rows=rows)
+                       notes=list(notes or []) + id_notes + vocab_lines, source_rows=rows)
 
 
 def _check_climate(work: pd.DataFrame, probs: Problems, desc: dict) -> None:

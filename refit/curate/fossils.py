@@ -56,7 +56,7 @@ def feature_columns(desc: dict | None = None) -> list[str]:
 
 
 def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns=None,
-                      consumed=()):
+                      consumed=(), sheet=None):
     """Read (csv/tsv/xlsx/parquet), map unit names, and check a fossil table.
 
     Every column that maps to no fossil column is reported (``unmapped-column``, a
@@ -94,7 +94,7 @@ def check_fossil_file(path, *, vocabularies=None, constants=None, ignore_columns
     from refit.curate.tables import read_table
     from refit.curate.units import add_file_context, normalise_columns
 
-    table = read_table(path, as_text=False)
+    table = read_table(path, as_text=False, sheet=sheet)
     parser = functools.partial(parse_column, kind="fossil")
     try:
         frame, mapped = normalise_columns(table.frame, parser=parser)

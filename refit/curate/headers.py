@@ -93,3 +93,45 @@ def blank_columns(header: list[str], body: list[list[str]], path,
             f"the column{'' if one else 's'} if not needed"
         )
     return blank
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text.replace(",", "."))
+    except ValueError:
+        return False
+    return True
+
+
+def data_rows_above(rows: list[list[str]], header_at: int, sample: int = 200) -> list[int]:
+    """0-based indices of the rows above the header that have the shape of data rows.
+
+    A row above the header is data (not a title or a note) when it fills at least half as
+    many cells as the median data row below the header (and at least two), and every cell it
+    fills in a column whose cells below the header are numbers (80 % of them or more) is a
+    number too. A title (one cell) or a note row never has that shape; a data row pasted
+    above the header does, and is read as data so that every row of the file is accounted
+    for (admitted or quarantined), never skipped.
+    """
+    if header_at == 0:
+        return []
+    body = [[str(c).strip() for c in r] for r in rows[header_at + 1: header_at + 1 + sample]]
+    body = [r for r in body if any(r)]
+    if not body:
+        return []
+    width = max(len(r) for r in body)
+    numeric = []
+    for j in range(width):
+        cells = [r[j] for r in body if j < len(r) and r[j]]
+        if cells and sum(map(_is_number, cells)) >= 0.8 * len(cells):
+            numeric.append(j)
+    filled = sorted(sum(1 for c in r if c) for r in body)
+    need = max(2, filled[len(filled) // 2] / 2)
+    found = []
+    for i, row in enumerate(rows[:header_at]):
+        cells = [str(c).strip() for c in row]
+        if sum(1 for c in cells if c) < need:
+            continue
+        if all(_is_number(cells[j]) for j in numeric if j < len(cells) and cells[j]):
+            found.append(i)
+    return found

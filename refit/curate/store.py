@@ -35,7 +35,6 @@ import datetime as dt
 import functools
 import json
 import re
-import shutil
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -49,7 +48,10 @@ from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: 
 from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
-from refit.curate.store_commit import _commit, _locked, recover
+from refit.curate.store_manifest import check_manifest
+from refit.curate.store_commit import (
+    StoreNotWritableError, _commit, _locked, create_store, recover,
+)
 from refit.errors import InvalidDataError, UsageError
 
 FORMAT = "refit-store/1"
@@ -145,7 +147,7 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
     try:
         lock = _locked(store_dir, lock_timeout)
         lock.__enter__()
-    except PermissionError:  # a read-only store (e.g. installed with the package)
+    except (StoreNotWritableError, PermissionError):  # read-only (e.g. installed with refit)
         if list(store_dir.glob(".pending-*")):
             raise InvalidDataError(
                 f"{store_dir} holds an interrupted admit but is read-only; open it once with "
@@ -160,25 +162,23 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
 def _load(store_dir: Path, recovered: list[str]) -> Store:
     try:
         manifest = json.loads((store_dir / "manifest.json").read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InvalidDataError(f"{store_dir / 'manifest.json'} cannot be read ({exc}); restore "
-                               "it from a backup or version control") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
+        raise InvalidDataError(
+            f"{store_dir / 'manifest.json'} cannot be read ({str(exc)[:200]}); restore it from "
+            f"a backup, or rebuild it with 'refit admit --repair-manifest {store_dir}'") from None
     records = store_dir / "records.csv"
     if not records.is_file():
         raise InvalidDataError(f"{records} is missing; restore it from a backup")
-    actual = sha256_file(records)
-    if actual != manifest.get("records_sha256"):
-        raise InvalidDataError(
-            f"{records} does not match its manifest (sha256 {actual[:12]}... but manifest.json "
-            f"records {str(manifest.get('records_sha256'))[:12]}...): it was edited outside "
-            "refit. Restore records.csv (e.g. 'git checkout' or a backup); add new soils with "
-            "'refit admit' instead of editing the file")
-    return Store(store_dir, manifest, _read_records(records), recovered)
+    sha = sha256_file(records)
+    check_manifest(store_dir, manifest, sha)  # its schema and the hash, before parsing
+    text = _read_records(records)
+    check_manifest(store_dir, manifest, sha, len(text))
+    return Store(store_dir, manifest, text, recovered)
 
 
-def _empty_store(store_dir: Path) -> Store:
+def _empty_store(store_dir: Path, name: str | None = None) -> Store:
     columns = canonical_order([])
-    return Store(store_dir, {"name": store_dir.name, "version": 0, "changelog": [],
+    return Store(store_dir, {"name": name or store_dir.name, "version": 0, "changelog": [],
                              "columns": columns}, pd.DataFrame(columns=columns, dtype=str))
 
 
@@ -242,7 +242,7 @@ class AdmitResult:
 def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vocab_files=(),
           today: str | dt.date | None = None, tolerance_deg: float = DUPLICATE_TOLERANCE_DEG,
           lock_timeout: float | None = None, units=None, accept_suspect: bool = False,
-          again: bool = False) -> AdmitResult:
+          again: bool = False, sheet: str | None = None) -> AdmitResult:
     """Admit the rows of a table into a store: check, split, append, quarantine, version.
 
     Parameters
@@ -274,6 +274,8 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
         instead of quarantining them.
     again : bool
         Admit a file whose sha256 is already in the changelog.
+    sheet : str, optional
+        Worksheet of an xlsx file; default the first visible one.
 
     Returns
     -------
@@ -298,7 +300,7 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     units = dict(units or {})
     state = _state(store_dir)
     try:
-        table = read_table(table_path, as_text=True)
+        table = read_table(table_path, as_text=True, sheet=sheet)
     except InvalidDataError as exc:  # a repeated or blank column name, mixed decimals
         raise InvalidDataError(f"{Path(table_path)} cannot be admitted; nothing was written: "
                                f"{exc}") from None
@@ -316,20 +318,27 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
         return _admit_locked(table, incoming, frame, mappings, _empty_store(store_dir), True,
                              True, vocabularies, vocab_files, today, tolerance_deg,
                              (units, accept_suspect, again))
-    was_missing = state == "missing"
-    store_dir.mkdir(parents=True, exist_ok=True)
-    try:
-        with _locked(store_dir, LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout):
-            recovered = recover(store_dir)
-            state = _state(store_dir)
-            store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
-            store.recovered = recovered
-            return _admit_locked(table, incoming, frame, mappings, store, state != "store",
-                                 dry_run, vocabularies, vocab_files, today, tolerance_deg,
-                                 (units, accept_suspect, again))
-    finally:
-        if was_missing and not (store_dir / "manifest.json").exists():
-            shutil.rmtree(store_dir, ignore_errors=True)  # a failed first admit leaves no folder
+    timeout = LOCK_TIMEOUT_S if lock_timeout is None else lock_timeout
+    args = (table, incoming, frame, mappings)
+    options = (vocabularies, vocab_files, today, tolerance_deg, (units, accept_suspect, again))
+    if state == "missing" and not dry_run:
+        result = create_store(store_dir, timeout, lambda stage: _admit_locked(
+            *args, _empty_store(stage, store_dir.name), True, False, *options))
+        if result is not None:
+            return result
+        # another process created the store first: admit into it, after it
+    if dry_run:
+        try:
+            with _locked(store_dir, timeout):
+                pass
+        except StoreNotWritableError:  # a read-only store: read it without its lock
+            return _admit_locked(*args, open_store(store_dir), False, True, *options)
+    with _locked(store_dir, timeout):
+        recovered = recover(store_dir)
+        state = _state(store_dir)
+        store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
+        store.recovered = recovered
+        return _admit_locked(*args, store, state != "store", dry_run, *options)
 
 
 def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:
@@ -359,9 +368,10 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
                          path=str(table.path))
     table_errors = report.table_errors()
     if len(table_errors):
-        lines = [f"  - {m}" for m in table_errors["message"]]
-        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written:\n"
-                               + "\n".join(lines))
+        messages = [" ".join(str(m).split()) for m in table_errors["message"]]
+        raise InvalidDataError(f"{table.path} cannot be admitted; nothing was written: "
+                               + " | ".join(f"({k}) {m}" for k, m in
+                                            enumerate(messages, start=1)))
     n = len(frame)
     original = _as_numbers_read(table, incoming)
     rejected, problems = _split_rows(report, frame, store, table.source_rows, original,

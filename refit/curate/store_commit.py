@@ -16,7 +16,14 @@ import uuid
 from pathlib import Path
 
 from refit._util.atomic import TMP_PREFIX, fsync_dir, write_bytes_atomic
-from refit.errors import StoreBusyError
+from refit.errors import StoreBusyError, UnreadableInputError
+
+#: A staging folder for a new store older than this is a crashed process's leftover [s].
+STALE_CREATION_S = 600.0
+
+
+class StoreNotWritableError(UnreadableInputError):
+    """The store's folder refuses writes (read-only file system or permissions)."""
 
 
 class _locked:
@@ -31,6 +38,11 @@ class _locked:
     def __enter__(self):
         from filelock import Timeout
 
+        lock = self.store_dir / ".lock"
+        if lock.exists() and not lock.is_file():
+            raise UnreadableInputError(
+                f"{lock} is not a lock file (it is a folder or a special file); no refit "
+                "process made it. Remove it, then run the command again")
         try:
             self.lock.acquire()
         except Timeout:
@@ -38,6 +50,11 @@ class _locked:
                 f"store {self.store_dir} is busy: another refit process holds its lock "
                 f"({self.store_dir / '.lock'}); wait for it to finish, then run the command "
                 "again") from None
+        except OSError as exc:  # a read-only store, or a folder that cannot hold the lock
+            raise StoreNotWritableError(
+                f"store {self.store_dir} cannot be written ({exc.strerror or exc}: {lock}); "
+                "admitting needs a writable store: check its permissions or copy it to a "
+                "writable place (--dry-run reads a read-only store)") from None
         return self
 
     def __exit__(self, *exc):
@@ -104,3 +121,54 @@ def _move_into_place(store_dir: Path, stage: Path, order: list[str]) -> None:
     (stage / "COMMIT").unlink(missing_ok=True)
     stage.rmdir()
     fsync_dir(store_dir)
+
+
+def create_store(store_dir: Path, timeout: float, admit_into):
+    """Create a store atomically: admit into a sibling staging folder, then rename it.
+
+    ``admit_into(stage)`` runs the admit into the empty staging folder ``stage`` (locked)
+    and returns its result. The finished folder is renamed to ``store_dir`` in one step, so
+    another process sees no store or a whole one. When another process created
+    ``store_dir`` first, the staging folder is removed and None is returned: the caller
+    then admits into the existing store under its lock (the admits serialise). A failed
+    admit removes only its own staging folder.
+    """
+    import errno
+
+    parent = store_dir.parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        _sweep_stale_creations(store_dir)
+        stage = parent / f".{store_dir.name}.creating-{uuid.uuid4().hex[:12]}"
+        stage.mkdir()
+    except OSError as exc:
+        raise StoreNotWritableError(
+            f"store {store_dir} cannot be created ({exc.strerror or exc}); choose a "
+            "writable place for it") from None
+    try:
+        with _locked(stage, timeout):
+            result = admit_into(stage)
+        try:
+            os.rename(stage, store_dir)
+        except OSError as exc:
+            if exc.errno in (errno.EEXIST, errno.ENOTEMPTY, errno.EISDIR, errno.ENOTDIR):
+                return None
+            raise
+        fsync_dir(parent)
+        result.store = str(store_dir)
+        return result
+    finally:
+        if stage.exists():
+            shutil.rmtree(stage, ignore_errors=True)
+
+
+def _sweep_stale_creations(store_dir: Path) -> None:
+    """Remove staging folders of new stores left by processes killed long ago."""
+    import time
+
+    for stage in store_dir.parent.glob(f".{store_dir.name}.creating-*"):
+        try:
+            if time.time() - stage.stat().st_mtime > STALE_CREATION_S:
+                shutil.rmtree(stage, ignore_errors=True)
+        except OSError:
+            pass

@@ -34,8 +34,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from refit.curate.encodings import decode as _decode_bytes, detect_encoding  # noqa: F401
+from refit.curate.encodings import utf8_prefix as _utf8_prefix
 from refit.curate.decimal_commas import decimal_comma_columns, read_typed_with_commas, to_decimal_points
-from refit.curate.headers import blank_columns, column_letter, refuse_repeated
+from refit.curate.headers import blank_columns, column_letter, data_rows_above, refuse_repeated
 from refit.errors import UnreadableInputError
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
@@ -45,13 +47,11 @@ DELIMITERS = (",", ";", "\t", "|")
 MISSING_TEXT = ("", "NA", "NaN", "nan", "null")  # as in schemas/calibration.table.json
 _SAMPLE_BYTES = 256 * 1024
 _SAMPLE_ROWS = 200
-_BOMS = (
-    (b"\xef\xbb\xbf", "utf-8-sig"),
-    (b"\xff\xfe\x00\x00", "utf-32"),
-    (b"\x00\x00\xfe\xff", "utf-32"),
-    (b"\xff\xfe", "utf-16"),
-    (b"\xfe\xff", "utf-16"),
-)
+#: Largest table file refit reads [bytes]; larger files are refused before reading, so a
+#: huge or sparse file never fills the memory (reading costs about ten times the file size).
+MAX_TABLE_BYTES = 512 * 2**20
+#: Longest cell of a text table [characters] (the csv module's default limit).
+MAX_FIELD_CHARS = 131_072
 
 
 @dataclass
@@ -148,14 +148,33 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
 
 
 def _check_exists(path: Path) -> None:
-    if not path.exists():
-        raise UnreadableInputError(f"{path}: no such file; check the path and spelling")
-    if path.is_dir():
+    import stat
+
+    try:
+        info = path.stat()
+    except FileNotFoundError:
+        raise UnreadableInputError(f"{path}: no such file; check the path and spelling") from None
+    except OSError as exc:
+        raise UnreadableInputError(f"{path} cannot be opened ({exc.strerror or exc}); check "
+                                   "its permissions") from None
+    if stat.S_ISDIR(info.st_mode):
         raise UnreadableInputError(f"{path} is a folder, not a table; give the path of a file")
-    if path.stat().st_size == 0:
+    if not stat.S_ISREG(info.st_mode):
+        kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(info.st_mode) else
+                "a device" if stat.S_ISCHR(info.st_mode) or stat.S_ISBLK(info.st_mode) else
+                "a socket" if stat.S_ISSOCK(info.st_mode) else "not a file")
+        raise UnreadableInputError(
+            f"{path} is {kind}, not a regular file; refit reads tables from files only. "
+            "Save the table to a file and give its path")
+    if info.st_size == 0:
         raise UnreadableInputError(
             f"{path} is empty (0 bytes); export the table again with a header row and data rows"
         )
+    if info.st_size > MAX_TABLE_BYTES:
+        raise UnreadableInputError(
+            f"{path} is {info.st_size / 2**20:,.0f} MiB; refit reads tables of at most "
+            f"{MAX_TABLE_BYTES // 2**20} MiB (a calibration table of a million profiles is "
+            "about 150 MiB). Split it into smaller tables and admit them one by one")
 
 
 # ---------------------------------------------------------------------------------------
@@ -182,49 +201,14 @@ def _scan(path: Path, with_digest: bool = True) -> tuple[str, bytes, int, bytes]
     return (digest.hexdigest() if digest is not None else ""), head, newlines, tail
 
 
-def detect_encoding(sample: bytes, path: Path) -> tuple[str, str]:
-    """Return (python codec, note) for a sample of a text file's bytes."""
-    for bom, codec in _BOMS:
-        if sample.startswith(bom):
-            return codec, f"encoding {codec.replace('-sig', '')} with a byte-order mark"
-    try:
-        _utf8_prefix(sample)
-        return "utf-8", "encoding utf-8"
-    except UnicodeDecodeError:
-        pass
-    from charset_normalizer import from_bytes
-
-    best = from_bytes(sample, cp_isolation=["cp1252", "latin_1", "utf_16", "utf_32"]).best()
-    if best is None:
-        raise UnreadableInputError(
-            f"{path}: the bytes are not text in any encoding refit recognises (utf-8, utf-16, "
-            "cp1252/latin-1); is it a table at all? Save it as CSV in UTF-8"
-        )
-    return best.encoding, f"encoding {best.encoding} (detected; not utf-8)"
-
-
-def _utf8_prefix(sample: bytes) -> str:
-    import codecs
-
-    return codecs.getincrementaldecoder("utf-8")().decode(sample, final=False)
-
-
-def _decode(data: bytes, codec: str, path: Path) -> str:
-    try:
-        return data.decode(codec)
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise UnreadableInputError(
-            f"{path}: cannot decode byte {data[exc.start:exc.start + 1]!r} on line {line} as "
-            f"{codec}; the file mixes encodings. Re-save it as CSV in UTF-8"
-        ) from None
-
-
 def sniff_delimiter(lines: list[str], path: Path) -> str:
     """Pick the delimiter (comma, semicolon, tab, pipe) that splits lines most consistently."""
     best, best_key = ",", (-1.0, 0)
     for delim in DELIMITERS:
-        widths = [len(r) for r in csv.reader(lines, delimiter=delim) if r]
+        try:
+            widths = [len(r) for r in csv.reader(lines, delimiter=delim) if r]
+        except csv.Error:  # e.g. a cell longer than the limit: not this delimiter's doing
+            continue
         if not widths:
             continue
         modal, count = Counter(widths).most_common(1)[0]
@@ -272,7 +256,7 @@ def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
     if codec.startswith("utf-8"):
         head_text = _utf8_prefix(head).lstrip("\ufeff")
     else:
-        text = _decode(path.read_bytes(), codec, path).lstrip("\ufeff")
+        text = _decode_bytes(path.read_bytes(), codec, path).lstrip("\ufeff")
         head_text = text[:_SAMPLE_BYTES]
     if not head_text.strip():
         raise UnreadableInputError(f"{path} holds only blank lines; export the table again")
@@ -280,7 +264,7 @@ def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
     if len(head) == _SAMPLE_BYTES and len(lines) > 1:
         lines = lines[:-1]  # the last sampled line may be cut
     delim = sniff_delimiter(lines, path)
-    rows = list(csv.reader(lines, delimiter=delim))
+    rows = csv_rows(lines, delim, path)
     header_at = find_header(rows)
     refuse_repeated([str(c).strip() for c in rows[header_at]], path, header_at + 1)
     notes = [f"read {path.name} as delimited text", enc_note, f"delimiter {_DELIM_NAMES[delim]}"]
@@ -289,9 +273,28 @@ def _parse_text_table(path: Path, as_text: bool, head: bytes, scan) -> Table:
         if fast is not None:
             return fast
     if text is None:
-        text = _decode(path.read_bytes(), codec, path).lstrip("\ufeff")
-    all_rows = list(csv.reader(io.StringIO(text, newline=""), delimiter=delim))
+        text = _decode_bytes(path.read_bytes(), codec, path).lstrip("\ufeff")
+    all_rows = csv_rows(io.StringIO(text, newline=""), delim, path)
     return _table_from_rows(path, all_rows, as_text, notes, scan.result()[0], delim=delim)
+
+
+def csv_rows(source, delim: str, path: Path) -> list[list[str]]:
+    """All rows of delimited text; a cell over ``MAX_FIELD_CHARS`` is refused with its line."""
+    reader = csv.reader(source, delimiter=delim)
+    # the limit is process-wide and other libraries raise it (frictionless does): set ours
+    previous = csv.field_size_limit(MAX_FIELD_CHARS)
+    try:
+        return list(reader)
+    except csv.Error as exc:
+        if "field larger than field limit" in str(exc):
+            raise UnreadableInputError(
+                f"{path}: a cell on line {reader.line_num} is longer than "
+                f"{MAX_FIELD_CHARS:,} characters, the most refit reads in one cell; is a quote "
+                "(\") opened and never closed? Close the quote or shorten the cell") from None
+        raise UnreadableInputError(f"{path}: line {reader.line_num} is not valid delimited "
+                                   f"text ({exc}); export the table again as CSV") from None
+    finally:
+        csv.field_size_limit(previous)
 
 
 _DELIM_NAMES = {",": "comma ','", ";": "semicolon ';'", "\t": "tab", "|": "pipe '|'"}
@@ -395,13 +398,16 @@ def _table_from_rows(path, rows, as_text, notes, digest, delim=None) -> Table:
     """Rows of text cells (header and title rows included) -> Table; ``delim`` is the
     delimiter of a text file (None for a workbook)."""
     header_at = find_header(rows)
-    if header_at > 0:
-        notes.append(f"skipped {header_at} row(s) above the header (title or notes)")
+    above = data_rows_above(rows, header_at)
+    _note_above(notes, rows, header_at, above)
     header = [str(c).strip() for c in rows[header_at]]
-    width = max([_effective_width(header)] + [_effective_width(r) for r in rows[header_at + 1:]])
+    width = max([_effective_width(header)] + [_effective_width(rows[i]) for i in above]
+                + [_effective_width(r) for r in rows[header_at + 1:]])
     header = (header + [""] * width)[:width]
     body, numbers = [], []
-    for k, row in enumerate(rows[header_at + 1:], start=header_at + 2):
+    pairs = [(i + 1, rows[i]) for i in above]
+    pairs += list(enumerate(rows[header_at + 1:], start=header_at + 2))
+    for k, row in pairs:
         if _effective_width(row) == 0:
             continue
         body.append((list(row) + [""] * width)[:width])
@@ -429,6 +435,20 @@ def _table_from_rows(path, rows, as_text, notes, digest, delim=None) -> Table:
     frame = frame.astype(str) if as_text else infer_types(to_decimal_points(frame, comma))
     return Table(frame, path, np.asarray(numbers, dtype=np.int64), digest, notes,
                  tuple(comma), {header[j]: j + 1 for j in keep})
+
+
+def _note_above(notes: list[str], rows, header_at: int, above: list[int]) -> None:
+    """Say which rows above the header were read as data and which were skipped."""
+    if header_at == 0:
+        return
+    if above:
+        notes.append(f"read {len(above)} row(s) above the header as data (rows "
+                     + ", ".join(str(i + 1) for i in above) + "): they have the shape of "
+                     "the data rows below it")
+    skipped = [i + 1 for i in range(header_at) if i not in above and _effective_width(rows[i])]
+    if skipped:
+        notes.append(f"skipped {len(skipped)} row(s) above the header as title or notes "
+                     "(rows " + ", ".join(map(str, skipped)) + ")")
 
 
 def infer_types(frame: pd.DataFrame) -> pd.DataFrame:

@@ -39,25 +39,67 @@ def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]
             "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
         ) from None
     try:
-        names = book.sheetnames
-        if sheet is None:
-            ws = book.worksheets[0]
-        elif isinstance(sheet, int) and 0 <= sheet < len(names):
-            ws = book.worksheets[sheet]
-        elif isinstance(sheet, str) and sheet in names:
-            ws = book[sheet]
-        else:
-            raise UnreadableInputError(
-                f"{path}: no worksheet {sheet!r}; the workbook has {', '.join(map(repr, names))}"
-            )
+        ws, note = _pick_sheet(book, sheet, path)
         rows = [[_cell_text(v) for v in row] for row in ws.iter_rows(values_only=True)]
         title = ws.title
     finally:
         book.close()
+    _refuse_uncached_formulas(path, title, rows)
     if not any(cell.strip() for row in rows for cell in row):
         raise UnreadableInputError(f"{path}: worksheet {title!r} is empty; put the table there")
-    notes = [f"read {path.name} as an xlsx workbook", f"sheet {title!r}"]
+    notes = [f"read {path.name} as an xlsx workbook", f"sheet {title!r}" + note]
     return rows, notes, sha256_file(path)
+
+
+def _pick_sheet(book, sheet, path: Path):
+    """The worksheet asked for (name or 0-based index); by default the first visible one."""
+    names = book.sheetnames
+    if sheet is None:
+        visible = [ws for ws in book.worksheets if ws.sheet_state == "visible"]
+        if not visible:
+            raise UnreadableInputError(f"{path}: every worksheet is hidden; name one with "
+                                       f"--sheet (the workbook has {', '.join(map(repr, names))})")
+        ws = visible[0]
+        hidden = [w.title for w in book.worksheets[: book.worksheets.index(ws)]]
+        note = (f" (the first visible sheet; hidden sheet(s) {', '.join(map(repr, hidden))} "
+                "not read: name one with --sheet)") if hidden else ""
+        return ws, note
+    if isinstance(sheet, int) and 0 <= sheet < len(names):
+        return book.worksheets[sheet], ""
+    if isinstance(sheet, str) and sheet in names:
+        return book[sheet], ""
+    raise UnreadableInputError(
+        f"{path}: no worksheet {sheet!r}; the workbook has {', '.join(map(repr, names))}")
+
+
+def _refuse_uncached_formulas(path: Path, title: str, rows: list[list[str]]) -> None:
+    """Refuse formula cells the workbook holds no saved value for, naming their addresses.
+
+    A workbook written by a program (not a spreadsheet) may hold formulas without the value
+    a spreadsheet saves beside them; reading the saved values alone would turn such a cell
+    into an empty one and lose it silently. Cells with a saved value are read with it.
+    """
+    from openpyxl import load_workbook
+    from openpyxl.utils import get_column_letter
+
+    book = load_workbook(path, read_only=True, data_only=False)
+    try:
+        ws = book[title]
+        missing = []
+        for i, row in enumerate(ws.iter_rows(values_only=True)):
+            for j, value in enumerate(row):
+                if isinstance(value, str) and value.startswith("=") and \
+                        (i >= len(rows) or j >= len(rows[i]) or rows[i][j] == ""):
+                    missing.append(f"{get_column_letter(j + 1)}{i + 1} ({value})")
+    finally:
+        book.close()
+    if missing:
+        more = f" and {len(missing) - 5} more" if len(missing) > 5 else ""
+        raise UnreadableInputError(
+            f"{path}: sheet {title!r} has {len(missing)} formula cell(s) without a saved value: "
+            f"{', '.join(missing[:5])}{more}; refit reads the values a spreadsheet saves, not "
+            "formulas. Open the workbook in a spreadsheet program and save it (that stores "
+            "the values), or replace the formulas by their values")
 
 
 # ---------------------------------------------------------------------------------------
@@ -94,6 +136,7 @@ def read_parquet(path: Path, as_text: bool
     if len(frame) == 0:
         raise UnreadableInputError(f"{path} has columns but no data rows; add the soil profiles")
     frame.columns = [str(c).strip() for c in frame.columns]
+    frame, widened = _float32_as_shown(frame)
     rows = np.arange(2, len(frame) + 2)
     refuse_repeated(list(frame.columns), path, 1)
     blank = blank_columns(list(frame.columns), frame.astype(object).map(_cell_text).values,
@@ -103,8 +146,28 @@ def read_parquet(path: Path, as_text: bool
     if as_text:
         frame = frame.astype(object).map(_cell_text)
     notes = [f"read {path.name} as parquet", "row 1 stands for the column names, data from row 2"]
+    if widened:
+        notes.append("single-precision (float32) column(s) " + ", ".join(widened) + " read at "
+                     "the precision they show (240.3 stays 240.3, not 240.300003052)")
     return (frame.reset_index(drop=True), rows, sha256_file(path), notes,
             {str(c): j + 1 for j, c in zip(keep, frame.columns)})
+
+
+def _float32_as_shown(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+    """float32 columns as float64 numbers equal to their shortest decimal text.
+
+    A float32 cannot hold 240.3; widened bit for bit it becomes 240.300003052. Its shortest
+    text that reads back to the same float32 (numpy's repr, the digits a program shows) is
+    what the author typed, so that text is read as float64.
+    """
+    widened = []
+    for j, name in enumerate(frame.columns):
+        col = frame.iloc[:, j]
+        if str(col.dtype) in ("float32", "Float32"):
+            values = col.to_numpy(dtype=np.float32, na_value=np.nan)
+            frame[name] = values.astype(str).astype(np.float64)
+            widened.append(str(name))
+    return frame, widened
 
 
 def _cell_text(value) -> str:

@@ -78,3 +78,42 @@ def test_simultaneous_admits_lose_and_duplicate_nothing(tmp_path, round_):
     if len(landed) == 3:
         second_a = [r for r in landed if "part_a" in r["table"] and not r["new_version"]]
         assert len(second_a) == 1 and second_a[0]["accepted"] == 0
+
+
+@pytest.mark.parametrize("round_", range(n_runs(2, 20)))
+def test_simultaneous_first_admits_into_a_new_folder(tmp_path, round_):
+    """Three first admits race into a folder that does not exist yet (nor its parent).
+
+    Each stages a whole store in a sibling folder and renames it into place; the losers of
+    the rename admit into the winner's store under its lock. Before the staging, a failing
+    admit's cleanup removed the new folder under the others ("unexpected FileNotFoundError
+    ... .lock"). Oracle: each process's own accounting and the final store.
+    """
+    store = tmp_path / "new" / "store"
+    a, b, n_a, n_b = halves(tmp_path)
+    bad = tmp_path / "bad.csv"  # fails (no source column): must not disturb the others
+    bad.write_text("profile_id,latitude,longitude,map_mm\nX1,1,2,300\n", encoding="utf-8")
+    tables = [a, b, bad]
+    procs = [start("admit", t, "--into", store, "--format", "json", gate=True)
+             for t in tables]
+    for p in procs:
+        p.stdin.write("go\n")
+        p.stdin.flush()
+    results = [p.communicate(timeout=120) + (p.returncode,) for p in procs]
+    landed = []
+    for (out, err, code), table in zip(results, tables):
+        assert "unexpected" not in err and "Traceback" not in err, err
+        if table == bad:
+            assert code == 1 and "cannot be admitted" in err, (code, err)
+        elif code == 0:
+            landed.append(json.loads(out))
+        else:
+            assert code == 1 and "is busy" in err, (code, err)
+    assert landed
+    after = open_store(store)
+    assert len(after.records_text) == sum(r["accepted"] for r in landed)
+    assert after.version == sum(1 for r in landed if r["new_version"])
+    assert not after.records_text["profile_id"].duplicated().any()
+    assert all(r["store"] == str(store) for r in landed)
+    # no staging folder is left beside the store
+    assert sorted(p.name for p in store.parent.iterdir()) == ["store"]

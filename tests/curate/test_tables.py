@@ -71,7 +71,8 @@ def test_title_rows_and_blank_lines_keep_spreadsheet_row_numbers(tmp_path):
         assert list(t.frame.columns) == ROWS[0]
         # title on 1, blank 2, header 3, data 4, blank 5, data 6
         assert t.source_rows.tolist() == [4, 6]
-        assert any("skipped 2 row(s) above the header" in n for n in t.notes)
+        assert any("skipped 1 row(s) above the header as title or notes (rows 1)" in n
+                   for n in t.notes)  # the blank row 2 is neither title nor data
 
 
 def test_title_row_padded_with_delimiters_is_skipped(tmp_path):
