@@ -84,6 +84,8 @@ def _analytic(fit, level: float) -> dict:
             out["prediction_sd"] = float(sd)
         if res.details.get("approximate_interval"):
             out["approximate"] = True
+        if res.details.get("variance_power") is not None:  # spread = s |eta|^theta
+            out["variance_power"] = float(res.details["variance_power"])
         out["rebuild"] = ("estimate +- t_quantile sqrt(s^2 + x0' covariance x0), s = "
                           "prediction_sd if given, else residual_std_error; x0 the terms "
                           "at the new value")

@@ -117,6 +117,9 @@ def analytic_band(rec: dict, X0, eta, w0, level):
         cov = cov + _matrix(between, "between-source covariance")
     else:
         s = rec["interval"].get("prediction_sd") or s  # Theil-Sen: the RMS residual
+    theta = rec["interval"].get("variance_power")
+    if theta is not None:  # the spread as a power of the mean: s |eta|^theta
+        s = s * np.abs(np.asarray(eta, float)) ** float(theta)
     q = np.einsum("ij,jk,ik->i", X0, cov, X0)
     t = t_quantile(level, float(rec["df_resid"]), rec["interval"])
     half = t * np.sqrt(s * s / w0 + q)

@@ -46,7 +46,7 @@ from refit.models.forms import Form, duan_smearing, make_form
 from refit.models.intervals.group_conformal import GROUP_INTERVALS  # noqa: F401  (need groups=)
 from refit.models.lsq import EstimatorResult, solve_lsq
 
-ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
+ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed", "wls-power")
 DIRECTIONS = ("inverse", "forward")
 INTERVALS = ("analytic", "bootstrap-pairs", "bootstrap-residual", "split-conformal",
              "jackknife+", "cv+", "group-jackknife+", "group-cv+", "quantile", "none")
@@ -80,6 +80,10 @@ def _estimate(estimator, X, y, form, w, x_sd, y_sd, quantiles, lsq: EstimatorRes
     """Run the chosen estimator on the design; returns (result, extras)."""
     if estimator in ("ols", "wls"):
         return lsq, {}
+    if estimator == "wls-power":
+        from refit.models.variance import fit_power_variance
+
+        return fit_power_variance(X, y, names=form.terms), {}
     if estimator == "mixed":
         from refit.models.mixed import fit_mixed
 
@@ -125,6 +129,9 @@ def _check_estimator_args(estimator, form, weights, x_sd, y_sd, quantiles):
     if estimator == "york" and (x_sd is None or y_sd is None):
         raise UsageError("estimator 'york' needs x_sd= and y_sd= (measurement standard "
                          "deviations of the equation's x and y: column names or values)")
+    if estimator == "wls-power" and form.through_origin:
+        raise UsageError("estimator 'wls-power' models the spread as a power of the fitted "
+                         "value and needs an intercept; drop through_origin")
     if estimator == "mixed" and form.through_origin:
         raise UsageError("estimator 'mixed' has a random intercept per group, so the form "
                          "needs an intercept; drop through_origin")
@@ -433,6 +440,10 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     preds = [predictors] if isinstance(predictors, str) else list(predictors)
     if not isinstance(response, str):
         raise UsageError(f"response must be a column name; got {response!r}")
+    if direction == "forward" and estimator == "wls-power":
+        raise UsageError("estimator 'wls-power' (a spread that grows with the fitted value) "
+                         "is fitted in the inverse direction only: the forward inversion "
+                         "assumes one spread of the feature; use direction='inverse'")
     if direction == "forward" and len(preds) != 1:
         raise UsageError(f"direction 'forward' inverts one feature; got {len(preds)} "
                          f"predictors {preds}: use direction='inverse' for several")

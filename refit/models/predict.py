@@ -206,6 +206,13 @@ def new_observation_variance(fit, X0, w0=1.0) -> np.ndarray:
     it too)."""
     res = fit.result
     between = between_covariance(fit)
+    theta = res.details.get("variance_power")
+    if theta is not None:  # the spread as a power of the mean: sigma^2 |mu0|^(2 theta)
+        from refit.models.variance import power_variance_sd
+
+        mu0 = X0 @ np.asarray(res.coefficients, float)
+        q = np.einsum("ij,jk,ik->i", X0, res.covariance, X0)
+        return power_variance_sd(res.residual_std_error, theta, mu0, w0) ** 2 + q
     if between is not None:  # mixed: s_e^2 / w0 + x0' (C + B) x0, row by row
         s2 = res.residual_std_error ** 2
         q = np.einsum("ij,jk,ik->i", X0, res.covariance + between, X0)

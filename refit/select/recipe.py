@@ -60,7 +60,7 @@ MAX_REPEATS = 1_000
 #: Seeds are 0 .. 2**32 - 1, the range numpy's legacy generators and scikit-learn's
 #: random_state accept (common practice), so one seed drives every random step.
 MAX_SEED = 2**32 - 1
-ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed")
+ESTIMATORS = ("ols", "wls", "huber", "theil-sen", "york", "quantile", "mixed", "wls-power")
 DIRECTIONS = ("inverse", "forward")
 from refit.models.intervals.group_conformal import GROUP_INTERVALS as GROUP_METHODS  # noqa: E402
 METHODS = ("analytic", "bootstrap", "split-conformal", "jackknife+", "cv+", "quantile",

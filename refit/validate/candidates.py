@@ -107,6 +107,9 @@ def impossible_reason(form: str, estimator: str, direction: str, method: str,
         return "estimator 'mixed' needs [validation] groups (each soil's source)"
     if method in GROUP_METHODS and groups is None:
         return f"interval {method!r} leaves out whole groups: it needs [validation] groups"
+    if direction == "forward" and estimator == "wls-power":
+        return ("estimator 'wls-power' is fitted in the inverse direction only (the forward "
+                "inversion assumes one spread of the feature)")
     if direction == "forward" and n_predictors != 1:
         return (f"the forward direction inverts one feature; the function has "
                 f"{n_predictors} predictors")
