@@ -461,7 +461,8 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     _check_constant(x, x_names, labels)
     X = shape.design(x)
     y_model = shape.to_model_scale(y)
-    lsq = solve_lsq(X, y_model, weights=w, intercept=shape.intercept, names=shape.terms)
+    lsq = solve_lsq(X, y_model, weights=w, intercept=shape.intercept, names=shape.terms,
+                    design_dd=lambda: shape.design_dd(x))
     result, extras = _estimate(estimator, X, y_model, shape, w, cols["x_sd"], cols["y_sd"],
                                quantiles, lsq, codes, random_slope)
     if codes is not None:
