@@ -15,6 +15,9 @@ from refit._util.flagcodes import joined_names, present_codes
 from refit.models import finish
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
+#: a forward prediction whose classical-calibration set is two rays for some row keeps the
+#: second ray in these columns (NaN for the other rows; flag ``two-rays``)
+_OTHER_RAY = ("other_lower", "other_upper")
 
 
 def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
@@ -371,7 +374,8 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
 
 def _predict_forward(fit, v, level, interval, w0):
     """Forward fits: check the request, then classical calibration through
-    :func:`refit.models.inversion.forward.forward_predict`."""
+    :func:`refit.models.inversion.forward.forward_predict`; returns estimate, lower,
+    upper, flags, other_lower, other_upper (the second ray of a two-ray set)."""
     from refit.models.inversion.forward import forward_predict
     from refit.models.inversion.classical import physical_bounds
     from refit.errors import UsageError
@@ -400,7 +404,8 @@ def _predict_forward(fit, v, level, interval, w0):
         degree=fit.form.degree, through_origin=fit.form.through_origin,
         log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
         with_interval=interval != "none", between_covariance=between,
-        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")))
+        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")),
+        feature_range=fit.ranges[fit.y_name], with_rays=True)
 
 
 def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
@@ -416,11 +421,16 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
         raise InvalidDataError("weights of new observations must be finite and > 0")
     opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
     reason = None
+    other = None
     if fit.direction == "forward":
-        est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
+        est, lo, hi, flags, *other = _predict_forward(fit, v, level, interval, w0)
     else:
         est, lo, hi, flags, reason = _predict_inverse(fit, v, level, interval, w0, opts)
-    frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
+    if other is not None and np.isfinite(other[0]).any() | np.isfinite(other[1]).any():
+        frame = result_frame(_PREDICTION_COLUMNS + _OTHER_RAY, (est, lo, hi, flags, *other),
+                             index)
+    else:
+        frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
     if reason:  # the limits are infinite: say why, with the result
         frame.attrs["cautions"] = [reason]
     return frame
