@@ -318,7 +318,10 @@ class Fit:
         interval : str, optional
             ``analytic`` (t-based; default, and the only one for the forward direction),
             ``bootstrap-pairs``, ``bootstrap-residual``, ``split-conformal``, ``jackknife+``,
-            ``cv+`` (OLS/WLS fits, inverse direction; see :mod:`refit.models.intervals`),
+            ``cv+`` (inverse direction; OLS/WLS by closed forms, see
+            :mod:`refit.models.intervals`; Huber, Theil-Sen, quantile (its median line)
+            and York by refitting with the fit's own estimator, see
+            :mod:`refit.models.refitted`),
             ``group-jackknife+``, ``group-cv+`` (a fit made with ``groups=``, any
             estimator but York, inverse direction: whole sources left out, each refit with
             the fit's own estimator; for a soil of an unseen source; see
@@ -469,6 +472,10 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
         extras["groups"] = np.asarray(group_labels, dtype=object)[codes]
         extras["groups_column"] = groups if isinstance(groups, str) else None
     extras["random_slope"] = bool(random_slope)
+    if estimator == "york":  # kept so resampling intervals can refit York's line
+        extras["measurement_sds"] = tuple(np.broadcast_to(np.asarray(cols[k], float),
+                                                          y.shape).copy()
+                                          for k in ("x_sd", "y_sd"))
     r2 = (lsq.details["r_squared"] if result is lsq
           else _r_squared(y_model, result.fitted, None, shape.intercept))
     from refit.models.domain import variable_ranges

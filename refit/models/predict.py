@@ -290,9 +290,13 @@ def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
     from refit.models import intervals as iv
     from refit.errors import UsageError
 
+    from refit.models.refitted import REFITTED
+
+    if fit.estimator in REFITTED:  # refits with the fit's own estimator
+        return _refitted_band(fit, X0, ok, w0, level, interval, opts)
     if fit.estimator not in ("ols", "wls"):
-        raise UsageError(f"interval {interval!r} refits by least squares, so it goes with "
-                         f"estimator 'ols' or 'wls', not {fit.estimator!r}")
+        raise UsageError(f"interval {interval!r} refits the estimator on resampled rows; "
+                         f"{fit.estimator!r} fits use 'analytic' or a group-level interval")
     if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
         raise UsageError(f"interval {interval!r} does not take weights; use "
                          "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
@@ -326,6 +330,23 @@ def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
         pi = iv.cv_plus(X, y, x0, level=level, folds=opts["folds"], seed=opts["seed"])
     out = np.full((3, len(ok)), np.nan)
     out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+    return out
+
+
+def _refitted_band(fit, X0, ok, w0, level, interval, opts):
+    """Estimate and limits (3, m) of a resampling interval refitted with the fit's own
+    estimator (:mod:`refit.models.refitted`); bootstraps once per new-row weight."""
+    from refit.models.refitted import refitted_interval
+
+    out = np.full((3, len(ok)), np.nan)
+    idx = np.flatnonzero(ok)
+    w0v = np.broadcast_to(w0, ok.shape)[ok]
+    weights = np.unique(w0v) if interval.startswith("bootstrap") else [None]
+    for wv in weights:
+        sel = np.ones(len(idx), bool) if wv is None else w0v == wv
+        pi = refitted_interval(fit, X0[idx[sel]], level, interval, opts,
+                               1.0 if wv is None else float(wv))
+        out[:, idx[sel]] = np.vstack([pi.estimate, pi.lower, pi.upper])
     return out
 
 
