@@ -4,7 +4,8 @@
 (:mod:`refit.models.intervals`); every other estimator but ``mixed`` comes here, where
 each refit uses the fit's own estimator (:func:`row_fitter`) and the method definitions
 of :mod:`refit.models.intervals.refits`. Theil-Sen's leave-one-out lines come exact and
-fast from one sorted set of pairwise slopes (:mod:`refit.models.theil_sen_loo`), its
+fast from one sorted set of pairwise slopes (:mod:`refit.models.theil_sen_loo`), Huber's from one vectorised IRLS over all n
+leave-one-out problems (:mod:`refit.models.robust_loo`), Theil-Sen's
 case-resampled lines from the batched bootstrap of :func:`refit.models.robust.fit_theil_sen`.
 The leave-one-out coefficients are kept with the fit, so the coefficient file and
 cross-validation reuse them.
@@ -18,6 +19,9 @@ from refit.errors import UsageError
 
 #: estimators whose resampling intervals come from their own refits here
 REFITTED = ("huber", "theil-sen", "quantile", "york")
+#: up to this many rows Huber's leave-one-out fits iterate together
+#: (:func:`refit.models.robust_loo.huber_loo`, n x n work arrays); above, one by one
+HUBER_BATCH_MAX = 3000
 
 
 def row_fitter(fit):
@@ -70,6 +74,11 @@ def loo_coefficients_of(fit) -> np.ndarray:
 
             cache["loo"] = loo_lines(fit.x[:, 0], fit.y_model,
                                      fit.result.details.get("intercept", "joint"))
+        elif fit.estimator == "huber" and n <= HUBER_BATCH_MAX:
+            from refit.models.robust_loo import huber_loo
+
+            cache["loo"] = huber_loo(fit.form.design(fit.x), fit.y_model,
+                                     k=fit.result.details.get("k", 1.345))
         else:
             from refit.models.intervals.refits import loo_coefficients
 

@@ -60,6 +60,44 @@ def test_fast_theil_sen_loo_intercepts_follow_the_stated_rules():
         assert joint[k, 0] == np.median(ys - r.slope * xs)
 
 
+@pytest.mark.parametrize("degree", [1, 2])
+def test_vectorised_huber_loo_equals_one_refit_per_row(degree):
+    # refit.models.robust_loo.huber_loo runs the steps of statsmodels RLM (Huber's T,
+    # MAD scale, deviance stop) for all leave-one-out problems at once; each row equals a
+    # statsmodels RLM refit without that row (tolerance: the stop at a deviance change of
+    # 1e-8 and the WLS solver's rounding)
+    import statsmodels.api as sm
+
+    from refit.models.robust_loo import huber_loo
+
+    x, y = line(35, seed=12)
+    X = np.column_stack([x ** d for d in range(degree + 1)])
+    B = huber_loo(X, y)
+    for k in range(len(x)):
+        ref = sm.RLM(np.delete(y, k), np.delete(X, k, axis=0),
+                     M=sm.robust.norms.HuberT(t=1.345)).fit(scale_est="mad").params
+        np.testing.assert_allclose(B[k], ref, rtol=1e-9)
+
+
+def test_theil_sen_bootstrap_by_weighted_medians_equals_the_pairs():
+    # the weighted-median form of refit's Theil-Sen bootstrap (pair (i, j) repeated
+    # c_i c_j times) gives the nanmedian of every resampled pair's slope, computed here
+    # directly with the same seeded draws
+    from refit.models.robust import _theil_sen_bootstrap
+
+    x, y = line(30, seed=5, ties=True)
+    got = _theil_sen_bootstrap(x, y, 120, 7, "joint")
+    rng = np.random.default_rng(7)
+    idx = rng.integers(0, len(x), size=(120, len(x)))
+    i, j = np.triu_indices(len(x), 1)
+    xb, yb = x[idx], y[idx]
+    dx = xb[:, j] - xb[:, i]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        b = np.nanmedian(np.where(dx != 0, (yb[:, j] - yb[:, i]) / dx, np.nan), axis=1)
+    a = np.median(yb - b[:, None] * xb, axis=1)
+    np.testing.assert_array_equal(got, np.column_stack([a, b]))
+
+
 def test_loo_without_distinct_pairs_is_nan():
     # three points with two equal x: leaving out the odd one leaves no usable pair
     assert np.isnan(loo_slopes(np.array([1.0, 1.0, 2.0]), np.array([1.0, 2.0, 3.0]))[2])
