@@ -74,7 +74,8 @@ def loo_coefficients_of(fit) -> np.ndarray:
 
             cache["loo"] = loo_lines(fit.x[:, 0], fit.y_model,
                                      fit.result.details.get("intercept", "joint"))
-        elif fit.estimator == "huber" and n <= HUBER_BATCH_MAX:
+        elif fit.estimator == "huber" and fit.form.n_params + 3 <= n <= HUBER_BATCH_MAX:
+            # (fewer rows: the one-by-one refits refuse with fit_huber's own message)
             from refit.models.robust_loo import huber_loo
 
             cache["loo"] = huber_loo(fit.form.design(fit.x), fit.y_model,
