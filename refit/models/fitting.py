@@ -340,13 +340,19 @@ class Fit:
         -------
         pandas.DataFrame
             ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags`` (';'-
-            separated: ``outside-calibration-range``, ``beyond-turning-point``,
-            ``two-roots``, ``unbounded``, ``open-below``/``open-above`` (forward: the
-            limit is the search window's edge), ``beyond-search-window``,
-            ``approximate-interval`` (Theil-Sen), ``missing-value``, ``invalid-value``,
-            ``quantiles-cross``; empty when none; see :mod:`refit.models.inversion.classical`). Read the flags as ``result["flags"]``
-            (``DataFrame.flags`` is a pandas attribute). The index is that of ``values``
-            when it is a Series or DataFrame.
+            separated: ``outside-calibration-range`` (the measured feature outside its
+            calibration range, both directions), ``beyond-turning-point``,
+            ``two-roots``, ``unbounded``, ``two-rays`` (forward line, weak slope: the
+            limits are the ray holding the estimate), ``open-below``/``open-above``
+            (forward: the limit is the search window's edge or a physical bound),
+            ``beyond-search-window``, ``approximate-interval`` (Theil-Sen),
+            ``missing-value``, ``invalid-value``, ``quantiles-cross``; empty when none;
+            see :mod:`refit.models.inversion.classical`). Read the flags as
+            ``result["flags"]`` (``DataFrame.flags`` is a pandas attribute). When a
+            forward row's set is two rays and the other ray is not empty within the
+            physical bounds, the columns ``other_lower``/``other_upper`` hold it (NaN
+            for the other rows). The index is that of ``values`` when it is a Series
+            or DataFrame.
         """
         from refit.models.predict import predict_fit
 
