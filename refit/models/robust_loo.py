@@ -38,6 +38,66 @@ def _solve(Z, y, W):
     return np.linalg.solve(G, r[..., None])[..., 0]
 
 
+def _scaled(X):
+    """``(Z, centre, scale, const)``: the design with its non-constant columns centred
+    (when there is an intercept) and every column scaled to unit norm; ``X b = Z c``."""
+    const = np.all(X == X[:1], axis=0)
+    # centre the other columns only when the design has an intercept (a constant column)
+    centre = np.where(const | ~const.any(), 0.0, X.mean(axis=0))
+    scale = np.sqrt(((X - centre) ** 2).sum(axis=0))
+    scale[scale == 0] = 1.0
+    return (X - centre) / scale, centre, scale, const
+
+
+def _unscale(c, X, centre, scale, const):
+    b = c / scale
+    if const.any():
+        j0 = int(np.flatnonzero(const)[0])
+        b[:, j0] -= (b * centre[None, :]).sum(axis=1) / X[0, j0]
+    return b
+
+
+def _irls(Z, y, keep, kept, k, max_iter, tol):
+    """IRLS of the problems in the rows of ``keep`` (0/1 row weights); ``kept`` (m, r)
+    the indices of each problem's rows (for its median). Returns (c, scale, steps)."""
+    df = kept.shape[1] - Z.shape[1]
+    c = _solve(Z, y, keep)
+    E = y[None, :] - c @ Z.T
+    s = np.median(np.abs(np.take_along_axis(E, kept, axis=1)), axis=1) / _GAUSSIAN_3_4
+    dev = (_rho(E / ((keep * E * E).sum(axis=1) / df)[:, None], k) * keep).sum(axis=1)
+    active = s != 0
+    steps = np.ones(len(s), dtype=int)
+    for _ in range(1, max_iter):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        u = np.abs(E[idx] / s[idx, None])
+        W = keep[idx] * np.where(u <= k, 1.0, k / np.maximum(u, 1e-300))
+        c[idx] = _solve(Z, y, W)
+        Ea = y[None, :] - c[idx] @ Z.T
+        E[idx] = Ea
+        s[idx] = np.median(np.abs(np.take_along_axis(Ea, kept[idx], axis=1)),
+                           axis=1) / _GAUSSIAN_3_4
+        s_w = (W * Ea * Ea).sum(axis=1) / df
+        new = (_rho(Ea / s_w[:, None], k) * keep[idx]).sum(axis=1)
+        done = ~(np.abs(new - dev[idx]) > tol)
+        dev[idx] = new
+        steps[idx] += 1
+        active[idx[done | (s[idx] == 0)]] = False
+    return c, s, steps
+
+
+def huber_irls(X, y, *, k: float = 1.345, max_iter: int = 100, tol: float = 1e-8):
+    """One Huber fit by the steps of ``RLM.fit(scale_est="mad", conv="dev")``:
+    ``(coefficients, final MAD scale, iterations)`` (iterations counted as statsmodels'
+    ``fit_history['iteration']``)."""
+    X, y = np.asarray(X, float), np.asarray(y, float)
+    Z, centre, scale, const = _scaled(X)
+    n = X.shape[0]
+    c, s, steps = _irls(Z, y, np.ones((1, n)), np.arange(n)[None, :], k, max_iter, tol)
+    return _unscale(c, X, centre, scale, const)[0], float(s[0]), int(steps[0])
+
+
 def huber_loo(X, y, *, k: float = 1.345, max_iter: int = 100, tol: float = 1e-8):
     """(n, p) Huber coefficients of the n leave-one-out problems (see the module notes).
 
@@ -51,43 +111,9 @@ def huber_loo(X, y, *, k: float = 1.345, max_iter: int = 100, tol: float = 1e-8)
         As ``fit_huber`` / ``RLM.fit`` (tuning constant, iterations, deviance tolerance).
     """
     X, y = np.asarray(X, float), np.asarray(y, float)
-    n, p = X.shape
-    const = np.all(X == X[:1], axis=0)
-    # centre the other columns only when the design has an intercept (a constant column)
-    centre = np.where(const | ~const.any(), 0.0, X.mean(axis=0))
-    scale = np.sqrt(((X - centre) ** 2).sum(axis=0))
-    scale[scale == 0] = 1.0
-    Z = (X - centre) / scale                      # b = T c: X b = Z c
+    n = X.shape[0]
+    Z, centre, scale, const = _scaled(X)
     others = np.arange(n - 1)[None, :]
     others = others + (others >= np.arange(n)[:, None])
-    keep = 1.0 - np.eye(n)
-    df = n - 1 - p
-    c = _solve(Z, y, keep)
-    E = y[None, :] - c @ Z.T
-    s = np.median(np.abs(np.take_along_axis(E, others, axis=1)), axis=1) / _GAUSSIAN_3_4
-    dev = _rho(E / ((keep * E * E).sum(axis=1) / df)[:, None], k)
-    dev = (dev * keep).sum(axis=1)
-    active = s != 0
-    for _ in range(1, max_iter):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        Ea = E[idx]
-        u = np.abs(Ea / s[idx, None])
-        W = keep[idx] * np.where(u <= k, 1.0, k / np.maximum(u, 1e-300))
-        c[idx] = _solve(Z, y, W)
-        Ea = y[None, :] - c[idx] @ Z.T
-        E[idx] = Ea
-        s[idx] = np.median(np.abs(np.take_along_axis(Ea, others[idx], axis=1)),
-                           axis=1) / _GAUSSIAN_3_4
-        s_w = (W * Ea * Ea).sum(axis=1) / df
-        new = (_rho(Ea / s_w[:, None], k) * keep[idx]).sum(axis=1)
-        done = ~(np.abs(new - dev[idx]) > tol)
-        dev[idx] = new
-        active[idx[done | (s[idx] == 0)]] = False
-    # back to the original terms: X b = Z c with Z = (X - centre) / scale
-    b = c / scale
-    if const.any():
-        j0 = int(np.flatnonzero(const)[0])
-        b[:, j0] -= (b * centre[None, :]).sum(axis=1) / X[0, j0]
-    return b
+    c, _, _ = _irls(Z, y, 1.0 - np.eye(n), others, k, max_iter, tol)
+    return _unscale(c, X, centre, scale, const)
