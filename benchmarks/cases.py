@@ -267,6 +267,7 @@ def python_and_refit() -> tuple[str, str]:
 
 import fitcases  # noqa: E402,F401  (registers fit, loo, jackknife+, bootstrap, evaluate, ...)
 import groupcases  # noqa: E402,F401  (registers grouped, newsource)
+import robustcases  # noqa: E402,F401  (registers theil-sen-jk, robust-recipe)
 
 
 # --------------------------------------------------------------------------- admit

@@ -177,6 +177,42 @@ def _group_plus(fit, method, level, seed, folds) -> dict:
     return out
 
 
+def _refitted(fit, X, method, level, seed, folds) -> dict:
+    """The stored quantities of a resampling interval refitted with a robust, quantile or
+    York fit's own estimator (:mod:`refit.models.refitted`): the same fields, and the same
+    rebuild, as the least-squares versions, so the numpy consumer needs nothing new."""
+    from refit.models.refitted import refitted_interval
+
+    opts = {"seed": seed, "folds": folds, "calib_fraction": 0.5, "n_boot": 1000}
+    d = refitted_interval(fit, X[:1], level, method, opts).details
+    b = fit.result.coefficients
+    refits = f"refits with estimator {fit.estimator!r}"
+    if method == "split-conformal":
+        return {"centre_coefficients": d["centre_coefficients"],
+                "calibration_scores": d["calibration_scores"],
+                "quantile": None if np.isinf(d["quantile"]) else d["quantile"],
+                "n_train": d["n_train"], "n_calib": d["n_calib"], "calib_fraction": 0.5,
+                "seed": seed, "exact": True, "refits": refits,
+                "rebuild": "x0' centre_coefficients +- q, q the ceil(level (n_calib + 1))-th "
+                           "smallest calibration score (unbounded if that exceeds n_calib)"}
+    if method == "jackknife+":
+        return {"centre_coefficients": b, "loo_coefficients": d["loo_coefficients"],
+                "loo_abs_residuals": d["loo_abs_residuals"], "exact": True, "refits": refits,
+                "rebuild": "mu_i = x0' loo_coefficients[i]; lower = the floor((1 - level)"
+                           "(n + 1))-th smallest of mu_i - loo_abs_residuals[i], upper = the "
+                           "ceil(level (n + 1))-th smallest of mu_i + loo_abs_residuals[i]"}
+    if method == "cv+":
+        return {"centre_coefficients": b, "fold_coefficients": d["fold_coefficients"],
+                "row_folds": d["row_folds"], "row_abs_residuals": d["row_abs_residuals"],
+                "folds": folds, "seed": seed, "exact": True, "refits": refits,
+                "rebuild": "as jackknife+ with mu_i = x0' fold_coefficients[row_folds[i]] "
+                           "and row_abs_residuals"}
+    return {"centre_coefficients": b, "coefficient_covariance":
+            np.cov(d["coefficients"], rowvar=False).reshape(X.shape[1], -1),
+            "residual_pool": d["residual_pool"], "n_boot": 1000, "seed": seed,
+            "exact": False, "refits": refits, "approximation": APPROX_BOOTSTRAP}
+
+
 def interval_record(fit, method: str, level: float, seed: int, *, folds: int = 10) -> dict:
     """The ``interval`` block (see the module docstring); ``folds`` of group-cv+ (capped
     at the number of groups, as ``Fit.predict`` does)."""
@@ -195,6 +231,10 @@ def interval_record(fit, method: str, level: float, seed: int, *, folds: int = 1
         extra = {"inversion": _branches(fit)} if fit.direction == "forward" else {}
         return out | {"level": None, "exact": True} | extra
     X, y = fit.form.design(fit.x), fit.y_model
+    from refit.models.refitted import REFITTED
+
+    if fit.estimator in REFITTED and method != "quantile":
+        return out | _refitted(fit, X, method, level, seed, folds)
     if method == "quantile":
         qlo, qhi = fit.extras["quantiles"]
         cf = fit.extras["quantile_coefficients"]

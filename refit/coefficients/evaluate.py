@@ -325,7 +325,7 @@ def _branch_points(inv: dict) -> np.ndarray | None:
     return np.asarray(pts, float)
 
 
-def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
+def predict_forward(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bool = False):
     """Forward direction: invert ``feature = f(climate)`` as a classical calibration,
     through :func:`refit.models.inversion.forward.forward_predict` (the core ``Fit.predict`` uses too).
 
@@ -333,7 +333,11 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
     search window and a line's limits), the new observation's standard deviation and the
     approximate-interval flag; files written before these fields existed lack them, and
     then the window is the calibration range widened by
-    :data:`refit.models.domain.SEARCH_MARGIN` alone, the SD is ``residual_std_error``."""
+    :data:`refit.models.domain.SEARCH_MARGIN` alone, the SD is ``residual_std_error``.
+    The measured feature is flagged ``outside-calibration-range`` against the
+    predictor's ``valid_min``/``valid_max``, as in the inverse direction.
+    ``with_rays`` also returns the second ray of a line's two-ray set
+    (``other_lower``, ``other_upper``; flag ``two-rays``)."""
     from refit.models.inversion.forward import forward_predict
 
     iv = rec["interval"]
@@ -365,7 +369,8 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0):
         degree=int(rec["degree"]), through_origin="intercept" not in rec["terms"],
         log_response=eq["scale"] == "log", x_cal=_branch_points(inv), bounds=bounds,
         with_interval=method != "none", between_covariance=between,
-        approximate=method == "analytic" and bool(inv.get("approximate", False)))
+        approximate=method == "analytic" and bool(inv.get("approximate", False)),
+        feature_range=next(iter(_ranges(rec).values())), with_rays=with_rays)
 
 
 #: rows from which repeated values are looked for (a sample of this many decides)

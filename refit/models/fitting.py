@@ -325,7 +325,10 @@ class Fit:
         interval : str, optional
             ``analytic`` (t-based; default, and the only one for the forward direction),
             ``bootstrap-pairs``, ``bootstrap-residual``, ``split-conformal``, ``jackknife+``,
-            ``cv+`` (OLS/WLS fits, inverse direction; see :mod:`refit.models.intervals`),
+            ``cv+`` (inverse direction; OLS/WLS by closed forms, see
+            :mod:`refit.models.intervals`; Huber, Theil-Sen, quantile (its median line)
+            and York by refitting with the fit's own estimator, see
+            :mod:`refit.models.refitted`),
             ``group-jackknife+``, ``group-cv+`` (a fit made with ``groups=``, any
             estimator but York, inverse direction: whole sources left out, each refit with
             the fit's own estimator; for a soil of an unseen source; see
@@ -344,13 +347,19 @@ class Fit:
         -------
         pandas.DataFrame
             ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags`` (';'-
-            separated: ``outside-calibration-range``, ``beyond-turning-point``,
-            ``two-roots``, ``unbounded``, ``open-below``/``open-above`` (forward: the
-            limit is the search window's edge), ``beyond-search-window``,
-            ``approximate-interval`` (Theil-Sen), ``missing-value``, ``invalid-value``,
-            ``quantiles-cross``; empty when none; see :mod:`refit.models.inversion.classical`). Read the flags as ``result["flags"]``
-            (``DataFrame.flags`` is a pandas attribute). The index is that of ``values``
-            when it is a Series or DataFrame.
+            separated: ``outside-calibration-range`` (the measured feature outside its
+            calibration range, both directions), ``beyond-turning-point``,
+            ``two-roots``, ``unbounded``, ``two-rays`` (forward line, weak slope: the
+            limits are the ray holding the estimate), ``open-below``/``open-above``
+            (forward: the limit is the search window's edge or a physical bound),
+            ``beyond-search-window``, ``approximate-interval`` (Theil-Sen),
+            ``missing-value``, ``invalid-value``, ``quantiles-cross``; empty when none;
+            see :mod:`refit.models.inversion.classical`). Read the flags as
+            ``result["flags"]`` (``DataFrame.flags`` is a pandas attribute). When a
+            forward row's set is two rays and the other ray is not empty within the
+            physical bounds, the columns ``other_lower``/``other_upper`` hold it (NaN
+            for the other rows). The index is that of ``values`` when it is a Series
+            or DataFrame.
         """
         from refit.models.predict import predict_fit
 
@@ -472,13 +481,18 @@ def fit(table, response: str, predictors, form: str = "linear", degree: int | No
     _check_constant(x, x_names, labels)
     X = shape.design(x)
     y_model = shape.to_model_scale(y)
-    lsq = solve_lsq(X, y_model, weights=w, intercept=shape.intercept, names=shape.terms)
+    lsq = solve_lsq(X, y_model, weights=w, intercept=shape.intercept, names=shape.terms,
+                    design_dd=lambda: shape.design_dd(x))
     result, extras = _estimate(estimator, X, y_model, shape, w, cols["x_sd"], cols["y_sd"],
                                quantiles, lsq, codes, random_slope)
     if codes is not None:
         extras["groups"] = np.asarray(group_labels, dtype=object)[codes]
         extras["groups_column"] = groups if isinstance(groups, str) else None
     extras["random_slope"] = bool(random_slope)
+    if estimator == "york":  # kept so resampling intervals can refit York's line
+        extras["measurement_sds"] = tuple(np.broadcast_to(np.asarray(cols[k], float),
+                                                          y.shape).copy()
+                                          for k in ("x_sd", "y_sd"))
     r2 = (lsq.details["r_squared"] if result is lsq
           else _r_squared(y_model, result.fitted, None, shape.intercept))
     from refit.models.domain import variable_ranges

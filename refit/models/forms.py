@@ -99,6 +99,25 @@ class Form:
                 j += 1
         return out
 
+    def design_dd(self, x: np.ndarray):
+        """The design in double-double: ``(high, low)`` arrays whose sum holds each power
+        of the data to about 32 significant digits (:func:`refit.models.refine.powers_dd`),
+        for the refinement of ill-conditioned fits; ``low`` is zero for exact columns."""
+        from refit.models.refine import powers_dd
+
+        x = np.asarray(x, dtype=float)
+        if x.ndim == 1:
+            x = x[:, None]
+        hi, lo = [], []
+        if not self.through_origin:
+            hi.append(np.ones(x.shape[0]))
+            lo.append(np.zeros(x.shape[0]))
+        for c in range(x.shape[1]):
+            h, l_ = powers_dd(x[:, c], self.degree)
+            hi += h
+            lo += l_
+        return np.column_stack(hi), np.column_stack(lo)
+
     def to_model_scale(self, y: np.ndarray) -> np.ndarray:
         """The response on the scale the model is fitted on (log for exponential)."""
         y = np.asarray(y, dtype=float)

@@ -150,8 +150,8 @@ def _rank_message(sv: np.ndarray, vt: np.ndarray, names: list[str], intercept: b
 
 
 def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None,
-              intercept: bool = True, names=None, rank_tol: float | None = None
-              ) -> EstimatorResult:
+              intercept: bool = True, names=None, rank_tol: float | None = None,
+              design_dd=None) -> EstimatorResult:
     """Least squares by QR on centred and scaled terms (never by inverting X'X).
 
     Parameters
@@ -171,6 +171,14 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
     rank_tol : float, optional
         Smallest allowed ratio of the extreme singular values of the scaled design;
         default ``max(n, p) * 1e3 * eps``.
+    design_dd : (ndarray, ndarray) or callable returning them, optional
+        The design in double-double (high and low parts), e.g. exact powers of the data
+        (:meth:`refit.models.forms.Form.design_dd`); default ``x`` as given (exact).
+        Unweighted fits whose scaled design has a condition number above
+        :data:`refit.models.refine.REFINE_ABOVE` are refined against it
+        (:func:`refit.models.refine.refine_lsq`): coefficients, residuals and
+        ``(X'X)^-1`` to the accuracy the stored data allow (``details['refined']`` = the
+        steps taken).
 
     Returns
     -------
@@ -196,7 +204,7 @@ def solve_lsq(x: np.ndarray, y: np.ndarray, *, weights: np.ndarray | None = None
     """
     with one_blas_thread():
         return _solve(np.asarray(x, dtype=float), np.asarray(y, dtype=float), weights,
-                      intercept, names, rank_tol)
+                      intercept, names, rank_tol, design_dd)
 
 
 def _lapack_call(f, *args, **kwargs):
@@ -255,7 +263,31 @@ def _qr_slopes(z, scale, yz, names, intercept, rank_tol):
     return qmat, r, rinv, float(sv[0] / sv[-1]), resid_z, bz / scale, cov_slopes
 
 
-def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
+def _refined(x, y, design_dd, qmat, r, centre, scale, intercept, cond):
+    """(coefficients, residuals, (X'X)^-1, steps) by refinement, or None when not
+    needed or the values cannot be split; refuses when refinement stalls."""
+    from refit.errors import InvalidDataError
+    from refit.models import refine as rf
+
+    if cond <= rf.REFINE_ABOVE:
+        return None
+    if callable(design_dd):
+        design_dd = design_dd()
+    xh, xl = design_dd if design_dd is not None else (x, np.zeros_like(x))
+    if not rf.splittable(xh, y):
+        return None
+    solver = rf.ScaledQR(qmat, r, centre, scale, x.shape[0], intercept)
+    try:
+        return rf.refine_lsq(np.asarray(xh, float), np.asarray(xl, float), y, solver)
+    except ArithmeticError as exc:
+        raise InvalidDataError(
+            f"the design is too ill-conditioned to fit reliably (condition number "
+            f"{cond:.3g} of the centred and scaled terms; {exc}): its coefficients cannot "
+            "be guaranteed to 8 significant digits; use a lower degree or rescale the "
+            "predictor") from None
+
+
+def _solve(x, y, weights, intercept, names, rank_tol, design_dd=None) -> EstimatorResult:
     from refit.errors import InvalidDataError
 
     n, p = x.shape
@@ -287,6 +319,10 @@ def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
         cond, resid_z = 1.0, yz
         b_slopes, cov_slopes = np.zeros(0), np.zeros((0, 0))
     df = n - p
+    refined = None if (w is not None or not q_dim) else _refined(
+        x, y, design_dd, qmat, r, centre, scale, intercept, cond)
+    if refined is not None:
+        resid_z = refined[1]
     rss = float(resid_z @ resid_z)
     s2 = rss / df if df > 0 else np.nan
     if intercept:
@@ -301,6 +337,8 @@ def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
         coef = b_slopes
         cov = cov_slopes
         tss = float(y @ y if w is None else w @ (y * y))
+    if refined is not None:
+        coef, cov = refined[0], refined[2]
     cov = cov * s2
     resid = resid_z if sqw is None else resid_z / sqw
     fitted = y - resid
@@ -308,6 +346,8 @@ def _solve(x, y, weights, intercept, names, rank_tol) -> EstimatorResult:
                        intercept=intercept)
     details = {"condition_number": cond, "r_squared": 1.0 - rss / tss if tss > 0 else np.nan,
                "rss": rss, "tss": tss, "factor": factor, "q": qmat, "method": "qr"}
+    if refined is not None:
+        details["refined"] = int(refined[3])
     return EstimatorResult(coefficients=coef, covariance=cov,
                            residual_std_error=float(np.sqrt(s2)), df_resid=float(df),
                            fitted=fitted, residuals=resid, weights=None, details=details)

@@ -17,6 +17,9 @@ from refit.models.finish import between_covariance
 from refit.models.intervals.group_conformal import GROUP_INTERVALS
 
 _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
+#: a forward prediction whose classical-calibration set is two rays for some row keeps the
+#: second ray in these columns (NaN for the other rows; flag ``two-rays``)
+_OTHER_RAY = ("other_lower", "other_upper")
 
 
 def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
@@ -316,9 +319,13 @@ def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
     from refit.models import intervals as iv
     from refit.errors import UsageError
 
+    from refit.models.refitted import REFITTED
+
+    if fit.estimator in REFITTED:  # refits with the fit's own estimator
+        return _refitted_band(fit, X0, ok, w0, level, interval, opts)
     if fit.estimator not in ("ols", "wls"):
-        raise UsageError(f"interval {interval!r} refits by least squares, so it goes with "
-                         f"estimator 'ols' or 'wls', not {fit.estimator!r}")
+        raise UsageError(f"interval {interval!r} refits the estimator on resampled rows; "
+                         f"{fit.estimator!r} fits use 'analytic' or a group-level interval")
     if fit.weights is not None and interval not in ("bootstrap-pairs", "bootstrap-residual"):
         raise UsageError(f"interval {interval!r} does not take weights; use "
                          "'bootstrap-pairs' or 'bootstrap-residual' with a WLS fit")
@@ -352,6 +359,23 @@ def _resampled_band(fit, X0, eta, ok, w0, level, interval, opts):
         pi = iv.cv_plus(X, y, x0, level=level, folds=opts["folds"], seed=opts["seed"])
     out = np.full((3, len(ok)), np.nan)
     out[:, ok] = np.vstack([pi.estimate, pi.lower, pi.upper])
+    return out
+
+
+def _refitted_band(fit, X0, ok, w0, level, interval, opts):
+    """Estimate and limits (3, m) of a resampling interval refitted with the fit's own
+    estimator (:mod:`refit.models.refitted`); bootstraps once per new-row weight."""
+    from refit.models.refitted import refitted_interval
+
+    out = np.full((3, len(ok)), np.nan)
+    idx = np.flatnonzero(ok)
+    w0v = np.broadcast_to(w0, ok.shape)[ok]
+    weights = np.unique(w0v) if interval.startswith("bootstrap") else [None]
+    for wv in weights:
+        sel = np.ones(len(idx), bool) if wv is None else w0v == wv
+        pi = refitted_interval(fit, X0[idx[sel]], level, interval, opts,
+                               1.0 if wv is None else float(wv))
+        out[:, idx[sel]] = np.vstack([pi.estimate, pi.lower, pi.upper])
     return out
 
 
@@ -400,7 +424,8 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
 
 def _predict_forward(fit, v, level, interval, w0):
     """Forward fits: check the request, then classical calibration through
-    :func:`refit.models.inversion.forward.forward_predict`."""
+    :func:`refit.models.inversion.forward.forward_predict`; returns estimate, lower,
+    upper, flags, other_lower, other_upper (the second ray of a two-ray set)."""
     from refit.models.inversion.forward import forward_predict
     from refit.models.inversion.classical import physical_bounds
     from refit.errors import UsageError
@@ -429,7 +454,8 @@ def _predict_forward(fit, v, level, interval, w0):
         degree=fit.form.degree, through_origin=fit.form.through_origin,
         log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
         with_interval=interval != "none", between_covariance=between,
-        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")))
+        approximate=interval == "analytic" and bool(res.details.get("approximate_interval")),
+        feature_range=fit.ranges[fit.y_name], with_rays=True)
 
 
 def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
@@ -445,11 +471,16 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
         raise InvalidDataError("weights of new observations must be finite and > 0")
     opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
     reason = None
+    other = None
     if fit.direction == "forward":
-        est, lo, hi, flags = _predict_forward(fit, v, level, interval, w0)
+        est, lo, hi, flags, *other = _predict_forward(fit, v, level, interval, w0)
     else:
         est, lo, hi, flags, reason = _predict_inverse(fit, v, level, interval, w0, opts)
-    frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
+    if other is not None and np.isfinite(other[0]).any() | np.isfinite(other[1]).any():
+        frame = result_frame(_PREDICTION_COLUMNS + _OTHER_RAY, (est, lo, hi, flags, *other),
+                             index)
+    else:
+        frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
     if reason:  # the limits are infinite: say why, with the result
         frame.attrs["cautions"] = [reason]
     return frame

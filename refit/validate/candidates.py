@@ -28,6 +28,9 @@ INTERVAL_ENGINE = {"analytic": "analytic", "bootstrap": "bootstrap-pairs",
                    "cv+": "cv+", "quantile": "quantile",
                    "group-jackknife+": "group-jackknife+", "group-cv+": "group-cv+"}
 RESAMPLING = ("bootstrap", "split-conformal", "jackknife+", "cv+", *GROUP_METHODS)
+#: estimators whose conformal and bootstrap intervals refit the estimator itself (OLS
+#: by closed forms; the others by :mod:`refit.models.refitted`)
+REFITS = ("ols", "huber", "theil-sen", "quantile", "york")
 METRICS = ("rmsep", "mae", "bias", "r2_prediction", "coverage", "mean_width",
            "interval_score", "n", "n_unbounded")
 
@@ -128,9 +131,9 @@ def impossible_reason(form: str, estimator: str, direction: str, method: str,
     if method in GROUP_METHODS and estimator == "york":
         return (f"interval {method!r} refits the line without each source, and a York fit "
                 "keeps no measurement SDs to refit with")
-    if method in RESAMPLING and method not in GROUP_METHODS and estimator != "ols":
-        return (f"interval {method!r} refits by least squares, so it goes with estimator "
-                f"'ols', not {estimator!r}")
+    if method in RESAMPLING and method not in GROUP_METHODS and estimator not in REFITS:
+        return (f"interval {method!r} refits the estimator on resampled rows; estimator "
+                f"{estimator!r} goes with 'analytic' or a group-level interval")
     return None
 
 

@@ -78,11 +78,12 @@ def test_table_recipe_writes_the_run_folder(tmp_path):
     out = tmp_path / "run"
     r = invoke(recipe, "--out", out, "--quiet")
     assert r.exit_code == 0, r.output
-    # 2 forms x 2 estimators x 2 directions x 2 methods = 16; valid: OLS inverse x 2 methods
-    # x 2 forms (4), Huber inverse analytic (2), OLS/Huber forward analytic (4) = 10
+    # 2 forms x 2 estimators x 2 directions x 2 methods = 16; valid: OLS and Huber inverse
+    # x 2 methods x 2 forms (8; Huber's resampling interval refits Huber), OLS/Huber
+    # forward analytic (4) = 12
     board = pd.read_csv(out / "leaderboard.csv")
-    assert len(board) == 10 and list(board["rank"]) == list(range(1, 11))
-    assert len(list((out / "fits").glob("*.json"))) == 10
+    assert len(board) == 12 and list(board["rank"]) == list(range(1, 13))
+    assert len(list((out / "fits").glob("*.json"))) == 12
     oof = pd.read_csv(out / "oof_predictions.csv")
     assert set(oof.scheme) == {"group-kfold", "kfold"}
     assert (oof.groupby(["candidate", "scheme"]).size() == 48).all()

@@ -214,7 +214,8 @@ def test_value_below_the_minimum_but_inside_the_band_reads_the_turning_point():
     assert p.lower[0] == pytest.approx(tp, rel=1e-12) and tp < p.upper[0] < 900
     # -60 cm: the band excludes it everywhere: no estimate, no interval
     assert np.isnan(p.estimate[1]) and np.isnan(p.lower[1]) and np.isnan(p.upper[1])
-    assert p["flags"][1] == "beyond-turning-point"
+    # (-60 cm also lies below the depths measured: the range flag follows the feature)
+    assert p["flags"][1] == "outside-calibration-range;beyond-turning-point"
 
 
 def test_root_beyond_the_window_gives_no_estimate_but_the_band_inside():

@@ -51,7 +51,6 @@ def write_case(folder, *, scheme="group-kfold", repeats=1, n=60):
 @pytest.mark.parametrize("combo, fragment", [
     (("quadratic", "theil-sen", "inverse", "analytic", 1), "straight lines"),
     (("linear", "ols", "inverse", "quantile", 1), "quantile curves"),
-    (("linear", "huber", "inverse", "jackknife+", 1), "least squares"),
     (("linear", "ols", "forward", "split-conformal", 1), "classical-calibration"),
     (("linear", "quantile", "inverse", "analytic", 1), "own interval from the quantile"),
     (("linear", "ols", "forward", "analytic", 2), "inverts one feature"),
@@ -71,12 +70,28 @@ def test_possible_combinations_pass(combo):
     assert impossible_reason(*combo) is None
 
 
+@pytest.mark.parametrize("estimator", ["huber", "theil-sen", "quantile", "york"])
+@pytest.mark.parametrize("method", ["bootstrap", "split-conformal", "jackknife+", "cv+"])
+def test_robust_and_york_fits_get_every_resampling_interval(estimator, method):
+    # each refit uses the estimator itself (refit.models.refitted), like OLS's
+    assert impossible_reason("linear", estimator, "inverse", method, 1, sds=True) is None
+
+
+def test_mixed_and_york_keep_their_limits():
+    # a mixed fit's resampling interval and York's group-level ones stay refused, named
+    why = impossible_reason("linear", "mixed", "inverse", "jackknife+", 1, groups="source")
+    assert "refits the estimator on resampled rows" in why and "'mixed'" in why
+    why = impossible_reason("linear", "york", "inverse", "group-cv+", 1, groups="source",
+                            sds=True)
+    assert "measurement SDs" in why
+
+
 def test_grid_of_the_demo_recipe():
-    # 2 forms x 3 estimators x 2 directions x 3 methods = 36 combinations; valid: OLS inverse
-    # with all 3 methods (x2 forms = 6), Huber and mixed inverse analytic (4), OLS, Huber and
-    # mixed forward analytic (6): 16.
+    # 2 forms x 3 estimators x 2 directions x 3 methods = 36 combinations; valid: OLS and
+    # Huber inverse with all 3 methods (x2 forms = 12), mixed inverse analytic (2), OLS,
+    # Huber and mixed forward analytic (6): 20.
     specs, skipped = candidate_grid(read_recipe("calib_demo/recipe.toml"))
-    assert len(specs) == 16 and len(skipped) == 20
+    assert len(specs) == 20 and len(skipped) == 16
     assert {s.estimator for s in specs} == {"ols", "huber", "mixed"}
     assert all("theil-sen" not in s.label for s in specs)
     assert {s.n_params for s in specs if s.form == "quadratic"} == {3}
@@ -172,13 +187,13 @@ def test_run_matrix_columns_and_oof_rows(tmp_path):
     m = run.matrix
     n = len(run.subset.frame)
     assert n == 45  # 60 soils, every 4th under forest
-    assert len(m.specs) == 14 and m.schemes["kfold"] is None
+    assert len(m.specs) == 20 and m.schemes["kfold"] is None
     cols = {"candidate", "form", "estimator", "direction", "interval_method", "rmsep", "mae",
             "bias", "coverage", "mean_width", "interval_score", "n", "r2_in_sample",
             "residual_se", "aic", "bic", "rank", "coverage_ok"}
     assert cols <= set(m.leaderboard.columns)
     per = m.predictions.groupby("candidate").size()
-    assert (per == n * 2).all() and len(per) == 14   # k-fold: n rows x 2 repeats each
+    assert (per == n * 2).all() and len(per) == 20   # k-fold: n rows x 2 repeats each
     assert set(m.leaderboard.n) == {n * 2}
 
 
@@ -208,7 +223,7 @@ def test_run_folder_reopened(tmp_path):
     assert board.interval_score.is_monotonic_increasing or not board.coverage_ok.all()
     doc = json.loads((out / "leaderboard.json").read_text())
     assert doc["verdict"]["winner"] == board.candidate[0]
-    assert len(doc["rows"]) == 14 and len(doc["skipped"]) == 22
+    assert len(doc["rows"]) == 20 and len(doc["skipped"]) == 16
     oof = pd.read_csv(out / "oof_predictions.csv")
     assert list(oof.columns[:11]) == ["candidate", "scheme", "row", "profile_id", "repeat",
                                       "fold", "observed", "estimate", "lower", "upper",
@@ -259,7 +274,9 @@ def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
     # 6 rows in 3 folds leave 4 training rows: too few for a quadratic's split-conformal,
     # jackknife+ and Huber fits (5 needed: 3 coefficients + 2) and for a linear
     # split-conformal (3 training + 1 calibration row); those fail with the engine's reason
-    # and the rest are ranked.
+    # and the rest are ranked. Robust estimators' conformal intervals refit the estimator
+    # on the training part (2 rows) or each leave-one-out set (3 rows): too few for Huber
+    # (p + 2) and for a split Theil-Sen line.
     rec = read_recipe(write_case(tmp_path, scheme="kfold"))
     res = run_matrix(soils(60).iloc[:6], rec)
     failed = {s["candidate"]: s["reason"] for s in res.skipped
@@ -268,9 +285,15 @@ def test_run_matrix_keeps_going_when_one_candidate_fails(tmp_path):
                            "quadratic__ols__inverse__split-conformal",
                            "quadratic__ols__inverse__jackknife+",
                            "quadratic__huber__inverse__analytic",
-                           "quadratic__huber__forward__analytic"}
+                           "quadratic__huber__forward__analytic",
+                           "linear__huber__inverse__split-conformal",
+                           "linear__huber__inverse__jackknife+",
+                           "linear__theil-sen__inverse__split-conformal",
+                           "quadratic__huber__inverse__split-conformal",
+                           "quadratic__huber__inverse__jackknife+"}
     assert "at least 5 rows are needed" in failed["quadratic__huber__inverse__analytic"]
-    assert len(res.specs) == 9 and len(res.leaderboard) == 9
+    assert "at least 4 rows are needed" in failed["linear__huber__inverse__jackknife+"]
+    assert len(res.specs) == 10 and len(res.leaderboard) == 10
 
 
 @pytest.mark.parametrize("scheme, repeats", [("loo", 1), ("leave-one-group-out", 1),
@@ -284,6 +307,6 @@ def test_every_scheme_runs_with_random_kfold_beside(tmp_path, scheme, repeats):
     per = m.predictions.groupby(["candidate", "scheme"]).size()
     assert per.xs(scheme, level="scheme").eq(n * repeats).all()
     assert per.xs("kfold", level="scheme").eq(n * repeats).all()
-    assert m.schemes["kfold"].folds == 3 and len(m.leaderboard) == 14
+    assert m.schemes["kfold"].folds == 3 and len(m.leaderboard) == 20
     if scheme == "spatial-block":
         assert m.split_details["main"]["block_km"] > 0   # the block size is reported

@@ -24,8 +24,9 @@ FLAG_BEYOND_TP = "beyond-turning-point"
 FLAG_OPEN_BELOW = "open-below"
 FLAG_OPEN_ABOVE = "open-above"
 FLAG_BEYOND_WINDOW = "beyond-search-window"
+FLAG_TWO_RAYS = "two-rays"
 #: flags that describe the interval (dropped when no interval is asked for)
-INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
+INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_TWO_RAYS, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
 
 #: grid nodes over the search window on which the band's sign changes are located
 GRID_POINTS = 257
@@ -474,8 +475,8 @@ POLYNOMIAL_FLAG_ORDER = (FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYO
                          FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
 #: order of the flags of a line's bounded Fieller interval
 #: (:func:`refit.models.inversion.classical._bound_line`)
-LINE_FLAG_ORDER = (FLAG_OUTSIDE, FLAG_UNBOUNDED, FLAG_BEYOND_WINDOW, FLAG_OPEN_BELOW,
-                   FLAG_OPEN_ABOVE)
+LINE_FLAG_ORDER = (FLAG_OUTSIDE, FLAG_UNBOUNDED, FLAG_TWO_RAYS, FLAG_BEYOND_WINDOW,
+                   FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
 
 
 def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:

@@ -22,9 +22,16 @@ Flags (a tuple of short strings per value):
 - ``open-below`` / ``open-above``: the band does not close inside the search window on
   that side (it runs on past the turning point, past the widened range or past a physical
   bound); the limit reported is the window edge: read it as "at most" / "at least".
-- ``unbounded``: a line's band never closes (``g = t^2 V(b1) / b1^2 >= 1``, i.e. the slope
-  is not significant at the chosen level); the limits are -inf / +inf (or the bounds).
-- ``outside-calibration-range``: the estimate lies outside the climate range of the data.
+- ``unbounded``: a line's band never closes on at least one side (``g = t^2 V(b1) / b1^2
+  >= 1``, i.e. the slope is not significant at the chosen level): the set is the whole
+  line (limits -inf / +inf, or the bounds) or two rays; also a flat line (a constant
+  feature), which gives no estimate.
+- ``two-rays``: the set is two rays, ``x <= r1`` or ``x >= r2`` (:func:`fieller_set`);
+  the limits are the ray that holds the estimate (its finite end kept, the infinite one
+  cut at the physical bound and flagged ``open-below``/``open-above``), and the other
+  ray is kept beside it (``other_lower``, ``other_upper``).
+- ``outside-calibration-range``: the measured *feature* lies outside the feature's
+  calibration range (its ``valid_min``/``valid_max``), as in the inverse direction.
 - ``beyond-turning-point``: ``y0`` lies beyond the curve's extreme value, so no climate on
   the branch gives it. The estimate is then the turning point's ``x`` (the point of the
   curve closest to ``y0``) when the prediction band there still holds ``y0`` (the value
@@ -50,6 +57,7 @@ from refit.models.inversion.band import (  # noqa: F401  (re-exported: the publi
     FLAG_OPEN_ABOVE,
     FLAG_OPEN_BELOW,
     FLAG_OUTSIDE,
+    FLAG_TWO_RAYS,
     FLAG_TWO_ROOTS,
     FLAG_UNBOUNDED,
     GRID_POINTS,
@@ -93,7 +101,8 @@ def fieller_line(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new: float, t
     Returns
     -------
     estimate, lower, upper : ndarray
-        ``x_hat = (y0 - b0) / b1`` and the limits [units of x]; +-inf when unbounded.
+        ``x_hat = (y0 - b0) / b1`` and the limits [units of x]; when the set is two rays
+        (:func:`fieller_set`), the ray that holds the estimate (one limit infinite).
     unbounded : bool
         True when ``g = t^2 V11 / b1^2 >= 1``.
 
@@ -105,17 +114,68 @@ def fieller_line(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new: float, t
     ``xbar + (x_hat - xbar)/(1 - g) +- t s/(|b1|(1 - g)) sqrt((x_hat - xbar)^2/Sxx +
     (1 - g)(1/m + 1/n))`` (Eisenhart 1939, Ann. Math. Stat. 10:162; from memory).
     """
+    fs = fieller_set(y0, b0, b1, cov, sigma2_new, t)
+    return fs["estimate"], fs["lower"], fs["upper"], bool(fs["weak"])
+
+
+def fieller_set(y0, b0: float, b1: float, cov: np.ndarray, sigma2_new, t: float) -> dict:
+    """The exact Fieller confidence set for ``x`` of each ``y0``, whatever its shape.
+
+    With ``A = b1^2 - t^2 V11`` (see :func:`fieller_line`) the set
+    ``A x^2 - 2 B x + C <= 0`` is
+
+    - ``A > 0``: a finite interval;
+    - ``A < 0`` and ``B^2 - A C > 0``: two rays, ``x <= r1`` or ``x >= r2``
+      (``r1 = (B + sqrt(B^2 - AC)) / A < r2 = (B - sqrt(B^2 - AC)) / A``). The estimate
+      lies on one of them (at ``x_hat`` the left side is 0); ``lower``/``upper`` give that
+      ray (its finite end kept), ``other_lower``/``other_upper`` the other one;
+    - ``A < 0`` and ``B^2 - A C <= 0``: the whole line;
+    - ``A = 0``: one ray (or the whole line);
+    - ``b1 = 0`` (e.g. a constant feature): no estimate, the whole line.
+
+    Returns
+    -------
+    dict
+        ``estimate``, ``lower``, ``upper``, ``other_lower``, ``other_upper`` (NaN unless
+        two rays) [units of x]; masks ``unbounded`` (an infinite limit) and ``two_rays``;
+        ``weak`` (bool, ``A <= 0``: the slope is not significant at this level).
+    """
     y0 = np.asarray(y0, dtype=float)
     d = y0 - b0
+    nan = np.full_like(d, np.nan)
+    out = {"other_lower": nan.copy(), "other_upper": nan.copy(),
+           "two_rays": np.zeros(d.shape, dtype=bool)}
+    ok = np.isfinite(d)
+    if b1 == 0 or not np.isfinite(b1):
+        inf = np.full_like(d, np.inf)
+        return out | {"estimate": nan, "lower": -inf, "upper": inf, "unbounded": ok,
+                      "weak": True}
     est = d / b1
     a = b1 * b1 - t * t * cov[1, 1]
-    if a <= 0:
-        inf = np.full_like(est, np.inf)
-        return est, -inf, inf, True
     b = b1 * d + t * t * cov[0, 1]
     c = d * d - t * t * (sigma2_new + cov[0, 0])
-    root = np.sqrt(np.maximum(b * b - a * c, 0.0))
-    return est, (b - root) / a, (b + root) / a, False
+    disc = b * b - a * c
+    if a > 0:
+        root = np.sqrt(np.maximum(disc, 0.0))
+        return out | {"estimate": est, "lower": (b - root) / a, "upper": (b + root) / a,
+                      "unbounded": np.zeros(d.shape, dtype=bool), "weak": False}
+    lo, hi = np.full_like(d, -np.inf), np.full_like(d, np.inf)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if a == 0:  # -2 B x + C <= 0: one ray
+            edge = c / (2.0 * b)
+            lo = np.where(b > 0, edge, lo)
+            hi = np.where(b < 0, edge, hi)
+        else:
+            rays = ok & (disc > 0)
+            root = np.sqrt(np.where(rays, disc, 0.0))
+            r1, r2 = (b + root) / a, (b - root) / a
+            on_low = est <= 0.5 * (r1 + r2)
+            hi = np.where(rays & on_low, r1, hi)
+            lo = np.where(rays & ~on_low, r2, lo)
+            out["other_lower"] = np.where(rays & on_low, r2, np.where(rays, -np.inf, np.nan))
+            out["other_upper"] = np.where(rays & ~on_low, r1, np.where(rays, np.inf, np.nan))
+            out["two_rays"] = rays
+    return out | {"estimate": est, "lower": lo, "upper": hi, "unbounded": ok, "weak": True}
 
 
 def invert_polynomial(y0, poly: np.ndarray, cov: np.ndarray, sigma2_new: float,
@@ -257,23 +317,35 @@ def physical_bounds(fit) -> tuple[float, float]:
     return tuple(map(float, given)) if given is not None else schema_bounds(fit.x_names[0])
 
 
-def _bound_line(est, lo, hi, unbounded: bool, bounds):
+def _bound_line(est, lo, hi, unbounded, bounds):
     """Cut a line's Fieller limits at the physical bounds ('open-below'/'open-above');
     an estimate beyond a bound is NaN ('beyond-search-window')."""
     est, lo, hi, masks = _bound_line_masks(est, lo, hi, unbounded, bounds)
     return est, lo, hi, _flag_tuples(masks, list(LINE_FLAG_ORDER), len(est))
 
 
-def _bound_line_masks(est, lo, hi, unbounded: bool, bounds):
-    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`)."""
+def _bound_line_masks(est, lo, hi, unbounded, bounds):
+    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`).
+
+    ``unbounded`` is a per-row mask (or one bool for every row with an estimate)."""
     b_lo, b_hi = bounds
     with np.errstate(invalid="ignore"):
         off = (est < b_lo) | (est > b_hi)
         cut_lo, cut_hi = lo < b_lo, hi > b_hi
     est = np.where(off, np.nan, est)
     lo, hi = np.where(cut_lo, b_lo, lo), np.where(cut_hi, b_hi, hi)
-    masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.isfinite(est) | off if unbounded
-             else np.zeros(len(est), dtype=bool), FLAG_BEYOND_WINDOW: off,
-             FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
+    if np.ndim(unbounded) == 0:
+        unbounded = (np.isfinite(est) | off) if unbounded else np.zeros(len(est), bool)
+    masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.asarray(unbounded, dtype=bool),
+             FLAG_BEYOND_WINDOW: off, FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
     return est, lo, hi, masks
 
+
+def bound_other_ray(other_lo, other_hi, bounds):
+    """The other ray of a two-ray Fieller set cut at the physical bounds; NaN where
+    nothing of it is left inside them."""
+    b_lo, b_hi = bounds
+    lo, hi = np.maximum(other_lo, b_lo), np.minimum(other_hi, b_hi)
+    with np.errstate(invalid="ignore"):
+        empty = ~(lo <= hi)
+    return np.where(empty, np.nan, lo), np.where(empty, np.nan, hi)

@@ -60,7 +60,8 @@ def _flag_text(masks: dict, order, outside, missing, invalid, approximate: bool)
 def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, domain,
                     degree: int, through_origin: bool = False, log_response: bool = False,
                     x_cal=None, bounds=(-np.inf, np.inf), with_interval: bool = True,
-                    approximate: bool = False, between_covariance=None):
+                    approximate: bool = False, between_covariance=None,
+                    feature_range=None, with_rays: bool = False):
     """Invert a fitted ``feature = f(climate)`` at measured feature values.
 
     Parameters
@@ -77,7 +78,7 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
     t : float
         Student t quantile ``t(0.5 + level/2; df)``.
     domain : (float, float)
-        Calibration range of climate [its unit].
+        Calibration range of climate [its unit] (scaling, root choice, search window).
     degree : int
         Degree of the curve (1: a line, Fieller's interval).
     through_origin : bool
@@ -95,6 +96,15 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         are dropped.
     approximate : bool
         Add ``approximate-interval`` to rows with a value.
+    feature_range : (float or None, float or None), optional
+        Calibration range of the *feature* [its unit] (the predictor's ``valid_min`` and
+        ``valid_max``): a measured value outside it is flagged
+        ``outside-calibration-range``, as in the inverse direction. None (callers
+        without it): the flag follows the estimate against ``domain``.
+    with_rays : bool
+        Also return ``other_lower``, ``other_upper``: the second ray of a line's two-ray
+        Fieller set, cut at the bounds (NaN for other rows; see
+        :func:`refit.models.inversion.classical.fieller_set`).
     between_covariance : ndarray, optional
         Between-source covariance B of a mixed fit (terms x terms, as ``covariance``):
         the new observation's variance is then ``sigma2_new + g(x)' B g(x)`` at each
@@ -109,15 +119,21 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         Climate [its unit].
     flags : ndarray of str
         ';'-joined flag names per row (see :mod:`refit.models.inversion.classical`).
+    other_lower, other_upper : ndarray
+        Only with ``with_rays``.
     """
     y0, missing, invalid = _model_scale(values, log_response)
     if between_covariance is not None:
         covariance = np.asarray(covariance, float) + np.asarray(between_covariance, float)
     poly = np.concatenate([[0.0] if through_origin else [], coefficients])
     cov = np.pad(covariance, ((1, 0), (1, 0))) if through_origin else covariance
+    other = np.full((2, len(y0)), np.nan)
     if degree == 1:
-        est, lo, hi, unb = cal.fieller_line(y0, poly[0], poly[1], cov, sigma2_new, t)
-        est, lo, hi, masks = cal._bound_line_masks(est, lo, hi, unb, bounds)
+        fs = cal.fieller_set(y0, poly[0], poly[1], cov, sigma2_new, t)
+        est, lo, hi, masks = cal._bound_line_masks(fs["estimate"], fs["lower"], fs["upper"],
+                                                   fs["unbounded"], bounds)
+        masks[cal.FLAG_TWO_RAYS] = fs["two_rays"]
+        other[:] = cal.bound_other_ray(fs["other_lower"], fs["other_upper"], bounds)
         order = cal.LINE_FLAG_ORDER
     else:
         est, lo, hi, masks = cal.invert_polynomial_masks(
@@ -126,6 +142,16 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         order = cal.POLYNOMIAL_FLAG_ORDER
     if not with_interval:
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
+        other[:] = np.nan
         order = tuple(nm for nm in order if nm not in cal.INTERVAL_FLAGS)
-    outside = cal.range_flags(est, domain)
-    return est, lo, hi, _flag_text(masks, order, outside, missing, invalid, approximate)
+    if feature_range is None:
+        outside = cal.range_flags(est, domain)
+    else:  # the measured feature against its own calibration range
+        from refit.models.domain import extrapolation_mask
+
+        outside = extrapolation_mask(values, *feature_range)
+        masks[cal.FLAG_OUTSIDE] = outside
+    flags = _flag_text(masks, order, outside, missing, invalid, approximate)
+    if with_rays:
+        return est, lo, hi, flags, other[0], other[1]
+    return est, lo, hi, flags
