@@ -219,10 +219,10 @@ def bp_sentence(bp: dict, regressors) -> str:
     if bp["p"] < dg.BP_ALPHA:
         return (f"The residual spread changes with {what} ({stat}): an interval of "
                 "constant width is too narrow where the data spread most and too wide "
-                "elsewhere. Weighted least squares (refit.fit(..., estimator=\"wls\", "
-                "weights=...)) with weights inversely proportional to the local residual "
-                "variance, or a model of the variance, would let the interval widen where "
-                "the data do.")
+                "elsewhere. The estimator 'wls-power' (a spread proportional to a power "
+                "of the fitted value, in a recipe's estimators or refit.fit(..., "
+                "estimator=\"wls-power\")), or 'wls' with weights of your own, lets the "
+                "interval widen where the data do.")
     return (f"No evidence at the {100 * dg.BP_ALPHA:.0f}% level that the residual spread "
             f"changes with {what} ({stat}): an interval of constant width is consistent "
             "with these residuals.")
