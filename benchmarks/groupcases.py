@@ -76,36 +76,41 @@ def grouped_soils(seed: int, n: int = GROUPED_SOILS, n_sources: int = GROUPED_SO
         "vegetation": "grassland", "parent_material": "loess"})
 
 
-def _walls(summary: measure.Summary) -> list[float]:
-    return [round(r.wall_s, 4) for r in summary.runs]
+def recipe_time_case(ctx: Context, *, name: str, soils, recipe: str, label: str,
+                     note: str, target: str, limit_s: float) -> CaseResult:
+    """Time ``refit fit`` of a recipe on invented soils as a whole process (``--jobs 1``;
+    3 runs, 1 with --quick): one row beside no naive way, and a below-``limit_s`` target."""
+    folder = ctx.data_dir / name
+    folder.mkdir(parents=True, exist_ok=True)
+    soils.to_csv(folder / "soils.csv", index=False)
+    (folder / "recipe.toml").write_text(recipe, encoding="utf-8")
+    reps = 1 if ctx.quick else 3
+    ctx.log(f"  refit fit {name} recipe ({len(soils)} soils) x{reps} ...")
+    got = measure.run_repeated([ctx.refit, "fit", str(folder / "recipe.toml"), "--out",
+                                str(folder / "run"), "--overwrite", "--quiet", "--jobs", "1"],
+                               reps)
+    failed = any(got.returncodes)
+    note = f"{note}; no naive way: time alone; exit codes {got.returncodes}"
+    if failed:
+        note += ": " + (got.last.stderr.strip() or got.last.stdout.strip())[-300:]
+    result = CaseResult()
+    result.rows.append(Row(name, len(soils), label, "– (none)", got.wall_s, None,
+                           got.peak_mb, None, note, [round(r.wall_s, 4) for r in got.runs],
+                           []))
+    result.targets.append(Target(target, None if failed else got.wall_s, limit_s, "s",
+                                 kind="below"))
+    return result
 
 
 @case("grouped", "refit fit: 12 candidates incl. mixed and group-conformal, 250 soils in 10 "
                  "sources, group 5-fold x 2 (time alone: no naive way)")
 def grouped_case(ctx: Context) -> CaseResult:
-    result = CaseResult()
-    folder = ctx.data_dir / "grouped"
-    folder.mkdir(parents=True, exist_ok=True)
-    grouped_soils(ctx.seed).to_csv(folder / "soils.csv", index=False)
-    (folder / "recipe.toml").write_text(GROUPED_RECIPE, encoding="utf-8")
-    reps = 1 if ctx.quick else 3
-    ctx.log(f"  refit fit grouped recipe ({GROUPED_SOILS} soils, {GROUPED_SOURCES} sources) "
-            f"x{reps} ...")
-    got = measure.run_repeated([ctx.refit, "fit", str(folder / "recipe.toml"), "--out",
-                                str(folder / "run"), "--overwrite", "--quiet", "--jobs", "1"],
-                               reps)
-    failed = any(got.returncodes)
-    note = (f"12 candidates x 2 schemes x 5 folds x 2 repeats, level 0.8; no naive way (no "
-            f"other program runs this matrix): time alone; exit codes {got.returncodes}")
-    if failed:
-        note += ": " + (got.last.stderr.strip() or got.last.stdout.strip())[-300:]
-    result.rows.append(Row("grouped", GROUPED_SOILS, "refit fit grouped 12-candidate recipe "
-                           "--jobs 1", "– (none)", got.wall_s, None, got.peak_mb, None, note,
-                           _walls(got), []))
-    result.targets.append(Target("grouped 12-candidate recipe, 250 soils in 10 sources "
-                                 "(--jobs 1)", None if failed else got.wall_s,
-                                 GROUPED_LIMIT_S, "s", kind="below"))
-    return result
+    return recipe_time_case(
+        ctx, name="grouped", soils=grouped_soils(ctx.seed), recipe=GROUPED_RECIPE,
+        label="refit fit grouped 12-candidate recipe --jobs 1",
+        note="12 candidates x 2 schemes x 5 folds x 2 repeats, level 0.8",
+        target=f"grouped 12-candidate recipe, {GROUPED_SOILS} soils in {GROUPED_SOURCES} "
+               "sources (--jobs 1)", limit_s=GROUPED_LIMIT_S)
 
 
 @case("newsource", "coverage of soils from new sources by simulation (time alone; figures "

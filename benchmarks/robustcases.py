@@ -103,25 +103,11 @@ def robust_soils(seed: int, n: int = ROBUST_SOILS):
 @case("robust-recipe", "refit fit: 20 candidates incl. Huber and Theil-Sen conformal, 200 "
                        "soils, 5-fold x 2 (time alone: no naive way)")
 def robust_recipe_case(ctx: Context) -> CaseResult:
-    folder = ctx.data_dir / "robust"
-    folder.mkdir(parents=True, exist_ok=True)
-    robust_soils(ctx.seed).to_csv(folder / "soils.csv", index=False)
-    (folder / "recipe.toml").write_text(ROBUST_RECIPE, encoding="utf-8")
-    reps = 1 if ctx.quick else 3
-    ctx.log(f"  refit fit robust recipe ({ROBUST_SOILS} soils) x{reps} ...")
-    got = measure.run_repeated([ctx.refit, "fit", str(folder / "recipe.toml"), "--out",
-                                str(folder / "run"), "--overwrite", "--quiet", "--jobs", "1"],
-                               reps)
-    failed = any(got.returncodes)
-    note = (f"20 candidates x 5 folds x 2 repeats, level 0.9; no naive way: time alone; "
-            f"exit codes {got.returncodes}")
-    if failed:
-        note += ": " + (got.last.stderr.strip() or got.last.stdout.strip())[-300:]
-    result = CaseResult()
-    result.rows.append(Row("robust-recipe", ROBUST_SOILS, "refit fit 20-candidate robust "
-                           "recipe --jobs 1", "– (none)", got.wall_s, None, got.peak_mb,
-                           None, note, [round(r.wall_s, 4) for r in got.runs], []))
-    result.targets.append(Target("20-candidate robust recipe, 200 soils (--jobs 1)",
-                                 None if failed else got.wall_s, ROBUST_LIMIT_S, "s",
-                                 kind="below"))
-    return result
+    from groupcases import recipe_time_case
+
+    return recipe_time_case(
+        ctx, name="robust-recipe", soils=robust_soils(ctx.seed), recipe=ROBUST_RECIPE,
+        label="refit fit 20-candidate robust recipe --jobs 1",
+        note="20 candidates x 5 folds x 2 repeats, level 0.9",
+        target=f"20-candidate robust recipe, {ROBUST_SOILS} soils (--jobs 1)",
+        limit_s=ROBUST_LIMIT_S)

@@ -128,12 +128,19 @@ def impossible_reason(form: str, estimator: str, direction: str, method: str,
     if method == "analytic" and estimator == "quantile":
         return ("estimator 'quantile' gives its own interval from the quantile curves; use "
                 "interval 'quantile'")
+    if method in GROUP_METHODS and estimator == "mixed":
+        return (f"the mixed fit's analytic interval is already the one for a soil of a new "
+                f"source; {method!r} would refit the mixed model without each source in "
+                "every fold (slow, and no more honest): use it with 'ols' or a robust "
+                "estimator")
     if method in GROUP_METHODS and estimator == "york":
         return (f"interval {method!r} refits the line without each source, and a York fit "
                 "keeps no measurement SDs to refit with")
     if method in RESAMPLING and method not in GROUP_METHODS and estimator not in REFITS:
         return (f"interval {method!r} refits the estimator on resampled rows; estimator "
-                f"{estimator!r} goes with 'analytic' or a group-level interval")
+                f"{estimator!r} goes with 'analytic'"
+                + (" (its new-source interval)" if estimator == "mixed" else
+                   " or a group-level interval"))
     return None
 
 

@@ -60,11 +60,10 @@ def test_a_grouped_recipe_gets_the_documented_defaults(grouped_run):
     assert r.methods == ("analytic", "group-jackknife+", "group-cv+")
     assert len(r.defaults) == 3 and "group-kfold" in r.defaults[0]
     labels = set(run.matrix.leaderboard["candidate"])
-    # the group intervals refit each source's left-out fit with the candidate's own
-    # estimator, so the mixed line gets them too
+    # the mixed line's own analytic interval is its new-source interval: it gets no
+    # group-level conformal interval on top (skipped, with the reason)
     assert labels == {"linear__ols__inverse__analytic", "linear__mixed__inverse__analytic",
-                      "linear__ols__inverse__group-jackknife+", "linear__ols__inverse__group-cv+",
-                      "linear__mixed__inverse__group-jackknife+", "linear__mixed__inverse__group-cv+"}
+                      "linear__ols__inverse__group-jackknife+", "linear__ols__inverse__group-cv+"}
     assert run.source_check is None  # it names groups: no warning
 
 
