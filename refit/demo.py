@@ -240,14 +240,35 @@ def _say_posterior(results, say) -> None:
             f"consistency chi2 {r.proxy_chi2:.2f}, p {r.proxy_chi2_p:.2f}: {verdict}")
 
 
+#: the literature equations the demo's section figure draws beside refit's own fit
+SECTION_LITERATURE = ("map_from_bk_depth.retallack1994.json",
+                      "mat_from_salinization.sheldon2002.json")
+
+
+def section_rows(results, published):
+    """The rows the demo's section figure draws: eleven fits at every paleosol would hide
+    each other, so the published fit, :data:`SECTION_LITERATURE` and the posterior of all
+    proxies together."""
+    from pathlib import Path as _P
+
+    names = _P(str(published)).name, *SECTION_LITERATURE
+    keep = (results["function_id"].eq("posterior")
+            | results["coefficient_file"].map(lambda f: str(f) == str(published)
+                                              or _P(str(f)).name in names[1:]))
+    return results[keep]
+
+
 def _section(out: Path, result: DemoResult, say) -> None:
     from refit.apply.section import section_table, layout_notes, resolution_notes
     from refit.apply.section import SectionResult
     from refit.report.section_plot import write_section
 
-    say("[bold]7. Section[/bold]: the climate up each section, every fit side by side")
+    say("[bold]7. Section[/bold]: the climate up each section: the published fit, the "
+        "literature depth-to-Bk and salinization equations, and the posterior of both "
+        "proxies together (every fit's numbers stay in estimates.csv)")
     applied = result.applied
-    table = section_table(applied.results, applied.fossils)
+    table = section_table(section_rows(applied.results, result.published.path),
+                          applied.fossils)
     notes = layout_notes(table, applied.fossils, "level_m") + resolution_notes(table)
     result.section = SectionResult(table, "level_m", "level [m]", notes, applied)
     written = write_section(result.section, out / "section")

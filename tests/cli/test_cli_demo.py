@@ -96,20 +96,18 @@ def test_demo_draws_each_section_and_embeds_it(demo_run):
     assert sorted(p.name for p in folder.glob("*.png")) == [
         "section-coldstave-gorge.png", "section-murrenhal-bluff.png"]
     t = pd.read_csv(folder / "section.csv")
-    est = pd.read_csv(out / "estimates.csv")
-    # one row per estimate, plus one per forward file's posterior (drawn beside it)
-    plain = t[~t["fit"].str.endswith(" posterior")]
-    assert len(plain) == len(est)
-    merged = plain.merge(est, on=["paleosol_id", "coefficient_file", "function_id"],
-                         suffixes=("", "_a"))
+    from refit.demo import section_rows
+
+    est = section_rows(pd.read_csv(out / "estimates.csv"),
+                       out / "registry" / "map_from_bk_depth" / "1.0.0.json")
+    # one row per drawn estimate: the published fit, two literature equations and the
+    # posterior of both proxies together; the same numbers as estimates.csv
+    assert len(t) == len(est)
+    merged = t.merge(est, on=["paleosol_id", "coefficient_file", "function_id"],
+                     suffixes=("", "_a"))
     assert len(merged) == len(est)
     assert (merged["estimate"].fillna(-1) == merged["estimate_a"].fillna(-1)).all()
-    single = t[t["fit"].str.endswith(" posterior")]
-    assert len(single) == est["posterior_median"].notna().sum() - \
-        (est["function_id"] == "posterior").sum()
-    # the published fit, 5 literature equations, 2 forward fits, their 2 posteriors and
-    # the posterior of both proxies together
-    assert t["fit"].nunique() == 11 and (t["origin"] == "refit").any()
+    assert t["fit"].nunique() == 4 and (t["origin"] == "refit").any()
     html = (out / "report.html").read_text(encoding="utf-8")
     assert 'id="sections"' in html and html.count('class="section-figure"') == 2
     assert "Notes on the sections" in html
