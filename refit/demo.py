@@ -195,8 +195,8 @@ def _forward_fits(out: Path, result: DemoResult, say) -> None:
 
 
 def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
-    from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.apply.compare import comparison_table, figure_pngs, page_names
+    from refit._util.atomic import write_text_atomic
+    from refit.apply.compare import comparison_table, write_comparison
 
     files = [result.published.path, *result.forward, *published_equations()]
     fossils = out / "fossils.csv"
@@ -222,11 +222,8 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     say("[bold]6. Compare[/bold] the intervals fit by fit")
     result.comparison = comparison_table(result.applied.results)
     folder = out / "compare"
-    write_text_atomic(folder / "comparison.csv", result.comparison.to_csv(index=False))
-    pngs = figure_pngs(result.comparison)
-    for name, png in zip(page_names(len(pngs)), pngs):
-        write_bytes_atomic(folder / name, png)
-    say(f"   every paleosol drawn: {len(pngs)} figure file(s) in {folder}")
+    pages = write_comparison(result.comparison, folder)
+    say(f"   every paleosol drawn: {len(pages)} figure file(s) in {folder}")
     result.outputs["interval comparison (csv, png)"] = folder
 
 

@@ -281,7 +281,7 @@ def test_recipe_sections_and_subset_size(base):
     assert recipe["function"] == {"id": "map_from_bk_depth", "response": "map_mm",
                                   "predictors": ["bk_depth_cm"]}
     assert recipe["candidates"]["directions"] == ["inverse", "forward"]
-    assert recipe["validation"] == {"scheme": "group-kfold", "folds": 5, "repeats": 10,
+    assert recipe["validation"] == {"scheme": "group-kfold", "folds": 5, "repeats": 5,
                                     "groups": "source", "seed": 20261201}
     assert recipe["candidates"]["forms"] == ["linear", "quadratic"]
     assert recipe["candidates"]["estimators"] == ["ols", "huber", "mixed"]

@@ -25,6 +25,11 @@ TABLE_COLUMNS = [
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
 ]
 MAX_PANELS = 12
+#: the table file written beside the figure pages
+FILE = "comparison.csv"
+#: PNG text key holding the SHA-256 of the ``comparison.csv`` bytes a page was drawn from,
+#: so a report can embed the page knowing it shows that very table
+TABLE_HASH_KEY = "refit-comparison-sha256"
 #: text sizes of the figure [points]: read at about 70 % scale when the 11-inch figure is
 #: shown in a report column, so nothing smaller than 8.5
 FONT = {"note": 8.5, "fit": 8.5, "axis": 9.0, "title": 10.0, "legend": 9.0}
@@ -89,9 +94,43 @@ def coverage_text(coverage, scheme, level, interval) -> str:
     return f"CV coverage {float(coverage):.0%}{nominal}" + (f" ({scheme})" if scheme else "")
 
 
-def figure_pngs(table: pd.DataFrame, *, title: str = "") -> list[bytes]:
+def write_comparison(table: pd.DataFrame, folder) -> list:
+    """Write ``comparison.csv`` and every page of the figure into ``folder`` (atomically,
+    pages of an earlier, longer comparison removed). Each page carries the table's
+    SHA-256 under :data:`TABLE_HASH_KEY`. Returns the page paths.
+
+    Raises
+    ------
+    UsageError
+        No paleosol has an estimate (nothing is written).
+    """
+    from pathlib import Path
+
+    from refit._util.atomic import sha256_bytes, write_bytes_atomic, write_text_atomic
+
+    folder = Path(folder)
+    text = table.to_csv(index=False)
+    pngs = figure_pngs(table, table_sha256=sha256_bytes(text.encode("utf-8")))
+    folder.mkdir(parents=True, exist_ok=True)
+    for old in folder.glob("comparison-*.png"):
+        old.unlink()
+    write_text_atomic(folder / FILE, text)
+    pages = [folder / name for name in page_names(len(pngs))]
+    for target, png in zip(pages, pngs):
+        write_bytes_atomic(target, png)
+    return pages
+
+
+def page_count(table: pd.DataFrame) -> int:
+    """How many figure pages :func:`figure_pngs` draws for ``table``."""
+    return -(-len(panel_groups(table)) // MAX_PANELS)
+
+
+def figure_pngs(table: pd.DataFrame, *, title: str = "",
+                table_sha256: str | None = None) -> list[bytes]:
     """Every panel of the interval figure: one PNG per page of at most
-    :data:`MAX_PANELS` panels, so no paleosol is left out.
+    :data:`MAX_PANELS` panels, so no paleosol is left out. ``table_sha256`` (of the
+    table's CSV bytes) is stored in each PNG under :data:`TABLE_HASH_KEY`.
 
     Raises
     ------
@@ -103,7 +142,8 @@ def figure_pngs(table: pd.DataFrame, *, title: str = "") -> list[bytes]:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     pages = [panels[i:i + MAX_PANELS] for i in range(0, len(panels), MAX_PANELS)]
     return [figure_png(table, title=title + (f" (page {k + 1} of {len(pages)})"
-                                             if len(pages) > 1 else ""), panels=page)
+                                             if len(pages) > 1 else ""), panels=page,
+                       table_sha256=table_sha256)
             for k, page in enumerate(pages)]
 
 
@@ -112,7 +152,8 @@ def page_names(n: int) -> list[str]:
     return ["comparison.png"] + [f"comparison-{k}.png" for k in range(2, n + 1)]
 
 
-def figure_png(table: pd.DataFrame, *, title: str = "", panels=None) -> bytes:
+def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
+               table_sha256: str | None = None) -> bytes:
     """The interval figure as PNG bytes (matplotlib, Agg backend).
 
     One panel per paleosol (``panels`` from :func:`panel_groups`; default the first
@@ -141,7 +182,8 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None) -> bytes:
     fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / sum(heights),
                         bottom=0.55 / sum(heights), hspace=0.5)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=130)
+    meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
+    fig.savefig(buf, format="png", dpi=130, metadata=meta)
     plt.close(fig)
     return buf.getvalue()
 

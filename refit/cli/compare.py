@@ -51,8 +51,7 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     """
     from pathlib import Path
 
-    from refit._util.atomic import write_bytes_atomic, write_text_atomic
-    from refit.apply.compare import compare_files, figure_pngs, page_names, panel_groups
+    from refit.apply.compare import compare_files, panel_groups, write_comparison
     from refit.errors import UsageError
 
     folder = Path(out)
@@ -62,14 +61,7 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     table, result = compare_files(list(coefficients), fossils=fossils, at=at,
                                   paleosols=paleosols, level=level, decompact=decompact,
                                   constants_file=constants_file, seed=seed)
-    pngs = figure_pngs(table)
-    folder.mkdir(parents=True, exist_ok=True)
-    for old in folder.glob("comparison-*.png"):  # pages of an earlier, longer comparison
-        old.unlink()
-    write_text_atomic(csv, table.to_csv(index=False))
-    figures = [folder / name for name in page_names(len(pngs))]
-    for target, png in zip(figures, pngs):
-        write_bytes_atomic(target, png)
+    figures = write_comparison(table, folder)
     if fmt == "csv":
         emit_csv(table)
         ctx.exit(0 if result.ok else 1)

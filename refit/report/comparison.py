@@ -1,9 +1,11 @@
 """The fossil-estimate comparison of a report: `refit compare`'s table, read back.
 
 ``refit compare`` (and ``refit demo``) write ``comparison.csv`` and ``comparison.png`` in
-one folder. A report given that folder redraws the figure from the table with
-:func:`refit.apply.compare.figure_pngs` (so figure and table always agree) and lists the table;
-both are embedded, so the report stays one self-contained file.
+one folder, each figure page carrying the SHA-256 of the table it was drawn from. A report
+given that folder embeds those pages when every one of them names the table's hash as it is
+now, and otherwise redraws the figure from the table with
+:func:`refit.apply.compare.figure_pngs`, so figure and table always agree; both are embedded,
+so the report stays one self-contained file.
 """
 
 from __future__ import annotations
@@ -64,7 +66,36 @@ def read_comparison(path):
     return table
 
 
-def figure(table) -> dict | None:
+def drawn_pages(folder, table) -> list[bytes] | None:
+    """The figure pages `refit compare` wrote in ``folder`` from the very table there now
+    (every page's stored SHA-256 equals the table file's), or None: then redraw."""
+    from io import BytesIO
+
+    from PIL import Image
+
+    from refit._util.atomic import sha256_file
+    from refit.apply.compare import TABLE_HASH_KEY, page_count, page_names
+
+    folder = Path(folder)
+    n = page_count(table)
+    if n == 0 or not (folder / FILE).is_file():
+        return None
+    digest = sha256_file(folder / FILE)
+    pages = []
+    for name in page_names(n):
+        try:
+            png = (folder / name).read_bytes()
+            with Image.open(BytesIO(png)) as im:
+                stored = getattr(im, "text", {}).get(TABLE_HASH_KEY)
+        except (OSError, ValueError):
+            return None
+        if stored != digest:
+            return None
+        pages.append(png)
+    return pages
+
+
+def figure(table, folder=None) -> dict | None:
     """The interval figure as embeddable PNGs: ``pages`` (each ``uri`` and ``width``
     [px]; a page holds at most :data:`refit.apply.compare.MAX_PANELS` panels, so every
     paleosol is drawn), the first page's ``uri`` and ``width``, and ``panels`` drawn of
@@ -77,8 +108,9 @@ def figure(table) -> dict | None:
     from refit.errors import UsageError
 
     panels = len(panel_groups(table))
+    pngs = drawn_pages(folder, table) if folder is not None else None
     try:
-        pngs = figure_pngs(table)
+        pngs = pngs or figure_pngs(table)
     except UsageError:
         return None
     pages = []
@@ -148,7 +180,7 @@ def section(path, function_id: str) -> dict:
     from refit.report.context import shown_path
 
     table = read_comparison(path)
-    fig = figure(table)
+    fig = figure(table, comparison_file(path).parent)
     source = shown_path(comparison_file(path))
     return {"figure": fig, "caption": caption(table, fig, source, function_id),
             "header": ["paleosol", "fit", "estimate", "interval", "unit", "level",

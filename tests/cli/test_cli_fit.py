@@ -139,10 +139,10 @@ def demo(tmp_path, demo_store):
 
 
 def test_demo_recipe_on_the_store(demo):
-    # The demo recipe as shipped (grouped 5-fold by source), with 2 repeats instead of 10 to
+    # The demo recipe as shipped (grouped 5-fold by source), with 2 repeats instead of 5 to
     # keep the test short.
     recipe = demo / "recipe.toml"
-    recipe.write_text(recipe.read_text().replace("repeats = 10", "repeats = 2"))
+    recipe.write_text(recipe.read_text().replace("repeats = 5", "repeats = 2"))
     r = invoke(recipe, "--out", demo / "run", "-q")
     assert r.exit_code == 0, r.output
     manifest = json.loads((demo / "store" / "manifest.json").read_text())
@@ -244,7 +244,7 @@ def test_store_given_on_the_command_line_may_lie_outside_the_recipe_folder(demo,
     recipes.mkdir()
     text = (demo / "recipe.toml").read_text().replace('store = "store"',
                                                       'store = "../store"')
-    text = text.replace("repeats = 10", "repeats = 1")
+    text = text.replace("repeats = 5", "repeats = 1")
     (recipes / "r.toml").write_text(text)
     refused = invoke(recipes / "r.toml", "--out", tmp_path / "run0", "-q")
     assert refused.exit_code == 2 and "outside" in refused.output
@@ -259,7 +259,7 @@ def test_candidate_files_carry_no_machine_path(demo):
     # coefficient files are published and shared: the data are named by name, version
     # and hash, never by this machine's folder
     recipe = demo / "recipe.toml"
-    recipe.write_text(recipe.read_text().replace("repeats = 10", "repeats = 1"))
+    recipe.write_text(recipe.read_text().replace("repeats = 5", "repeats = 1"))
     r = invoke(recipe, "--out", demo / "run", "-q")
     assert r.exit_code == 0, r.output
     for f in (demo / "run" / "fits").glob("*.json"):

@@ -238,6 +238,45 @@ def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
     assert 'href="#comparison"' in out.read_text("utf-8")
 
 
+def test_report_embeds_compares_own_pages_only_while_they_show_the_table(run_dir, compared,
+                                                                         tmp_path):
+    # `refit compare` stores the table's SHA-256 in each page (a PNG tEXt chunk, ISO/IEC
+    # 15948); the report embeds those very bytes while the hash matches the table (no
+    # second drawing), and redraws from the table once the table is edited
+    import hashlib
+    import shutil
+
+    from refit.apply.compare import TABLE_HASH_KEY
+
+    digest = hashlib.sha256((compared / "comparison.csv").read_bytes()).hexdigest()
+    from PIL import Image
+
+    for png in sorted(compared.glob("comparison*.png")):
+        with Image.open(png) as im:
+            assert im.text[TABLE_HASH_KEY] == digest
+
+    def embedded(folder, name):
+        out = tmp_path / name
+        res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet",
+                                          "--compare", str(folder)])
+        assert res.exit_code == 0, res.output
+        return [base64.b64decode(a["src"].split(",", 1)[1])
+                for a in comparison_image(parse(out))]
+
+    on_disk = [(compared / n).read_bytes() for n in ("comparison.png", "comparison-2.png")]
+    assert embedded(compared, "same.html") == on_disk
+    edited = tmp_path / "edited"
+    shutil.copytree(compared, edited)
+    table = pd.read_csv(edited / "comparison.csv")
+    row = table["estimate"].first_valid_index()
+    table.loc[row, "estimate"] = table.loc[row, "estimate"] + 1.0
+    table.to_csv(edited / "comparison.csv", index=False)
+    redrawn = embedded(edited, "edited.html")
+    assert len(redrawn) == len(on_disk) and redrawn[0] != on_disk[0]
+    with Image.open(io.BytesIO(redrawn[0])) as im:
+        assert TABLE_HASH_KEY not in im.text      # drawn here, from the edited table
+
+
 def test_report_without_comparison_has_no_comparison_section(written):
     page = parse(written)
     assert comparison_image(page) == []
