@@ -378,12 +378,36 @@ def read_file(path) -> tuple[dict, bytes]:
     return parse_bytes(raw, str(path)), raw
 
 
+#: the first schema version refit wrote in one spelling (keys sorted, :func:`dumps`);
+#: files of earlier versions were written with keys in the order they were built
+ONE_SPELLING_FROM = (1, 2, 0)
+
+
+def legacy_spelling(content: dict) -> bool:
+    """Whether ``content`` is of a schema version before :data:`ONE_SPELLING_FROM`,
+    whose files refit wrote with keys in the order they were built (:func:`legacy_dumps`)."""
+    try:
+        sv = tuple(int(p) for p in str(content.get("schema_version")).split("."))
+    except ValueError:
+        return False
+    return sv < ONE_SPELLING_FROM
+
+
+def legacy_dumps(content: dict) -> str:
+    """How refit wrote files before :data:`ONE_SPELLING_FROM`: as :func:`dumps`, with keys
+    in the order they stand (the parsed file's own order)."""
+    return json.dumps(plain(content), indent=1, ensure_ascii=False, allow_nan=False) + "\n"
+
+
 def check_bytes(raw: bytes, content: dict, where) -> None:
     """Refuse bytes that are not exactly :func:`dumps` of their own content.
 
     The content hash covers the numbers and texts; this covers the rest: whitespace, key
     order, ``\\u`` escapes, line ends. refit writes only :func:`dumps` output, so any
-    other spelling of the same content was edited after refit wrote it.
+    other spelling of the same content was edited after refit wrote it. A file of a schema
+    version before :data:`ONE_SPELLING_FROM` may also be spelled as refit wrote it then
+    (:func:`legacy_dumps`): whitespace, line ends and escapes are still checked, the key
+    order of such files cannot be.
 
     Raises
     ------
@@ -391,7 +415,8 @@ def check_bytes(raw: bytes, content: dict, where) -> None:
         Naming the first differing byte and its line.
     """
     want = dumps(content).encode("utf-8")
-    if raw == want:
+    if raw == want or (legacy_spelling(content)
+                       and raw == legacy_dumps(content).encode("utf-8")):
         return
     at = next((i for i, (a, b) in enumerate(zip(raw, want)) if a != b),
               min(len(raw), len(want)))

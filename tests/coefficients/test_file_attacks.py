@@ -160,3 +160,59 @@ def test_every_attack_file_is_refused_by_every_reader_path(tmp_path):
             reader(target)
     with pytest.raises(RefitError, match="finite"):
         verify_bytes(changed, "inf.json")
+
+
+# ------------------------------------------------- files written before one spelling
+LEGACY = Path(__file__).parents[1] / "data" / "legacy" / "map_from_bk_depth.schema-1.0.0.json"
+# ^ the literature file as refit shipped it under schema 1.0.0, keys in the order they were
+#   built (git history of refit/published/, before keys were sorted)
+
+
+def test_a_file_written_before_keys_were_sorted_still_loads_with_the_same_numbers():
+    raw = LEGACY.read_bytes()
+    assert raw != dumps(json.loads(raw)).encode()      # not today's spelling
+    old = coefficients.load(LEGACY)
+    new = coefficients.load(PUBLISHED / "map_from_bk_depth.retallack1994.json")
+    assert old.record["schema_version"] == "1.0.0"
+    # the shipped file is the same content re-issued under schema 1.2.0
+    strip = ("schema_version", "sha256")
+    assert {k: v for k, v in old.record.items() if k not in strip} == \
+        {k: v for k, v in new.record.items() if k not in strip}
+    x = np.array([20.0, 55.0, 90.0])
+    a, b = old.predict({"bk_depth_cm": x}), new.predict({"bk_depth_cm": x})
+    np.testing.assert_array_equal(a.estimate, b.estimate)
+    np.testing.assert_array_equal(a.lower, b.lower)
+    # and the file's content hash is SHA-256 (FIPS 180-4) of its canonical content
+    body = {k: v for k, v in json.loads(raw).items() if k != "sha256"}
+    canon = json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    assert hashlib.sha256(canon.encode()).hexdigest() == old.record["sha256"]
+
+
+@pytest.mark.parametrize("edit", ["trailing space", "CRLF line ends", "indent 2",
+                                  "\\u escape in a value"])
+def test_a_legacy_file_respelled_by_hand_is_still_refused(edit, tmp_path):
+    changed = _respelled(LEGACY.read_bytes())[edit]
+    target = tmp_path / "old.json"
+    target.write_bytes(changed)
+    with pytest.raises(InvalidDataError, match="bytes check failed"):
+        coefficients.load(target)
+
+
+def test_a_current_file_in_the_legacy_spelling_is_refused(tmp_path):
+    # schema 1.2.0 and later were only ever written with sorted keys
+    content = json.loads(SMALL.read_bytes())
+    assert content["schema_version"] >= "1.2.0"
+    reordered = {k: content[k] for k in reversed(list(content))}
+    target = tmp_path / "reordered.json"
+    target.write_text(json.dumps(reordered, indent=1, ensure_ascii=False) + "\n", "utf-8")
+    with pytest.raises(InvalidDataError, match="bytes check failed"):
+        coefficients.load(target)
+
+
+def test_verify_says_how_a_legacy_file_was_checked():
+    from refit.publish.verify import verify_file
+
+    report = verify_file(LEGACY)
+    checks = {c.name: c for c in report.checks}
+    assert checks["bytes"].ok and "schema 1.0.0" in checks["bytes"].message
+    assert "order is not checked" in checks["bytes"].message
