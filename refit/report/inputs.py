@@ -41,15 +41,50 @@ class ReportInputs:
     fit: object          # refit.models.fitting.Fit refitted on the subset
 
 
-def _read_json(path: Path) -> dict:
+def _read_json(path: Path, part: str) -> dict:
+    """``run.json`` or ``leaderboard.json`` (``part``: ``run``, ``leaderboard``), read and
+    checked against its part of ``schemas/run.folder.schema.json``."""
     try:
-        return json.loads(path.read_text("utf-8"))
+        content = json.loads(path.read_text("utf-8"))
     except FileNotFoundError:
         raise UnreadableInputError(f"{path} not found: is this a run folder written by "
                                    "`refit fit --out RUN`?") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+    except (OSError, UnicodeDecodeError, ValueError, RecursionError) as exc:
         raise UnreadableInputError(f"{path} cannot be read as JSON ({exc}); rerun "
                                    "`refit fit` to rewrite the run folder") from None
+    problems = run_folder_problems(content, part)
+    if problems:
+        more = f" (and {len(problems) - 1} more)" if len(problems) > 1 else ""
+        raise InvalidDataError(f"{path} is not a run file refit wrote: {problems[0]}{more}; "
+                               "rerun `refit fit --out RUN` to rewrite the run folder")
+    return content
+
+
+def run_folder_problems(content, part: str) -> list[str]:
+    """Where ``content`` breaks the ``part`` (``run`` or ``leaderboard``) of
+    ``schemas/run.folder.schema.json``: ``$.path: message`` per problem, first by path."""
+    import jsonschema
+
+    from refit._util.resources import schemas_dir
+
+    schema = json.loads((schemas_dir() / "run.folder.schema.json").read_text("utf-8"))
+    validator = jsonschema.Draft202012Validator({"$ref": f"#/$defs/{part}",
+                                                 "$defs": schema["$defs"]})
+    errors = sorted(validator.iter_errors(content), key=lambda e: list(e.absolute_path))
+    return ["$" + "".join(f"[{p}]" if isinstance(p, int) else f".{p}"
+                          for p in e.absolute_path) + f": {e.message}" for e in errors]
+
+
+def _fit_record(path: Path) -> dict:
+    """The chosen candidate's coefficient file, through the one coefficient-file reader
+    (hash, schema and bytes checked)."""
+    from refit.coefficients.format import read_record
+
+    try:
+        return read_record(path)
+    except UnreadableInputError:
+        raise UnreadableInputError(f"{path} not found: the run folder is incomplete; rerun "
+                                   "`refit fit` to rewrite it") from None
 
 
 def _read_csv(path: Path):
@@ -122,11 +157,11 @@ def load_run(run_dir, *, candidate: str | None = None, store=None) -> ReportInpu
     if not run_dir.is_dir():
         raise UnreadableInputError(f"run folder {run_dir} not found; name a folder written "
                                    "by `refit fit --out RUN`")
-    run = _read_json(run_dir / "run.json")
-    board_json = _read_json(run_dir / "leaderboard.json")
+    run = _read_json(run_dir / "run.json", "run")
+    board_json = _read_json(run_dir / "leaderboard.json", "leaderboard")
     board = _read_csv(run_dir / "leaderboard.csv")
     label = _chosen(board, board_json, candidate)
-    record = _read_json(run_dir / "fits" / fit_filename(label))
+    record = _fit_record(run_dir / "fits" / fit_filename(label))
     oof = _read_csv(run_dir / "oof_predictions.csv")
     oof = oof[oof["candidate"] == label].reset_index(drop=True)
     data, fit = _refit(record, store, _recorded_dataset(run, record))

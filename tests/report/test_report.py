@@ -297,3 +297,55 @@ def test_comparison_folder_without_its_table_is_refused(run_dir, tmp_path):
     res = CliRunner().invoke(report, [str(run_dir), "--out", str(tmp_path / "d.html"),
                                       "--compare", str(bad)])
     assert res.exit_code == 1 and "lacks the column" in res.output
+
+
+# ------------------------------------------------------- run files of the wrong shape
+def test_what_refit_fit_writes_meets_the_run_folder_schema(run_dir):
+    # the writer's own output against schemas/run.folder.schema.json, checked by the
+    # jsonschema package's Draft 2020-12 validator (the reference implementation here)
+    import jsonschema
+
+    from refit._util.resources import schemas_dir
+
+    schema = json.loads((schemas_dir() / "run.folder.schema.json").read_text("utf-8"))
+    jsonschema.Draft202012Validator.check_schema(schema)
+    for part, name in (("run", "run.json"), ("leaderboard", "leaderboard.json")):
+        content = json.loads((run_dir / name).read_text("utf-8"))
+        v = jsonschema.Draft202012Validator({"$ref": f"#/$defs/{part}",
+                                             "$defs": schema["$defs"]})
+        assert list(v.iter_errors(content)) == [], name
+
+
+@pytest.mark.parametrize("name, text, says", [
+    ("run.json", "[1, 2]", "$: [1, 2] is not of type 'object'"),
+    ("run.json", '{"dataset": 3}', "'created' is a required property"),
+    ("run.json", "EDIT-dataset", "$.dataset: 3 is not of type 'object'"),
+    ("run.json", "EDIT-seed", "$.seed: 'x' is not of type 'integer'"),
+    ("leaderboard.json", "EDIT-rows", "$.rows: 'x' is not of type 'array'"),
+    ("leaderboard.json", "{}", "'function_id' is a required property"),
+])
+def test_a_run_file_of_the_wrong_shape_is_refused_with_where(run_dir, tmp_path, name, text,
+                                                            says):
+    bad = tmp_path / "run"
+    shutil.copytree(run_dir, bad)
+    if text.startswith("EDIT-"):
+        key = text[5:]
+        content = json.loads((bad / name).read_text("utf-8"))
+        content[key] = 3 if key == "dataset" else "x"
+        text = json.dumps(content)
+    (bad / name).write_text(text, "utf-8")
+    res = CliRunner().invoke(report, [str(bad), "--out", str(tmp_path / "r.html")])
+    assert res.exit_code == 1, res.output
+    assert f"{bad / name} is not a run file refit wrote: " in res.output
+    assert says in res.output and "rerun `refit fit --out RUN`" in res.output
+    assert "refit bug" not in res.output and not (tmp_path / "r.html").exists()
+
+
+def test_an_edited_candidate_file_in_a_run_is_refused_by_the_one_reader(run_dir, tmp_path):
+    bad = tmp_path / "run"
+    shutil.copytree(run_dir, bad)
+    board = pd.read_csv(bad / "leaderboard.csv")
+    target = bad / "fits" / f"{board.candidate[0].replace('+', '-plus')}.json"
+    target.write_text(target.read_text("utf-8").replace('"n": ', '"n":  ', 1), "utf-8")
+    res = CliRunner().invoke(report, [str(bad), "--out", str(tmp_path / "r.html")])
+    assert res.exit_code == 1 and "bytes check failed" in res.output, res.output
