@@ -32,9 +32,11 @@ SEED = 20261209
 
 
 def kill_moments(duration: float, n: int, seed: int) -> list[float]:
-    """``n`` seeded delays [s]: 0 (nothing started), one past the end, the rest random."""
+    """``n`` seeded delays [s]: 0 (nothing started), one past the end (a generous one: a
+    loaded machine can slow one run several times; the run is waited for, not slept
+    through), the rest random."""
     rng = random.Random(seed)
-    out = [0.0, duration * 3]
+    out = [0.0, max(duration * 3, 60.0)]
     for i in range(max(0, n - 2)):
         lo, hi = (0.85, 1.05) if i % 2 == 0 else (0.0, 1.1)
         out.append(rng.uniform(lo * duration, hi * duration))

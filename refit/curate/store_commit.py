@@ -18,8 +18,9 @@ from pathlib import Path
 from refit._util.atomic import TMP_PREFIX, fsync_dir, write_bytes_atomic
 from refit.errors import StoreBusyError, UnreadableInputError
 
-#: A staging folder for a new store older than this is a crashed process's leftover [s].
-STALE_CREATION_S = 600.0
+#: A staging folder for a new store younger than this is left alone even when nobody holds
+#: its lock: its process may be between making the folder and locking it [s].
+STAGING_GRACE_S = 30.0
 
 
 class StoreNotWritableError(UnreadableInputError):
@@ -146,14 +147,15 @@ def create_store(store_dir: Path, timeout: float, admit_into):
             f"store {store_dir} cannot be created ({exc.strerror or exc}); choose a "
             "writable place for it") from None
     try:
+        # renamed with its lock still held, so a sweep never sees a finished, unlocked stage
         with _locked(stage, timeout):
             result = admit_into(stage)
-        try:
-            os.rename(stage, store_dir)
-        except OSError as exc:
-            if exc.errno in (errno.EEXIST, errno.ENOTEMPTY, errno.EISDIR, errno.ENOTDIR):
-                return None
-            raise
+            try:
+                os.rename(stage, store_dir)
+            except OSError as exc:
+                if exc.errno in (errno.EEXIST, errno.ENOTEMPTY, errno.EISDIR, errno.ENOTDIR):
+                    return None
+                raise
         fsync_dir(parent)
         result.store = str(store_dir)
         return result
@@ -163,12 +165,26 @@ def create_store(store_dir: Path, timeout: float, admit_into):
 
 
 def _sweep_stale_creations(store_dir: Path) -> None:
-    """Remove staging folders of new stores left by processes killed long ago."""
+    """Remove staging folders of new stores whose process is gone: nobody holds the
+    folder's lock (the operating system releases a killed process's ``flock``) and it is
+    older than :data:`STAGING_GRACE_S`. A live admit holds its stage's lock from just
+    after making it until after renaming it into place."""
     import time
+
+    from filelock import FileLock, Timeout
 
     for stage in store_dir.parent.glob(f".{store_dir.name}.creating-*"):
         try:
-            if time.time() - stage.stat().st_mtime > STALE_CREATION_S:
+            if time.time() - stage.stat().st_mtime <= STAGING_GRACE_S:
+                continue
+            lock = FileLock(str(stage / ".lock"), timeout=0)
+            try:
+                lock.acquire()
+            except Timeout:
+                continue                    # its admit is still running
+            try:
                 shutil.rmtree(stage, ignore_errors=True)
+            finally:
+                lock.release()
         except OSError:
             pass

@@ -16,7 +16,7 @@ import shutil
 import pandas as pd
 import pytest
 
-from _harness import n_runs, start
+from _harness import n_runs, run, start
 from refit._util.resources import demo_dir
 from refit.curate.store import open_store
 
@@ -117,3 +117,65 @@ def test_simultaneous_first_admits_into_a_new_folder(tmp_path, round_):
     assert all(r["store"] == str(store) for r in landed)
     # no staging folder is left beside the store
     assert sorted(p.name for p in store.parent.iterdir()) == ["store"]
+
+
+HOLDER = """
+import sys, time
+from filelock import FileLock
+lock = FileLock(sys.argv[1], timeout=5)
+lock.acquire()
+print("locked", flush=True)
+time.sleep(600)
+"""
+
+
+def _aged_stage(parent, name, tmp_path):
+    """A staging folder as a first admit leaves it, its lock held by a real process
+    (flock, released by the operating system when the process dies), made older than
+    the grace period."""
+    import os
+    import subprocess
+    import sys
+    import time
+
+    from refit.curate.store_commit import STAGING_GRACE_S
+
+    stage = parent / f".store.creating-{name}"
+    stage.mkdir(parents=True)
+    (stage / "records.csv").write_text("half,written\n", encoding="utf-8")
+    proc = subprocess.Popen([sys.executable, "-c", HOLDER, str(stage / ".lock")],
+                            stdout=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "locked"
+    old = time.time() - STAGING_GRACE_S - 5
+    os.utime(stage, (old, old))
+    return stage, proc
+
+
+def test_a_killed_first_admits_staging_folder_is_swept_at_once_a_live_ones_kept(tmp_path):
+    # before: a killed first admit's staging folder stayed for 10 minutes; now a sweep
+    # removes it as soon as nobody holds its lock, and never one whose admit still runs
+    import signal
+
+    from refit.curate.store_commit import _sweep_stale_creations
+
+    parent = tmp_path / "new"
+    dead, p_dead = _aged_stage(parent, "dead00000000", tmp_path)
+    live, p_live = _aged_stage(parent, "live00000000", tmp_path)
+    try:
+        p_dead.send_signal(signal.SIGKILL)
+        p_dead.wait(timeout=30)
+        _sweep_stale_creations(parent / "store")
+        assert not dead.exists()
+        assert live.is_dir() and (live / "records.csv").is_file()
+    finally:
+        p_live.kill()
+        p_live.wait(timeout=30)
+    # a first admit sweeps it too once its process is gone, and lands
+    dead2, p_dead2 = _aged_stage(parent, "dead11111111", tmp_path)
+    p_dead2.kill()
+    p_dead2.wait(timeout=30)
+    a, _b, n_a, _n_b = halves(tmp_path)
+    code, out, err = run("admit", a, "--into", parent / "store", "--format", "json")
+    assert code == 0, err
+    assert json.loads(out)["accepted"] > 0
+    assert sorted(p.name for p in parent.iterdir()) == ["store"]
