@@ -46,8 +46,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from refit._util.atomic import sha256_bytes
-from refit.coefficients.format import (VARIANT_SCHEMA, check_schema, content_sha256, dumps,
-                                       read_record, variant_name)
+from refit.coefficients.format import (DEFAULT_VARIANT, VARIANT_SCHEMA, check_schema,
+                                       content_sha256, dumps, read_record, variant_name)
 from refit.errors import InvalidDataError, UsageError
 from refit.publish.registry_commit import LOCK_TIMEOUT_S, PENDING  # noqa: F401
 from refit.publish.registry_commit import RegistryLock, commit, open_registry
@@ -121,6 +121,9 @@ def changed_fields(old: dict, new: dict) -> list[str]:
 def _short(key: str) -> str:
     """A changed field as people name it: ``cv.rmsep`` -> ``cv``, but
     ``provenance.dataset.version`` and ``predictors.unit`` stay whole."""
+    major = [f for f in MAJOR_FIELDS if key == f or key.startswith(f + ".")]
+    if major:                       # interval.method, not interval (whose level is minor)
+        return max(major, key=len)
     parts = key.split(".")
     keep = 3 if parts[0] == "provenance" else 2 if parts[0] in ("predictors", "equation") else 1
     return ".".join(parts[:keep])
@@ -206,6 +209,64 @@ def model_summary(content: dict) -> str:
     return "/".join(str(p) for p in parts if p) + (f" on {', '.join(names)}" if names else "")
 
 
+# ----------------------------------------------------------------------------- resolve
+def resolve(registry, function_id: str, version: str | None = None,
+            variant: str | None = None) -> Path:
+    """The file of one version of one variant of a function in a registry.
+
+    Parameters
+    ----------
+    registry : str or Path
+        The registry folder (an interrupted publish is finished or undone first).
+    function_id : str
+    version : str, optional
+        ``MAJOR.MINOR.PATCH``; default the variant's latest version.
+    variant : str, optional
+        A variant name; ``None`` or ``"default"``: the function's default variant.
+
+    Raises
+    ------
+    UsageError
+        ``variant`` or ``version`` is not spelled as one.
+    UnreadableInputError
+        The registry, the function, the variant or the version is not there (the
+        message lists what there is).
+    """
+    from refit.errors import UnreadableInputError
+
+    variant = variant_name(variant)
+    if version is not None:
+        try:
+            parse_version(version, where="version")
+        except InvalidDataError as exc:
+            raise UsageError(str(exc)) from None
+    reg = open_registry(registry)
+    chains = reg.chains()
+    chain = chain_name(function_id, variant)
+    if not any(fid == function_id for fid, _ in chains):
+        held = ", ".join(dict.fromkeys(fid for fid, _ in chains)) or "nothing yet"
+        raise UnreadableInputError(f"registry {reg.path} has no function {function_id!r}; "
+                                   f"it holds: {held}")
+    entries = reg.versions(function_id, variant)
+    if not entries:
+        there = [v or DEFAULT_VARIANT for f, v in chains if f == function_id]
+        raise UnreadableInputError(f"registry {reg.path} has no variant "
+                                   f"{variant or DEFAULT_VARIANT!r} of {function_id}; its "
+                                   f"variants: {', '.join(there)} (name one with --variant)")
+    if version is None:
+        version = reg.latest(function_id, variant)["version"]
+    elif not any(e["version"] == version for e in entries):
+        have = ", ".join(sorted((e["version"] for e in entries), key=parse_version))
+        elsewhere = [v or DEFAULT_VARIANT for f, v in chains if f == function_id
+                     and v != variant
+                     and any(e["version"] == version for e in reg.versions(f, v))]
+        raise UnreadableInputError(
+            f"registry {reg.path} has no version {version} of {chain}; its versions: {have}"
+            + (f"; {version} is a version of variant {', '.join(elsewhere)}: name it "
+               "with --variant" if elsewhere else ""))
+    return reg.file(function_id, version, variant)
+
+
 # ----------------------------------------------------------------------------- publish
 @dataclass
 class PublishResult:
@@ -223,7 +284,7 @@ class PublishResult:
     recovered: list = field(default_factory=list)
     variant: str | None = None    # None: the function's default variant
     model_changes: list = field(default_factory=list)   # (item, before, after)
-    others: list = field(default_factory=list)          # the function's other variants
+    others: list = field(default_factory=list)   # names of the function's other variants
 
     @property
     def chain(self) -> str:
@@ -377,7 +438,7 @@ def _plan(reg: Registry, candidate: dict, variant: str | None, bump, *, dry_run:
                                "new version")
     content = published_content(candidate, version, variant)
     check_schema(content, str(target))
-    others = [chain_name(fid, v) for v in [None, *reg.variants(fid)]
+    others = [v or DEFAULT_VARIANT for v in [None, *reg.variants(fid)]
               if v != variant and reg.versions(fid, v)]
     result = PublishResult(fid, version, None if latest is None else latest["version"],
                            required, bump or required, changes, target, content["sha256"],
