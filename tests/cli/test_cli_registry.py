@@ -109,8 +109,8 @@ def test_variants_publish_diff_verify(world, tmp_path):
     res = invoke(publish, fits / QUADRATIC, "--to", r, "--variant", "quadratic")
     assert res.exit_code == 0, res.output
     assert res.output.splitlines()[:3] == [
-        f"Published map_from_bk_depth/quadratic 1.0.0 -> "
-        f"{r / 'map_from_bk_depth' / 'quadratic' / '1.0.0.json'}",
+        ("Published map_from_bk_depth/quadratic 1.0.0 -> "
+         f"{r / 'map_from_bk_depth' / 'quadratic' / '1.0.0.json'}"),
         "  first version of variant quadratic of map_from_bk_depth",
         "  other variants of map_from_bk_depth: default"]
     res = invoke(publish, fits / QUADRATIC, "--to", r, "--variant", "Quadratic")

@@ -20,8 +20,8 @@ import shutil
 from pathlib import Path
 
 import pytest
-
 from _harness import make_fits, recipe_toml
+
 from refit._util.resources import demo_dir
 from refit.coefficients import read_record, variant_name, variant_of
 from refit.errors import InvalidDataError, UnreadableInputError, UsageError
@@ -80,7 +80,7 @@ def load(path: Path) -> dict:
 
 # ----------------------------------------------------------------------------- publishing
 def test_two_variants_each_with_its_own_version_chain(runs, two_variants):
-    _, first, second = runs
+    _, _, second = runs
     r, (ols1, mixed1, ols2, mixed2) = two_variants
     # the mixed fit is not a major bump against the OLS line: it starts its own chain
     assert [(p.chain, p.version, p.previous, p.bump) for p in (ols1, mixed1, ols2, mixed2)] \
@@ -325,8 +325,8 @@ def test_a_variant_publish_stopped_before_its_index_entry_is_completed(runs, tmp
     assert (r / FID / "mixed" / "1.0.0.json").is_file()
     assert "variants" not in load(r / "index.json")
     opened = reg.open_registry(r)
-    assert opened.recovered == ["recovered an interrupted publish of map_from_bk_depth/mixed "
-                                "1.0.0: its file had landed, so it was added to index.json"]
+    assert opened.recovered == [("recovered an interrupted publish of map_from_bk_depth/mixed "
+                                 "1.0.0: its file had landed, so it was added to index.json")]
     assert [e["version"] for e in opened.versions(FID, "mixed")] == ["1.0.0"]
     assert reg.registry_problems(r) == []
 
@@ -353,8 +353,8 @@ def test_a_signed_variant_publish_stopped_before_its_file_is_undone(runs, tmp_pa
             reg.publish(first / MIXED, r, variant="mixed", sign=key)
     assert (r / FID / "mixed" / "1.0.0.json.sig").is_file()
     opened = reg.open_registry(r)
-    assert opened.recovered == ["recovered an interrupted publish of map_from_bk_depth/mixed "
-                                "1.0.0: its file had not landed, so it was undone"]
+    assert opened.recovered == [("recovered an interrupted publish of map_from_bk_depth/mixed "
+                                 "1.0.0: its file had not landed, so it was undone")]
     assert not (r / FID / "mixed" / "1.0.0.json.sig").exists()
     assert (r / "index.json").read_bytes() == before
 
@@ -385,6 +385,7 @@ def test_a_registry_written_before_variants_reads_and_verifies(old):
 
 def test_an_old_file_still_reproduces_from_its_store(old, tmp_path):
     from _harness import copy_demo_store
+
     from refit.publish.verify import verify_file
 
     store = copy_demo_store(tmp_path / "store")
