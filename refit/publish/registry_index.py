@@ -20,6 +20,7 @@ def function_problems(reg, function_id: str, variant: str | None = None) -> list
     they agree); ``variant`` None is the default variant.
 
     ``reg`` is an open :class:`refit.publish.registry_layout.Registry`."""
+    variant = None if variant == DEFAULT_VARIANT else variant
     entries = reg.versions(function_id, variant)
     listed = {e.get("version"): e for e in entries}
     chain = chain_name(function_id, variant)

@@ -223,13 +223,12 @@ _ENTRY_TEXT = ("version", "file", "published", "sha256", "file_sha256", "bump", 
 
 
 def index_shape_problem(index: dict) -> str | None:
-    """What is wrong with the shape of an index (None when its format is
-    ``refit-registry/1`` or ``1.x`` and every entry is an object with a text ``version``,
-    as :func:`refit.publish.registry_commit.commit` writes them; named variants under
-    ``variants``, each entry's ``variant`` its chain's name)."""
-    fmt = index.get("format")
-    if fmt is not None and not (isinstance(fmt, str) and _INDEX_FORMAT.match(fmt)):
-        return f"'format' is {str(fmt)[:40]!r}, expected {INDEX_FORMAT!r}"
+    """What is wrong with the shape of an index (None when every entry is an object with a
+    text ``version``, as :func:`refit.publish.registry_commit.commit` writes them; named
+    variants under ``variants``, each entry's ``variant`` its chain's name).
+
+    ``format`` is not checked here: :func:`read_index` refuses a later major version
+    (``refit-registry/2``) and reads any other spelling as before variants existed."""
     for fid, entries in index["functions"].items():
         problem = _chain_shape_problem(f"functions.{fid}", entries, None)
         if problem:

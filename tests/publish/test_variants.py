@@ -438,7 +438,6 @@ def _valid_index(index: dict) -> None:
 
 
 @pytest.mark.parametrize("edit", [
-    lambda i: i.update(format="refit-registry/one"),
     lambda i: i.update(variants=[]),
     lambda i: i.update(variants={FID: {"default": []}}),
     lambda i: i.update(variants={FID: {"Mixed": []}}),
