@@ -175,8 +175,7 @@ def _replay_journal(path: Path, marker: Path) -> list[str]:
         return [f"{what}: it had completed"]
     if landed:
         os.chmod(target, 0o444)
-        if variant is not None:
-            reg.index["format"] = INDEX_FORMAT
+        reg.index["format"] = INDEX_FORMAT   # as commit() writes it
         reg.add_entry(fid, entry)
         write_index(reg)
         return [f"{what}: its file had landed, so it was added to {INDEX}"]
