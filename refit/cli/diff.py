@@ -10,8 +10,13 @@ WIDTH = 140  # columns of the tables when stdout is not a terminal
 
 
 @click.command("diff", short_help="Compare two coefficient files: numbers, skill, provenance.")
-@click.argument("file_a", type=click.Path(path_type=str))
-@click.argument("file_b", type=click.Path(path_type=str))
+@click.argument("items", nargs=-1, metavar="FILE_A FILE_B | FUNCTION_ID VERSION_A [VERSION_B]")
+@click.option("--registry", "registry", default=None, metavar="REGISTRY",
+              type=click.Path(path_type=str),
+              help="Name the files by function id and versions in this registry.")
+@click.option("--variant", "variants", multiple=True, metavar="NAME",
+              help="With --registry: the variant the versions belong to [default: the "
+                   "unnamed one]; given twice, A's then B's.")
 @click.option("--at", "at", type=float, multiple=True, metavar="VALUE",
               help="Predictor value to compare the estimates at (repeatable; one-predictor "
                    "files) [default: minimum, quartiles and maximum of the valid ranges].")
@@ -21,27 +26,39 @@ WIDTH = 140  # columns of the tables when stdout is not a terminal
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Table for people (text) or programs (json).")
 @guarded
-def diff(file_a: str, file_b: str, at: tuple[float, ...], level: float | None,
-         show_all: bool, fmt: str) -> None:
+def diff(items: tuple[str, ...], registry: str | None, variants: tuple[str, ...],
+         at: tuple[float, ...], level: float | None, show_all: bool, fmt: str) -> None:
     """Say what changed from FILE_A to FILE_B (coefficient files).
 
-    Coefficients and their standard errors, residual error, n and R², the valid domain,
-    the cross-validation skill, the provenance (dataset, version, subset, recipe), the
-    version bump the changes call for, and the estimate and interval of each file at
-    reference values of the predictor. Both files are hash-checked first.
+    First, whether the two compare like with like: the same model of one function and
+    variant (B a refit of A), or different functions, different variants (separate version
+    chains) or different models, with what differs (function id, variant, response,
+    predictors, form, estimator, direction, interval method, subset, data); the numbers are
+    compared either way. Then coefficients and their standard errors, residual error, n
+    and R², the valid domain, the cross-validation skill, the provenance (dataset, version,
+    subset, recipe), the version bump the changes call for (within one chain only), and
+    the estimate and interval of each file at reference values of the predictor. Both
+    files are hash-checked first.
+
+    With --registry, name a function id and two versions of one variant instead of files
+    (VERSION_B left out: the variant's latest version).
 
     \b
-    Exit codes: 0 compared, 1 a file fails its hash or schema, 2 unreadable file.
+    Exit codes: 0 compared, 1 a file fails its hash or schema, 2 unreadable file, a
+    function, variant or version not in the registry, or usage error.
 
     \b
     Examples:
       refit diff run/fits/linear__ols__inverse__analytic.json registry/map_from_bk_depth/1.0.0.json
       refit diff run/fits/linear__ols__inverse__analytic.json run/fits/linear__huber__inverse__analytic.json --at 50 --at 100 --format json
+      refit diff map_from_bk_depth 1.0.0 2.0.0 --registry registry
+      refit diff map_from_bk_depth 1.0.0 1.0.0 --registry registry --variant default --variant ols
     """
     import json
 
     from refit.publish.diff import diff_files
 
+    file_a, file_b = _files(items, registry, variants)
     result = diff_files(file_a, file_b, at=list(at) or None, level=level)
     if fmt == "json":
         from refit.coefficients import plain
@@ -49,6 +66,36 @@ def diff(file_a: str, file_b: str, at: tuple[float, ...], level: float | None,
         click.echo(json.dumps(plain(result), indent=2, ensure_ascii=False))
         return
     render(result, show_all)
+
+
+def _files(items: tuple[str, ...], registry: str | None, variants: tuple[str, ...]):
+    """The two files to compare: as named, or resolved in the registry."""
+    ctx = click.get_current_context()
+    if registry is None:
+        if variants:
+            raise click.UsageError("--variant names a variant in a registry: give "
+                                   "--registry REGISTRY too", ctx=ctx)
+        if len(items) < 2:
+            missing = "FILE_A" if not items else "FILE_B"
+            raise click.UsageError(f"Missing argument '{missing}'", ctx=ctx)
+        if len(items) > 2:
+            raise click.UsageError(f"two coefficient files are compared, got {len(items)} "
+                                   "arguments (to name versions, give --registry REGISTRY "
+                                   "FUNCTION_ID VERSION_A VERSION_B)", ctx=ctx)
+        return items
+    if len(items) not in (2, 3):
+        raise click.UsageError("with --registry, name FUNCTION_ID VERSION_A [VERSION_B]; "
+                               f"got {len(items)} argument(s)", ctx=ctx)
+    if len(variants) > 2:
+        raise click.UsageError("--variant is given once (both versions) or twice (A's, "
+                               f"then B's); got {len(variants)}", ctx=ctx)
+    from refit.publish.registry import resolve
+
+    fid, version_a, *rest = items
+    va = variants[0] if variants else None
+    vb = variants[-1] if variants else None
+    return (resolve(registry, fid, version_a, va),
+            resolve(registry, fid, rest[0] if rest else None, vb))
 
 
 def _fmt(v) -> str:
@@ -61,6 +108,13 @@ def _fmt(v) -> str:
     text = str(v)
     return text[:16] + "..." if len(text) == 64 and all(c in "0123456789abcdef" for c in text) \
         else text
+
+
+def _label(h: dict) -> str:
+    """``map_from_bk_depth/mixed 1.1.0`` (the default variant unnamed), or ``... candidate``."""
+    name = h["function_id"] if h.get("variant") in (None, "default") else \
+        f"{h['function_id']}/{h['variant']}"
+    return f"{name} {h['version']}"
 
 
 def _table(title: str, rows: list[dict], cols: list[tuple[str, str]], show_all: bool):
@@ -86,12 +140,18 @@ def render(result: dict, show_all: bool = False) -> None:
 
     out = Console(highlight=False, soft_wrap=True, markup=False,
                   width=None if sys.stdout.isatty() else WIDTH)
-    a, b = result["a"], result["b"]
-    out.print(f"A: {a['path']} ({a['function_id']} {a['version']})")
-    out.print(f"B: {b['path']} ({b['function_id']} {b['version']})")
+    a, b, like = result["a"], result["b"], result["comparison"]
+    out.print(like["statement"])
+    if like["differences"]:
+        out.print("They differ in: " + "; ".join(
+            f"{d['item']} ({_fmt(d['a'])} / {_fmt(d['b'])})" for d in like["differences"]))
+    out.print(f"A: {a['path']} ({_label(a)})")
+    out.print(f"B: {b['path']} ({_label(b)})")
     for note in result["notes"]:
         out.print(f"Note: {note}")
-    if result["bump"] is None:
+    if not like["same_chain"]:
+        out.print("The numbers below compare two models side by side, not two versions.")
+    elif result["bump"] is None:
         out.print("No change in content (dates, versions and hashes aside).")
     else:
         out.print(f"The changes call for a {result['bump']} version bump.")

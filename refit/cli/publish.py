@@ -13,6 +13,10 @@ from refit.cli.common import guarded
               type=click.Path(path_type=str), help="Registry folder.")
 @click.option("--bump", type=click.Choice(["major", "minor", "patch"]), default=None,
               help="Version bump [default: the smallest one the changes call for].")
+@click.option("--variant", default=None, metavar="NAME",
+              help="Publish into this variant of the function (its own version chain, in "
+                   "REGISTRY/<function_id>/NAME/), e.g. 'mixed' beside an OLS line "
+                   "[default: the candidate's own variant, else the unnamed default one].")
 @click.option("--init", "create", is_flag=True,
               help="Start a new registry if REGISTRY is missing or empty.")
 @click.option("--dry-run", is_flag=True, help="Say which version it would be; write nothing.")
@@ -23,16 +27,19 @@ from refit.cli.common import guarded
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Report for people (text) or programs (json).")
 @guarded
-def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_run: bool,
-            sign: str | None, fmt: str) -> None:
+def publish(candidate: str, registry: str, bump: str | None, variant: str | None,
+            create: bool, dry_run: bool, sign: str | None, fmt: str) -> None:
     """Publish CANDIDATE (a run's fits/<candidate>.json) into REGISTRY.
 
-    Writes REGISTRY/<function_id>/<version>.json (read-only, never replaced) and adds it to
-    REGISTRY/index.json. The version follows semver against the latest published one:
-    major when the form, predictors, response or direction changed; minor when the data,
-    its version, the subset, the estimator or any fitted number changed; patch for
-    metadata only. refit proposes that bump and refuses a smaller --bump; the first
-    version is 1.0.0.
+    Writes REGISTRY/<function_id>/<version>.json (with --variant NAME:
+    REGISTRY/<function_id>/NAME/<version>.json; read-only, never replaced) and adds it to
+    REGISTRY/index.json. Alternative models of one function (an OLS line, a mixed fit)
+    are published side by side as variants, each with its own version chain. Within a
+    chain the version follows semver against the latest published one: major when the
+    model changed (response, predictors, form, direction, estimator, interval method,
+    groups); minor when the same model is refitted (the data, its version, the subset,
+    the interval level or any fitted number changed); patch for metadata only. refit
+    proposes that bump and refuses a smaller --bump; the first version is 1.0.0.
 
     \b
     Exit codes: 0 published, 1 bump too small, nothing changed, version exists, bad hash
@@ -43,22 +50,25 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
       refit publish run/fits/linear__ols__inverse__analytic.json --to registry --dry-run
       refit publish run/fits/quadratic__ols__inverse__analytic.json --to registry --sign lab.key
       refit publish run/fits/linear__ols__inverse__analytic.json --to new-registry --init
+      refit publish run/fits/linear__ols__inverse__analytic.json --to registry --variant ols
     """
     import json
 
     from refit.publish.registry import publish as run_publish
 
     result = run_publish(candidate, registry, bump=bump, create=create, dry_run=dry_run,
-                         sign=sign)
+                         sign=sign, variant=variant)
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
         return
     for message in result.recovered:
         click.echo(f"Note: {message}.", err=True)
     verb = "Would publish" if dry_run else "Published"
-    click.echo(f"{verb} {result.function_id} {result.version} -> {result.path}")
+    click.echo(f"{verb} {result.chain} {result.version} -> {result.path}")
     if result.previous is None:
-        click.echo("  first version of this function")
+        click.echo("  first version of " + ("this function" if result.variant is None
+                                            else f"variant {result.variant} of "
+                                                 f"{result.function_id}"))
     else:
         chosen = result.bump or result.required
         click.echo(f"  {result.previous} -> {result.version}: {chosen} bump "
@@ -66,6 +76,21 @@ def publish(candidate: str, registry: str, bump: str | None, create: bool, dry_r
         for kind in ("major", "minor", "patch"):
             if result.changes.get(kind):
                 click.echo(f"  {kind} changes: {', '.join(result.changes[kind])}")
+    if result.model_changes:
+        click.echo("  the model changed: " + "; ".join(
+            f"{item} {_text(before)} -> {_text(after)}"
+            for item, before, after in result.model_changes))
+        click.echo("  to keep both models side by side, publish it as a variant instead "
+                   "(--variant NAME); each variant has its own version chain")
+    if result.others:
+        click.echo(f"  other variants of {result.function_id}: {', '.join(result.others)}")
     click.echo(f"  sha256 {result.sha256}")
     if sign and not dry_run:
         click.echo(f"  signed: {result.path.name}.sig")
+
+
+def _text(value) -> str:
+    """A model item as printed: ``none`` for a missing one, ``true``/``false``."""
+    if value is None:
+        return "none"
+    return str(value).lower() if isinstance(value, bool) else str(value)

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import sys
 from dataclasses import dataclass
 from pathlib import Path
@@ -35,11 +36,52 @@ import numpy as np
 
 from refit.errors import InvalidDataError, UnreadableInputError, UsageError
 
-SCHEMA_VERSION = "1.2.0"
+SCHEMA_VERSION = "1.3.0"
 CANDIDATE_VERSION = "0.0.0-candidate"
 SCHEMA_FILE = "coefficients.schema.json"
 CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "
            "research, not for engineering, hazard or regulatory decisions.")
+
+
+#: A variant name (``$.variant``, schema 1.3.0): lower case letters, digits, ``_`` and ``-``,
+#: starting with a letter, at most 40 characters.
+VARIANT_NAME = re.compile(r"^[a-z][a-z0-9_-]{0,39}$")
+#: How the variant of a file without ``$.variant`` is named (never stored in a file).
+DEFAULT_VARIANT = "default"
+#: The schema version that introduced ``$.variant``.
+VARIANT_SCHEMA = "1.3.0"
+
+
+# ----------------------------------------------------------------------------- variants
+def variant_name(name, where: str = "--variant") -> str | None:
+    """A variant name as stored: ``None`` for the default variant (``None``, ``""`` or
+    ``"default"``), else the name, checked against :data:`VARIANT_NAME`.
+
+    Raises
+    ------
+    UsageError
+        The name has other characters, starts with a digit or is longer than 40.
+    """
+    if name is None or name == "" or name == DEFAULT_VARIANT:
+        return None
+    if not isinstance(name, str) or not VARIANT_NAME.match(name):
+        raise UsageError(f"{where}: {str(name)[:60]!r} is not a variant name; use lower case "
+                         "letters, digits, '_' and '-', starting with a letter, at most 40 "
+                         "characters (e.g. 'mixed' or 'ols-by-source')")
+    return name
+
+
+def variant_of(content: dict) -> str | None:
+    """The variant a coefficient file belongs to.
+
+    ``$.variant`` when present; :data:`DEFAULT_VARIANT` for a published file without it
+    (every file published before variants existed, literature equations); ``None`` for
+    a candidate not yet published, whose variant is chosen when it is published.
+    """
+    v = content.get("variant")
+    if isinstance(v, str) and v:
+        return v
+    return DEFAULT_VARIANT if content.get("status") == "published" else None
 
 
 # ----------------------------------------------------------------------------- plain JSON

@@ -14,7 +14,15 @@ compares, section by section:
   the same fraction of its range), evaluated from each file alone with
   :func:`refit.coefficients.load` and its ``predict``; values outside a file's range carry
   its flags;
-- the version **bump** the changes call for (:func:`refit.publish.registry.required_bump`).
+- the version **bump** the changes call for (:func:`refit.publish.registry.required_bump`),
+  only when the two files can be versions of one chain.
+
+First of all it says whether the two files are **like with like** (:func:`comparison`):
+versions of one model (the same function, variant and :data:`refit.publish.registry.MODEL_ITEMS`,
+whatever data each was fitted on), or different functions, different variants (separate
+version chains: no bump applies between them) or different models of one chain (a major
+bump); with what differs among the function id, the variant, the model items, the subset
+and the data. The numbers are compared either way.
 """
 
 from __future__ import annotations
@@ -193,6 +201,87 @@ def reference_rows(path_a, path_b, a: dict, b: dict, *, at=None, level=None) -> 
     return rows
 
 
+# ----------------------------------------------------------------------------- like with like
+def _dataset(c: dict, key: str):
+    return ((c.get("provenance") or {}).get("dataset") or {}).get(key)
+
+
+def _origin(c: dict):
+    kind = (c.get("provenance") or {}).get("kind")
+    return {"refit": "a refit", "literature": "a literature equation"}.get(kind, kind)
+
+
+#: What a comparison names beside the model items: the chain and the data of each file.
+CONTEXT_ITEMS = (("origin", _origin), ("subset", _filters),
+                 ("dataset", lambda c: _dataset(c, "name")),
+                 ("data version", lambda c: _dataset(c, "version")))
+
+
+def comparison(a: dict, b: dict) -> dict:
+    """Whether two coefficient files compare like with like, and what differs.
+
+    Returns
+    -------
+    dict
+        ``kind``: ``same-model`` (one function, one variant, the same model: B is A
+        refitted or A itself), ``different-models`` (one function and variant, another
+        model: a major bump in one chain), ``different-variants`` (separate version
+        chains of one function), ``different-origins`` (a refit and a literature
+        equation) or ``different-functions``; ``like_with_like`` (the first
+        kind only); ``same_chain`` (a version bump applies between them); ``statement``
+        (one plain sentence); ``differences``: ``{"item", "a", "b"}`` for each of the
+        function id, the variant, the model items and the subset and data that differ.
+        A candidate not yet published has no variant yet: it is compared with the other
+        file's.
+    """
+    from refit.coefficients.format import DEFAULT_VARIANT, variant_of
+    from refit.publish.registry import MODEL_ITEMS, model_summary
+
+    fa, fb = a.get("function_id"), b.get("function_id")
+    va, vb = variant_of(a), variant_of(b)
+    diffs = []
+    if fa != fb:
+        diffs.append({"item": "function id", "a": fa, "b": fb})
+    if va is not None and vb is not None and va != vb:
+        diffs.append({"item": "variant", "a": va, "b": vb})
+    model = [{"item": name, "a": get(a), "b": get(b)} for name, get in MODEL_ITEMS
+             if get(a) != get(b)]
+    context = [{"item": name, "a": get(a), "b": get(b)} for name, get in CONTEXT_ITEMS
+               if get(a) != get(b)]
+    diffs += model + context
+    if fa != fb:
+        kind = "different-functions"
+        text = (f"Not like with like: A and B are different functions ({fa} and {fb}); no "
+                "version bump applies between them.")
+    elif _origin(a) != _origin(b):
+        kind = "different-origins"
+        text = (f"Not like with like: A is {_origin(a)} and B {_origin(b)} of {fa}; no "
+                "version bump applies between them.")
+    elif va is not None and vb is not None and va != vb:
+        kind = "different-variants"
+        text = (f"Not like with like: A and B are different variants of {fa} ({va} and "
+                f"{vb}), each with its own version chain; no version bump applies between "
+                "them.")
+    elif model:
+        kind = "different-models"
+        text = (f"Not like with like: A and B are different models of {fa} "
+                f"({model_summary(a)} and {model_summary(b)}); published after A in one "
+                "variant, B would be a major version.")
+    else:
+        kind = "same-model"
+        text = f"Like with like: the same model of {fa} ({model_summary(a)})"
+        if context:
+            text += ", fitted on other data"
+        text += "."
+    same_chain = kind in ("same-model", "different-models")
+    chain = va or vb or DEFAULT_VARIANT
+    if same_chain and chain != DEFAULT_VARIANT:
+        text += f" Variant: {chain}."
+    return {"kind": kind, "like_with_like": kind == "same-model",
+            "same_chain": same_chain,
+            "statement": text, "differences": diffs}
+
+
 # ----------------------------------------------------------------------------- the diff
 def diff_files(path_a, path_b, *, at=None, level=None) -> dict:
     """Compare two coefficient files (see the module docstring); JSON-ready dict.
@@ -209,15 +298,13 @@ def diff_files(path_a, path_b, *, at=None, level=None) -> dict:
     from refit.publish.registry import required_bump
 
     a, b = read_record(path_a), read_record(path_b)
-    bump, changes = required_bump(a, b)
+    like = comparison(a, b)
+    bump, changes = required_bump(a, b) if like["same_chain"] else (None, {})
     notes = []
-    if a.get("function_id") != b.get("function_id"):
-        notes.append(f"different functions: {a.get('function_id')!r} and "
-                     f"{b.get('function_id')!r}")
     if [p["name"] for p in a.get("predictors", [])] != [p["name"] for p in b.get("predictors", [])]:
         notes.append("different predictors: no comparison at reference values")
     return {
-        "a": _header(path_a, a), "b": _header(path_b, b),
+        "a": _header(path_a, a), "b": _header(path_b, b), "comparison": like,
         "bump": bump, "changes": changes, "notes": notes,
         "coefficients": coefficient_rows(a, b),
         "fit": [_row("quantity", k, a.get(k), b.get(k)) for k in FIT_FIELDS],
@@ -228,8 +315,10 @@ def diff_files(path_a, path_b, *, at=None, level=None) -> dict:
 
 
 def _header(path, c: dict) -> dict:
+    from refit.coefficients.format import variant_of
+
     return {"path": str(Path(path)), "function_id": c.get("function_id"),
-            "version": c.get("version"), "status": c.get("status"),
+            "variant": variant_of(c), "version": c.get("version"), "status": c.get("status"),
             "sha256": c.get("sha256"), "created": c.get("created"),
             "response": (c.get("response") or {}).get("name"),
             "unit": (c.get("response") or {}).get("unit")}

@@ -24,8 +24,8 @@ from pathlib import Path
 
 from refit._util.atomic import TMP_PREFIX, sha256_bytes, write_text_atomic
 from refit.errors import RefitError
-from refit.publish.registry_layout import (INDEX, INDEX_FORMAT, Registry, empty_index,
-                                           read_index)
+from refit.publish.registry_layout import (INDEX, INDEX_FORMAT, Registry, chain_name,
+                                           empty_index, read_index)
 
 PENDING = ".publishing.json"                 # journal of a publish in progress
 LOCK_FILE = ".lock"
@@ -106,7 +106,7 @@ def commit(reg, function_id: str, target: Path, text: str, entry: dict,
 
     The caller holds the lock; ``reg`` is the registry opened under it.
     """
-    journal = {"function_id": function_id, "entry": entry}
+    journal = {"function_id": function_id, "entry": entry}   # entry["variant"]: its chain
     write_text_atomic(reg.path / PENDING, json.dumps(journal, ensure_ascii=False))
     if signature is not None:
         sig = target.parent / (target.name + ".sig")
@@ -114,14 +114,17 @@ def commit(reg, function_id: str, target: Path, text: str, entry: dict,
         os.chmod(sig, 0o444)
     write_text_atomic(target, text)
     os.chmod(target, 0o444)
-    reg.index.setdefault("format", INDEX_FORMAT)
-    reg.index.setdefault("functions", {}).setdefault(function_id, []).append(entry)
+    reg.index["format"] = INDEX_FORMAT      # 1.1 reads every 1.x index: the newest minor
+    reg.index.setdefault("functions", {})
+    reg.add_entry(function_id, entry)
     write_index(reg)
     (reg.path / PENDING).unlink()
 
 
 def _temporary_files(path: Path) -> list[Path]:
-    return [*path.glob(TMP_PREFIX + "*"), *path.glob("*/" + TMP_PREFIX + "*")]
+    """Temporary files in the registry, a function folder or a variant folder."""
+    return [*path.glob(TMP_PREFIX + "*"), *path.glob("*/" + TMP_PREFIX + "*"),
+            *path.glob("*/*/" + TMP_PREFIX + "*")]
 
 
 def needs_recovery(path: Path) -> bool:
@@ -161,17 +164,19 @@ def _replay_journal(path: Path, marker: Path) -> list[str]:
     try:
         plan = json.loads(marker.read_text("utf-8"))
         fid, entry = plan["function_id"], plan["entry"]
-        target = Registry(path).file(fid, entry["version"])
-    except (OSError, ValueError, KeyError, TypeError, RefitError):
+        variant = entry.get("variant")        # a journal written before variants: None
+        target = Registry(path).file(fid, entry["version"], variant)
+    except (OSError, ValueError, KeyError, TypeError, AttributeError, RefitError):
         return [f"removed an unreadable publish journal {PENDING}"]
     reg = read_index(path) if (path / INDEX).is_file() else Registry(path, empty_index())
-    what = f"recovered an interrupted publish of {fid} {entry['version']}"
+    what = f"recovered an interrupted publish of {chain_name(fid, variant)} {entry['version']}"
     landed = target.is_file() and sha256_bytes(target.read_bytes()) == entry.get("file_sha256")
-    if any(e.get("version") == entry["version"] for e in reg.versions(fid)):
+    if any(e.get("version") == entry["version"] for e in reg.versions(fid, variant)):
         return [f"{what}: it had completed"]
     if landed:
         os.chmod(target, 0o444)
-        reg.index["functions"].setdefault(fid, []).append(entry)
+        reg.index["format"] = INDEX_FORMAT   # as commit() writes it
+        reg.add_entry(fid, entry)
         write_index(reg)
         return [f"{what}: its file had landed, so it was added to {INDEX}"]
     if not target.exists():   # a signature written before its file landed goes too

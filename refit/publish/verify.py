@@ -324,20 +324,36 @@ def _number(v) -> bool:
 
 
 # ----------------------------------------------------------------------------- a registry
+def _version_span(entries: list) -> str:
+    """``1.0.0`` or ``1.0.0 .. 1.2.0 (3 versions)`` of one chain's index entries."""
+    from refit.publish.registry_layout import parse_version
+
+    versions = sorted((e["version"] for e in entries), key=parse_version)
+    if len(versions) == 1:
+        return versions[0]
+    return f"{versions[0]} .. {versions[-1]} ({len(versions)} versions)"
+
+
 def verify_registry(path, *, store=None, tol: float = TOLERANCE, trust=None) -> VerifyReport:
-    """Index consistency of a registry, then :func:`verify_file` on every file in it."""
+    """Index consistency of a registry (every variant of every function), then
+    :func:`verify_file` on every file in it (signatures too, with ``trust``)."""
     from refit.publish.registry import open_registry, registry_problems
-    from refit.publish.registry_layout import check_inside
+    from refit.publish.registry_layout import chain_name, check_inside
 
     reg = open_registry(path)
     report = VerifyReport(str(path))
     problems = registry_problems(path)
     report.checks += [Check("index", False, p, str(reg.path / "index.json")) for p in problems]
     if not problems:
-        n = sum(len(v) for v in reg.index.get("functions", {}).values())
-        report.checks.append(Check("index", True, f"index.json agrees with the {n} file(s)",
+        chains = reg.chains()
+        n = sum(len(reg.versions(fid, v)) for fid, v in chains)
+        listed = "; ".join(f"{chain_name(fid, v)} {_version_span(reg.versions(fid, v))}"
+                           for fid, v in chains)
+        report.checks.append(Check("index", True, f"index.json agrees with the {n} file(s)"
+                                   + (f" ({listed})" if listed else ""),
                                    str(reg.path / "index.json")))
-    for file in sorted(reg.path.glob("*/*.json")):
+    # a function's default variant in REGISTRY/<id>/, named variants one folder deeper
+    for file in sorted([*reg.path.glob("*/*.json"), *reg.path.glob("*/*/*.json")]):
         try:
             check_inside(reg.path, file)
             sub = verify_file(file, store=store, tol=tol, trust=trust)

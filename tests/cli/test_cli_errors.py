@@ -27,6 +27,7 @@ BK = published_path("map_from_bk_depth.retallack1994")
     (["fit", "r.toml", "--colour"], "No such option '--colour'"),
     (["publish", "f.json"], "Missing option '--to'"),
     (["diff", "a.json"], "Missing argument 'FILE_B'"),
+    (["diff", "a.json", "1.0.0", "--variant", "mixed"], "give --registry REGISTRY too"),
 ])
 def test_a_usage_error_is_one_error_line_with_a_fix(args, words):
     code, out = cli(*args)

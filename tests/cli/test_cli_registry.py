@@ -98,3 +98,52 @@ def test_diff_exit_codes(world, tmp_path):
     bad.write_text((fits / LINEAR).read_text("utf-8").replace('"ols"', '"wls"', 1))
     res = invoke(diff, fits / LINEAR, bad)
     assert res.exit_code == 1 and "sha256" in res.output
+
+
+def test_variants_publish_diff_verify(world, tmp_path):
+    # two models of one function side by side: the quadratic in a variant of its own
+    # starts at 1.0.0 instead of bumping the linear line to 2.0.0
+    _, fits = world
+    r = tmp_path / "registry"
+    assert invoke(publish, fits / LINEAR, "--to", r, "--init").exit_code == 0
+    res = invoke(publish, fits / QUADRATIC, "--to", r, "--variant", "quadratic")
+    assert res.exit_code == 0, res.output
+    assert res.output.splitlines()[:3] == [
+        ("Published map_from_bk_depth/quadratic 1.0.0 -> "
+         f"{r / 'map_from_bk_depth' / 'quadratic' / '1.0.0.json'}"),
+        "  first version of variant quadratic of map_from_bk_depth",
+        "  other variants of map_from_bk_depth: default"]
+    res = invoke(publish, fits / QUADRATIC, "--to", r, "--variant", "Quadratic")
+    assert res.exit_code == 2 and "not a variant name" in res.output
+    # in the default chain the quadratic would be another model: major, and said so
+    res = invoke(publish, fits / QUADRATIC, "--to", r, "--dry-run")
+    assert res.exit_code == 0 and "Would publish map_from_bk_depth 2.0.0" in res.output
+    assert "the model changed: form linear (intercept + bk_depth_cm) -> quadratic" in res.output
+    assert "--variant NAME" in res.output
+
+    res = invoke(diff, "map_from_bk_depth", "1.0.0", "1.0.0", "--registry", r,
+                 "--variant", "default", "--variant", "quadratic")
+    assert res.exit_code == 0, res.output
+    lines = res.output.splitlines()
+    assert lines[0].startswith("Not like with like: A and B are different variants of "
+                               "map_from_bk_depth (default and quadratic)")
+    assert lines[1].startswith("They differ in: variant (default / quadratic); form (linear")
+    assert "The numbers below compare two models side by side, not two versions." in lines
+    assert "call for a" not in res.output and "bk_depth_cm^2" in res.output
+    res = invoke(diff, "map_from_bk_depth", "1.0.0", "--registry", r, "--variant",
+                 "quadratic", "--format", "json")
+    assert res.exit_code == 0, res.output
+    out = json.loads(res.output)
+    assert out["comparison"]["kind"] == "same-model" and out["bump"] is None
+    assert out["a"]["path"] == out["b"]["path"] == \
+        str(r / "map_from_bk_depth" / "quadratic" / "1.0.0.json")
+    res = invoke(diff, "map_from_bk_depth", "2.0.0", "--registry", r, "--variant",
+                 "quadratic")
+    assert res.exit_code == 2 and "no version 2.0.0 of map_from_bk_depth/quadratic; its " \
+                                  "versions: 1.0.0" in res.output
+    res = invoke(diff, "map_from_bk_depth", "1.0.0", "--variant", "quadratic")
+    assert res.exit_code == 2 and "--registry" in res.output
+
+    res = invoke(verify, r)
+    assert res.exit_code == 0, res.output
+    assert "map_from_bk_depth/quadratic/1.0.0.json" in res.output

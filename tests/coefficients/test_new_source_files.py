@@ -275,7 +275,7 @@ def test_tampered_new_field_fails_the_hash(tmp_path, field, method):
 def test_schema_1_1_files_still_read(tmp_path):
     f = fit(clustered(), "map_mm", "bk_depth_cm")
     _, rec = written(f, "analytic", tmp_path)
-    assert rec["schema_version"] == "1.2.0"
+    assert rec["schema_version"] == "1.3.0"
     old = dict(rec, schema_version="1.1.0")
     old["sha256"] = content_sha256(old)
     (tmp_path / "old.json").write_text(dumps(old), encoding="utf-8")

@@ -2,8 +2,10 @@
 
 The bump rules follow Semantic Versioning 2.0.0 (https://semver.org, items 6-8: a patch,
 minor or major increment resets the lower fields to 0) read for equations as the issue
-states: major when the form, predictors, response or direction changed; minor when the
-data, its version or the subset changed; patch for metadata only.
+states: major when the model changed (form, predictors, response, direction, estimator,
+interval method, groups); minor when the same model is refitted (data, its version, the
+subset, the interval level, any fitted number); patch for metadata only. Each variant of a
+function is its own chain (tests/publish/test_variants.py).
 """
 
 from __future__ import annotations
@@ -86,7 +88,10 @@ def changed(path: str, value) -> dict:
     ("provenance.dataset.name", "other", "minor"),
     ("provenance.subset.filters", [], "minor"),
     ("coefficients", [401.0, 2.2], "minor"),
-    ("estimator", "huber", "minor"),
+    ("estimator", "huber", "major"),              # another model: major within a chain
+    ("estimator", "mixed", "major"),
+    ("interval.method", "split-conformal", "major"),
+    ("provenance.groups", "source", "major"),
     ("interval.level", 0.9, "minor"),
     ("predictors.0.valid_max", 300.0, "minor"),
     ("cautions", ["research use", "another caution"], "patch"),
