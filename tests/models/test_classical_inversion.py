@@ -230,7 +230,9 @@ def test_root_beyond_the_window_gives_no_estimate_but_the_band_inside():
 
 def test_line_limits_are_cut_at_zero_rain():
     # weak line: the Fieller lower limit (closed form, checked against the textbook form
-    # above) falls below 0 mm; refit reports 0 and 'open-below', the upper limit unchanged
+    # above) falls below 0 mm; refit reports exactly 0 and 'truncated-at-bound' (not
+    # 'open-below': a line has no search window), keeps the limit before the cut in
+    # lower_untruncated, the upper limit unchanged
     rng = np.random.default_rng(8)
     x = np.linspace(50.0, 400.0, 25)
     y = 10 + 0.05 * x + rng.normal(0, 5.0, x.size)
@@ -241,7 +243,9 @@ def test_line_limits_are_cut_at_zero_rain():
     est, lo, hi, _ = fieller_line([12.0], *res.params, res.cov_params(), res.scale, t)
     assert lo[0] < 0 < est[0]
     p = f.predict(12.0)
-    assert p.lower[0] == 0.0 and p["flags"][0] == "open-below"
+    assert p.lower[0] == 0.0 and p["flags"][0] == "truncated-at-bound"
+    assert p["lower_untruncated"][0] == pytest.approx(lo[0], rel=1e-10)
+    assert np.isnan(p["upper_untruncated"][0])
     assert p.upper[0] == pytest.approx(hi[0], rel=1e-10)
     assert p.estimate[0] == pytest.approx(est[0], rel=1e-10)
 

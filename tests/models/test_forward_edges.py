@@ -170,8 +170,9 @@ def test_weak_slope_line_reports_the_ray_holding_the_estimate(tmp_path):
 
 def test_weak_slope_rays_are_cut_at_zero_rain():
     # the same line with climate = map_mm (schema bounds 0..12000 mm): the infinite end of
-    # each ray is cut at the bound and flagged open-below/open-above; a ray wholly below
-    # 0 mm disappears (NaN), the 'two-rays' flag stays
+    # each ray is cut at the bound and flagged truncated-at-bound (the limit before the
+    # cut, -inf or +inf, kept beside it); a ray wholly below 0 mm disappears (NaN), the
+    # 'two-rays' flag stays
     x, y = _weak_line()
     _, (r1, r2), est, _ = _exact_rays(x, y, 60.0)
     f = fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), response="map_mm",
@@ -181,10 +182,13 @@ def test_weak_slope_rays_are_cut_at_zero_rain():
     assert "two-rays" in flags and "unbounded" in flags
     if est >= r2:
         assert p.lower[0] == pytest.approx(r2, rel=1e-10) and p.upper[0] == 12000.0
-        assert "open-above" in flags
+        assert "truncated-at-bound" in flags and "open-above" not in flags
+        assert p["upper_untruncated"][0] == np.inf and np.isnan(p["lower_untruncated"][0])
         exp = (0.0, r1) if r1 >= 0 else (np.nan, np.nan)
     else:
         assert p.upper[0] == pytest.approx(r1, rel=1e-10) and p.lower[0] == 0.0
+        assert "truncated-at-bound" in flags and "open-below" not in flags
+        assert p["lower_untruncated"][0] == -np.inf and np.isnan(p["upper_untruncated"][0])
         exp = (r2, 12000.0) if r2 <= 12000 else (np.nan, np.nan)
     got = (p.get("other_lower", pd.Series([np.nan]))[0],
            p.get("other_upper", pd.Series([np.nan]))[0])
