@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from refit._util.flagcodes import FLAG_TRUNCATED
+from refit._util.flagcodes import FLAG_TRUNCATED, UNTRUNCATED_COLUMNS
 from refit.errors import RefitError
 
 from refit.apply.combine import FLAG_CORRELATED, FLAG_DISAGREE, combine_proxies  # noqa: F401
@@ -425,6 +425,20 @@ def truncation_flag(r: dict, flags: list, details: list, bounds) -> None:
     if said:
         flags.append(FLAG_TRUNCATED)
         details.extend(said)
+
+
+def truncated_sides(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Masks of the rows whose lower / upper limit was cut at a physical bound: flagged
+    ``truncated-at-bound`` with the limit before the cut kept on that side (a table
+    without those columns, e.g. written by an older refit: no side is known)."""
+    flagged = np.array([FLAG_TRUNCATED in str(f or "").split(";") for f in rows["flags"]],
+                       dtype=bool)
+    out = []
+    for col in UNTRUNCATED_COLUMNS:
+        kept = (~np.isnan(pd.to_numeric(rows[col], errors="coerce").to_numpy(float))
+                if col in rows else np.zeros(len(rows), dtype=bool))
+        out.append(flagged & kept)
+    return out[0], out[1]
 
 
 def _file_fields(label: str, rec: dict, level) -> dict:
