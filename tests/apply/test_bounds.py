@@ -93,6 +93,7 @@ def test_apply_keeps_the_limit_before_the_cut_and_writes_the_bound(setting):
     est, lo, hi = _fieller_by_hand(x, y, Y0)
     res = apply_files([path], fossils, seed=0).results.set_index("paleosol_id")
     a = res.loc["A"]   # no measurement SD: the file's own interval
+    assert a["estimate"] == pytest.approx(est, rel=1e-10)
     assert a["lower"] == 0.0 and a["upper"] == pytest.approx(hi, rel=1e-10)
     assert a["lower_untruncated"] == pytest.approx(lo, rel=1e-10)
     assert math.isnan(a["upper_untruncated"])
