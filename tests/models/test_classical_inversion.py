@@ -468,3 +468,28 @@ def test_threshold_and_matrix_node_searches_give_the_same_numbers(monkeypatch):
     pd.testing.assert_frame_equal(thresholds, matrix, check_exact=True)
     assert thresholds["lower"].notna().sum() > 300  # intervals were found
     assert thresholds["flags"].str.contains("outside-calibration-range").any()
+
+
+def test_polynomial_band_open_past_the_bound_and_past_the_window():
+    # The band of a very noisy curve (new-observation SD 1000 feature units on a curve
+    # that rises 50 units over the data) never closes: below, the window is cut at the
+    # bound 0, so the limit is 0 flagged truncated-at-bound, and the search without the
+    # bound (the range 100..500 widened by half its width: -100) does not close either,
+    # so the limit before the cut is that window edge, flagged open-below as well; above,
+    # no bound cuts the window (700): open-above alone. The rule of
+    # refit.models.inversion.classical (module notes), checked on its definition.
+    from refit.models.inversion.classical import invert_polynomial_bounded
+
+    poly = np.array([0.0, 0.1, 1e-6])
+    cov = np.diag([1.0, 1e-6, 1e-12])
+    est, lo, hi, masks, (lo_u, hi_u) = invert_polynomial_bounded(
+        [30.0], poly, cov, 1e6, 2.0, (100.0, 500.0), bounds=(0.0, np.inf))
+    assert 100 < est[0] < 500
+    assert lo[0] == 0.0 and masks["truncated-at-bound"][0] and masks["open-below"][0]
+    assert lo_u[0] == pytest.approx(-100.0, abs=1e-9) and np.isnan(hi_u[0])
+    assert hi[0] == pytest.approx(700.0, abs=1e-9) and masks["open-above"][0]
+    # a bound that does not cut the window changes nothing
+    e2, lo2, hi2, m2, (lu2, hu2) = invert_polynomial_bounded(
+        [30.0], poly, cov, 1e6, 2.0, (100.0, 500.0), bounds=(-500.0, np.inf))
+    assert lo2[0] == pytest.approx(-100.0, abs=1e-9) and m2["open-below"][0]
+    assert not m2["truncated-at-bound"][0] and np.isnan(lu2[0])
