@@ -16,6 +16,14 @@ FLAG_MISSING = "missing-value"
 FLAG_INVALID = "invalid-value"
 FLAG_APPROX = "approximate-interval"
 FLAG_CROSS = "quantiles-cross"
+#: a classical-calibration limit cut at a physical bound of the climate variable (MAP >= 0):
+#: the limit reported is the bound itself, the limit before the cut is kept beside it
+#: (``lower_untruncated`` / ``upper_untruncated``). Not the search window's edge
+#: (``open-below`` / ``open-above``, :mod:`refit.models.inversion.band`): there the band
+#: did not close; here it closes (or runs on) past a value the climate cannot take.
+FLAG_TRUNCATED = "truncated-at-bound"
+#: the columns holding a truncated limit before the cut (NaN where nothing was cut)
+UNTRUNCATED_COLUMNS = ("lower_untruncated", "upper_untruncated")
 
 
 def bit_codes(masks, m: int) -> np.ndarray:

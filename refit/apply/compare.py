@@ -21,7 +21,8 @@ from refit.errors import UsageError
 
 TABLE_COLUMNS = [
     "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
-    "response", "unit", "predictors_used", "estimate", "lower", "upper", "width", "level",
+    "response", "unit", "predictors_used", "estimate", "lower", "upper",
+    "lower_untruncated", "upper_untruncated", "width", "level",
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
 ]
 MAX_PANELS = 12
@@ -171,16 +172,22 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
-    fig, axes = plt.subplots(len(panels), 1, figsize=(11, sum(heights)), squeeze=False,
+    handles = _legend_handles(pd.concat([rows for _, rows in panels]))
+    below = 0.4 if len(handles) > 3 else 0.0   # a second legend line under the panels
+    total = sum(heights) + below
+    fig, axes = plt.subplots(len(panels), 1, figsize=(11, total), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
     for ax, (pid, rows) in zip(axes[:, 0], panels):
         _panel(ax, rows, pid)
     if title:
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.legend(handles=_legend_handles(), loc="upper right", bbox_to_anchor=(0.985, 0.998),
+    fig.legend(handles=handles[:3], loc="upper right", bbox_to_anchor=(0.985, 0.998),
                ncol=3, frameon=False, fontsize=FONT["legend"])
-    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / sum(heights),
-                        bottom=0.55 / sum(heights), hspace=0.5)
+    if below:  # what the triangle of a limit cut at a bound means, under the panels
+        fig.legend(handles=handles[3:], loc="lower left", bbox_to_anchor=(0.01, 0.0),
+                   frameon=False, fontsize=FONT["legend"])
+    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / total,
+                        bottom=(0.55 + below) / total, hspace=0.5)
     buf = io.BytesIO()
     meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
     fig.savefig(buf, format="png", dpi=130, metadata=meta)
@@ -188,15 +195,27 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
     return buf.getvalue()
 
 
-def _legend_handles() -> list:
-    """What the colours and the diamond mean (one legend for every panel)."""
+#: the legend's words for a limit cut at a physical bound (flag ``truncated-at-bound``)
+TRUNCATED_TEXT = ("limit cut at a physical bound (flag truncated-at-bound, e.g. MAP >= 0 "
+                  "mm); the limit before the cut is in the table (lower/upper_untruncated)")
+
+
+def _legend_handles(rows: pd.DataFrame | None = None) -> list:
+    """What the colours, the diamond and (when ``rows`` have one) the triangle of a limit
+    cut at a physical bound mean (one legend for every panel)."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    return [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
-            Patch(color=STYLE["published"], label="published equation (±1 SE)"),
-            Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
-                   label="estimate")]
+    from refit.apply.estimates import truncated_sides
+
+    out = [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
+           Patch(color=STYLE["published"], label="published equation (±1 SE)"),
+           Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                  label="estimate")]
+    if rows is not None and any(m.any() for m in truncated_sides(rows)):
+        out.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
+                          label=TRUNCATED_TEXT))
+    return out
 
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
@@ -226,6 +245,8 @@ def _serious(flags) -> bool:
 
 
 def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
+    from refit.apply.estimates import truncated_sides
+
     rows = rows.reset_index(drop=True)
     y = np.arange(len(rows))[::-1]
     finite = pd.concat([rows["lower"], rows["upper"], rows["estimate"]]).astype(float)
@@ -233,7 +254,8 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
     # a lone estimate still gets a readable axis: +-10 % of its size (at least 1 unit)
     pad = 0.05 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(0.1 * abs(hi_ax), 1.0)
-    for yi, r in zip(y, rows.itertuples(index=False)):
+    cuts = truncated_sides(rows)
+    for i, (yi, r) in enumerate(zip(y, rows.itertuples(index=False))):
         colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
         lo, hi = float(r.lower), float(r.upper)
@@ -247,6 +269,10 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         if np.isfinite(float(r.estimate)):
             ax.plot(float(r.estimate), yi, marker="D", color=STYLE["estimate"], ms=5,
                     zorder=3)
+        for cut, limit, marker in zip(cuts, (lo, hi), "<>"):
+            if cut[i]:  # a limit cut at a physical bound: a triangle at the bound
+                ax.plot(limit, yi, marker=marker, color=STYLE["estimate"], ms=5, zorder=3,
+                        gid="truncated")
         note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
         if r.flags:
             note += "\nflags: " + str(r.flags).replace(";", ", ")

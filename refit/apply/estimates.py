@@ -5,7 +5,9 @@ and interval come from the file alone (:meth:`refit.coefficients.Equation.predic
 flags where the equation does not hold:
 
 ``outside-calibration-range``, ``beyond-turning-point``, ``unbounded``, ``two-roots``,
-``open-below``/``open-above`` (from the file's evaluation), ``setting-mismatch`` (the
+``open-below``/``open-above`` (the search window's edge) and ``truncated-at-bound`` (a
+limit cut at a physical bound, e.g. MAP >= 0; the limit before the cut in
+``lower_untruncated``/``upper_untruncated``) from the file's evaluation, ``setting-mismatch`` (the
 paleosol's recorded setting is outside the subset the fit was made on, read from the file's
 ``provenance.subset.filters``), ``setting-not-recorded`` (the fit was filtered on a state
 factor the paleosol does not record) and ``published-plus-minus-only`` (a published
@@ -36,6 +38,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from refit._util.flagcodes import FLAG_TRUNCATED, UNTRUNCATED_COLUMNS
 from refit.errors import RefitError
 
 from refit.apply.combine import FLAG_CORRELATED, FLAG_DISAGREE, combine_proxies  # noqa: F401
@@ -220,7 +223,8 @@ def _draws(frame: pd.DataFrame, i: int, preds, decompact: bool, record, rng, n: 
 RESULT_COLUMNS = [
     "paleosol_id", "row", "coefficient_file", "function_id", "version", "status",
     "candidate", "direction", "response", "unit", "predictors_used", "estimate", "lower",
-    "upper", "level", "interval", "lower_without_propagation",
+    "upper", "lower_untruncated", "upper_untruncated", "level", "interval",
+    "lower_without_propagation",
     "upper_without_propagation", "propagation", "cv_coverage", "cv_scheme", "flags",
     "flag_details", "problem",
 ]
@@ -366,6 +370,7 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
         if decompact and any(p in decomp_cols for p in preds):
             used += " (decompacted)"
         r.update(predictors_used=used, estimate=math.nan, lower=math.nan, upper=math.nan,
+                 lower_untruncated=math.nan, upper_untruncated=math.nan,
                  lower_without_propagation=math.nan, upper_without_propagation=math.nan,
                  propagation="", flags="", flag_details="", problem="")
         r["problem"] = _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols)
@@ -376,16 +381,64 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
         if not decompact:
             _burial_flag(preds, frame.iloc[i], flags, details)
         r.update(estimate=pred.estimate[i], lower=pred.lower[i], upper=pred.upper[i],
+                 lower_untruncated=_at(pred.lower_untruncated, i),
+                 upper_untruncated=_at(pred.upper_untruncated, i),
                  lower_without_propagation=pred.lower[i],
                  upper_without_propagation=pred.upper[i], propagation="none")
         rng = np.random.default_rng([int(seed), i])
         draws, varied = _draws(frame, i, preds, decompact, record, rng, n_draws)
         if draws is not None and iv["method"] != "none":
             r.update(propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details))
+        truncation_flag(r, flags, details, physical_bounds(rec))
         r["flags"] = ";".join(dict.fromkeys(flags))
         r["flag_details"] = "; ".join(details)
         out.append(r)
     return out
+
+
+def _at(values, i: int) -> float:
+    """``values[i]``, NaN when the prediction gave no such column."""
+    return math.nan if values is None else float(values[i])
+
+
+def physical_bounds(rec: dict) -> tuple[float, float]:
+    """A forward file's physical bounds of climate (``interval.inversion.bounds``;
+    -inf / +inf where none is stated, and for inverse files)."""
+    b = ((rec.get("interval") or {}).get("inversion") or {}).get("bounds") or (None, None)
+    return (-math.inf if b[0] is None else float(b[0]), math.inf if b[1] is None else float(b[1]))
+
+
+def truncation_flag(r: dict, flags: list, details: list, bounds) -> None:
+    """Flag ``truncated-at-bound`` (and say which limit and where it was) exactly where a
+    limit of the row ``r`` was cut at a physical bound: its ``lower_untruncated`` or
+    ``upper_untruncated`` is set. The evaluation's flag is replaced, so a Monte Carlo
+    interval that no longer reaches the bound is not flagged, and one that does is."""
+    flags[:] = [f for f in flags if f != FLAG_TRUNCATED]
+    said = []
+    for side, name, bound in (("lower", "lower_untruncated", bounds[0]),
+                              ("upper", "upper_untruncated", bounds[1])):
+        v = r.get(name)
+        if v is not None and not pd.isna(v):
+            said.append(f"the {side} limit reached {float(v):.4g} {r.get('unit') or ''}"
+                        .rstrip() + f", past the physical bound {bound:g}, and is cut "
+                        f"there ({name} keeps it)")
+    if said:
+        flags.append(FLAG_TRUNCATED)
+        details.extend(said)
+
+
+def truncated_sides(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Masks of the rows whose lower / upper limit was cut at a physical bound: flagged
+    ``truncated-at-bound`` with the limit before the cut kept on that side (a table
+    without those columns, e.g. written by an older refit: no side is known)."""
+    flagged = np.array([FLAG_TRUNCATED in str(f or "").split(";") for f in rows["flags"]],
+                       dtype=bool)
+    out = []
+    for col in UNTRUNCATED_COLUMNS:
+        kept = (~np.isnan(pd.to_numeric(rows[col], errors="coerce").to_numpy(float))
+                if col in rows else np.zeros(len(rows), dtype=bool))
+        out.append(flagged & kept)
+    return out[0], out[1]
 
 
 def _file_fields(label: str, rec: dict, level) -> dict:

@@ -103,10 +103,15 @@ def truncated_normal(rng, mean: float, sd: float, n: int, lower: float = 0.0):
 
 
 def propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> dict:
-    """Monte Carlo interval of one paleosol under one file."""
+    """Monte Carlo interval of one paleosol under one file.
+
+    Returns the ``lower``, ``upper``, ``lower_untruncated``, ``upper_untruncated`` and
+    ``propagation`` fields of the row (:func:`untruncated_mixture` for the two in the
+    middle)."""
     mp = eq.predict(draws, lvl)
     lo, hi, used = mixture_interval(mp.estimate, mp.lower, mp.upper, mc_level, df)
     lo, hi = _snapped(eq, mp, lo, hi)
+    lo_u, hi_u = untruncated_mixture(eq, mp, lo, hi, mc_level, df)
     n = len(draws)
     uniq, counts = np.unique(np.asarray(mp.flags, dtype=str), return_counts=True)
     for flag in ("outside-calibration-range", "beyond-turning-point", "unbounded",
@@ -118,13 +123,43 @@ def propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> dic
     text = (f"monte-carlo: {n} draws (seed {seed}), {used} usable; varied "
             + ", ".join(varied) + "; per-draw interval as a "
             + ("Student t" if df else "split normal") + " with the draw's limits")
-    return {"lower": lo, "upper": hi, "propagation": text}
+    return {"lower": lo, "upper": hi, "lower_untruncated": lo_u, "upper_untruncated": hi_u,
+            "propagation": text}
+
+
+def _declared_bounds(eq) -> list:
+    """The file's physical bounds of climate (``interval.inversion.bounds``; [] when it
+    states none)."""
+    inv = (eq.record.get("interval") or {}).get("inversion") or {}
+    return list(inv.get("bounds") or [])
+
+
+def untruncated_mixture(eq, mp, lo: float, hi: float, mc_level: float, df):
+    """The Monte Carlo limits before a cut at a physical bound, per side; NaN on a side
+    whose limit ``lo``/``hi`` is not at its bound.
+
+    A draw whose limit was cut at a bound enters with its limit before the cut
+    (``mp.lower_untruncated``), every other draw as it is, and the same mixture is
+    solved (:func:`mixture_interval`). When ``lo`` sits on the lower bound (every draw
+    cut there puts the mixture's tail on it) and that mixture's limit lies below it,
+    the latter is the lower limit before the cut; likewise above."""
+    lu, hu = mp.lower_untruncated, mp.upper_untruncated
+    if lu is None or not (np.any(~np.isnan(lu)) or np.any(~np.isnan(hu))):
+        return math.nan, math.nan
+    b = _declared_bounds(eq) + [None, None]
+    b_lo = -math.inf if b[0] is None else float(b[0])
+    b_hi = math.inf if b[1] is None else float(b[1])
+    ulo, uhi, _ = mixture_interval(mp.estimate, np.where(np.isnan(lu), mp.lower, lu),
+                                   np.where(np.isnan(hu), mp.upper, hu), mc_level, df)
+    return (ulo if lo == b_lo and ulo < b_lo else math.nan,
+            uhi if hi == b_hi and uhi > b_hi else math.nan)
 
 
 def _snapped(eq, mp, lo: float, hi: float) -> tuple[float, float]:
     """The limits with float noise at a bound removed (:func:`snap_to_bounds`): the
-    file's physical bounds (``inversion.bounds``) and the draws' own extreme limits."""
-    declared = list((eq.record.get("inversion") or {}).get("bounds") or [])
+    file's physical bounds (``interval.inversion.bounds``) and the draws' own extreme
+    limits."""
+    declared = _declared_bounds(eq)
     los, his = np.asarray(mp.lower, float), np.asarray(mp.upper, float)
     los, his = los[np.isfinite(los)], his[np.isfinite(his)]
     spread = (hi - lo) if math.isfinite(hi - lo) else 1.0

@@ -36,7 +36,8 @@ from refit.errors import InvalidDataError, UsageError
 TABLE_COLUMNS = [
     "section", "paleosol_id", "row", "level_m", "age", "age_sd", "age_unit", "fit",
     "function_id", "version", "origin", "response", "unit", "estimate", "lower", "upper",
-    "level", "interval_kind", "flags", "problem", "coefficient_file",
+    "lower_untruncated", "upper_untruncated", "level", "interval_kind", "flags", "problem",
+    "coefficient_file",
 ]
 #: what an interval is, for the figure's line styles
 PREDICTION, PUBLISHED_SE, NO_INTERVAL = "prediction", "published ±1 SE", "none"
@@ -237,7 +238,7 @@ def section_table(results: pd.DataFrame, fossils: pd.DataFrame, *,
     t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
     t["origin"] = np.where(t["candidate"].fillna("").astype(str) != "", "refit",
                            "literature")
-    for c in ("estimate", "lower", "upper"):
+    for c in ("estimate", "lower", "upper", "lower_untruncated", "upper_untruncated"):
         t[c] = t[c].astype(float)
     t["interval_kind"] = [interval_kind(f, lo, hi) for f, lo, hi in
                           zip(t["flags"], t["lower"], t["upper"])]
@@ -269,6 +270,7 @@ def with_posteriors(t: pd.DataFrame) -> pd.DataFrame:
     one["estimate"] = one["posterior_median"].astype(float)
     one["lower"] = one["posterior_lower"].astype(float)
     one["upper"] = one["posterior_upper"].astype(float)
+    one[["lower_untruncated", "upper_untruncated"]] = np.nan  # the posterior's own limits
     one["flags"] = one["posterior_flags"].fillna("")
     one["interval_kind"] = POSTERIOR
     return pd.concat([t, one], ignore_index=True)

@@ -6,7 +6,7 @@ import click
 
 from refit.cli.common import (
     emit_csv, emit_json, fmt_number, format_option, fossil_options, guarded,
-    print_problems_and_cautions, stdout_console,
+    posterior_options, posterior_prior, print_problems_and_cautions, stdout_console,
 )
 
 
@@ -23,12 +23,7 @@ from refit.cli.common import (
 @click.option("--combine", is_flag=True,
               help="Add a combined estimate per paleosol across proxies, weighted by "
                    "cross-validated errors and tested for consistency (proxies-disagree).")
-@click.option("--posterior", is_flag=True,
-              help="Add the posterior for climate from forward files (one proxy, and all "
-                   "proxies of a paleosol together); its prior and grid go to CSV.posterior.json.")
-@click.option("--prior", metavar="SPEC",
-              help="Prior of --posterior: uniform:LOW:HIGH or normal:MEAN:SD in climate "
-                   "units (default uniform over the calibration range).")
+@posterior_options
 @click.option("--ignore-columns", "ignore_columns", metavar="COLUMN", multiple=True,
               help="Go on without an unmapped column that looks like a measurement SD "
                    "(its error is then not propagated); repeatable.")
@@ -47,11 +42,15 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     depth SD are propagated into the interval by seeded Monte Carlo. Rows with bad
     values are reported and the others still evaluated.
 
+    A limit cut at a physical bound (e.g. MAP below 0 mm) is written as the bound and
+    flagged truncated-at-bound; the limit before the cut is in lower_untruncated /
+    upper_untruncated.
+
     With --posterior, forward files also give the posterior for climate (columns
     posterior_median, posterior_mode, posterior_lower, posterior_upper, HDI, flags,
-    proxy_chi2 and proxy_chi2_p beside the frequentist ones); a paleosol measured by two
-    or more proxies gets one "posterior" row, the combined answer, flagged
-    proxies-disagree when they do not agree.
+    proxy_chi2 and proxy_chi2_p beside the frequentist ones; its prior and grid go to
+    CSV.posterior.json); a paleosol measured by two or more proxies gets one "posterior"
+    row, the combined answer, flagged proxies-disagree when they do not agree.
 
     \b
     Exit codes: 0 every row evaluated, 1 some rows or files could not be (the rest is
@@ -72,13 +71,9 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     from refit.apply.estimates import apply_files
     from refit.errors import UsageError
 
-    from refit.apply.posterior import parse_prior
-
     if out and Path(out).exists() and not overwrite:
         raise UsageError(f"--out {out} exists; pass --overwrite to replace it")
-    if prior and not posterior:
-        raise UsageError("--prior is the prior of --posterior; add --posterior")
-    prior_obj = parse_prior(prior)
+    prior_obj = posterior_prior(posterior, prior)
     result = apply_files(list(coefficients), fossils, level=level, decompact=decompact,
                          constants_file=constants_file, seed=seed, combine=combine,
                          posterior=posterior, prior=prior_obj, ignore_columns=ignore_columns)

@@ -354,6 +354,38 @@ def fossil_options(fn):
     return fn
 
 
+def posterior_options(fn):
+    """``--posterior`` and its ``--prior SPEC``, shared by `apply` and `section`; the
+    command reads them with :func:`posterior_prior`."""
+    for opt in reversed([
+        click.option("--posterior", is_flag=True,
+                     help="Add the posterior for climate from forward files (one proxy, and "
+                          "all proxies of a paleosol together)."),
+        click.option("--prior", metavar="SPEC",
+                     help="Prior of --posterior: uniform:LOW:HIGH or normal:MEAN:SD in "
+                          "climate units (default uniform over the calibration range)."),
+    ]):
+        fn = opt(fn)
+    return fn
+
+
+def posterior_prior(posterior: bool, prior: str | None):
+    """The prior of ``--posterior`` (None: the default), from ``--prior SPEC``.
+
+    Raises
+    ------
+    UsageError
+        ``--prior`` without ``--posterior``, or a SPEC not understood
+        (:func:`refit.apply.posterior.parse_prior`).
+    """
+    from refit.apply.posterior import parse_prior
+    from refit.errors import UsageError
+
+    if prior and not posterior:
+        raise UsageError("--prior is the prior of --posterior; add --posterior")
+    return parse_prior(prior)
+
+
 def print_problems_and_cautions(result, console) -> None:
     """Problems (file and row level) and the cautions."""
     from rich.text import Text

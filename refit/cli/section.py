@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import fossil_options, guarded, print_problems_and_cautions, stdout_console
+from refit.cli.common import (
+    fossil_options, guarded, posterior_options, posterior_prior, print_problems_and_cautions,
+    stdout_console,
+)
 
 
 @click.command("section", short_help="Climate up each section: figure and table.")
@@ -21,6 +24,7 @@ from refit.cli.common import fossil_options, guarded, print_problems_and_caution
               help="Dated levels (section, level_m, age_ma[, age_sd_ma]); ages of the "
                    "paleosols by linear interpolation between them.")
 @fossil_options
+@posterior_options
 @click.option("--out", required=True, metavar="DIR",
               type=click.Path(file_okay=False, path_type=str),
               help="Folder for section.csv, notes.txt and section-<name>.png.")
@@ -28,7 +32,7 @@ from refit.cli.common import fossil_options, guarded, print_problems_and_caution
 @click.pass_context
 @guarded
 def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, level,
-            decompact, constants_file, seed, out, overwrite) -> None:
+            decompact, constants_file, seed, posterior, prior, out, overwrite) -> None:
     """Draw the estimates of COEFFICIENTS files up each section of TABLE.
 
     One figure per section: estimate and interval of every fit against level_m (or age),
@@ -36,6 +40,14 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
     estimates hollow with the flag named. DIR/section.csv holds the same numbers (one
     row per paleosol and fit); DIR/notes.txt the choices made (missing or repeated
     levels, ...) and where adjacent levels differ by less than their intervals resolve.
+    A limit cut at a physical bound (flag truncated-at-bound) is marked by a triangle at
+    the bound; the limit before the cut is in the table.
+
+    With --posterior, each forward file's posterior median and equal-tailed interval
+    (the numbers of `refit apply --posterior`, same --prior) are drawn beside its
+    frequentist interval, dotted with a diamond, as the fit "<fit> posterior", and a
+    paleosol measured by two or more proxies gets the combined posterior too; the
+    table holds them as rows of interval_kind "posterior".
 
     \b
     Exit codes: 0 written, 1 some fits or rows could not be evaluated (the rest is still
@@ -47,6 +59,8 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
           --decompact --compaction-constants compaction_constants.csv
       refit section registry/map_from_bk_depth/1.0.0.json --fossils fossils.csv \\
           --age-model age_model.csv --out sections-by-age
+      refit section forward/run_forward_bk_depth/fits/linear__ols__forward__analytic.json \\
+          --fossils fossils.csv --posterior --prior uniform:100:1500 --out sections-posterior
     """
     from pathlib import Path
 
@@ -56,9 +70,11 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
 
     if (Path(out) / "section.csv").exists() and not overwrite:
         raise UsageError(f"--out {out} already holds section.csv; pass --overwrite")
+    prior_obj = posterior_prior(posterior, prior)
     result = section_files(list(coefficients), fossils, age_column=age_column,
                            age_sd_column=age_sd_column, age_model=age_model, level=level,
-                           decompact=decompact, constants_file=constants_file, seed=seed)
+                           decompact=decompact, constants_file=constants_file, seed=seed,
+                           posterior=posterior, prior=prior_obj)
     written = write_section(result, out)
     console = stdout_console()
     t = result.table

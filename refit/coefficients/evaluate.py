@@ -325,7 +325,8 @@ def _branch_points(inv: dict) -> np.ndarray | None:
     return np.asarray(pts, float)
 
 
-def predict_forward(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bool = False):
+def predict_forward(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bool = False,
+                    with_untruncated: bool = False):
     """Forward direction: invert ``feature = f(climate)`` as a classical calibration,
     through :func:`refit.models.inversion.forward.forward_predict` (the core ``Fit.predict`` uses too).
 
@@ -337,7 +338,9 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bo
     The measured feature is flagged ``outside-calibration-range`` against the
     predictor's ``valid_min``/``valid_max``, as in the inverse direction.
     ``with_rays`` also returns the second ray of a line's two-ray set
-    (``other_lower``, ``other_upper``; flag ``two-rays``)."""
+    (``other_lower``, ``other_upper``; flag ``two-rays``); ``with_untruncated`` (after
+    them) the limits cut at a physical bound before the cut (``lower_untruncated``,
+    ``upper_untruncated``, NaN where nothing was cut; flag ``truncated-at-bound``)."""
     from refit.models.inversion.forward import forward_predict
 
     iv = rec["interval"]
@@ -370,7 +373,8 @@ def predict_forward(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bo
         log_response=eq["scale"] == "log", x_cal=_branch_points(inv), bounds=bounds,
         with_interval=method != "none", between_covariance=between,
         approximate=method == "analytic" and bool(inv.get("approximate", False)),
-        feature_range=next(iter(_ranges(rec).values())), with_rays=with_rays)
+        feature_range=next(iter(_ranges(rec).values())), with_rays=with_rays,
+        with_untruncated=with_untruncated)
 
 
 #: rows from which repeated values are looked for (a sample of this many decides)
@@ -390,8 +394,13 @@ def _repeats_pay(rec: dict, v: np.ndarray, w0) -> bool:
     return np.unique(sample).size < sample.size // 2
 
 
-def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:
+def evaluate(rec: dict, v: np.ndarray, level: float, w0, *,
+             untruncated: bool = False) -> tuple:
     """Estimate, lower, upper [response units] and flags for values ``v`` (m, k).
+
+    ``untruncated`` adds two arrays: a forward file's limits cut at a physical bound,
+    before the cut (``lower_untruncated``, ``upper_untruncated``; NaN where nothing was
+    cut, and always for an inverse file, whose limits are never cut).
 
     Every row's result depends on its own values only, so many rows with repeated values
     (:func:`_repeats_pay`) are evaluated once per distinct value and spread back: the same
@@ -399,8 +408,12 @@ def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:
     whose rounding can depend on the matrix's size, otherwise)."""
     if _repeats_pay(rec, v, w0):
         values, back = np.unique(v[:, 0], return_inverse=True)
-        out = evaluate(rec, values[:, None], level, w0[:values.size])
+        out = evaluate(rec, values[:, None], level, w0[:values.size],
+                       untruncated=untruncated)
         return tuple(a[back] for a in out)
     if rec["direction"] == "forward":
-        return predict_forward(rec, v, level, w0)
-    return predict_inverse(rec, v, level, w0)
+        return predict_forward(rec, v, level, w0, with_untruncated=untruncated)
+    out = predict_inverse(rec, v, level, w0)
+    if untruncated:
+        out += (np.full(v.shape[0], np.nan), np.full(v.shape[0], np.nan))
+    return out

@@ -508,7 +508,9 @@ def write_record(content: dict, path) -> Path:
 class Prediction:
     """Estimates and intervals [units of the response] and flags (';'-joined text);
     ``cautions`` says why limits are infinite (a group-level interval with too few
-    groups for the level)."""
+    groups for the level); ``lower_untruncated``/``upper_untruncated`` a forward file's
+    limits cut at a physical bound (flag ``truncated-at-bound``) before the cut, NaN
+    where nothing was cut (None: not computed)."""
 
     estimate: np.ndarray
     lower: np.ndarray
@@ -518,16 +520,30 @@ class Prediction:
     method: str
     exact: bool
     cautions: tuple = ()
+    lower_untruncated: np.ndarray | None = None
+    upper_untruncated: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.estimate)
 
     def to_frame(self, index=None):
-        """The columns ``estimate``, ``lower``, ``upper``, ``flags`` as a pandas DataFrame."""
+        """The columns ``estimate``, ``lower``, ``upper``, ``flags`` as a pandas DataFrame,
+        and ``lower_untruncated``, ``upper_untruncated`` when some limit was cut at a
+        physical bound."""
         import pandas as pd
 
-        return pd.DataFrame({"estimate": self.estimate, "lower": self.lower,
-                             "upper": self.upper, "flags": self.flags}, index=index)
+        cols = {"estimate": self.estimate, "lower": self.lower, "upper": self.upper,
+                "flags": self.flags}
+        if self.truncated():
+            cols |= {"lower_untruncated": self.lower_untruncated,
+                     "upper_untruncated": self.upper_untruncated}
+        return pd.DataFrame(cols, index=index)
+
+    def truncated(self) -> bool:
+        """True when some limit was cut at a physical bound."""
+        return self.lower_untruncated is not None and bool(
+            (~np.isnan(self.lower_untruncated)).any()
+            | (~np.isnan(self.upper_untruncated)).any())
 
 
 def _refuse_complex(values, names) -> None:
@@ -616,7 +632,9 @@ class Equation:
         Returns
         -------
         Prediction
-            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``.
+            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``;
+            ``lower_untruncated``, ``upper_untruncated``: a limit cut at a physical
+            bound (flag ``truncated-at-bound``) before the cut, NaN elsewhere.
         """
         from refit.coefficients.evaluate import evaluate
 
@@ -639,7 +657,8 @@ class Equation:
         # values far outside the domain overflow to inf; the evaluator turns non-finite
         # results into an empty estimate with a flag, so numpy's warning says nothing more
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            est, lo, hi, flags = evaluate(self.record, v, float(level), w0)
+            est, lo, hi, flags, lo_u, hi_u = evaluate(self.record, v, float(level), w0,
+                                                      untruncated=True)
         cautions = ()
         if iv["method"] in ("group-jackknife+", "group-cv+"):
             from refit.models.intervals.group_conformal import too_few_groups
@@ -649,7 +668,7 @@ class Equation:
         if iv["method"] in ("published", "none"):
             level = iv.get("level")
         return Prediction(est, lo, hi, flags, level, iv["method"],
-                          bool(iv.get("exact", True)), cautions)
+                          bool(iv.get("exact", True)), cautions, lo_u, hi_u)
 
 
     def posterior(self, values, sd=None, prior=None, level: float = 0.95, **options):

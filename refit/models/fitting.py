@@ -351,14 +351,18 @@ class Fit:
             calibration range, both directions), ``beyond-turning-point``,
             ``two-roots``, ``unbounded``, ``two-rays`` (forward line, weak slope: the
             limits are the ray holding the estimate), ``open-below``/``open-above``
-            (forward: the limit is the search window's edge or a physical bound),
+            (forward: the limit is the search window's edge), ``truncated-at-bound``
+            (forward: the interval ran past a physical bound of the climate, e.g.
+            MAP >= 0, and the limit is that bound),
             ``beyond-search-window``, ``approximate-interval`` (Theil-Sen),
             ``missing-value``, ``invalid-value``, ``quantiles-cross``; empty when none;
             see :mod:`refit.models.inversion.classical`). Read the flags as
             ``result["flags"]`` (``DataFrame.flags`` is a pandas attribute). When a
             forward row's set is two rays and the other ray is not empty within the
             physical bounds, the columns ``other_lower``/``other_upper`` hold it (NaN
-            for the other rows). The index is that of ``values`` when it is a Series
+            for the other rows); when a limit is ``truncated-at-bound``, the columns
+            ``lower_untruncated``/``upper_untruncated`` hold it before the cut (NaN on
+            the sides and rows not cut). The index is that of ``values`` when it is a Series
             or DataFrame.
         """
         from refit.models.predict import predict_fit

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from refit._util.flagcodes import joined_names, present_codes
+from refit._util.flagcodes import UNTRUNCATED_COLUMNS, joined_names, present_codes
 from refit.models import finish
 from refit.models.finish import between_covariance
 from refit.models.intervals.group_conformal import GROUP_INTERVALS
@@ -20,6 +20,9 @@ _PREDICTION_COLUMNS = ("estimate", "lower", "upper", "flags")
 #: a forward prediction whose classical-calibration set is two rays for some row keeps the
 #: second ray in these columns (NaN for the other rows; flag ``two-rays``)
 _OTHER_RAY = ("other_lower", "other_upper")
+#: a forward prediction with a limit cut at a physical bound (flag ``truncated-at-bound``)
+#: keeps the limit before the cut in these columns (NaN for the other rows and sides)
+_UNTRUNCATED = UNTRUNCATED_COLUMNS
 
 
 def _shape_values(arr: np.ndarray, names: list[str]) -> np.ndarray:
@@ -425,7 +428,9 @@ def _predict_inverse(fit, v, level, interval, w0, opts):
 def _predict_forward(fit, v, level, interval, w0):
     """Forward fits: check the request, then classical calibration through
     :func:`refit.models.inversion.forward.forward_predict`; returns estimate, lower,
-    upper, flags, other_lower, other_upper (the second ray of a two-ray set)."""
+    upper, flags, other_lower, other_upper (the second ray of a two-ray set),
+    lower_untruncated, upper_untruncated (a limit cut at a physical bound, before the
+    cut)."""
     from refit.models.inversion.forward import forward_predict
     from refit.models.inversion.classical import physical_bounds
     from refit.errors import UsageError
@@ -455,7 +460,7 @@ def _predict_forward(fit, v, level, interval, w0):
         log_response=fit.form.log_response, x_cal=fit.x[:, 0], bounds=physical_bounds(fit),
         with_interval=interval != "none", between_covariance=between,
         approximate=interval == "analytic" and bool(res.details.get("approximate_interval")),
-        feature_range=fit.ranges[fit.y_name], with_rays=True)
+        feature_range=fit.ranges[fit.y_name], with_rays=True, with_untruncated=True)
 
 
 def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed: int = 0,
@@ -471,16 +476,18 @@ def predict_fit(fit, values, level: float, interval: str, *, weights=None, seed:
         raise InvalidDataError("weights of new observations must be finite and > 0")
     opts = {"seed": seed, "n_boot": n_boot, "folds": folds, "calib_fraction": calib_fraction}
     reason = None
-    other = None
+    names, columns = _PREDICTION_COLUMNS, ()
     if fit.direction == "forward":
-        est, lo, hi, flags, *other = _predict_forward(fit, v, level, interval, w0)
+        est, lo, hi, flags, *extra = _predict_forward(fit, v, level, interval, w0)
+        # the other ray's columns where some row has one (finite limits); the limits
+        # before a cut at a bound where some row was cut (they may be infinite)
+        for pair, used in ((_OTHER_RAY, np.isfinite), (_UNTRUNCATED, lambda a: ~np.isnan(a))):
+            part, extra = extra[:2], extra[2:]
+            if used(part[0]).any() or used(part[1]).any():
+                names, columns = names + pair, columns + tuple(part)
     else:
         est, lo, hi, flags, reason = _predict_inverse(fit, v, level, interval, w0, opts)
-    if other is not None and np.isfinite(other[0]).any() | np.isfinite(other[1]).any():
-        frame = result_frame(_PREDICTION_COLUMNS + _OTHER_RAY, (est, lo, hi, flags, *other),
-                             index)
-    else:
-        frame = result_frame(_PREDICTION_COLUMNS, (est, lo, hi, flags), index)
+    frame = result_frame(names, (est, lo, hi, flags, *columns), index)
     if reason:  # the limits are infinite: say why, with the result
         frame.attrs["cautions"] = [reason]
     return frame

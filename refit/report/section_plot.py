@@ -12,6 +12,9 @@ and MAT in degC never share an axis), the level (or age) upward:
 * a flagged estimate (the equation does not hold there) as a hollow marker, its flags
   named beside it; labels are placed apart, measured with the renderer
   (:mod:`refit.report.labels`);
+* a limit cut at a physical bound (flag ``truncated-at-bound``: MAP cannot fall below
+  0 mm) as a small triangle at the bound pointing past it, explained in the legend (the
+  limit before the cut is in the table);
 * the age's ±1 SD as a thin grey vertical bar when ages are given;
 * the fits with an estimate at one paleosol are drawn a few points apart vertically
   around its level (:func:`dodge`) so their bars do not hide each other.
@@ -40,6 +43,11 @@ SERIOUS = ("outside-calibration-range", "beyond-turning-point", "unbounded", "tw
            "not-decompacted")
 SHORT = {"outside-calibration-range": "outside range",
          "beyond-turning-point": "beyond turning point"}
+#: the legend's words for a limit cut at a physical bound (flag ``truncated-at-bound``):
+#: not a sign that the equation fails, so drawn at the cut end and explained, not hollow
+TRUNCATED_TEXT = ("triangle at a bar's end: the interval is cut at a physical bound there "
+                  "(flag truncated-at-bound; e.g. MAP cannot fall below 0 mm); the limit "
+                  "before the cut is in the table (lower_untruncated, upper_untruncated)")
 #: vertical offset between the fits drawn at one paleosol [points]
 DODGE_PT = 3.0
 LABEL_SIZE = 7.0
@@ -228,6 +236,7 @@ def _panel(ax, g, axis: str, xclip: tuple, style_of: dict) -> None:
             if kind == PUBLISHED_SE:
                 ax.plot(np.concatenate([lo, hi]), np.concatenate([yy[k], yy[k]]),
                         ls="none", marker="|", ms=6, mew=1.0, color=colour, zorder=3)
+        _truncated_ends(ax, rows, yy, colour, fit)
         flagged = np.array([bool(serious_flags(f)) for f in rows["flags"]])
         for sel, face, gid in ((~flagged, colour, "estimates"),
                                (flagged, "white", "flagged")):
@@ -240,6 +249,17 @@ def _panel(ax, g, axis: str, xclip: tuple, style_of: dict) -> None:
         ax.errorbar(g["estimate"].to_numpy(float)[first], _yvalues(g, axis)[first],
                     yerr=sd[first], fmt="none", ecolor=style.GREY, elinewidth=0.9,
                     capsize=2, zorder=1, gid="age-sd")
+
+
+def _truncated_ends(ax, rows, yy, colour, fit) -> None:
+    """A triangle at each limit cut at a bound, pointing past it (gid ``truncated:<fit>``)."""
+    from refit.apply.estimates import truncated_sides
+
+    cut_lo, cut_hi = truncated_sides(rows)
+    for cut, col, marker in ((cut_lo, "lower", "<"), (cut_hi, "upper", ">")):
+        if cut.any():
+            ax.plot(rows[col].to_numpy(float)[cut], yy[cut], ls="none", marker=marker,
+                    ms=5, color=colour, zorder=4, gid=f"truncated:{fit}")
 
 
 def _labels(ax, renderer, g, axis: str, common: dict) -> None:
@@ -294,6 +314,12 @@ def _style_handles(t, axis: str) -> list:
     if "none" in kinds:
         out.append(Line2D([], [], ls="none", marker="o", color="#444444",
                           label="marker alone: the file gives no interval"))
+    from refit.apply.estimates import truncated_sides
+
+    cut_lo, cut_hi = truncated_sides(t)
+    if cut_lo.any() or cut_hi.any():
+        out.append(Line2D([], [], ls="none", marker="<", ms=5, color="#444444",
+                          label=TRUNCATED_TEXT))
     if axis == "age" and np.isfinite(t["age_sd"].to_numpy(float)).any():
         out.append(Line2D([], [], color=style.GREY, lw=0.8, label="age ±1 SD"))
     return out
@@ -331,6 +357,10 @@ def read_section_table(path):
     table = pd.read_csv(target, keep_default_na=False, na_values=[""])
     from refit.apply.section import TABLE_COLUMNS
 
+    # tables written before the limits before a cut were kept lack only those columns
+    for c in ("lower_untruncated", "upper_untruncated"):
+        if c not in table.columns:
+            table[c] = np.nan
     missing = [c for c in TABLE_COLUMNS if c not in table.columns]
     if missing:
         raise InvalidDataError(f"{target} lacks {', '.join(missing)}: rerun `refit section`")
@@ -369,7 +399,9 @@ def caption(table) -> str:
             "model). Solid bars are prediction intervals; dashed bars with end ticks are "
             "published ±1 standard errors, which are not prediction intervals and "
             "understate the uncertainty of a new estimate. Hollow markers are flagged: the "
-            "equation does not hold there, and the flag is named beside the point. Fits "
+            "equation does not hold there, and the flag is named beside the point. A "
+            "triangle at the end of a bar marks a limit cut at a physical bound (e.g. "
+            "MAP cannot fall below 0 mm); the limit before the cut is in the table. Fits "
             "at one level are set a little apart vertically so their bars stay visible. "
             "Every number is in the section table; the notes below say where adjacent "
             "levels differ by less than their intervals resolve.")

@@ -69,3 +69,77 @@ def test_bad_age_models_and_options_give_one_line_errors(tmp_path):
                                "--age-column", "age_ma"])
     assert res.exit_code == 2 and "not both" in res.output
     assert not (tmp_path / "d").exists()
+
+
+def _forward_files(tmp_path):
+    """Two forward fits (depth and thickness of the Bk horizon on MAP) from a seeded
+    simulation (a test input, not demo data), as coefficient files."""
+    from refit.coefficients import fit_record, write_record
+    from refit.models.fitting import fit
+
+    rng = np.random.default_rng(5)
+    x = rng.uniform(200, 1200, 60)
+    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 10 + 0.1 * x + rng.normal(0, 8, 60),
+                      "bk_thickness_cm": 20 + 0.05 * x + rng.normal(0, 6, 60)})
+    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
+            "recipe": None, "recipe_sha256": None}
+    files = []
+    for p in ("bk_depth_cm", "bk_thickness_cm"):
+        rec = fit_record(fit(t, "map_mm", [p], direction="forward"),
+                         function_id=f"map_from_{p}", cv=None, level=0.95,
+                         interval_method="analytic", provenance=prov)
+        files.append(str(write_record(rec, tmp_path / f"{p}.json")))
+    return files
+
+
+def test_section_posterior_numbers_are_applys(tmp_path):
+    """`section --posterior --prior` draws and tabulates exactly the posterior numbers of
+    `apply --posterior --prior` (the same machinery; reference: apply's CSV), beside the
+    frequentist interval of the same forward file."""
+    files = _forward_files(tmp_path)
+    prior = ["--posterior", "--prior", "normal:700:250"]
+    runner = CliRunner()
+    est = tmp_path / "est.csv"
+    res = runner.invoke(main, ["apply", *files, "--fossils", DEMO, "--out", str(est),
+                               *prior])
+    assert res.exit_code == 0, res.output
+    res = runner.invoke(main, ["section", *files, "--fossils", DEMO, "--out",
+                               str(tmp_path / "s"), *prior])
+    assert res.exit_code == 0, res.output
+    a = pd.read_csv(est)
+    s = pd.read_csv(tmp_path / "s" / "section.csv")
+    post = s[s["interval_kind"] == "posterior"]
+    assert len(post) == 2 * 14 + 14            # one per file and paleosol, and combined
+    by = a.set_index(["paleosol_id", "function_id"])
+    for r in post.itertuples(index=False):
+        ref = by.loc[(r.paleosol_id, r.function_id)]
+        if r.function_id == "posterior":       # all proxies together: apply's own row
+            want = (ref["estimate"], ref["lower"], ref["upper"])
+        else:                                   # one proxy: its file's posterior columns
+            want = (ref["posterior_median"], ref["posterior_lower"], ref["posterior_upper"])
+        assert (r.estimate, r.lower, r.upper) == want
+    # the frequentist interval of each file stays beside its posterior
+    freq = s[s["interval_kind"] != "posterior"]
+    assert len(freq) == 28 and set(freq["function_id"]) == {"map_from_bk_depth_cm",
+                                                             "map_from_bk_thickness_cm"}
+    assert (freq["interval_kind"] == "prediction").sum() >= 27
+    # the prior reached the posterior: the default prior gives other numbers
+    res = runner.invoke(main, ["section", *files, "--fossils", DEMO, "--out",
+                               str(tmp_path / "d"), "--posterior"])
+    assert res.exit_code == 0, res.output
+    d = pd.read_csv(tmp_path / "d" / "section.csv")
+    d = d[d["interval_kind"] == "posterior"]
+    assert not np.allclose(d["estimate"].to_numpy(), post["estimate"].to_numpy())
+    for name in ("section-murrenhal-bluff.png", "section-coldstave-gorge.png"):
+        assert (tmp_path / "s" / name).is_file()
+
+
+def test_section_prior_without_posterior_is_a_usage_error(tmp_path):
+    files = _forward_files(tmp_path)
+    res = CliRunner().invoke(main, ["section", *files, "--fossils", DEMO, "--out",
+                                    str(tmp_path / "s"), "--prior", "uniform:100:1500"])
+    assert res.exit_code == 2 and "add --posterior" in res.output
+    res = CliRunner().invoke(main, ["section", *files, "--fossils", DEMO, "--out",
+                                    str(tmp_path / "s"), "--posterior", "--prior", "flat"])
+    assert res.exit_code == 2 and "uniform:LOW:HIGH or normal:MEAN:SD" in res.output
+    assert not (tmp_path / "s").exists() and "Traceback" not in res.output

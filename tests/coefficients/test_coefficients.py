@@ -254,9 +254,18 @@ def test_forward_file_cuts_at_the_physical_bound_like_the_fit(dry_table, tmp_pat
     path = _record(f, "analytic", tmp_path)
     v = np.array([0.5, 2.0, 5.0, 10.0, 20.0, 40.0, 80.0, np.nan])
     a = f.predict(v)
-    cut = a["flags"].str.contains("open-below") & (a["lower"] == 0.0)
+    cut = a["flags"].str.contains("truncated-at-bound") & (a["lower"] == 0.0)
     assert cut.sum() >= 2  # the band does reach 0 mm for shallow horizons
-    _same(a, load(path).predict(v))
+    assert not a["flags"].str.contains("open-below").any()  # a bound, not the window's edge
+    assert (a.loc[cut, "lower_untruncated"] < 0).all()
+    assert a.loc[~cut, "lower_untruncated"].isna().all()
+    b = load(path).predict(v)
+    _same(a, b)
+    # the file keeps the limit before the cut as the fit does (the band's crossing below
+    # 0 mm, searched again without the bound)
+    np.testing.assert_allclose(b.lower_untruncated, a["lower_untruncated"], rtol=1e-9,
+                               equal_nan=True)
+    assert np.isnan(b.upper_untruncated).all() and b.truncated()
     rec = read_record(path)
     assert rec["interval"]["inversion"]["bounds"] == [0.0, 12000.0]
     del rec["interval"]["inversion"]["bounds"]

@@ -230,7 +230,9 @@ def test_root_beyond_the_window_gives_no_estimate_but_the_band_inside():
 
 def test_line_limits_are_cut_at_zero_rain():
     # weak line: the Fieller lower limit (closed form, checked against the textbook form
-    # above) falls below 0 mm; refit reports 0 and 'open-below', the upper limit unchanged
+    # above) falls below 0 mm; refit reports exactly 0 and 'truncated-at-bound' (not
+    # 'open-below': a line has no search window), keeps the limit before the cut in
+    # lower_untruncated, the upper limit unchanged
     rng = np.random.default_rng(8)
     x = np.linspace(50.0, 400.0, 25)
     y = 10 + 0.05 * x + rng.normal(0, 5.0, x.size)
@@ -241,7 +243,9 @@ def test_line_limits_are_cut_at_zero_rain():
     est, lo, hi, _ = fieller_line([12.0], *res.params, res.cov_params(), res.scale, t)
     assert lo[0] < 0 < est[0]
     p = f.predict(12.0)
-    assert p.lower[0] == 0.0 and p["flags"][0] == "open-below"
+    assert p.lower[0] == 0.0 and p["flags"][0] == "truncated-at-bound"
+    assert p["lower_untruncated"][0] == pytest.approx(lo[0], rel=1e-10)
+    assert np.isnan(p["upper_untruncated"][0])
     assert p.upper[0] == pytest.approx(hi[0], rel=1e-10)
     assert p.estimate[0] == pytest.approx(est[0], rel=1e-10)
 
@@ -464,3 +468,28 @@ def test_threshold_and_matrix_node_searches_give_the_same_numbers(monkeypatch):
     pd.testing.assert_frame_equal(thresholds, matrix, check_exact=True)
     assert thresholds["lower"].notna().sum() > 300  # intervals were found
     assert thresholds["flags"].str.contains("outside-calibration-range").any()
+
+
+def test_polynomial_band_open_past_the_bound_and_past_the_window():
+    # The band of a very noisy curve (new-observation SD 1000 feature units on a curve
+    # that rises 50 units over the data) never closes: below, the window is cut at the
+    # bound 0, so the limit is 0 flagged truncated-at-bound, and the search without the
+    # bound (the range 100..500 widened by half its width: -100) does not close either,
+    # so the limit before the cut is that window edge, flagged open-below as well; above,
+    # no bound cuts the window (700): open-above alone. The rule of
+    # refit.models.inversion.classical (module notes), checked on its definition.
+    from refit.models.inversion.classical import invert_polynomial_bounded
+
+    poly = np.array([0.0, 0.1, 1e-6])
+    cov = np.diag([1.0, 1e-6, 1e-12])
+    est, lo, hi, masks, (lo_u, hi_u) = invert_polynomial_bounded(
+        [30.0], poly, cov, 1e6, 2.0, (100.0, 500.0), bounds=(0.0, np.inf))
+    assert 100 < est[0] < 500
+    assert lo[0] == 0.0 and masks["truncated-at-bound"][0] and masks["open-below"][0]
+    assert lo_u[0] == pytest.approx(-100.0, abs=1e-9) and np.isnan(hi_u[0])
+    assert hi[0] == pytest.approx(700.0, abs=1e-9) and masks["open-above"][0]
+    # a bound that does not cut the window changes nothing
+    e2, lo2, hi2, m2, (lu2, hu2) = invert_polynomial_bounded(
+        [30.0], poly, cov, 1e6, 2.0, (100.0, 500.0), bounds=(-500.0, np.inf))
+    assert lo2[0] == pytest.approx(-100.0, abs=1e-9) and m2["open-below"][0]
+    assert not m2["truncated-at-bound"][0] and np.isnan(lu2[0])

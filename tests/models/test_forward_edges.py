@@ -170,8 +170,9 @@ def test_weak_slope_line_reports_the_ray_holding_the_estimate(tmp_path):
 
 def test_weak_slope_rays_are_cut_at_zero_rain():
     # the same line with climate = map_mm (schema bounds 0..12000 mm): the infinite end of
-    # each ray is cut at the bound and flagged open-below/open-above; a ray wholly below
-    # 0 mm disappears (NaN), the 'two-rays' flag stays
+    # each ray is cut at the bound and flagged truncated-at-bound (the limit before the
+    # cut, -inf or +inf, kept beside it); a ray wholly below 0 mm disappears (NaN), the
+    # 'two-rays' flag stays
     x, y = _weak_line()
     _, (r1, r2), est, _ = _exact_rays(x, y, 60.0)
     f = fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), response="map_mm",
@@ -181,10 +182,13 @@ def test_weak_slope_rays_are_cut_at_zero_rain():
     assert "two-rays" in flags and "unbounded" in flags
     if est >= r2:
         assert p.lower[0] == pytest.approx(r2, rel=1e-10) and p.upper[0] == 12000.0
-        assert "open-above" in flags
+        assert "truncated-at-bound" in flags and "open-above" not in flags
+        assert p["upper_untruncated"][0] == np.inf and np.isnan(p["lower_untruncated"][0])
         exp = (0.0, r1) if r1 >= 0 else (np.nan, np.nan)
     else:
         assert p.upper[0] == pytest.approx(r1, rel=1e-10) and p.lower[0] == 0.0
+        assert "truncated-at-bound" in flags and "open-below" not in flags
+        assert p["lower_untruncated"][0] == -np.inf and np.isnan(p["upper_untruncated"][0])
         exp = (r2, 12000.0) if r2 <= 12000 else (np.nan, np.nan)
     got = (p.get("other_lower", pd.Series([np.nan]))[0],
            p.get("other_upper", pd.Series([np.nan]))[0])
@@ -245,3 +249,36 @@ def test_polynomial_band_limits_are_the_exact_roots_on_the_estimates_branch(y0):
     # y0 = 0.004: close to the curve's minimum; the exact set crosses the turning point
     if y0 < 0.01:
         assert (below.max() - tp) * side < 0 or (above.min() - tp) * side < 0
+
+
+@pytest.mark.parametrize("y0", [0.5, 5.0, 20.0])
+def test_polynomial_limit_cut_at_zero_rain_keeps_the_exact_root_below(y0, tmp_path):
+    # A quadratic forward fit of Bk depth on MAP (seeded simulation; turning point near
+    # 1600 mm, beyond the data). For a shallow horizon the exact classical-calibration set
+    # (band quartic <= 0, roots by numpy.polynomial on statsmodels' fit) starts below
+    # 0 mm: refit reports 0 mm exactly, flags truncated-at-bound (not open-below: the band
+    # does close, past the bound), and keeps the quartic's root in lower_untruncated.
+    rng = np.random.default_rng(3)
+    p = rng.uniform(30, 700, 60)
+    d = 8 + 0.16 * p - 5e-5 * p * p + rng.normal(0, 9, 60)
+    res = sm.OLS(d, np.column_stack([np.ones_like(p), p, p * p])).fit()
+    t = stats.t.ppf(0.975, len(p) - 3)
+    roots = P.polyroots(_band_quartic(res, y0, t))
+    real = np.sort(roots.real[np.abs(roots.imag) < 1e-9])
+    f = fit(pd.DataFrame({"map_mm": p, "bk_depth_cm": d}), "map_mm", ["bk_depth_cm"],
+            form="quadratic", direction="forward")
+    out = f.predict([y0])
+    # (0.5 cm: the curve's root lies below 0 mm, so no estimate, flagged
+    # beyond-search-window; the set still straddles 0 mm and is cut there)
+    est = out["estimate"][0] if np.isfinite(out["estimate"][0]) else 0.0
+    assert est < f.domain.turning_point        # on the data's branch
+    # the set's ends nearest the estimate: the quartic's closest roots on either side
+    lower_ref, upper_ref = real[real < est].max(), real[real > est].min()
+    assert lower_ref < 0 < upper_ref < f.domain.turning_point
+    assert out["lower"][0] == 0.0
+    assert "truncated-at-bound" in out["flags"][0].split(";")
+    assert "open-below" not in out["flags"][0].split(";")
+    assert out["lower_untruncated"][0] == pytest.approx(lower_ref, rel=1e-9)
+    assert out["upper"][0] == pytest.approx(upper_ref, rel=1e-9)
+    q = _file(f, tmp_path).predict([y0])
+    assert q.lower[0] == 0.0 and q.lower_untruncated[0] == pytest.approx(lower_ref, rel=1e-9)

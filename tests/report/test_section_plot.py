@@ -170,3 +170,85 @@ def test_posterior_marks_match_the_table(tmp_path):
         np.testing.assert_allclose(np.sort(xs), np.sort(g["estimate"]), rtol=0)
     legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
     assert "posterior median and equal-tailed interval (dotted" in legend
+
+
+def _bounded_file(tmp_path):
+    """A forward line whose interval runs below 0 mm for shallow horizons (seeded
+    simulation, as tests/apply/test_bounds.py) and a fossil table of one section."""
+    import pandas as pd
+
+    from refit.coefficients import fit_record, write_record
+    from refit.models.fitting import fit
+
+    rng = np.random.default_rng(3)
+    x = np.linspace(150.0, 1350.0, 16)
+    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 15 + 0.09 * x + rng.normal(0, 12, 16)})
+    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
+            "recipe": None, "recipe_sha256": None}
+    rec = fit_record(fit(t, "map_mm", ["bk_depth_cm"], direction="forward"),
+                     function_id="map_from_bk_depth", cv=None, level=0.95,
+                     interval_method="analytic", provenance=prov)
+    path = str(write_record(rec, tmp_path / "forward.json"))
+    fossils = tmp_path / "fossils.csv"
+    pd.DataFrame({"paleosol_id": ["P1", "P2", "P3", "P4"], "section": ["S"] * 4,
+                  "level_m": [1.0, 4.0, 9.0, 15.0],
+                  "bk_depth_cm": [38.0, 90.0, 30.0, 120.0]}).to_csv(fossils, index=False)
+    return path, str(fossils)
+
+
+def test_limits_cut_at_a_bound_are_drawn_there_and_explained(tmp_path):
+    """A limit cut at 0 mm (flag truncated-at-bound) gets a triangle at the bound, the
+    legend says what it is and where the limit before the cut is (the section table)."""
+    path, fossils = _bounded_file(tmp_path)
+    res = section_files([path], fossils)
+    t = res.table
+    cut = t["flags"].str.contains("truncated-at-bound")
+    assert sorted(t.loc[cut, "paleosol_id"]) == ["P1", "P3"]    # the shallow horizons
+    assert (t.loc[cut, "lower"] == 0.0).all() and (t.loc[cut, "lower_untruncated"] < 0).all()
+    assert t.loc[~cut, "lower_untruncated"].isna().all()
+    fig = section_figure(t, "S")
+    marks = _artists(fig, "truncated:")
+    (fit_name_,) = set(t["fit"])
+    (line,) = marks[f"truncated:{fit_name_}"]
+    assert line.get_marker() == "<"
+    np.testing.assert_array_equal(np.sort(line.get_xdata()), [0.0, 0.0])
+    # the flag is explained, not drawn as if the equation failed (no hollow marker)
+    assert "flagged:" + fit_name_ not in _artists(fig, "flagged:")
+    legend = " ".join(x.get_text() for x in fig.legends[0].get_texts()).replace("\n", " ")
+    assert "truncated-at-bound" in " ".join(legend.split())
+    assert "lower_untruncated" in legend
+    # the table written beside the figure keeps the limit before the cut
+    write_section(res, tmp_path / "s")
+    back = report_section(tmp_path / "s")
+    assert back["figures"] and "cut at a physical bound" in back["caption"]
+    import pandas as pd
+
+    csv = pd.read_csv(tmp_path / "s" / "section.csv")
+    np.testing.assert_allclose(csv["lower_untruncated"], t["lower_untruncated"],
+                               equal_nan=True)
+
+
+def test_compare_figure_marks_and_explains_a_cut_limit(tmp_path):
+    """The comparison figure: a triangle at a limit cut at a bound, and a legend entry
+    for it only when some row has one."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from refit.apply.compare import _legend_handles, _panel, compare_files
+
+    path, fossils = _bounded_file(tmp_path)
+    table, _ = compare_files([path], fossils=fossils)
+    one = table[table["paleosol_id"] == "P1"]
+    assert one["flags"].iloc[0] == "truncated-at-bound" and one["lower"].iloc[0] == 0.0
+    fig, ax = plt.subplots()
+    _panel(ax, one, "P1")
+    tri = [a for a in ax.lines if a.get_gid() == "truncated"]
+    assert len(tri) == 1 and tri[0].get_marker() == "<"
+    assert list(tri[0].get_xdata()) == [0.0]
+    plt.close(fig)
+    labels = [h.get_label() for h in _legend_handles(table)]
+    assert any("truncated-at-bound" in s and "lower/upper_untruncated" in s for s in labels)
+    deep = table[table["paleosol_id"] == "P2"]
+    assert not any("truncated" in h.get_label() for h in _legend_handles(deep))

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.polynomial import polynomial as P
 
+from refit._util.flagcodes import FLAG_TRUNCATED  # noqa: F401  (re-exported)
 
 FLAG_TWO_ROOTS = "two-roots"
 FLAG_UNBOUNDED = "unbounded"
@@ -26,7 +27,8 @@ FLAG_OPEN_ABOVE = "open-above"
 FLAG_BEYOND_WINDOW = "beyond-search-window"
 FLAG_TWO_RAYS = "two-rays"
 #: flags that describe the interval (dropped when no interval is asked for)
-INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_TWO_RAYS, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
+INTERVAL_FLAGS = (FLAG_UNBOUNDED, FLAG_TWO_RAYS, FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE,
+                  FLAG_TRUNCATED)
 
 #: grid nodes over the search window on which the band's sign changes are located
 GRID_POINTS = 257
@@ -472,11 +474,11 @@ class GridSearch:
 
 #: order of the flags of :func:`refit.models.inversion.classical.invert_polynomial`
 POLYNOMIAL_FLAG_ORDER = (FLAG_TWO_ROOTS, FLAG_OUTSIDE, FLAG_BEYOND_TP, FLAG_BEYOND_WINDOW,
-                         FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
+                         FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE, FLAG_TRUNCATED)
 #: order of the flags of a line's bounded Fieller interval
 #: (:func:`refit.models.inversion.classical._bound_line`)
 LINE_FLAG_ORDER = (FLAG_OUTSIDE, FLAG_UNBOUNDED, FLAG_TWO_RAYS, FLAG_BEYOND_WINDOW,
-                   FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE)
+                   FLAG_OPEN_BELOW, FLAG_OPEN_ABOVE, FLAG_TRUNCATED)
 
 
 def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:
@@ -488,5 +490,6 @@ def _polynomial_flags(sp: dict, ok, open_lo, open_hi, closes) -> tuple:
              FLAG_TWO_ROOTS: sp["two"] & ok,
              FLAG_BEYOND_TP: sp["beyond"] | no_root,
              FLAG_BEYOND_WINDOW: off & ~no_root,
-             FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi}
+             FLAG_OPEN_BELOW: open_lo, FLAG_OPEN_ABOVE: open_hi,
+             FLAG_TRUNCATED: np.zeros(len(est), dtype=bool)}  # set with the bounds
     return est, masks

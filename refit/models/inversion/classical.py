@@ -20,15 +20,24 @@ Flags (a tuple of short strings per value):
   (the curve is not monotonic there); the root on the branch holding most calibration
   points is reported.
 - ``open-below`` / ``open-above``: the band does not close inside the search window on
-  that side (it runs on past the turning point, past the widened range or past a physical
-  bound); the limit reported is the window edge: read it as "at most" / "at least".
+  that side (it runs on past the turning point or past the widened range); the limit
+  reported is the window edge: read it as "at most" / "at least". Lines have no search
+  window and never carry these flags.
+- ``truncated-at-bound``: the interval reaches past a physical bound of the climate
+  variable (e.g. below 0 mm of rain) and is cut there: the limit reported is the bound
+  itself, exactly, and the limit before the cut is returned beside it
+  (``lower_untruncated`` / ``upper_untruncated``, NaN on the sides not cut; -inf / +inf
+  for a line whose set runs on without end). For a polynomial the limit before the cut is
+  found by searching the window without the bound; if the band does not close there
+  either, that limit is the window's edge and ``open-below`` / ``open-above`` is set too
+  (it then describes the limit before the cut).
 - ``unbounded``: a line's band never closes on at least one side (``g = t^2 V(b1) / b1^2
   >= 1``, i.e. the slope is not significant at the chosen level): the set is the whole
   line (limits -inf / +inf, or the bounds) or two rays; also a flat line (a constant
   feature), which gives no estimate.
 - ``two-rays``: the set is two rays, ``x <= r1`` or ``x >= r2`` (:func:`fieller_set`);
   the limits are the ray that holds the estimate (its finite end kept, the infinite one
-  cut at the physical bound and flagged ``open-below``/``open-above``), and the other
+  cut at the physical bound and flagged ``truncated-at-bound``), and the other
   ray is kept beside it (``other_lower``, ``other_upper``).
 - ``outside-calibration-range``: the measured *feature* lies outside the feature's
   calibration range (its ``valid_min``/``valid_max``), as in the inverse direction.
@@ -57,6 +66,7 @@ from refit.models.inversion.band import (  # noqa: F401  (re-exported: the publi
     FLAG_OPEN_ABOVE,
     FLAG_OPEN_BELOW,
     FLAG_OUTSIDE,
+    FLAG_TRUNCATED,
     FLAG_TWO_RAYS,
     FLAG_TWO_ROOTS,
     FLAG_UNBOUNDED,
@@ -318,14 +328,16 @@ def physical_bounds(fit) -> tuple[float, float]:
 
 
 def _bound_line(est, lo, hi, unbounded, bounds):
-    """Cut a line's Fieller limits at the physical bounds ('open-below'/'open-above');
+    """Cut a line's Fieller limits at the physical bounds ('truncated-at-bound');
     an estimate beyond a bound is NaN ('beyond-search-window')."""
-    est, lo, hi, masks = _bound_line_masks(est, lo, hi, unbounded, bounds)
+    est, lo, hi, masks, _ = _bound_line_masks(est, lo, hi, unbounded, bounds)
     return est, lo, hi, _flag_tuples(masks, list(LINE_FLAG_ORDER), len(est))
 
 
 def _bound_line_masks(est, lo, hi, unbounded, bounds):
-    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`).
+    """As :func:`_bound_line`, with the flags as masks (in :data:`LINE_FLAG_ORDER`) and
+    the limits before the cut, ``(lower_untruncated, upper_untruncated)`` (NaN on a side
+    not cut), as a fifth value.
 
     ``unbounded`` is a per-row mask (or one bool for every row with an estimate)."""
     b_lo, b_hi = bounds
@@ -333,12 +345,70 @@ def _bound_line_masks(est, lo, hi, unbounded, bounds):
         off = (est < b_lo) | (est > b_hi)
         cut_lo, cut_hi = lo < b_lo, hi > b_hi
     est = np.where(off, np.nan, est)
+    untruncated = (np.where(cut_lo, lo, np.nan), np.where(cut_hi, hi, np.nan))
     lo, hi = np.where(cut_lo, b_lo, lo), np.where(cut_hi, b_hi, hi)
     if np.ndim(unbounded) == 0:
         unbounded = (np.isfinite(est) | off) if unbounded else np.zeros(len(est), bool)
+    none = np.zeros(len(est), dtype=bool)
     masks = {FLAG_OUTSIDE: off, FLAG_UNBOUNDED: np.asarray(unbounded, dtype=bool),
-             FLAG_BEYOND_WINDOW: off, FLAG_OPEN_BELOW: cut_lo, FLAG_OPEN_ABOVE: cut_hi}
-    return est, lo, hi, masks
+             FLAG_BEYOND_WINDOW: off, FLAG_OPEN_BELOW: none, FLAG_OPEN_ABOVE: none,
+             FLAG_TRUNCATED: cut_lo | cut_hi}
+    return est, lo, hi, masks, untruncated
+
+
+#: a polynomial limit this close to the window's edge, relative to the calibration range's
+#: width, lies on it (the limits come back through scaled units, ``c + h u``, so an edge
+#: at a bound returns within a few ulps of it, not always on it)
+EDGE_RELATIVE = 1e-9
+
+
+def invert_polynomial_bounded(y0, poly, cov, sigma2_new, t, domain, x_cal=None,
+                              bounds=(-np.inf, np.inf)):
+    """:func:`invert_polynomial_masks` in the window cut at the physical ``bounds``, with a
+    limit that runs into a bound flagged ``truncated-at-bound`` rather than ``open-*``.
+
+    A side whose band is still open where the window was cut by a bound (the limit
+    would lie past it) is truncated: the limit is written as the bound exactly, and the
+    rows are inverted again in the window without the bounds
+    (:func:`refit.models.domain.search_window` of ``domain`` alone) for the limit
+    before the cut. Only those rows are inverted twice.
+
+    Returns
+    -------
+    estimate, lower, upper : ndarray
+    masks : dict
+        As :func:`invert_polynomial_masks` (with ``truncated-at-bound``).
+    (lower_untruncated, upper_untruncated) : tuple of ndarray
+        The limits before the cut; NaN on a side not cut.
+    """
+    window = search_window(domain, bounds)
+    est, lo, hi, masks = invert_polynomial_masks(y0, poly, cov, sigma2_new, t, domain,
+                                                 x_cal, window=window)
+    free = search_window(domain)
+    tol = EDGE_RELATIVE * (float(domain[1]) - float(domain[0]) or 1.0)
+    cuts = []
+    for side, edge, limit, flag in ((0, window[0], lo, FLAG_OPEN_BELOW),
+                                    (1, window[1], hi, FLAG_OPEN_ABOVE)):
+        at_bound = edge == float(bounds[side]) and edge != free[side]
+        with np.errstate(invalid="ignore"):
+            cuts.append(masks[flag] & (np.abs(limit - edge) <= tol) if at_bound
+                        else np.zeros(len(est), dtype=bool))
+    untruncated = (np.full(len(est), np.nan), np.full(len(est), np.nan))
+    rows = np.flatnonzero(cuts[0] | cuts[1])
+    if len(rows):
+        s2 = np.broadcast_to(np.asarray(sigma2_new, float), np.shape(est))[rows]
+        _, lo2, hi2, masks2 = invert_polynomial_masks(
+            np.asarray(y0, float).reshape(-1)[rows], poly, cov, s2, t, domain, x_cal,
+            window=free)
+        for side, (limit, again, flag) in enumerate(((lo, lo2, FLAG_OPEN_BELOW),
+                                                     (hi, hi2, FLAG_OPEN_ABOVE))):
+            cut = cuts[side]
+            untruncated[side][rows] = np.where(cut[rows], again, np.nan)
+            masks[flag] = np.where(cut, False, masks[flag])
+            masks[flag][rows] |= cut[rows] & masks2[flag]
+            limit[cut] = float(bounds[side])
+    masks[FLAG_TRUNCATED] = cuts[0] | cuts[1]
+    return est, lo, hi, masks, untruncated
 
 
 def bound_other_ray(other_lo, other_hi, bounds):

@@ -61,7 +61,8 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
                     degree: int, through_origin: bool = False, log_response: bool = False,
                     x_cal=None, bounds=(-np.inf, np.inf), with_interval: bool = True,
                     approximate: bool = False, between_covariance=None,
-                    feature_range=None, with_rays: bool = False):
+                    feature_range=None, with_rays: bool = False,
+                    with_untruncated: bool = False):
     """Invert a fitted ``feature = f(climate)`` at measured feature values.
 
     Parameters
@@ -105,6 +106,11 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         Also return ``other_lower``, ``other_upper``: the second ray of a line's two-ray
         Fieller set, cut at the bounds (NaN for other rows; see
         :func:`refit.models.inversion.classical.fieller_set`).
+    with_untruncated : bool
+        Also return ``lower_untruncated``, ``upper_untruncated`` (after the rays when
+        both are asked): a limit cut at a physical bound (flag ``truncated-at-bound``)
+        before the cut; NaN on the sides not cut (see
+        :mod:`refit.models.inversion.classical`).
     between_covariance : ndarray, optional
         Between-source covariance B of a mixed fit (terms x terms, as ``covariance``):
         the new observation's variance is then ``sigma2_new + g(x)' B g(x)`` at each
@@ -121,6 +127,8 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         ';'-joined flag names per row (see :mod:`refit.models.inversion.classical`).
     other_lower, other_upper : ndarray
         Only with ``with_rays``.
+    lower_untruncated, upper_untruncated : ndarray
+        Only with ``with_untruncated``.
     """
     y0, missing, invalid = _model_scale(values, log_response)
     if between_covariance is not None:
@@ -130,19 +138,20 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
     other = np.full((2, len(y0)), np.nan)
     if degree == 1:
         fs = cal.fieller_set(y0, poly[0], poly[1], cov, sigma2_new, t)
-        est, lo, hi, masks = cal._bound_line_masks(fs["estimate"], fs["lower"], fs["upper"],
-                                                   fs["unbounded"], bounds)
+        est, lo, hi, masks, untruncated = cal._bound_line_masks(
+            fs["estimate"], fs["lower"], fs["upper"], fs["unbounded"], bounds)
         masks[cal.FLAG_TWO_RAYS] = fs["two_rays"]
         other[:] = cal.bound_other_ray(fs["other_lower"], fs["other_upper"], bounds)
         order = cal.LINE_FLAG_ORDER
     else:
-        est, lo, hi, masks = cal.invert_polynomial_masks(
-            y0, poly, cov, sigma2_new, t, domain, x_cal,
-            window=cal.search_window(domain, bounds))
+        est, lo, hi, masks, untruncated = cal.invert_polynomial_bounded(
+            y0, poly, cov, sigma2_new, t, domain, x_cal, bounds)
         order = cal.POLYNOMIAL_FLAG_ORDER
+    untruncated = np.array(untruncated, dtype=float).reshape(2, -1)
     if not with_interval:
         lo, hi = np.full_like(est, np.nan), np.full_like(est, np.nan)
         other[:] = np.nan
+        untruncated[:] = np.nan
         order = tuple(nm for nm in order if nm not in cal.INTERVAL_FLAGS)
     if feature_range is None:
         outside = cal.range_flags(est, domain)
@@ -152,6 +161,9 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
         outside = extrapolation_mask(values, *feature_range)
         masks[cal.FLAG_OUTSIDE] = outside
     flags = _flag_text(masks, order, outside, missing, invalid, approximate)
+    out = (est, lo, hi, flags)
     if with_rays:
-        return est, lo, hi, flags, other[0], other[1]
-    return est, lo, hi, flags
+        out += (other[0], other[1])
+    if with_untruncated:
+        out += (untruncated[0], untruncated[1])
+    return out
