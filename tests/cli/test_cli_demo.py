@@ -207,7 +207,7 @@ def help_examples(command) -> list[str]:
     return out
 
 
-ORDER = ("check", "admit", "fit", "report", "keygen", "publish", "verify", "diff", "apply",
+ORDER = ("check", "admit", "init", "fit", "report", "keygen", "publish", "verify", "diff", "apply",
          "compare", "section")
 
 
@@ -238,7 +238,7 @@ def test_every_help_example_runs_in_the_demo_folder(demo_run, tmp_path, monkeypa
             res = CliRunner().invoke(main, args)
             assert res.exit_code in (0, 1), f"{example}\n{res.output}"
             assert "Error: unexpected" not in res.output and "Traceback" not in res.output
-            if name in ("fit", "report", "keygen", "publish", "diff", "compare", "section"):
+            if name in ("init", "fit", "report", "keygen", "publish", "diff", "compare", "section"):
                 assert res.exit_code == 0, f"{example}\n{res.output}"
             if target:
                 (folder / target).write_text(res.stdout, encoding="utf-8")
