@@ -44,8 +44,6 @@ def init(data, out, force) -> None:
     if target.exists() and not force:
         raise UsageError(f"{out} already exists; pass --force to replace it, or choose "
                          "another --out")
-    if target.is_dir():
-        raise UsageError(f"--out {out} is a folder; give a file name, e.g. recipe.toml")
     text, sv, pick = scaffold(data, target)
     write_text_atomic(target, text)
     console = stdout_console()

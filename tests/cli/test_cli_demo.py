@@ -245,6 +245,11 @@ def test_every_help_example_runs_in_the_demo_folder(demo_run, tmp_path, monkeypa
                 assert (folder / target).stat().st_size > 0
             ran += 1
     assert ran >= 20
+    from refit.select.recipe import read_recipe
+
+    drafted = read_recipe(folder / "my-recipe.toml")  # `refit init store` wrote it
+    assert (drafted.response, drafted.predictors, drafted.groups) == (
+        "map_mm", ("bk_depth_cm",), "source")
     # what they wrote, re-opened
     board = pd.read_csv(folder / "leaderboard.csv")
     assert list(board.columns)[:2] == ["rank", "candidate"] and len(board) > 5
