@@ -78,12 +78,10 @@ def age_axis_label(name: str) -> str:
 def fit_name(row) -> str:
     """A fit's name in the legend: a literature equation by its file's name (which
     carries the source), a refit fit by function, version and candidate."""
-    stem = Path(str(row["coefficient_file"] or "")).stem
     if row["function_id"] == "posterior":
         return "posterior of all proxies together (refit)"
     if row["origin"] == "literature":
-        return (stem if stem and stem != str(row["function_id"]) else str(row["fit"])) + \
-            " (published)"
+        return f"{row['fit']} (published)"
     return f"{row['fit']} (refit)"
 
 
