@@ -221,11 +221,14 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         ax.annotate(note, xy=(1.01, yi), xycoords=("axes fraction", "data"),
                     va="center", fontsize=FONT["note"], color="#333333",
                     annotation_clip=False)
-    ax.set_yticks(y, [str(f).replace(" ", "\n", 1) for f in rows["fit"]],
+    ax.set_yticks(y, [str(f).replace(", ", "\n", 1) if ", " in str(f)
+                      else str(f).replace(" ", "\n", 1) for f in rows["fit"]],
                   fontsize=FONT["fit"])
     ax.set_xlim(lo_ax - 2 * pad, hi_ax + 2 * pad)
     unit = rows["unit"].iloc[0] if len(rows) else ""
-    ax.set_xlabel(f"{rows['response'].iloc[0]} [{unit}]" if len(rows) else "",
+    from refit.curate.schema import notation
+
+    ax.set_xlabel(notation(str(rows["response"].iloc[0]), str(unit)) if len(rows) else "",
                   fontsize=FONT["axis"])
     ax.tick_params(axis="x", labelsize=FONT["fit"])
     ax.set_title(str(pid), loc="left", fontsize=FONT["title"], fontweight="bold")

@@ -177,8 +177,10 @@ def _limits(ax, g, axis: str, span: float) -> tuple[float, float]:
     pad = 0.06 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(abs(hi_ax) * 0.1, 1.0)
     ax.set_xlim(lo_ax - pad, hi_ax + 4 * pad)  # room at the right for labels
     ax.set_ylim(float(np.nanmin(y_all)) - 0.06 * span, float(np.nanmax(y_all)) + 0.06 * span)
-    ax.set_xlabel(f"{g['response'].iloc[0]} [{g['unit'].iloc[0]}]")
-    ax.set_title(str(g["response"].iloc[0]))
+    from refit.curate.schema import notation
+
+    ax.set_xlabel(notation(str(g["response"].iloc[0]), str(g["unit"].iloc[0])))
+    ax.set_title(notation(str(g["response"].iloc[0]), ""))
     return lo_ax - pad, hi_ax + 4 * pad
 
 
