@@ -113,7 +113,7 @@ def survey(path) -> Survey:
                   mapped=[n for n in report.notes if n.startswith("column ")],
                   unmapped=[{"column": r.column, "how": _how(r.message)}
                             for r in unmapped.itertuples(index=False)],
-                  n_errors=int(len(report.errors)))
+                  n_errors=len(report.errors))
 
 
 def _how(message: str) -> str:
@@ -259,7 +259,7 @@ def _data_lines(sv: Survey, recipe_dir: Path) -> list[str]:
         out.append(f"{key} = {toml_string(Path(os.path.relpath(target, folder)).as_posix())}")
     else:
         out += [f"# The {key} lies outside this recipe's folder, and a recipe names only data",
-                f"# inside its own folder: move the recipe next to it, or run",
+                "# inside its own folder: move the recipe next to it, or run",
                 f"#   refit fit RECIPE --{key} {_comment(sv.path)}",
                 f"# {key} = {toml_string(sv.path.name)}"]
     if sv.kind == "store":
