@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded, stdout_console
+from refit.cli.common import guarded, is_quiet, stdout_console
 
 
 @click.command("init", short_help="Write a commented first recipe for a table or store.")
@@ -46,6 +46,8 @@ def init(data, out, force) -> None:
                          "another --out")
     text, sv, pick = scaffold(data, target)
     write_text_atomic(target, text)
+    if is_quiet():
+        return
     console = stdout_console()
     groups = pick["groups"].value
     console.print(f"Wrote {out}: {pick['response'].value} from {pick['predictor'].value} on "
