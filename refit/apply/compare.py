@@ -23,7 +23,7 @@ TABLE_COLUMNS = [
     "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
     "response", "unit", "predictors_used", "estimate", "lower", "upper",
     "lower_untruncated", "upper_untruncated", "width", "level",
-    "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
+    "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin", "citation",
 ]
 MAX_PANELS = 12
 #: the table file written beside the figure pages
@@ -80,7 +80,14 @@ def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
 
 
 def fit_label(r) -> str:
-    """Short row label: function id, version and candidate (or status)."""
+    """Short row label: a literature equation by its short citation and what it is of
+    ("Retallack 1994, from bk_depth"; the part of its function id after ``_from_``, so a
+    paper with several equations names each), a refit by function id, version and
+    candidate."""
+    cite = getattr(r, "citation", "")
+    if isinstance(cite, str) and cite and not getattr(r, "candidate", ""):
+        fid = str(r.function_id)
+        return f"{cite}, {'from ' + fid.split('_from_', 1)[1] if '_from_' in fid else fid}"
     what = r.candidate if getattr(r, "candidate", "") else r.status
     return f"{r.function_id} {r.version} {what}".strip()
 
@@ -282,11 +289,14 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         ax.annotate(note, xy=(1.01, yi), xycoords=("axes fraction", "data"),
                     va="center", fontsize=FONT["note"], color="#333333",
                     annotation_clip=False)
-    ax.set_yticks(y, [str(f).replace(" ", "\n", 1) for f in rows["fit"]],
+    ax.set_yticks(y, [str(f).replace(", ", "\n", 1) if ", " in str(f)
+                      else str(f).replace(" ", "\n", 1) for f in rows["fit"]],
                   fontsize=FONT["fit"])
     ax.set_xlim(lo_ax - 2 * pad, hi_ax + 2 * pad)
     unit = rows["unit"].iloc[0] if len(rows) else ""
-    ax.set_xlabel(f"{rows['response'].iloc[0]} [{unit}]" if len(rows) else "",
+    from refit.curate.schema import notation
+
+    ax.set_xlabel(notation(str(rows["response"].iloc[0]), str(unit)) if len(rows) else "",
                   fontsize=FONT["axis"])
     ax.tick_params(axis="x", labelsize=FONT["fit"])
     ax.set_title(str(pid), loc="left", fontsize=FONT["title"], fontweight="bold")
@@ -317,4 +327,30 @@ def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level
             raise UsageError(f"--paleosol {', '.join(unknown)}: not in the table; its ids "
                              "are " + ", ".join(dict.fromkeys(table["paleosol_id"])))
         table = table[table["paleosol_id"].isin(paleosols)].reset_index(drop=True)
+    if not panel_groups(table):
+        columns = [] if result.fossils is None else list(result.fossils.columns)
+        raise UsageError(nothing_to_draw(coefficient_files, columns, at))
     return table, result
+
+
+def nothing_to_draw(coefficient_files, columns, at=()) -> str:
+    """Why no fit gave an estimate: the predictors each fit expects beside the names the
+    input gives (``--at`` names or the fossil table's columns)."""
+    from refit.coefficients import load
+
+    needs: dict[tuple, list[str]] = {}
+    for path in coefficient_files:
+        eq = load(path)
+        needs.setdefault(tuple(eq.predictor_names), []).append(eq.function_id)
+    given = [str(t).partition("=")[0].strip() for t in at] if at else [str(c) for c in columns]
+    missing = {p: ids for p, ids in needs.items() if not set(p) <= set(given)}
+    if not missing:
+        return ("nothing to draw: no paleosol has an estimate (each fit's problem is in the "
+                "table's problem column and in `refit apply`'s output)")
+    expect = "; ".join(f"{', '.join(p)} ({', '.join(dict.fromkeys(ids))})"
+                       for p, ids in missing.items())
+    first = next(iter(missing))[0]
+    where = ("--at gives " + ", ".join(given)) if at else "the table has no such column"
+    fix = f"e.g. --at {first}=100" if at else f"add a {first} column"
+    return (f"nothing to draw: no fit gave an estimate; the fits expect {expect}, and {where}"
+            f"; name the predictor as the fit does ({fix})")

@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 
 from refit._util.flagcodes import FLAG_TRUNCATED, UNTRUNCATED_COLUMNS
+from refit.coefficients.format import CAUTION
 from refit.errors import RefitError
 
 from refit.apply.combine import FLAG_CORRELATED, FLAG_DISAGREE, combine_proxies  # noqa: F401
@@ -226,7 +227,7 @@ RESULT_COLUMNS = [
     "upper", "lower_untruncated", "upper_untruncated", "level", "interval",
     "lower_without_propagation",
     "upper_without_propagation", "propagation", "cv_coverage", "cv_scheme", "flags",
-    "flag_details", "problem",
+    "flag_details", "problem", "citation",
 ]
 
 
@@ -286,7 +287,8 @@ def apply_equations(equations, report, *, level: float | None = None,
                              "file was not applied. Add the column(s) or leave the file "
                              "out."})
             continue
-        cautions += [c for c in (eq.record.get("cautions") or []) if c not in cautions]
+        cautions += [c for c in (eq.record.get("cautions") or [])
+                     if c not in cautions and c != CAUTION]  # CAUTIONS says it already
         out += _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems,
                           level=level, decompact=decompact, seed=seed, n_draws=n_draws)
     results = pd.DataFrame(out, columns=RESULT_COLUMNS)
@@ -443,8 +445,10 @@ def truncated_sides(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
 
 def _file_fields(label: str, rec: dict, level) -> dict:
     """The columns every result row of one coefficient file shares."""
+    from refit.coefficients.citation import short_citation
+
     iv, cv = rec["interval"], rec.get("cv") or {}
-    return {"coefficient_file": label, "function_id": rec["function_id"],
+    return {"citation": short_citation(rec), "coefficient_file": label, "function_id": rec["function_id"],
             "version": rec["version"], "status": rec.get("status", ""),
             "candidate": rec.get("candidate") or "", "direction": rec["direction"],
             "response": rec["response"]["name"], "unit": rec["response"].get("unit", ""),

@@ -18,6 +18,7 @@ from refit.cli.compare import compare
 from refit.cli.demo import demo
 from refit.cli.diff import diff
 from refit.cli.fit import fit
+from refit.cli.init import init
 from refit.cli.keygen import keygen
 from refit.cli.publish import publish
 from refit.cli.report import report
@@ -49,6 +50,6 @@ def main() -> None:
     """
 
 
-for _command in (check, admit, fit, publish, verify, keygen, diff, apply, compare, section,
+for _command in (check, admit, init, fit, publish, verify, keygen, diff, apply, compare, section,
                  report, demo):
     main.add_command(add_common_options(_command))

@@ -125,12 +125,14 @@ def print_results(results, console) -> None:
     from rich.table import Table
     from rich.text import Text
 
+    from refit.apply.compare import fit_label
+
     table = Table(title="Estimates", title_justify="left", title_style="bold")
     for col in ("paleosol", "fit", "estimate", "interval", "level", "MC", "CV cov.",
                 "flags / problem"):
         table.add_column(col, justify="right" if col in ("estimate", "level") else "left")
     for r in results.itertuples(index=False):
-        fit = f"{r.function_id} {r.version} {r.candidate or r.status}".strip()
+        fit = fit_label(r)
         level = "±1 SE" if r.status == "published" and (r.level is None or r.level != r.level) \
             else fmt_number(r.level)
         cov = f"{r.cv_coverage:.0%}" if isinstance(r.cv_coverage, (int, float)) and \

@@ -67,7 +67,7 @@ def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> N
     for severity, frame, style in (("errors", report.errors, "red"),
                                    ("warnings", report.warnings, "yellow")):
         if len(frame):
-            _problem_table(console, frame, severity, style, max_rows)
+            _problem_table(console, frame, severity, style, max_rows, report.kind)
     if len(report.problems):
         _summary_table(console, report.summary())
     n_err, n_warn = len(report.errors), len(report.warnings)
@@ -81,7 +81,7 @@ def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> N
     console.print(verdict)
 
 
-def _problem_table(console, frame, title, style, max_rows) -> None:
+def _problem_table(console, frame, title, style, max_rows, kind="calibration") -> None:
     """One block per (rule, column, value): where and how often, then the reason and fix
     once (a list rather than a grid: the reasons are sentences and stay readable in a
     narrow terminal or a log file)."""
@@ -94,7 +94,8 @@ def _problem_table(console, frame, title, style, max_rows) -> None:
     label = title if len(frame) != 1 else title.rstrip("s")
     console.print(Text(f"{len(frame)} {label} in {plural(len(groups), 'block')} "
                        "(one per rule, column and value)", style=f"bold {style}"))
-    for line in problem_block_lines(groups, max_rows):
+    what = "paleosol " if kind == "fossil" else ""
+    for line in problem_block_lines(groups, max_rows, what=what):
         console.print(Text(line), soft_wrap=True)
     if len(groups) > max_rows:
         console.print(Text(f"... {len(groups) - max_rows} more blocks of {title} "

@@ -393,7 +393,9 @@ def print_problems_and_cautions(result, console) -> None:
     if result.problems:
         console.print(Text(f"{plural(len(result.problems), 'problem')}:", style="bold red"))
         for p in result.problems:
-            where = f"row {p['row']} ({p['paleosol_id']}): " if p.get("row") else ""
+            pid = (f"paleosol {p['paleosol_id']} " if p.get("paleosol_id")
+                   else "a paleosol without an id ")
+            where = f"{pid}(row {p['row']}): " if p.get("row") else ""
             console.print(Text(f"  - {where}{p['message']}"))
     console.print(Text("Cautions:", style="bold"))
     for c in result.cautions:
@@ -475,7 +477,8 @@ def print_run(run, out, console=None) -> None:
              "k-fold score", "R² in", "AIC"]
     for h in heads:
         table.add_column(h, justify="left" if h == "candidate" else "right")
-    for row in m.leaderboard.head(LEADERBOARD_SHOWN).itertuples(index=False):
+    shown = m.leaderboard.head(LEADERBOARD_SHOWN)
+    for row in shown.itertuples(index=False):
         table.add_row(str(row.rank), row.candidate + ("" if row.coverage_ok else " *"),
                       _fmt_cell(row.rmsep), _fmt_cell(row.bias),
                       _fmt_cell(row.coverage, "{:.3f}"), _fmt_cell(row.mean_width),
@@ -485,7 +488,7 @@ def print_run(run, out, console=None) -> None:
     c.print(table)
     if len(m.leaderboard) > LEADERBOARD_SHOWN:
         c.print(f"({len(m.leaderboard) - LEADERBOARD_SHOWN} more in leaderboard.csv)")
-    if not m.leaderboard["coverage_ok"].all():
+    if not shown["coverage_ok"].astype(bool).all():  # a footnote only to a starred row
         c.print(f"* coverage below {r.level - m.tolerance:.1%} falls short of {r.level:.0%} "
                 "(one-sided 95% exact binomial bound): ranked after every candidate that covers")
     c.print("R² in, AIC: fitted on the whole subset, each on its equation's own response "
@@ -577,9 +580,12 @@ def _scheme_text(s) -> str:
     return f"{s.name} {s.folds} folds x {s.repeats} repeat(s){by}, seed {s.seed}"
 
 
-def problem_block_lines(groups, max_blocks: int | None = None) -> list[str]:
+def problem_block_lines(groups, max_blocks: int | None = None, *,
+                        what: str = "") -> list[str]:
     """Text lines of grouped problems (:func:`refit.curate.problems.group_problems`): a
-    line locating each block (rule, column, value, count, rows), then its message once."""
+    line locating each block (rule, column, value, count, rows, and the id of a single
+    row's block, after ``what``: ``"paleosol "`` for a fossil table), then its message
+    once."""
     import textwrap
 
     lines = []
@@ -589,7 +595,7 @@ def problem_block_lines(groups, max_blocks: int | None = None) -> list[str]:
         if g.value:
             where += f" = {g.value!r}"
         if g.rows:
-            pid = f" ({g.profile_id})" if g.profile_id else ""
+            pid = f" ({what}{g.profile_id})" if g.profile_id else ""
             where += f": {plural(int(g.count), 'row')} {g.rows}{pid}"
         lines.append(where)
         lines += textwrap.wrap(str(g.message), width=96, initial_indent="      ",

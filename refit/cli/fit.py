@@ -26,7 +26,9 @@ def _jobs(value: int) -> int:
               callback=lambda ctx, param, value: _jobs(value),
               help="Parallel worker processes for the candidates, 1 or more (-1: all cores; "
                    "1 is usually fastest on 2 cores).")
-@click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
+@click.option("--quiet", "-q", is_flag=True,
+              help="Print nothing but errors (the run folder holds every result); "
+                   "--format json|csv still prints its output.")
 @click.option("--store", "store", type=click.Path(path_type=str), default=None,
               help="Use this calibration store instead of the recipe's [data] (may lie anywhere).")
 @click.option("--table", "table", type=click.Path(dir_okay=False, path_type=str), default=None,
@@ -79,7 +81,7 @@ def fit(recipe, out, overwrite, jobs, quiet, store, table, fmt) -> None:
         emit_csv(run.matrix.leaderboard)
     elif fmt == "json":
         emit_json(run_summary(run, written))
-    else:
+    elif not quiet:
         print_run(run, written)
 
 

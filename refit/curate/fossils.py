@@ -249,13 +249,22 @@ def resolve_constants(work: pd.DataFrame, constants: dict):
         keys = [v for v in (order.iloc[i], lith.iloc[i]) if not pd.isna(v) and v]
         hit = next((constants[v] for v in keys if v in constants), None)
         if hit is None:
-            named = " or ".join(repr(v) for v in keys) or "no soil_order or lithology"
-            reason[i] = f"no compaction constants for {named} (known: " + \
-                ", ".join(sorted(constants)) + ")"
+            reason[i] = _no_constants(keys, constants)
             continue
         si[i], k[i] = hit.initial_solidity, hit.k_per_km
         label[i] = f"{hit.key} ({hit.status}; {hit.source})"
     return si, k, label, reason
+
+
+def _no_constants(keys: list, constants: dict) -> str:
+    """Why a row has no compaction constants: what it names is not known, or it names
+    nothing to look them up by."""
+    known = ", ".join(sorted(constants)) or "none"
+    if not keys:
+        return ("neither soil_order nor lithology is given, so no compaction constants can "
+                f"be looked up (constants are known for: {known})")
+    named = " or ".join(repr(v) for v in keys)
+    return f"no compaction constants for {named} (known: {known})"
 
 
 def decompact_frame(work: pd.DataFrame, constants: dict | None = None):

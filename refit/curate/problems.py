@@ -206,7 +206,8 @@ def _unique_problems(column, pos, values, probs: Problems) -> None:
     where = pd.Series(values).map(listed)
     probs.add("error", "unique-id", pos, column, values,
               f"{column} '" + pd.Series(values) + "' is used by rows " + where
-              + "; every profile needs its own id. Rename one or remove the duplicate.")
+              + f"; every {'paleosol' if column == 'paleosol_id' else 'profile'} needs its own "
+              "id. Rename one or remove the duplicate.")
 
 
 #: Row numbers listed in one group of problems before "and N more".

@@ -20,6 +20,11 @@ from refit.curate.problems import Problems, fmt_values
 from refit.curate.vocabularies import VOCABULARY_COLUMNS
 
 
+#: the key of the row's id in :meth:`CheckReport.to_dict` by table kind (the problems frame
+#: calls it ``profile_id`` for both; a fossil table's rows are paleosols)
+ID_KEY = {"fossil": "paleosol_id"}
+
+
 @dataclass
 class CheckReport:
     """The outcome of checking one table.
@@ -88,7 +93,8 @@ class CheckReport:
                 for r, s, c in self.summary().itertuples(index=False)
             ],
             "problems": [
-                {k: (int(v) if k == "row" and v is not None else v) for k, v in rec.items()}
+                {(ID_KEY.get(self.kind, k) if k == "profile_id" else k):
+                 (int(v) if k == "row" and v is not None else v) for k, v in rec.items()}
                 for rec in probs.to_dict(orient="records")
             ],
             "notes": list(self.notes),

@@ -177,3 +177,33 @@ def build_schema(descriptor: dict[str, Any] | None = None, *, columns=None):
         cols, strict=False, name=descriptor.get("name"), title=descriptor.get("title"),
         description=descriptor.get("$comment"),
     )
+
+
+def notation(name: str, unit: str | None = None) -> str:
+    """A column as figures and tables name it: ``MAP [mm]``, ``MAT [°C]``,
+    ``Depth to Bk [cm]``, ``CIA-K``.
+
+    The symbol comes from the descriptor's ``x-refit-notation`` (else the field's
+    ``title``, else the name itself) and the unit is printed in its usual notation
+    (``degC`` as ``°C``).
+
+    Parameters
+    ----------
+    name : str
+        A canonical column or derived-index name.
+    unit : str, optional
+        The unit to print (e.g. a coefficient file's); default the field's own.
+    """
+    desc = load_descriptor()
+    note = desc.get("x-refit-notation", {})
+    field = fields(desc).get(name, {})
+    symbol = note.get("symbols", {}).get(name) or field.get("title") or name
+    unit = unit_notation(field.get("unit", "") if unit is None else str(unit))
+    return f"{symbol} [{unit}]" if unit else symbol
+
+
+def unit_notation(unit: str) -> str:
+    """A unit code as printed: ``degC`` -> ``°C``, ``percent`` -> ``wt%`` (the descriptor's
+    ``x-refit-notation``); other codes unchanged."""
+    units = load_descriptor().get("x-refit-notation", {}).get("units", {})
+    return units.get(str(unit), str(unit))

@@ -32,9 +32,11 @@ def unit_of(record: dict, name: str) -> str:
 
 
 def axis_label(record: dict, name: str) -> str:
-    """``bk_depth_cm [cm]``: the glossary name with its unit."""
-    unit = unit_of(record, name)
-    return f"{name} [{unit}]" if unit else name
+    """``Depth to Bk [cm]``, ``MAP [mm]``: the column in the schema's notation, with the
+    unit the file records (:func:`refit.curate.schema.notation`)."""
+    from refit.curate.schema import notation
+
+    return notation(name, unit_of(record, name))
 
 
 def _turning(fit):

@@ -101,7 +101,8 @@ def leaderboard(board, chosen: str) -> dict:
                  if k in board.columns]
         rows.append({"cells": cells, "chosen": rec["candidate"] == chosen,
                      "honest": bool(rec.get("coverage_ok"))})
-    return {"header": [h for k, h, _ in _BOARD if k in board.columns], "rows": rows}
+    return {"header": [h for k, h, _ in _BOARD if k in board.columns], "rows": rows,
+            "any_short": any(not r["honest"] for r in rows)}
 
 
 def cv_comparison(inp) -> dict:

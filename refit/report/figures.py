@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from refit.curate.schema import unit_notation
 from refit.report import style as st
 
 
@@ -165,7 +166,8 @@ def residuals(fitted, resid, qq, *, y_label: str, studentized=None, unit: str = 
                    label="LOWESS trend")
             a.legend(loc="upper right")
         a.set_xlabel(f"fitted {y_label}")
-        a.set_ylabel(f"residual (observed - fitted){f' [{unit}]' if unit else ''}")
+        shown = f" [{unit_notation(unit)}]" if unit else ""
+        a.set_ylabel(f"residual (observed - fitted){shown}")
         a.set_title("Residuals against fitted values")
         b.plot(osm, osr, ls="none", marker="o", mfc="white", mec=st.DATA, mew=0.9, ms=4.2,
                gid="qq-points")
@@ -348,7 +350,8 @@ def coverage_width(ranks, coverage, width, kfold_coverage, kfold_width, *, level
                    ms=5.5, gid="random-kfold", label="random k-fold")
         a.plot(wid, cov, ls="none", marker="o", color=st.GROUPED, ms=6, gid="scheme",
                label=scheme)
-        a.set_xlabel(f"mean interval width{f' [{unit}]' if unit else ''}")
+        shown = f" [{unit_notation(unit)}]" if unit else ""
+        a.set_xlabel(f"mean interval width{shown}")
         a.set_ylabel("out-of-fold coverage")
         a.yaxis.set_major_formatter(_percent())
         a.set_title("Coverage against width (labels: leaderboard rank)")

@@ -86,12 +86,10 @@ def age_axis_label(name: str) -> str:
 def fit_name(row) -> str:
     """A fit's name in the legend: a literature equation by its file's name (which
     carries the source), a refit fit by function, version and candidate."""
-    stem = Path(str(row["coefficient_file"] or "")).stem
     if row["function_id"] == "posterior":
         return "posterior of all proxies together (refit)"
     if row["origin"] == "literature":
-        return (stem if stem and stem != str(row["function_id"]) else str(row["fit"])) + \
-            " (published)"
+        return f"{row['fit']} (published)"
     return f"{row['fit']} (refit)"
 
 
@@ -187,8 +185,10 @@ def _limits(ax, g, axis: str, span: float) -> tuple[float, float]:
     pad = 0.06 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(abs(hi_ax) * 0.1, 1.0)
     ax.set_xlim(lo_ax - pad, hi_ax + 4 * pad)  # room at the right for labels
     ax.set_ylim(float(np.nanmin(y_all)) - 0.06 * span, float(np.nanmax(y_all)) + 0.06 * span)
-    ax.set_xlabel(f"{g['response'].iloc[0]} [{g['unit'].iloc[0]}]")
-    ax.set_title(str(g["response"].iloc[0]))
+    from refit.curate.schema import notation
+
+    ax.set_xlabel(notation(str(g["response"].iloc[0]), str(g["unit"].iloc[0])))
+    ax.set_title(notation(str(g["response"].iloc[0]), ""))
     return lo_ax - pad, hi_ax + 4 * pad
 
 

@@ -215,9 +215,13 @@ def section(inp) -> dict:
         coverage_by_group(_groups_by_row(inp.oof, frame, groups), groups, scheme),
         on="group", how="left")
     ri = spread(fit, resid, groups)
+    from refit.curate.schema import notation
+
+    symbol = notation(fit.y_name, "")
     unit = unit_of(inp.record, fit.y_name)
-    y_label = (f"ln {fit.y_name} residual" if fit.form.log_response
-               else f"{fit.y_name} residual{f' [{unit}]' if unit else ''}")
+    y_label = (f"ln {symbol} residual" if fit.form.log_response
+               else f"{notation(fit.y_name, unit).replace(' [', ' residual [', 1)}"
+               if unit else f"{symbol} residual")
     names = table["group"].tolist()
     by = {g: resid[groups == g] for g in names}
     fig = fg.by_source(names, [by[g] for g in names], table["n"].tolist(),

@@ -26,7 +26,7 @@ def test_at_values_table():
     assert r["paleosol_id"] == "at bk_depth_cm=100"
     assert r["estimate"] == pytest.approx(648.1, abs=0.05)
     assert r["width"] == pytest.approx(282.0, abs=1e-9)
-    assert r["fit"] == "map_from_bk_depth 1.0.0 published"
+    assert r["fit"] == "Retallack 1994, from bk_depth"  # by its short citation, not its id
     assert "published-plus-minus-only" in r["flags"]
     assert result.problems == []
 

@@ -207,7 +207,7 @@ def help_examples(command) -> list[str]:
     return out
 
 
-ORDER = ("check", "admit", "fit", "report", "keygen", "publish", "verify", "diff", "apply",
+ORDER = ("check", "admit", "init", "fit", "report", "keygen", "publish", "verify", "diff", "apply",
          "compare", "section")
 
 
@@ -238,13 +238,18 @@ def test_every_help_example_runs_in_the_demo_folder(demo_run, tmp_path, monkeypa
             res = CliRunner().invoke(main, args)
             assert res.exit_code in (0, 1), f"{example}\n{res.output}"
             assert "Error: unexpected" not in res.output and "Traceback" not in res.output
-            if name in ("fit", "report", "keygen", "publish", "diff", "compare", "section"):
+            if name in ("init", "fit", "report", "keygen", "publish", "diff", "compare", "section"):
                 assert res.exit_code == 0, f"{example}\n{res.output}"
             if target:
                 (folder / target).write_text(res.stdout, encoding="utf-8")
                 assert (folder / target).stat().st_size > 0
             ran += 1
     assert ran >= 20
+    from refit.select.recipe import read_recipe
+
+    drafted = read_recipe(folder / "my-recipe.toml")  # `refit init store` wrote it
+    assert (drafted.response, drafted.predictors, drafted.groups) == (
+        "map_mm", ("bk_depth_cm",), "source")
     # what they wrote, re-opened
     board = pd.read_csv(folder / "leaderboard.csv")
     assert list(board.columns)[:2] == ["rank", "candidate"] and len(board) > 5

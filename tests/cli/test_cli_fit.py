@@ -76,7 +76,7 @@ def no_traceback(result):
 def test_table_recipe_writes_the_run_folder(tmp_path):
     recipe = table_case(tmp_path)
     out = tmp_path / "run"
-    r = invoke(recipe, "--out", out, "--quiet")
+    r = invoke(recipe, "--out", out)  # -q would print nothing but errors
     assert r.exit_code == 0, r.output
     # 2 forms x 2 estimators x 2 directions x 2 methods = 16; valid: OLS and Huber inverse
     # x 2 methods x 2 forms (8; Huber's resampling interval refits Huber), OLS/Huber
@@ -143,7 +143,7 @@ def test_demo_recipe_on_the_store(demo):
     # keep the test short.
     recipe = demo / "recipe.toml"
     recipe.write_text(recipe.read_text().replace("repeats = 5", "repeats = 2"))
-    r = invoke(recipe, "--out", demo / "run", "-q")
+    r = invoke(recipe, "--out", demo / "run")
     assert r.exit_code == 0, r.output
     manifest = json.loads((demo / "store" / "manifest.json").read_text())
     assert f"dataset version {manifest['version']}" in r.stdout
@@ -280,7 +280,7 @@ def test_grouped_defaults_and_unbounded_intervals_are_printed(tmp_path):
                     'groups = "source"\nfolds = 2\n\n[intervals]\nlevel = 0.9\n',
                     encoding="utf-8")
     out = tmp_path / "run"
-    r = invoke(path, "--out", out, "--quiet")
+    r = invoke(path, "--out", out)
     assert r.exit_code == 0, r.output
     assert "Default: scheme defaults to 'group-kfold'" in r.stdout
     assert "Default: estimators default to 'ols' and 'mixed'" in r.stdout
@@ -298,7 +298,7 @@ def test_grouped_defaults_and_unbounded_intervals_are_printed(tmp_path):
 def test_random_kfold_warning_is_printed_and_kept(tmp_path):
     recipe = table_case(tmp_path, scheme="kfold", groups=None)
     out = tmp_path / "run"
-    r = invoke(recipe, "--out", out, "--quiet")
+    r = invoke(recipe, "--out", out)
     assert r.exit_code == 0, r.output
     run = json.loads((out / "run.json").read_text())
     ratio = run["source_check"]["rmsep_ratio"]

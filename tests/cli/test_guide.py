@@ -35,7 +35,7 @@ def test_the_guide_links_resolve():
     assert "## Recipe reference" in readme and "## Coefficient files" in readme
     assert "calib_demo/guide/README.md" in readme
     for name in re.findall(r"`(my_[a-z_]+\.(?:csv|toml))`", text):
-        if name in ("my_check.json",):
+        if name in ("my_check.json", "my_draft.toml"):
             continue
         assert (GUIDE / name).is_file() or name.startswith(("my_estimates", "my_leaderboard")), name
 
@@ -75,3 +75,12 @@ def test_every_guide_command_runs_in_order(tmp_path, monkeypatch):
     assert not est["flags"].fillna("").str.contains("not-decompacted").any()
     assert (work / "my_compare" / "comparison.png").is_file()
     assert (work / "my_report.html").read_text(encoding="utf-8").count("map_mm =") >= 1
+    # the draft `refit init` wrote loads, with the choices the guide's text names
+    from refit.select.recipe import read_recipe
+
+    draft = read_recipe(work / "my_draft.toml")
+    assert (draft.response, draft.predictors, draft.groups) == ("map_mm", ("bk_depth_cm",),
+                                                                "source")
+    assert draft.scheme == "leave-one-group-out" and draft.store == (work / "my_store").resolve()
+    assert '# parent_material = "loess"   # 32 soils' in (work / "my_draft.toml").read_text()
+    assert int((soils["parent_material"] == "loess").sum()) == 32  # pandas' count

@@ -76,7 +76,7 @@ def test_flags_are_named_and_explained_in_the_legend(result):
     legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
     assert "published ±1 SE (not a prediction interval)" in legend
     assert "hollow: flagged" in legend
-    assert "map_from_bk_depth.retallack1994 (published)" in legend
+    assert "Retallack 1994, from bk_depth (published)" in legend  # its short citation
 
 
 @pytest.mark.parametrize("section", ["Coldstave Gorge", "Murrenhal Bluff"])

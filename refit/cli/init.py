@@ -1,0 +1,64 @@
+"""`refit init`: write a commented first recipe for a calibration table or store."""
+
+from __future__ import annotations
+
+import click
+
+from refit.cli.common import guarded, is_quiet, stdout_console
+
+
+@click.command("init", short_help="Write a commented first recipe for a table or store.")
+@click.argument("data", metavar="TABLE_OR_STORE", type=click.Path(path_type=str))
+@click.option("--out", "out", type=click.Path(dir_okay=False, path_type=str),
+              default="recipe.toml", show_default=True, help="The recipe file to write.")
+@click.option("--force", "--overwrite", "force", is_flag=True,
+              help="Replace an existing recipe file.")
+@guarded
+def init(data, out, force) -> None:
+    """Write a commented recipe for a calibration TABLE_OR_STORE, ready to edit.
+
+    Reads the table (csv, tsv, xlsx, parquet; units and column names mapped as `refit
+    check` maps them) or the store folder, and writes a recipe that lists the columns
+    found (and those that map to no canonical name), suggests a response, a predictor
+    and a groups column for grouped cross-validation with the reason for each, offers
+    the subset filters with the number of soils each keeps, and fills forms, estimators,
+    schemes and interval methods with refit's own defaults. The recipe loads as written:
+    `refit fit` runs on it.
+
+    \b
+    Exit codes: 0 written, 1 nothing to fit (no climate or no feature column with
+    values), 2 unreadable input, or the recipe file exists (pass --force).
+
+    \b
+    Examples:
+      refit init store --out my-recipe.toml
+      refit init incoming_soils.csv --out incoming.toml --force
+    """
+    from pathlib import Path
+
+    from refit._util.atomic import write_text_atomic
+    from refit.errors import UsageError
+    from refit.select.scaffold import scaffold
+
+    target = Path(out)
+    if target.exists() and not force:
+        raise UsageError(f"{out} already exists; pass --force to replace it, or choose "
+                         "another --out")
+    text, sv, pick = scaffold(data, target)
+    write_text_atomic(target, text)
+    if is_quiet():
+        return
+    console = stdout_console()
+    groups = pick["groups"].value
+    console.print(f"Wrote {out}: {pick['response'].value} from {pick['predictor'].value} on "
+                  f"{pick['n_usable'].value} of {sv.n_rows} records"
+                  + (f", groups {groups!r}" if groups else ", no groups column"), markup=False)
+    if sv.n_errors:
+        console.print(f"Warning: the table has {sv.n_errors} error(s); `refit fit` refuses it "
+                      f"until they are fixed (`refit check {data}`), or admit it to a store.",
+                      markup=False)
+    import tomllib
+
+    data_key = "" if tomllib.loads(text)["data"] else f" --{sv.kind} {data}"
+    console.print(f"Edit it (the comments say what each line does), then: refit fit {out}"
+                  f"{data_key} --out run", markup=False)
