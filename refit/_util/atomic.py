@@ -43,8 +43,16 @@ def write_bytes_atomic(path: Path | str, data: bytes) -> None:
     private 0600 that temporary files start with.
     """
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=TMP_PREFIX + path.name + ".", dir=path.parent)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=TMP_PREFIX + path.name + ".", dir=path.parent)
+    except (FileNotFoundError, FileExistsError, NotADirectoryError, IsADirectoryError) as exc:
+        from refit.errors import UsageError
+
+        where = exc.filename or path.parent
+        raise UsageError(f"{path} cannot be written: {exc.strerror or exc} ({where}); its "
+                         "folder is not one files can be made in. Choose another output "
+                         "path") from None
     try:
         os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:

@@ -48,7 +48,7 @@ def guarded(fn: F) -> F:
             if message is None:
                 raise_unexpected(exc)
             click.echo(f"Error: {message}", err=True)
-            sys.exit(1)
+            sys.exit(2 if _is_path_problem(exc) else 1)
         except RecursionError:
             click.echo("Error: an input is nested too deeply to be read (JSON or TOML nested "
                        "thousands of levels); check the files named on the command line",
@@ -66,18 +66,34 @@ _WRITE_REFUSED = {"EACCES": "permission denied", "EPERM": "not permitted",
                   "EDQUOT": "the disk quota is used up"}
 
 
+#: errno values that mean a path on the command line names nothing usable
+_PATH_PROBLEM = {"ENOENT": "no such file or folder", "ENOTDIR": "a part of the path is a file",
+                 "EEXIST": "a file stands where a folder is needed",
+                 "EISDIR": "a folder stands where a file is needed"}
+
+
 def os_error_message(exc: OSError) -> str | None:
     """One line for a write the file system refused (read-only, full, no permission);
     None for any other OSError. Nothing half-written stays: writes are atomic."""
     import errno
 
     name = errno.errorcode.get(exc.errno or 0, "")
+    if name in _PATH_PROBLEM:
+        return (f"{exc.filename or 'a path'}: {_PATH_PROBLEM[name]} ({exc.strerror}); check "
+                "the paths on the command line: an input must exist, an output folder must "
+                "be one that can be made there")
     if name not in _WRITE_REFUSED:
         return None
     where = exc.filename or "a file"
     return (f"{where}: {_WRITE_REFUSED[name]} ({exc.strerror}); nothing was changed (writes "
             "are atomic): free space, make the folder writable or choose another one, then "
             "run the command again")
+
+
+def _is_path_problem(exc: OSError) -> bool:
+    import errno
+
+    return errno.errorcode.get(exc.errno or 0, "") in _PATH_PROBLEM
 
 
 def raise_unexpected(exc: BaseException) -> None:

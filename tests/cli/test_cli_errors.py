@@ -94,3 +94,30 @@ def test_no_numpy_warning_leaks_from_apply_compare_diff(fits, tmp_path):
         expected = {"apply": 1, "compare": 2, "diff": 0}[args[0]]
         assert code == expected, (args, out[-400:])
         assert "Warning" not in out and "overflow" not in out and "unexpected" not in out
+
+
+@pytest.mark.parametrize("verb", ["init", "compare", "section", "apply", "report", "fit"])
+@pytest.mark.parametrize("where", ["under-a-file", "proc"])
+def test_an_output_path_that_cannot_be_made_is_one_line_and_exit_2(fits, tmp_path, verb,
+                                                                    where):
+    # before: 'unexpected FileNotFoundError ... This is a refit bug' (found by trying
+    # --out under /proc and under a file); exit 2 is the contract's "usage" code
+    blocker = tmp_path / "a-file.txt"
+    blocker.write_text("x")
+    out = (blocker / "out") if where == "under-a-file" else "/proc/refit-cannot-be-here"
+    fossils = tmp_path / "fossils.csv"
+    fossils.write_text("paleosol_id,section,level_m,bk_depth_cm\nA,S1,1,40\nB,S1,2,60\n")
+    run_dir = fits.parent
+    recipe = run_dir.parent / "trial-recipe.toml"
+    recipe.write_text(recipe_toml(data={"store": "store"}), "utf-8")
+    args = {"init": ["init", run_dir.parent / "store", "--out", f"{out}.toml"],
+            "compare": ["compare", fits / LINEAR, "--at", "bk_depth_cm=50", "--out", out],
+            "section": ["section", fits / LINEAR, "--fossils", fossils, "--out", out],
+            "apply": ["apply", fits / LINEAR, "--fossils", fossils, "--out", f"{out}.csv"],
+            "report": ["report", run_dir, "--out", f"{out}.html"],
+            "fit": ["fit", recipe, "--out", out]}[verb]
+    code, text = cli(*args)
+    lines = text.strip().splitlines()
+    assert code == 2, text
+    assert lines[-1].startswith("Error: ") and "refit bug" not in text, text
+    assert "cannot be written" in lines[-1] or "check the paths" in lines[-1], text
