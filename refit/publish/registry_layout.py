@@ -180,8 +180,8 @@ def read_index(path, create: bool = False) -> Registry:
     if not path.exists():
         if create:
             return Registry(path, empty_index())
-        raise UnreadableInputError(f"registry {path} not found; check the path, or pass --init "
-                                   "to start a new registry there")
+        raise UnreadableInputError(f"registry {path} not found; check the path (a new registry "
+                                   "is started by `refit publish FIT --to PATH --init`)")
     if not path.is_dir():
         raise UnreadableInputError(f"registry {path} is a file; name the registry folder")
     if not index_path.is_file():
@@ -190,7 +190,8 @@ def read_index(path, create: bool = False) -> Registry:
         raise UnreadableInputError(
             f"{path} is not a refit registry (no {INDEX}); "
             + ("the folder is not empty, choose another" if create else
-               "check the path, or pass --init to start a new registry in an empty folder"))
+               "check the path (a new registry is started in an empty folder by `refit "
+               "publish FIT --to PATH --init`)"))
     check_inside(path, index_path)
     try:
         index = json.loads(index_path.read_text("utf-8"))

@@ -121,3 +121,10 @@ def test_an_output_path_that_cannot_be_made_is_one_line_and_exit_2(fits, tmp_pat
     assert code == 2, text
     assert lines[-1].startswith("Error: ") and "refit bug" not in text, text
     assert "cannot be written" in lines[-1] or "check the paths" in lines[-1], text
+
+
+def test_a_missing_registry_names_the_command_that_starts_one(tmp_path):
+    # before: `refit diff ... --registry nope` advised "pass --init", an option diff lacks
+    code, out = cli("diff", "map_from_bk_depth", "1.0.0", "--registry", tmp_path / "nope")
+    assert code == 2 and "refit publish FIT --to PATH --init" in out, out
+    assert "pass --init" not in out
