@@ -275,6 +275,14 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
         groups = v.string("validation.groups", val["groups"])
     given = {k: sec[k] for sec, k in ((val, "scheme"), (cand, "estimators"), (ivl, "methods"))
              if k in sec}
+    # each given value checked for its type before the defaults read it
+    if "scheme" in given:
+        given["scheme"] = v.string("validation.scheme", given["scheme"])
+    if "estimators" in given:
+        given["estimators"] = list(v.list_of("candidates.estimators", given["estimators"],
+                                             ESTIMATORS))
+    if "methods" in given:
+        given["methods"] = list(v.list_of("intervals.methods", given["methods"], METHODS))
     filled, notes = resolve(given, groups)
     scheme = v.choice("validation.scheme", canonical_scheme(filled["scheme"]), SCHEMES,
                       aliases=tuple(ALIASES))

@@ -127,3 +127,17 @@ def test_a_wrong_value_is_quoted_short(tmp_path):
     with pytest.raises(UsageError) as err:
         read_recipe(path)
     assert len(str(err.value)) < 600 and "100,002 characters" in str(err.value)
+
+
+@pytest.mark.parametrize("section, key, value, says", [
+    ("candidates", "estimators", False, "estimators must be a non-empty list; got False"),
+    ("intervals", "methods", {"a": 1}, "methods must be a non-empty list"),
+    ("validation", "scheme", 3, "scheme must be a non-empty text in quotes; got 3"),
+])
+def test_a_wrongly_typed_value_the_defaults_read_is_refused(tmp_path, section, key, value,
+                                                           says):
+    # found by the long fuzzing run (hypothesis, 10,000 recipes): `estimators = false`
+    # reached the defaults and ended in "unexpected TypeError ... refit bug"
+    path = write(tmp_path, recipe_toml(**{section: {key: value}}))
+    with pytest.raises(UsageError, match=says):
+        read_recipe(path)
