@@ -171,8 +171,8 @@ def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str
     from refit.report.section_layout import drawable
 
     style_of = colours(table)
-    t = drawable(table[table["section"] == page.section], axis)
-    t = t[t["fit"].isin(page.fits)]
+    whole = drawable(table[table["section"] == page.section], axis)
+    t = whole[whole["fit"].isin(page.fits)]
     n, common = len(page.panels), common_flags(t)
     width = (PANEL_WIDTH if split else 4.6) * n + 0.4
     with style.styled():
@@ -201,7 +201,7 @@ def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str
         else:
             fig.legend(handles=handles, loc="outside lower center", ncol=ncol,
                        fontsize=7.5)
-        clips = _frame(axes, page, t, axis, y_label, split)
+        clips = _frame(axes, page, whole, axis, y_label, split)
         more = f" (page {page.number} of {page.count})" if page.count > 1 else ""
         fig.suptitle(f"{page.section}: climate up the section{more}", x=0.01, ha="left",
                      fontsize=11, fontweight="bold")
@@ -214,9 +214,10 @@ def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str
 
 
 def _frame(axes, page: SectionPage, t, axis: str, y_label: str, split: bool) -> list:
-    """Limits, labels and titles of every panel of a page: one level (or age) range for
-    the page and one x range per quantity, so panels side by side compare at a glance.
-    Returns the x range the intervals of each panel are clipped to."""
+    """Limits, labels and titles of every panel of a page: one level (or age) range and
+    one x range per quantity for the whole section ``t`` (every page alike), so panels
+    side by side compare at a glance. Returns the x range the intervals of each panel
+    are clipped to."""
     from refit.curate.schema import notation
 
     y_all = yvalues(t, axis)
