@@ -303,11 +303,14 @@ def read_section_table(path):
     for c in ("lower_untruncated", "upper_untruncated"):
         if c not in table.columns:
             table[c] = np.nan
+    if "variant" not in table.columns:    # written before variants were shown
+        table["variant"] = ""
     missing = [c for c in TABLE_COLUMNS if c not in table.columns]
     if missing:
         raise InvalidDataError(f"{target} lacks {', '.join(missing)}: rerun `refit section`")
     for c in ("section", "paleosol_id", "fit", "origin", "response", "unit", "flags",
-              "problem", "interval_kind", "coefficient_file", "age_unit", "function_id"):
+              "problem", "interval_kind", "coefficient_file", "age_unit", "function_id",
+              "variant"):
         table[c] = table[c].astype(object).fillna("").astype(str)
     return table
 
