@@ -5,8 +5,8 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    fossil_options, guarded, posterior_options, posterior_prior, print_problems_and_cautions,
-    stdout_console,
+    finish, fossil_options, guarded, posterior_options, posterior_prior,
+    print_problems_and_cautions, problems_failure, stdout_console,
 )
 
 
@@ -99,4 +99,4 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
     for warning in result.applied.warnings:
         console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result.applied, console)
-    ctx.exit(0 if result.applied.ok else 1)
+    finish(result.applied.ok, problems_failure(result.applied, "section"))
