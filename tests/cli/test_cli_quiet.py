@@ -10,9 +10,9 @@ import shutil
 from pathlib import Path
 
 import pytest
+from _harness import LINEAR, QUADRATIC, make_fits
 from click.testing import CliRunner
 
-from _harness import LINEAR, QUADRATIC, make_fits
 from refit.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]

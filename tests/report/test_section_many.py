@@ -18,7 +18,10 @@ import pytest
 from refit.apply.section import section_files
 from refit.report.section_layout import FITS_PER_PANEL, PALETTE, PANELS_PER_PAGE
 from refit.report.section_plot import (
-    figure_contents, section_figure, section_pages, write_section,
+    figure_contents,
+    section_figure,
+    section_pages,
+    write_section,
 )
 
 
