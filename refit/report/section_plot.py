@@ -339,7 +339,7 @@ def report_section(path) -> dict:
 def caption(table) -> str:
     """What the section figures show, in words."""
     fits = list(dict.fromkeys(table["fit"]))
-    return (f"Each figure is one section: the estimates of {len(fits)} fit(s) for every "
+    return (f"Each figure is one section (or a page of one): the estimates of {len(fits)} fit(s) for every "
             "paleosol against its stratigraphic level (or age), one colour and marker per "
             f"fit{_split_words(table)}, the estimates of a fit joined up-section by thin straight lines (not a "
             "model). Solid bars are prediction intervals; dashed bars with end ticks are "

@@ -156,6 +156,13 @@ def test_more_fits_than_a_figure_holds_go_to_pages(many, tmp_path):
                                           np.sort(t.loc[t["fit"] == fit, "estimate"]))
         for fig in figs:
             _legend_clear(fig)
+    # the report embeds every page, each named
+    from refit.report.section_plot import report_section
+
+    part = report_section(tmp_path / "s")
+    assert [(f["section"], f["page_label"]) for f in part["figures"]] == [
+        ("Alpha", " (page 1 of 2)"), ("Alpha", " (page 2 of 2)"),
+        ("Beta", " (page 1 of 2)"), ("Beta", " (page 2 of 2)")]
     # every fit's numbers stay in the table: 23 fits x 9 paleosols
     csv = pd.read_csv(written[0])
     assert csv["fit"].nunique() == 23 and len(csv) == 23 * 9
