@@ -20,7 +20,7 @@ import pandas as pd
 from refit.errors import UsageError
 
 TABLE_COLUMNS = [
-    "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
+    "paleosol_id", "fit", "coefficient_file", "function_id", "version", "variant", "status",
     "response", "unit", "predictors_used", "estimate", "lower", "upper",
     "lower_untruncated", "upper_untruncated", "width", "level",
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin", "citation",
@@ -83,13 +83,27 @@ def fit_label(r) -> str:
     """Short row label: a literature equation by its short citation and what it is of
     ("Retallack 1994, from bk_depth"; the part of its function id after ``_from_``, so a
     paper with several equations names each), a refit by function id, version and
-    candidate."""
+    candidate. A named variant (:func:`refit.coefficients.format.variant_of`; not the
+    unnamed default) follows the version ("map_from_bk_depth 1.1.0 mixed
+    linear__mixed__inverse__analytic"), so two variants at one version stay apart."""
+    variant = variant_label(getattr(r, "variant", ""))
     cite = getattr(r, "citation", "")
     if isinstance(cite, str) and cite and not getattr(r, "candidate", ""):
         fid = str(r.function_id)
-        return f"{cite}, {'from ' + fid.split('_from_', 1)[1] if '_from_' in fid else fid}"
+        what = "from " + fid.split("_from_", 1)[1] if "_from_" in fid else fid
+        return f"{cite}, {what}" + (f", {variant}" if variant else "")
     what = r.candidate if getattr(r, "candidate", "") else r.status
-    return f"{r.function_id} {r.version} {what}".strip()
+    return " ".join(str(s) for s in (r.function_id, r.version, variant, what) if s).strip()
+
+
+def variant_label(value) -> str:
+    """The variant as a label shows it: its name, or ``""`` for the default variant, an
+    unpublished candidate's none, or a missing value (a table from an older refit)."""
+    from refit.coefficients.format import DEFAULT_VARIANT
+
+    if not isinstance(value, str) or value in ("", DEFAULT_VARIANT):
+        return ""
+    return value
 
 
 def coverage_text(coverage, scheme, level, interval) -> str:

@@ -222,7 +222,7 @@ def _draws(frame: pd.DataFrame, i: int, preds, decompact: bool, record, rng, n: 
 
 # ----------------------------------------------------------------------------- apply
 RESULT_COLUMNS = [
-    "paleosol_id", "row", "coefficient_file", "function_id", "version", "status",
+    "paleosol_id", "row", "coefficient_file", "function_id", "version", "variant", "status",
     "candidate", "direction", "response", "unit", "predictors_used", "estimate", "lower",
     "upper", "lower_untruncated", "upper_untruncated", "level", "interval",
     "lower_without_propagation",
@@ -446,10 +446,12 @@ def truncated_sides(rows: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
 def _file_fields(label: str, rec: dict, level) -> dict:
     """The columns every result row of one coefficient file shares."""
     from refit.coefficients.citation import short_citation
+    from refit.coefficients.format import variant_of
 
     iv, cv = rec["interval"], rec.get("cv") or {}
     return {"citation": short_citation(rec), "coefficient_file": label, "function_id": rec["function_id"],
-            "version": rec["version"], "status": rec.get("status", ""),
+            "version": rec["version"], "variant": variant_of(rec) or "",
+            "status": rec.get("status", ""),
             "candidate": rec.get("candidate") or "", "direction": rec["direction"],
             "response": rec["response"]["name"], "unit": rec["response"].get("unit", ""),
             "level": level, "interval": iv.get("label") or iv["method"],

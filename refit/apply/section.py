@@ -35,7 +35,7 @@ from refit.errors import InvalidDataError, UsageError
 #: columns of the long-format section table (one row per paleosol and fit)
 TABLE_COLUMNS = [
     "section", "paleosol_id", "row", "level_m", "age", "age_sd", "age_unit", "fit",
-    "function_id", "version", "origin", "response", "unit", "estimate", "lower", "upper",
+    "function_id", "version", "variant", "origin", "response", "unit", "estimate", "lower", "upper",
     "lower_untruncated", "upper_untruncated", "level", "interval_kind", "flags", "problem",
     "coefficient_file",
 ]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded, render_admit
+from refit.cli.common import finish, guarded, render_admit, say
 
 
 @click.command("admit", short_help="Admit new soils into a versioned calibration store.")
@@ -88,9 +88,10 @@ def admit(table: str | None, store: str | None, repair: str | None, dry_run: boo
     if fmt == "json":
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False, default=str))
     else:
-        click.echo("\n".join(render_admit(result, max_rows=max_rows)))
+        say("\n".join(render_admit(result, max_rows=max_rows)))
     if strict and result.rejected:
-        raise SystemExit(1)
+        finish(False, f"{table}: {result.rejected} row(s) rejected (--strict); they "
+                      "are in the store's quarantine, `refit admit` without -q lists them")
 
 
 def _repair(store: str) -> None:
@@ -98,8 +99,8 @@ def _repair(store: str) -> None:
 
     changes = repair_manifest(store)
     if not changes:
-        click.echo(f"{store}: manifest.json already agrees with records.csv; nothing changed.")
+        say(f"{store}: manifest.json already agrees with records.csv; nothing changed.")
         return
-    click.echo(f"{store}: manifest.json rebuilt from records.csv:")
+    say(f"{store}: manifest.json rebuilt from records.csv:")
     for change in changes:
-        click.echo(f"  - {change}")
+        say(f"  - {change}")

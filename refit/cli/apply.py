@@ -5,8 +5,9 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    emit_csv, emit_json, fmt_number, format_option, fossil_options, guarded,
-    posterior_options, posterior_prior, print_problems_and_cautions, stdout_console,
+    emit_csv, emit_json, finish, fmt_number, format_option, fossil_options, guarded,
+    posterior_options, posterior_prior, print_problems_and_cautions, problems_failure,
+    stdout_console,
 )
 
 
@@ -89,7 +90,7 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
     for warning in result.warnings:  # e.g. depths applied without decompaction
         console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
-    ctx.exit(0 if result.ok else 1)
+    finish(result.ok, problems_failure(result, "apply"))
 
 
 def _emit(result, fmt: str) -> None:

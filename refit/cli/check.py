@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import compact_notes, guarded, plural, stdout_console
+from refit.cli.common import compact_notes, finish, guarded, plural, stdout_console
 
 MAX_ROWS_DEFAULT = 50
 
@@ -53,7 +53,8 @@ def check(ctx, table, kind, fmt, vocab_files, sheet, max_rows) -> None:
         click.echo(json.dumps(report.to_dict(), ensure_ascii=False, indent=1))
     else:
         print_report(report, max_rows=max_rows)
-    ctx.exit(0 if report.ok else 1)
+    finish(report.ok, f"{report.path}: {plural(len(report.errors), 'error')} found; "
+                      "`refit check` without -q lists them")
 
 
 def print_report(report, *, max_rows: int = MAX_ROWS_DEFAULT, console=None) -> None:

@@ -31,10 +31,15 @@ def guarded(fn: F) -> F:
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
+        import warnings
+
         from refit.errors import RefitError
 
         try:
-            return fn(*args, **kwargs)
+            with warnings.catch_warnings():
+                if is_quiet():   # -q: nothing but errors, not even a library's warning
+                    warnings.simplefilter("ignore")
+                return fn(*args, **kwargs)
         except RefitError as exc:
             click.echo(f"Error: {exc}", err=True)
             sys.exit(exc.exit_code)
@@ -204,13 +209,38 @@ def stderr_console(quiet: bool = False):
 
 def stdout_console():
     """A rich console on stdout (results): in a file or a pipe no table is cut and no
-    line is padded."""
+    line is padded; silent under ``-q`` (nothing but errors)."""
     from rich.console import Console
 
     encode_safely()
     probe = Console()
-    return Console(highlight=False, soft_wrap=True,
+    return Console(highlight=False, soft_wrap=True, quiet=is_quiet(),
                    width=None if probe.is_terminal else PIPE_WIDTH)
+
+
+def say(text: str, *, err: bool = False) -> None:
+    """Print a line for people (results, notes), unless ``-q`` asked for nothing but
+    errors. Errors go through :func:`guarded` or :func:`finish`, output asked for with
+    ``--format json|csv`` through :func:`emit_json` and :func:`emit_csv`."""
+    if not is_quiet():
+        click.echo(text, err=err)
+
+
+def finish(ok: bool, failure: str) -> None:
+    """End a command that wrote what it could: exit 0 when ``ok``, else 1. Under ``-q``
+    a failure is said in one ``Error:`` line on stderr (``failure``: what failed and that
+    the command without -q lists it), since nothing else is printed."""
+    if not ok and is_quiet():
+        click.echo(f"Error: {failure}", err=True)
+    click.get_current_context().exit(0 if ok else 1)
+
+
+def problems_failure(result, verb: str) -> str:
+    """The one line :func:`finish` says under ``-q`` when an apply-like command met
+    problems (rows or files that could not be evaluated)."""
+    n = len(getattr(result, "problems", []) or [])
+    return (f"{plural(n, 'problem')}: some files or rows could not be evaluated (the rest "
+            f"was written); `refit {verb}` without -q lists them")
 
 
 # --- the options every command has: -q/--quiet, -v/--verbose -------------------------
@@ -245,7 +275,8 @@ def add_common_options(command: click.Command) -> click.Command:
         command.params.append(click.Option(
             ["-q", "--quiet", "refit_quiet"], is_flag=True, expose_value=False,
             callback=_remember("refit.quiet"),
-            help="No progress bars or status messages (results and errors still print)."))
+            help="Print nothing but errors (files are still written; output asked for "
+                 "with --format json|csv still goes to stdout)."))
     else:
         for p in command.params:
             if "--quiet" in getattr(p, "opts", []):

@@ -5,8 +5,8 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    emit_csv, emit_json, format_option, fossil_options, guarded, print_comparison,
-    print_problems_and_cautions, stdout_console,
+    emit_csv, emit_json, finish, format_option, fossil_options, guarded, print_comparison,
+    print_problems_and_cautions, problems_failure, stdout_console,
 )
 
 
@@ -80,4 +80,4 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     for warning in result.warnings:
         console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result, console)
-    ctx.exit(0 if result.ok else 1)
+    finish(result.ok, problems_failure(result, "compare"))

@@ -21,7 +21,7 @@ SHOWN_PALEOSOLS = ("MB-P01", "CG-P07", "CG-P08")
     "--out", "out_dir", type=click.Path(file_okay=False), default="refit-demo-out",
     show_default=True, help="Folder for everything the demo writes (replaced if it holds an earlier demo).",
 )
-@click.option("--quiet", is_flag=True, help="Print only where things went.")
+@click.option("--quiet", is_flag=True, help="Print nothing but errors.")
 @guarded
 def demo(out_dir: str, quiet: bool) -> None:
     """Run refit on the bundled invented demo scenario and say where everything went.

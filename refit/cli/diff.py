@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
+from refit.cli.common import guarded, is_quiet
 
 WIDTH = 140  # columns of the tables when stdout is not a terminal
 
@@ -138,7 +138,7 @@ def render(result: dict, show_all: bool = False) -> None:
 
     from rich.console import Console
 
-    out = Console(highlight=False, soft_wrap=True, markup=False,
+    out = Console(highlight=False, soft_wrap=True, markup=False, quiet=is_quiet(),
                   width=None if sys.stdout.isatty() else WIDTH)
     a, b, like = result["a"], result["b"], result["comparison"]
     out.print(like["statement"])

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
+from refit.cli.common import guarded, say
 
 
 @click.command("keygen", short_help="Make a key pair to sign published files.")
@@ -27,5 +27,5 @@ def keygen(keyfile: str) -> None:
     from refit.publish.signing import new_key_pair
 
     private, public, kid = new_key_pair(keyfile)
-    click.echo(f"Wrote the private key {private} (keep it secret) and the public key "
+    say(f"Wrote the private key {private} (keep it secret) and the public key "
                f"{public} (key id {kid}).")

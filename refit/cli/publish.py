@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
+from refit.cli.common import guarded, say
 
 
 @click.command("publish", short_help="Publish a candidate fit as an immutable, versioned file.")
@@ -62,31 +62,31 @@ def publish(candidate: str, registry: str, bump: str | None, variant: str | None
         click.echo(json.dumps(result.to_dict(), indent=2, ensure_ascii=False))
         return
     for message in result.recovered:
-        click.echo(f"Note: {message}.", err=True)
+        say(f"Note: {message}.", err=True)
     verb = "Would publish" if dry_run else "Published"
-    click.echo(f"{verb} {result.chain} {result.version} -> {result.path}")
+    say(f"{verb} {result.chain} {result.version} -> {result.path}")
     if result.previous is None:
-        click.echo("  first version of " + ("this function" if result.variant is None
+        say("  first version of " + ("this function" if result.variant is None
                                             else f"variant {result.variant} of "
                                                  f"{result.function_id}"))
     else:
         chosen = result.bump or result.required
-        click.echo(f"  {result.previous} -> {result.version}: {chosen} bump "
+        say(f"  {result.previous} -> {result.version}: {chosen} bump "
                    f"(the changes need at least {result.required})")
         for kind in ("major", "minor", "patch"):
             if result.changes.get(kind):
-                click.echo(f"  {kind} changes: {', '.join(result.changes[kind])}")
+                say(f"  {kind} changes: {', '.join(result.changes[kind])}")
     if result.model_changes:
-        click.echo("  the model changed: " + "; ".join(
+        say("  the model changed: " + "; ".join(
             f"{item} {_text(before)} -> {_text(after)}"
             for item, before, after in result.model_changes))
-        click.echo("  to keep both models side by side, publish it as a variant instead "
+        say("  to keep both models side by side, publish it as a variant instead "
                    "(--variant NAME); each variant has its own version chain")
     if result.others:
-        click.echo(f"  other variants of {result.function_id}: {', '.join(result.others)}")
-    click.echo(f"  sha256 {result.sha256}")
+        say(f"  other variants of {result.function_id}: {', '.join(result.others)}")
+    say(f"  sha256 {result.sha256}")
     if sign and not dry_run:
-        click.echo(f"  signed: {result.path.name}.sig")
+        say(f"  signed: {result.path.name}.sig")
 
 
 def _text(value) -> str:

@@ -6,7 +6,7 @@ import sys
 
 import click
 
-from refit.cli.common import guarded, stderr_console
+from refit.cli.common import guarded, say, stderr_console
 
 
 @click.command("report", short_help="Write a self-contained HTML report of a fit run.")
@@ -26,7 +26,7 @@ from refit.cli.common import guarded, stderr_console
               metavar="DIR", help="Folder written by `refit section` (section.csv): add its "
                                   "climate-through-the-section figures to the report.")
 @click.option("--overwrite", is_flag=True, help="Replace an existing report file.")
-@click.option("--quiet", "-q", is_flag=True, help="No progress messages.")
+@click.option("--quiet", "-q", is_flag=True, help="Print nothing but errors.")
 @guarded
 def report(run, out, candidate, store, compare, section, overwrite, quiet) -> None:
     """Write one HTML file reporting the fit RUN folder (from `refit fit --out RUN`).
@@ -69,7 +69,7 @@ def report(run, out, candidate, store, compare, section, overwrite, quiet) -> No
                                                 section, overwrite),
                                progress=lambda text: status.update(text), compare=compare,
                                section=section)
-    click.echo(f"Report written to {written}")
+    say(f"Report written to {written}")
 
 
 def _command(run, target, candidate, store, compare, section, overwrite) -> list[str]:

@@ -5,8 +5,8 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    fossil_options, guarded, posterior_options, posterior_prior, print_problems_and_cautions,
-    stdout_console,
+    finish, fossil_options, guarded, posterior_options, posterior_prior,
+    print_problems_and_cautions, problems_failure, stdout_console,
 )
 
 
@@ -27,7 +27,8 @@ from refit.cli.common import (
 @posterior_options
 @click.option("--out", required=True, metavar="DIR",
               type=click.Path(file_okay=False, path_type=str),
-              help="Folder for section.csv, notes.txt and section-<name>.png.")
+              help="Folder for section.csv, notes.txt and section-<name>.png "
+                   "(section-<name>-2.png, ... when the fits need more figures).")
 @click.option("--overwrite", is_flag=True, help="Replace a section table already in --out.")
 @click.pass_context
 @guarded
@@ -42,6 +43,11 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
     levels, ...) and where adjacent levels differ by less than their intervals resolve.
     A limit cut at a physical bound (flag truncated-at-bound) is marked by a triangle at
     the bound; the limit before the cut is in the table.
+
+    More than five fits are drawn as small multiples: at most five fits a panel (each
+    panel's legend names its fits), panels side by side on one level axis and one x
+    range per quantity, at most four panels a figure, further figures as
+    section-<name>-2.png, ...; the terminal says which fits each figure holds.
 
     With --posterior, each forward file's posterior median and equal-tailed interval
     (the numbers of `refit apply --posterior`, same --prior) are drawn beside its
@@ -66,7 +72,7 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
 
     from refit.apply.section import section_files
     from refit.errors import UsageError
-    from refit.report.section_plot import write_section
+    from refit.report.section_plot import figure_contents, write_section
 
     if (Path(out) / "section.csv").exists() and not overwrite:
         raise UsageError(f"--out {out} already holds section.csv; pass --overwrite")
@@ -84,12 +90,13 @@ def section(ctx, coefficients, fossils, age_column, age_sd_column, age_model, le
                   f"{drawn['fit'].nunique()} fit(s), against "
                   f"{'level [m]' if result.axis == 'level_m' else result.age_label}:",
                   markup=False)
+    what = dict(figure_contents(result))
     for p in written[2:]:
-        console.print(f"  {p}", markup=False)
+        console.print(f"  {p}: {what.get(p.name, '')}", markup=False)
     console.print(f"Table: {written[0]}; notes: {written[1]}", markup=False)
     for note in result.notes:
         console.print(f"Note: {note}", markup=False)
     for warning in result.applied.warnings:
         console.print(f"Warning: {warning}", style="yellow", markup=False)
     print_problems_and_cautions(result.applied, console)
-    ctx.exit(0 if result.applied.ok else 1)
+    finish(result.applied.ok, problems_failure(result.applied, "section"))

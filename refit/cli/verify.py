@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from refit.cli.common import guarded
+from refit.cli.common import finish, guarded, say
 
 
 @click.command("verify", short_help="Check a coefficient file or registry; refit from a store.")
@@ -55,7 +55,7 @@ def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, .
         from refit.publish.registry import open_registry
 
         for message in open_registry(path).recovered:  # finish an interrupted publish
-            click.echo(f"Note: {message}.", err=True)
+            say(f"Note: {message}.", err=True)
         report = verify_registry(path, store=store, tol=tolerance, trust=keys)
     else:
         report = verify_file(path, store=store, tol=tolerance, trust=keys)
@@ -65,8 +65,9 @@ def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, .
         for check in report.checks:
             mark = "ok  " if check.ok else "FAIL"
             where = "" if check.file == report.target or not check.file else f" {check.file}:"
-            click.echo(f"{mark} {check.name:<9}{where} {check.message}")
-        n_bad = len(report.failures())
-        click.echo(f"{target}: " + ("verified" if report.ok else f"{n_bad} check(s) failed"))
-    if not report.ok:
-        raise SystemExit(1)
+            say(f"{mark} {check.name:<9}{where} {check.message}")
+    n_bad = len(report.failures())
+    if fmt != "json":
+        say(f"{target}: " + ("verified" if report.ok else f"{n_bad} check(s) failed"))
+    finish(report.ok, f"{target}: {n_bad} check(s) failed; `refit verify` without -q "
+                      "names them")

@@ -2,11 +2,14 @@
 
 Drawn from the long-format table of :mod:`refit.apply.section` (never from anything
 else, so figure and table agree). Per section, one panel per climate quantity (MAP in mm
-and MAT in degC never share an axis), the level (or age) upward:
+and MAT in degC never share an axis), the level (or age) upward; more than five fits are
+drawn as small multiples, at most five fits a panel, panels side by side on one level
+axis, at most four a figure, further figures as pages (:mod:`refit.report.section_layout`
+plans which fit goes where; :func:`section_pages` draws every page):
 
-* one colour and marker per fit (Okabe-Ito colours, :mod:`refit.report.style`), the same
-  fit in the same colour in every section; estimates of one fit joined up-section by a
-  thin line (not a model: straight segments between the paleosols);
+* one colour and marker per fit of a panel (Okabe-Ito colours, :mod:`refit.report.style`),
+  the same fit in the same colour and panel in every section; estimates of one fit joined
+  up-section by a thin line (not a model: straight segments between the paleosols);
 * a prediction interval as a solid bar, a published ±1 standard error as a dashed, thinner
   bar with end ticks (it is not a prediction interval);
 * a flagged estimate (the equation does not hold there) as a hollow marker, its flags
@@ -24,57 +27,26 @@ from __future__ import annotations
 
 import re
 import textwrap
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from refit.report import style
+from refit.report.section_marks import (  # noqa: F401  (public names of the figure)
+    DODGE_PT, LABEL_SIZE, SERIOUS, SHORT, TRUNCATED_TEXT, common_flags, dodge,
+    draw_labels, draw_panel, flag_label, serious_flags, style_handles, yvalues,
+)
 
 PREDICTION, PUBLISHED_SE = "prediction", "published ±1 SE"  # refit.apply.section
 POSTERIOR = "posterior"  # refit.apply.section: a posterior's median and interval
-#: one colour per fit, in order (Okabe-Ito without black and yellow first; yellow last,
-#: it is faint on white)
-PALETTE = (style.BLUE, style.VERMILLION, style.BLUISH_GREEN, style.REDDISH_PURPLE,
-           style.ORANGE, style.SKY_BLUE, "#7F6A00", style.BLACK)
-MARKERS = ("o", "s", "D", "^", "v", "P", "X", "*")
-#: flags that say the equation does not hold there (marked hollow and named)
-SERIOUS = ("outside-calibration-range", "beyond-turning-point", "unbounded", "two-roots",
-           "open-below", "open-above", "setting-mismatch", "beyond-search-window",
-           "not-decompacted")
-SHORT = {"outside-calibration-range": "outside range",
-         "beyond-turning-point": "beyond turning point"}
-#: the legend's words for a limit cut at a physical bound (flag ``truncated-at-bound``):
-#: not a sign that the equation fails, so drawn at the cut end and explained, not hollow
-TRUNCATED_TEXT = ("triangle at a bar's end: the interval is cut at a physical bound there "
-                  "(flag truncated-at-bound; e.g. MAP cannot fall below 0 mm); the limit "
-                  "before the cut is in the table (lower_untruncated, upper_untruncated)")
-#: vertical offset between the fits drawn at one paleosol [points]
-DODGE_PT = 3.0
-LABEL_SIZE = 7.0
 #: characters per line of a legend entry (longer entries wrap)
 LEGEND_WIDTH = 62
+#: width of one panel in the split layout [in]
+PANEL_WIDTH = 3.6
+#: height kept for the axes, titles and tick labels [in], and per legend line [in]
+AXES_HEIGHT, LINE_HEIGHT = 5.0, 0.155
 FILE = "section.csv"
-
-
-def serious_flags(flags) -> list[str]:
-    """The flags of a row that say the equation does not hold there."""
-    return [f for f in str(flags or "").split(";") if f in SERIOUS]
-
-
-def flag_label(flags, common=()) -> str:
-    """The short text drawn beside a flagged estimate (flags in ``common``, shared by
-    every estimate of the fit in the figure, are said once in the legend instead)."""
-    return ", ".join(SHORT.get(f, f.replace("-", " ")) for f in serious_flags(flags)
-                     if f not in common)
-
-
-def common_flags(t) -> dict:
-    """Per fit, the serious flags every one of its drawn estimates carries."""
-    out = {}
-    for fit, g in t.groupby("fit", sort=False):
-        sets = [set(serious_flags(f)) for f in g["flags"]]
-        out[fit] = sorted(set.intersection(*sets)) if sets else []
-    return out
 
 
 def age_axis_label(name: str) -> str:
@@ -94,26 +66,51 @@ def fit_name(row) -> str:
 
 
 def colours(table) -> dict:
-    """Colour and marker of each fit, in the table's order of fits."""
-    fits = list(dict.fromkeys(table["fit"]))
-    post = set(table.loc[table["interval_kind"] == POSTERIOR, "fit"]) \
-        if "interval_kind" in table else set()
-    others = [m for m in MARKERS if m != "D"]    # the diamond marks a posterior
-    return {f: (PALETTE[i % len(PALETTE)], "D" if f in post else others[i % len(others)])
-            for i, f in enumerate(fits)}
+    """Colour and marker of each fit (:func:`refit.report.section_layout.colours`)."""
+    from refit.report.section_layout import colours as plan_colours
+
+    return plan_colours(table)
 
 
-def _yvalues(t, axis: str):
-    return t["age" if axis == "age" else "level_m"].to_numpy(float)
+@dataclass
+class SectionPage:
+    """One figure of a section: its ``number`` of ``count`` pages, the panels drawn
+    (:class:`refit.report.section_layout.Panel`, each naming its fits) and the
+    matplotlib ``figure``."""
+
+    section: str
+    number: int
+    count: int
+    panels: tuple
+    figure: object = None
+
+    @property
+    def fits(self) -> list[str]:
+        """The fits drawn on this page, panel by panel."""
+        return [f for p in self.panels for f in p.fits]
 
 
-def section_figure(table, section: str, *, axis: str = "level_m", y_label: str = ""):
-    """One section's figure (a matplotlib Figure), or None when nothing can be drawn.
+def section_plan(table, section: str, *, axis: str = "level_m") -> list[SectionPage]:
+    """The pages of one section's figure and the fits of each panel, not drawn yet
+    (:mod:`refit.report.section_layout`); empty when nothing can be drawn."""
+    from refit.report.section_layout import is_split, pages, panels
+
+    got = pages(panels(table, section, axis), is_split(table))
+    return [SectionPage(section, k + 1, len(got), page) for k, page in enumerate(got)]
+
+
+def section_pages(table, section: str, *, axis: str = "level_m",
+                  y_label: str = "") -> list[SectionPage]:
+    """Every figure (page) of one section, drawn: at most
+    :data:`~refit.report.section_layout.FITS_PER_PANEL` fits a panel, panels side by
+    side sharing the level (or age) axis, at most
+    :data:`~refit.report.section_layout.PANELS_PER_PAGE` panels a figure.
 
     Parameters
     ----------
     table : pandas.DataFrame
-        The section table (:data:`refit.apply.section.TABLE_COLUMNS`), every section.
+        The section table (:data:`refit.apply.section.TABLE_COLUMNS`), every section
+        (the plan of panels and the colours depend on all of it).
     section : str
         The section to draw.
     axis : {"level_m", "age"}
@@ -121,49 +118,123 @@ def section_figure(table, section: str, *, axis: str = "level_m", y_label: str =
     y_label : str
         Its label (default ``level [m]``, or the age column's name).
     """
+    from refit.report.section_layout import is_split
+
+    plan = section_plan(table, section, axis=axis)
+    split = is_split(table)
+    for page in plan:
+        page.figure = _draw_page(table, page, split, axis=axis, y_label=y_label)
+    return plan
+
+
+def section_figure(table, section: str, *, axis: str = "level_m", y_label: str = "",
+                   page: int = 1):
+    """Page ``page`` of one section's figures (a matplotlib Figure; the only one unless
+    the table has more fits than four panels hold), or None when there is no such page
+    (nothing can be drawn). Parameters as :func:`section_pages`."""
+    plan = section_plan(table, section, axis=axis)
+    if not 1 <= page <= len(plan):
+        return None
+    from refit.report.section_layout import is_split
+
+    return _draw_page(table, plan[page - 1], is_split(table), axis=axis, y_label=y_label)
+
+
+def _wrapped(handles, width: int) -> int:
+    """Wrap the legend labels of ``handles`` to ``width`` characters; returns the lines."""
+    for h in handles:
+        h.set_label(textwrap.fill(h.get_label(), width, subsequent_indent="  "))
+    return sum(h.get_label().count("\n") + 1 for h in handles)
+
+
+def _fit_handles(t, fits, style_of: dict, common: dict) -> list:
+    """Legend entries of ``fits``: colour, marker (hollow when every estimate is
+    flagged) and name."""
     from matplotlib.lines import Line2D
 
+    return [Line2D([], [], color=style_of[f][0], marker=style_of[f][1], lw=1.0,
+                   mfc="white" if common[f] else style_of[f][0],
+                   label=fit_name(t[t["fit"] == f].iloc[0]) + (
+                       "; all flagged: " + flag_label(";".join(common[f]))
+                       if common[f] else ""))
+            for f in fits]
+
+
+def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str):
+    """Draw one page: in the joint layout one panel per quantity and one legend; in
+    the split layout a subfigure per panel with its fits' legend, and the line styles'
+    legend under them all (:mod:`refit.report.section_layout`)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
     from refit.report.labels import freeze_layout
+    from refit.report.section_layout import drawable
 
     style_of = colours(table)
-    t = table[(table["section"] == section) & np.isfinite(_yvalues(table, axis))
-              & np.isfinite(table["estimate"].to_numpy(float))]
-    if t.empty:
-        return None
-    groups = [g for _, g in t.groupby(["response", "unit"], sort=False)]
-    fig, axes = style.figure(len(groups), width=4.6 * len(groups) + 0.4, height=6.4)
-    y_all = _yvalues(t, axis)
-    span = float(np.ptp(y_all)) or max(abs(float(y_all[0])) * 0.1, 1.0)
+    whole = drawable(table[table["section"] == page.section], axis)
+    t = whole[whole["fit"].isin(page.fits)]
+    n, common = len(page.panels), common_flags(t)
+    width = (PANEL_WIDTH if split else 4.6) * n + 0.4
     with style.styled():
-        clips = [_limits(ax, g, axis, span) for ax, g in zip(axes, groups)]
-        for ax in axes:
+        fit_handles = [_fit_handles(t, p.fits, style_of, common) for p in page.panels]
+        kinds = style_handles(t, axis)
+        room = int(width * 15)     # characters a legend line holds (7.5 pt, ~15 an inch)
+        if split:
+            per = int(PANEL_WIDTH * 15) - 6
+            lines = max(_wrapped(h, min(LEGEND_WIDTH, per)) for h in fit_handles)
+            ncol = max(1, min(len(kinds), room // (LEGEND_WIDTH + 6)))
+            lines += -(-_wrapped(kinds, LEGEND_WIDTH) // ncol)
+        else:
+            ncol = 2 if room >= 2 * LEGEND_WIDTH + 6 else 1
+            handles = [h for hs in fit_handles for h in hs] + kinds
+            lines = -(-_wrapped(handles, min(LEGEND_WIDTH, room // ncol - 6)) // ncol)
+        height = max(6.4, AXES_HEIGHT + LINE_HEIGHT * lines)
+        fig = Figure(figsize=(width, height), layout="constrained")
+        FigureCanvasAgg(fig)
+        holders = list(fig.subfigures(1, n, squeeze=False).ravel()) if split else [fig] * n
+        axes = [h.add_subplot(1, n if not split else 1, 1 if split else i + 1)
+                for i, h in enumerate(holders)]
+        if split:
+            for h, hs in zip(holders, fit_handles):
+                h.legend(handles=hs, loc="outside lower center", fontsize=7.5)
+            fig.legend(handles=kinds, loc="outside lower center", ncol=ncol, fontsize=7.5)
+        else:
+            fig.legend(handles=handles, loc="outside lower center", ncol=ncol,
+                       fontsize=7.5)
+        clips = _frame(axes, page, whole, axis, y_label, split)
+        more = f" (page {page.number} of {page.count})" if page.count > 1 else ""
+        fig.suptitle(f"{page.section}: climate up the section{more}", x=0.01, ha="left",
+                     fontsize=11, fontweight="bold")
+        renderer = freeze_layout(fig)
+        for ax, p, clip in zip(axes, page.panels, clips):
+            g = t[(t["response"] == p.response) & t["fit"].isin(p.fits)]
+            draw_panel(ax, g, axis, clip, style_of)
+            draw_labels(ax, renderer, g, axis, common)
+    return fig
+
+
+def _frame(axes, page: SectionPage, t, axis: str, y_label: str, split: bool) -> list:
+    """Limits, labels and titles of every panel of a page: one level (or age) range and
+    one x range per quantity for the whole section ``t`` (every page alike), so panels
+    side by side compare at a glance. Returns the x range the intervals of each panel
+    are clipped to."""
+    from refit.curate.schema import notation
+
+    y_all = yvalues(t, axis)
+    span = float(np.ptp(y_all)) or max(abs(float(y_all[0])) * 0.1, 1.0)
+    clips = []
+    for i, (ax, p) in enumerate(zip(axes, page.panels)):
+        clips.append(_limits(ax, t[t["response"] == p.response], axis, span, y_all))
+        title = notation(p.response, "")
+        if split:
+            title += f" · fits {p.span} of {p.total}"
+        ax.set_title(title)
+        ax.set_xlabel(notation(p.response, p.unit))
+        if i == 0 or not split:
             ax.set_ylabel("level [m]" if axis == "level_m" else age_axis_label(y_label))
         if axis == "age" and _ages_fall_upward(t):
-            for ax in axes:
-                ax.invert_yaxis()
-        fig.suptitle(f"{section}: climate up the section", x=0.01, ha="left",
-                     fontsize=11, fontweight="bold")
-        common = common_flags(t)
-        handles = [Line2D([], [], color=style_of[f][0], marker=style_of[f][1], lw=1.0,
-                          mfc="white" if common[f] else style_of[f][0],
-                          label=fit_name(t[t["fit"] == f].iloc[0]) + (
-                              "; all flagged: " + flag_label(";".join(common[f]))
-                              if common[f] else ""))
-                   for f in dict.fromkeys(t["fit"])]
-        handles += _style_handles(t, axis)
-        # as many legend columns of LEGEND_WIDTH characters as the figure's width holds
-        # (about 15 characters per inch at this size), the entries wrapped to fit
-        room = int(fig.get_figwidth() * 15)
-        ncol = 2 if room >= 2 * LEGEND_WIDTH + 6 else 1
-        width = min(LEGEND_WIDTH, room // ncol - 6)
-        for h in handles:
-            h.set_label(textwrap.fill(h.get_label(), width, subsequent_indent="  "))
-        fig.legend(handles=handles, loc="outside lower center", ncol=ncol, fontsize=7.5)
-        renderer = freeze_layout(fig)
-        for ax, g, clip in zip(axes, groups, clips):
-            _panel(ax, g, axis, clip, style_of)
-            _labels(ax, renderer, g, axis, common)
-    return fig
+            ax.invert_yaxis()
+    return clips
 
 
 def _ages_fall_upward(t) -> bool:
@@ -175,154 +246,17 @@ def _ages_fall_upward(t) -> bool:
                             ok["age"].to_numpy(float))[0, 1] < 0)
 
 
-def _limits(ax, g, axis: str, span: float) -> tuple[float, float]:
-    """Axis limits, labels and title of one quantity's panel; returns the x range the
+def _limits(ax, g, axis: str, span: float, y_all) -> tuple[float, float]:
+    """Axis limits of one panel: x from every row of its quantity ``g`` (room at the
+    right for labels), y from the page's levels ``y_all``; returns the x range the
     intervals are clipped to."""
-    y_all = _yvalues(g, axis)
     finite = np.concatenate([g[c].to_numpy(float) for c in ("estimate", "lower", "upper")])
     finite = finite[np.isfinite(finite)]
     lo_ax, hi_ax = float(finite.min()), float(finite.max())
     pad = 0.06 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(abs(hi_ax) * 0.1, 1.0)
     ax.set_xlim(lo_ax - pad, hi_ax + 4 * pad)  # room at the right for labels
     ax.set_ylim(float(np.nanmin(y_all)) - 0.06 * span, float(np.nanmax(y_all)) + 0.06 * span)
-    from refit.curate.schema import notation
-
-    ax.set_xlabel(notation(str(g["response"].iloc[0]), str(g["unit"].iloc[0])))
-    ax.set_title(notation(str(g["response"].iloc[0]), ""))
     return lo_ax - pad, hi_ax + 4 * pad
-
-
-def dodge(ax, g) -> np.ndarray:
-    """Vertical drawing offset of each row [data units]: the fits with an estimate at one
-    paleosol are set :data:`DODGE_PT` points apart around its level, measured on the
-    laid-out axes (so the offset is the same few points on any section's height)."""
-    y0, y1 = ax.get_ylim()
-    per_pt = (y1 - y0) / (ax.get_window_extent().height / (ax.figure.dpi / 72.0))
-    out = np.zeros(len(g))
-    ok = np.isfinite(g["estimate"].to_numpy(float))
-    pos = np.arange(len(g))
-    for _, idx in g[ok].groupby("paleosol_id", sort=False).indices.items():
-        rows = pos[ok][idx]
-        n = len(rows)
-        out[rows] = (np.arange(n) - (n - 1) / 2) * DODGE_PT * per_pt
-    return out
-
-
-def _panel(ax, g, axis: str, xclip: tuple, style_of: dict) -> None:
-    """Estimates, intervals and age bars of one quantity in one section (the layout is
-    frozen: the offsets of :func:`dodge` are measured on it)."""
-    from matplotlib.collections import LineCollection
-
-    y_all = _yvalues(g, axis) + dodge(ax, g)
-    for fit in dict.fromkeys(g["fit"]):
-        m = (g["fit"] == fit).to_numpy()
-        colour, marker = style_of[fit]
-        rows, yy = g[m], y_all[m]
-        est = rows["estimate"].to_numpy(float)
-        order = np.argsort(yy, kind="stable")
-        ax.plot(est[order], yy[order], color=colour, lw=0.8, alpha=0.55, zorder=2,
-                gid=f"path:{fit}")
-        for kind, ls, lw in ((PREDICTION, "-", 2.4), (PUBLISHED_SE, "--", 1.3),
-                             (POSTERIOR, ":", 2.4)):
-            k = (rows["interval_kind"] == kind).to_numpy()
-            if not k.any():
-                continue
-            lo = np.clip(rows["lower"].to_numpy(float)[k], *xclip)
-            hi = np.clip(rows["upper"].to_numpy(float)[k], *xclip)
-            segs = [[(a, b), (c, b)] for a, c, b in zip(lo, hi, yy[k])]
-            ax.add_collection(LineCollection(segs, colors=colour, linestyles=ls,
-                                             linewidths=lw, zorder=3,
-                                             gid=f"interval:{kind}:{fit}"))
-            if kind == PUBLISHED_SE:
-                ax.plot(np.concatenate([lo, hi]), np.concatenate([yy[k], yy[k]]),
-                        ls="none", marker="|", ms=6, mew=1.0, color=colour, zorder=3)
-        _truncated_ends(ax, rows, yy, colour, fit)
-        flagged = np.array([bool(serious_flags(f)) for f in rows["flags"]])
-        for sel, face, gid in ((~flagged, colour, "estimates"),
-                               (flagged, "white", "flagged")):
-            if sel.any():
-                ax.plot(est[sel], yy[sel], ls="none", marker=marker, ms=5.5, mfc=face,
-                        mec=colour, mew=1.3, zorder=4, gid=f"{gid}:{fit}")
-    sd = g["age_sd"].to_numpy(float)
-    first = ~g["paleosol_id"].duplicated().to_numpy() & np.isfinite(sd)
-    if axis == "age" and first.any():  # once per paleosol, at its first fit's estimate
-        ax.errorbar(g["estimate"].to_numpy(float)[first], _yvalues(g, axis)[first],
-                    yerr=sd[first], fmt="none", ecolor=style.GREY, elinewidth=0.9,
-                    capsize=2, zorder=1, gid="age-sd")
-
-
-def _truncated_ends(ax, rows, yy, colour, fit) -> None:
-    """A triangle at each limit cut at a bound, pointing past it (gid ``truncated:<fit>``)."""
-    from refit.apply.estimates import truncated_sides
-
-    cut_lo, cut_hi = truncated_sides(rows)
-    for cut, col, marker in ((cut_lo, "lower", "<"), (cut_hi, "upper", ">")):
-        if cut.any():
-            ax.plot(rows[col].to_numpy(float)[cut], yy[cut], ls="none", marker=marker,
-                    ms=5, color=colour, zorder=4, gid=f"truncated:{fit}")
-
-
-def _labels(ax, renderer, g, axis: str, common: dict) -> None:
-    """Flag names beside flagged estimates, then paleosol ids at the right of each
-    level, placed apart (labels with no free place are left out; the table has all)."""
-    from refit.report.labels import place_labels
-
-    y = _yvalues(g, axis)
-    est = g["estimate"].to_numpy(float)
-    texts = [flag_label(f, common.get(fit, ())) for f, fit in zip(g["flags"], g["fit"])]
-    k = np.array([bool(s) for s in texts])
-    pts, taken = (est, y), []
-    place_labels(ax, renderer, est[k], y[k], [s for s, kk in zip(texts, k) if kk],
-                 avoid=pts, fontsize=LABEL_SIZE, color="#333333", gid="flag-label",
-                 taken=taken)
-    ids = g.drop_duplicates("paleosol_id")
-    right = g.groupby("paleosol_id", sort=False).apply(
-        lambda r: np.nanmax(np.concatenate([r["estimate"].to_numpy(float),
-                                            r["upper"].to_numpy(float)[np.isfinite(
-                                                r["upper"].to_numpy(float))]])),
-        include_groups=False)
-    xl = ax.get_xlim()
-    xs = np.minimum(right.reindex(ids["paleosol_id"]).to_numpy(float), xl[1])
-    place_labels(ax, renderer, xs, _yvalues(ids, axis), list(ids["paleosol_id"]),
-                 avoid=pts, fontsize=LABEL_SIZE, color="#555555", gid="paleosol-label",
-                 taken=taken)
-
-
-def _style_handles(t, axis: str) -> list:
-    """Legend entries for what the line styles and hollow markers mean."""
-    from matplotlib.lines import Line2D
-
-    kinds = set(t["interval_kind"])
-    out = []
-    if "prediction" in kinds:
-        lv = t.loc[t["interval_kind"] == "prediction", "level"].dropna()
-        what = f"{float(lv.iloc[0]):.0%} " if len(lv) and lv.nunique() == 1 else ""
-        out.append(Line2D([], [], color="#444444", lw=2.4,
-                          label=f"{what}prediction interval"))
-    if POSTERIOR in kinds:
-        out.append(Line2D([], [], color="#444444", lw=2.4, ls=":", marker="D", ms=4,
-                          label="posterior median and equal-tailed interval (dotted; "
-                                "fits named '... posterior', 'posterior combined': all "
-                                "proxies together)"))
-    if "published ±1 SE" in kinds:
-        out.append(Line2D([], [], color="#444444", lw=1.3, ls="--",
-                          label="published ±1 SE (not a prediction interval)"))
-    if any(serious_flags(f) for f in t["flags"]):
-        out.append(Line2D([], [], ls="none", marker="o", mfc="white", mec="#444444",
-                          label="hollow: flagged, the equation does not hold here (flag "
-                                "named beside it or in the fit's entry)"))
-    if "none" in kinds:
-        out.append(Line2D([], [], ls="none", marker="o", color="#444444",
-                          label="marker alone: the file gives no interval"))
-    from refit.apply.estimates import truncated_sides
-
-    cut_lo, cut_hi = truncated_sides(t)
-    if cut_lo.any() or cut_hi.any():
-        out.append(Line2D([], [], ls="none", marker="<", ms=5, color="#444444",
-                          label=TRUNCATED_TEXT))
-    if axis == "age" and np.isfinite(t["age_sd"].to_numpy(float)).any():
-        out.append(Line2D([], [], color=style.GREY, lw=0.8, label="age ±1 SD"))
-    return out
 
 
 def slug(section: str) -> str:
@@ -332,15 +266,23 @@ def slug(section: str) -> str:
 
 def section_png(table, section: str, **kwargs) -> bytes | None:
     """:func:`section_figure` as PNG bytes (None when nothing can be drawn)."""
+    fig = section_figure(table, section, **kwargs)
+    return None if fig is None else _png(fig)
+
+
+def _png(fig) -> bytes:
     import io
 
-    fig = section_figure(table, section, **kwargs)
-    if fig is None:
-        return None
     buf = io.BytesIO()
     with style.styled():
         fig.savefig(buf, format="png", dpi=150, metadata={"Software": None})
     return buf.getvalue()
+
+
+def page_file(section: str, number: int) -> str:
+    """File name of page ``number`` of a section's figure: ``section-<name>.png``, then
+    ``section-<name>-2.png``, ..."""
+    return f"section-{slug(section)}" + (f"-{number}" if number > 1 else "") + ".png"
 
 
 def read_section_table(path):
@@ -361,11 +303,14 @@ def read_section_table(path):
     for c in ("lower_untruncated", "upper_untruncated"):
         if c not in table.columns:
             table[c] = np.nan
+    if "variant" not in table.columns:    # written before variants were shown
+        table["variant"] = ""
     missing = [c for c in TABLE_COLUMNS if c not in table.columns]
     if missing:
         raise InvalidDataError(f"{target} lacks {', '.join(missing)}: rerun `refit section`")
     for c in ("section", "paleosol_id", "fit", "origin", "response", "unit", "flags",
-              "problem", "interval_kind", "coefficient_file", "age_unit", "function_id"):
+              "problem", "interval_kind", "coefficient_file", "age_unit", "function_id",
+              "variant"):
         table[c] = table[c].astype(object).fillna("").astype(str)
     return table
 
@@ -383,9 +328,10 @@ def report_section(path) -> dict:
     label = table["age_unit"].iloc[0] if axis == "age" else "level [m]"
     figures = []
     for sec in dict.fromkeys(table["section"]):
-        fig = section_figure(table, sec, axis=axis, y_label=label)
-        if fig is not None:
-            figures.append({"section": sec, "figure": fig})
+        for page in section_pages(table, sec, axis=axis, y_label=label):
+            figures.append({"section": sec, "figure": page.figure,
+                            "page_label": (f" (page {page.number} of {page.count})"
+                                           if page.count > 1 else "")})
     return {"figures": figures, "notes": notes, "caption": caption(table),
             "source": str(folder / FILE), "n_rows": len(table)}
 
@@ -393,9 +339,9 @@ def report_section(path) -> dict:
 def caption(table) -> str:
     """What the section figures show, in words."""
     fits = list(dict.fromkeys(table["fit"]))
-    return (f"Each figure is one section: the estimates of {len(fits)} fit(s) for every "
+    return (f"Each figure is one section (or a page of one): the estimates of {len(fits)} fit(s) for every "
             "paleosol against its stratigraphic level (or age), one colour and marker per "
-            "fit, the estimates of a fit joined up-section by thin straight lines (not a "
+            f"fit{_split_words(table)}, the estimates of a fit joined up-section by thin straight lines (not a "
             "model). Solid bars are prediction intervals; dashed bars with end ticks are "
             "published ±1 standard errors, which are not prediction intervals and "
             "understate the uncertainty of a new estimate. Hollow markers are flagged: the "
@@ -407,10 +353,36 @@ def caption(table) -> str:
             "levels differ by less than their intervals resolve.")
 
 
+def figure_contents(result) -> list[tuple[str, str]]:
+    """(file name, what it holds in words) of every figure :func:`write_section` writes
+    for a :class:`refit.apply.section.SectionResult`, e.g. ``("section-a-2.png", "4 fits
+    in 1 panel (MAP: fits 21-24 of 24, a panel each)")``; the plan only, nothing drawn."""
+    from refit.curate.schema import notation
+    from refit.report.section_layout import describe
+
+    return [(page_file(sec, page.number),
+             describe(page.panels, lambda r: notation(str(r), "")))
+            for sec in result.sections()
+            for page in section_plan(result.table, sec, axis=result.axis)]
+
+
+def _split_words(table) -> str:
+    """What the caption says of small multiples (nothing when one panel holds the fits)."""
+    from refit.report.section_layout import FITS_PER_PANEL, PANELS_PER_PAGE, is_split
+
+    if not is_split(table):
+        return ""
+    return (f" (at most {FITS_PER_PANEL} fits a panel; more fits in panels side by side "
+            f"on the same level axis and x range, at most {PANELS_PER_PAGE} panels a "
+            "figure, further figures as pages; each panel's legend names its fits)")
+
+
 def write_section(result, folder, *, overwrite: bool = True) -> list[Path]:
     """Write a :class:`refit.apply.section.SectionResult` to ``folder``: ``section.csv``
     (the long table), ``notes.txt`` (the choices made and what the levels resolve) and
-    ``section-<name>.png`` per section. Returns the paths written (csv, notes, figures).
+    ``section-<name>.png`` per section (``section-<name>-2.png``, ... when the fits
+    need more than one figure, :mod:`refit.report.section_layout`; further pages of an
+    earlier, longer run are removed). Returns the paths written (csv, notes, figures).
 
     Raises
     ------
@@ -428,9 +400,14 @@ def write_section(result, folder, *, overwrite: bool = True) -> list[Path]:
     write_text_atomic(written[0], result.table.to_csv(index=False))
     write_text_atomic(written[1], "".join(n + "\n" for n in result.notes))
     for sec in result.sections():
-        png = section_png(result.table, sec, axis=result.axis, y_label=result.age_label)
-        if png is not None:
-            target = folder / f"section-{slug(sec)}.png"
-            write_bytes_atomic(target, png)
+        pages = section_pages(result.table, sec, axis=result.axis, y_label=result.age_label)
+        for page in pages:
+            target = folder / page_file(sec, page.number)
+            write_bytes_atomic(target, _png(page.figure))
             written.append(target)
+        for old in folder.glob(f"section-{slug(sec)}-*.png"):   # an earlier, longer run
+            if re.fullmatch(rf"section-{re.escape(slug(sec))}-(\d+)\.png", old.name) \
+                    and int(old.stem.rpartition("-")[2]) > len(pages) \
+                    and old not in written:
+                old.unlink()
     return written

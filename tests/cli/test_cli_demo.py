@@ -154,7 +154,8 @@ def test_demo_refuses_a_folder_it_did_not_write(tmp_path):
 def test_demo_replaces_its_own_earlier_output(demo_run):
     out, _ = demo_run
     first = (out / "run" / "leaderboard.csv").read_bytes()
-    assert CliRunner().invoke(main, ["demo", "--out", str(out), "--quiet"]).exit_code == 0
+    res = CliRunner().invoke(main, ["demo", "--out", str(out), "--quiet"])
+    assert res.exit_code == 0 and res.output == ""       # -q: nothing but errors
     # same recipe, same data version, same seed: the same numbers
     assert (out / "run" / "leaderboard.csv").read_bytes() == first
 

@@ -24,6 +24,8 @@ def test_section_writes_figures_table_and_notes(tmp_path):
     assert "14 of 14 paleosols drawn in 2 figure(s), 2 fit(s), against level [m]" in res.output
     for name in ("section-murrenhal-bluff.png", "section-coldstave-gorge.png"):
         assert str(out / name) in res.output and (out / name).is_file()
+        # what each figure holds (refit.report.section_layout.describe)
+        assert f"{out / name}: 2 fits in 1 panel (MAP: 2)" in res.output
     t = pd.read_csv(out / "section.csv")
     assert len(t) == 28 and "Note: Coldstave Gorge" in res.output
     assert "not-decompacted" not in res.output

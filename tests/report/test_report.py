@@ -76,9 +76,9 @@ def run_dir(tmp_path_factory):
 @pytest.fixture(scope="module")
 def written(run_dir):
     out = run_dir.parent / "reports" / "r.html"
-    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out), "--quiet"])
+    res = CliRunner().invoke(report, [str(run_dir), "--out", str(out)])
     assert res.exit_code == 0, res.output
-    assert f"Report written to {out}" in res.output
+    assert f"Report written to {out}" in res.output      # -q: tests/cli/test_cli_quiet.py
     return out
 
 
