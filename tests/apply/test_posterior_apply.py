@@ -101,10 +101,12 @@ def test_planted_disagreement_flagged_with_chi2(files):
     assert "proxies-disagree" in both["flags"][0] and "chi2 =" in both["flag_details"][0]
     assert "proxies-disagree" not in both["flags"][1]
     # chi2 computed here: each proxy's own Student t likelihood (scipy.stats.t) normalised
-    # over the prior's support by scipy's trapezoid, its mean and variance, then
-    # sum (m_k - m)^2 / v_k about the precision-weighted mean (Cochran's Q, from memory)
+    # over its own support (the recorded consistency grid) by scipy's trapezoid, its mean
+    # and variance, then sum (m_k - m)^2 / v_k about the precision-weighted mean
+    # (Cochran's Q, from memory)
     rec = json.loads(both["posterior_prior"][0])
-    grid = np.linspace(rec["grid"]["low"], rec["grid"]["high"], rec["grid"]["points"])
+    g = rec["consistency_grid"]
+    grid = np.linspace(g["low"], g["high"], g["points"])
     for i in range(2):
         means, variances = [], []
         for p, v, sd in (("bk_depth_cm", depth[i], 5.0), ("bk_thickness_cm", thick[i], 4.0)):
