@@ -48,6 +48,7 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     FLAG_ORDER,
     FLAG_OUTSIDE,
     FLAG_OUTSIDE_MEASUREMENT,
+    LOG_FLOOR,
     MODE_FRACTION,
     N_GRID,
     OWN_ROWS,
@@ -74,9 +75,17 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
 
 class _Tables:
     """What every row shares, from the grid alone (computed once per run): per proxy the
-    predictive location f_k(x) and variance v_k(x); for a measurement SD s, the constants
-    of the t term ``c = 1 / (df (v + s^2))`` (normal: ``1 / (2 (v + s^2))``) and
-    ``-log(v + s^2) / 2``, cached per (proxy, s)."""
+    predictive location f_k(x) and variance v_k(x), and for a measurement SD s the
+    parts of its term that do not depend on the measured value, cached per (proxy, s).
+
+    With ``V = v + s^2``, ``a = (df + 1) / 2`` and ``d = df V`` the Student t term is
+    ``-a log(1 + r^2 / d) - log(V) / 2 = -a log(r^2 + d) + [a log df + (a - 1/2) log V]``:
+    the bracket is added once per grid point (not per row and point), and proxies with the
+    same df share one logarithm, ``-a log Π_k (r_k^2 + d_k)``. The normal's term is
+    ``-c r^2 - log(V) / 2``, ``c = 1 / (2 V)``. A proxy whose SD changes from row to row
+    takes the same formulas with V per row and point, so a row's numbers never depend on
+    the other rows of its block.
+    """
 
     def __init__(self, proxies, grid, checked: bool = True):
         self.loc, self.var = [], []
@@ -85,59 +94,112 @@ class _Tables:
             self.loc.append(loc)
             self.var.append(var)
         self.df = [float(p.df) for p in proxies]
-        # -(df+1)/2 multiplies log1p(c r^2); None for the normal (the term is -c r^2)
         self.a = [None if math.isinf(df) else 0.5 * (df + 1.0) for df in self.df]
         self.finite = all(np.isfinite(v).all() for v in self.var)
         self._cache: dict = {}
 
+    def parts(self, j: int, V: np.ndarray):
+        """(d or c, the value-free part of the term) of proxy j for total variance V."""
+        if self.a[j] is None:
+            return 0.5 / V, -0.5 * np.log(V)
+        a, df = self.a[j], self.df[j]
+        return df * V, (a - 0.5) * np.log(V) + a * math.log(df)
+
     def constants(self, j: int, s: float):
-        """(c, -log(v + s^2) / 2) of proxy j on the grid for measurement SD s."""
+        """:meth:`parts` of proxy j for one measurement SD s, cached."""
         key = (j, s)
         got = self._cache.get(key)
         if got is None:
-            v = self.var[j] + s * s
-            c = (0.5 if self.a[j] is None else 1.0 / self.df[j]) / v
-            got = self._cache[key] = (c, -0.5 * np.log(v))
+            got = self._cache[key] = self.parts(j, self.var[j] + s * s)
         return got
 
 
-def _log_likelihoods(tab: _Tables, y, s, lp, t, tmp, which=None) -> None:
-    """``lp += Σ_k log t_k`` (up to constants) for the rows of ``y``, ``s`` ((n, K),
+def _residual_sq(tab, j, yj, present, out):
+    """``out = (y_j - f_j(x))^2`` (rows without a value: 0)."""
+    np.subtract(np.where(present, yj, 0.0)[:, None], tab.loc[j], out=out)
+    np.square(out, out=out)
+
+
+def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None) -> None:
+    """``lp = base + Σ_k log t_k`` (up to constants) for the rows of ``y``, ``s`` ((n, K),
     model scale; NaN: proxy not measured, its term left out) over the proxies ``which``
-    (default all). ``lp`` (n, G) holds the starting values (the log prior); ``t``, ``tmp``
-    (n, G) are scratch."""
+    (default all). ``base`` (G,) is the log prior (or 0); ``t``, ``tmp`` (n, G) scratch.
+
+    The value-free parts are summed onto ``base`` in proxy order (0 for a row without the
+    proxy), then each group of proxies with one df adds ``-a log Π (r^2 + d)`` (factor 1
+    for a row without the proxy), then each normal proxy ``-c r^2``: the same operations
+    in the same order for every row, whatever the other rows of the block hold.
+    """
+    present = ~np.isnan(y)
+    B = base
+    groups: dict = {}
+    normals = []
     for j in range(y.shape[1]) if which is None else which:
-        yj, sj = y[:, j], s[:, j]
-        present = ~np.isnan(yj)
-        if not present.any():
+        pj = present[:, j]
+        if not pj.any():
             continue
-        np.subtract(np.where(present, yj, 0.0)[:, None], tab.loc[j], out=t)
-        np.square(t, out=t)
-        one_sd = bool(np.all(sj == sj[0]))
-        if one_sd:                                   # grid-only constants, cached
-            c, half = tab.constants(j, float(sj[0]))
-            np.multiply(t, c, out=t)
+        sj = s[:, j]
+        if np.all(sj == sj[0]):
+            scale, part = tab.constants(j, float(sj[0]))
         else:
-            np.add(tab.var[j], (sj * sj)[:, None], out=tmp)
-            np.divide(t, tmp, out=t)
-            np.multiply(t, 0.5 if tab.a[j] is None else 1.0 / tab.df[j], out=t)
-            np.log(tmp, out=tmp)
-            np.multiply(tmp, -0.5, out=tmp)
-        if tab.a[j] is not None:
-            np.log1p(t, out=t)
-            np.multiply(t, tab.a[j], out=t)
-        if not present.all():
-            t[~present] = 0.0
+            scale, part = tab.parts(j, tab.var[j] + (sj * sj)[:, None])
+        if not pj.all():
+            part = np.where(pj[:, None], part, 0.0)
+        B = B + part
+        if tab.a[j] is None:
+            normals.append((j, scale))
+        else:
+            groups.setdefault(tab.a[j], []).append((j, scale))
+    filled = False
+    for a, members in groups.items():
+        for k, (j, d) in enumerate(members):
+            r = t if k == 0 else tmp
+            _residual_sq(tab, j, y[:, j], present[:, j], r)
+            np.add(r, d, out=r)
+            if not present[:, j].all():
+                r[~present[:, j]] = 1.0
+            if k:
+                np.multiply(t, tmp, out=t)
+        np.log(t, out=t)
+        np.multiply(t, -a, out=t)
+        np.add(lp if filled else B, t, out=lp)
+        filled = True
+    if not filled:
+        lp[:] = B
+    for j, c in normals:
+        _residual_sq(tab, j, y[:, j], present[:, j], t)
+        np.multiply(t, c, out=t)
+        if not present[:, j].all():
+            t[~present[:, j]] = 0.0
         np.subtract(lp, t, out=lp)
-        if one_sd:
-            if present.all():
-                np.add(lp, half, out=lp)
-            else:
-                lp[present] += half
+
+
+def _log_likelihoods_apart(tab: _Tables, y, s, base, lp, t, tmp) -> None:
+    """As :func:`_log_likelihoods`, one proxy at a time: for rows where a group's product
+    overflowed (a measurement absurdly far from every curve)."""
+    lp[:] = base
+    part, zero = np.empty_like(lp), np.zeros(lp.shape[1])
+    for j in range(y.shape[1]):
+        if not np.isnan(y[:, j]).all():
+            _log_likelihoods(tab, y, s, zero, part, t, tmp, which=(j,))
+            np.add(lp, part, out=lp)
+
+
+def _row_moments(p, W, out=None):
+    """``p @ W`` in products of exactly :data:`BLOCK_ROWS` rows (the last one padded with
+    zero rows): a BLAS product of a row can depend on how many rows share the call, and a
+    row's numbers must depend on that row alone."""
+    n = p.shape[0]
+    out = np.empty((n, W.shape[1])) if out is None else out
+    for a in range(0, n, BLOCK_ROWS):
+        b = min(n, a + BLOCK_ROWS)
+        if b - a == BLOCK_ROWS:
+            np.matmul(p[a:b], W, out=out[a:b])
         else:
-            if not present.all():
-                tmp[~present] = 0.0
-            np.add(lp, tmp, out=lp)
+            pad = np.zeros((BLOCK_ROWS, p.shape[1]))
+            pad[:b - a] = p[a:b]
+            out[a:b] = (pad @ W)[:b - a]
+    return out
 
 
 def _mean_sd(M, centre):
@@ -175,6 +237,8 @@ class _Run:
         if k >= 2 and (self.n_present >= 2).any():
             self.own = _Even(likelihood_grid(prior, proxies, grid.size))
             self.own_tab = _Tables(proxies, self.own.grid, checked=False)
+            self.zero_own = np.zeros(self.own.grid.size)
+        self.floor = np.full(grid.size, LOG_FLOOR)
         nan = lambda: np.full(m, np.nan)
         self.out = {key: nan() for key in ("median", "mode", "mean", "sd", "lower", "upper",
                                            "hdi_lower", "hdi_upper", "edge_lo", "edge_hi")}
@@ -198,18 +262,27 @@ class _Run:
         for a in range(0, n_all, BLOCK_ROWS):
             b = min(n_all, a + BLOCK_ROWS)
             lp = P[a:b]
-            lp[:] = self.lprior
-            _log_likelihoods(self.tab, self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b], lp,
-                             scratch["t"][:b - a], scratch["tmp"][:b - a])
+            y, s_ = self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b]
+            t, tmp = scratch["t"][:b - a], scratch["tmp"][:b - a]
+            _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp)
             rows = np.arange(b - a)
-            k = idx[a:b] = lp.argmax(axis=1)
+            k = lp.argmax(axis=1)
+            if not np.all(np.isfinite(lp[rows, k])):
+                bad = np.flatnonzero(~np.isfinite(lp[rows, k]))
+                part = lp[bad]
+                _log_likelihoods_apart(self.tab, y[bad], s_[bad], self.lprior, part,
+                                       t[:bad.size], tmp[:bad.size])
+                lp[bad] = part
+                k = lp.argmax(axis=1)
+            idx[a:b] = k
             i = np.clip(k, 1, lp.shape[1] - 2)
             m0 = lp[rows, i]
             near[0, a:b], near[1, a:b], near[2, a:b] = lp[rows, i - 1] - m0, 0.0, \
                 lp[rows, i + 1] - m0
             np.subtract(lp, lp[rows, k][:, None], out=lp)
+            np.maximum(lp, self.floor, out=lp)      # exp then never leaves the normals
             np.exp(lp, out=lp)
-            np.matmul(lp, W, out=M[a:b])
+            _row_moments(lp, W, M[a:b])
             np.add.reduceat(lp, self.starts, axis=1, out=sums[a:b])
             self.peaks[r0 + a:r0 + b] = pg.raw_peak_counts(lp)
         sl = slice(r0, r1)
@@ -232,13 +305,13 @@ class _Run:
             keep = ~np.isnan(y[:, j])
             if not keep.any():
                 continue
-            lq[:] = 0.0
-            _log_likelihoods(tab, y, s, lq, t, tmp, which=(j,))
+            _log_likelihoods(tab, y, s, self.zero_own, lq, t, tmp, which=(j,))
             if not tab.finite:                       # beyond where the fit can be read
                 lq[:, np.isnan(tab.var[j])] = -np.inf
             np.subtract(lq, lq.max(axis=1)[:, None], out=lq)
+            np.maximum(lq, LOG_FLOOR, out=lq)
             np.exp(lq, out=lq)
-            mean, sd = _mean_sd(lq @ own.moment_weights, own.centre)
+            mean, sd = _mean_sd(_row_moments(lq, own.moment_weights), own.centre)
             self.proxy_mean[rows, j] = np.where(keep, mean, np.nan)
             self.proxy_sd[rows, j] = np.where(keep, sd, np.nan)
 

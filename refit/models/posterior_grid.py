@@ -24,8 +24,8 @@ import math
 import numpy as np
 
 #: most safeguarded Newton steps of the unimodal HDI on u = F(a) in [0, 1 - level]; from
-#: the equal-tailed interval 3 to 5 steps reach HDI_TOL, a row whose Newton steps leave the
-#: bracket halves it instead (bisection: 45 steps reach HDI_TOL from any start)
+#: the equal-tailed interval 3 to 5 steps reach HDI_TOL; a step leaving the bracket is
+#: replaced by false position in it (and a root within rounding of an end is that end)
 HDI_STEPS = 60
 #: the unimodal HDI stops when a step moves u = F(a) by less than this (a probability: at
 #: a density of 0.06 / SD, as a normal's at its 95 % HDI ends, 2e-13 SD in climate)
@@ -128,8 +128,9 @@ def hdi_unimodal(rows: GridRows, level: float, x0: float, sel: np.ndarray,
     """HDI ``[a, b]`` of the unimodal rows ``sel`` of ``rows``: ``u = F(a) / Z`` with
     ``gap(u) = p(Q(u)) - p(Q(u + level)) = 0`` (increasing in u for a unimodal density),
     by Newton steps from the equal-tailed interval, ``gap'(u) = Z (p'(a) / p(a) -
-    p'(b) / p(b))``, kept inside a bracket of the root (a step leaving it halves the
-    bracket instead), until a step moves u by less than :data:`HDI_TOL`.
+    p'(b) / p(b))``, kept inside a bracket of the root (a step leaving it is replaced by
+    false position in the bracket), until the next step would move u by less than
+    :data:`HDI_TOL`.
 
     A density falling from the left edge (``gap(0) >= 0``) gives ``u = 0``, one rising to
     the right edge (``gap(1 - level) <= 0``) ``u = 1 - level``.
@@ -180,28 +181,45 @@ def hdi_unimodal(rows: GridRows, level: float, x0: float, sel: np.ndarray,
     edge = np.where(right, g_far <= 0, g_far >= 0)
     lo = np.where(right, u0, 0.0)
     hi = np.where(right, 1.0 - level, u0)
+    g_lo = np.where(right, g, g_far)
+    g_hi = np.where(right, g_far, g)
     done = edge | (g == 0)
     u = np.where(edge, np.where(right, 1.0 - level, 0.0), u)
     ia, ta, ib, tb = (np.array(v, copy=True) for v in pos)
-    if edge.any():
-        e = np.flatnonzero(edge)
-        _, _, (ia[e], ta[e], ib[e], tb[e]) = at(u[e], e)
-    act = np.flatnonzero(~done)
+    # an HDI at an edge: [x_0, Q(level)] or [Q(1 - level), x_{G-1}], Q from the check above
+    le, re = edge & ~right, edge & right
+    ia[le], ta[le], ib[le], tb[le] = 0, 0.0, i[le], t[le]
+    ia[re], ta[re], ib[re], tb[re] = i[re], t[re], G - 1, 0.0
+    act = np.flatnonzero(~done & (np.abs(g / dg) > HDI_TOL))
     for _ in range(HDI_STEPS):
         if act.size == 0:
             break
         with np.errstate(invalid="ignore", divide="ignore"):
             un = u[act] - g[act] / dg[act]
-        bad = ~(np.isfinite(un) & (un > lo[act]) & (un < hi[act]))
-        un = np.where(bad, 0.5 * (lo[act] + hi[act]), un)
+        l_, h_ = lo[act], hi[act]
+        bad = ~(np.isfinite(un) & (un > l_) & (un < h_))
+        end = np.zeros(act.size, dtype=bool)
+        if bad.any():                  # false position inside the bracket ...
+            gl, gh = g_lo[act], g_hi[act]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                fp = l_ - gl * (h_ - l_) / (gh - gl)
+            # ... or, where it rounds onto an end, the root is that end to rounding
+            end = bad & ~(np.isfinite(fp) & (fp > l_) & (fp < h_))
+            fp = np.where(end, np.where(np.abs(gl) <= np.abs(gh), l_, h_), fp)
+            un = np.where(bad, fp, un)
         gn, dgn, (ja, sa, jb, sb) = at(un, act)
         below = gn < 0
         lo[act] = np.where(below, un, lo[act])
         hi[act] = np.where(below, hi[act], un)
-        moved = np.abs(un - u[act])
+        g_lo[act] = np.where(below, gn, g_lo[act])
+        g_hi[act] = np.where(below, g_hi[act], gn)
         u[act], g[act], dg[act] = un, gn, dgn
         ia[act], ta[act], ib[act], tb[act] = ja, sa, jb, sb
-        act = act[(moved > HDI_TOL) & (gn != 0) & (hi[act] - lo[act] > HDI_TOL)]
+        # stop where the next Newton step would move u by less than HDI_TOL (quadratic
+        # convergence: u is then that close to the root), or the root is an end
+        with np.errstate(invalid="ignore", divide="ignore"):
+            more = ~(np.abs(gn / dgn) <= HDI_TOL)
+        act = act[more & (gn != 0) & (hi[act] - lo[act] > HDI_TOL) & ~end]
     return x0 + (ia + ta) * rows.h, x0 + (ib + tb) * rows.h
 
 
@@ -244,11 +262,12 @@ def hdi_pieces(p: np.ndarray, grid: np.ndarray, level: float) -> list[tuple[floa
 
 def raw_peak_counts(p: np.ndarray) -> np.ndarray:
     """Number of local maxima per row (interior ``p_{i-1} < p_i >= p_{i+1}``, plus a
-    maximum at either edge): a cheap screen; rows with more than one are examined by
+    strict maximum at either edge: a flat run at an edge, such as a tail at the floor,
+    is none): a cheap screen; rows with more than one are examined by
     :func:`significant_modes`."""
     up = p[:, 1:] > p[:, :-1]
     inner = (up[:, :-1] & ~up[:, 1:]).sum(axis=1)
-    return inner + (~up[:, 0]) + up[:, -1]
+    return inner + (p[:, 0] > p[:, 1]) + up[:, -1]
 
 
 def significant_modes(p: np.ndarray, fraction: float, dip: float) -> list[int]:

@@ -85,6 +85,10 @@ CONSISTENCY_WIDEN = 1.0
 CONSISTENCY_STEP = 0.25
 #: fewest and most points of that reading (the most: the posterior's own n_grid)
 CONSISTENCY_MIN_POINTS = 257
+#: log densities are floored at this below each row's peak before exp (exp(-700) = 1e-304
+#: of the peak: below anything a summary can see, and above the underflow to subnormal
+#: numbers, which runs numpy's exp about fifty times slower)
+LOG_FLOOR = -700.0
 #: rows per block of the proxies' own likelihoods (on the consistency test's grid)
 OWN_ROWS = 512
 #: rows per block of the summaries (their per-call cost is shared by many rows)
