@@ -79,9 +79,10 @@ class _Tables:
     parts of its term that do not depend on the measured value, cached per (proxy, s).
 
     With ``V = v + s^2``, ``a = (df + 1) / 2`` and ``d = df V`` the Student t term is
-    ``-a log(1 + r^2 / d) - log(V) / 2 = -a log(r^2 + d) + [a log df + (a - 1/2) log V]``:
-    the bracket is added once per grid point (not per row and point), and proxies with the
-    same df share one logarithm, ``-a log Π_k (r_k^2 + d_k)``. The normal's term is
+    ``-a log(1 + r^2 / d) - log(V) / 2 = -a log(r^2 + d) + (a - 1/2) log V + a log df``:
+    the constant ``a log df`` is dropped (every density is normalised), ``(a - 1/2) log V``
+    is added once per grid point (not per row and point), and proxies with the same df
+    share one logarithm, ``-a log Π_k (r_k^2 + d_k)``. The normal's term is
     ``-c r^2 - log(V) / 2``, ``c = 1 / (2 V)``. A proxy whose SD changes from row to row
     takes the same formulas with V per row and point, so a row's numbers never depend on
     the other rows of its block.
@@ -100,10 +101,12 @@ class _Tables:
 
     def parts(self, j: int, V: np.ndarray):
         """(d or c, the value-free part of the term) of proxy j for total variance V."""
+        logV = np.log(V)
         if self.a[j] is None:
-            return 0.5 / V, -0.5 * np.log(V)
-        a, df = self.a[j], self.df[j]
-        return df * V, (a - 0.5) * np.log(V) + a * math.log(df)
+            np.multiply(logV, -0.5, out=logV)
+            return np.divide(0.5, V, out=V), logV
+        np.multiply(logV, self.a[j] - 0.5, out=logV)
+        return np.multiply(V, self.df[j], out=V), logV
 
     def constants(self, j: int, s: float):
         """:meth:`parts` of proxy j for one measurement SD s, cached."""
@@ -141,11 +144,12 @@ def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None) -> None:
         sj = s[:, j]
         if np.all(sj == sj[0]):
             scale, part = tab.constants(j, float(sj[0]))
+            B = B + part if pj.all() else B + np.where(pj[:, None], part, 0.0)
         else:
             scale, part = tab.parts(j, tab.var[j] + (sj * sj)[:, None])
-        if not pj.all():
-            part = np.where(pj[:, None], part, 0.0)
-        B = B + part
+            if not pj.all():
+                part[~pj] = 0.0
+            B = np.add(part, B, out=part)
         if tab.a[j] is None:
             normals.append((j, scale))
         else:

@@ -84,18 +84,18 @@ class GridRows:
     def quantile_index(self, target: np.ndarray, rows: np.ndarray | None = None):
         """Cell index i and fraction t in [0, 1] with ``F(x_i + t h) = target`` per row
         (``target`` in [0, Z], unnormalised), for all rows or the given row indices."""
+        F_end = self.F_end if rows is None else self.F_end[rows]
         rows = self.rows if rows is None else rows
         G = self.p.shape[1]
         n = np.arange(rows.size)
-        c = np.minimum((self.F_end[rows] < target[:, None]).sum(axis=1),
-                       self.F_end.shape[1] - 1)
+        c = np.minimum(np.count_nonzero(F_end < target[:, None], axis=1), F_end.shape[1] - 1)
         idx, vals, s0 = self._chunk_values(c, rows)
         S = np.empty_like(vals)
         S[:, 0] = s0
         np.cumsum(vals[:, 1:], axis=1, out=S[:, 1:])
         S[:, 1:] += s0[:, None]
         F = self.h * (S - 0.5 * (self.p[rows, :1] + vals))
-        j = np.clip((F <= target[:, None]).sum(axis=1) - 1, 0, self.width - 1)
+        j = np.clip(np.count_nonzero(F <= target[:, None], axis=1) - 1, 0, self.width - 1)
         i = idx[n, j]
         pi, pj = vals[n, j], vals[n, j + 1]
         u = np.maximum(target - F[n, j], 0.0) / self.h
@@ -266,7 +266,7 @@ def raw_peak_counts(p: np.ndarray) -> np.ndarray:
     is none): a cheap screen; rows with more than one are examined by
     :func:`significant_modes`."""
     up = p[:, 1:] > p[:, :-1]
-    inner = (up[:, :-1] & ~up[:, 1:]).sum(axis=1)
+    inner = np.count_nonzero(up[:, :-1] > up[:, 1:], axis=1)     # rising, then not
     return inner + (p[:, 0] > p[:, 1]) + up[:, -1]
 
 
