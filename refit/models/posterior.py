@@ -98,6 +98,7 @@ class _Tables:
         self.a = [None if math.isinf(df) else 0.5 * (df + 1.0) for df in self.df]
         self.finite = all(np.isfinite(v).all() for v in self.var)
         self._cache: dict = {}
+        self._tiles: dict = {}
 
     def parts(self, j: int, V: np.ndarray):
         """(d or c, the value-free part of the term) of proxy j for total variance V."""
@@ -107,6 +108,15 @@ class _Tables:
             return np.divide(0.5, V, out=V), logV
         np.multiply(logV, self.a[j] - 0.5, out=logV)
         return np.multiply(V, self.df[j], out=V), logV
+
+    def tiled(self, table, j: int, n: int) -> np.ndarray:
+        """``table[j]`` repeated on n rows (a row-by-row copy, kept: numpy combines a
+        full array with a column much faster than a row with a column)."""
+        key = (id(table), j)
+        got = self._tiles.get(key)
+        if got is None or got.shape[0] < n:
+            got = self._tiles[key] = np.tile(table[j], (max(n, BLOCK_ROWS), 1))
+        return got[:n]
 
     def constants(self, j: int, s: float):
         """:meth:`parts` of proxy j for one measurement SD s, cached."""
@@ -118,8 +128,9 @@ class _Tables:
 
 
 def _residual_sq(tab, j, yj, present, out):
-    """``out = (y_j - f_j(x))^2`` (rows without a value: 0)."""
-    np.subtract(np.where(present, yj, 0.0)[:, None], tab.loc[j], out=out)
+    """``out = (f_j(x) - y_j)^2`` (rows without a value: 0)."""
+    np.subtract(tab.tiled(tab.loc, j, out.shape[0]),
+                np.where(present, yj, 0.0)[:, None], out=out)
     np.square(out, out=out)
 
 
@@ -146,7 +157,7 @@ def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None) -> None:
             scale, part = tab.constants(j, float(sj[0]))
             B = B + part if pj.all() else B + np.where(pj[:, None], part, 0.0)
         else:
-            scale, part = tab.parts(j, tab.var[j] + (sj * sj)[:, None])
+            scale, part = tab.parts(j, tab.tiled(tab.var, j, sj.size) + (sj * sj)[:, None])
             if not pj.all():
                 part[~pj] = 0.0
             B = np.add(part, B, out=part)

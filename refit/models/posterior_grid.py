@@ -266,7 +266,7 @@ def raw_peak_counts(p: np.ndarray) -> np.ndarray:
     is none): a cheap screen; rows with more than one are examined by
     :func:`significant_modes`."""
     up = p[:, 1:] > p[:, :-1]
-    inner = np.count_nonzero(up[:, :-1] > up[:, 1:], axis=1)     # rising, then not
+    inner = (up[:, :-1] > up[:, 1:]).sum(axis=1)                  # rising, then not
     return inner + (p[:, 0] > p[:, 1]) + up[:, -1]
 
 

@@ -84,7 +84,7 @@ CONSISTENCY_WIDEN = 1.0
 #: below the test's needs: for a normal, relative error about exp(-2 pi^2 / 0.25^2))
 CONSISTENCY_STEP = 0.25
 #: fewest and most points of that reading (the most: the posterior's own n_grid)
-CONSISTENCY_MIN_POINTS = 257
+CONSISTENCY_MIN_POINTS = 129
 #: log densities are floored at this below each row's peak before exp (exp(-700) = 1e-304
 #: of the peak: below anything a summary can see, and above the underflow to subnormal
 #: numbers, which runs numpy's exp about fifty times slower)
