@@ -23,7 +23,11 @@ TABLE_COLUMNS = [
     "paleosol_id", "fit", "coefficient_file", "function_id", "version", "status",
     "response", "unit", "predictors_used", "estimate", "lower", "upper", "width", "level",
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin",
+    "posterior_median", "posterior_lower", "posterior_upper", "posterior_flags",
 ]
+#: the posterior's columns (empty unless apply ran with ``posterior=True``)
+POSTERIOR_COLUMNS = ("posterior_median", "posterior_lower", "posterior_upper",
+                     "posterior_flags")
 MAX_PANELS = 12
 #: text sizes of the figure [points]: read at about 70 % scale when the 11-inch figure is
 #: shown in a report column, so nothing smaller than 8.5
@@ -35,7 +39,10 @@ NOTE_WIDTH = 56
 #: grey for fits without an interval; distinguishable under the common colour-vision
 #: deficiencies (blue/orange contrast) and in greyscale (different lightness).
 STYLE = {"refit": "#2166ac", "published": "#d55e00", "none": "#8c8c8c",
-         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45}
+         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45,
+         # the posterior: bluish green, hatched, its median an open circle (so it stays
+         # apart from the frequentist bars in greyscale too)
+         "posterior": "#009e73", "posterior_hatch": "////"}
 
 
 def at_frame(pairs) -> pd.DataFrame:
@@ -66,15 +73,22 @@ def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
     t = results.copy()
     t = t[t["function_id"] != "combined"] if "function_id" in t else t
     t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
-    # a refit carries its candidate label, published or not; a literature equation has none
+    # a refit carries its candidate label, published or not; a literature equation has none;
+    # the combined posterior of several proxies (apply with posterior=True) is its own kind
     cand = t["candidate"].fillna("") if "candidate" in t else pd.Series("", index=t.index)
     t["origin"] = np.where(cand.astype(str) != "", "refit", "literature")
+    t.loc[t["function_id"].astype(str) == "posterior", "origin"] = "posterior"
     t["width"] = t["upper"].astype(float) - t["lower"].astype(float)
     return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
 
 
 def fit_label(r) -> str:
-    """Short row label: function id, version and candidate (or status)."""
+    """Short row label: function id, version and candidate (or status); the combined
+    posterior names its proxies."""
+    if str(r.function_id) == "posterior":
+        used = str(getattr(r, "predictors_used", "") or "")
+        names = " + ".join(part.split("=")[0] for part in used.split(" + ") if part)
+        return f"posterior {names}".strip()
     what = r.candidate if getattr(r, "candidate", "") else r.status
     return f"{r.function_id} {r.version} {what}".strip()
 
@@ -130,31 +144,51 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None) -> bytes:
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
-    fig, axes = plt.subplots(len(panels), 1, figsize=(11, sum(heights)), squeeze=False,
+    posterior = any(has_posterior(rows) for _, rows in panels)
+    legend_in = 0.85 if posterior else 0.55      # the posterior's entries take a 2nd line
+    total = sum(heights) + legend_in - 0.55
+    fig, axes = plt.subplots(len(panels), 1, figsize=(11, total), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
     for ax, (pid, rows) in zip(axes[:, 0], panels):
         _panel(ax, rows, pid)
     if title:
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.legend(handles=_legend_handles(), loc="upper right", bbox_to_anchor=(0.985, 0.998),
-               ncol=3, frameon=False, fontsize=FONT["legend"])
-    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / sum(heights),
-                        bottom=0.55 / sum(heights), hspace=0.5)
+    fig.legend(handles=_legend_handles(posterior), loc="upper right",
+               bbox_to_anchor=(0.985, 0.998), ncol=3, frameon=False,
+               fontsize=FONT["legend"])
+    fig.subplots_adjust(left=0.25, right=0.61, top=1 - legend_in / total,
+                        bottom=0.55 / total, hspace=0.5)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=130)
     plt.close(fig)
     return buf.getvalue()
 
 
-def _legend_handles() -> list:
-    """What the colours and the diamond mean (one legend for every panel)."""
+def _legend_handles(posterior: bool = False) -> list:
+    """What the colours and the markers mean (one legend for every panel; the posterior's
+    entries when a row carries one)."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    return [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
-            Patch(color=STYLE["published"], label="published equation (±1 SE)"),
-            Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
-                   label="estimate")]
+    handles = [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
+               Patch(color=STYLE["published"], label="published equation (±1 SE)"),
+               Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                      label="estimate")]
+    if posterior:
+        handles += [Patch(facecolor="white", edgecolor=STYLE["posterior"],
+                          hatch=STYLE["posterior_hatch"],
+                          label="posterior interval (Bayesian; prior in the table)"),
+                    Line2D([], [], ls="none", marker="o", mfc="white",
+                           mec=STYLE["posterior"], mew=1.5, ms=6, label="posterior median")]
+    return handles
+
+
+def has_posterior(rows: pd.DataFrame) -> bool:
+    """Whether any row carries a posterior (median or a combined posterior row)."""
+    med = pd.to_numeric(rows["posterior_median"], errors="coerce") \
+        if "posterior_median" in rows else pd.Series(dtype=float)
+    return bool(np.isfinite(med.astype(float)).any()
+                or ("origin" in rows and (rows["origin"] == "posterior").any()))
 
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
@@ -186,7 +220,8 @@ def _serious(flags) -> bool:
 def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     rows = rows.reset_index(drop=True)
     y = np.arange(len(rows))[::-1]
-    finite = pd.concat([rows["lower"], rows["upper"], rows["estimate"]]).astype(float)
+    cols = ["lower", "upper", "estimate"] + [c for c in POSTERIOR_COLUMNS[:3] if c in rows]
+    finite = pd.concat([pd.to_numeric(rows[c], errors="coerce") for c in cols]).astype(float)
     finite = finite[np.isfinite(finite)]
     lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
     # a lone estimate still gets a readable axis: +-10 % of its size (at least 1 unit)
@@ -195,17 +230,27 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
         lo, hi = float(r.lower), float(r.upper)
-        if np.isfinite(lo) or np.isfinite(hi):
+        if r.origin == "posterior":              # the combined posterior of several proxies
+            _posterior_bar(ax, yi, lo, float(r.estimate), hi, 0.5)
+        elif np.isfinite(lo) or np.isfinite(hi):
             a = lo if np.isfinite(lo) else lo_ax - pad
             b = hi if np.isfinite(hi) else hi_ax + pad
             ax.barh(yi, b - a, left=a, height=0.5, color=colour, alpha=alpha,
                     edgecolor=colour, linewidth=0.8)
         elif np.isfinite(float(r.estimate)):
             colour = STYLE["none"]
-        if np.isfinite(float(r.estimate)):
+        if np.isfinite(float(r.estimate)) and r.origin != "posterior":
             ax.plot(float(r.estimate), yi, marker="D", color=STYLE["estimate"], ms=5,
                     zorder=3)
+        post = _posterior_of(r)
+        if post is not None and r.origin != "posterior":   # beside a file's own interval
+            _posterior_bar(ax, yi - 0.36, post[1], post[0], post[2], 0.22)
         note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
+        if r.origin == "posterior":
+            note = "posterior (Bayesian), proxies multiplied"
+        elif post is not None:
+            note += (f"\nposterior {_fmt(post[0])} [{_fmt(post[1])}, {_fmt(post[2])}] "
+                     "(hatched)")
         if r.flags:
             note += "\nflags: " + str(r.flags).replace(";", ", ")
         if r.problem:
@@ -228,12 +273,39 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         ax.spines[side].set_visible(False)
 
 
+def _posterior_of(r):
+    """(median, lower, upper) of a row's posterior, or None."""
+    try:
+        med, lo, hi = (float(getattr(r, c)) for c in POSTERIOR_COLUMNS[:3])
+    except (AttributeError, TypeError, ValueError):
+        return None
+    return (med, lo, hi) if np.isfinite(med) else None
+
+
+def _fmt(v: float) -> str:
+    return f"{v:.4g}" if np.isfinite(v) else "?"
+
+
+def _posterior_bar(ax, y, lo, med, hi, height) -> None:
+    """A posterior interval: hatched, outlined bar and an open circle at the median."""
+    if np.isfinite(lo) and np.isfinite(hi):
+        ax.barh(y, hi - lo, left=lo, height=height, color="white",
+                edgecolor=STYLE["posterior"], hatch=STYLE["posterior_hatch"],
+                linewidth=1.0, zorder=2)
+    if np.isfinite(med):
+        ax.plot(med, y, marker="o", mfc="white", mec=STYLE["posterior"], mew=1.5, ms=6,
+                zorder=3)
+
+
 def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level=None,
-                  decompact=False, constants_file=None, seed=0):
+                  decompact=False, constants_file=None, seed=0, posterior=False, prior=None):
     """The comparison table and the :class:`refit.apply.estimates.ApplyResult` behind it.
 
     Exactly one of ``fossils`` (a table path) and ``at`` (``NAME=VALUE`` texts) is given;
-    ``paleosols`` keeps only those ids (all when empty).
+    ``paleosols`` keeps only those ids (all when empty). ``posterior`` (and its ``prior``)
+    as :func:`refit.apply.estimates.apply_files`: forward files' rows carry their posterior
+    beside the frequentist interval, and a paleosol with two or more proxies gets the
+    combined posterior's row.
     """
     from refit.apply.estimates import apply_files
 
@@ -241,7 +313,8 @@ def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level
         raise UsageError("give either --fossils TABLE or --at NAME=VALUE (not both)")
     source = fossils if fossils is not None else at_frame(at)
     result = apply_files(coefficient_files, source, level=level, decompact=decompact,
-                         constants_file=constants_file, seed=seed)
+                         constants_file=constants_file, seed=seed, posterior=posterior,
+                         prior=prior)
     table = comparison_table(result.results)
     if paleosols:
         unknown = [p for p in paleosols if p not in set(table["paleosol_id"])]

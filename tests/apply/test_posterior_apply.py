@@ -198,3 +198,37 @@ def test_cli_posterior_writes_columns_and_json(files, tmp_path):
         res = CliRunner().invoke(apply, [paths["bk_depth_cm"], "--fossils", str(table),
                                          *bad])
         assert res.exit_code == 2 and "Error:" in res.output and "Traceback" not in res.output
+
+
+def test_compare_draws_the_posterior_beside_the_frequentist_interval(files, tmp_path):
+    # refit compare --posterior: each forward file's row keeps its frequentist interval
+    # and gains the posterior's median and interval (the numbers apply writes); the
+    # combined posterior is a row of its own kind; the figure's legend names both
+    from refit.apply.compare import _legend_handles, compare_files, figure_png, has_posterior
+
+    fits, paths = files
+    fossils = _fossils(np.array([30.0, 66.0]), np.array([75.0, 55.0]))
+    table, result = compare_files([paths["bk_depth_cm"], paths["bk_thickness_cm"]],
+                                  fossils=fossils, posterior=True)
+    applied = result.results
+    fwd = table[table["origin"] != "posterior"].reset_index(drop=True)
+    ref = applied[applied["function_id"] != "posterior"].reset_index(drop=True)
+    for col in ("posterior_median", "posterior_lower", "posterior_upper"):
+        assert np.allclose(fwd[col].astype(float), ref[col].astype(float), rtol=0, atol=0)
+    assert np.all(np.isfinite(fwd["lower"].astype(float)))     # frequentist kept beside
+    both = table[table["origin"] == "posterior"].reset_index(drop=True)
+    assert len(both) == 2 and list(both["fit"]) == ["posterior bk_depth_cm + "
+                                                    "bk_thickness_cm"] * 2
+    assert np.allclose(both["estimate"], both["posterior_median"])
+    assert "proxies-disagree" in both["flags"][0]
+    assert has_posterior(table) and not has_posterior(table.drop(
+        columns=["posterior_median"]).assign(origin="refit"))
+    labels = [h.get_label() for h in _legend_handles(True)]
+    assert "posterior median" in labels and any("posterior interval" in x for x in labels)
+    assert len(_legend_handles(False)) == 3
+    # the drawing changes when the posterior is there (not a silent no-op)
+    plain = table.copy()
+    plain[["posterior_median", "posterior_lower", "posterior_upper"]] = np.nan
+    plain = plain[plain["origin"] != "posterior"]
+    drawn = fwd.copy()
+    assert figure_png(drawn) != figure_png(plain)
