@@ -390,8 +390,10 @@ def _repeats_pay(rec: dict, v: np.ndarray, w0) -> bool:
     return np.unique(sample).size < sample.size // 2
 
 
-def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:
-    """Estimate, lower, upper [response units] and flags for values ``v`` (m, k).
+def evaluate(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bool = False) -> tuple:
+    """Estimate, lower, upper [response units] and flags for values ``v`` (m, k); with
+    ``with_rays`` also ``other_lower``, ``other_upper``: the second ray of a forward
+    line's two-ray set (flag ``two-rays``), NaN for every other row and for inverse files.
 
     Every row's result depends on its own values only, so many rows with repeated values
     (:func:`_repeats_pay`) are evaluated once per distinct value and spread back: the same
@@ -399,8 +401,12 @@ def evaluate(rec: dict, v: np.ndarray, level: float, w0) -> tuple:
     whose rounding can depend on the matrix's size, otherwise)."""
     if _repeats_pay(rec, v, w0):
         values, back = np.unique(v[:, 0], return_inverse=True)
-        out = evaluate(rec, values[:, None], level, w0[:values.size])
+        out = evaluate(rec, values[:, None], level, w0[:values.size], with_rays=with_rays)
         return tuple(a[back] for a in out)
     if rec["direction"] == "forward":
-        return predict_forward(rec, v, level, w0)
-    return predict_inverse(rec, v, level, w0)
+        return predict_forward(rec, v, level, w0, with_rays=with_rays)
+    out = predict_inverse(rec, v, level, w0)
+    if not with_rays:
+        return out
+    nan = np.full(v.shape[0], np.nan)
+    return (*out, nan, nan.copy())
