@@ -115,6 +115,7 @@ class _Run:
         self.hdi = [[] for _ in range(m)]
         self.multimodal = np.zeros(m, dtype=bool)
         self.peaks = np.zeros(m, dtype=np.int64)
+        self.dead = np.zeros(m, dtype=bool)
         self.density = np.full((m, grid.size), np.nan) if keep_density else None
 
     def densities(self, P, sums, r0, r1, scratch):
@@ -133,15 +134,21 @@ class _Run:
             lp = P[a:b]
             y, s_ = self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b]
             t, tmp = scratch["t"][:b - a], scratch["tmp"][:b - a]
-            _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp)
+            with np.errstate(over="ignore", invalid="ignore"):   # absurd values: inf
+                _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp)
             rows = np.arange(b - a)
             k = lp.argmax(axis=1)
             if not np.all(np.isfinite(lp[rows, k])):
                 bad = np.flatnonzero(~np.isfinite(lp[rows, k]))
                 part = lp[bad]
-                _log_likelihoods_apart(self.tab, y[bad], s_[bad], self.lprior, part,
-                                       t[:bad.size], tmp[:bad.size])
+                with np.errstate(over="ignore", invalid="ignore"):
+                    _log_likelihoods_apart(self.tab, y[bad], s_[bad], self.lprior, part,
+                                           t[:bad.size], tmp[:bad.size])
                 lp[bad] = part
+                dead = bad[~np.isfinite(part.max(axis=1))]
+                if dead.size:   # zero everywhere in floating point: no reading (NaN, flag)
+                    self.dead[r0 + a + dead] = True
+                    lp[dead] = 0.0
                 k = lp.argmax(axis=1)
             idx[a:b] = k
             i = np.clip(k, 1, lp.shape[1] - 2)
@@ -174,10 +181,12 @@ class _Run:
             keep = ~np.isnan(y[:, j])
             if not keep.any():
                 continue
-            _log_likelihoods(tab, y, s, self.zero_own, lq, t, tmp, which=(j,))
+            with np.errstate(over="ignore", invalid="ignore"):
+                _log_likelihoods(tab, y, s, self.zero_own, lq, t, tmp, which=(j,))
             if not tab.finite:                       # beyond where the fit can be read
                 lq[:, np.isnan(tab.var[j])] = -np.inf
-            np.subtract(lq, lq.max(axis=1)[:, None], out=lq)
+            with np.errstate(invalid="ignore"):       # a dead row (-inf everywhere): NaN
+                np.subtract(lq, lq.max(axis=1)[:, None], out=lq)
             np.maximum(lq, LOG_FLOOR, out=lq)
             np.exp(lq, out=lq)
             mean, sd = _mean_sd(_row_moments(lq, own.moment_weights), own.centre)
@@ -340,6 +349,12 @@ def _spread(values, ok, fill=np.nan):
 
 def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior:
     """The :class:`Posterior` of all rows (those without a usable value NaN) and its flags."""
+    dead = _spread(run.dead, ok, 0.0) > 0
+    for key in run.out:
+        run.out[key][run.dead] = np.nan
+    run.proxy_mean[run.dead], run.proxy_sd[run.dead] = np.nan, np.nan
+    for i in np.flatnonzero(run.dead):
+        run.hdi[i], run.multimodal[i] = [], False
     o = {key: _spread(v, ok) for key, v in run.out.items()}
     pmean, psd = _spread(run.proxy_mean, ok), _spread(run.proxy_sd, ok)
     chi2, dof, p = _consistency(pmean, psd)
@@ -355,7 +370,7 @@ def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior
         lo_cut, hi_cut = o["edge_lo"] >= cut, o["edge_hi"] >= cut
         masks = {
             FLAG_MISSING: ~ok & ~invalid.any(axis=1),
-            FLAG_INVALID: invalid.any(axis=1),
+            FLAG_INVALID: invalid.any(axis=1) | dead,
             FLAG_OUTSIDE_MEASUREMENT: outside.any(axis=1),
             FLAG_OUTSIDE: (o["median"] < c_lo) | (o["median"] > c_hi),
             FLAG_MULTIMODAL: multimodal,

@@ -190,7 +190,8 @@ def hdi_unimodal(rows: GridRows, level: float, x0: float, sel: np.ndarray,
     le, re = edge & ~right, edge & right
     ia[le], ta[le], ib[le], tb[le] = 0, 0.0, i[le], t[le]
     ia[re], ta[re], ib[re], tb[re] = i[re], t[re], G - 1, 0.0
-    act = np.flatnonzero(~done & (np.abs(g / dg) > HDI_TOL))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        act = np.flatnonzero(~done & ~(np.abs(g / dg) <= HDI_TOL))
     for _ in range(HDI_STEPS):
         if act.size == 0:
             break

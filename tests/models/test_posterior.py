@@ -204,6 +204,11 @@ def test_bad_input_messages():
     assert "measurement-sd-missing" in post.flags[0]
     assert "measurement-outside-range" in post.flags[1]
     assert post.flags[2] == "missing-value" and np.isnan(post.median[2])
+    # a value absurdly far from the curve (its likelihood underflows at every grid point):
+    # no numbers and a flag, never a zero-width interval at the grid's edge
+    far = climate_posterior([p, p], [[1e160, 50.0], [1e160, np.nan]], sd=1.0)
+    assert "invalid-value" in far.flags[0] and "invalid-value" in far.flags[1]
+    assert np.isnan(far.median).all() and np.isnan(far.lower).all() and far.hdi[0] == []
     # NaN SD counts as 0: the same numbers as an SD of 0
     zero = climate_posterior([p, p], [[50.0, 51.0]], sd=[[0.0, 1.0]])
     assert post.median[0] == zero.median[0]
