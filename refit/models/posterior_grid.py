@@ -40,6 +40,18 @@ def chunk_starts(n_grid: int) -> np.ndarray:
     return np.arange(0, n_grid, w)
 
 
+def running_sum(a: np.ndarray) -> np.ndarray:
+    """``numpy.cumsum(a, axis=1)`` (the same additions in the same order) for a short
+    second axis: one vector addition per column across all rows, where numpy's cumsum
+    would loop row by row."""
+    out = np.empty_like(a, dtype=float)
+    if a.shape[1]:
+        run = out[:, 0] = a[:, 0]
+        for k in range(1, a.shape[1]):
+            run = out[:, k] = run + a[:, k]
+    return out
+
+
 class GridRows:
     """Chunk sums of a block of rows, for quantiles and the distribution function.
 
@@ -63,40 +75,41 @@ class GridRows:
         self.width = int(starts[1] - starts[0]) if starts.size > 1 else G
         ends = np.append(starts[1:], G) - 1                     # last index of each chunk
         sums = np.add.reduceat(p, starts, axis=1) if chunk_sums is None else chunk_sums
-        self.S_end = np.cumsum(sums, axis=1)
+        self.S_end = running_sum(sums)
         self.F_end = h * (self.S_end - 0.5 * (p[:, :1] + p[:, ends]))
         self.total = self.F_end[:, -1].copy()                   # normaliser Z
         self.rows = np.arange(B)
         self.flat = p.reshape(-1)
         self.offsets = self.rows * G
-
-    def _chunk_values(self, c: np.ndarray, rows: np.ndarray):
-        """(indices (n, w+1), values, S at the first index) of chunk ``c`` of each of
-        ``rows``, with the last point of the chunk before (so every cell ending in chunk c
-        is present)."""
-        G = self.p.shape[1]
-        first = np.maximum(self.starts[c] - 1, 0)
-        idx = np.minimum(first[:, None] + np.arange(self.width + 1), G - 1)
-        vals = np.take(self.flat, idx + self.offsets[rows][:, None])
-        s0 = np.where(c > 0, self.S_end[rows, np.maximum(c - 1, 0)], self.p[rows, 0])
-        return idx, vals, s0
+        self.steps = np.arange(self.width + 1)
 
     def quantile_index(self, target: np.ndarray, rows: np.ndarray | None = None):
         """Cell index i and fraction t in [0, 1] with ``F(x_i + t h) = target`` per row
-        (``target`` in [0, Z], unnormalised), for all rows or the given row indices."""
+        (``target`` in [0, Z], unnormalised), for all rows or the given row indices.
+
+        The chunk holding the target, then that chunk's points with the last point of the
+        chunk before (so every cell ending in the chunk is present); the running sum over
+        the chunk is one vector addition per point across all rows (numpy's cumsum along
+        a short row is slow), the additions of a sequential sum in its order."""
+        G = self.p.shape[1]
         F_end = self.F_end if rows is None else self.F_end[rows]
         rows = self.rows if rows is None else rows
-        G = self.p.shape[1]
         n = np.arange(rows.size)
         c = np.minimum(np.count_nonzero(F_end < target[:, None], axis=1), F_end.shape[1] - 1)
-        idx, vals, s0 = self._chunk_values(c, rows)
+        first = np.maximum(self.starts[c] - 1, 0)
+        off = self.offsets[rows]
+        idx = np.minimum((off + first)[:, None] + self.steps, (off + (G - 1))[:, None])
+        vals = np.take(self.flat, idx)                           # (n, w + 1)
+        s0 = np.where(c > 0, self.S_end[rows, np.maximum(c - 1, 0)], self.p[rows, 0])
         S = np.empty_like(vals)
+        run = S[:, 1] = vals[:, 1]
+        for k in range(2, vals.shape[1]):
+            run = S[:, k] = run + vals[:, k]
         S[:, 0] = s0
-        np.cumsum(vals[:, 1:], axis=1, out=S[:, 1:])
         S[:, 1:] += s0[:, None]
         F = self.h * (S - 0.5 * (self.p[rows, :1] + vals))
         j = np.clip(np.count_nonzero(F <= target[:, None], axis=1) - 1, 0, self.width - 1)
-        i = idx[n, j]
+        i = np.minimum(first + j, G - 1)
         pi, pj = vals[n, j], vals[n, j + 1]
         u = np.maximum(target - F[n, j], 0.0) / self.h
         # F_i + h (p_i t + d t^2 / 2) = target, stable root t = 2u / (p_i + sqrt(p_i^2 + 2 d u))
@@ -105,7 +118,7 @@ class GridRows:
             t = np.where(pi + disc > 0, 2.0 * u / (pi + disc), 0.0)
         last = i >= G - 1
         t = np.where(last, 0.0, np.clip(t, 0.0, 1.0))
-        return np.minimum(i, G - 1), t
+        return i, t
 
     def quantile(self, prob, x0: float):
         """x at cumulative probability ``prob`` (scalar or per row) [climate unit]."""
