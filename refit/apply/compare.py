@@ -5,7 +5,10 @@ estimate and an interval for the same input; the figure draws the intervals as h
 bars, one row per fit, the estimate marked, and prints each fit's cross-validated coverage
 beside its interval, so that the narrowest interval is not mistaken for the best: a narrow
 interval whose coverage under cross-validation falls short of its nominal level is
-overconfident.
+overconfident. With the posterior (apply's ``posterior=True``), a forward file's row also
+carries the posterior median and interval, drawn as a hatched green bar with an open
+circle under its frequentist bar, and a paleosol with two or more proxies gets the
+combined posterior as a row of its own (``origin`` ``posterior``).
 """
 
 from __future__ import annotations

@@ -3,7 +3,10 @@
 ``refit compare`` (and ``refit demo``) write ``comparison.csv`` and ``comparison.png`` in
 one folder. A report given that folder redraws the figure from the table with
 :func:`refit.apply.compare.figure_pngs` (so figure and table always agree) and lists the table;
-both are embedded, so the report stays one self-contained file.
+both are embedded, so the report stays one self-contained file. Where apply produced the
+posterior for climate (``refit compare --posterior``, ``refit demo``), the table shows its
+median and interval beside each forward file's frequentist interval, and the combined
+posterior of several proxies as a row of its own kind.
 """
 
 from __future__ import annotations
