@@ -73,7 +73,7 @@ MIN_PRIOR_MASS_IN_RANGE = 1e-3
 #: a normal prior's grid reaches this many SDs either side of its mean
 NORMAL_PRIOR_SDS = 8.0
 #: rows per block of the density (a block of rows x 2,000 points stays in cache)
-BLOCK_ROWS = 16
+BLOCK_ROWS = 32
 #: each proxy's own likelihood (the consistency test's estimates) is read over the proxies'
 #: calibration range of climate widened by this many times its width on either side (and
 #: joined with the prior's support, cut at the physical bounds): the likelihood's own
