@@ -204,9 +204,14 @@ def test_compare_draws_the_posterior_beside_the_frequentist_interval(files, tmp_
     # refit compare --posterior: each forward file's row keeps its frequentist interval
     # and gains the posterior's median and interval (the numbers apply writes); the
     # combined posterior is a row of its own kind; the figure's legend names both
-    from refit.apply.compare import _legend_handles, compare_files, figure_png, has_posterior
+    from refit.apply.compare import (
+        _legend_handles,
+        compare_files,
+        figure_png,
+        has_posterior,
+    )
 
-    fits, paths = files
+    _, paths = files
     fossils = _fossils(np.array([30.0, 66.0]), np.array([75.0, 55.0]))
     table, result = compare_files([paths["bk_depth_cm"], paths["bk_thickness_cm"]],
                                   fossils=fossils, posterior=True)
@@ -217,8 +222,8 @@ def test_compare_draws_the_posterior_beside_the_frequentist_interval(files, tmp_
         assert np.allclose(fwd[col].astype(float), ref[col].astype(float), rtol=0, atol=0)
     assert np.all(np.isfinite(fwd["lower"].astype(float)))     # frequentist kept beside
     both = table[table["origin"] == "posterior"].reset_index(drop=True)
-    assert len(both) == 2 and list(both["fit"]) == ["posterior bk_depth_cm + "
-                                                    "bk_thickness_cm"] * 2
+    label = "posterior bk_depth_cm + bk_thickness_cm"
+    assert len(both) == 2 and list(both["fit"]) == [label, label]
     assert np.allclose(both["estimate"], both["posterior_median"])
     assert "proxies-disagree" in both["flags"][0]
     assert has_posterior(table) and not has_posterior(table.drop(
