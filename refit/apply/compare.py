@@ -5,7 +5,10 @@ estimate and an interval for the same input; the figure draws the intervals as h
 bars, one row per fit, the estimate marked, and prints each fit's cross-validated coverage
 beside its interval, so that the narrowest interval is not mistaken for the best: a narrow
 interval whose coverage under cross-validation falls short of its nominal level is
-overconfident.
+overconfident. With the posterior (apply's ``posterior=True``), a forward file's row also
+carries the posterior median and interval, drawn as a hatched green bar with an open
+circle under its frequentist bar, and a paleosol with two or more proxies gets the
+combined posterior as a row of its own (``origin`` ``posterior``).
 """
 
 from __future__ import annotations
@@ -24,7 +27,11 @@ TABLE_COLUMNS = [
     "response", "unit", "predictors_used", "estimate", "lower", "upper",
     "lower_untruncated", "upper_untruncated", "width", "level",
     "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin", "citation",
+    "posterior_median", "posterior_lower", "posterior_upper", "posterior_flags",
 ]
+#: the posterior's columns (empty unless apply ran with ``posterior=True``)
+POSTERIOR_COLUMNS = ("posterior_median", "posterior_lower", "posterior_upper",
+                     "posterior_flags")
 MAX_PANELS = 12
 #: the table file written beside the figure pages
 FILE = "comparison.csv"
@@ -41,7 +48,10 @@ NOTE_WIDTH = 56
 #: grey for fits without an interval; distinguishable under the common colour-vision
 #: deficiencies (blue/orange contrast) and in greyscale (different lightness).
 STYLE = {"refit": "#2166ac", "published": "#d55e00", "none": "#8c8c8c",
-         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45}
+         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45,
+         # the posterior: bluish green, hatched, its median an open circle (so it stays
+         # apart from the frequentist bars in greyscale too)
+         "posterior": "#009e73", "posterior_hatch": "////"}
 
 
 def at_frame(pairs) -> pd.DataFrame:
@@ -72,9 +82,11 @@ def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
     t = results.copy()
     t = t[t["function_id"] != "combined"] if "function_id" in t else t
     t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
-    # a refit carries its candidate label, published or not; a literature equation has none
+    # a refit carries its candidate label, published or not; a literature equation has none;
+    # the combined posterior of several proxies (apply with posterior=True) is its own kind
     cand = t["candidate"].fillna("") if "candidate" in t else pd.Series("", index=t.index)
     t["origin"] = np.where(cand.astype(str) != "", "refit", "literature")
+    t.loc[t["function_id"].astype(str) == "posterior", "origin"] = "posterior"
     t["width"] = t["upper"].astype(float) - t["lower"].astype(float)
     return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
 
@@ -83,9 +95,14 @@ def fit_label(r) -> str:
     """Short row label: a literature equation by its short citation and what it is of
     ("Retallack 1994, from bk_depth"; the part of its function id after ``_from_``, so a
     paper with several equations names each), a refit by function id, version and
-    candidate. A named variant (:func:`refit.coefficients.format.variant_of`; not the
-    unnamed default) follows the version ("map_from_bk_depth 1.1.0 mixed
-    linear__mixed__inverse__analytic"), so two variants at one version stay apart."""
+    candidate, the combined posterior by its proxies. A named variant
+    (:func:`refit.coefficients.format.variant_of`; not the unnamed default) follows the
+    version ("map_from_bk_depth 1.1.0 mixed linear__mixed__inverse__analytic"), so two
+    variants at one version stay apart."""
+    if str(r.function_id) == "posterior":
+        used = str(getattr(r, "predictors_used", "") or "")
+        names = " + ".join(part.split("=")[0] for part in used.split(" + ") if part)
+        return f"posterior {names}".strip()
     variant = variant_label(getattr(r, "variant", ""))
     cite = getattr(r, "citation", "")
     if isinstance(cite, str) and cite and not getattr(r, "candidate", ""):
@@ -193,21 +210,24 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
-    handles = _legend_handles(pd.concat([rows for _, rows in panels]))
-    below = 0.4 if len(handles) > 3 else 0.0   # a second legend line under the panels
-    total = sum(heights) + below
+    posterior = any(has_posterior(rows) for _, rows in panels)
+    legend_in = 0.85 if posterior else 0.55      # the posterior's entries take a 2nd line
+    handles = _legend_handles(pd.concat([rows for _, rows in panels]), posterior=posterior)
+    top, cut = handles[:5 if posterior else 3], handles[5 if posterior else 3:]
+    below = 0.4 if cut else 0.0                  # the bound's triangle under the panels
+    total = sum(heights) + legend_in - 0.55 + below
     fig, axes = plt.subplots(len(panels), 1, figsize=(11, total), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
     for ax, (pid, rows) in zip(axes[:, 0], panels):
         _panel(ax, rows, pid)
     if title:
         fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.legend(handles=handles[:3], loc="upper right", bbox_to_anchor=(0.985, 0.998),
+    fig.legend(handles=top, loc="upper right", bbox_to_anchor=(0.985, 0.998),
                ncol=3, frameon=False, fontsize=FONT["legend"])
-    if below:  # what the triangle of a limit cut at a bound means, under the panels
-        fig.legend(handles=handles[3:], loc="lower left", bbox_to_anchor=(0.01, 0.0),
+    if cut:  # what the triangle of a limit cut at a bound means, under the panels
+        fig.legend(handles=cut, loc="lower left", bbox_to_anchor=(0.01, 0.0),
                    frameon=False, fontsize=FONT["legend"])
-    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / total,
+    fig.subplots_adjust(left=0.25, right=0.61, top=1 - legend_in / total,
                         bottom=(0.55 + below) / total, hspace=0.5)
     buf = io.BytesIO()
     meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
@@ -221,9 +241,10 @@ TRUNCATED_TEXT = ("limit cut at a physical bound (flag truncated-at-bound, e.g. 
                   "mm); the limit before the cut is in the table (lower/upper_untruncated)")
 
 
-def _legend_handles(rows: pd.DataFrame | None = None) -> list:
-    """What the colours, the diamond and (when ``rows`` have one) the triangle of a limit
-    cut at a physical bound mean (one legend for every panel)."""
+def _legend_handles(rows: pd.DataFrame | None = None, *, posterior: bool = False) -> list:
+    """What the colours and the markers mean (one legend for every panel): the two
+    colours and the diamond; the posterior's entries when a row carries one; last, when
+    ``rows`` have one, the triangle of a limit cut at a physical bound."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
@@ -233,10 +254,24 @@ def _legend_handles(rows: pd.DataFrame | None = None) -> list:
            Patch(color=STYLE["published"], label="published equation (±1 SE)"),
            Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
                   label="estimate")]
+    if posterior:
+        out += [Patch(facecolor="white", edgecolor=STYLE["posterior"],
+                      hatch=STYLE["posterior_hatch"],
+                      label="posterior interval (Bayesian; prior in the table)"),
+                Line2D([], [], ls="none", marker="o", mfc="white",
+                       mec=STYLE["posterior"], mew=1.5, ms=6, label="posterior median")]
     if rows is not None and any(m.any() for m in truncated_sides(rows)):
         out.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
                           label=TRUNCATED_TEXT))
     return out
+
+
+def has_posterior(rows: pd.DataFrame) -> bool:
+    """Whether any row carries a posterior (median or a combined posterior row)."""
+    med = pd.to_numeric(rows["posterior_median"], errors="coerce") \
+        if "posterior_median" in rows else pd.Series(dtype=float)
+    return bool(np.isfinite(med.astype(float)).any()
+                or ("origin" in rows and (rows["origin"] == "posterior").any()))
 
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
@@ -270,7 +305,8 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
 
     rows = rows.reset_index(drop=True)
     y = np.arange(len(rows))[::-1]
-    finite = pd.concat([rows["lower"], rows["upper"], rows["estimate"]]).astype(float)
+    cols = ["lower", "upper", "estimate"] + [c for c in POSTERIOR_COLUMNS[:3] if c in rows]
+    finite = pd.concat([pd.to_numeric(rows[c], errors="coerce") for c in cols]).astype(float)
     finite = finite[np.isfinite(finite)]
     lo_ax, hi_ax = (finite.min(), finite.max()) if len(finite) else (0.0, 1.0)
     # a lone estimate still gets a readable axis: +-10 % of its size (at least 1 unit)
@@ -280,21 +316,31 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
         lo, hi = float(r.lower), float(r.upper)
-        if np.isfinite(lo) or np.isfinite(hi):
+        if r.origin == "posterior":              # the combined posterior of several proxies
+            _posterior_bar(ax, yi, lo, float(r.estimate), hi, 0.5)
+        elif np.isfinite(lo) or np.isfinite(hi):
             a = lo if np.isfinite(lo) else lo_ax - pad
             b = hi if np.isfinite(hi) else hi_ax + pad
             ax.barh(yi, b - a, left=a, height=0.5, color=colour, alpha=alpha,
                     edgecolor=colour, linewidth=0.8)
         elif np.isfinite(float(r.estimate)):
             colour = STYLE["none"]
-        if np.isfinite(float(r.estimate)):
+        if np.isfinite(float(r.estimate)) and r.origin != "posterior":
             ax.plot(float(r.estimate), yi, marker="D", color=STYLE["estimate"], ms=5,
                     zorder=3)
         for cut, limit, marker in zip(cuts, (lo, hi), "<>"):
             if cut[i]:  # a limit cut at a physical bound: a triangle at the bound
                 ax.plot(limit, yi, marker=marker, color=STYLE["estimate"], ms=5, zorder=3,
                         gid="truncated")
+        post = _posterior_of(r)
+        if post is not None and r.origin != "posterior":   # beside a file's own interval
+            _posterior_bar(ax, yi - 0.36, post[1], post[0], post[2], 0.22)
         note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
+        if r.origin == "posterior":
+            note = "posterior (Bayesian), proxies multiplied"
+        elif post is not None:
+            note += (f"\nposterior {_fmt(post[0])} [{_fmt(post[1])}, {_fmt(post[2])}] "
+                     "(hatched)")
         if r.flags:
             note += "\nflags: " + str(r.flags).replace(";", ", ")
         if r.problem:
@@ -320,12 +366,39 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         ax.spines[side].set_visible(False)
 
 
+def _posterior_of(r):
+    """(median, lower, upper) of a row's posterior, or None."""
+    try:
+        med, lo, hi = (float(getattr(r, c)) for c in POSTERIOR_COLUMNS[:3])
+    except (AttributeError, TypeError, ValueError):
+        return None
+    return (med, lo, hi) if np.isfinite(med) else None
+
+
+def _fmt(v: float) -> str:
+    return f"{v:.4g}" if np.isfinite(v) else "?"
+
+
+def _posterior_bar(ax, y, lo, med, hi, height) -> None:
+    """A posterior interval: hatched, outlined bar and an open circle at the median."""
+    if np.isfinite(lo) and np.isfinite(hi):
+        ax.barh(y, hi - lo, left=lo, height=height, color="white",
+                edgecolor=STYLE["posterior"], hatch=STYLE["posterior_hatch"],
+                linewidth=1.0, zorder=2)
+    if np.isfinite(med):
+        ax.plot(med, y, marker="o", mfc="white", mec=STYLE["posterior"], mew=1.5, ms=6,
+                zorder=3)
+
+
 def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level=None,
-                  decompact=False, constants_file=None, seed=0):
+                  decompact=False, constants_file=None, seed=0, posterior=False, prior=None):
     """The comparison table and the :class:`refit.apply.estimates.ApplyResult` behind it.
 
     Exactly one of ``fossils`` (a table path) and ``at`` (``NAME=VALUE`` texts) is given;
-    ``paleosols`` keeps only those ids (all when empty).
+    ``paleosols`` keeps only those ids (all when empty). ``posterior`` (and its ``prior``)
+    as :func:`refit.apply.estimates.apply_files`: forward files' rows carry their posterior
+    beside the frequentist interval, and a paleosol with two or more proxies gets the
+    combined posterior's row.
     """
     from refit.apply.estimates import apply_files
 
@@ -333,7 +406,8 @@ def compare_files(coefficient_files, *, fossils=None, at=(), paleosols=(), level
         raise UsageError("give either --fossils TABLE or --at NAME=VALUE (not both)")
     source = fossils if fossils is not None else at_frame(at)
     result = apply_files(coefficient_files, source, level=level, decompact=decompact,
-                         constants_file=constants_file, seed=seed)
+                         constants_file=constants_file, seed=seed, posterior=posterior,
+                         prior=prior)
     table = comparison_table(result.results)
     if paleosols:
         unknown = [p for p in paleosols if p not in set(table["paleosol_id"])]

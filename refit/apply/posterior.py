@@ -108,8 +108,10 @@ def measurement_sds(frame, inputs, preds, decompact, record, seed, n_draws, draw
 
 
 def _prior_text(post) -> str:
-    return json.dumps({"prior": post.prior, "grid": post.grid, "level": post.level},
-                      sort_keys=True)
+    rec = {"prior": post.prior, "grid": post.grid, "level": post.level}
+    if post.consistency_grid is not None:
+        rec["consistency_grid"] = post.consistency_grid
+    return json.dumps(rec, sort_keys=True)
 
 
 def _fill(results: pd.DataFrame, where: np.ndarray, post, pick) -> None:
@@ -212,7 +214,8 @@ def _group(out, members, inputs, sds_for, prior, level, records, problems, run):
 
 def _record(labels, post) -> dict:
     return {"files": list(labels), "proxies": list(post.proxies), "prior": post.prior,
-            "grid": post.grid, "level": post.level}
+            "grid": post.grid, "consistency_grid": post.consistency_grid,
+            "level": post.level}
 
 
 def _combined_rows(out, proxies, post, V, level) -> list[dict]:

@@ -5,8 +5,9 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import (
-    emit_csv, emit_json, finish, format_option, fossil_options, guarded, print_comparison,
-    print_problems_and_cautions, problems_failure, stdout_console,
+    emit_csv, emit_json, finish, format_option, fossil_options, guarded, posterior_options,
+    posterior_prior, print_comparison, print_problems_and_cautions, problems_failure,
+    stdout_console,
 )
 
 
@@ -24,11 +25,12 @@ from refit.cli.common import (
               default="refit-compare", show_default=True,
               help="Folder for comparison.csv and comparison.png.")
 @click.option("--overwrite", is_flag=True, help="Replace files already in --out.")
+@posterior_options
 @format_option("json", "csv")
 @click.pass_context
 @guarded
 def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constants_file,
-            seed, out, overwrite, fmt) -> None:
+            seed, out, overwrite, fmt, posterior=False, prior=None) -> None:
     """Compare COEFFICIENTS files (fits, versions, published equations) on one input.
 
     Writes DIR/comparison.csv (one row per paleosol and fit: estimate, interval, width,
@@ -36,7 +38,10 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     bars, one row per fit, the estimate marked, the CV coverage printed beside each
     interval: the narrowest interval is not necessarily the best). Every paleosol is
     drawn: beyond 12 panels the figure continues in comparison-2.png, comparison-3.png,
-    ... and the terminal names each file.
+    ... and the terminal names each file. With --posterior, forward files also get the
+    posterior for climate (hatched bar, open circle at its median, columns
+    posterior_median/lower/upper) and a paleosol with two or more proxies a "posterior"
+    row, all proxies multiplied.
 
     \b
     Exit codes: 0 written, 1 some fits or rows could not be evaluated (the rest is still
@@ -58,9 +63,11 @@ def compare(ctx, coefficients, fossils, at, paleosols, level, decompact, constan
     csv = folder / "comparison.csv"
     if (csv.exists() or (folder / "comparison.png").exists()) and not overwrite:
         raise UsageError(f"--out {out} already holds a comparison; pass --overwrite")
+    prior_spec = posterior_prior(posterior, prior)
     table, result = compare_files(list(coefficients), fossils=fossils, at=at,
                                   paleosols=paleosols, level=level, decompact=decompact,
-                                  constants_file=constants_file, seed=seed)
+                                  constants_file=constants_file, seed=seed,
+                                  posterior=posterior, prior=prior_spec)
     figures = write_comparison(table, folder)
     if fmt == "csv":
         emit_csv(table)

@@ -394,9 +394,11 @@ def _repeats_pay(rec: dict, v: np.ndarray, w0) -> bool:
     return np.unique(sample).size < sample.size // 2
 
 
-def evaluate(rec: dict, v: np.ndarray, level: float, w0, *,
+def evaluate(rec: dict, v: np.ndarray, level: float, w0, *, with_rays: bool = False,
              untruncated: bool = False) -> tuple:
-    """Estimate, lower, upper [response units] and flags for values ``v`` (m, k).
+    """Estimate, lower, upper [response units] and flags for values ``v`` (m, k); with
+    ``with_rays`` also ``other_lower``, ``other_upper``: the second ray of a forward
+    line's two-ray set (flag ``two-rays``), NaN for every other row and for inverse files.
 
     ``untruncated`` adds two arrays: a forward file's limits cut at a physical bound,
     before the cut (``lower_untruncated``, ``upper_untruncated``; NaN where nothing was
@@ -408,12 +410,16 @@ def evaluate(rec: dict, v: np.ndarray, level: float, w0, *,
     whose rounding can depend on the matrix's size, otherwise)."""
     if _repeats_pay(rec, v, w0):
         values, back = np.unique(v[:, 0], return_inverse=True)
-        out = evaluate(rec, values[:, None], level, w0[:values.size],
+        out = evaluate(rec, values[:, None], level, w0[:values.size], with_rays=with_rays,
                        untruncated=untruncated)
         return tuple(a[back] for a in out)
     if rec["direction"] == "forward":
-        return predict_forward(rec, v, level, w0, with_untruncated=untruncated)
+        return predict_forward(rec, v, level, w0, with_rays=with_rays,
+                               with_untruncated=untruncated)
     out = predict_inverse(rec, v, level, w0)
+    nan = np.full(v.shape[0], np.nan)
+    if with_rays:
+        out = (*out, nan, nan.copy())
     if untruncated:
-        out += (np.full(v.shape[0], np.nan), np.full(v.shape[0], np.nan))
+        out = (*out, nan.copy(), nan.copy())
     return out

@@ -508,9 +508,15 @@ def write_record(content: dict, path) -> Path:
 class Prediction:
     """Estimates and intervals [units of the response] and flags (';'-joined text);
     ``cautions`` says why limits are infinite (a group-level interval with too few
-    groups for the level); ``lower_untruncated``/``upper_untruncated`` a forward file's
-    limits cut at a physical bound (flag ``truncated-at-bound``) before the cut, NaN
-    where nothing was cut (None: not computed)."""
+    groups for the level).
+
+    ``other_lower``, ``other_upper``: where a forward line's classical-calibration set is
+    two rays (flag ``two-rays``), ``lower``/``upper`` are the ray holding the estimate and
+    these the other ray (one end infinite, cut at the physical bounds), as
+    ``Fit.predict``'s columns of the same names; NaN for every other row (and every row of
+    an inverse file). ``lower_untruncated``/``upper_untruncated``: a forward file's limits
+    cut at a physical bound (flag ``truncated-at-bound``) before the cut, NaN where nothing
+    was cut (None: not computed)."""
 
     estimate: np.ndarray
     lower: np.ndarray
@@ -520,20 +526,35 @@ class Prediction:
     method: str
     exact: bool
     cautions: tuple = ()
+    other_lower: np.ndarray | None = None
+    other_upper: np.ndarray | None = None
     lower_untruncated: np.ndarray | None = None
     upper_untruncated: np.ndarray | None = None
+
+    def __post_init__(self):
+        for name in ("other_lower", "other_upper"):
+            if getattr(self, name) is None:
+                setattr(self, name, np.full(len(self.estimate), np.nan))
 
     def __len__(self) -> int:
         return len(self.estimate)
 
+    @property
+    def two_rays(self) -> bool:
+        """Whether any row's set is two rays (``other_lower``/``other_upper`` filled)."""
+        return bool(np.isfinite(self.other_lower).any() | np.isfinite(self.other_upper).any())
+
     def to_frame(self, index=None):
         """The columns ``estimate``, ``lower``, ``upper``, ``flags`` as a pandas DataFrame,
-        and ``lower_untruncated``, ``upper_untruncated`` when some limit was cut at a
-        physical bound."""
+        ``other_lower``, ``other_upper`` when some row's set is two rays (as
+        ``Fit.predict``), ``lower_untruncated``, ``upper_untruncated`` when some limit was
+        cut at a physical bound."""
         import pandas as pd
 
         cols = {"estimate": self.estimate, "lower": self.lower, "upper": self.upper,
                 "flags": self.flags}
+        if self.two_rays:
+            cols.update(other_lower=self.other_lower, other_upper=self.other_upper)
         if self.truncated():
             cols |= {"lower_untruncated": self.lower_untruncated,
                      "upper_untruncated": self.upper_untruncated}
@@ -632,9 +653,10 @@ class Equation:
         Returns
         -------
         Prediction
-            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``;
-            ``lower_untruncated``, ``upper_untruncated``: a limit cut at a physical
-            bound (flag ``truncated-at-bound``) before the cut, NaN elsewhere.
+            ``estimate``, ``lower``, ``upper`` [units of the response] and ``flags``; for a
+            forward line whose set is two rays, the other ray in ``other_lower``,
+            ``other_upper``; ``lower_untruncated``, ``upper_untruncated``: a limit cut at a
+            physical bound (flag ``truncated-at-bound``) before the cut, NaN elsewhere.
         """
         from refit.coefficients.evaluate import evaluate
 
@@ -657,8 +679,8 @@ class Equation:
         # values far outside the domain overflow to inf; the evaluator turns non-finite
         # results into an empty estimate with a flag, so numpy's warning says nothing more
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            est, lo, hi, flags, lo_u, hi_u = evaluate(self.record, v, float(level), w0,
-                                                      untruncated=True)
+            est, lo, hi, flags, o_lo, o_hi, lo_u, hi_u = evaluate(
+                self.record, v, float(level), w0, with_rays=True, untruncated=True)
         cautions = ()
         if iv["method"] in ("group-jackknife+", "group-cv+"):
             from refit.models.intervals.group_conformal import too_few_groups
@@ -668,7 +690,8 @@ class Equation:
         if iv["method"] in ("published", "none"):
             level = iv.get("level")
         return Prediction(est, lo, hi, flags, level, iv["method"],
-                          bool(iv.get("exact", True)), cautions, lo_u, hi_u)
+                          bool(iv.get("exact", True)), cautions, other_lower=o_lo,
+                          other_upper=o_hi, lower_untruncated=lo_u, upper_untruncated=hi_u)
 
 
     def posterior(self, values, sd=None, prior=None, level: float = 0.95, **options):

@@ -10,10 +10,21 @@ on an even grid of the prior's support (``df = inf``: the normal's ``-r^2 / (2 v
 normalises it by the trapezoid rule and reads off median, mode, mean, SD, the equal-tailed
 interval and the highest-density region; with two or more proxies in a row, the
 consistency test below. Blocks of rows run on threads (:func:`refit._util.threads.on_threads`);
-every row's numbers depend on that row alone.
+every row's numbers depend on that row alone, bit for bit (the same operations in the same
+order whatever the other rows of a block hold).
 
-Consistency of the proxies: each proxy's own likelihood, normalised over the grid (flat
-over the prior's support, so an informative prior is not counted once per proxy), gives
+Speed (``benchmarks/posterior.py``): what depends on the grid alone is computed once per
+run (f_k, v_k, and for a measurement SD shared by all rows the value-free part of each
+term, see :class:`refit.models.posterior_terms._Tables`); proxies with one df share one logarithm; every full-grid pass
+is made on blocks of :data:`BLOCK_ROWS` rows that stay in cache; the log density is floored
+:data:`LOG_FLOOR` below each row's peak before exp (subnormal results make numpy's exp about
+fifty times slower); quantiles come from chunk sums (:mod:`refit.models.posterior_grid`),
+never a sort or a full cumulative sum; the HDI from Newton steps.
+
+Consistency of the proxies: each proxy's own likelihood, normalised over its own support
+(:func:`likelihood_grid`: flat over the calibration range widened by its width on either
+side, so an informative prior is not counted once per proxy and a proxy reading a climate
+beyond the prior's range is seen where it points), gives
 a mean m_k and variance v_k; with the precision-weighted mean m = Σ m_k/v_k / Σ 1/v_k,
 ``chi2 = Σ (m_k - m)^2 / v_k`` on K - 1 degrees of freedom (the usual test of
 homogeneity of independent estimates, e.g. Cochran's Q; from memory). The variances are
@@ -23,8 +34,6 @@ standard error. p below :data:`DISAGREE_P` flags ``proxies-disagree``.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from refit._util.flagcodes import bit_codes, joined_names, text_by_code
@@ -33,6 +42,9 @@ from refit.errors import UsageError
 from refit.models import posterior_grid as pg
 from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     BLOCK_ROWS,
+    CONSISTENCY_MIN_POINTS,
+    CONSISTENCY_STEP,
+    CONSISTENCY_WIDEN,
     DIP_FRACTION,
     DISAGREE_P,
     FLAG_CUT_BOUND,
@@ -45,8 +57,10 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     FLAG_ORDER,
     FLAG_OUTSIDE,
     FLAG_OUTSIDE_MEASUREMENT,
+    LOG_FLOOR,
     MODE_FRACTION,
     N_GRID,
+    OWN_ROWS,
     SUMMARY_ROWS,
     ForwardProxy,
     Posterior,
@@ -56,6 +70,7 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     chi2_sf,
     cut_fraction,
     forward_proxy,
+    likelihood_grid,
     log_prior,
     model_scale_inputs,
     normal_prior,
@@ -65,70 +80,14 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     support,
     uniform_prior,
 )
-
-
-class _Tables:
-    """Per-proxy grid tables shared by all rows: location, variance, t constants."""
-
-    def __init__(self, proxies, grid):
-        self.loc, self.var, self.half, self.inv = [], [], [], []
-        for p in proxies:
-            loc, var = p.location_variance(grid)
-            self.loc.append(loc)
-            self.var.append(var)
-            self.half.append(-0.5 * np.log(var))
-        self.df = [float(p.df) for p in proxies]
-
-
-def _proxy_term(tab: _Tables, j: int, y, s, out, tmp):
-    """``out[:] =`` proxy j's log predictive density at each row's y0 on the grid (up to a
-    constant), rows with no value 0. ``y``, ``s`` (B,) model-scale value and SD."""
-    df = tab.df[j]
-    present = ~np.isnan(y)
-    yv = np.where(present, y, 0.0)
-    np.subtract(yv[:, None], tab.loc[j][None, :], out=out)
-    np.square(out, out=out)
-    if np.all(s == s[0]):                      # one SD for the block: grid-only variance
-        var = tab.var[j] + s[0] * s[0]
-        half = tab.half[j] if s[0] == 0 else -0.5 * np.log(var)
-        if math.isinf(df):
-            np.multiply(out, -0.5 / var, out=out)
-        else:
-            np.multiply(out, 1.0 / (df * var), out=out)
-            np.log1p(out, out=out)
-            np.multiply(out, -0.5 * (df + 1.0), out=out)
-        np.add(out, half, out=out)
-    else:
-        np.add(tab.var[j][None, :], (s * s)[:, None], out=tmp)
-        np.divide(out, tmp, out=out)
-        if math.isinf(df):
-            np.multiply(out, -0.5, out=out)
-        else:
-            np.multiply(out, 1.0 / df, out=out)
-            np.log1p(out, out=out)
-            np.multiply(out, -0.5 * (df + 1.0), out=out)
-        np.log(tmp, out=tmp)
-        np.multiply(tmp, -0.5, out=tmp)
-        np.add(out, tmp, out=out)
-    if not present.all():
-        out[~present] = 0.0
-
-
-def _exp_moments(lp, xc, wts, out_p=None):
-    """exp(lp - row max) (into ``out_p`` if given), row argmax, and the trapezoid moments
-    (mass, Σ x, Σ x^2 with x centred)."""
-    idx = lp.argmax(axis=1)
-    mx = lp[np.arange(lp.shape[0]), idx]
-    p = np.subtract(lp, mx[:, None], out=out_p if out_p is not None else lp)
-    np.exp(p, out=p)
-    M = p @ np.column_stack([wts, wts * xc, wts * xc * xc])
-    return p, idx, M
-
-
-def _mean_sd(M, centre):
-    mean = M[:, 1] / M[:, 0]
-    var = np.maximum(M[:, 2] / M[:, 0] - mean * mean, 0.0)
-    return mean + centre, np.sqrt(var)
+from refit.models.posterior_terms import (
+    _Even,
+    _log_likelihoods,
+    _log_likelihoods_apart,
+    _mean_sd,
+    _row_moments,
+    _Tables,
+)
 
 
 class _Run:
@@ -139,78 +98,132 @@ class _Run:
         self.with_hdi = with_hdi
         self.proxies, self.y, self.s, self.level = proxies, y, s, level
         self.grid, self.h = grid, float(grid[1] - grid[0])
+        self.even = _Even(grid)
         self.tab = _Tables(proxies, grid)
         self.lprior = log_prior(prior, grid)
-        self.centre = 0.5 * (grid[0] + grid[-1])
-        self.xc = grid - self.centre
-        self.wts = np.full(grid.size, self.h)
-        self.wts[[0, -1]] *= 0.5
         self.starts = pg.chunk_starts(grid.size)
         self.n_present = (~np.isnan(y)).sum(axis=1)
+        if k >= 2 and (self.n_present >= 2).any():
+            self.own = _Even(likelihood_grid(prior, proxies, grid.size))
+            self.own_tab = _Tables(proxies, self.own.grid, checked=False)
+            self.zero_own = np.zeros(self.own.grid.size)
+        self.floor = np.full(grid.size, LOG_FLOOR)
         nan = lambda: np.full(m, np.nan)
         self.out = {key: nan() for key in ("median", "mode", "mean", "sd", "lower", "upper",
                                            "hdi_lower", "hdi_upper", "edge_lo", "edge_hi")}
         self.proxy_mean, self.proxy_sd = np.full((m, k), np.nan), np.full((m, k), np.nan)
         self.hdi = [[] for _ in range(m)]
         self.multimodal = np.zeros(m, dtype=bool)
+        self.peaks = np.zeros(m, dtype=np.int64)
+        self.dead = np.zeros(m, dtype=bool)
         self.density = np.full((m, grid.size), np.nan) if keep_density else None
 
-    def densities(self, P, r0, r1, scratch):
-        """Unnormalised densities of rows r0..r1 into ``P`` (rows x G), in blocks of
-        :data:`BLOCK_ROWS`; fills mean, SD, mode index and the per-proxy moments."""
-        k = len(self.proxies)
-        terms = scratch["terms"]
-        for a in range(r0, r1, BLOCK_ROWS):
-            b = min(r1, a + BLOCK_ROWS)
-            n = b - a
-            lp = P[a - r0:b - r0]
-            lp[:] = self.lprior
-            for j in range(k):
-                t = terms[j][:n]
-                _proxy_term(self.tab, j, self.y[a:b, j], self.s[a:b, j], t,
-                            scratch["tmp"][:n])
-                np.add(lp, t, out=lp)
-            multi = self.n_present[a:b] >= 2
-            if multi.any() and k >= 2:
-                for j in range(k):
-                    _, _, M = _exp_moments(terms[j][:n], self.xc, self.wts)
-                    mean, sd = _mean_sd(M, self.centre)
-                    keep = multi & ~np.isnan(self.y[a:b, j])
-                    self.proxy_mean[a:b, j] = np.where(keep, mean, np.nan)
-                    self.proxy_sd[a:b, j] = np.where(keep, sd, np.nan)
-            p, idx, M = _exp_moments(lp, self.xc, self.wts)
-            self.out["mean"][a:b], self.out["sd"][a:b] = _mean_sd(M, self.centre)
-            self.out["mode"][a:b] = self._refined_mode(p, idx)
+    def densities(self, P, sums, r0, r1, scratch):
+        """Unnormalised densities of rows r0..r1 into ``P`` (rows x G, each row's maximum
+        1) and their chunk sums into ``sums``, in blocks of :data:`BLOCK_ROWS` rows that
+        stay in cache while every full-grid pass is made (moments, chunk sums, edges, the
+        peak screen); then mean, SD and mode of the rows, and the proxies' own moments
+        for the consistency test."""
+        ev, n_all = self.even, r1 - r0
+        M = np.empty((n_all, 3))
+        idx = np.empty(n_all, dtype=np.int64)
+        near = np.empty((3, n_all))
+        W = ev.moment_weights
+        for a in range(0, n_all, BLOCK_ROWS):
+            b = min(n_all, a + BLOCK_ROWS)
+            lp = P[a:b]
+            y, s_ = self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b]
+            t, tmp = scratch["t"][:b - a], scratch["tmp"][:b - a]
+            with np.errstate(over="ignore", invalid="ignore"):   # absurd values: inf
+                _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp)
+            rows = np.arange(b - a)
+            k = lp.argmax(axis=1)
+            if not np.all(np.isfinite(lp[rows, k])):
+                bad = np.flatnonzero(~np.isfinite(lp[rows, k]))
+                part = lp[bad]
+                with np.errstate(over="ignore", invalid="ignore"):
+                    _log_likelihoods_apart(self.tab, y[bad], s_[bad], self.lprior, part,
+                                           t[:bad.size], tmp[:bad.size])
+                lp[bad] = part
+                dead = bad[~np.isfinite(part.max(axis=1))]
+                if dead.size:   # zero everywhere in floating point: no reading (NaN, flag)
+                    self.dead[r0 + a + dead] = True
+                    lp[dead] = 0.0
+                k = lp.argmax(axis=1)
+            idx[a:b] = k
+            i = np.clip(k, 1, lp.shape[1] - 2)
+            m0 = lp[rows, i]
+            near[0, a:b], near[1, a:b], near[2, a:b] = lp[rows, i - 1] - m0, 0.0, \
+                lp[rows, i + 1] - m0
+            np.subtract(lp, lp[rows, k][:, None], out=lp)
+            np.maximum(lp, self.floor, out=lp)      # exp then never leaves the normals
+            np.exp(lp, out=lp)
+            _row_moments(lp, W, M[a:b])
+            np.add.reduceat(lp, self.starts, axis=1, out=sums[a:b])
+            self.peaks[r0 + a:r0 + b] = pg.raw_peak_counts(lp)
+        sl = slice(r0, r1)
+        self.out["edge_lo"][sl], self.out["edge_hi"][sl] = P[:, 0], P[:, -1]
+        self.out["mean"][sl], self.out["sd"][sl] = _mean_sd(M, ev.centre)
+        self.out["mode"][sl] = self._refined_mode(idx, near)
+        if len(self.proxies) >= 2:
+            multi = np.flatnonzero(self.n_present[sl] >= 2)
+            for a in range(0, multi.size, OWN_ROWS):
+                self._own_moments(r0 + multi[a:a + OWN_ROWS])
 
-    def _refined_mode(self, p, idx):
-        """Grid argmax refined by a parabola through the log density at its neighbours."""
-        G = p.shape[1]
-        rows = np.arange(p.shape[0])
+    def _own_moments(self, rows):
+        """Each proxy's own likelihood, flat over :func:`likelihood_grid`: its mean and SD
+        for ``rows`` (which measured two or more proxies)."""
+        own, tab = self.own, self.own_tab
+        n, G = rows.size, own.grid.size
+        lq, t, tmp = (np.empty((n, G)) for _ in range(3))
+        y, s = self.y[rows], self.s[rows]
+        for j in range(len(self.proxies)):
+            keep = ~np.isnan(y[:, j])
+            if not keep.any():
+                continue
+            with np.errstate(over="ignore", invalid="ignore"):
+                _log_likelihoods(tab, y, s, self.zero_own, lq, t, tmp, which=(j,))
+            if not tab.finite:                       # beyond where the fit can be read
+                lq[:, np.isnan(tab.var[j])] = -np.inf
+            with np.errstate(invalid="ignore"):       # a dead row (-inf everywhere): NaN
+                np.subtract(lq, lq.max(axis=1)[:, None], out=lq)
+            np.maximum(lq, LOG_FLOOR, out=lq)
+            np.exp(lq, out=lq)
+            mean, sd = _mean_sd(_row_moments(lq, own.moment_weights), own.centre)
+            self.proxy_mean[rows, j] = np.where(keep, mean, np.nan)
+            self.proxy_sd[rows, j] = np.where(keep, sd, np.nan)
+
+    def _refined_mode(self, idx, near):
+        """Grid argmax refined by a parabola through the log density at it and its
+        neighbours (``near``: (3, n) log densities at i-1, i, i+1 less the one at i)."""
+        G = self.grid.size
         inner = (idx > 0) & (idx < G - 1)
-        i = np.clip(idx, 1, G - 2)
+        lm, lp_ = near[0], near[2]
         with np.errstate(divide="ignore", invalid="ignore"):
-            l0, lm, lp_ = (np.log(p[rows, i]), np.log(p[rows, i - 1]), np.log(p[rows, i + 1]))
-            curv = lm - 2.0 * l0 + lp_
+            curv = lm + lp_                          # l(i-1) - 2 l(i) + l(i+1), l(i) = 0
             delta = np.where(inner & (curv < 0), 0.5 * (lm - lp_) / curv, 0.0)
         delta = np.clip(np.nan_to_num(delta), -0.5, 0.5)
         return self.grid[0] + (idx + delta) * self.h
 
-    def summarise(self, P, r0, r1):
+    def summarise(self, P, sums, r0, r1):
         """Quantiles, HDI and the density-shape flags of rows r0..r1 (``P`` their
-        unnormalised densities, each row's maximum 1)."""
+        unnormalised densities, each row's maximum 1; ``sums`` their chunk sums)."""
         sl = slice(r0, r1)
-        rows = pg.GridRows(P, self.h, self.starts)
+        rows = pg.GridRows(P, self.h, self.starts, sums)
         x0, lv = float(self.grid[0]), self.level
         o = self.out
+        half_out = 0.5 - lv / 2
         o["median"][sl] = rows.quantile(0.5, x0)
-        o["lower"][sl] = rows.quantile(0.5 - lv / 2, x0)
-        o["upper"][sl] = rows.quantile(0.5 + lv / 2, x0)
-        o["edge_lo"][sl], o["edge_hi"][sl] = P[:, 0], P[:, -1]
-        screen = pg.raw_peak_counts(P) > 1
+        lower = rows.quantile_index(half_out * rows.total)
+        upper = rows.quantile_index((1.0 - half_out) * rows.total)
+        o["lower"][sl] = x0 + (lower[0] + lower[1]) * self.h
+        o["upper"][sl] = x0 + (upper[0] + upper[1]) * self.h
+        screen = self.peaks[sl] > 1
         if self.with_hdi and not screen.all():
-            one = rows if not screen.any() else pg.GridRows(P[~screen], self.h, self.starts)
-            lo, hi = pg.hdi_unimodal(one, lv, x0)
-            where = np.arange(r0, r1)[~screen]
+            one = np.flatnonzero(~screen)
+            lo, hi = pg.hdi_unimodal(rows, lv, x0, one, (lower[0][one], lower[1][one]),
+                                     (upper[0][one], upper[1][one]))
+            where = r0 + one
             o["hdi_lower"][where], o["hdi_upper"][where] = lo, hi
             for i, a, b in zip(where, lo, hi):
                 self.hdi[i] = [(float(a), float(b))]
@@ -293,7 +306,7 @@ def climate_posterior(proxies, values, sd=None, *, prior: Prior | None = None,
 
 def _compute(run: _Run) -> None:
     """Densities and summaries, in blocks of :data:`SUMMARY_ROWS` rows on threads."""
-    m, G, k = run.y.shape[0], run.grid.size, len(run.proxies)
+    m, G = run.y.shape[0], run.grid.size
     if m == 0:
         return
     step = min(SUMMARY_ROWS, m)
@@ -301,10 +314,10 @@ def _compute(run: _Run) -> None:
     def block(r0):
         r1 = min(m, r0 + step)
         P = np.empty((r1 - r0, G))
-        scratch = {"terms": [np.empty((BLOCK_ROWS, G)) for _ in range(k)],
-                   "tmp": np.empty((BLOCK_ROWS, G))}
-        run.densities(P, r0, r1, scratch)
-        run.summarise(P, r0, r1)
+        sums = np.empty((r1 - r0, run.starts.size))
+        scratch = {"t": np.empty((BLOCK_ROWS, G)), "tmp": np.empty((BLOCK_ROWS, G))}
+        run.densities(P, sums, r0, r1, scratch)
+        run.summarise(P, sums, r0, r1)
 
     on_threads(block, range(0, m, step))
 
@@ -324,6 +337,10 @@ def _consistency(mean: np.ndarray, sd: np.ndarray):
     return chi2, np.where(dof >= 1, dof, 0), p
 
 
+def _grid_record(grid: np.ndarray) -> dict:
+    return {"low": float(grid[0]), "high": float(grid[-1]), "points": int(grid.size)}
+
+
 def _spread(values, ok, fill=np.nan):
     out = np.full((ok.size,) + np.shape(values)[1:], fill, dtype=float)
     out[ok] = values
@@ -332,6 +349,12 @@ def _spread(values, ok, fill=np.nan):
 
 def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior:
     """The :class:`Posterior` of all rows (those without a usable value NaN) and its flags."""
+    dead = _spread(run.dead, ok, 0.0) > 0
+    for key in run.out:
+        run.out[key][run.dead] = np.nan
+    run.proxy_mean[run.dead], run.proxy_sd[run.dead] = np.nan, np.nan
+    for i in np.flatnonzero(run.dead):
+        run.hdi[i], run.multimodal[i] = [], False
     o = {key: _spread(v, ok) for key, v in run.out.items()}
     pmean, psd = _spread(run.proxy_mean, ok), _spread(run.proxy_sd, ok)
     chi2, dof, p = _consistency(pmean, psd)
@@ -347,7 +370,7 @@ def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior
         lo_cut, hi_cut = o["edge_lo"] >= cut, o["edge_hi"] >= cut
         masks = {
             FLAG_MISSING: ~ok & ~invalid.any(axis=1),
-            FLAG_INVALID: invalid.any(axis=1),
+            FLAG_INVALID: invalid.any(axis=1) | dead,
             FLAG_OUTSIDE_MEASUREMENT: outside.any(axis=1),
             FLAG_OUTSIDE: (o["median"] < c_lo) | (o["median"] > c_hi),
             FLAG_MULTIMODAL: multimodal,
@@ -365,4 +388,5 @@ def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior
         flags=flags, chi2=chi2, chi2_dof=dof, chi2_p=p, proxy_mean=pmean, proxy_sd=psd,
         outside=outside, level=run.level, prior=prior.to_dict(),
         grid={"low": g0, "high": g1, "points": int(run.grid.size)},
+        consistency_grid=_grid_record(run.own.grid) if hasattr(run, "own") else None,
         proxies=[p_.name for p_ in run.proxies], density=density)

@@ -74,6 +74,23 @@ MIN_PRIOR_MASS_IN_RANGE = 1e-3
 NORMAL_PRIOR_SDS = 8.0
 #: rows per block of the density (a block of rows x 2,000 points stays in cache)
 BLOCK_ROWS = 32
+#: each proxy's own likelihood (the consistency test's estimates) is read over the proxies'
+#: calibration range of climate widened by this many times its width on either side (and
+#: joined with the prior's support, cut at the physical bounds): the likelihood's own
+#: support, not the prior's, so a proxy pointing outside the prior's range is seen there
+CONSISTENCY_WIDEN = 1.0
+#: spacing of that reading, as a share of the narrowest spread sqrt(v(x)) / |f'(x)| of any
+#: proxy's likelihood in climate (the trapezoid rule on a smooth density is then exact far
+#: below the test's needs: for a normal, relative error about exp(-2 pi^2 / 0.25^2))
+CONSISTENCY_STEP = 0.25
+#: fewest and most points of that reading (the most: the posterior's own n_grid)
+CONSISTENCY_MIN_POINTS = 129
+#: log densities are floored at this below each row's peak before exp (exp(-700) = 1e-304
+#: of the peak: below anything a summary can see, and above the underflow to subnormal
+#: numbers, which runs numpy's exp about fifty times slower)
+LOG_FLOOR = -700.0
+#: rows per block of the proxies' own likelihoods (on the consistency test's grid)
+OWN_ROWS = 512
 #: rows per block of the summaries (their per-call cost is shared by many rows)
 SUMMARY_ROWS = 2048
 
@@ -176,6 +193,39 @@ def support(prior: Prior, proxies) -> tuple[float, float]:
     return lo, hi
 
 
+def likelihood_grid(prior: Prior, proxies, n_grid: int) -> np.ndarray:
+    """The even grid each proxy's own likelihood is read on for the consistency test.
+
+    Its range: the proxies' calibration range of climate widened by
+    :data:`CONSISTENCY_WIDEN` times its width on either side, joined with the prior's
+    support and cut at the physical bounds. Its spacing: :data:`CONSISTENCY_STEP` times
+    the narrowest spread ``sqrt(v_k(x)) / |f_k'(x)|`` of any proxy's likelihood in climate
+    over that range (a measurement SD only widens it), with between
+    :data:`CONSISTENCY_MIN_POINTS` and ``n_grid`` points. It depends on the proxies and
+    the prior only, never on the measured values, so every row's numbers depend on that
+    row alone.
+    """
+    c_lo, c_hi = calibration_hull(proxies)
+    b_lo, b_hi = physical_hull(proxies)
+    s_lo, s_hi = support(prior, proxies)
+    w = CONSISTENCY_WIDEN * (c_hi - c_lo)
+    lo, hi = max(min(c_lo - w, s_lo), b_lo), min(max(c_hi + w, s_hi), b_hi)
+    probe = np.linspace(lo, hi, max(int(n_grid), CONSISTENCY_MIN_POINTS))
+    narrowest = math.inf
+    for p in proxies:
+        loc, var = p.location_variance(probe, checked=False)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            spread = np.sqrt(var) / np.abs(np.gradient(loc, probe))
+        spread = spread[np.isfinite(spread) & (spread > 0)]
+        if spread.size:
+            narrowest = min(narrowest, float(spread.min()))
+    points = CONSISTENCY_MIN_POINTS
+    if math.isfinite(narrowest):
+        need = math.ceil((hi - lo) / (CONSISTENCY_STEP * narrowest)) + 1
+        points = min(max(need, CONSISTENCY_MIN_POINTS), max(int(n_grid), points))
+    return np.linspace(lo, hi, points)
+
+
 def log_prior(prior: Prior, grid: np.ndarray) -> np.ndarray:
     """log prior density on the grid (up to a constant)."""
     if prior.kind == "uniform":
@@ -241,19 +291,23 @@ class ForwardProxy:
     feature_range: tuple
     bounds: tuple = (-math.inf, math.inf)
 
-    def location_variance(self, grid: np.ndarray):
-        """``f(x; b)`` and ``s^2 + g(x)' V g(x)`` on the grid [model scale].
+    def location_variance(self, grid: np.ndarray, checked: bool = True):
+        """``f(x; b)`` and ``s^2 + g(x)' V g(x)`` on the grid [model scale]; NaN where
+        either is not finite (or, unchecked, where the variance is not positive).
 
         Raises
         ------
         UsageError
-            The predictive variance is zero, negative or not finite somewhere on the grid.
+            (``checked``) The predictive variance is zero, negative or not finite
+            somewhere on the grid.
         """
         D = self.design(grid)
         loc = D @ np.asarray(self.coefficients, float)
         var = self.sd_new ** 2 + np.einsum("ij,jk,ik->i", D, self.covariance, D)
         ok = np.isfinite(var) & np.isfinite(loc)
-        if np.any(ok & ~(var > 0)) or not ok.any():
+        if not checked:
+            ok &= var > 0
+        elif np.any(ok & ~(var > 0)) or not ok.any():
             raise UsageError(f"proxy {self.name!r}: the predictive variance of the feature "
                              "is zero (no residual SE and no coefficient covariance); a "
                              "posterior needs the fit's error: refit it, or leave the proxy "
@@ -273,8 +327,8 @@ def forward_proxy(fit) -> ForwardProxy:
     UsageError
         An inverse fit, or one without a coefficient covariance.
     """
-    from refit.models.inversion.classical import physical_bounds
     from refit.models.finish import between_covariance
+    from refit.models.inversion.classical import physical_bounds
 
     if fit.direction != "forward":
         raise UsageError("the posterior for climate needs a forward fit (the feature "
@@ -312,7 +366,8 @@ class Posterior:
     proxies), ``proxy_mean``/``proxy_sd`` (m, K) each proxy's own posterior mean and SD;
     ``outside`` (m, K) measurements outside their fit's feature range; ``prior`` and
     ``grid`` (ends, points) what reproduces the result; ``density`` (m, G) the normalised
-    density when asked for.
+    density when asked for; ``consistency_grid`` (ends, points) the grid of the proxies'
+    own likelihoods (:func:`likelihood_grid`; None with fewer than two proxies measured).
     """
 
     median: np.ndarray
@@ -336,6 +391,7 @@ class Posterior:
     grid: dict
     proxies: list = field(default_factory=list)
     density: np.ndarray | None = None
+    consistency_grid: dict | None = None
 
     def columns(self) -> dict:
         """The per-row numbers under their output column names."""

@@ -5,7 +5,10 @@ one folder, each figure page carrying the SHA-256 of the table it was drawn from
 given that folder embeds those pages when every one of them names the table's hash as it is
 now, and otherwise redraws the figure from the table with
 :func:`refit.apply.compare.figure_pngs`, so figure and table always agree; both are embedded,
-so the report stays one self-contained file.
+so the report stays one self-contained file. Where apply produced the posterior for climate
+(``refit compare --posterior``, ``refit demo``), the table shows its median and interval
+beside each forward file's frequentist interval, and the combined posterior of several
+proxies as a row of its own kind.
 """
 
 from __future__ import annotations
@@ -13,6 +16,7 @@ from __future__ import annotations
 import base64
 from pathlib import Path
 
+from refit.apply.compare import has_posterior
 from refit.errors import InvalidDataError, UnreadableInputError
 
 FILE = "comparison.csv"
@@ -21,6 +25,8 @@ NEEDED = ("paleosol_id", "fit", "response", "unit", "estimate", "lower", "upper"
           "interval", "cv_coverage", "cv_scheme", "flags", "problem", "origin")
 TEXT = ("paleosol_id", "fit", "response", "unit", "interval", "cv_scheme", "flags",
         "problem", "origin")
+#: the posterior's columns, shown when apply produced them (optional in the table)
+POSTERIOR = ("posterior_median", "posterior_lower", "posterior_upper")
 #: shown width of the comparison figure per inch of its size [px], as the other figures
 SCREEN_PX_PER_INCH = 100
 
@@ -61,7 +67,13 @@ def read_comparison(path):
         raise InvalidDataError(f"{target} has no rows: nothing to compare")
     for col in TEXT:
         table[col] = table[col].astype(object).fillna("").astype(str)
-    for col in ("estimate", "lower", "upper", "level", "cv_coverage"):
+    for col in POSTERIOR:          # older tables (or apply without --posterior): empty
+        if col not in table.columns:
+            table[col] = float("nan")
+    if "posterior_flags" not in table.columns:
+        table["posterior_flags"] = ""
+    table["posterior_flags"] = table["posterior_flags"].astype(object).fillna("").astype(str)
+    for col in ("estimate", "lower", "upper", "level", "cv_coverage", *POSTERIOR):
         table[col] = pd.to_numeric(table[col], errors="coerce")
     return table
 
@@ -142,13 +154,30 @@ def _beside(r) -> str:
     return text + (f"; flags: {r.flags.replace(';', ', ')}" if r.flags else "")
 
 
+def _posterior(r) -> str:
+    """The posterior median and interval of a row ('' without one): a forward file's own,
+    or the combined posterior row's."""
+    from refit.report.context import num
+
+    if r.problem or r.posterior_median != r.posterior_median:
+        return ""
+    text = f"{num(r.posterior_median)} ({num(r.posterior_lower)} to {num(r.posterior_upper)})"
+    return text + (f"; {r.posterior_flags.replace(';', ', ')}" if r.posterior_flags else "")
+
+
+def _kind(r) -> str:
+    return ("posterior (Bayesian, proxies multiplied)" if r.origin == "posterior"
+            else "frequentist")
+
+
 def rows(table) -> list[list[str]]:
-    """One formatted row per paleosol and fit: paleosol, fit, estimate, interval, unit,
+    """One formatted row per paleosol and fit: paleosol, fit, estimate, interval (and its
+    kind), the posterior median and interval beside it where apply produced one, unit,
     level, and what is beside it."""
     from refit.report.context import num, pct
 
-    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), r.unit,
-             pct(r.level, 0) if r.level == r.level else "", _beside(r)]
+    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), _kind(r), _posterior(r),
+             r.unit, pct(r.level, 0) if r.level == r.level else "", _beside(r)]
             for r in table.itertuples(index=False)]
 
 
@@ -168,6 +197,13 @@ def caption(table, fig: dict | None, source: str, function_id: str) -> str:
     ids = set(table["function_id"].astype(str)) if "function_id" in table else set()
     if function_id not in ids:
         text += f" None of the compared fits is {function_id}, the function reported above."
+    if has_posterior(table):
+        text += (" Green hatched bars with an open circle are the posterior for climate "
+                 "(Bayesian: the forward fit's predictive density times the prior recorded "
+                 "in the table's posterior_prior), drawn under the forward file's own "
+                 "frequentist interval, and as its own row where all proxies of a paleosol "
+                 "are multiplied; the two kinds answer different questions and need not "
+                 "agree.")
     if fig and len(fig["pages"]) > 1:
         text += (f" All {fig['of']} panels are drawn, on {len(fig['pages'])} images of at "
                  "most 12 panels each.")
@@ -180,9 +216,12 @@ def section(path, function_id: str) -> dict:
     from refit.report.context import shown_path
 
     table = read_comparison(path)
+    post = has_posterior(table)
     fig = figure(table, comparison_file(path).parent)
     source = shown_path(comparison_file(path))
     return {"figure": fig, "caption": caption(table, fig, source, function_id),
-            "header": ["paleosol", "fit", "estimate", "interval", "unit", "level",
+            "header": ["paleosol", "fit", "estimate", "interval", "kind",
+                       "posterior median (interval)", "unit", "level",
                        "cross-validation, flags"],
-            "rows": rows(table), "source": source, "n_rows": len(table)}
+            "rows": rows(table), "source": source, "n_rows": len(table),
+            "posterior": post}

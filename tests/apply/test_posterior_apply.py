@@ -101,10 +101,12 @@ def test_planted_disagreement_flagged_with_chi2(files):
     assert "proxies-disagree" in both["flags"][0] and "chi2 =" in both["flag_details"][0]
     assert "proxies-disagree" not in both["flags"][1]
     # chi2 computed here: each proxy's own Student t likelihood (scipy.stats.t) normalised
-    # over the prior's support by scipy's trapezoid, its mean and variance, then
-    # sum (m_k - m)^2 / v_k about the precision-weighted mean (Cochran's Q, from memory)
+    # over its own support (the recorded consistency grid) by scipy's trapezoid, its mean
+    # and variance, then sum (m_k - m)^2 / v_k about the precision-weighted mean
+    # (Cochran's Q, from memory)
     rec = json.loads(both["posterior_prior"][0])
-    grid = np.linspace(rec["grid"]["low"], rec["grid"]["high"], rec["grid"]["points"])
+    g = rec["consistency_grid"]
+    grid = np.linspace(g["low"], g["high"], g["points"])
     for i in range(2):
         means, variances = [], []
         for p, v, sd in (("bk_depth_cm", depth[i], 5.0), ("bk_thickness_cm", thick[i], 4.0)):
@@ -196,3 +198,42 @@ def test_cli_posterior_writes_columns_and_json(files, tmp_path):
         res = CliRunner().invoke(apply, [paths["bk_depth_cm"], "--fossils", str(table),
                                          *bad])
         assert res.exit_code == 2 and "Error:" in res.output and "Traceback" not in res.output
+
+
+def test_compare_draws_the_posterior_beside_the_frequentist_interval(files, tmp_path):
+    # refit compare --posterior: each forward file's row keeps its frequentist interval
+    # and gains the posterior's median and interval (the numbers apply writes); the
+    # combined posterior is a row of its own kind; the figure's legend names both
+    from refit.apply.compare import (
+        _legend_handles,
+        compare_files,
+        figure_png,
+        has_posterior,
+    )
+
+    _, paths = files
+    fossils = _fossils(np.array([30.0, 66.0]), np.array([75.0, 55.0]))
+    table, result = compare_files([paths["bk_depth_cm"], paths["bk_thickness_cm"]],
+                                  fossils=fossils, posterior=True)
+    applied = result.results
+    fwd = table[table["origin"] != "posterior"].reset_index(drop=True)
+    ref = applied[applied["function_id"] != "posterior"].reset_index(drop=True)
+    for col in ("posterior_median", "posterior_lower", "posterior_upper"):
+        assert np.allclose(fwd[col].astype(float), ref[col].astype(float), rtol=0, atol=0)
+    assert np.all(np.isfinite(fwd["lower"].astype(float)))     # frequentist kept beside
+    both = table[table["origin"] == "posterior"].reset_index(drop=True)
+    label = "posterior bk_depth_cm + bk_thickness_cm"
+    assert len(both) == 2 and list(both["fit"]) == [label, label]
+    assert np.allclose(both["estimate"], both["posterior_median"])
+    assert "proxies-disagree" in both["flags"][0]
+    assert has_posterior(table) and not has_posterior(table.drop(
+        columns=["posterior_median"]).assign(origin="refit"))
+    labels = [h.get_label() for h in _legend_handles(posterior=True)]
+    assert "posterior median" in labels and any("posterior interval" in x for x in labels)
+    assert len(_legend_handles(posterior=False)) == 3
+    # the drawing changes when the posterior is there (not a silent no-op)
+    plain = table.copy()
+    plain[["posterior_median", "posterior_lower", "posterior_upper"]] = np.nan
+    plain = plain[plain["origin"] != "posterior"]
+    drawn = fwd.copy()
+    assert figure_png(drawn) != figure_png(plain)

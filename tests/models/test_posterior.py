@@ -153,6 +153,8 @@ def coverage_run(n_sims: int, seed: int = 11, n_fossil: int = 10):
     wid = {k: np.concatenate(v) for k, v in width.items()}
     ok = np.concatenate(agree)
     narrower = float(np.mean(((wid["both"] < wid["one"]) & (wid["both"] < wid["two"]))[ok]))
+    # the proxies agree by construction: the share flagged is the test's false-alarm rate
+    coverage_run.false_alarm = float(np.mean(~ok))
     return cov, {k: float(v.mean()) for k, v in wid.items()}, narrower
 
 
@@ -162,6 +164,13 @@ def test_simulation_coverage_one_and_two_proxies():
     cov, wid, narrower = coverage_run(150)
     for key in ("one", "two", "both"):
         assert 0.93 <= cov[key] <= 0.97, (key, cov)
+    # the two proxies record the same climate, so proxies-disagree (p < 0.05) is a false
+    # alarm. Each proxy's variance is that of a Student t likelihood with df = 18, larger by
+    # df / (df - 2) than the normal spread the chi-square assumes, so the expected rate is
+    # P(chi2_1 > 3.84 * 18 / 16) = 3.8 % (scipy), within 3 binomial SEs (0.5 % each)
+    expected = stats.chi2.sf(stats.chi2.isf(0.05, 1) * 18 / 16, 1)
+    se = math.sqrt(expected * (1 - expected) / 1500)
+    assert abs(coverage_run.false_alarm - expected) < 3 * se, coverage_run.false_alarm
     assert wid["both"] < min(wid["one"], wid["two"])
     # row by row the product can be wider than a single proxy cut by the prior's edge;
     # among agreeing rows most are narrower than both (0.89 in this run)
@@ -195,6 +204,11 @@ def test_bad_input_messages():
     assert "measurement-sd-missing" in post.flags[0]
     assert "measurement-outside-range" in post.flags[1]
     assert post.flags[2] == "missing-value" and np.isnan(post.median[2])
+    # a value absurdly far from the curve (its likelihood underflows at every grid point):
+    # no numbers and a flag, never a zero-width interval at the grid's edge
+    far = climate_posterior([p, p], [[1e160, 50.0], [1e160, np.nan]], sd=1.0)
+    assert "invalid-value" in far.flags[0] and "invalid-value" in far.flags[1]
+    assert np.isnan(far.median).all() and np.isnan(far.lower).all() and far.hdi[0] == []
     # NaN SD counts as 0: the same numbers as an SD of 0
     zero = climate_posterior([p, p], [[50.0, 51.0]], sd=[[0.0, 1.0]])
     assert post.median[0] == zero.median[0]
@@ -255,3 +269,134 @@ def test_mixed_fit_variance_is_new_observation_variance():
     _, var = p.location_variance(grid)
     ref = new_observation_variance(f, f.form.design(grid[:, None]))
     assert np.allclose(var, ref, rtol=1e-12)
+
+
+def _grid_reference(proxies, ys, sds, grid, level=0.95):
+    """The grid posterior rebuilt with scipy, point by point: scipy.stats.t.logpdf on the
+    grid, scipy.integrate.cumulative_trapezoid, quantiles by scipy.optimize.brentq on the
+    piecewise-quadratic distribution function (the density linear between grid points),
+    the HDI by brentq on p(Q(u)) - p(Q(u + level)); the same discretisation as refit's,
+    so the two may differ by rounding only."""
+    lp = np.zeros_like(grid)
+    for p, y0, s0 in zip(proxies, ys, sds):
+        loc, var = p.location_variance(grid)
+        if p.log_response:
+            y0, s0 = math.log(y0), s0 / y0
+        lp += stats.t.logpdf(y0, p.df, loc=loc, scale=np.sqrt(var + s0 * s0))
+    d = np.exp(lp - lp.max())
+    h = grid[1] - grid[0]
+    F = integrate.cumulative_trapezoid(d, grid, initial=0.0)
+    Z = F[-1]
+
+    def cdf(x):
+        i = min(int((x - grid[0]) / h), grid.size - 2)
+        t = (x - grid[i]) / h
+        return F[i] + h * (d[i] * t + (d[i + 1] - d[i]) * t * t / 2)
+
+    def dens(x):
+        i = min(int((x - grid[0]) / h), grid.size - 2)
+        return np.interp(x, grid[i:i + 2], d[i:i + 2])
+
+    def q(u):
+        if u <= 0:
+            return grid[0]
+        return optimize.brentq(lambda x: cdf(x) - u * Z, grid[0], grid[-1], xtol=1e-12,
+                               rtol=1e-15)
+
+    gap = lambda u: dens(q(u)) - dens(q(u + level))
+    if gap(0.0) >= 0:                   # falling from the left edge: the HDI starts there
+        u = 0.0
+    elif gap(1.0 - level) <= 0:         # rising to the right edge
+        u = 1.0 - level
+    else:
+        u = optimize.brentq(gap, 0.0, 1.0 - level, xtol=1e-15, rtol=1e-15)
+    mean = integrate.trapezoid(grid * d, grid) / Z
+    return {"median": q(0.5), "lower": q((1 - level) / 2), "upper": q((1 + level) / 2),
+            "mean": mean,
+            "sd": math.sqrt(integrate.trapezoid((grid - mean) ** 2 * d, grid) / Z),
+            "hdi": (q(u), q(u + level))}
+
+
+def test_fast_grid_equals_scipy_reference_to_rounding(two_fits):
+    # the vectorised posterior (grid-only constants, shared logarithms, chunked quantiles,
+    # Newton HDI) against the same grid posterior rebuilt with scipy: equal to 1e-9 mm
+    # (rounding only: the two use the same grid and trapezoid rule), over fossils across
+    # the range, SDs constant and varying, a missing proxy
+    proxies = [forward_proxy(f) for f in two_fits]
+    ys = np.array([[30.0, 3.5], [50.0, 5.0], [75.0, 6.5], [95.0, 8.5], [60.0, 4.0],
+                   [40.0, np.nan]])
+    sds = np.array([[2.0, 0.1], [2.0, 0.1], [0.5, 0.3], [2.0, 0.1], [4.0, 0.05],
+                    [2.0, 0.1]])
+    post = climate_posterior(proxies, ys, sds)
+    grid = np.linspace(post.grid["low"], post.grid["high"], post.grid["points"])
+    for i in range(len(ys)):
+        keep = ~np.isnan(ys[i])
+        ref = _grid_reference([p for p, k in zip(proxies, keep) if k], ys[i][keep],
+                              sds[i][keep], grid)
+        for key in ("median", "lower", "upper", "mean", "sd"):
+            assert abs(getattr(post, key)[i] - ref[key]) < 1e-9, (i, key)
+        assert np.allclose(post.hdi[i][0], ref["hdi"], rtol=0, atol=1e-9), i
+
+
+def test_narrow_posterior_tails_floored_not_lost():
+    # a proxy 100x narrower than the grid: its log density falls to -5,000 at the grid's
+    # ends (floored at -700 below the peak before exp); against the closed form of a known
+    # line under a flat prior (Hoadley 1970, JASA 65:356, from memory), to O(h^2)
+    p = _line(sd=0.8)                               # SD 10 mm in climate
+    post = climate_posterior([p], [60.0], prior=uniform_prior(0.0, 2000.0), n_grid=4000)
+    mu, sd = (60.0 - 10.0) / 0.08, 0.8 / 0.08
+    z = stats.norm.ppf(0.975)
+    assert post.median[0] == pytest.approx(mu, abs=1e-3 * sd)
+    assert post.sd[0] == pytest.approx(sd, rel=1e-3)
+    assert (post.lower[0], post.upper[0]) == pytest.approx((mu - z * sd, mu + z * sd),
+                                                           abs=2e-3 * sd)
+    assert post.hdi[0][0] == pytest.approx((mu - z * sd, mu + z * sd), abs=2e-3 * sd)
+    assert post.flags[0] == ""
+
+
+def test_each_row_depends_on_itself_alone(two_fits):
+    # a table and its rows one at a time give bit-identical numbers, whatever the other
+    # rows of a block hold (different SDs, a missing proxy, a partial last block)
+    proxies = [forward_proxy(f) for f in two_fits]
+    rng = np.random.default_rng(3)
+    x = rng.uniform(250, 1150, 37)
+    v = np.column_stack([10 + 0.08 * x + rng.normal(0, 8, 37),
+                         np.exp(1 + 0.001 * x + rng.normal(0, 0.1, 37))])
+    v[4, 0], v[9, 1] = np.nan, np.nan
+    sd = np.column_stack([np.where(np.arange(37) % 3 == 0, 2.0, 3.0), np.full(37, 0.1)])
+    post = climate_posterior(proxies, v, sd)
+    for i in (0, 4, 9, 17, 36):
+        one = climate_posterior(proxies, v[i:i + 1], sd[i:i + 1])
+        for key in ("median", "lower", "upper", "mean", "sd", "mode", "hdi_lower",
+                    "hdi_upper", "chi2", "proxy_mean", "proxy_sd"):
+            assert np.array_equal(np.ravel(getattr(post, key)[i]),
+                                  np.ravel(getattr(one, key)[0]), equal_nan=True), (i, key)
+
+
+def test_consistency_on_the_likelihoods_own_support():
+    # Two known lines with known normal errors (df = inf, no coefficient uncertainty): each
+    # proxy's likelihood in climate is exactly normal, mean (y0 - a) / b and SD s / |b|
+    # (the closed form of calibration with known parameters; Hoadley 1970, from memory).
+    # Proxy 1 reads 1600 +- 60 mm, beyond the prior's range [200, 1200]; proxy 2 reads
+    # 1100 +- 60 mm. Known answer: chi2 = 500^2 / (60^2 + 60^2) = 34.7 on 1 df.
+    p1 = _line(a=10.0, b=0.08, sd=4.8)
+    p2 = _line(a=20.0, b=0.05, sd=3.0)
+    y = [[10.0 + 0.08 * 1600, 20.0 + 0.05 * 1100]]
+    post = climate_posterior([p1, p2], y, prior=uniform_prior(200.0, 1200.0))
+    assert post.proxy_mean[0] == pytest.approx([1600.0, 1100.0], abs=1e-6)
+    assert post.proxy_sd[0] == pytest.approx([60.0, 60.0], rel=1e-8)
+    chi2 = 500.0 ** 2 / (2 * 60.0 ** 2)
+    assert post.chi2[0] == pytest.approx(chi2, rel=1e-8)
+    assert post.chi2_p[0] == pytest.approx(stats.chi2.sf(chi2, 1), rel=1e-6)  # scipy
+    assert "proxies-disagree" in post.flags[0]
+    assert post.consistency_grid["low"] == 0.0 and post.consistency_grid["high"] >= 2200
+    # the old reading, each likelihood normalised over the prior's range only (scipy
+    # truncnorm moments), pulls proxy 1 to 1191 +- 9 mm and misses the disagreement
+    m, s = [], []
+    for mu in (1600.0, 1100.0):
+        tn = stats.truncnorm((200.0 - mu) / 60.0, (1200.0 - mu) / 60.0, loc=mu, scale=60.0)
+        m.append(tn.mean())
+        s.append(tn.std())
+    w = 1 / np.square(s)
+    pooled = np.sum(w * m) / np.sum(w)
+    assert stats.chi2.sf(np.sum(w * (np.array(m) - pooled) ** 2), 1) > 0.05

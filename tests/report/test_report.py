@@ -234,8 +234,9 @@ def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
     table = pd.read_csv(compared / "comparison.csv")
     assert f"The comparison table ({len(table)} rows" in body
     for r in table.dropna(subset=["estimate"]).itertuples():
+        # no posterior in this comparison: the posterior cell stays empty
         assert f"{r.paleosol_id} {r.fit} {num(r.estimate)} {num(r.lower)} to " \
-               f"{num(r.upper)} {r.unit}" in body
+               f"{num(r.upper)} frequentist {r.unit}" in body
     assert "Fits compared." in body and "research use" in body
     assert f"{table['paleosol_id'].nunique()} paleosol(s)" in body
     assert f"--compare {compared}" in body          # the command that rewrites it
@@ -353,3 +354,42 @@ def test_an_edited_candidate_file_in_a_run_is_refused_by_the_one_reader(run_dir,
     target.write_text(target.read_text("utf-8").replace('"n": ', '"n":  ', 1), "utf-8")
     res = CliRunner().invoke(report, [str(bad), "--out", str(tmp_path / "r.html")])
     assert res.exit_code == 1 and "bytes check failed" in res.output, res.output
+
+
+def test_comparison_section_shows_the_posterior_beside_the_interval(tmp_path):
+    # a comparison table with a forward file's posterior and a combined posterior row (as
+    # `refit compare --posterior` writes it): the report's table puts the posterior median
+    # and interval beside the frequentist interval, says which kind each row is, and the
+    # caption explains the hatched green bars
+    from refit.report.comparison import section
+
+    base = {"response": "map_mm", "unit": "mm", "level": 0.95, "cv_coverage": np.nan,
+            "cv_scheme": "", "problem": "", "function_id": "f", "version": "1.0.0"}
+    rows = [
+        {**base, "paleosol_id": "P1", "fit": "f 1.0.0 a", "estimate": 650.0, "lower": 400.0,
+         "upper": 900.0, "interval": "analytic", "flags": "", "origin": "refit",
+         "posterior_median": 660.0, "posterior_lower": 430.0, "posterior_upper": 880.0,
+         "posterior_flags": ""},
+        {**base, "paleosol_id": "P1", "fit": "posterior a + b", "estimate": 700.0,
+         "lower": 560.0, "upper": 840.0, "interval": "posterior", "flags": "",
+         "origin": "posterior", "function_id": "posterior", "posterior_median": 700.0,
+         "posterior_lower": 560.0, "posterior_upper": 840.0,
+         "posterior_flags": "proxies-disagree"},
+    ]
+    folder = tmp_path / "cmp"
+    folder.mkdir()
+    pd.DataFrame(rows).to_csv(folder / "comparison.csv", index=False)
+    got = section(folder, "f")
+    assert got["posterior"] is True
+    assert got["header"][3:6] == ["interval", "kind", "posterior median (interval)"]
+    assert got["rows"][0][3:6] == ["400 to 900", "frequentist", "660 (430 to 880)"]
+    assert got["rows"][1][4:6] == ["posterior (Bayesian, proxies multiplied)",
+                                   "700 (560 to 840); proxies-disagree"]
+    assert "Green hatched bars" in got["caption"] and "research use" in got["caption"]
+    # a table written before the posterior columns existed still reads, without them
+    pd.DataFrame(rows[:1]).drop(columns=["posterior_median", "posterior_lower",
+                                         "posterior_upper", "posterior_flags"]).to_csv(
+        folder / "comparison.csv", index=False)
+    old = section(folder, "f")
+    assert old["posterior"] is False and old["rows"][0][5] == ""
+    assert "Green hatched" not in old["caption"]
