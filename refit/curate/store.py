@@ -587,9 +587,10 @@ def _new_rows(accepted: pd.DataFrame, columns: list[str], today: str) -> pd.Data
 
 
 def _cells(column: pd.Series) -> list[str]:
-    """``[_cell(v) for v in column]``, float64 columns without a Python call per cell."""
-    if column.dtype != np.float64:
-        return column.map(_cell).tolist()
+    """``column.map(_cell)`` as a list, float64 columns without a Python call per cell."""
+    if column.dtype != np.float64:  # text: a str cell is itself
+        return [v if type(v) is str else _cell(v)
+                for v in column.to_numpy(dtype=object).tolist()]
     v = column.to_numpy()
     out = np.full(len(v), "", dtype=object)
     finite = np.isfinite(v)

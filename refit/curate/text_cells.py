@@ -43,6 +43,8 @@ def normalise_ids(frame: pd.DataFrame, rows) -> tuple[pd.DataFrame, list[str]]:
         if name not in frame.columns or pd.api.types.is_numeric_dtype(frame[name]):
             continue
         col = frame[name]
+        if all(_plain(v) for v in col.to_numpy(dtype=object).tolist()):
+            continue  # printable ASCII is its own NFC, with no Cc or Cf character
         text = col.map(lambda v: normalise_id(v) if isinstance(v, str) else v)
         changed = np.flatnonzero((text != col).to_numpy(dtype=bool) & col.notna().to_numpy(dtype=bool))
         if not len(changed):
@@ -55,6 +57,12 @@ def normalise_ids(frame: pd.DataFrame, rows) -> tuple[pd.DataFrame, list[str]]:
                      f"(Unicode NFC; control and zero-width characters removed): {shown}"
                      + (" ..." if len(changed) > 3 else ""))
     return frame, notes
+
+
+def _plain(value) -> bool:
+    """Not text, or text that :func:`normalise_id` leaves as it is because it is printable
+    ASCII (no control characters; ASCII has no format characters; NFC changes no ASCII)."""
+    return not isinstance(value, str) or (value.isascii() and value.isprintable())
 
 
 def _is_number(text: str) -> bool:
@@ -71,9 +79,9 @@ def formula_like_problems(work: pd.DataFrame, probs, text_columns) -> None:
         if name not in work.columns or pd.api.types.is_numeric_dtype(work[name]):
             continue
         col = work[name]
-        hit = col.map(lambda v: isinstance(v, str) and v.startswith(FORMULA_STARTS)
-                      and not _is_number(v))
-        pos = np.flatnonzero(hit.to_numpy(dtype=bool))
+        pos = np.array([k for k, v in enumerate(col.to_numpy(dtype=object).tolist())
+                        if isinstance(v, str) and v.startswith(FORMULA_STARTS)
+                        and not _is_number(v)], dtype=np.int64)
         if len(pos):
             probs.add("warning", "formula-like-text", pos, name, col.iloc[pos].astype(str),
                       "the text starts with =, +, -, @ or a tab, which a spreadsheet runs as "
