@@ -51,7 +51,7 @@ def normalise_ids(frame: pd.DataFrame, rows) -> tuple[pd.DataFrame, list[str]]:
             continue
         frame = frame.copy() if not notes else frame
         frame[name] = text
-        shown = ", ".join(f"row {int(rows[k])} {ascii(col.iloc[k])} -> {ascii(text.iloc[k])}"
+        shown = ", ".join(f"row {int(rows[k])} {col.iloc[k]!a} -> {text.iloc[k]!a}"
                           for k in changed[:3])
         notes.append(f"normalised {len(changed)} {name} value(s) before the duplicate check "
                      f"(Unicode NFC; control and zero-width characters removed): {shown}"

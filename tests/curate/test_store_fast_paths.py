@@ -33,8 +33,14 @@ from hypothesis import strategies as st
 
 from refit.curate import duplicates as dup
 from refit.curate.batch import _cell, records_bytes
-from refit.curate.store import (_cells, _new_records, _typed_from_bytes, admit, open_store,
-                                typed_records)
+from refit.curate.store import (
+    _cells,
+    _new_records,
+    _typed_from_bytes,
+    admit,
+    open_store,
+    typed_records,
+)
 
 DAY = "2025-03-01"
 
@@ -300,7 +306,11 @@ def test_printable_ascii_ids_are_left_as_they_are(text):
 
 
 def test_formula_like_cells_are_those_of_the_per_cell_rule():
-    from refit.curate.text_cells import FORMULA_STARTS, _is_number, formula_like_problems
+    from refit.curate.text_cells import (
+        FORMULA_STARTS,
+        _is_number,
+        formula_like_problems,
+    )
 
     class Probs:
         def __init__(self):
