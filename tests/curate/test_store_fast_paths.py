@@ -297,12 +297,17 @@ def test_float_cells_equal_cell_by_cell():
 # --- id normalisation and formula-like text: the per-cell definitions ---------------------
 
 @settings(max_examples=300, deadline=None)
-@given(st.text(alphabet=st.characters(max_codepoint=0x7f)) | st.text())
-def test_printable_ascii_ids_are_left_as_they_are(text):
-    from refit.curate.text_cells import _plain, normalise_id
+@given(st.lists(st.text(alphabet=st.characters(max_codepoint=0x7f)) | st.text(),
+                min_size=1, max_size=5))
+def test_printable_ascii_ids_are_left_as_they_are(texts):
+    from refit.curate.text_cells import _needs_normalising, _plain, normalise_id
 
-    if _plain(text):
-        assert normalise_id(text) == text
+    for text in texts:
+        if _plain(text):
+            assert normalise_id(text) == text
+    for dtype in ("str", object):
+        col = pd.Series(texts, dtype=dtype)
+        assert _needs_normalising(col) == (not all(map(_plain, col)))
 
 
 def test_formula_like_cells_are_those_of_the_per_cell_rule():
