@@ -207,7 +207,7 @@ class _Seen:
         folds = [n.strip().casefold() if isinstance(n, str) else None for n in names]
         looked_up = self._folds(batch)
         in_batch = np.array([f in looked_up for f in folds] + [False], dtype=bool)
-        with np.errstate(invalid="ignore"):
+        with np.errstate(invalid="ignore", over="ignore"):
             ci, cj = np.floor(lat / self.tol), np.floor(lon / self.tol)
             ok = (in_batch[codes] & (np.abs(lat) <= 90.0) & (np.abs(lon) <= 180.0)
                   & np.isin(ci, self._cells(batch, 0)) & np.isin(cj, self._cells(batch, 1)))
@@ -229,7 +229,8 @@ class _Seen:
             return np.zeros(0)
         lat = pd.to_numeric(batch["latitude"], errors="coerce").to_numpy(float)
         lon = pd.to_numeric(batch["longitude"], errors="coerce").to_numpy(float)
-        ok = np.isfinite(lat) & np.isfinite(lon)
+        with np.errstate(invalid="ignore"):  # only sites on the globe look anything up
+            ok = (np.abs(lat) <= 90.0) & (np.abs(lon) <= 180.0)
         base = ([np.floor(lat[ok] / self.tol)] if axis == 0 else
                 [np.floor((lon[ok] + turn) / self.tol) for turn in (0.0, -360.0, 360.0)])
         return np.unique(np.concatenate([b + step for b in base for step in (-1.0, 0.0, 1.0)]))
