@@ -43,13 +43,16 @@ import numpy as np
 import pandas as pd
 
 from refit._util.atomic import TMP_PREFIX, sha256_bytes
-from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
+from refit.curate.duplicates import (  # MEASUREMENTS is also store API
     DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
 )
 from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
 from refit.curate.store_manifest import check_manifest
+from refit.curate.store_records import (  # typed_records, canonical_order: store API
+    canonical_order, header_of, records_after, typed_from_bytes, typed_records,
+)
 from refit.curate.store_commit import (
     StoreNotWritableError, _commit, _locked, create_store, recover,
 )
@@ -97,7 +100,7 @@ class Store:
     @functools.cached_property
     def records(self) -> pd.DataFrame:
         """Records with schema number columns as float64 and empty cells as missing."""
-        typed = _typed_from_bytes(self.raw) if self.raw else None
+        typed = typed_from_bytes(self.raw) if self.raw else None
         return typed if typed is not None else typed_records(self.records_text)
 
     @functools.cached_property
@@ -105,7 +108,7 @@ class Store:
         """The column names of records.csv, as the table readers name them."""
         if "records" in self.__dict__ or not self.raw:
             return [str(c) for c in self.records.columns]
-        return [str(c) for c in _header(self.raw)]
+        return [str(c) for c in header_of(self.raw)]
 
     @property
     def row_count(self) -> int:
@@ -122,7 +125,7 @@ class Store:
             return self.records[wanted]
         key = tuple(wanted)
         if key not in self._parts:
-            part = _typed_from_bytes(self.raw, wanted)
+            part = typed_from_bytes(self.raw, wanted)
             self._parts[key] = part if part is not None else self.records[wanted]
         return self._parts[key]
 
@@ -150,63 +153,6 @@ class Store:
                 f"{self.path}: rebuilding version {version} does not reproduce its recorded "
                 "sha256; records.csv was edited outside refit")
         return rows
-
-
-def _numeric_columns() -> set[str]:
-    from refit.curate.units import schema_fields
-
-    return {f["name"] for f in schema_fields() if f.get("type") in ("number", "integer")}
-
-
-def typed_records(text: pd.DataFrame) -> pd.DataFrame:
-    numeric = _numeric_columns()
-    out = text.replace("", np.nan)
-    for col in out.columns:
-        if col in numeric:
-            out[col] = pd.to_numeric(out[col], errors="coerce").astype("float64")
-    return out
-
-
-def _header(raw: bytes) -> pd.Index:
-    return pd.read_csv(io.BytesIO(raw), nrows=0, dtype=str, encoding="utf-8").columns
-
-
-def _typed_from_bytes(raw: bytes, columns: list[str] | None = None) -> pd.DataFrame | None:
-    """``typed_records`` of records.csv's text (only ``columns``, in file order, when
-    given), parsed in one pass with number columns read as float64 (several times faster
-    than text first, then ``to_numeric``); None when a number cell is not a plain number,
-    or is a negative zero, or there are no rows, or the header repeats a name: the caller
-    then takes the text route, which is the definition (equal values and dtypes otherwise:
-    tested)."""
-    numeric = _numeric_columns()
-    try:
-        header = [str(c) for c in _header(raw)]
-        wanted = header if columns is None else [c for c in header if c in set(columns)]
-        if len(set(header)) != len(header) or not wanted:
-            return None
-        dtypes = {c: ("float64" if c in numeric else str) for c in wanted}
-        frame = pd.read_csv(io.BytesIO(raw), dtype=dtypes, keep_default_na=False,
-                            na_values=[""], encoding="utf-8",
-                            usecols=None if columns is None else wanted)
-    except ValueError:  # a number cell that needs to_numeric's coercion (or a bad file)
-        return None
-    if not len(frame) or list(frame.columns) != wanted:
-        return None
-    for col in frame.columns:
-        if col in numeric:
-            v = frame[col].to_numpy()
-            if np.signbit(v[v == 0]).any():  # "-0": to_numeric reads it as +0
-                return None
-    return frame
-
-
-def canonical_order(columns) -> list[str]:
-    """All schema columns in schema order, then the extra columns alphabetically."""
-    from refit.curate.units import canonical_columns
-
-    schema = canonical_columns()
-    extras = sorted({str(c) for c in columns} - set(schema))
-    return schema + extras
 
 
 def _read_records(path: Path) -> pd.DataFrame:
@@ -488,7 +434,7 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         stem = f"attempt{len(store.manifest.get('changelog', [])) + 1}-{stem}"
     q_rel = f"quarantine/{version:04d}-{stem}.csv" if held.any() else None
     p_rel = f"quarantine/{version:04d}-{stem}.problems.csv" if len(problems) else None
-    data, columns, n_after = _records_after(store, report.frame.loc[~held], today,
+    data, columns, n_after = records_after(store, report.frame.loc[~held], today,
                                             new_version or created)
     reasons = _reason_counts(problems, table.source_rows[held])
     entry = {
@@ -543,62 +489,6 @@ def _split_rows(report, frame, stored, source_rows, original, tolerance_deg):
 
 # --------------------------------------------------------------------------------------
 # building the files
-
-
-def _records_after(store: Store, accepted: pd.DataFrame, today: str,
-                   grow: bool) -> tuple[bytes, list[str], int]:
-    """(records.csv bytes, columns, row count) once ``accepted`` is appended (``grow``).
-
-    When the store's bytes are refit's own (:attr:`Store.appendable`) and the columns do
-    not change, the new rows' bytes are appended to them: the same bytes as rewriting the
-    whole table (``records_bytes`` writes row by row; tested), without parsing the stored
-    rows as text.
-    """
-    if store.appendable:
-        old_columns = store.columns
-        if not grow:
-            return store.raw, old_columns, store.row_count
-        columns = canonical_order([*old_columns, *accepted.columns])
-        if columns == old_columns:
-            new = _new_rows(accepted, columns, today)
-            return (store.raw + records_bytes(new, header=False), columns,
-                    store.row_count + len(new))
-    records = (_new_records(store.records_text, accepted, today) if grow
-               else store.records_text)
-    return records_bytes(records), [str(c) for c in records.columns], len(records)
-
-
-def _new_records(old: pd.DataFrame, accepted: pd.DataFrame, today: str) -> pd.DataFrame:
-    columns = canonical_order([*old.columns, *accepted.columns])
-    new = _new_rows(accepted, columns, today)
-    old = old.reindex(columns=columns, fill_value="")
-    return pd.concat([old, new], ignore_index=True).astype(str) if len(new) else old
-
-
-def _new_rows(accepted: pd.DataFrame, columns: list[str], today: str) -> pd.DataFrame:
-    """The accepted rows as stored text (:func:`_cell` of each cell; ``added_on`` today
-    where empty)."""
-    if not len(accepted):
-        return pd.DataFrame(columns=columns, dtype=str)
-    frame = accepted.reindex(columns=columns)
-    cells = {c: _cells(frame[c]) for c in columns}
-    cells["added_on"] = [v if v != "" else today for v in cells["added_on"]]
-    return pd.DataFrame(cells, index=frame.index, columns=columns, dtype=object)
-
-
-def _cells(column: pd.Series) -> list[str]:
-    """``column.map(_cell)`` as a list, float64 columns without a Python call per cell."""
-    if column.dtype != np.float64:  # text: a str cell is itself
-        return [v if type(v) is str else _cell(v)
-                for v in column.to_numpy(dtype=object).tolist()]
-    v = column.to_numpy()
-    out = np.full(len(v), "", dtype=object)
-    finite = np.isfinite(v)
-    whole = finite & (v == np.floor(v)) & (np.abs(v) < 1e15)
-    out[whole] = v[whole].astype(np.int64).astype(str).astype(object)
-    rest = ~whole & ~np.isnan(v)
-    out[rest] = [f"{x:.12g}" for x in v[rest].tolist()]
-    return out.tolist()
 
 
 def _manifest_bytes(store: Store, entry: dict, tolerance_deg: float) -> bytes:

@@ -33,14 +33,9 @@ from hypothesis import strategies as st
 
 from refit.curate import duplicates as dup
 from refit.curate.batch import _cell, records_bytes
-from refit.curate.store import (
-    _cells,
-    _new_records,
-    _typed_from_bytes,
-    admit,
-    open_store,
-    typed_records,
-)
+from refit.curate.store import admit, open_store, typed_records
+from refit.curate.store_records import _cells, _new_records
+from refit.curate.store_records import typed_from_bytes as _typed_from_bytes
 
 DAY = "2025-03-01"
 
