@@ -24,11 +24,13 @@ class AlreadyAdmittedError(InvalidDataError):
 HOLDING = ("error", "suspect")
 
 
-def records_bytes(frame: pd.DataFrame) -> bytes:
-    """records.csv bytes for a text frame (UTF-8, ``\\n`` line ends, minimal quoting)."""
+def records_bytes(frame: pd.DataFrame, *, header: bool = True) -> bytes:
+    """records.csv bytes for a text frame (UTF-8, ``\\n`` line ends, minimal quoting);
+    ``header=False`` gives the rows alone (to append to a file with the same columns)."""
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(list(frame.columns))
+    if header:
+        writer.writerow(list(frame.columns))
     writer.writerows(frame.to_numpy(dtype=object).tolist())
     return buf.getvalue().encode("utf-8")
 
@@ -122,9 +124,10 @@ def _refuse_readmit(store, table, again: bool) -> None:
         "duplicates of the stored ones).")
 
 
-def _screen(report, store, incoming, table, rejected, problems, units, accept_suspect):
+def _screen(report, records, incoming, table, rejected, problems, units, accept_suspect):
     """The consistency test of the rows not already rejected: (suspect mask, problems
-    with the suspects added, the AdmitResult fields it fills)."""
+    with the suspects added, the AdmitResult fields it fills); ``records``: the store's
+    typed records (the columns of the tests at least)."""
     from refit.curate.columns import parse_column, unmapped_columns
     from refit.curate.problems import PROBLEM_COLUMNS, group_problems
     from refit.curate.slips import screen_batch
@@ -136,7 +139,7 @@ def _screen(report, store, incoming, table, rejected, problems, units, accept_su
                  if col in units or origins_target in units}
     # every row is scored (a slip also trips range and plausibility errors: the score then
     # says which unit the value fits in); only rows without errors count as suspect
-    suspects, notes = screen_batch(report.frame.reset_index(drop=True), store.records,
+    suspects, notes = screen_batch(report.frame.reset_index(drop=True), records,
                                    origins, confirmed, np.ones(n, dtype=bool), table.path,
                                    table.source_rows)
     suspect = np.zeros(n, dtype=bool)

@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
+import io
 import json
 import re
 from dataclasses import asdict, dataclass, field
@@ -41,14 +42,17 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from refit._util.atomic import TMP_PREFIX, sha256_bytes, sha256_file
-from refit.curate.duplicates import (  # noqa: F401  (MEASUREMENTS re-exported: store API)
+from refit._util.atomic import TMP_PREFIX, sha256_bytes
+from refit.curate.duplicates import (  # MEASUREMENTS is also store API
     DUPLICATE_TOLERANCE_DEG, MEASUREMENTS, find_duplicates,
 )
 from refit.curate.batch import (  # noqa: F401 (AlreadyAdmittedError, records_bytes: store API)
     AlreadyAdmittedError, records_bytes, _all_problems, _cell, _refuse_readmit, _screen, _quarantine_bytes, _reason_counts, _rejected_rows, _warning_counts,
 )
 from refit.curate.store_manifest import check_manifest
+from refit.curate.store_records import (  # typed_records, canonical_order: store API
+    canonical_order, header_of, records_after, typed_from_bytes, typed_records,
+)
 from refit.curate.store_commit import (
     StoreNotWritableError, _commit, _locked, create_store, recover,
 )
@@ -66,12 +70,17 @@ _OWN_ENTRIES = re.compile(r"^(\.lock|\.pending-.*|" + re.escape(TMP_PREFIX) + r"
 
 @dataclass
 class Store:
-    """A calibration store as read from its folder (see the module docstring)."""
+    """A calibration store as read from its folder (see the module docstring).
+
+    ``raw`` holds records.csv's bytes as read (their sha256 checked against the manifest);
+    the text and typed tables are parsed from them when first asked for.
+    """
 
     path: Path
     manifest: dict
-    records_text: pd.DataFrame = field(repr=False)
+    raw: bytes = field(default=b"", repr=False)
     recovered: list[str] = field(default_factory=list)
+    _parts: dict = field(default_factory=dict, repr=False)
 
     @property
     def version(self) -> int:
@@ -82,9 +91,53 @@ class Store:
         return str(self.manifest["name"])
 
     @functools.cached_property
+    def records_text(self) -> pd.DataFrame:
+        """Records as text, exactly as stored ('' for an empty cell)."""
+        if not self.raw:
+            return pd.DataFrame(columns=canonical_order([]), dtype=str)
+        return _read_records(io.BytesIO(self.raw))
+
+    @functools.cached_property
     def records(self) -> pd.DataFrame:
         """Records with schema number columns as float64 and empty cells as missing."""
-        return typed_records(self.records_text)
+        typed = typed_from_bytes(self.raw) if self.raw else None
+        return typed if typed is not None else typed_records(self.records_text)
+
+    @functools.cached_property
+    def columns(self) -> list[str]:
+        """The column names of records.csv, as the table readers name them."""
+        if "records" in self.__dict__ or not self.raw:
+            return [str(c) for c in self.records.columns]
+        return [str(c) for c in header_of(self.raw)]
+
+    @property
+    def row_count(self) -> int:
+        """Rows of records.csv (as pandas reads it)."""
+        parts = [*self._parts.values(), *([self.records] if "records" in self.__dict__
+                                          else [])]
+        return len(parts[0]) if parts else len(self.records)
+
+    def typed(self, columns) -> pd.DataFrame:
+        """:attr:`records` restricted to those of ``columns`` it has (in file order), parsed
+        alone (only those columns) unless the whole table already was."""
+        wanted = [c for c in self.columns if c in set(columns)]
+        if "records" in self.__dict__ or not self.raw:
+            return self.records[wanted]
+        key = tuple(wanted)
+        if key not in self._parts:
+            part = typed_from_bytes(self.raw, wanted)
+            self._parts[key] = part if part is not None else self.records[wanted]
+        return self._parts[key]
+
+    @property
+    def appendable(self) -> bool:
+        """records.csv is the bytes refit wrote for its last changelog entry (whose sha256
+        the manifest check matched), so new rows can be appended to ``raw`` as they are:
+        ``records_bytes`` of the stored text gives ``raw`` back. Not after a manifest repair
+        (the file may have been written by other software)."""
+        log = self.manifest.get("changelog") or []
+        return bool(self.raw) and bool(log) and log[-1].get("kind") != "repair" and \
+            log[-1].get("records_sha256") == self.manifest.get("records_sha256")
 
     def records_at(self, version: int) -> pd.DataFrame:
         """The records of dataset ``version`` as text, checked against its recorded sha256."""
@@ -100,26 +153,6 @@ class Store:
                 f"{self.path}: rebuilding version {version} does not reproduce its recorded "
                 "sha256; records.csv was edited outside refit")
         return rows
-
-
-def typed_records(text: pd.DataFrame) -> pd.DataFrame:
-    from refit.curate.units import schema_fields
-
-    numeric = {f["name"] for f in schema_fields() if f.get("type") in ("number", "integer")}
-    out = text.replace("", np.nan)
-    for col in out.columns:
-        if col in numeric:
-            out[col] = pd.to_numeric(out[col], errors="coerce").astype("float64")
-    return out
-
-
-def canonical_order(columns) -> list[str]:
-    """All schema columns in schema order, then the extra columns alphabetically."""
-    from refit.curate.units import canonical_columns
-
-    schema = canonical_columns()
-    extras = sorted({str(c) for c in columns} - set(schema))
-    return schema + extras
 
 
 def _read_records(path: Path) -> pd.DataFrame:
@@ -159,7 +192,9 @@ def open_store(store_dir, *, lock_timeout: float = LOCK_TIMEOUT_S) -> Store:
         lock.__exit__()
 
 
-def _load(store_dir: Path, recovered: list[str]) -> Store:
+def _load(store_dir: Path, recovered: list[str], columns=None) -> Store:
+    """The store in ``store_dir``, its manifest checked against records.csv (schema, hash,
+    row count); with ``columns``, only those are parsed (:meth:`Store.typed`)."""
     try:
         manifest = json.loads((store_dir / "manifest.json").read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:
@@ -169,17 +204,19 @@ def _load(store_dir: Path, recovered: list[str]) -> Store:
     records = store_dir / "records.csv"
     if not records.is_file():
         raise InvalidDataError(f"{records} is missing; restore it from a backup")
-    sha = sha256_file(records)
+    raw = records.read_bytes()
+    sha = sha256_bytes(raw)
     check_manifest(store_dir, manifest, sha)  # its schema and the hash, before parsing
-    text = _read_records(records)
-    check_manifest(store_dir, manifest, sha, len(text))
-    return Store(store_dir, manifest, text, recovered)
+    store = Store(store_dir, manifest, raw, recovered)
+    if columns is not None:
+        store.typed(columns)
+    check_manifest(store_dir, manifest, sha, store.row_count)
+    return store
 
 
 def _empty_store(store_dir: Path, name: str | None = None) -> Store:
-    columns = canonical_order([])
     return Store(store_dir, {"name": name or store_dir.name, "version": 0, "changelog": [],
-                             "columns": columns}, pd.DataFrame(columns=columns, dtype=str))
+                             "columns": canonical_order([])})
 
 
 def _state(store_dir: Path) -> str:
@@ -336,9 +373,19 @@ def admit(table_path, store_dir, *, dry_run: bool = False, vocabularies=None, vo
     with _locked(store_dir, timeout):
         recovered = recover(store_dir)
         state = _state(store_dir)
-        store = _load(store_dir, recovered) if state == "store" else _empty_store(store_dir)
+        store = (_load(store_dir, recovered, _admit_columns()) if state == "store"
+                 else _empty_store(store_dir))
         store.recovered = recovered
         return _admit_locked(*args, store, state != "store", dry_run, *options)
+
+
+def _admit_columns() -> list[str]:
+    """The stored columns an admit reads: ids and sites, measurements (duplicates), and
+    the columns of the consistency tests."""
+    from refit.curate import consistency as cs
+
+    return ["profile_id", "source", "latitude", "longitude", *MEASUREMENTS,
+            *cs.SLIP_COLUMNS, *(c for pair in cs.REFERENCES for c in pair)]
 
 
 def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:
@@ -374,9 +421,10 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
                                             enumerate(messages, start=1)))
     n = len(frame)
     original = _as_numbers_read(table, incoming)
-    rejected, problems = _split_rows(report, frame, store, table.source_rows, original,
+    stored = store.typed(_admit_columns())
+    rejected, problems = _split_rows(report, frame, stored, table.source_rows, original,
                                      tolerance_deg)
-    suspect, problems, screening = _screen(report, store, incoming, table, rejected,
+    suspect, problems, screening = _screen(report, stored, incoming, table, rejected,
                                            problems, units, accept_suspect)
     held = rejected | suspect
     new_version = bool((~held).any())
@@ -386,17 +434,16 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         stem = f"attempt{len(store.manifest.get('changelog', [])) + 1}-{stem}"
     q_rel = f"quarantine/{version:04d}-{stem}.csv" if held.any() else None
     p_rel = f"quarantine/{version:04d}-{stem}.problems.csv" if len(problems) else None
-    records = (_new_records(store.records_text, report.frame.loc[~held], today)
-               if new_version or created else store.records_text)
-    data = records_bytes(records)
+    data, columns, n_after = records_after(store, report.frame.loc[~held], today,
+                                            new_version or created)
     reasons = _reason_counts(problems, table.source_rows[held])
     entry = {
         "version": version, "date": today, "source_file": Path(table.path).name,
         "source_sha256": table.sha256, "rows_read": n, "accepted": int((~held).sum()),
         "rejected": int(rejected.sum()), "suspect": int(suspect.sum()),
         "quarantine_file": q_rel, "problems_file": p_rel,
-        "row_count_after": len(records), "records_sha256": sha256_bytes(data),
-        "columns": list(records.columns), "reasons": reasons, "mappings": list(mappings),
+        "row_count_after": n_after, "records_sha256": sha256_bytes(data),
+        "columns": columns, "reasons": reasons, "mappings": list(mappings),
     }
     if not new_version:
         entry = {"kind": "attempt", **entry}
@@ -404,7 +451,7 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
         table=str(table.path), store=str(store.path), dry_run=dry_run, created=created,
         version_before=store.version, version_after=store.version if dry_run else version,
         rows_read=n, accepted=entry["accepted"], rejected=entry["rejected"],
-        row_count_after=len(records), reasons=reasons,
+        row_count_after=n_after, reasons=reasons,
         rejected_rows=_rejected_rows(problems, report.frame, table.source_rows, held),
         warnings=_warning_counts(problems), quarantine_file=q_rel, problems_file=p_rel,
         records_file="records.csv", mappings=list(mappings) + list(report.notes),
@@ -423,13 +470,14 @@ def _admit_locked(table, incoming, frame, mappings, store, created, dry_run, voc
     return result
 
 
-def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
-    """(rejected mask, problems table with file_column and outcome) for a checked batch."""
+def _split_rows(report, frame, stored, source_rows, original, tolerance_deg):
+    """(rejected mask, problems table with file_column and outcome) for a checked batch
+    (``stored``: the store's typed records, at least :func:`_admit_columns`)."""
     from refit.curate.units import add_file_context
 
     n = len(frame)
     bad = np.isin(np.arange(n), frame.index.get_indexer(report.bad_rows()))
-    dups = find_duplicates(report.frame, store.records, bad, tolerance_deg)
+    dups = find_duplicates(report.frame, stored, bad, tolerance_deg)
     problems = add_file_context(_all_problems(report, dups, source_rows), original,
                                 source_rows)
     rejected = bad | np.isin(np.arange(n), [d["pos"] for d in dups])
@@ -441,16 +489,6 @@ def _split_rows(report, frame, store, source_rows, original, tolerance_deg):
 
 # --------------------------------------------------------------------------------------
 # building the files
-
-
-def _new_records(old: pd.DataFrame, accepted: pd.DataFrame, today: str) -> pd.DataFrame:
-    columns = canonical_order([*old.columns, *accepted.columns])
-    new = accepted.reindex(columns=columns).map(_cell) if len(accepted) else \
-        pd.DataFrame(columns=columns, dtype=str)
-    if len(new):
-        new["added_on"] = new["added_on"].where(new["added_on"] != "", today)
-    old = old.reindex(columns=columns, fill_value="")
-    return pd.concat([old, new], ignore_index=True).astype(str) if len(new) else old
 
 
 def _manifest_bytes(store: Store, entry: dict, tolerance_deg: float) -> bytes:
