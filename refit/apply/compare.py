@@ -37,11 +37,12 @@ FONT = {"note": 8.5, "fit": 8.5, "axis": 9.0, "title": 10.0, "legend": 9.0}
 #: characters per line of the note printed beside an interval (longer notes wrap)
 NOTE_WIDTH = 56
 
-#: The figure's own palette: blue for refits, vermilion for published equations, a warm
-#: grey for fits without an interval; distinguishable under the common colour-vision
+#: The figure's own palette: blue for refits, vermilion for published equations, reddish
+#: purple for the combined posterior (as in the section figure), a warm grey for fits
+#: without an interval; distinguishable under the common colour-vision
 #: deficiencies (blue/orange contrast) and in greyscale (different lightness).
-STYLE = {"refit": "#2166ac", "published": "#d55e00", "none": "#8c8c8c",
-         "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45}
+STYLE = {"refit": "#2166ac", "published": "#d55e00", "posterior": "#cc79a7",
+         "none": "#8c8c8c", "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45}
 
 
 def at_frame(pairs) -> pd.DataFrame:
@@ -74,9 +75,19 @@ def comparison_table(results: pd.DataFrame) -> pd.DataFrame:
     t["fit"] = [fit_label(r) for r in t.itertuples(index=False)]
     # a refit carries its candidate label, published or not; a literature equation has none
     cand = t["candidate"].fillna("") if "candidate" in t else pd.Series("", index=t.index)
-    t["origin"] = np.where(cand.astype(str) != "", "refit", "literature")
+    # the combined posterior is refit's own (from its forward fits), never a literature one
+    t["origin"] = np.where((cand.astype(str) != "") | _is_posterior(t), "refit", "literature")
     t["width"] = t["upper"].astype(float) - t["lower"].astype(float)
     return t.reindex(columns=TABLE_COLUMNS).reset_index(drop=True)
+
+
+def _is_posterior(t: pd.DataFrame) -> pd.Series:
+    """Rows of the combined posterior (function id ``posterior``)."""
+    if "function_id" not in t:
+        return pd.Series(False, index=t.index)
+    from refit.apply.posterior import COMBINED_ID
+
+    return t["function_id"].astype(str).eq(COMBINED_ID)
 
 
 def fit_label(r) -> str:
@@ -88,8 +99,13 @@ def fit_label(r) -> str:
     if isinstance(cite, str) and cite and not getattr(r, "candidate", ""):
         fid = str(r.function_id)
         return f"{cite}, {'from ' + fid.split('_from_', 1)[1] if '_from_' in fid else fid}"
-    what = r.candidate if getattr(r, "candidate", "") else r.status
-    return f"{r.function_id} {r.version} {what}".strip()
+    def text(value) -> str:
+        missing = value is None or (isinstance(value, float) and math.isnan(value))
+        return "" if missing else str(value).strip()
+
+    what = text(getattr(r, "candidate", "")) or text(r.status)
+    # a missing part (the combined posterior has no version) leaves no double space
+    return " ".join(p for p in (text(r.function_id), text(r.version), what) if p)
 
 
 def coverage_text(coverage, scheme, level, interval) -> str:
@@ -149,9 +165,13 @@ def figure_pngs(table: pd.DataFrame, *, title: str = "",
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     pages = [panels[i:i + MAX_PANELS] for i in range(0, len(panels), MAX_PANELS)]
-    return [figure_png(table, title=title + (f" (page {k + 1} of {len(pages)})"
-                                             if len(pages) > 1 else ""), panels=page,
-                       table_sha256=table_sha256)
+    def page_title(k: int) -> str:
+        if len(pages) == 1:
+            return title
+        return f"{title} (page {k + 1} of {len(pages)})" if title else \
+            f"page {k + 1} of {len(pages)}"
+
+    return [figure_png(table, title=page_title(k), panels=page, table_sha256=table_sha256)
             for k, page in enumerate(pages)]
 
 
@@ -162,13 +182,35 @@ def page_names(n: int) -> list[str]:
 
 def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
                table_sha256: str | None = None) -> bytes:
-    """The interval figure as PNG bytes (matplotlib, Agg backend).
+    """The interval figure as PNG bytes (matplotlib, Agg backend): :func:`comparison_figure`
+    saved, with ``table_sha256`` stored under :data:`TABLE_HASH_KEY`."""
+    import matplotlib.pyplot as plt
+
+    fig = comparison_figure(table, title=title, panels=panels)
+    buf = io.BytesIO()
+    meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
+    fig.savefig(buf, format="png", dpi=DPI, metadata=meta)
+    plt.close(fig)
+    return buf.getvalue()
+
+
+#: resolution of the figure's PNG [dots per inch]
+DPI = 130
+#: the figure's width [inch], and the narrowest and widest left margin (fractions of it)
+#: that the longest fit label is given
+WIDTH_IN, LEFT_MIN, LEFT_MAX = 11.0, 0.25, 0.40
+
+
+def comparison_figure(table: pd.DataFrame, *, title: str = "", panels=None):
+    """The interval figure as a matplotlib figure (Agg backend).
 
     One panel per paleosol (``panels`` from :func:`panel_groups`; default the first
     :data:`MAX_PANELS`, :func:`figure_pngs` draws them all), one row per fit: a bar from
     lower to upper, the estimate as a black diamond, the cross-validated coverage and
     flags printed at the right. Fits with a serious flag are drawn paler; fits without an
-    interval show the estimate only.
+    interval show the estimate only. The left margin is as wide as the longest fit label
+    (measured with the renderer, at most :data:`LEFT_MAX` of the width), and the page
+    ``title`` sits in the top margin, clear of the first panel's labels.
     """
     import matplotlib
 
@@ -179,50 +221,77 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
-    handles = _legend_handles(pd.concat([rows for _, rows in panels]))
-    below = 0.4 if len(handles) > 3 else 0.0   # a second legend line under the panels
-    total = sum(heights) + below
-    fig, axes = plt.subplots(len(panels), 1, figsize=(11, total), squeeze=False,
+    top_handles, notes = _legend_handles(pd.concat([rows for _, rows in panels]),
+                                         split=True)
+    below = 0.1 + 0.22 * len(notes) if notes else 0.0  # explanations under the panels
+    above = 0.3 if title else 0.0  # a line of its own for the page title, over the legend
+    total = sum(heights) + below + above
+    fig, axes = plt.subplots(len(panels), 1, figsize=(WIDTH_IN, total), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
     for ax, (pid, rows) in zip(axes[:, 0], panels):
         _panel(ax, rows, pid)
     if title:
-        fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.legend(handles=handles[:3], loc="upper right", bbox_to_anchor=(0.985, 0.998),
-               ncol=3, frameon=False, fontsize=FONT["legend"])
-    if below:  # what the triangle of a limit cut at a bound means, under the panels
-        fig.legend(handles=handles[3:], loc="lower left", bbox_to_anchor=(0.01, 0.0),
+        fig.text(0.01, 1 - 0.08 / total, title.strip(), ha="left", va="top", fontsize=11)
+    fig.legend(handles=top_handles, loc="upper right",
+               bbox_to_anchor=(0.985, 1 - (above + 0.01) / total),
+               ncol=len(top_handles), frameon=False, fontsize=FONT["legend"])
+    if notes:  # what paler bars and the triangle of a limit cut at a bound mean
+        fig.legend(handles=notes, loc="lower left", bbox_to_anchor=(0.01, 0.0),
                    frameon=False, fontsize=FONT["legend"])
-    fig.subplots_adjust(left=0.25, right=0.61, top=1 - 0.55 / total,
-                        bottom=(0.55 + below) / total, hspace=0.5)
-    buf = io.BytesIO()
-    meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
-    fig.savefig(buf, format="png", dpi=130, metadata=meta)
-    plt.close(fig)
-    return buf.getvalue()
+    fig.subplots_adjust(left=_left_margin(fig, axes[:, 0]), right=0.61,
+                        top=1 - (0.55 + above) / total, bottom=(0.55 + below) / total,
+                        hspace=0.5)
+    return fig
+
+
+def _left_margin(fig, axes) -> float:
+    """The left margin [fraction of the width] that shows the longest fit label whole."""
+    renderer = fig.canvas.get_renderer()
+    widest = max((t.get_window_extent(renderer).width for ax in axes
+                  for t in ax.get_yticklabels()), default=0.0)
+    need = (widest / fig.dpi + 0.2) / fig.get_figwidth()  # + tick, pad and a little air
+    return min(LEFT_MAX, max(LEFT_MIN, need))
 
 
 #: the legend's words for a limit cut at a physical bound (flag ``truncated-at-bound``)
 TRUNCATED_TEXT = ("limit cut at a physical bound (flag truncated-at-bound, e.g. MAP >= 0 "
                   "mm); the limit before the cut is in the table (lower/upper_untruncated)")
+#: the legend's words for a paler bar
+FLAGGED_TEXT = "paler bar: flagged, the equation does not hold there (flags at right)"
+#: the legend's words for the combined posterior's bar
+POSTERIOR_TEXT = "posterior of refit's forward fits (not cross-validated)"
 
 
-def _legend_handles(rows: pd.DataFrame | None = None) -> list:
-    """What the colours, the diamond and (when ``rows`` have one) the triangle of a limit
-    cut at a physical bound mean (one legend for every panel)."""
+def _legend_handles(rows: pd.DataFrame | None = None, *, split: bool = False):
+    """What the colours, the diamond, a paler bar and the triangle of a limit cut at a
+    physical bound mean (one legend for every panel). With ``rows``, only what those rows
+    show; ``split=True`` returns the colours and the diamond apart from the notes on
+    paler bars and cut limits."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     from refit.apply.estimates import truncated_sides
 
-    out = [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
-           Patch(color=STYLE["published"], label="published equation (±1 SE)"),
-           Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
-                  label="estimate")]
+    kinds = {"refit", "published", "posterior"}
+    if rows is not None:
+        post = _is_posterior(rows).to_numpy()
+        lit = (rows["origin"] == "literature").to_numpy() if "origin" in rows else ~post
+        kinds = {k for k, m in (("posterior", post), ("published", lit & ~post),
+                                ("refit", ~lit & ~post)) if m.any()}
+    colours = [Patch(color=STYLE[k], label=text) for k, text in (
+        ("refit", "fit made with refit (CV coverage at right)"),
+        ("published", "published equation (±1 SE)"),
+        ("posterior", POSTERIOR_TEXT)) if k in kinds]
+    colours.append(Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                          label="estimate"))
+    notes = []
+    if rows is not None and rows.get("flags") is not None and rows["flags"].map(_serious).any():
+        notes.append(Patch(color=STYLE["refit"], alpha=STYLE["flagged_alpha"],
+                           label=FLAGGED_TEXT))
     if rows is not None and any(m.any() for m in truncated_sides(rows)):
-        out.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
-                          label=TRUNCATED_TEXT))
-    return out
+        notes.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
+                            label=TRUNCATED_TEXT))
+    return (colours, notes) if split else colours + notes
 
 
 def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
@@ -253,6 +322,7 @@ def _serious(flags) -> bool:
 
 def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     from refit.apply.estimates import truncated_sides
+    from refit.apply.posterior import COMBINED_ID
 
     rows = rows.reset_index(drop=True)
     y = np.arange(len(rows))[::-1]
@@ -263,7 +333,8 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     pad = 0.05 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(0.1 * abs(hi_ax), 1.0)
     cuts = truncated_sides(rows)
     for i, (yi, r) in enumerate(zip(y, rows.itertuples(index=False))):
-        colour = STYLE["published"] if r.origin == "literature" else STYLE["refit"]
+        colour = (STYLE["posterior"] if str(r.function_id) == COMBINED_ID else
+                  STYLE["published"] if r.origin == "literature" else STYLE["refit"])
         alpha = STYLE["flagged_alpha"] if _serious(r.flags) else 1.0
         lo, hi = float(r.lower), float(r.upper)
         if np.isfinite(lo) or np.isfinite(hi):

@@ -155,13 +155,22 @@ def rows(table) -> list[list[str]]:
 def caption(table, fig: dict | None, source: str, function_id: str) -> str:
     """What the comparison figure shows, in words (and that it is for research use)."""
     fits = list(dict.fromkeys(table["fit"]))
-    n_refit = table.loc[table["origin"] == "refit", "fit"].nunique()
+    import pandas as pd
+
+    from refit.apply.posterior import COMBINED_ID
+
+    post = (table["function_id"].astype(str) == COMBINED_ID if "function_id" in table
+            else pd.Series(False, index=table.index))
+    n_refit = table.loc[(table["origin"] == "refit") & ~post, "fit"].nunique()
     text = (f"Estimates (black diamonds) and intervals (bars) of {len(fits)} fit(s) for "
             f"each of {table['paleosol_id'].nunique()} paleosol(s), from {source} "
             f"(written by refit compare): blue bars are the {n_refit} fit(s) made with refit, with "
             "their cross-validated coverage printed at the right; vermilion bars are "
             "published equations, whose interval is the published ±1 standard error and "
-            "was not cross-validated; a diamond alone is a fit that gives no interval. "
+            "was not cross-validated; "
+            + ("reddish-purple bars are the posterior of refit's forward fits, all proxies "
+               "of a paleosol together, not cross-validated; " if post.any() else "")
+            + "a diamond alone is a fit that gives no interval. "
             "Paler bars are flagged: the equation does not hold there (e.g. outside its "
             "calibration range). The narrowest interval is not necessarily the best: "
             "compare each coverage with its nominal level.")

@@ -353,3 +353,21 @@ def test_an_edited_candidate_file_in_a_run_is_refused_by_the_one_reader(run_dir,
     target.write_text(target.read_text("utf-8").replace('"n": ', '"n":  ', 1), "utf-8")
     res = CliRunner().invoke(report, [str(bad), "--out", str(tmp_path / "r.html")])
     assert res.exit_code == 1 and "bytes check failed" in res.output, res.output
+
+
+def test_comparison_caption_counts_refits_apart_from_the_posterior():
+    # the posterior row is refit's own but not a fit with a cross-validated coverage: the
+    # caption names its colour and does not count it among the blue bars
+    from refit.report.comparison import caption
+
+    table = pd.DataFrame({"paleosol_id": ["P1"] * 3,
+                          "fit": ["map_from_bk_depth 1.0.0 linear__ols__inverse__analytic",
+                                  "Retallack 1994, from bk_depth", "posterior combined"],
+                          "origin": ["refit", "literature", "refit"],
+                          "function_id": ["map_from_bk_depth", "map_from_bk_depth",
+                                          "posterior"]})
+    text = caption(table, None, "comparison.csv", "map_from_bk_depth")
+    assert "blue bars are the 1 fit(s) made with refit" in text
+    assert "reddish-purple bars are the posterior of refit's forward fits" in text
+    plain = caption(table.iloc[:2], None, "comparison.csv", "map_from_bk_depth")
+    assert "reddish-purple" not in plain
