@@ -444,8 +444,9 @@ def _fmt_cell(v, fmt="{:.1f}") -> str:
     return fmt.format(v)
 
 
-def print_run(run, out, console=None) -> None:
-    """Print the data, the subset, the leaderboard, the verdict and the cautions."""
+def print_run(run, out, console=None, *, caution: bool = True) -> None:
+    """Print the data, the subset, the leaderboard, the verdict and (``caution``, for a
+    caller that does not print its own) the caution."""
     from rich.table import Table
     from rich.text import Text
 
@@ -510,7 +511,8 @@ def print_run(run, out, console=None) -> None:
                 f"and its interval score {opt['median_score_ratio']:.2f} times random "
                 "k-fold's (median over candidates).")
     _print_skipped(c, m.skipped)
-    c.print(Text(f"Caution: {CAUTION}", style="yellow"))
+    if caution:
+        c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
 
 
@@ -662,16 +664,17 @@ def render_admit(result, max_rows: int | None = None) -> list[str]:
     return out
 
 
-def print_comparison(table, console) -> None:
-    """Per paleosol, one line per fit: estimate, interval, and what is beside it."""
+def print_comparison(table, console, indent: str = "") -> None:
+    """Per paleosol, one line per fit: estimate, interval, and what is beside it (every
+    line after ``indent``)."""
     from rich.text import Text
 
     from refit.apply.compare import coverage_text
 
     for pid, grp in table.groupby("paleosol_id", sort=False):
-        console.print(Text(str(pid), style="bold"))
+        console.print(Text(f"{indent}{pid}", style="bold"))
         for r in grp.itertuples(index=False):
-            line = Text(f"  {r.fit}: ")
+            line = Text(f"{indent}  {r.fit}: ")
             if r.problem:
                 line.append(f"not evaluated ({r.problem})", style="red")
             else:

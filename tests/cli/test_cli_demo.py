@@ -43,6 +43,34 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     assert "Leaderboard: map_from_bk_depth" in text and "not for engineering" in text
 
 
+def test_demo_output_reads_cleanly(demo_run):
+    """What a first reader stumbled on: one caution, not one per step; each forward file
+    named by its folder (both files have one candidate name); every input on a line of its
+    own in "where everything went"; wrapped lines kept under their item."""
+    out, result = demo_run
+    lines = result.output.splitlines()
+    assert sum(line.startswith("Caution:") for line in lines) == 1
+    assert lines[-1].startswith("Caution: invented data")
+    forward = [line.strip() for line in lines if "linear__ols__forward__analytic.json" in line]
+    assert forward == [str(out / "forward" / f"run_{name}" / "fits" /
+                           "linear__ols__forward__analytic.json")
+                       for name in ("forward_bk_depth", "forward_cia_k")]
+    went = lines[next(i for i, s in enumerate(lines) if s.startswith("Where everything")):]
+    for label, name in (("fossils (input)", "fossils.csv"),
+                        ("age model (input)", "age_model.csv"),
+                        ("compaction constants (input)", "compaction_constants.csv")):
+        line = next(s for s in went if s.strip().startswith(label))
+        assert line.split()[-1] == str(out / name)
+    # the paths stand in one column
+    assert len({line.index(str(out)) for line in went[1:-1]}) == 1
+    # the admit's list of renamed columns wraps under its own item (indent 7 > 5)
+    first = next(i for i, s in enumerate(lines) if "renamed 22 columns" in s)
+    assert lines[first].startswith("     renamed") and lines[first + 1].startswith("       '")
+    assert "each section from the published fit" in result.output
+    shown = next(s for s in lines if "paleosols shown" in s)
+    assert shown.strip().startswith("3 of 14 paleosols shown")
+
+
 def test_demo_store_and_quarantine(demo_run):
     out, _ = demo_run
     store = open_store(out / "store")
