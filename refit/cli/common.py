@@ -473,7 +473,12 @@ def print_run(run, out, console=None, *, caution: bool = True) -> None:
         c.print(Text(f"Default: {note}.", style="cyan"))
     for warning in getattr(run, "warnings", []):
         c.print(Text(f"Warning: {warning}.", style="bold yellow"))
-    table = Table(title=f"Leaderboard: {r.function_id} ({main.name})", title_justify="left")
+    from refit.validate.candidates import response_unit
+
+    unit = response_unit(r.response)
+    units = f"; RMSEP, bias, width and score in {unit}" if unit else ""
+    table = Table(title=f"Leaderboard: {r.function_id} ({main.name}{units})",
+                  title_justify="left")
     heads = ["#", "candidate", "RMSEP", "bias", "coverage", "width", "score", "k-fold RMSEP",
              "k-fold score", "R² in", "AIC"]
     for h in heads:

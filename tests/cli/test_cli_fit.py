@@ -93,6 +93,11 @@ def test_table_recipe_writes_the_run_folder(tmp_path):
     # the printed run: data hash, leaderboard, verdict, caution
     assert sha in r.stdout and "Leaderboard: map_from_bk_depth" in r.stdout
     assert f"{board.candidate[0]} has the lowest mean interval score" in r.stdout
+    # the scores, widths and errors carry the response's unit (schemas/: map_mm is in mm)
+    assert "(group-kfold; RMSEP, bias, width and score in mm)" in " ".join(r.stdout.split())
+    top = board.iloc[0]
+    assert f"lowest mean interval score ({top.interval_score:.4g} mm)" in \
+        " ".join(r.stdout.split())
     assert "not for engineering, hazard or regulatory decisions" in r.stdout
     assert f"Run written to {out}" in r.stdout
 
