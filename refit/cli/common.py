@@ -504,8 +504,8 @@ def print_run(run, out, console=None, *, caution: bool = True) -> None:
     _print_top_equation(c, out, m.verdict.get("winner"))
     if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
-    for note in m.verdict.get("unbounded", []):
-        c.print(Text(f"Unbounded: {note}.", style="yellow"))
+    for note in unbounded_lines(m.leaderboard):
+        c.print(Text(note, style="yellow"))
     opt = m.verdict.get("optimism")
     if opt:
         ratio = opt["median_rmsep_ratio"]
@@ -519,6 +519,20 @@ def print_run(run, out, console=None, *, caution: bool = True) -> None:
     if caution:
         c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
+
+
+def unbounded_lines(board) -> list[str]:
+    """One line per reason an out-of-fold interval was unbounded, naming every candidate it
+    applies to (group-jackknife+ and group-cv+ share one reason: said once)."""
+    if "unbounded_reason" not in board:
+        return []
+    by_reason: dict[str, list[str]] = {}
+    for cand, reason in zip(board["candidate"], board["unbounded_reason"]):
+        if isinstance(reason, str) and reason:
+            by_reason.setdefault(reason, []).append(str(cand))
+    return [f"Unbounded: {', '.join(c)} {'is' if len(c) == 1 else 'are'} unbounded (infinite "
+            "width, counted as covering, ranked last among the covering candidates): "
+            f"{reason}." for reason, c in by_reason.items()]
 
 
 def _print_top_equation(c, out, winner) -> None:
