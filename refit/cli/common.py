@@ -643,7 +643,7 @@ def render_admit(result, max_rows: int | None = None) -> list[str]:
         out += [f"  {line}" for line in compact_notes(result.mappings)]
     if result.unmapped:
         out.append("Columns not mapped (kept as extra columns, unchecked):")
-        out += [f"  {u['column']!r}: {u['how']}" for u in result.unmapped]
+        out += [f"  {u['column']!r}: {_after_kept(u['how'])}" for u in result.unmapped]
     out += [f"Note: {line}." for line in result.consistency]
     out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
                f"{result.rejected} + suspect {result.suspect}.")
@@ -681,6 +681,15 @@ def render_admit(result, max_rows: int | None = None) -> list[str]:
     else:
         out.append(f"Store '{store.name}' stays at version {result.version_after}.")
     return out
+
+
+#: how each unmapped column's advice starts; the admit's heading says it once for all
+KEPT_PREFIX = "refit keeps it as an extra column, unchecked; "
+
+
+def _after_kept(how: str) -> str:
+    """An unmapped column's advice without the words the heading already says."""
+    return how[len(KEPT_PREFIX):] if how.startswith(KEPT_PREFIX) else how
 
 
 def print_comparison(table, console, indent: str = "") -> None:

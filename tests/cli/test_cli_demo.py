@@ -36,7 +36,11 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
         in text
     assert "[bk-too-shallow] bk_depth_cm = '1.524'" in text
     assert "[map-below-bk-minimum] map_mm = '5.08'" in text
-    assert "'Bk depth SD (in)': refit keeps it as an extra column" in text
+    # unmapped columns: the heading says they are kept, each line only what to do
+    assert "Columns not mapped (kept as extra columns, unchecked):" in text
+    assert "'Bk depth SD (in)': a calibration table has no SD columns" in text
+    assert "'region': rename it to a canonical column" in text
+    assert text.count("refit keeps it as an extra column") == 0
     for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
                  "7. Section", "8. Report", "Where everything went"):
         assert step in text
