@@ -371,3 +371,34 @@ def test_comparison_caption_counts_refits_apart_from_the_posterior():
     assert "reddish-purple bars are the posterior of refit's forward fits" in text
     plain = caption(table.iloc[:2], None, "comparison.csv", "map_from_bk_depth")
     assert "reddish-purple" not in plain
+
+
+def test_banner_holds_the_general_caution_and_a_fit_s_own_notes_go_to_the_flags():
+    # the demo's mixed fit carried "between-source: 1 group(s) hold a single soil; ..."
+    # glued after the research-use caution in the banner; it is a note on this fit
+    from types import SimpleNamespace
+
+    from refit.coefficients import CAUTION
+    from refit.report.context import cautions_and_flags
+
+    note = "between-source: 1 group(s) hold a single soil; they inform the between-source " \
+           "variance only"
+    domain = "Beyond bk_depth_cm 289 the equation extrapolates."
+    inp = SimpleNamespace(run={"cautions": [CAUTION]},
+                          record={"cautions": [CAUTION, domain, note]})
+    out = cautions_and_flags(inp, ["8 of 20 candidates fall short.", domain])
+    assert out["cautions"] == [CAUTION]
+    assert out["flags"] == ["8 of 20 candidates fall short.", domain,
+                            "Between-source: 1 group(s) hold a single soil; they inform the "
+                            "between-source variance only."]
+
+
+def test_residual_standard_error_with_its_unit_and_a_readable_df():
+    from refit.report.context import _unit_suffix, df_text
+
+    assert df_text(51.7385) == "51.7" and df_text(117.0) == "117" and df_text(None) == ""
+    record = {"response": {"name": "map_mm", "unit": "mm"},
+              "predictors": [{"name": "bk_depth_cm", "unit": "cm"}]}
+    assert _unit_suffix(record, "map_mm", False) == " mm"
+    assert _unit_suffix(record, "bk_depth_cm", False) == " cm"  # a forward fit's residuals
+    assert _unit_suffix(record, "ln(map_mm)", True) == ""
