@@ -271,9 +271,14 @@ def out_of_fold(observed, estimate, *, label: str, scheme: str, metrics: dict | 
         a.set_ylabel(f"observed {label}")
         a.set_title(f"Out-of-fold predictions ({scheme})")
         if metrics:
-            text = "\n".join(f"{k} {v}" for k, v in metrics.items())
+            # names left, values right-justified: lines of one length line up in a
+            # monospaced font however long each value is
+            kw = max(len(str(k).strip()) for k in metrics)
+            vw = max(len(str(v)) for v in metrics.values())
+            text = "\n".join(f"{str(k).strip():<{kw}}  {str(v):>{vw}}"
+                             for k, v in metrics.items())
             a.text(0.98, 0.03, text, transform=a.transAxes, ha="right", va="bottom",
-                   fontsize=8, family="DejaVu Sans Mono")
+                   fontsize=8, family="DejaVu Sans Mono", gid="oof-metrics")
         a.legend(loc="upper left")
     return fig
 
