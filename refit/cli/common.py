@@ -689,7 +689,7 @@ KEPT_PREFIX = "refit keeps it as an extra column, unchecked; "
 
 def _after_kept(how: str) -> str:
     """An unmapped column's advice without the words the heading already says."""
-    return how[len(KEPT_PREFIX):] if how.startswith(KEPT_PREFIX) else how
+    return how.removeprefix(KEPT_PREFIX)
 
 
 def print_comparison(table, console, indent: str = "") -> None:
@@ -698,6 +698,7 @@ def print_comparison(table, console, indent: str = "") -> None:
     from rich.text import Text
 
     from refit.apply.compare import coverage_text
+    from refit.curate.schema import unit_notation
 
     for pid, grp in table.groupby("paleosol_id", sort=False):
         console.print(Text(f"{indent}{pid}", style="bold"))
@@ -707,7 +708,7 @@ def print_comparison(table, console, indent: str = "") -> None:
                 line.append(f"not evaluated ({r.problem})", style="red")
             else:
                 line.append(f"{fmt_number(r.estimate)} [{fmt_number(r.lower)}, "
-                            f"{fmt_number(r.upper)}] {r.unit}; "
+                            f"{fmt_number(r.upper)}] {unit_notation(r.unit)}; "
                             + coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval))
                 if r.flags:
                     line.append(f"; flags: {str(r.flags).replace(';', ', ')}",

@@ -145,9 +145,10 @@ def _beside(r) -> str:
 def rows(table) -> list[list[str]]:
     """One formatted row per paleosol and fit: paleosol, fit, estimate, interval, unit,
     level, and what is beside it."""
+    from refit.curate.schema import unit_notation
     from refit.report.context import num, pct
 
-    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), r.unit,
+    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), unit_notation(r.unit),
              pct(r.level, 0) if r.level == r.level else "", _beside(r)]
             for r in table.itertuples(index=False)]
 
