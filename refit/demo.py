@@ -98,6 +98,11 @@ def run_demo(out: Path, echo: Callable[[str], None] | None = None, *,
 #: the demo's input tables, copied into the output folder beside the store and the recipe
 INPUTS = ("incoming_soils.csv", "fossils.csv", "age_model.csv", "compaction_constants.csv",
           "compaction_constants.json")
+#: how "where everything went" names each input, one line each (the JSON constants file
+#: holds the same numbers as the CSV one)
+INPUT_LABELS = {"incoming soils (input)": "incoming_soils.csv",
+                "fossils (input)": "fossils.csv", "age model (input)": "age_model.csv",
+                "compaction constants (input)": "compaction_constants.csv"}
 
 
 def _check_and_admit(out: Path, result: DemoResult, say) -> None:
@@ -110,7 +115,8 @@ def _check_and_admit(out: Path, result: DemoResult, say) -> None:
     result.outputs["calibration store"] = store
     for name in INPUTS:  # the inputs too, so every --help example runs from this folder
         shutil.copyfile(src / name, out / name)
-    result.outputs["incoming table, fossils, age model, constants"] = out / INPUTS[0]
+    for label, name in INPUT_LABELS.items():
+        result.outputs[label] = out / name
     incoming = out / "incoming_soils.csv"
     say(f"[bold]1. Check[/bold] the incoming soils: {incoming.name}")
     vocab_files = [p for p in [store / "vocabularies.json"] if p.exists()]
@@ -190,7 +196,8 @@ def _forward_fits(out: Path, result: DemoResult, say) -> None:
         run_dir = write_run(run, folder / f"run_{recipe.stem}",
                             argv=["refit", "fit", str(recipe)])
         result.forward.append(winning_fit(run_dir, run.matrix.leaderboard))
-    say(f"   {', '.join(p.name for p in result.forward)} -> {folder}")
+    for path in result.forward:  # both files are named after their candidate: say where
+        say(f"   {path}")
     result.outputs["forward fits (posterior)"] = folder
 
 
@@ -203,10 +210,11 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
     constants = out / CONSTANTS
     say(f"[bold]5. Apply[/bold] the published fit, {len(result.forward)} forward fits and "
         f"{len(files) - 1 - len(result.forward)} published equations "
-        f"to the demo fossils ({fossils.name}), depths decompacted for burial (constants: "
-        f"{constants.name}, invented for the demo), measurement and burial SDs propagated "
-        "by Monte Carlo; the posterior for MAP from the two forward files (one proxy, and "
-        "both together where a paleosol has both)")
+        f"to the demo fossils ({fossils.name})")
+    say(f"   depths decompacted for burial (constants: {constants.name}, invented for the "
+        "demo); measurement and burial SDs propagated by Monte Carlo")
+    say("   the posterior for MAP from the two forward fits, 95% interval, where a paleosol "
+        "has both proxies:")
     from refit.apply.estimates import apply_files
     from refit.apply.posterior import posterior_record
 
@@ -233,7 +241,7 @@ def _say_posterior(results, say) -> None:
     for r in both.itertuples(index=False):
         verdict = "DISAGREE" if "proxies-disagree" in str(r.flags) else "agree"
         say(f"   {r.paleosol_id}: posterior median {r.posterior_median:.0f} mm "
-            f"[{r.posterior_lower:.0f}, {r.posterior_upper:.0f}] from both proxies; "
+            f"[{r.posterior_lower:.0f}, {r.posterior_upper:.0f}]; "
             f"consistency chi2 {r.proxy_chi2:.2f}, p {r.proxy_chi2_p:.2f}: {verdict}")
 
 
@@ -260,7 +268,7 @@ def _section(out: Path, result: DemoResult, say) -> None:
     from refit.apply.section import SectionResult
     from refit.report.section_plot import write_section
 
-    say("[bold]7. Section[/bold]: the climate up each section: the published fit, the "
+    say("[bold]7. Section[/bold]: the climate up each section from the published fit, the "
         "literature depth-to-Bk and salinization equations, and the posterior of both "
         "proxies together (every fit's numbers stay in estimates.csv)")
     applied = result.applied

@@ -44,8 +44,9 @@ FONT = {"note": 8.5, "fit": 8.5, "axis": 9.0, "title": 10.0, "legend": 9.0}
 #: characters per line of the note printed beside an interval (longer notes wrap)
 NOTE_WIDTH = 56
 
-#: The figure's own palette: blue for refits, vermilion for published equations, a warm
-#: grey for fits without an interval; distinguishable under the common colour-vision
+#: The figure's own palette: blue for refits, vermilion for published equations, reddish
+#: purple for the combined posterior (as in the section figure), a warm grey for fits
+#: without an interval; distinguishable under the common colour-vision
 #: deficiencies (blue/orange contrast) and in greyscale (different lightness).
 STYLE = {"refit": "#2166ac", "published": "#d55e00", "none": "#8c8c8c",
          "estimate": "#111111", "grid": "#e6e6e6", "flagged_alpha": 0.45,
@@ -100,17 +101,25 @@ def fit_label(r) -> str:
     version ("map_from_bk_depth 1.1.0 mixed linear__mixed__inverse__analytic"), so two
     variants at one version stay apart."""
     if str(r.function_id) == "posterior":
-        used = str(getattr(r, "predictors_used", "") or "")
+        used = getattr(r, "predictors_used", "")
+        used = used if isinstance(used, str) else ""
         names = " + ".join(part.split("=")[0] for part in used.split(" + ") if part)
-        return f"posterior {names}".strip()
+        if names:
+            return f"posterior {names}"
     variant = variant_label(getattr(r, "variant", ""))
     cite = getattr(r, "citation", "")
     if isinstance(cite, str) and cite and not getattr(r, "candidate", ""):
         fid = str(r.function_id)
         what = "from " + fid.split("_from_", 1)[1] if "_from_" in fid else fid
         return f"{cite}, {what}" + (f", {variant}" if variant else "")
-    what = r.candidate if getattr(r, "candidate", "") else r.status
-    return " ".join(str(s) for s in (r.function_id, r.version, variant, what) if s).strip()
+
+    def text(value) -> str:
+        missing = value is None or (isinstance(value, float) and math.isnan(value))
+        return "" if missing else str(value).strip()
+
+    what = text(getattr(r, "candidate", "")) or text(r.status)
+    # a missing part leaves no double space
+    return " ".join(p for p in (text(r.function_id), text(r.version), variant, what) if p)
 
 
 def variant_label(value) -> str:
@@ -180,9 +189,13 @@ def figure_pngs(table: pd.DataFrame, *, title: str = "",
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     pages = [panels[i:i + MAX_PANELS] for i in range(0, len(panels), MAX_PANELS)]
-    return [figure_png(table, title=title + (f" (page {k + 1} of {len(pages)})"
-                                             if len(pages) > 1 else ""), panels=page,
-                       table_sha256=table_sha256)
+    def page_title(k: int) -> str:
+        if len(pages) == 1:
+            return title
+        return f"{title} (page {k + 1} of {len(pages)})" if title else \
+            f"page {k + 1} of {len(pages)}"
+
+    return [figure_png(table, title=page_title(k), panels=page, table_sha256=table_sha256)
             for k, page in enumerate(pages)]
 
 
@@ -193,13 +206,35 @@ def page_names(n: int) -> list[str]:
 
 def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
                table_sha256: str | None = None) -> bytes:
-    """The interval figure as PNG bytes (matplotlib, Agg backend).
+    """The interval figure as PNG bytes (matplotlib, Agg backend): :func:`comparison_figure`
+    saved, with ``table_sha256`` stored under :data:`TABLE_HASH_KEY`."""
+    import matplotlib.pyplot as plt
+
+    fig = comparison_figure(table, title=title, panels=panels)
+    buf = io.BytesIO()
+    meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
+    fig.savefig(buf, format="png", dpi=DPI, metadata=meta)
+    plt.close(fig)
+    return buf.getvalue()
+
+
+#: resolution of the figure's PNG [dots per inch]
+DPI = 130
+#: the figure's width [inch], and the narrowest and widest left margin (fractions of it)
+#: that the longest fit label is given
+WIDTH_IN, LEFT_MIN, LEFT_MAX = 11.0, 0.25, 0.40
+
+
+def comparison_figure(table: pd.DataFrame, *, title: str = "", panels=None):
+    """The interval figure as a matplotlib figure (Agg backend).
 
     One panel per paleosol (``panels`` from :func:`panel_groups`; default the first
     :data:`MAX_PANELS`, :func:`figure_pngs` draws them all), one row per fit: a bar from
     lower to upper, the estimate as a black diamond, the cross-validated coverage and
     flags printed at the right. Fits with a serious flag are drawn paler; fits without an
-    interval show the estimate only.
+    interval show the estimate only. The left margin is as wide as the longest fit label
+    (measured with the renderer, at most :data:`LEFT_MAX` of the width), and the page
+    ``title`` sits in the top margin, clear of the first panel's labels.
     """
     import matplotlib
 
@@ -210,60 +245,80 @@ def figure_png(table: pd.DataFrame, *, title: str = "", panels=None,
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
     heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
-    posterior = any(has_posterior(rows) for _, rows in panels)
-    legend_in = 0.85 if posterior else 0.55      # the posterior's entries take a 2nd line
-    handles = _legend_handles(pd.concat([rows for _, rows in panels]), posterior=posterior)
-    top, cut = handles[:5 if posterior else 3], handles[5 if posterior else 3:]
-    below = 0.4 if cut else 0.0                  # the bound's triangle under the panels
-    total = sum(heights) + legend_in - 0.55 + below
-    fig, axes = plt.subplots(len(panels), 1, figsize=(11, total), squeeze=False,
+    top_handles, notes = _legend_handles(pd.concat([rows for _, rows in panels]),
+                                         split=True)
+    below = 0.1 + 0.22 * len(notes) if notes else 0.0  # explanations under the panels
+    title_in = 0.3 if title else 0.0  # a line of its own for the page title, over the legend
+    above = title_in + 0.3 * (-(-len(top_handles) // 3) - 1)  # a 2nd legend line (posterior)
+    total = sum(heights) + below + above
+    fig, axes = plt.subplots(len(panels), 1, figsize=(WIDTH_IN, total), squeeze=False,
                              gridspec_kw={"height_ratios": heights})
     for ax, (pid, rows) in zip(axes[:, 0], panels):
         _panel(ax, rows, pid)
     if title:
-        fig.suptitle(title, x=0.01, ha="left", fontsize=11)
-    fig.legend(handles=top, loc="upper right", bbox_to_anchor=(0.985, 0.998),
-               ncol=3, frameon=False, fontsize=FONT["legend"])
-    if cut:  # what the triangle of a limit cut at a bound means, under the panels
-        fig.legend(handles=cut, loc="lower left", bbox_to_anchor=(0.01, 0.0),
+        fig.text(0.01, 1 - 0.08 / total, title.strip(), ha="left", va="top", fontsize=11)
+    fig.legend(handles=top_handles, loc="upper right",
+               bbox_to_anchor=(0.985, 1 - (title_in + 0.01) / total),
+               ncol=min(3, len(top_handles)), frameon=False, fontsize=FONT["legend"])
+    if notes:  # what paler bars and the triangle of a limit cut at a bound mean
+        fig.legend(handles=notes, loc="lower left", bbox_to_anchor=(0.01, 0.0),
                    frameon=False, fontsize=FONT["legend"])
-    fig.subplots_adjust(left=0.25, right=0.61, top=1 - legend_in / total,
-                        bottom=(0.55 + below) / total, hspace=0.5)
-    buf = io.BytesIO()
-    meta = {TABLE_HASH_KEY: table_sha256} if table_sha256 else {}
-    fig.savefig(buf, format="png", dpi=130, metadata=meta)
-    plt.close(fig)
-    return buf.getvalue()
+    fig.subplots_adjust(left=_left_margin(fig, axes[:, 0]), right=0.61,
+                        top=1 - (0.55 + above) / total, bottom=(0.55 + below) / total,
+                        hspace=0.5)
+    return fig
+
+
+def _left_margin(fig, axes) -> float:
+    """The left margin [fraction of the width] that shows the longest fit label whole."""
+    renderer = fig.canvas.get_renderer()
+    widest = max((t.get_window_extent(renderer).width for ax in axes
+                  for t in ax.get_yticklabels()), default=0.0)
+    need = (widest / fig.dpi + 0.2) / fig.get_figwidth()  # + tick, pad and a little air
+    return min(LEFT_MAX, max(LEFT_MIN, need))
 
 
 #: the legend's words for a limit cut at a physical bound (flag ``truncated-at-bound``)
 TRUNCATED_TEXT = ("limit cut at a physical bound (flag truncated-at-bound, e.g. MAP >= 0 "
                   "mm); the limit before the cut is in the table (lower/upper_untruncated)")
+#: the legend's words for a paler bar
+FLAGGED_TEXT = "paler bar: flagged, the equation does not hold there (flags at right)"
+#: the legend's words for the combined posterior's bar
+POSTERIOR_TEXT = "posterior interval (Bayesian; prior in the table)"
 
 
-def _legend_handles(rows: pd.DataFrame | None = None, *, posterior: bool = False) -> list:
-    """What the colours and the markers mean (one legend for every panel): the two
-    colours and the diamond; the posterior's entries when a row carries one; last, when
-    ``rows`` have one, the triangle of a limit cut at a physical bound."""
+def _legend_handles(rows: pd.DataFrame | None = None, *, split: bool = False):
+    """What the colours, the diamond, a paler bar and the triangle of a limit cut at a
+    physical bound mean (one legend for every panel). With ``rows``, only what those rows
+    show; ``split=True`` returns the colours and the diamond apart from the notes on
+    paler bars and cut limits."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     from refit.apply.estimates import truncated_sides
 
-    out = [Patch(color=STYLE["refit"], label="fit made with refit (CV coverage at right)"),
-           Patch(color=STYLE["published"], label="published equation (±1 SE)"),
-           Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
-                  label="estimate")]
-    if posterior:
-        out += [Patch(facecolor="white", edgecolor=STYLE["posterior"],
-                      hatch=STYLE["posterior_hatch"],
-                      label="posterior interval (Bayesian; prior in the table)"),
-                Line2D([], [], ls="none", marker="o", mfc="white",
-                       mec=STYLE["posterior"], mew=1.5, ms=6, label="posterior median")]
+    rows_ = rows if rows is not None else pd.DataFrame({"origin": ["refit", "literature"]})
+    origin = rows_["origin"] if "origin" in rows_ else pd.Series("refit", index=rows_.index)
+    kinds = {k for k, o in (("refit", "refit"), ("published", "literature"))
+             if (origin == o).any()}
+    colours = [Patch(color=STYLE[k], label=text) for k, text in (
+        ("refit", "fit made with refit (CV coverage at right)"),
+        ("published", "published equation (±1 SE)")) if k in kinds]
+    colours.append(Line2D([], [], ls="none", marker="D", color=STYLE["estimate"], ms=5,
+                          label="estimate"))
+    if rows is not None and has_posterior(rows):
+        colours += [Patch(facecolor="white", edgecolor=STYLE["posterior"],
+                          hatch=STYLE["posterior_hatch"], label=POSTERIOR_TEXT),
+                    Line2D([], [], ls="none", marker="o", mfc="white",
+                           mec=STYLE["posterior"], mew=1.5, ms=6, label="posterior median")]
+    notes = []
+    if rows is not None and rows.get("flags") is not None and rows["flags"].map(_serious).any():
+        notes.append(Patch(color=STYLE["refit"], alpha=STYLE["flagged_alpha"],
+                           label=FLAGGED_TEXT))
     if rows is not None and any(m.any() for m in truncated_sides(rows)):
-        out.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
-                          label=TRUNCATED_TEXT))
-    return out
+        notes.append(Line2D([], [], ls="none", marker="<", color=STYLE["estimate"], ms=5,
+                            label=TRUNCATED_TEXT))
+    return (colours, notes) if split else colours + notes
 
 
 def has_posterior(rows: pd.DataFrame) -> bool:

@@ -127,6 +127,7 @@ def print_results(results, console) -> None:
     from rich.text import Text
 
     from refit.apply.compare import fit_label
+    from refit.curate.schema import unit_notation
 
     table = Table(title="Estimates", title_justify="left", title_style="bold")
     for col in ("paleosol", "fit", "estimate", "interval", "level", "MC", "CV cov.",
@@ -140,7 +141,7 @@ def print_results(results, console) -> None:
             r.cv_coverage == r.cv_coverage else "-"
         mc = "yes" if str(r.propagation).startswith("monte-carlo") else ""
         note = Text(r.problem, style="red") if r.problem else Text(str(r.flags))
-        table.add_row(str(r.paleosol_id), fit, fmt_number(r.estimate),
-                      f"[{fmt_number(r.lower)}, {fmt_number(r.upper)}] {r.unit}", level, mc,
+        interval = f"[{fmt_number(r.lower)}, {fmt_number(r.upper)}] {unit_notation(r.unit)}"
+        table.add_row(str(r.paleosol_id), fit, fmt_number(r.estimate), interval, level, mc,
                       cov, note)
     console.print(table)

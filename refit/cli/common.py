@@ -491,8 +491,9 @@ def _fmt_cell(v, fmt="{:.1f}") -> str:
     return fmt.format(v)
 
 
-def print_run(run, out, console=None) -> None:
-    """Print the data, the subset, the leaderboard, the verdict and the cautions."""
+def print_run(run, out, console=None, *, caution: bool = True) -> None:
+    """Print the data, the subset, the leaderboard, the verdict and (``caution``, for a
+    caller that does not print its own) the caution."""
     from rich.table import Table
     from rich.text import Text
 
@@ -519,7 +520,12 @@ def print_run(run, out, console=None) -> None:
         c.print(Text(f"Default: {note}.", style="cyan"))
     for warning in getattr(run, "warnings", []):
         c.print(Text(f"Warning: {warning}.", style="bold yellow"))
-    table = Table(title=f"Leaderboard: {r.function_id} ({main.name})", title_justify="left")
+    from refit.validate.candidates import response_unit
+
+    unit = response_unit(r.response)
+    units = f"; RMSEP, bias, width and score in {unit}" if unit else ""
+    table = Table(title=f"Leaderboard: {r.function_id} ({main.name}{units})",
+                  title_justify="left")
     heads = ["#", "candidate", "RMSEP", "bias", "coverage", "width", "score", "k-fold RMSEP",
              "k-fold score", "R² in", "AIC"]
     for h in heads:
@@ -545,8 +551,8 @@ def print_run(run, out, console=None) -> None:
     _print_top_equation(c, out, m.verdict.get("winner"))
     if m.verdict["simpler_why"]:
         c.print(Text(f"Simpler: {m.verdict['simpler_why']}.", style="cyan"))
-    for note in m.verdict.get("unbounded", []):
-        c.print(Text(f"Unbounded: {note}.", style="yellow"))
+    for note in unbounded_lines(m.leaderboard):
+        c.print(Text(note, style="yellow"))
     opt = m.verdict.get("optimism")
     if opt:
         ratio = opt["median_rmsep_ratio"]
@@ -557,8 +563,23 @@ def print_run(run, out, console=None) -> None:
                 f"and its interval score {opt['median_score_ratio']:.2f} times random "
                 "k-fold's (median over candidates).")
     _print_skipped(c, m.skipped)
-    c.print(Text(f"Caution: {CAUTION}", style="yellow"))
+    if caution:
+        c.print(Text(f"Caution: {CAUTION}", style="yellow"))
     c.print(f"Run written to {out}")
+
+
+def unbounded_lines(board) -> list[str]:
+    """One line per reason an out-of-fold interval was unbounded, naming every candidate it
+    applies to (group-jackknife+ and group-cv+ share one reason: said once)."""
+    if "unbounded_reason" not in board:
+        return []
+    by_reason: dict[str, list[str]] = {}
+    for cand, reason in zip(board["candidate"], board["unbounded_reason"]):
+        if isinstance(reason, str) and reason:
+            by_reason.setdefault(reason, []).append(str(cand))
+    return [f"Unbounded: {', '.join(c)} {'is' if len(c) == 1 else 'are'} unbounded (infinite "
+            "width, counted as covering, ranked last among the covering candidates): "
+            f"{reason}." for reason, c in by_reason.items()]
 
 
 def _print_top_equation(c, out, winner) -> None:
@@ -669,7 +690,7 @@ def render_admit(result, max_rows: int | None = None) -> list[str]:
         out += [f"  {line}" for line in compact_notes(result.mappings)]
     if result.unmapped:
         out.append("Columns not mapped (kept as extra columns, unchecked):")
-        out += [f"  {u['column']!r}: {u['how']}" for u in result.unmapped]
+        out += [f"  {u['column']!r}: {_after_kept(u['how'])}" for u in result.unmapped]
     out += [f"Note: {line}." for line in result.consistency]
     out.append(f"Rows read {result.rows_read} = accepted {result.accepted} + rejected "
                f"{result.rejected} + suspect {result.suspect}.")
@@ -709,21 +730,32 @@ def render_admit(result, max_rows: int | None = None) -> list[str]:
     return out
 
 
-def print_comparison(table, console) -> None:
-    """Per paleosol, one line per fit: estimate, interval, and what is beside it."""
+#: how each unmapped column's advice starts; the admit's heading says it once for all
+KEPT_PREFIX = "refit keeps it as an extra column, unchecked; "
+
+
+def _after_kept(how: str) -> str:
+    """An unmapped column's advice without the words the heading already says."""
+    return how.removeprefix(KEPT_PREFIX)
+
+
+def print_comparison(table, console, indent: str = "") -> None:
+    """Per paleosol, one line per fit: estimate, interval, and what is beside it (every
+    line after ``indent``)."""
     from rich.text import Text
 
     from refit.apply.compare import coverage_text
+    from refit.curate.schema import unit_notation
 
     for pid, grp in table.groupby("paleosol_id", sort=False):
-        console.print(Text(str(pid), style="bold"))
+        console.print(Text(f"{indent}{pid}", style="bold"))
         for r in grp.itertuples(index=False):
-            line = Text(f"  {r.fit}: ")
+            line = Text(f"{indent}  {r.fit}: ")
             if r.problem:
                 line.append(f"not evaluated ({r.problem})", style="red")
             else:
                 line.append(f"{fmt_number(r.estimate)} [{fmt_number(r.lower)}, "
-                            f"{fmt_number(r.upper)}] {r.unit}; "
+                            f"{fmt_number(r.upper)}] {unit_notation(r.unit)}; "
                             + coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval))
                 if r.flags:
                     line.append(f"; flags: {str(r.flags).replace(';', ', ')}",

@@ -51,8 +51,9 @@ def demo(out_dir: str, quiet: bool) -> None:
                           progress=progress, show=None if quiet else _shower(console))
     console.print()
     console.print(f"[bold]Where everything went[/bold] ({time.perf_counter() - start:.1f} s)")
+    width = max(map(len, result.outputs), default=0)
     for label, path in result.outputs.items():
-        console.print(f"  {label:<32} {path}")
+        console.print(f"  {label:<{width}} {path}")
     console.print("Caution: invented data; estimates from transfer functions carry wide "
                   "intervals and are for research use, not for engineering, hazard or "
                   "regulatory decisions.")
@@ -64,13 +65,18 @@ def _shower(console):
     def show(step: str, result) -> None:
         if step == "admit":
             for line in render_admit(result.admit):
-                console.print(f"   {line}", markup=False)
+                for part in line.split("\n"):  # a wrapped item keeps its indent
+                    console.print(f"   {part}", markup=False)
         elif step == "fit":
-            print_run(result.run, result.run_dir, console=console)
+            # the demo ends with its own caution (invented data); said once
+            print_run(result.run, result.run_dir, console=console, caution=False)
         elif step == "compare":
             table = result.comparison
-            print_comparison(table[table["paleosol_id"].isin(SHOWN_PALEOSOLS)], console)
-            console.print(f"   ({table['paleosol_id'].nunique()} paleosols in all; "
-                          "every row is in estimates.csv and compare/comparison.csv)")
+            shown = table[table["paleosol_id"].isin(SHOWN_PALEOSOLS)]
+            console.print(f"   {shown['paleosol_id'].nunique()} of "
+                          f"{table['paleosol_id'].nunique()} paleosols shown (a typical one "
+                          "and two where equations stop holding); every row is in "
+                          "estimates.csv and compare/comparison.csv")
+            print_comparison(shown, console, indent="   ")
 
     return show

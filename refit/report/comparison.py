@@ -174,17 +174,24 @@ def rows(table) -> list[list[str]]:
     """One formatted row per paleosol and fit: paleosol, fit, estimate, interval (and its
     kind), the posterior median and interval beside it where apply produced one, unit,
     level, and what is beside it."""
+    from refit.curate.schema import unit_notation
     from refit.report.context import num, pct
 
     return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), _kind(r), _posterior(r),
-             r.unit, pct(r.level, 0) if r.level == r.level else "", _beside(r)]
+             unit_notation(r.unit), pct(r.level, 0) if r.level == r.level else "", _beside(r)]
             for r in table.itertuples(index=False)]
 
 
 def caption(table, fig: dict | None, source: str, function_id: str) -> str:
     """What the comparison figure shows, in words (and that it is for research use)."""
     fits = list(dict.fromkeys(table["fit"]))
-    n_refit = table.loc[table["origin"] == "refit", "fit"].nunique()
+    import pandas as pd
+
+    from refit.apply.posterior import COMBINED_ID
+
+    post = (table["function_id"].astype(str) == COMBINED_ID if "function_id" in table
+            else pd.Series(False, index=table.index))
+    n_refit = table.loc[(table["origin"] == "refit") & ~post, "fit"].nunique()
     text = (f"Estimates (black diamonds) and intervals (bars) of {len(fits)} fit(s) for "
             f"each of {table['paleosol_id'].nunique()} paleosol(s), from {source} "
             f"(written by refit compare): blue bars are the {n_refit} fit(s) made with refit, with "

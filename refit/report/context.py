@@ -69,10 +69,36 @@ def equation(record: dict, fit) -> dict:
              "t": num(c / s, 3) if s > 0 else ""} for t, c, s in zip(terms, b, se)]
     eq = record.get("equation") or {}
     return {"text": text, "rows": rows, "note": used["note"],
-            "residual_se": num(record.get("residual_std_error")),
-            "df": num(record.get("df_resid"), 6), "n": record.get("n"),
+            "residual_se": num(record.get("residual_std_error"))
+            + _unit_suffix(record, lhs, fit.form.log_response),
+            "df": df_text(record.get("df_resid")), "n": record.get("n"),
             "r_squared": num(record.get("r_squared"), 3),
             "smearing": num(eq.get("smearing")) if eq.get("smearing") else ""}
+
+
+def _unit_suffix(record: dict, lhs: str, log_response: bool) -> str:
+    """`` mm``: the unit of the equation's left-hand side (its residuals are in it); none
+    for a log response or a column the file gives no unit for."""
+    if log_response or lhs.startswith("ln("):
+        return ""
+    cols = [record.get("response") or {}, *(record.get("predictors") or [])]
+    unit = next((c.get("unit") for c in cols if c.get("name") == lhs), None)
+    if not unit:
+        return ""
+    from refit.curate.schema import unit_notation
+
+    return f" {unit_notation(unit)}"
+
+
+def df_text(df) -> str:
+    """Residual degrees of freedom as read: a whole number as it is, a fractional one (a
+    mixed fit's, e.g. Satterthwaite's) to one decimal."""
+    if df is None:
+        return ""
+    f = float(df)
+    if math.isnan(f):
+        return ""
+    return f"{f:.0f}" if f == round(f) else f"{f:.1f}"
 
 
 def direction_words(fit) -> str:
@@ -193,6 +219,30 @@ def recipe_path(run: dict) -> str:
     return shown_path(recorded)
 
 
+def sentence(text: str) -> str:
+    """``text`` as a sentence: capital first letter, a full stop at the end."""
+    text = str(text).strip()
+    if not text:
+        return text
+    text = text[0].upper() + text[1:]
+    return text if text.endswith((".", "!", "?")) else text + "."
+
+
+def cautions_and_flags(inp, flag_list: list[str]) -> dict:
+    """The banner's cautions and the flags list: the banner holds the general caution(s)
+    of the run (research use, wide intervals); a caution of this fit alone (its domain,
+    its interval method, a mixed fit's between-source note) goes to the flags list as a
+    sentence, once, beside the other flags."""
+    general = list(dict.fromkeys(inp.run.get("cautions") or []))
+    rec = inp.record.get("cautions") or []
+    if not general and rec:
+        general = [rec[0]]  # a run without its own: the file's first (refit's caution)
+    seen = {sentence(f) for f in flag_list}
+    extra = [sentence(c) for c in dict.fromkeys(rec)
+             if c not in general and sentence(c) not in seen]
+    return {"cautions": general, "flags": [*flag_list, *extra]}
+
+
 def why_chosen(inp) -> str:
     """Why this candidate is reported: the run's verdict, or that it was asked for."""
     verdict = inp.board_json.get("verdict") or {}
@@ -229,9 +279,7 @@ def build(inp, figures: list[dict], facts: dict, *, report_command: list[str] | 
         "domain": {k: [num(a), num(b)] for k, (a, b) in inp.fit.ranges.items()},
         "interval": rec.get("interval", {}).get("method"),
         "level": pct(rec.get("interval", {}).get("level"), 0),
-        "cv": cv_comparison(inp), "flags": flags(inp, facts),
-        "cautions": list(dict.fromkeys([*(inp.run.get("cautions") or []),
-                                        *(rec.get("cautions") or [])])),
+        "cv": cv_comparison(inp), **cautions_and_flags(inp, flags(inp, facts)),
         "commands": [shlex.join(fit_cmd)] + ([shlex.join(report_command)]
                                              if report_command else []),
         "created": inp.run.get("created"), "software": inp.run.get("software") or {},

@@ -271,9 +271,14 @@ def out_of_fold(observed, estimate, *, label: str, scheme: str, metrics: dict | 
         a.set_ylabel(f"observed {label}")
         a.set_title(f"Out-of-fold predictions ({scheme})")
         if metrics:
-            text = "\n".join(f"{k} {v}" for k, v in metrics.items())
+            # names left, values right-justified: lines of one length line up in a
+            # monospaced font however long each value is
+            kw = max(len(str(k).strip()) for k in metrics)
+            vw = max(len(str(v)) for v in metrics.values())
+            text = "\n".join(f"{str(k).strip():<{kw}}  {str(v):>{vw}}"
+                             for k, v in metrics.items())
             a.text(0.98, 0.03, text, transform=a.transAxes, ha="right", va="bottom",
-                   fontsize=8, family="DejaVu Sans Mono")
+                   fontsize=8, family="DejaVu Sans Mono", gid="oof-metrics")
         a.legend(loc="upper left")
     return fig
 
@@ -496,7 +501,10 @@ def _label_coverage(b, renderer, cov, level: float) -> None:
     below = fin & (cov < level)
     order = np.concatenate([np.flatnonzero(below), np.flatnonzero(fin & ~below)])
     stems = [(np.full(20, pos[i]), np.linspace(level, cov[i], 20)) for i in np.flatnonzero(fin)]
-    ax_ = np.concatenate([pos] + [s[0] for s in stems])
-    ay_ = np.concatenate([np.where(fin, cov, level)] + [s[1] for s in stems])
+    # the nominal line too: a label across it hides where the coverage stands against it
+    line_x = np.linspace(-0.6, cov.size - 0.4, 40 * max(cov.size, 1))
+    ax_ = np.concatenate([pos, line_x] + [s[0] for s in stems])
+    ay_ = np.concatenate([np.where(fin, cov, level), np.full(line_x.size, level)]
+                         + [s[1] for s in stems])
     place_labels(b, renderer, pos[order], cov[order], [f"{100 * c:.1f}%" for c in cov[order]],
                  avoid=(ax_, ay_), gid="coverage-label")

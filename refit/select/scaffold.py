@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import math
 import os
 import re
 from dataclasses import dataclass, field
@@ -363,14 +364,54 @@ def _validation_lines(groups: Choice, n_groups: int, resolved: dict, notes: dict
     return out
 
 
-def _interval_lines(resolved: dict, notes: dict) -> list[str]:
-    from refit.select.recipe import METHODS
+def training_groups(n_groups: int, scheme: str, folds: int) -> int:
+    """The fewest groups a fold trains on: all but one under leave-one-group-out, all but
+    the largest fold's share under group k-fold."""
+    if scheme == "leave-one-group-out":
+        return n_groups - 1
+    return n_groups - math.ceil(n_groups / max(1, min(folds, n_groups)))
 
+
+def group_methods_note(methods, n_groups: int, scheme: str, level: float) -> str | None:
+    """Why the group-level conformal methods are left out of a first recipe, or None:
+    with too few training sources their limits are infinite at ``level``
+    (:func:`refit.models.intervals.group_conformal.too_few_groups`), so they would only
+    add candidates ranked last with unbounded intervals."""
+    from refit.models.intervals.group_conformal import too_few_groups
+    from refit.select.recipe import GROUP_METHODS
+
+    group = [m for m in methods if m in GROUP_METHODS]
+    if not group or n_groups < 2:
+        return None
+    train = training_groups(n_groups, scheme, int(_recipe_default("folds")))
+    if too_few_groups(train, 1.0 - level) is None:
+        return None
+    need = math.ceil(level / (1.0 - level) - 1e-9)  # G / (G + 1) >= level
+    return (f"{' and '.join(group)} left out: with {n_groups} sources each fold trains on "
+            f"{train}, too few for a {100 * level:g}% group-level interval (it needs at "
+            f"least {need}; the limits would be infinite). Add them with more sources or "
+            "a lower level")
+
+
+def _scheme(groups: Choice, n_groups: int, resolved: dict) -> str:
+    """The scheme :func:`_validation_lines` writes."""
+    if groups.value is not None and n_groups <= LOGO_MAX_GROUPS:
+        return "leave-one-group-out"
+    return resolved["scheme"]
+
+
+def _interval_lines(resolved: dict, notes: dict, left_out: str | None = None) -> list[str]:
+    from refit.select.recipe import GROUP_METHODS, METHODS
+
+    methods = resolved["methods"]
+    if left_out:
+        methods = [m for m in methods if m not in GROUP_METHODS]
     return ["[intervals]",
             f"level = {_recipe_default('level')}",
             *_wrap(f"methods: {', '.join(METHODS)}"
                    + (f"; {notes['methods']}" if notes.get("methods") else "")),
-            f"methods = {_list(resolved['methods'])}"]
+            *(_wrap(left_out) if left_out else []),
+            f"methods = {_list(methods)}"]
 
 
 def _header(sv: Survey, pick: dict) -> list[str]:
@@ -427,7 +468,9 @@ def render(sv: Survey, pick: dict, recipe_path) -> str:
              + _subset_lines(usable) + _function_lines(pick)
              + _candidate_lines(resolved, notes)
              + _validation_lines(groups, n_groups, resolved, notes)
-             + _interval_lines(resolved, notes))
+             + _interval_lines(resolved, notes, group_methods_note(
+                 resolved["methods"], n_groups, _scheme(groups, n_groups, resolved),
+                 float(_recipe_default("level")))))
     text = "\n".join(lines) + "\n"
     _self_check(text, recipe_path)
     return text

@@ -408,13 +408,23 @@ def run_matrix(frame, recipe: Recipe, *, n_jobs: int = 1, progress=None) -> Matr
         rows.append(_row(spec, res["main"], res["kfold"], insample))
         preds += [_oof(r, spec) for r in res.values() if r is not None]
     board, tol = rank_candidates(pd.DataFrame(rows), recipe.level, len(frame))
-    verdict = explain(board, recipe.level, tol, main.name)
+    verdict = explain(board, recipe.level, tol, main.name, unit=response_unit(recipe.response))
     verdict["optimism"] = optimism(board)
     predictions = pd.concat(preds, ignore_index=True) if preds else pd.DataFrame()
     times["total"] = round(time.perf_counter() - t0, 4)
     details = {k: None if v is None else dict(v.details) for k, v in splits.items()}
     return MatrixResult(valid, skipped, board, predictions, fits, cvs, verdict, schemes,
                         details, tol, len(frame), times)
+
+
+def response_unit(response: str) -> str:
+    """The unit of a canonical response column as printed (``mm``, ``°C``); "" for a
+    column the schema does not know or an index without a unit."""
+    from refit.coefficients.build import column_units
+    from refit.curate.schema import unit_notation
+
+    unit = column_units().get(response)
+    return unit_notation(unit) if unit else ""
 
 
 # ----------------------------------------------------------------------------- a recipe

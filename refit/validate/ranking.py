@@ -69,8 +69,12 @@ def _pct(x: float) -> str:
     return f"{100 * x:.1f}%"
 
 
-def explain(board, level: float, tol: float, scheme: str) -> dict:
-    """Why the top candidate wins, and a simpler one that is nearly as good (if any)."""
+def explain(board, level: float, tol: float, scheme: str, unit: str = "") -> dict:
+    """Why the top candidate wins, and a simpler one that is nearly as good (if any).
+
+    ``unit`` is the response's unit as printed (e.g. ``mm``): the score, the width and the
+    RMSEP are in it."""
+    u = f" {unit}" if unit else ""
     rule = (f"mean interval score under {scheme} (lower is better) among candidates whose "
             f"out-of-fold coverage is not shown to fall short of the nominal {_pct(level)} "
             f"(at least {_pct(level - tol)}: the one-sided 95% exact binomial bound, "
@@ -83,15 +87,16 @@ def explain(board, level: float, tol: float, scheme: str) -> dict:
     n_ok = int(board["coverage_ok"].sum())
     if top["coverage_ok"]:
         why = (f"{top['candidate']} has the lowest mean interval score "
-               f"({top['interval_score']:.4g}) under {scheme} of the {n_ok} candidate(s) "
-               f"whose coverage is not shown to fall short of {_pct(level)} (its coverage "
-               f"{_pct(top['coverage'])}, mean width {top['mean_width']:.4g}, RMSEP "
-               f"{top['rmsep']:.4g})")
+               f"({top['interval_score']:.4g}{u}) under {scheme} of the {n_ok} "
+               f"candidate(s) whose coverage is not shown to fall short of {_pct(level)} "
+               f"(its coverage {_pct(top['coverage'])}, mean width {top['mean_width']:.4g}{u}, "
+               f"RMSEP {top['rmsep']:.4g}{u})")
     else:
         why = (f"every candidate's out-of-fold coverage falls short of {_pct(level)} "
                f"(below {_pct(level - tol)}); "
                f"{top['candidate']} has the lowest mean interval score "
-               f"({top['interval_score']:.4g}) but its coverage is {_pct(top['coverage'])}: "
+               f"({top['interval_score']:.4g}{u}) but its coverage is "
+               f"{_pct(top['coverage'])}: "
                "treat every interval here as unreliable")
     unbounded = unbounded_notes(board)
     if _reason(top):

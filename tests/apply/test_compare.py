@@ -87,3 +87,82 @@ def test_cia_k_from_oxides_on_the_demo():
 
     assert table["estimate"][0] == pytest.approx(221.12 * math.exp(0.0197 * x), rel=1e-12)
     assert isinstance(table, pd.DataFrame)
+
+
+def _rows(fits, origins, function_ids, flags=None, pid="P1"):
+    """A comparison table of one paleosol: one row per fit, invented numbers."""
+    from refit.apply.compare import TABLE_COLUMNS
+
+    n = len(fits)
+    t = pd.DataFrame({"paleosol_id": [pid] * n, "fit": fits, "origin": origins,
+                      "function_id": function_ids, "response": "map_mm", "unit": "mm",
+                      "estimate": np.linspace(500.0, 700.0, n), "lower": 400.0,
+                      "upper": 800.0, "level": 0.95, "interval": "analytic",
+                      "cv_coverage": np.nan, "cv_scheme": "", "problem": "",
+                      "flags": flags or [""] * n})
+    return t.reindex(columns=TABLE_COLUMNS).fillna({"problem": "", "flags": ""})
+
+
+def test_fit_label_of_the_combined_posterior_has_no_double_space():
+    from collections import namedtuple
+
+    from refit.apply.compare import fit_label
+
+    Row = namedtuple("Row", "citation candidate function_id version status")
+    assert fit_label(Row("", "", "posterior", "", "combined")) == "posterior combined"
+    # a candidate read back from a CSV as NaN falls back to the status, too
+    assert fit_label(Row(np.nan, np.nan, "posterior", np.nan, "combined")) == \
+        "posterior combined"
+    assert fit_label(Row("", "linear__ols__inverse__analytic", "map_from_bk_depth", "1.0.0",
+                         "published")) == \
+        "map_from_bk_depth 1.0.0 linear__ols__inverse__analytic"
+
+
+def test_the_combined_posterior_is_its_own_kind_in_the_table_and_the_legend():
+    from refit.apply.compare import POSTERIOR_TEXT, _legend_handles, comparison_table
+
+    results = pd.DataFrame({
+        "paleosol_id": ["P1", "P1"], "function_id": ["map_from_bk_depth", "posterior"],
+        "version": ["1.0.0", ""], "status": ["published", "combined"],
+        "candidate": ["linear__ols__forward__analytic", ""], "citation": ["", ""],
+        "estimate": [600.0, 650.0], "lower": [400.0, 500.0], "upper": [800.0, 790.0]})
+    table = comparison_table(results)
+    assert list(table["origin"]) == ["refit", "posterior"]
+    assert table["fit"].iloc[1] == "posterior combined"
+    labels = [h.get_label() for h in _legend_handles(table)]
+    # what the legend names is what is drawn: no published equation here
+    assert labels == ["fit made with refit (CV coverage at right)", "estimate",
+                      POSTERIOR_TEXT, "posterior median"]
+
+
+def test_paler_bars_are_explained_only_when_drawn():
+    from refit.apply.compare import FLAGGED_TEXT, _legend_handles
+
+    plain = _rows(["Retallack 1994, from bk_depth"], ["literature"], ["map_from_bk_depth"])
+    assert [h.get_label() for h in _legend_handles(plain)] == [
+        "published equation (±1 SE)", "estimate"]
+    flagged = _rows(["Retallack 1994, from bk_depth"], ["literature"], ["map_from_bk_depth"],
+                    flags=["outside-calibration-range"])
+    assert FLAGGED_TEXT in [h.get_label() for h in _legend_handles(flagged)]
+
+
+def test_long_fit_labels_are_shown_whole_and_the_page_title_clears_them():
+    # the longest label a run candidate gets: function id, '0.0.0-candidate' and the
+    # candidate name; the figure is drawn and each text's box measured by the renderer
+    import matplotlib.pyplot as plt
+
+    from refit.apply.compare import comparison_figure
+
+    long = "map_from_bk_depth 0.0.0-candidate quadratic__huber__inverse__split-conformal"
+    table = pd.concat([_rows([long, "Retallack 1994, from bk_depth"], ["refit", "literature"],
+                             ["map_from_bk_depth"] * 2, pid=p) for p in ("P1", "P2")])
+    fig = comparison_figure(table, title="page 1 of 2")
+    renderer = fig.canvas.get_renderer()
+    labels = [t.get_window_extent(renderer) for ax in fig.axes for t in ax.get_yticklabels()]
+    assert len(labels) == 4 and min(b.x0 for b in labels) >= 0.0  # none cut at the left edge
+    title = next(t for t in fig.texts if t.get_text() == "page 1 of 2")
+    box = title.get_window_extent(renderer)
+    others = labels + [lg.get_window_extent(renderer) for lg in fig.legends]
+    assert not any(box.overlaps(b) for b in others)
+    assert box.y1 <= fig.bbox.y1 and box.x0 >= 0.0
+    plt.close(fig)

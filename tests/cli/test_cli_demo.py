@@ -36,11 +36,43 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
         in text
     assert "[bk-too-shallow] bk_depth_cm = '1.524'" in text
     assert "[map-below-bk-minimum] map_mm = '5.08'" in text
-    assert "'Bk depth SD (in)': refit keeps it as an extra column" in text
+    # unmapped columns: the heading says they are kept, each line only what to do
+    assert "Columns not mapped (kept as extra columns, unchecked):" in text
+    assert "'Bk depth SD (in)': a calibration table has no SD columns" in text
+    assert "'region': rename it to a canonical column" in text
+    assert text.count("refit keeps it as an extra column") == 0
     for step in ("1. Check", "2. Admit", "3. Fit", "4. Publish", "5. Apply", "6. Compare",
                  "7. Section", "8. Report", "Where everything went"):
         assert step in text
     assert "Leaderboard: map_from_bk_depth" in text and "not for engineering" in text
+
+
+def test_demo_output_reads_cleanly(demo_run):
+    """What a first reader stumbled on: one caution, not one per step; each forward file
+    named by its folder (both files have one candidate name); every input on a line of its
+    own in "where everything went"; wrapped lines kept under their item."""
+    out, result = demo_run
+    lines = result.output.splitlines()
+    assert sum(line.startswith("Caution:") for line in lines) == 1
+    assert lines[-1].startswith("Caution: invented data")
+    forward = [line.strip() for line in lines if "linear__ols__forward__analytic.json" in line]
+    assert forward == [str(out / "forward" / f"run_{name}" / "fits" /
+                           "linear__ols__forward__analytic.json")
+                       for name in ("forward_bk_depth", "forward_cia_k")]
+    went = lines[next(i for i, s in enumerate(lines) if s.startswith("Where everything")):]
+    for label, name in (("fossils (input)", "fossils.csv"),
+                        ("age model (input)", "age_model.csv"),
+                        ("compaction constants (input)", "compaction_constants.csv")):
+        line = next(s for s in went if s.strip().startswith(label))
+        assert line.split()[-1] == str(out / name)
+    # the paths stand in one column
+    assert len({line.index(str(out)) for line in went[1:-1]}) == 1
+    # the admit's list of renamed columns wraps under its own item (indent 7 > 5)
+    first = next(i for i, s in enumerate(lines) if "renamed 22 columns" in s)
+    assert lines[first].startswith("     renamed") and lines[first + 1].startswith("       '")
+    assert "each section from the published fit" in result.output
+    shown = next(s for s in lines if "paleosols shown" in s)
+    assert shown.strip().startswith("3 of 14 paleosols shown")
 
 
 def test_demo_store_and_quarantine(demo_run):

@@ -93,6 +93,11 @@ def test_table_recipe_writes_the_run_folder(tmp_path):
     # the printed run: data hash, leaderboard, verdict, caution
     assert sha in r.stdout and "Leaderboard: map_from_bk_depth" in r.stdout
     assert f"{board.candidate[0]} has the lowest mean interval score" in r.stdout
+    # the scores, widths and errors carry the response's unit (schemas/: map_mm is in mm)
+    assert "(group-kfold; RMSEP, bias, width and score in mm)" in " ".join(r.stdout.split())
+    top = board.iloc[0]
+    assert f"lowest mean interval score ({top.interval_score:.4g} mm)" in \
+        " ".join(r.stdout.split())
     assert "not for engineering, hazard or regulatory decisions" in r.stdout
     assert f"Run written to {out}" in r.stdout
 
@@ -284,8 +289,13 @@ def test_grouped_defaults_and_unbounded_intervals_are_printed(tmp_path):
     assert r.exit_code == 0, r.output
     assert "Default: scheme defaults to 'group-kfold'" in r.stdout
     assert "Default: estimators default to 'ols' and 'mixed'" in r.stdout
-    assert "Unbounded: linear__ols__inverse__group-jackknife+ is unbounded" in r.stdout
-    assert "4 groups are too few for a 90% group-level interval" in r.stdout
+    # both group-level methods are unbounded for one reason: one line names both
+    unbounded = [line for line in r.stdout.splitlines() if line.startswith("Unbounded:")]
+    assert len(unbounded) == 1
+    assert "linear__ols__inverse__group-cv+" in unbounded[0]
+    assert "linear__ols__inverse__group-jackknife+" in unbounded[0]
+    assert " are unbounded (infinite width" in unbounded[0]
+    assert r.stdout.count("4 groups are too few for a 90% group-level interval") == 1
     board = pd.read_csv(out / "leaderboard.csv")
     assert {"linear__mixed__inverse__analytic", "linear__ols__inverse__group-cv+"} <= set(
         board["candidate"])

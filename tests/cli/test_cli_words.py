@@ -72,7 +72,7 @@ def _fake_run(coverage_ok: list[bool]):
     return SimpleNamespace(
         data={"kind": "table", "name": "t.csv", "path": "t.csv", "sha256": "0"},
         subset=SimpleNamespace(n_start=n, steps=[], notes=[]), matrix=matrix,
-        recipe=SimpleNamespace(level=0.95, function_id="f"))
+        recipe=SimpleNamespace(level=0.95, function_id="f", response="map_mm"))
 
 
 @pytest.mark.parametrize("short_at, footnote", [(None, False), (2, True), (22, False)])
@@ -195,3 +195,20 @@ def test_the_report_explains_grey_rows_only_when_there_are_some():
     note = template.split("{% if leaderboard.any_short %}")[1].split("{% endif %}")[0]
     assert "shown to fall short of the nominal level" in note
     assert "outside the tolerance" not in template
+
+
+def test_temperatures_are_printed_in_degrees_celsius_not_the_unit_code(tmp_path):
+    # a MAT equation's file records the unit code "degC"; people read "°C" (the schema's
+    # notation, schemas/calibration.table.json x-refit-notation)
+    sal = PUBLISHED / "mat_from_salinization.sheldon2002.json"
+    r = _run("compare", sal, "--fossils", "calib_demo/fossils.csv", "--paleosol", "MB-P01",
+             "--out", tmp_path / "c")
+    assert r.exit_code == 0, r.output
+    line = next(s for s in r.output.splitlines() if "from salinization" in s)
+    assert "] °C;" in line and "degC" not in line
+    r = _run("apply", sal, "--fossils", "calib_demo/fossils.csv")
+    assert r.exit_code == 0, r.output
+    assert "°C" in r.output and "degC" not in r.output
+    from refit.report.comparison import read_comparison, rows
+
+    assert {row[6] for row in rows(read_comparison(tmp_path / "c"))} == {"°C"}   # unit column

@@ -40,6 +40,12 @@ def test_the_guide_links_resolve():
         assert (GUIDE / name).is_file() or name.startswith(("my_estimates", "my_leaderboard")), name
 
 
+def read_recipe_file(path):
+    from refit.select.recipe import read_recipe
+
+    return read_recipe(path)
+
+
 def test_every_guide_command_runs_in_order(tmp_path, monkeypatch):
     import statsmodels.api as sm
 
@@ -74,6 +80,21 @@ def test_every_guide_command_runs_in_order(tmp_path, monkeypatch):
     assert len(est) == 3 and est["estimate"].notna().all()
     assert not est["flags"].fillna("").str.contains("not-decompacted").any()
     assert (work / "my_compare" / "comparison.png").is_file()
+    # step 8: the section, one row per paleosol and fit, against the table's levels
+    section = pd.read_csv(work / "my_section" / "section.csv")
+    fossils = pd.read_csv(work / "my_fossils.csv")
+    assert len(section) == 2 * len(fossils) == 6
+    assert sorted(set(section["level_m"])) == sorted(fossils["level_m"])
+    assert (work / "my_section" / "section-invented-creek.png").is_file()
+    # step 3: the edits the page lists turn the draft into my_recipe.toml
+    text = (GUIDE / "README.md").read_text(encoding="utf-8")
+    mine = read_recipe_file(work / "my_recipe.toml")
+    for key in ("forms", "estimators", "directions", "methods"):
+        assert f"`{key} = {json.dumps(list(getattr(mine, key)))}`" in " ".join(text.split()), key
+    assert f"`level = {mine.level:g}`" in text and f"`seed = {mine.seed}`" in text
+    recipe_text = (work / "my_recipe.toml").read_text(encoding="utf-8")
+    for line in ('parent_material = "loess"', 'vegetation = ["grassland", "savanna"]'):
+        assert line in recipe_text and f"`{line}`" in " ".join(text.split())
     assert (work / "my_report.html").read_text(encoding="utf-8").count("map_mm =") >= 1
     # the draft `refit init` wrote loads, with the choices the guide's text names
     from refit.select.recipe import read_recipe

@@ -263,6 +263,13 @@ def test_out_of_fold_sites_and_coverage_figures():
     fig = fg.out_of_fold(obs, est, label="map_mm [mm]", scheme="group-kfold",
                          metrics={"RMSEP": "40 mm"})
     np.testing.assert_allclose(line(fig, "oof-points").get_xdata(), est)
+    # the metrics block: one length per line, so the monospaced values line up
+    fig2 = fg.out_of_fold(obs, est, label="map_mm [mm]", scheme="group-kfold",
+                          metrics={"RMSEP   ": "113.8 mm", "bias    ": "-21.8 mm",
+                                   "coverage": "92.9%"})
+    text = next(t for t in fig2.axes[0].texts if t.get_gid() == "oof-metrics").get_text()
+    assert text.splitlines() == ["RMSEP     113.8 mm", "bias      -21.8 mm",
+                                 "coverage     92.9%"]
     np.testing.assert_allclose(line(fig, "oof-points").get_ydata(), obs)
     one = line(fig, "one-to-one")
     np.testing.assert_allclose(one.get_xdata(), one.get_ydata())

@@ -393,3 +393,52 @@ def test_comparison_section_shows_the_posterior_beside_the_interval(tmp_path):
     old = section(folder, "f")
     assert old["posterior"] is False and old["rows"][0][5] == ""
     assert "Green hatched" not in old["caption"]
+
+
+def test_comparison_caption_counts_refits_apart_from_the_posterior():
+    # the posterior row is refit's own but not a fit with a cross-validated coverage: the
+    # caption names its colour and does not count it among the blue bars
+    from refit.report.comparison import caption
+
+    table = pd.DataFrame({"paleosol_id": ["P1"] * 3,
+                          "fit": ["map_from_bk_depth 1.0.0 linear__ols__inverse__analytic",
+                                  "Retallack 1994, from bk_depth", "posterior combined"],
+                          "origin": ["refit", "literature", "posterior"],
+                          "function_id": ["map_from_bk_depth", "map_from_bk_depth",
+                                          "posterior"]})
+    text = caption(table, None, "comparison.csv", "map_from_bk_depth")
+    assert "blue bars are the 1 fit(s) made with refit" in text
+    assert "Green hatched bars with an open circle are the posterior" in text
+    plain = caption(table.iloc[:2], None, "comparison.csv", "map_from_bk_depth")
+    assert "Green hatched" not in plain
+
+
+def test_banner_holds_the_general_caution_and_a_fit_s_own_notes_go_to_the_flags():
+    # the demo's mixed fit carried "between-source: 1 group(s) hold a single soil; ..."
+    # glued after the research-use caution in the banner; it is a note on this fit
+    from types import SimpleNamespace
+
+    from refit.coefficients import CAUTION
+    from refit.report.context import cautions_and_flags
+
+    note = "between-source: 1 group(s) hold a single soil; they inform the between-source " \
+           "variance only"
+    domain = "Beyond bk_depth_cm 289 the equation extrapolates."
+    inp = SimpleNamespace(run={"cautions": [CAUTION]},
+                          record={"cautions": [CAUTION, domain, note]})
+    out = cautions_and_flags(inp, ["8 of 20 candidates fall short.", domain])
+    assert out["cautions"] == [CAUTION]
+    assert out["flags"] == ["8 of 20 candidates fall short.", domain,
+                            "Between-source: 1 group(s) hold a single soil; they inform the "
+                            "between-source variance only."]
+
+
+def test_residual_standard_error_with_its_unit_and_a_readable_df():
+    from refit.report.context import _unit_suffix, df_text
+
+    assert df_text(51.7385) == "51.7" and df_text(117.0) == "117" and df_text(None) == ""
+    record = {"response": {"name": "map_mm", "unit": "mm"},
+              "predictors": [{"name": "bk_depth_cm", "unit": "cm"}]}
+    assert _unit_suffix(record, "map_mm", False) == " mm"
+    assert _unit_suffix(record, "bk_depth_cm", False) == " cm"  # a forward fit's residuals
+    assert _unit_suffix(record, "ln(map_mm)", True) == ""

@@ -333,3 +333,23 @@ def test_a_mixed_fit_on_the_boundary_says_it_fell_back(inp):
     assert (ri["between_sd"], ri["icc"]) == (0.0, 0.0)
     assert got["spread"].startswith("No between-source variance detected: the chosen fit")
     assert "fell back to pooled least squares" in got["spread"]
+
+
+def test_coverage_labels_keep_off_the_nominal_line():
+    # sources just under nominal (94% and 93.5% against 95%) had their labels drawn across the
+    # dashed nominal line; each label's box now stays clear of it (invented numbers)
+    from refit.report import figures as fg
+
+    names = [f"S{i}" for i in range(9)]
+    cov = np.array([0.94, 0.833, 0.769, 1.0, 1.0, 1.0, 1.0, 1.0, 0.935])
+    resid = [np.linspace(-50, 50, 10) for _ in names]
+    fig = fg.by_source(names, resid, [10] * 9, cov, level=0.95, y_label="MAP residual [mm]",
+                       column="source", scheme="group-kfold")
+    ax = fig.axes[1]
+    renderer = fig.canvas.get_renderer()
+    y_line = ax.transData.transform((0.0, 0.95))[1]
+    labels = [t for t in ax.texts if t.get_gid() == "coverage-label"]
+    assert len(labels) == 9
+    for t in labels:
+        box = t.get_window_extent(renderer)
+        assert not box.y0 < y_line < box.y1, t.get_text()

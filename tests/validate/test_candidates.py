@@ -135,6 +135,10 @@ def test_ranking_rule_on_a_constructed_example():
     v = explain(board, 0.95, tol, "group-kfold")
     assert v["winner"] == "B" and v["simpler"] == "C"
     assert "lowest mean interval score (20)" in v["why"] and "5.0%" in v["simpler_why"]
+    # with the response's unit, every number of the verdict carries it
+    with_unit = explain(board, 0.95, tol, "group-kfold", unit="mm")["why"]
+    assert "lowest mean interval score (20 mm)" in with_unit
+    assert "mean width 15 mm, RMSEP 5 mm" in with_unit
 
 
 def test_ties_go_to_fewer_coefficients_and_no_simpler_when_far():
