@@ -244,7 +244,7 @@ def comparison_figure(table: pd.DataFrame, *, title: str = "", panels=None):
     panels = panel_groups(table)[:MAX_PANELS] if panels is None else panels
     if not panels:
         raise UsageError("nothing to draw: no paleosol has an estimate")
-    heights = [max(1.2, 0.42 * len(rows) + 0.9) for _, rows in panels]
+    heights = [max(1.2, ROW_IN * len(rows) * row_pitch(rows) + 0.9) for _, rows in panels]
     top_handles, notes = _legend_handles(pd.concat([rows for _, rows in panels]),
                                          split=True)
     below = 0.1 + 0.22 * len(notes) if notes else 0.0  # explanations under the panels
@@ -333,6 +333,8 @@ def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
     """One panel per paleosol and response: fits of different quantities (MAP in mm, MAT in
     degC) never share an axis. A panel where no fit gave an estimate is left out (the table
     says why each was not evaluated); titles name the quantity when a paleosol has several."""
+    from refit.curate.schema import notation
+
     out = []
     for pid in dict.fromkeys(table["paleosol_id"]):
         rows = table[table["paleosol_id"] == pid]
@@ -340,7 +342,8 @@ def panel_groups(table: pd.DataFrame) -> list[tuple[str, pd.DataFrame]]:
                                                  dropna=False)
                   if np.isfinite(grp["estimate"].astype(float)).any()]
         for grp in groups:
-            title = str(pid) if len(groups) == 1 else f"{pid}: {grp['response'].iloc[0]}"
+            title = str(pid) if len(groups) == 1 else \
+                f"{pid}: {notation(str(grp['response'].iloc[0]), str(grp['unit'].iloc[0]))}"
             out.append((title, grp))
     return out
 
@@ -355,11 +358,40 @@ def _serious(flags) -> bool:
     return any(f in SERIOUS_FLAGS for f in str(flags or "").split(";"))
 
 
+def _note(r) -> str:
+    """What is printed at the right of a row: coverage (or why none), the posterior
+    beside a forward file's interval, flags, or why the row was not evaluated; wrapped."""
+    post = _posterior_of(r)
+    note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
+    if r.origin == "posterior":
+        note = "posterior (Bayesian), proxies multiplied"
+    elif post is not None:
+        note += (f"\nposterior {_fmt(post[0])} [{_fmt(post[1])}, {_fmt(post[2])}] "
+                 "(hatched)")
+    if r.flags:
+        note += "\nflags: " + str(r.flags).replace(";", ", ")
+    if r.problem:
+        note = "not evaluated: " + str(r.problem)[:90]
+    return "\n".join(textwrap.fill(part, NOTE_WIDTH) for part in note.split("\n"))
+
+
+#: height of one row of a panel [inch], and of one line of a row's note [row units]
+ROW_IN, NOTE_LINE = 0.42, 0.45
+
+
+def row_pitch(rows: pd.DataFrame) -> float:
+    """Distance between rows of a panel [row units]: one, or more where a note has so many
+    lines that it would reach the next row's."""
+    lines = max((_note(r).count("\n") + 1 for r in rows.itertuples(index=False)),
+                default=1)
+    return max(1.0, NOTE_LINE * lines + 0.15)
+
+
 def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
     from refit.apply.estimates import truncated_sides
 
     rows = rows.reset_index(drop=True)
-    y = np.arange(len(rows))[::-1]
+    y = np.arange(len(rows))[::-1] * row_pitch(rows)
     cols = ["lower", "upper", "estimate"] + [c for c in POSTERIOR_COLUMNS[:3] if c in rows]
     finite = pd.concat([pd.to_numeric(rows[c], errors="coerce") for c in cols]).astype(float)
     finite = finite[np.isfinite(finite)]
@@ -390,18 +422,7 @@ def _panel(ax, rows: pd.DataFrame, pid: str) -> None:
         post = _posterior_of(r)
         if post is not None and r.origin != "posterior":   # beside a file's own interval
             _posterior_bar(ax, yi - 0.36, post[1], post[0], post[2], 0.22)
-        note = coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval)
-        if r.origin == "posterior":
-            note = "posterior (Bayesian), proxies multiplied"
-        elif post is not None:
-            note += (f"\nposterior {_fmt(post[0])} [{_fmt(post[1])}, {_fmt(post[2])}] "
-                     "(hatched)")
-        if r.flags:
-            note += "\nflags: " + str(r.flags).replace(";", ", ")
-        if r.problem:
-            note = "not evaluated: " + str(r.problem)[:90]
-        note = "\n".join(textwrap.fill(part, NOTE_WIDTH) for part in note.split("\n"))
-        ax.annotate(note, xy=(1.01, yi), xycoords=("axes fraction", "data"),
+        ax.annotate(_note(r), xy=(1.01, yi), xycoords=("axes fraction", "data"),
                     va="center", fontsize=FONT["note"], color="#333333",
                     annotation_clip=False)
     ax.set_yticks(y, [str(f).replace(", ", "\n", 1) if ", " in str(f)

@@ -48,7 +48,7 @@ def test_quantities_never_share_an_axis():
     panels = panel_groups(table)
     # Q's MAT panel has no estimate at all, so it is left out and Q keeps a plain title
     assert [(title, list(rows["unit"])) for title, rows in panels] == [
-        ("P: map_mm", ["mm", "mm"]), ("P: mat_c", ["degC"]), ("Q", ["mm"])]
+        ("P: MAP [mm]", ["mm", "mm"]), ("P: MAT [°C]", ["degC"]), ("Q", ["mm"])]
 
 
 def test_figure_is_a_png_with_one_panel_per_paleosol(tmp_path):
@@ -165,4 +165,33 @@ def test_long_fit_labels_are_shown_whole_and_the_page_title_clears_them():
     others = labels + [lg.get_window_extent(renderer) for lg in fig.legends]
     assert not any(box.overlaps(b) for b in others)
     assert box.y1 <= fig.bbox.y1 and box.x0 >= 0.0
+    plt.close(fig)
+
+
+def test_a_row_s_note_never_reaches_the_next_row():
+    # found by looking at the demo's figure: three-line notes (coverage, posterior, flags)
+    # ran into the next row's note; rows are spaced by their longest note, measured here
+    # with matplotlib's renderer on the figure as drawn
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from refit.apply.compare import _panel
+
+    rows = _rows(["a", "b", "c"], ["refit"] * 3, ["map_from_bk_depth"] * 3,
+                 flags=["outside-calibration-range;setting-not-recorded;two-rays"] * 3)
+    rows["posterior_median"] = [500.0, 510.0, 520.0]
+    rows["posterior_lower"] = [400.0, 410.0, 420.0]
+    rows["posterior_upper"] = [600.0, 610.0, 620.0]
+    from refit.apply.compare import ROW_IN, row_pitch
+
+    fig, ax = plt.subplots(figsize=(11, ROW_IN * 3 * row_pitch(rows) + 0.9))
+    _panel(ax, rows, "P")
+    fig.subplots_adjust(left=0.25, right=0.61)
+    renderer = fig.canvas.get_renderer()
+    boxes = sorted((t.get_window_extent(renderer) for t in ax.texts), key=lambda b: b.y0)
+    assert len(boxes) == 3
+    for lower, upper in zip(boxes, boxes[1:]):
+        assert lower.y1 <= upper.y0, (lower, upper)
     plt.close(fig)
