@@ -227,3 +227,27 @@ def cli(*args) -> tuple[int, str]:
 
     result = CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
     return result.exit_code, result.output
+
+
+def forward_files(tmp_path) -> list[str]:
+    """Two forward fits (depth and thickness of the Bk horizon on MAP) from a seeded
+    simulation (a test input, not demo data), written as coefficient files."""
+    import numpy as np
+    import pandas as pd
+
+    from refit.coefficients import fit_record, write_record
+    from refit.models.fitting import fit
+
+    rng = np.random.default_rng(5)
+    x = rng.uniform(200, 1200, 60)
+    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 10 + 0.1 * x + rng.normal(0, 8, 60),
+                      "bk_thickness_cm": 20 + 0.05 * x + rng.normal(0, 6, 60)})
+    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
+            "recipe": None, "recipe_sha256": None}
+    files = []
+    for p in ("bk_depth_cm", "bk_thickness_cm"):
+        rec = fit_record(fit(t, "map_mm", [p], direction="forward"),
+                         function_id=f"map_from_{p}", cv=None, level=0.95,
+                         interval_method="analytic", provenance=prov)
+        files.append(str(write_record(rec, tmp_path / f"{p}.json")))
+    return files

@@ -3,6 +3,8 @@ what the terminal says. Reference for the age check: numpy.interp."""
 
 from __future__ import annotations
 
+from _harness import forward_files
+
 import numpy as np
 import pandas as pd
 from click.testing import CliRunner
@@ -73,32 +75,11 @@ def test_bad_age_models_and_options_give_one_line_errors(tmp_path):
     assert not (tmp_path / "d").exists()
 
 
-def _forward_files(tmp_path):
-    """Two forward fits (depth and thickness of the Bk horizon on MAP) from a seeded
-    simulation (a test input, not demo data), as coefficient files."""
-    from refit.coefficients import fit_record, write_record
-    from refit.models.fitting import fit
-
-    rng = np.random.default_rng(5)
-    x = rng.uniform(200, 1200, 60)
-    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 10 + 0.1 * x + rng.normal(0, 8, 60),
-                      "bk_thickness_cm": 20 + 0.05 * x + rng.normal(0, 6, 60)})
-    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
-            "recipe": None, "recipe_sha256": None}
-    files = []
-    for p in ("bk_depth_cm", "bk_thickness_cm"):
-        rec = fit_record(fit(t, "map_mm", [p], direction="forward"),
-                         function_id=f"map_from_{p}", cv=None, level=0.95,
-                         interval_method="analytic", provenance=prov)
-        files.append(str(write_record(rec, tmp_path / f"{p}.json")))
-    return files
-
-
 def test_section_posterior_numbers_are_applys(tmp_path):
     """`section --posterior --prior` draws and tabulates exactly the posterior numbers of
     `apply --posterior --prior` (the same machinery; reference: apply's CSV), beside the
     frequentist interval of the same forward file."""
-    files = _forward_files(tmp_path)
+    files = forward_files(tmp_path)
     prior = ["--posterior", "--prior", "normal:700:250"]
     runner = CliRunner()
     est = tmp_path / "est.csv"
@@ -137,7 +118,7 @@ def test_section_posterior_numbers_are_applys(tmp_path):
 
 
 def test_section_prior_without_posterior_is_a_usage_error(tmp_path):
-    files = _forward_files(tmp_path)
+    files = forward_files(tmp_path)
     res = CliRunner().invoke(main, ["section", *files, "--fossils", DEMO, "--out",
                                     str(tmp_path / "s"), "--prior", "uniform:100:1500"])
     assert res.exit_code == 2 and "add --posterior" in res.output

@@ -122,22 +122,10 @@ def test_posterior_marks_match_the_table(tmp_path):
     what the dotted line is. Calibration: a seeded simulation (invented data)."""
     import pandas as pd
 
+    from _harness import forward_files
     from refit.apply.section import POSTERIOR
-    from refit.coefficients import fit_record, write_record
-    from refit.models.fitting import fit
 
-    rng = np.random.default_rng(5)
-    x = rng.uniform(200, 1200, 60)
-    t = pd.DataFrame({"map_mm": x, "bk_depth_cm": 10 + 0.1 * x + rng.normal(0, 8, 60),
-                      "bk_thickness_cm": 20 + 0.05 * x + rng.normal(0, 6, 60)})
-    prov = {"dataset": {"name": "t", "version": 1, "sha256": "0" * 64}, "subset": {},
-            "recipe": None, "recipe_sha256": None}
-    files = []
-    for p in ("bk_depth_cm", "bk_thickness_cm"):
-        rec = fit_record(fit(t, "map_mm", [p], direction="forward"),
-                         function_id=f"map_from_{p}", cv=None, level=0.95,
-                         interval_method="analytic", provenance=prov)
-        files.append(str(write_record(rec, tmp_path / f"{p}.json")))
+    files = forward_files(tmp_path)
     res = section_files(files, DEMO, seed=1, posterior=True)
     table = res.table
     post = table[table["interval_kind"] == POSTERIOR]
