@@ -163,8 +163,8 @@ def copy_demo_store(dest: Path) -> Path:
 def make_fits(root: Path, recipe: str = RECIPE, out: str = "run") -> Path:
     """Run ``recipe`` (default: a small run, 2 candidates) on ``root/store`` (a copy of the
     demo store unless one is there already); returns RUN/fits."""
-    from refit.validate.candidates import run_recipe
     from refit.select.recipe import read_recipe
+    from refit.validate.candidates import run_recipe
     from refit.validate.runfolder import write_run
 
     if not (root / "store").exists():

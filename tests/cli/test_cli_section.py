@@ -3,10 +3,9 @@ what the terminal says. Reference for the age check: numpy.interp."""
 
 from __future__ import annotations
 
-from _harness import forward_files
-
 import numpy as np
 import pandas as pd
+from _harness import forward_files
 from click.testing import CliRunner
 
 from refit.cli import main

@@ -10,7 +10,10 @@ from matplotlib.collections import LineCollection
 
 from refit.apply.section import PREDICTION, PUBLISHED_SE, section_files
 from refit.report.section_plot import (
-    report_section, section_figure, serious_flags, write_section,
+    report_section,
+    section_figure,
+    serious_flags,
+    write_section,
 )
 
 RETALLACK = "refit/published/map_from_bk_depth.retallack1994.json"
@@ -120,9 +123,9 @@ def test_posterior_marks_match_the_table(tmp_path):
     """Forward files applied with the posterior: each posterior is drawn (dotted interval,
     diamond at the median) at the numbers of the estimates table, and the legend says
     what the dotted line is. Calibration: a seeded simulation (invented data)."""
-    import pandas as pd
 
     from _harness import forward_files
+
     from refit.apply.section import POSTERIOR
 
     files = forward_files(tmp_path)
