@@ -78,3 +78,33 @@ def test_apply_csv_keeps_the_other_ray_as_fit_predict(tmp_path):
     _, (r1, r2), est = _rays(x, y, 60.0)
     assert est <= r1 and got["other_lower"][2] == pytest.approx(r2, rel=1e-10)
     assert got["other_upper"][2] == 12000.0
+
+
+def test_monte_carlo_without_a_physical_estimate_keeps_the_set_inside_the_bounds(tmp_path):
+    # the calibration shifted to 100-500 mm: a 100 cm reading gives an estimate of about
+    # -3051 mm on the ray x <= r1 < 0; with a 2 cm SD every draw's estimate is below 0 mm
+    # too, so there is nothing to mix: the row keeps the set's part inside 0..12000 mm,
+    # the other ray r2 .. 12000 mm (closed form above), as Fit.predict gives it
+    x, y = _weak()
+    x = x - 1000.0
+    f = fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), "map_mm", ["bk_depth_cm"],
+            direction="forward")
+    rec = fit_record(f, function_id="map_from_bk_depth", provenance=PROV, cv=None,
+                     interval_method="analytic", level=0.95)
+    path = write_record(rec, tmp_path / "weak.json")
+    fossils = tmp_path / "fossils.csv"
+    fossils.write_text("paleosol_id,bk_depth_cm,bk_depth_sd_cm\nP,100,2\n")
+    out = tmp_path / "est.csv"
+    res = CliRunner().invoke(apply, [str(path), "--fossils", str(fossils), "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    got = pd.read_csv(out).iloc[0]
+    _, (r1, r2), est = _rays(x, y, 100.0)
+    assert est <= r1 < 0 < r2 < 12000
+    ref = f.predict([100.0])
+    assert got["lower"] == pytest.approx(r2, rel=1e-10) == ref["lower"][0]
+    assert got["upper"] == 12000.0 == ref["upper"][0]
+    assert got["upper_untruncated"] == np.inf
+    assert np.isnan(got["estimate"]) and np.isnan(got["other_lower"])
+    assert got["propagation"].startswith("none: 4000 draws")
+    assert "not propagated" in got["flag_details"]
+    assert "beyond-search-window" in got["flags"].split(";")
