@@ -5,6 +5,9 @@ and interval come from the file alone (:meth:`refit.coefficients.Equation.predic
 flags where the equation does not hold:
 
 ``outside-calibration-range``, ``beyond-turning-point``, ``unbounded``, ``two-roots``,
+``two-rays`` (a forward line's set is two rays: ``lower``/``upper`` the ray holding the
+estimate, the other ray in ``other_lower``/``other_upper``, NaN for other rows; taken at
+the measured value, never propagated),
 ``open-below``/``open-above`` (the search window's edge) and ``truncated-at-bound`` (a
 limit cut at a physical bound, e.g. MAP >= 0; the limit before the cut in
 ``lower_untruncated``/``upper_untruncated``) from the file's evaluation, ``setting-mismatch`` (the
@@ -224,7 +227,8 @@ def _draws(frame: pd.DataFrame, i: int, preds, decompact: bool, record, rng, n: 
 RESULT_COLUMNS = [
     "paleosol_id", "row", "coefficient_file", "function_id", "version", "variant", "status",
     "candidate", "direction", "response", "unit", "predictors_used", "estimate", "lower",
-    "upper", "lower_untruncated", "upper_untruncated", "level", "interval",
+    "upper", "lower_untruncated", "upper_untruncated", "other_lower", "other_upper",
+    "level", "interval",
     "lower_without_propagation",
     "upper_without_propagation", "propagation", "cv_coverage", "cv_scheme", "flags",
     "flag_details", "problem", "citation",
@@ -373,6 +377,7 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
             used += " (decompacted)"
         r.update(predictors_used=used, estimate=math.nan, lower=math.nan, upper=math.nan,
                  lower_untruncated=math.nan, upper_untruncated=math.nan,
+                 other_lower=math.nan, other_upper=math.nan,
                  lower_without_propagation=math.nan, upper_without_propagation=math.nan,
                  propagation="", flags="", flag_details="", problem="")
         r["problem"] = _row_problem(i, rows, rejected, preds, inputs, record, decomp_cols)
@@ -385,6 +390,7 @@ def _apply_one(label, eq, frame, inputs, record, rows, ids, rejected, problems, 
         r.update(estimate=pred.estimate[i], lower=pred.lower[i], upper=pred.upper[i],
                  lower_untruncated=_at(pred.lower_untruncated, i),
                  upper_untruncated=_at(pred.upper_untruncated, i),
+                 other_lower=_at(pred.other_lower, i), other_upper=_at(pred.other_upper, i),
                  lower_without_propagation=pred.lower[i],
                  upper_without_propagation=pred.upper[i], propagation="none")
         rng = np.random.default_rng([int(seed), i])

@@ -107,9 +107,20 @@ def propagate(eq, draws, lvl, mc_level, df, varied, seed, flags, details) -> dic
 
     Returns the ``lower``, ``upper``, ``lower_untruncated``, ``upper_untruncated`` and
     ``propagation`` fields of the row (:func:`untruncated_mixture` for the two in the
-    middle)."""
+    middle).
+
+    With no usable draw (every draw's estimate NaN, e.g. each lies outside the physical
+    bounds: MAP < 0 mm) there is no distribution of estimates to mix: only
+    ``propagation`` is returned (saying so), and the row keeps the file's limits at the
+    measured value (for a forward line, the part of the confidence set inside the
+    bounds, :func:`refit.models.inversion.classical.bound_line_set`)."""
     mp = eq.predict(draws, lvl)
     lo, hi, used = mixture_interval(mp.estimate, mp.lower, mp.upper, mc_level, df)
+    if used == 0:
+        details.append("no Monte Carlo draw gives an estimate (e.g. every one lies "
+                       "outside the physical bounds): the limits are the file's at the "
+                       "measured value, not propagated")
+        return {"propagation": f"none: {len(draws)} draws (seed {seed}), 0 usable"}
     lo, hi = _snapped(eq, mp, lo, hi)
     lo_u, hi_u = untruncated_mixture(eq, mp, lo, hi, mc_level, df)
     n = len(draws)

@@ -45,7 +45,9 @@ def apply(ctx, coefficients, fossils, level, decompact, constants_file, seed, ou
 
     A limit cut at a physical bound (e.g. MAP below 0 mm) is written as the bound and
     flagged truncated-at-bound; the limit before the cut is in lower_untruncated /
-    upper_untruncated.
+    upper_untruncated. A forward line's set that is two rays (flag two-rays) gives
+    the ray holding the estimate as lower/upper and the other one in other_lower /
+    other_upper (NaN otherwise; at the measured value, without propagation).
 
     With --posterior, forward files also give the posterior for climate (columns
     posterior_median, posterior_mode, posterior_lower, posterior_upper, HDI, flags,

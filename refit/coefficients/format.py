@@ -514,7 +514,9 @@ class Prediction:
     two rays (flag ``two-rays``), ``lower``/``upper`` are the ray holding the estimate and
     these the other ray (one end infinite, cut at the physical bounds), as
     ``Fit.predict``'s columns of the same names; NaN for every other row (and every row of
-    an inverse file). ``lower_untruncated``/``upper_untruncated``: a forward file's limits
+    an inverse file). When the estimate lies outside the physical bounds and its ray
+    wholly outside them, ``lower``/``upper`` are the other ray cut at the bounds and these
+    NaN (:func:`refit.models.inversion.classical.bound_line_set`). ``lower_untruncated``/``upper_untruncated``: a forward file's limits
     cut at a physical bound (flag ``truncated-at-bound``) before the cut, NaN where nothing
     was cut (None: not computed)."""
 

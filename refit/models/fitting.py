@@ -354,7 +354,10 @@ class Fit:
             (forward: the limit is the search window's edge), ``truncated-at-bound``
             (forward: the interval ran past a physical bound of the climate, e.g.
             MAP >= 0, and the limit is that bound),
-            ``beyond-search-window``, ``approximate-interval`` (Theil-Sen),
+            ``beyond-search-window`` (forward: the estimate lies outside the search
+            window, for a line the physical bounds; estimate NaN, the limits the part
+            of the set inside, NaN if none, never lower > upper),
+            ``approximate-interval`` (Theil-Sen),
             ``missing-value``, ``invalid-value``, ``quantiles-cross``; empty when none;
             see :mod:`refit.models.inversion.classical`). Read the flags as
             ``result["flags"]`` (``DataFrame.flags`` is a pandas attribute). When a

@@ -49,7 +49,13 @@ Flags (a tuple of short strings per value):
   Also set when the root lies past a turning point outside the data.
 - ``beyond-search-window``: the root lies outside the search window (far extrapolation
   or a physically impossible value, e.g. negative rain): estimate NaN; the limits show the
-  part of the band inside the window, if any.
+  part of the band inside the window, if any (NaN if none). A line's search window is the
+  physical bounds: the flag then says the estimate is not a value the climate can take,
+  and the limits are the part of the Fieller set inside the bounds
+  (:func:`bound_line_set`): the estimate's own interval or ray cut there, or, when that
+  lies wholly outside (a weak slope's ray ``MAP <= -464 mm``), the other ray cut there,
+  or NaN when no part of the set is inside. A lower limit above the upper is never
+  reported.
 
 The steps of the polynomial inversion (branch layout, roots, band function, grid and
 bracketing) and the flag names live in :mod:`refit.models.inversion.band`; every public name is
@@ -409,6 +415,58 @@ def invert_polynomial_bounded(y0, poly, cov, sigma2_new, t, domain, x_cal=None,
             limit[cut] = float(bounds[side])
     masks[FLAG_TRUNCATED] = cuts[0] | cuts[1]
     return est, lo, hi, masks, untruncated
+
+
+def bound_line_set(fs: dict, bounds):
+    """A line's Fieller set (:func:`fieller_set`) cut at the physical ``bounds``: the part
+    of the set inside them, never a lower limit above the upper one.
+
+    The estimate's own part of the set (its interval or ray) is cut at the bounds
+    (:func:`_bound_line_masks`); a two-ray set's other ray is cut too
+    (:func:`bound_other_ray`). When the estimate lies outside the bounds (it is not a
+    value the climate can take: NaN, flagged ``beyond-search-window``, a line's search
+    window being the physical bounds) its part of the set may lie wholly outside them
+    too (e.g. a ray ``MAP <= -464 mm``). Then nothing of it is reported: the limits are
+    the other ray's part inside the bounds when a two-ray set has one (``two-rays``
+    stays; ``other_lower``/``other_upper`` are then NaN, the other ray having become the
+    interval; its cut ends flagged ``truncated-at-bound`` with the ends before the cut in
+    ``lower_untruncated``/``upper_untruncated``), else NaN (no climate inside the
+    bounds is consistent with the reading at this level).
+
+    Parameters
+    ----------
+    fs : dict
+        :func:`fieller_set`'s output [units of x].
+    bounds : (float, float)
+        Physical bounds of x [units of x].
+
+    Returns
+    -------
+    estimate, lower, upper : ndarray
+        [units of x]; ``lower <= upper`` wherever both are numbers.
+    masks : dict
+        Flag name -> mask, in :data:`LINE_FLAG_ORDER`.
+    untruncated : ndarray, shape (2, m)
+        ``lower_untruncated``, ``upper_untruncated`` (NaN on a side not cut).
+    other : ndarray, shape (2, m)
+        ``other_lower``, ``other_upper`` (NaN unless a second part of the set is left).
+    """
+    est, lo, hi, masks, untr = _bound_line_masks(fs["estimate"], fs["lower"], fs["upper"],
+                                                 fs["unbounded"], bounds)
+    masks[FLAG_TWO_RAYS] = np.asarray(fs["two_rays"], dtype=bool)
+    untr = np.array(untr, dtype=float).reshape(2, -1)
+    other = np.array(bound_other_ray(fs["other_lower"], fs["other_upper"], bounds),
+                     dtype=float).reshape(2, -1)
+    with np.errstate(invalid="ignore"):
+        empty = lo > hi  # the estimate's part lies wholly outside the bounds
+        raw = np.array([fs["other_lower"], fs["other_upper"]], dtype=float).reshape(2, -1)
+        moved = empty & ~np.isnan(other[0])
+        cut = np.array([moved & (raw[0] < bounds[0]), moved & (raw[1] > bounds[1])])
+    lo, hi = np.where(empty, other[0], lo), np.where(empty, other[1], hi)
+    untr[:, empty] = np.where(cut, raw, np.nan)[:, empty]
+    masks[FLAG_TRUNCATED] = np.where(empty, cut[0] | cut[1], masks[FLAG_TRUNCATED])
+    other[:, empty] = np.nan
+    return est, lo, hi, masks, untr, other
 
 
 def bound_other_ray(other_lo, other_hi, bounds):

@@ -138,10 +138,7 @@ def forward_predict(values, *, coefficients, covariance, sigma2_new, t: float, d
     other = np.full((2, len(y0)), np.nan)
     if degree == 1:
         fs = cal.fieller_set(y0, poly[0], poly[1], cov, sigma2_new, t)
-        est, lo, hi, masks, untruncated = cal._bound_line_masks(
-            fs["estimate"], fs["lower"], fs["upper"], fs["unbounded"], bounds)
-        masks[cal.FLAG_TWO_RAYS] = fs["two_rays"]
-        other[:] = cal.bound_other_ray(fs["other_lower"], fs["other_upper"], bounds)
+        est, lo, hi, masks, untruncated, other = cal.bound_line_set(fs, bounds)
         order = cal.LINE_FLAG_ORDER
     else:
         est, lo, hi, masks, untruncated = cal.invert_polynomial_bounded(
