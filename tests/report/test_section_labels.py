@@ -7,6 +7,8 @@ saved figure draws). The table is invented (the demo's kind of case)."""
 
 from __future__ import annotations
 
+import itertools
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -75,7 +77,7 @@ def _mark_boxes(ax, renderer):
             half = line.get_markersize() * per_pt / 2
             out += [(gid, x - half, y - half, x + half, y + half) for x, y in xy]
         elif gid.startswith("path:"):
-            for (xa, ya), (xb, yb) in zip(xy[:-1], xy[1:]):
+            for (xa, ya), (xb, yb) in itertools.pairwise(xy):
                 for f in np.linspace(0.0, 1.0, 50):   # the line as points 1/50 apart
                     x, y = xa + f * (xb - xa), ya + f * (yb - ya)
                     out.append((gid, x - 0.5, y - 0.5, x + 0.5, y + 0.5))
@@ -83,7 +85,7 @@ def _mark_boxes(ax, renderer):
 
 
 def test_no_text_overlaps_text(drawn):
-    fig, ax, renderer, texts = drawn
+    _, _, renderer, texts = drawn
     boxes = [t.get_window_extent(renderer) for t in texts]
     assert len(texts) >= 6 + 3                       # six ids, three flagged estimates
     for i in range(len(boxes)):
@@ -93,7 +95,7 @@ def test_no_text_overlaps_text(drawn):
 
 
 def test_no_text_overlaps_a_bar_a_marker_or_a_line(drawn):
-    fig, ax, renderer, texts = drawn
+    _, ax, renderer, texts = drawn
     marks = _mark_boxes(ax, renderer)
     assert sum(m[0].startswith("interval:") for m in marks) == 12      # 2 fits x 6
     frame = ax.get_window_extent(renderer)
@@ -106,7 +108,7 @@ def test_no_text_overlaps_a_bar_a_marker_or_a_line(drawn):
 
 
 def test_every_flagged_estimate_is_named_under_its_id(drawn):
-    fig, ax, renderer, texts = drawn
+    _, _, renderer, texts = drawn
     flags = [t for t in texts if t.get_gid() == "flag-label"]
     words = [" ".join(t.get_text().split()) for t in flags]
     # P5: fit A; P6: fit A and fit B (its two flags)
@@ -123,7 +125,7 @@ def test_every_flagged_estimate_is_named_under_its_id(drawn):
 
 
 def test_ids_stay_at_their_levels_in_order(drawn):
-    fig, ax, renderer, texts = drawn
+    _, ax, renderer, texts = drawn
     ids = {t.get_text(): t.get_window_extent(renderer) for t in texts
            if t.get_gid() == "paleosol-label"}
     for pid, level in LEVELS.items():
