@@ -1,7 +1,9 @@
 """The marks of one panel of the section figure: estimates, intervals, flags, labels.
 
 What each mark means is in :mod:`refit.report.section_plot`; this module draws one panel
-of fits (:func:`draw_panel`, :func:`draw_labels`) and the legend entries of the line
+of fits (:func:`draw_panel`), its label column (:func:`draw_labels`: the paleosol ids
+and the flags, right of every mark, pushed apart in level by :func:`repel`, measured
+with the renderer) and the legend entries of the line
 styles (:func:`style_handles`). Every artist carries a ``gid`` naming what it is and of
 which fit (``estimates:<fit>``, ``interval:<kind>:<fit>``, ...), so tests find them.
 """
@@ -28,6 +30,16 @@ TRUNCATED_TEXT = ("triangle at a bar's end: the interval is cut at a physical bo
 #: vertical offset between the fits drawn at one paleosol [points]
 DODGE_PT = 3.0
 LABEL_SIZE = 7.0
+#: characters of a flag line in the label column before it wraps
+FLAG_WIDTH = 24
+#: a fit's marker written as a character, so a flag line in the label column names its
+#: fit (markers of :mod:`refit.report.section_layout`; the diamond is a posterior's)
+GLYPH = {"o": "\u25cf", "s": "\u25a0", "^": "\u25b2", "v": "\u25bc", "P": "\u271a",
+         "D": "\u25c6"}
+ID_COLOUR = "#444444"
+#: gaps [points]: between the rightmost mark and the label column, between the lines of
+#: one paleosol's label, between the labels of two paleosols; half a marker's size
+COLUMN_GAP_PT, LINE_GAP_PT, BLOCK_GAP_PT, MARKER_HALF_PT = 5.0, 0.5, 2.0, 3.5
 
 def serious_flags(flags) -> list[str]:
     """The flags of a row that say the equation does not hold there."""
@@ -124,30 +136,126 @@ def _truncated_ends(ax, rows, yy, colour, fit) -> None:
                     ms=5, color=colour, zorder=4, gid=f"truncated:{fit}")
 
 
-def draw_labels(ax, renderer, g, axis: str, common: dict) -> None:
-    """Flag names beside flagged estimates, then paleosol ids at the right of each
-    level, placed apart (labels with no free place are left out; the table has all)."""
-    from refit.report.labels import place_labels
-
+def label_blocks(g, common: dict, style_of: dict, axis: str) -> list:
+    """What the label column says of each paleosol of a panel: ``(id, level, lines)``,
+    ``lines`` being ``(text, colour, gid)``: the id (gid ``paleosol-label``), then one
+    line per fit whose estimate there is flagged (gid ``flag-label``): the fit's marker
+    as a character and its flags (those not already said in the fit's legend entry,
+    ``common``), in the fit's colour, wrapped at :data:`FLAG_WIDTH` characters."""
+    out = []
     y = yvalues(g, axis)
-    est = g["estimate"].to_numpy(float)
-    texts = [flag_label(f, common.get(fit, ())) for f, fit in zip(g["flags"], g["fit"])]
-    k = np.array([bool(s) for s in texts])
-    pts, taken = (est, y), []
-    place_labels(ax, renderer, est[k], y[k], [s for s, kk in zip(texts, k) if kk],
-                 avoid=pts, fontsize=LABEL_SIZE, color="#333333", gid="flag-label",
-                 taken=taken)
-    ids = g.drop_duplicates("paleosol_id")
-    right = g.groupby("paleosol_id", sort=False).apply(
-        lambda r: np.nanmax(np.concatenate([r["estimate"].to_numpy(float),
-                                            r["upper"].to_numpy(float)[np.isfinite(
-                                                r["upper"].to_numpy(float))]])),
-        include_groups=False)
+    for pid, idx in g.groupby("paleosol_id", sort=False).indices.items():
+        lines = [(str(pid), ID_COLOUR, "paleosol-label")]
+        for i in idx:
+            fit = g["fit"].iloc[i]
+            text = flag_label(g["flags"].iloc[i], common.get(fit, ()))
+            if text:
+                colour, marker = style_of[fit]
+                words = _wrap_flags(f"{GLYPH.get(marker, '•')} {text}")
+                lines.append((words, colour, "flag-label"))
+        out.append((str(pid), float(y[idx[0]]), lines))
+    return out
+
+
+def _wrap_flags(text: str) -> str:
+    """A flag line broken after a comma (then within a flag) past :data:`FLAG_WIDTH`."""
+    import textwrap
+
+    lines: list[str] = []
+    for part in text.split(", "):
+        if lines and len(lines[-1]) + 2 + len(part) <= FLAG_WIDTH:
+            lines[-1] += ", " + part
+        else:
+            if lines:
+                lines[-1] += ","
+            lines.extend(textwrap.wrap(part, FLAG_WIDTH, initial_indent="   " if lines
+                                       else "", subsequent_indent="   "))
+    return "\n".join(lines)
+
+
+def text_size(fig, renderer, text: str) -> tuple[float, float]:
+    """Width and height [pixels] of ``text`` at :data:`LABEL_SIZE`, measured with the
+    figure's renderer."""
+    from matplotlib.text import Text
+
+    ext = Text(0, 0, text, fontsize=LABEL_SIZE, figure=fig, linespacing=1.1).get_window_extent(renderer)
+    return ext.width, ext.height
+
+
+def column_width(fig, g, common: dict, style_of: dict, axis: str) -> float:
+    """Width [in] of the widest label of ``g`` (the label column of its panels)."""
+    renderer = fig.canvas.get_renderer()
+    widths = [text_size(fig, renderer, s)[0] for _, _, lines in
+              label_blocks(g, common, style_of, axis) for s, _, _ in lines]
+    return max(widths, default=0.0) / fig.dpi
+
+
+def repel(want, heights, lo: float, hi: float, gap: float) -> np.ndarray:
+    """Centres of boxes of ``heights`` on one axis, as near to ``want`` as they can be
+    with ``gap`` between neighbours and all inside ``[lo, hi]`` (the bottom one wins
+    when they do not fit) [pixels]. Neighbours that would touch are merged into one
+    stack centred on the mean of what its members want (a 1-D repel: order kept)."""
+    want, heights = np.asarray(want, float), np.asarray(heights, float)
+    stacks: list[list] = []                   # [members in order, bottom]
+
+    def settle(members):
+        h = heights[members]
+        offs = np.concatenate([[0.0], np.cumsum(h + gap)[:-1]])   # bottom of each
+        total = h.sum() + gap * (len(h) - 1)
+        bottom = float(np.mean(want[members] - h / 2 - offs))
+        return max(lo, min(bottom, hi - total))
+
+    for i in np.argsort(want, kind="stable"):
+        stacks.append([[int(i)], settle([int(i)])])
+        while len(stacks) > 1:
+            (pm, pb), (cm, cb) = stacks[-2], stacks[-1]
+            top = pb + heights[pm].sum() + gap * len(pm)
+            if top <= cb:
+                break
+            stacks[-2:] = [[pm + cm, settle(pm + cm)]]
+    out = np.empty(len(want))
+    for members, bottom in stacks:
+        for k in members:
+            out[k] = bottom + heights[k] / 2
+            bottom += heights[k] + gap
+    return out
+
+
+def draw_labels(ax, renderer, g, axis: str, common: dict, style_of: dict) -> list:
+    """The label column of a panel: at the right of every drawn mark, each paleosol's
+    id at its level and, under it, the flags of its flagged estimates (one line per fit,
+    after the fit's marker, in its colour); labels near in level are pushed apart
+    vertically (:func:`repel`), measured with the renderer, so no text touches another
+    or a mark. Returns the text artists drawn."""
+    fig = ax.figure
+    per_pt = fig.dpi / 72.0
+    frame = ax.get_window_extent(renderer)
+    to_px = ax.transData.transform
     xl = ax.get_xlim()
-    xs = np.minimum(right.reindex(ids["paleosol_id"]).to_numpy(float), xl[1])
-    place_labels(ax, renderer, xs, yvalues(ids, axis), list(ids["paleosol_id"]),
-                 avoid=pts, fontsize=LABEL_SIZE, color="#555555", gid="paleosol-label",
-                 taken=taken)
+    reach = np.concatenate([g[c].to_numpy(float) for c in ("estimate", "lower", "upper")])
+    reach = np.clip(reach[np.isfinite(reach)], min(xl), max(xl))
+    x_col = float(to_px((reach.max(), 0.0))[0]) + (MARKER_HALF_PT + COLUMN_GAP_PT) * per_pt
+    blocks = label_blocks(g, common, style_of, axis)
+    if not blocks:
+        return []
+    sizes = [[text_size(fig, renderer, s)[1] for s, _, _ in lines] for _, _, lines in blocks]
+    line_gap = LINE_GAP_PT * per_pt
+    heights = np.array([sum(h) + line_gap * (len(h) - 1) for h in sizes])
+    level_px = np.array([to_px((xl[0], y))[1] for _, y, _ in blocks])
+    # the id's line centred on the level, the flag lines hanging under it
+    want = level_px + np.array([h[0] / 2 for h in sizes]) - heights / 2
+    centres = repel(want, heights, frame.y0 + 1, frame.y1 - 1, BLOCK_GAP_PT * per_pt)
+    out = []
+    for (_, _, lines), h, c, hb in zip(blocks, sizes, centres, heights):
+        top = c + hb / 2
+        for (s, colour, gid), hl in zip(lines, h):
+            out.append(ax.text((x_col - frame.x0) / frame.width,
+                               (top - frame.y0) / frame.height, s, transform=ax.transAxes,
+                               ha="left", va="top", fontsize=LABEL_SIZE, color=colour,
+                               gid=gid, clip_on=False, linespacing=1.1))
+            out[-1].set_in_layout(False)
+            top -= hl + line_gap
+    return out
 
 
 def style_handles(t, axis: str) -> list:
@@ -163,16 +271,16 @@ def style_handles(t, axis: str) -> list:
                           label=f"{what}prediction interval"))
     if POSTERIOR in kinds:
         out.append(Line2D([], [], color="#444444", lw=2.4, ls=":", marker="D", ms=4,
-                          label="posterior median and equal-tailed interval (dotted; "
-                                "fits named '... posterior', 'posterior combined': all "
-                                "proxies together)"))
+                          label="posterior median and equal-tailed interval (dotted "
+                                "bar, diamond marker)"))
     if "published ±1 SE" in kinds:
         out.append(Line2D([], [], color="#444444", lw=1.3, ls="--",
                           label="published ±1 SE (not a prediction interval)"))
     if any(serious_flags(f) for f in t["flags"]):
         out.append(Line2D([], [], ls="none", marker="o", mfc="white", mec="#444444",
-                          label="hollow: flagged, the equation does not hold here (flag "
-                                "named beside it or in the fit's entry)"))
+                          label="hollow: flagged, the equation does not hold here; the "
+                                "flags are named at the right under the paleosol's id, "
+                                "after the fit's marker (or in the fit's legend entry)"))
     if "none" in kinds:
         out.append(Line2D([], [], ls="none", marker="o", color="#444444",
                           label="marker alone: the file gives no interval"))

@@ -12,9 +12,11 @@ plans which fit goes where; :func:`section_pages` draws every page):
   up-section by a thin line (not a model: straight segments between the paleosols);
 * a prediction interval as a solid bar, a published ±1 standard error as a dashed, thinner
   bar with end ticks (it is not a prediction interval);
-* a flagged estimate (the equation does not hold there) as a hollow marker, its flags
-  named beside it; labels are placed apart, measured with the renderer
-  (:mod:`refit.report.labels`);
+* a flagged estimate (the equation does not hold there) as a hollow marker; a label
+  column right of every mark names each paleosol at its level and, under the id, the
+  flags of each flagged estimate after its fit's marker, in its colour; labels near in
+  level are pushed apart vertically, measured with the renderer, so no text touches
+  another text or a mark (:func:`refit.report.section_marks.draw_labels`);
 * a limit cut at a physical bound (flag ``truncated-at-bound``: MAP cannot fall below
   0 mm) as a small triangle at the bound pointing past it, explained in the legend (the
   limit before the cut is in the table);
@@ -34,8 +36,8 @@ import numpy as np
 
 from refit.report import style
 from refit.report.section_marks import (  # noqa: F401  (public names of the figure)
-    DODGE_PT, LABEL_SIZE, SERIOUS, SHORT, TRUNCATED_TEXT, common_flags, dodge,
-    draw_labels, draw_panel, flag_label, serious_flags, style_handles, yvalues,
+    DODGE_PT, LABEL_SIZE, SERIOUS, SHORT, TRUNCATED_TEXT, column_width, common_flags,
+    dodge, draw_labels, draw_panel, flag_label, serious_flags, style_handles, yvalues,
 )
 
 PREDICTION, PUBLISHED_SE = "prediction", "published ±1 SE"  # refit.apply.section
@@ -47,6 +49,10 @@ PANEL_WIDTH = 3.6
 #: height kept for the axes, titles and tick labels [in], and per legend line [in]
 AXES_HEIGHT, LINE_HEIGHT = 5.0, 0.155
 FILE = "section.csv"
+#: what a panel's frame, ticks and level label take of its width [in] (a panel's axes
+#: are at least its width less this), the share of the axes' width kept beside the
+#: label column (gaps and a marker), and the most the label column may take
+AXES_MARGIN, COLUMN_MARGIN, MAX_COLUMN = 0.9, 0.05, 0.55
 
 
 def age_axis_label(name: str) -> str:
@@ -201,7 +207,10 @@ def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str
         else:
             fig.legend(handles=handles, loc="outside lower center", ncol=ncol,
                        fontsize=7.5)
-        clips = _frame(axes, page, whole, axis, y_label, split)
+        every = common_flags(whole)     # a fit's flags said in its legend entry
+        column = {r: column_width(fig, whole[whole["response"] == r], every, style_of,
+                                  axis) for r in dict.fromkeys(whole["response"])}
+        clips = _frame(axes, page, whole, axis, y_label, split, column)
         more = f" (page {page.number} of {page.count})" if page.count > 1 else ""
         fig.suptitle(f"{page.section}: climate up the section{more}", x=0.01, ha="left",
                      fontsize=11, fontweight="bold")
@@ -209,22 +218,24 @@ def _draw_page(table, page: SectionPage, split: bool, *, axis: str, y_label: str
         for ax, p, clip in zip(axes, page.panels, clips):
             g = t[(t["response"] == p.response) & t["fit"].isin(p.fits)]
             draw_panel(ax, g, axis, clip, style_of)
-            draw_labels(ax, renderer, g, axis, common)
+            draw_labels(ax, renderer, g, axis, common, style_of)
     return fig
 
 
-def _frame(axes, page: SectionPage, t, axis: str, y_label: str, split: bool) -> list:
+def _frame(axes, page: SectionPage, t, axis: str, y_label: str, split: bool,
+           column: dict) -> list:
     """Limits, labels and titles of every panel of a page: one level (or age) range and
     one x range per quantity for the whole section ``t`` (every page alike), so panels
-    side by side compare at a glance. Returns the x range the intervals of each panel
-    are clipped to."""
+    side by side compare at a glance; ``column`` is the width [in] of each quantity's
+    label column. Returns the x range the intervals of each panel are clipped to."""
     from refit.curate.schema import notation
 
     y_all = yvalues(t, axis)
     span = float(np.ptp(y_all)) or max(abs(float(y_all[0])) * 0.1, 1.0)
     clips = []
     for i, (ax, p) in enumerate(zip(axes, page.panels)):
-        clips.append(_limits(ax, t[t["response"] == p.response], axis, span, y_all))
+        room = column.get(p.response, 0.0) / ((PANEL_WIDTH if split else 4.6) - AXES_MARGIN)
+        clips.append(_limits(ax, t[t["response"] == p.response], axis, span, y_all, room))
         title = notation(p.response, "")
         if split:
             title += f" · fits {p.span} of {p.total}"
@@ -246,17 +257,20 @@ def _ages_fall_upward(t) -> bool:
                             ok["age"].to_numpy(float))[0, 1] < 0)
 
 
-def _limits(ax, g, axis: str, span: float, y_all) -> tuple[float, float]:
-    """Axis limits of one panel: x from every row of its quantity ``g`` (room at the
-    right for labels), y from the page's levels ``y_all``; returns the x range the
-    intervals are clipped to."""
+def _limits(ax, g, axis: str, span: float, y_all, room: float) -> tuple[float, float]:
+    """Axis limits of one panel: x from every row of its quantity ``g``, then the share
+    ``room`` of the width (and a margin) kept free at the right for the label column;
+    y from the page's levels ``y_all``; returns the x range the intervals are clipped
+    to."""
     finite = np.concatenate([g[c].to_numpy(float) for c in ("estimate", "lower", "upper")])
     finite = finite[np.isfinite(finite)]
     lo_ax, hi_ax = float(finite.min()), float(finite.max())
     pad = 0.06 * (hi_ax - lo_ax) if hi_ax > lo_ax else max(abs(hi_ax) * 0.1, 1.0)
-    ax.set_xlim(lo_ax - pad, hi_ax + 4 * pad)  # room at the right for labels
+    free = min(room + COLUMN_MARGIN, MAX_COLUMN)
+    right = lo_ax - pad + (hi_ax - lo_ax + 2 * pad) / (1.0 - free)
+    ax.set_xlim(lo_ax - pad, right)
     ax.set_ylim(float(np.nanmin(y_all)) - 0.06 * span, float(np.nanmax(y_all)) + 0.06 * span)
-    return lo_ax - pad, hi_ax + 4 * pad
+    return lo_ax - pad, right
 
 
 def slug(section: str) -> str:
@@ -345,7 +359,8 @@ def caption(table) -> str:
             "model). Solid bars are prediction intervals; dashed bars with end ticks are "
             "published ±1 standard errors, which are not prediction intervals and "
             "understate the uncertainty of a new estimate. Hollow markers are flagged: the "
-            "equation does not hold there, and the flag is named beside the point. A "
+            "equation does not hold there, and the flags are named at the right, under the "
+            "paleosol's id, after the fit's marker. A "
             "triangle at the end of a bar marks a limit cut at a physical bound (e.g. "
             "MAP cannot fall below 0 mm); the limit before the cut is in the table. Fits "
             "at one level are set a little apart vertically so their bars stay visible. "
