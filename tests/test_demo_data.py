@@ -244,8 +244,11 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
     # (the MAP of 5 mm is scored too: rejected already, and no other unit makes it fit)
     fits = {s["fits"] for s in result.suspect_rows}
     assert fits == {"millimeter", "centimeter", None}
-    assert sum("fits if it is in mm" in s["message"] for s in result.suspect_rows) == 2
-    assert sum("fits if it is in cm" in s["message"] for s in result.suspect_rows) == 1
+    assert len({s["pos"] for s in result.suspect_rows if "fits if it is in mm" in s["message"]}) == 2
+    assert len({s["pos"] for s in result.suspect_rows if "fits if it is in cm" in s["message"]}) == 1
+    # the MAP typed in mm (7620 mm) is held by both reference pairs, each named in its reasons
+    wet = [s for s in result.suspect_rows if s["value"] == pytest.approx(7620.0)]
+    assert sorted(s["pair"] for s in wet) == ["MAP on CIA-K", "MAP on depth to Bk"]
     assert {u["column"] for u in result.unmapped} == {"region", gen.UNMAPPED_HEADER}
     # inches -> mm by the exact inch (NIST SP 811: 1 in = 25.4 mm): the warning row's 32.99 in
     warned = added[notes.str.startswith("demo: warning row - Bk horizon")].iloc[0]
