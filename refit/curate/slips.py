@@ -13,7 +13,6 @@ import pandas as pd
 
 from refit.curate import consistency as cs
 
-
 _num = cs.values  # a column as floats; a derived index (CIA-K) computed from its oxides
 
 
