@@ -65,12 +65,19 @@ def column_slips(frame, records, refs, origins, confirmed=()) -> list[dict]:
         if both.sum() < 5:
             continue
         now = np.median(np.abs(ref.z(x[both], y[both])))
-        done |= {ref.predictor, ref.response}  # judged by a line, not by the medians
         for column in (ref.predictor, ref.response):
-            if column in confirmed or now <= cs.SLIP_MEDIAN_Z or column in said:
+            if column in confirmed or column in said:
                 continue
             best = min(((np.median(np.abs(z[both])), u, g) for u, (z, g)
                         in _rescaled_z(ref, frame, origins, column).items()), default=None)
+            if now <= cs.SLIP_MEDIAN_Z:
+                # the file fits the line as declared: judged by the line, not by the
+                # medians, unless the line fits another unit as well (it cannot tell them
+                # apart, e.g. MAP in inches at low CIA-K): then the medians still judge
+                if not (best and best[0] <= cs.FITS_Z):
+                    done.add(column)
+                continue
+            done.add(column)
             if best and best[0] <= cs.FITS_Z:
                 said.add(column)  # one slip per column, from the first pair that sees it
                 out.append(_slip(column, frame, records, origins, best[1], best[2],

@@ -291,3 +291,14 @@ def test_store_too_small_for_the_cia_k_pair_skips_it_and_says_so(tmp_path):
                      "reference line)")]
     assert any("reference pair 'MAP on depth to Bk'" in n and "skipped" not in n
                for n in result.consistency)
+
+
+def test_map_in_inches_without_bk_is_seen_against_the_cia_k_line(tmp_path, two_pair_store):
+    new = weathered_soils(20, 26, start=900)
+    new[["bk_depth_cm", "bk_thickness_cm"]] = np.nan  # only the CIA-K pair can judge MAP
+    new["map_mm"] = (new["map_mm"] / 25.4).round(2)  # inches (NIST SP 811: 1 in = 25.4 mm)
+    with pytest.raises(InvalidDataError) as err:
+        admit(write(tmp_path, new), two_pair_store, today=DAY)
+    text = str(err.value)
+    assert "looks like inches" in text and text.count("looks like") == 1
+    assert "against reference pair 'MAP on CIA-K'" in text
