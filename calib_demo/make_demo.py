@@ -366,6 +366,13 @@ BAD_ROWS = [
      {"map_mm": 0.2 * 25.4, "mar_mm": 0.1 * 25.4, "bk_depth_cm": 180.0,
       "bk_thickness_cm": 40.64}),
 ]
+#: A row whose MAP is far from what its CIA-K says, caught by admit's MAP on CIA-K reference
+#: pair (the oxides of a deeply weathered soil, CIA-K about 90, under a dry MAP whose Bk depth
+#: agrees with it). Appended last, after the shuffle, so the other rows are unchanged.
+CIA_K_SLIP_ROW = ("MAP far below what its CIA-K says (300 mm at CIA-K 90)", "suspect-residual",
+                  {"profile_id": "OST25-60", "map_mm": 300.0, "bk_depth_cm": 25.4,
+                   "bk_thickness_cm": 40.64,
+                   **dict(zip(OXIDES, [70.0, 0.9, 18.0, 6.0, 0.1, 1.0, 0.6, 0.5, 1.5, 0.15]))})
 #: Rows of BAD_ROWS that only warn and are admitted (labelled "demo: warning row - ...").
 ADMITTED_BAD_ROWS = ("Bk depth without a Bk thickness",)
 #: An incoming column that maps to no canonical column (listed by check and admit).
@@ -388,7 +395,8 @@ def make_incoming(base: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
     """About 40 new soils as the campaign's spreadsheet holds them (headers, units, text).
 
     Thirteen kinds of bad input, one row each (two for the duplicated id), labelled in
-    ``Notes`` as ``demo: bad row - <kind>``; one row that only warns; the rest are valid.
+    ``Notes`` as ``demo: bad row - <kind>``; one row that only warns; the rest are valid;
+    last, the row whose MAP is far from what its CIA-K says (:data:`CIA_K_SLIP_ROW`).
     """
     good = _campaign_soils(1, 25, (240, 1300), rng)
     spare = _campaign_soils(26, 1 + len(BAD_ROWS), (300, 700), rng)
@@ -400,7 +408,18 @@ def make_incoming(base: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
     bad = _bad_rows([spare.iloc[k] for k in range(1, len(spare))], base)
     table = pd.concat([good, pd.DataFrame([warn] + bad)], ignore_index=True)
     table = table.iloc[rng.permutation(len(table))].reset_index(drop=True)
-    return to_spreadsheet(table)
+    return to_spreadsheet(pd.concat([table, pd.DataFrame([_cia_k_slip(spare.iloc[0])])],
+                                    ignore_index=True))
+
+
+def _cia_k_slip(row: pd.Series) -> pd.Series:
+    """:data:`CIA_K_SLIP_ROW` made from a valid row, moved 0.1 degree away from it."""
+    label, _, change = CIA_K_SLIP_ROW
+    row = row.copy()
+    row[list(change)] = list(change.values())
+    row[["latitude", "longitude"]] = [row["latitude"] + 0.1, row["longitude"] + 0.1]
+    row["notes"] = f"demo: bad row - {label}"
+    return row
 
 
 def _bad_rows(rows: list[pd.Series], base: pd.DataFrame) -> list[pd.Series]:

@@ -170,11 +170,13 @@ def test_incoming_file_looks_like_a_spreadsheet_export():
 
 def test_incoming_labels_one_bad_row_per_kind(gen, tables):
     notes = tables["incoming_soils"]["Notes"].fillna("")
-    assert len(notes) == 45
+    assert len(notes) == 46
     bad = notes[notes.str.startswith("demo: bad row - ")].str.removeprefix("demo: bad row - ")
     counts = bad.value_counts().to_dict()
     expected = {label: 1 for label, _, _ in gen.BAD_ROWS if label not in gen.ADMITTED_BAD_ROWS}
     expected["duplicated id within the file (both copies)"] = 2
+    expected[gen.CIA_K_SLIP_ROW[0]] = 1
+    assert notes.iloc[-1] == "demo: bad row - " + gen.CIA_K_SLIP_ROW[0]  # appended last
     assert counts == expected
     assert len(gen.BAD_ROWS) == 18
     assert notes.str.startswith("demo: warning row").sum() == 2
@@ -231,7 +233,7 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
     result = store_mod.admit(DEMO / "incoming_soils.csv", store, today="2026-12-02")
     after = store_mod.open_store(store)
     assert (result.rows_read, result.accepted, result.rejected, result.suspect) == \
-        (45, 27, 15, 3)
+        (46, 27, 15, 4)
     added = after.records.iloc[300:]
     assert after.version == 2 and len(after.records) == 327
     notes = added["notes"].fillna("")
@@ -244,8 +246,18 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
     # (the MAP of 5 mm is scored too: rejected already, and no other unit makes it fit)
     fits = {s["fits"] for s in result.suspect_rows}
     assert fits == {"millimeter", "centimeter", None}
-    assert sum("fits if it is in mm" in s["message"] for s in result.suspect_rows) == 2
-    assert sum("fits if it is in cm" in s["message"] for s in result.suspect_rows) == 1
+    # the planted row held by the MAP on CIA-K pair alone: its CIA-K, worked from the oxides
+    # with the molar masses Al2O3 101.96, CaO 56.08, Na2O 61.98 g/mol (IUPAC atomic weights):
+    # 18/101.96 = 0.17654, 0.6/56.08 = 0.010699, 0.5/61.98 = 0.0080671 mol per 100 g, so
+    # CIA-K = 100 * 0.17654 / 0.19531 = 90.39 (Harnois 1988 formula, from memory)
+    [cia] = [s for s in result.suspect_rows if s["pos"] == 45]
+    assert cia["pair"] == "MAP on CIA-K" and cia["z"] < -3.5 and cia["fits"] is None
+    assert "at cia_k 90.39 (from al2o3_wt, cao_wt, na2o_wt)" in cia["message"]
+    assert len({s["pos"] for s in result.suspect_rows if "fits if it is in mm" in s["message"]}) == 2
+    assert len({s["pos"] for s in result.suspect_rows if "fits if it is in cm" in s["message"]}) == 1
+    # the MAP typed in mm (7620 mm) is held by both reference pairs, each named in its reasons
+    wet = [s for s in result.suspect_rows if s["value"] == pytest.approx(7620.0)]
+    assert sorted(s["pair"] for s in wet) == ["MAP on CIA-K", "MAP on depth to Bk"]
     assert {u["column"] for u in result.unmapped} == {"region", gen.UNMAPPED_HEADER}
     # inches -> mm by the exact inch (NIST SP 811: 1 in = 25.4 mm): the warning row's 32.99 in
     warned = added[notes.str.startswith("demo: warning row - Bk horizon")].iloc[0]
@@ -260,6 +272,11 @@ def test_admit_rejects_each_bad_row_for_its_reason(gen, tmp_path):
         # a rejected row is scored too: its reasons may add the residual (MAP of 5 mm)
         assert all(r - {"suspect-residual"} == {rule} or r == {rule} for r in mine["rules"]), \
             (label, mine["rules"].to_list())
+    mine = reasons[reasons["notes"] == "demo: bad row - " + gen.CIA_K_SLIP_ROW[0]]
+    assert mine["rules"].to_list() == [{"suspect-residual"}]
+    held = pd.read_csv(store / result.quarantine_file, dtype=str, keep_default_na=False)
+    assert held.iloc[-1]["_reasons"].count("reference pair 'MAP on CIA-K'") == 1
+    assert "reference pair 'MAP on depth to Bk'" not in held.iloc[-1]["_reasons"]
 
 
 def _rejected_rules(quarantine, problems) -> pd.DataFrame:

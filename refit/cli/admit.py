@@ -49,8 +49,9 @@ def admit(table: str | None, store: str | None, repair: str | None, dry_run: boo
     finished or undone by the next command that opens the store. A second admit into the
     same store waits up to 5 s for the first, then stops with a 'busy' error.
 
-    Rows that disagree with the store's reference line (MAP on Bk depth) beyond a robust
-    |z| of 3.5 are held as suspect in quarantine (--accept-suspect admits them); a column
+    Rows that disagree with any of the store's reference lines (MAP on Bk depth, MAP on
+    CIA-K from the oxides) beyond a robust |z| of 3.5 are held as suspect in quarantine,
+    each pair named in the reasons (--accept-suspect admits them); a column
     whose values look like another unit stops the admit until --unit confirms it; the same
     file twice stops unless --again.
 

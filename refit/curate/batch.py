@@ -169,7 +169,7 @@ def _screen(report, records, incoming, table, rejected, problems, units, accept_
     shown = problems[problems["row"].isna() | (quarantined & problems["severity"].isin(
         ("error", "suspect"))) | (~quarantined & (problems["severity"] == "warning"))]
     fields = {"suspect": int(suspect.sum()),
-              "suspect_accepted": sum(not rejected[i["pos"]] for i in suspects)
+              "suspect_accepted": len({i["pos"] for i in suspects if not rejected[i["pos"]]})
               if accept_suspect else 0,
               "suspect_rows": suspects, "unmapped": unmapped, "consistency": notes,
               "problem_groups": group_problems(shown).to_dict(orient="records")}

@@ -1,8 +1,8 @@
 """Consistency of incoming soils with the store: suspect rows, unit slips, mixed units.
 
-When the store already supports a reference relationship (:data:`REFERENCES`: MAP on depth
-to the Bk horizon), a robust straight line is fitted to the store on the spot (Huber's M
-estimator, tuning constant 1.345, scale = median absolute residual / 0.6745 updated at every
+For each reference relationship of :data:`REFERENCES` the store supports (a declared
+:class:`ReferencePair`: MAP on depth to the Bk horizon, MAP on CIA-K), a robust straight line
+is fitted to the store on the spot (Huber's M estimator, tuning constant 1.345, scale = median absolute residual / 0.6745 updated at every
 iteration, as statsmodels' ``RLM`` with ``HuberT`` and ``scale_est="mad"``; Huber 1981,
 *Robust Statistics*). Each incoming row gets its **standardised leave-one-out predictive
 residual**
@@ -15,7 +15,8 @@ With OLS in place of Huber this is exactly the externally studentised residual t
 would have if appended to the store (Cook & Weisberg 1982, *Residuals and Influence in
 Regression*, ch. 2; the tests compare it with statsmodels' ``OLSInfluence``).
 
-- A row with ``|z|`` above :data:`SUSPECT_Z` (3.5) is **suspect**. Common practice: 3.5 is
+- A row with ``|z|`` above its pair's threshold (:data:`SUSPECT_Z`, 3.5) is **suspect**; a
+  row suspect by any pair is suspect, and its reasons list each pair that holds it. Common practice: 3.5 is
   the usual cut-off for robust z-scores (Iglewicz & Hoaglin 1993, *How to Detect and Handle
   Outliers*, from memory), wide enough that about 1 good soil in 2000 is held under a
   normal scatter. Where the value rescaled to another unit of its column gives
@@ -29,8 +30,19 @@ Regression*, ch. 2; the tests compare it with statsmodels' ``OLSInfluence``).
 - **Mixed units in a column**: at least :data:`MIXED_MIN_ROWS` rows and
   :data:`MIXED_MIN_SHARE` of the rows fit only in one other unit: refused with those rows.
 
-Stores with fewer than :data:`MIN_STORE_ROWS` soils holding both columns support no
-reference: the test is skipped and the admit says so. Conversion factors come from pint
+The pairs, each with the source of its relationship and its threshold:
+
+- **MAP on depth to Bk** (``map_mm`` on ``bk_depth_cm``): the carbonate horizon is deeper
+  where more rain leaches it (Jenny 1941, *Factors of Soil Formation*; Retallack 2005,
+  Geology 33:333, from memory); threshold |z| 3.5 (common practice, above).
+- **MAP on CIA-K** (``map_mm`` on ``cia_k``): the B horizon is more weathered, CIA-K higher,
+  where more rain falls (Sheldon, Retallack & Tanaka 2002, J. Geology 110:687, from memory);
+  threshold |z| 3.5 (common practice, above). CIA-K is not a table column: it is computed
+  from the oxides by :func:`refit.soil.indices.cia_k`, for the store and the incoming rows
+  alike (:data:`DERIVED`). Only MAP can carry a unit slip here: CIA-K has no unit.
+
+Stores with fewer than :data:`MIN_STORE_ROWS` soils holding both values of a pair support no
+reference for it: that pair's test is skipped and the admit says so; the other pairs still run. Conversion factors come from pint
 (:func:`refit.curate.units.affine`).
 """
 
@@ -43,12 +55,58 @@ import pandas as pd
 
 from refit.curate import units as _units
 
-#: (response, predictor) pairs tested, in order.
-REFERENCES = (("map_mm", "bk_depth_cm"),)
 #: Fewest store soils with both columns for a reference fit.
 MIN_STORE_ROWS = 20
 #: |z| beyond which an incoming row is suspect (common practice; see the module docstring).
 SUSPECT_Z = 3.5
+
+
+@dataclass(frozen=True)
+class ReferencePair:
+    """A reference relationship an incoming soil is checked against.
+
+    Parameters
+    ----------
+    response, predictor : str
+        Canonical names (the predictor may be a derived index, see :data:`DERIVED`).
+    label : str
+        How messages name the pair, e.g. ``"MAP on CIA-K"``.
+    source : str
+        Where the relationship comes from (a citation, "from memory", or "common practice").
+    threshold : float
+        ``|z|`` beyond which a row is suspect by this pair.
+    """
+
+    response: str
+    predictor: str
+    label: str
+    source: str
+    threshold: float = SUSPECT_Z
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """The table columns the pair reads (a derived predictor's inputs in its place)."""
+        return (self.response, *DERIVED.get(self.predictor, ((self.predictor,), None))[0])
+
+
+def _cia_k(frame: pd.DataFrame) -> np.ndarray:
+    from refit.soil.indices import cia_k
+
+    al, ca, na = (_numbers(frame, c) for c in ("al2o3_wt", "cao_wt", "na2o_wt"))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.asarray(cia_k(al, ca, na), float)
+
+
+#: Predictors that are not table columns: name -> (input columns, function of a frame).
+DERIVED = {"cia_k": (("al2o3_wt", "cao_wt", "na2o_wt"), _cia_k)}
+
+#: The declared reference pairs, in order (see the module docstring for their sources).
+REFERENCES = (
+    ReferencePair("map_mm", "bk_depth_cm", "MAP on depth to Bk",
+                  "Jenny 1941; Retallack 2005, Geology 33:333 (from memory)"),
+    ReferencePair("map_mm", "cia_k", "MAP on CIA-K",
+                  "Sheldon, Retallack & Tanaka 2002, J. Geology 110:687 (from memory)"),
+)
 #: |z| at or below which a rescaled value "fits".
 FITS_Z = 2.0
 #: A column slip: the file's median |z| above this while one other unit fits.
@@ -81,6 +139,15 @@ class Reference:
     r_inv: np.ndarray  # inverse of R of the QR of the centred, scaled design
     centre: float
     spread: float
+    pair: ReferencePair | None = None
+
+    @property
+    def threshold(self) -> float:
+        return self.pair.threshold if self.pair else SUSPECT_Z
+
+    @property
+    def label(self) -> str:
+        return self.pair.label if self.pair else f"{self.response} on {self.predictor}"
 
     def z(self, x, y) -> np.ndarray:
         """Standardised leave-one-out predictive residuals of new soils (x, y)."""
@@ -92,7 +159,8 @@ class Reference:
         return (y - fitted) / (self.scale * np.sqrt(1.0 + h))
 
     def describe(self) -> str:
-        return (f"the store's robust line {self.response} = {self.coef[0]:.4g} + "
+        return (f"reference pair {self.label!r}: the store's robust line "
+                f"{self.response} = {self.coef[0]:.4g} + "
                 f"{self.coef[1]:.4g} x {self.predictor} (Huber, {self.n} soils, robust "
                 f"SD {self.scale:.3g})")
 
@@ -136,21 +204,44 @@ def huber_line(x, y, *, robust: bool = True, c: float = HUBER_C, maxiter: int = 
     return coef, scale, np.linalg.inv(r), centre, spread
 
 
-def reference_fit(records: pd.DataFrame, response: str, predictor: str, *,
-                  robust: bool = True) -> Reference | None:
-    """The reference line of ``response`` on ``predictor`` in the store, or None when
-    fewer than :data:`MIN_STORE_ROWS` soils hold both (or the predictor does not vary)."""
-    if response not in records or predictor not in records:
-        return None
-    x = pd.to_numeric(records[predictor], errors="coerce").to_numpy(float)
-    y = pd.to_numeric(records[response], errors="coerce").to_numpy(float)
+def _numbers(frame: pd.DataFrame, name: str) -> np.ndarray:
+    if name not in frame:
+        return np.full(len(frame), np.nan)
+    return pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+
+
+def values(frame: pd.DataFrame, name: str) -> np.ndarray:
+    """A column as floats (NaN where missing); a derived index (:data:`DERIVED`) is taken
+    from its column where given and computed from its inputs elsewhere."""
+    got = _numbers(frame, name)
+    if name in DERIVED:
+        got = np.where(np.isfinite(got), got, DERIVED[name][1](frame))
+    return got
+
+
+def soils_with_both(records: pd.DataFrame, response: str, predictor: str) -> int:
+    """How many store soils hold both values of a pair."""
+    return int((np.isfinite(values(records, response))
+                & np.isfinite(values(records, predictor))).sum())
+
+
+def reference_fit(records: pd.DataFrame, response: str | ReferencePair,
+                  predictor: str | None = None, *, robust: bool = True) -> Reference | None:
+    """The reference line of ``response`` on ``predictor`` (or of a :class:`ReferencePair`)
+    in the store, or None when fewer than :data:`MIN_STORE_ROWS` soils hold both (or the
+    predictor does not vary)."""
+    pair = response if isinstance(response, ReferencePair) else None
+    if pair is not None:
+        response, predictor = pair.response, pair.predictor
+    x, y = values(records, predictor), values(records, response)
     ok = np.isfinite(x) & np.isfinite(y)
     if ok.sum() < MIN_STORE_ROWS or np.ptp(x[ok]) == 0:
         return None
     coef, scale, r_inv, centre, spread = huber_line(x[ok], y[ok], robust=robust)
     if not scale > 0:
         return None
-    return Reference(response, predictor, coef, scale, int(ok.sum()), r_inv, centre, spread)
+    return Reference(response, predictor, coef, scale, int(ok.sum()), r_inv, centre, spread,
+                     pair)
 
 
 def unit_factor(src: str, dst: str) -> float:
@@ -187,6 +278,7 @@ def unit_label(unit: str) -> str:
             "meter": "metres"}.get(unit, unit)
 
 
-__all__ = ["Reference", "huber_line", "reference_fit", "unit_factor", "alternatives",
+__all__ = ["Reference", "ReferencePair", "DERIVED", "values", "soils_with_both",
+           "huber_line", "reference_fit", "unit_factor", "alternatives",
            "declared_unit", "REFERENCES", "MIN_STORE_ROWS", "SUSPECT_Z", "FITS_Z",
            "SLIP_MEDIAN_Z", "SLIP_RATIO", "MIXED_MIN_ROWS", "MIXED_MIN_SHARE"]

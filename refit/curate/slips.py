@@ -13,38 +13,36 @@ import pandas as pd
 
 from refit.curate import consistency as cs
 
-
-def _num(frame: pd.DataFrame, name: str) -> np.ndarray:
-    if name not in frame:
-        return np.full(len(frame), np.nan)
-    return pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+_num = cs.values  # a column as floats; a derived index (CIA-K) computed from its oxides
 
 
-def references(records: pd.DataFrame, *, robust: bool = True):
-    """(list of Reference, list of notes): the lines the store supports, and why others
-    are skipped (too few soils)."""
+def references(records: pd.DataFrame, *, robust: bool = True, pairs=None):
+    """(list of Reference, list of notes): the lines the store supports among ``pairs``
+    (default :data:`refit.curate.consistency.REFERENCES`), and why others are skipped (too
+    few soils)."""
     refs, notes = [], []
-    for y, x in cs.REFERENCES:
-        ref = cs.reference_fit(records, y, x, robust=robust)
+    for pair in cs.REFERENCES if pairs is None else pairs:
+        y, x = pair.response, pair.predictor
+        ref = cs.reference_fit(records, pair, robust=robust)
         if ref is None:
-            both = 0
-            if y in records and x in records:
-                both = int((pd.to_numeric(records[y], errors="coerce").notna()
-                            & pd.to_numeric(records[x], errors="coerce").notna()).sum())
-            notes.append(f"consistency test of {y} on {x} skipped: the store has {both} "
-                         f"soils with both (at least {cs.MIN_STORE_ROWS} are needed for a "
-                         "reference line)")
+            both = cs.soils_with_both(records, y, x)
+            notes.append(f"consistency test of {y} on {x} (reference pair {pair.label!r}) "
+                         f"skipped: the store has {both} soils with both (at least "
+                         f"{cs.MIN_STORE_ROWS} are needed for a reference line)")
         else:
             refs.append(ref)
             notes.append(f"consistency test against {ref.describe()}: rows beyond |z| "
-                         f"{cs.SUSPECT_Z:g} are suspect")
+                         f"{ref.threshold:g} are suspect ({pair.source})")
     return refs, notes
 
 
 def _rescaled_z(ref, frame, origins, column):
-    """{unit: z of every row with ``column`` read in that unit} for the other units."""
+    """{unit: z of every row with ``column`` read in that unit} for the other units (none
+    for a column without a unit, e.g. CIA-K)."""
     x, y = _num(frame, ref.predictor), _num(frame, ref.response)
     out = {}
+    if column not in cs.SLIP_COLUMNS:
+        return out
     for unit, g in cs.alternatives(column, origins):
         xs, ys = (x * g, y) if column == ref.predictor else (x, y * g)
         out[unit] = (ref.z(xs, ys), g)
@@ -60,20 +58,28 @@ def column_slips(frame, records, refs, origins, confirmed=()) -> list[dict]:
         ``column``, ``file_column``, ``declared`` (unit), ``likely`` (unit), ``factor``,
         ``median_file`` and ``median_store`` [canonical unit], and ``evidence`` (a sentence).
     """
-    out, done = [], set()
+    out, done, said = [], set(), set()
     for ref in refs:
         x, y = _num(frame, ref.predictor), _num(frame, ref.response)
         both = np.isfinite(x) & np.isfinite(y)
         if both.sum() < 5:
             continue
         now = np.median(np.abs(ref.z(x[both], y[both])))
-        done |= {ref.predictor, ref.response}  # judged by the line, not by the medians
         for column in (ref.predictor, ref.response):
-            if column in confirmed or now <= cs.SLIP_MEDIAN_Z:
+            if column in confirmed or column in said:
                 continue
             best = min(((np.median(np.abs(z[both])), u, g) for u, (z, g)
                         in _rescaled_z(ref, frame, origins, column).items()), default=None)
+            if now <= cs.SLIP_MEDIAN_Z:
+                # the file fits the line as declared: judged by the line, not by the
+                # medians, unless the line fits another unit as well (it cannot tell them
+                # apart, e.g. MAP in inches at low CIA-K): then the medians still judge
+                if not (best and best[0] <= cs.FITS_Z):
+                    done.add(column)
+                continue
+            done.add(column)
             if best and best[0] <= cs.FITS_Z:
+                said.add(column)  # one slip per column, from the first pair that sees it
                 out.append(_slip(column, frame, records, origins, best[1], best[2],
                                  f"median |z| against {ref.describe()} is {now:.1f} as "
                                  f"declared and {best[0]:.1f} if in {cs.unit_label(best[1])}"))
@@ -116,19 +122,20 @@ def _short(unit: str) -> str:
 
 
 def suspect_rows(frame, refs, origins, candidates: np.ndarray) -> list[dict]:
-    """Rows (positions among ``candidates``) beyond :data:`SUSPECT_Z` against a reference.
+    """Rows (positions among ``candidates``) beyond their pair's threshold against each
+    reference; a row suspect by two pairs has one item per pair.
 
     Returns
     -------
     list of dict
-        ``pos``, ``column`` (the response), ``value``, ``z``, ``fits`` (a unit, or None)
-        and ``message``.
+        ``pos``, ``pair`` (its label), ``column`` (the response), ``value``, ``z``,
+        ``fits`` (a unit, or None) and ``message`` (naming the pair).
     """
     out = []
     for ref in refs:
         x, y = _num(frame, ref.predictor), _num(frame, ref.response)
         z = ref.z(x, y)
-        bad = candidates & np.isfinite(z) & (np.abs(z) > cs.SUSPECT_Z)
+        bad = candidates & np.isfinite(z) & (np.abs(z) > ref.threshold)
         if not bad.any():
             continue
         tries = [(col, u, zz, g) for col in (ref.response, ref.predictor)
@@ -136,9 +143,11 @@ def suspect_rows(frame, refs, origins, candidates: np.ndarray) -> list[dict]:
         for pos in np.flatnonzero(bad):
             fits = [(abs(zz[pos]), col, u, g) for col, u, zz, g in tries
                     if abs(zz[pos]) <= cs.FITS_Z]
-            text = (f"{ref.response} {y[pos]:.4g} at {ref.predictor} {x[pos]:.4g} has a "
+            derived = (f" (from {', '.join(cs.DERIVED[ref.predictor][0])})"
+                       if ref.predictor in cs.DERIVED else "")
+            text = (f"{ref.response} {y[pos]:.4g} at {ref.predictor} {x[pos]:.4g}{derived} has a "
                     f"standardised leave-one-out predictive residual of {z[pos]:+.1f} "
-                    f"against {ref.describe()}; the threshold is |z| {cs.SUSPECT_Z:g}.")
+                    f"against {ref.describe()}; the threshold is |z| {ref.threshold:g}.")
             fit, fit_col = None, None
             if fits:
                 zf, col, unit, g = min(fits)
@@ -150,7 +159,8 @@ def suspect_rows(frame, refs, origins, candidates: np.ndarray) -> list[dict]:
                          f"{value * g:.4g} and z {zf:+.1f}.")
             else:
                 text += " No other unit makes it fit; check both values."
-            out.append({"pos": int(pos), "column": ref.response, "value": float(y[pos]),
+            out.append({"pos": int(pos), "pair": ref.label, "column": ref.response,
+                        "value": float(y[pos]),
                         "z": float(z[pos]), "fits": fit, "fit_column": fit_col,
                         "message": text})
     return out
@@ -160,8 +170,8 @@ def mixed_units(suspects: list[dict], frame, origins, n_rows: int) -> list[dict]
     """Columns where many rows fit only in one other unit: ``column``, ``unit``, ``rows``
     (positions)."""
     by = {}
-    for s in suspects:
-        if s["fits"]:
+    for s in suspects:  # a row held by two pairs counts once
+        if s["fits"] and s["pos"] not in by.get((s["fit_column"], s["fits"]), ()):
             by.setdefault((s["fit_column"], s["fits"]), []).append(s["pos"])
     return [{"column": c, "unit": u, "positions": p} for (c, u), p in by.items()
             if len(p) >= cs.MIXED_MIN_ROWS and len(p) >= cs.MIXED_MIN_SHARE * n_rows]

@@ -385,7 +385,7 @@ def _admit_columns() -> list[str]:
     from refit.curate import consistency as cs
 
     return ["profile_id", "source", "latitude", "longitude", *MEASUREMENTS,
-            *cs.SLIP_COLUMNS, *(c for pair in cs.REFERENCES for c in pair)]
+            *cs.SLIP_COLUMNS, *(c for pair in cs.REFERENCES for c in pair.columns)]
 
 
 def _as_numbers_read(table, incoming: pd.DataFrame) -> pd.DataFrame:

@@ -26,7 +26,7 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     assert result.exit_code == 0, result.output
     text = result.output
     # the accounting: rows read = accepted + rejected + suspect, where each went
-    assert "Rows read 45 = accepted 27 + rejected 15 + suspect 3." in text
+    assert "Rows read 46 = accepted 27 + rejected 15 + suspect 4." in text
     # the planted slips and rows caught, each with what refit says about it
     text = " ".join(text.split())  # messages are wrapped to the terminal
     assert "This value fits if it is in mm: MAP (in) read in mm gives map_mm 300" in text
@@ -35,6 +35,9 @@ def test_demo_exits_0_and_prints_each_step(demo_run):
     assert "This value fits if it is in mm: Depth to Bk (in) read in mm gives bk_depth_cm 35" \
         in text
     assert "[bk-too-shallow] bk_depth_cm = '1.524'" in text
+    # the planted row whose MAP is far from what its CIA-K says, named by its pair
+    assert "map_mm 300 at cia_k 90.39 (from al2o3_wt, cao_wt, na2o_wt)" in text
+    assert "reference pair 'MAP on CIA-K'" in text
     assert "[map-below-bk-minimum] map_mm = '5.08'" in text
     # unmapped columns: the heading says they are kept, each line only what to do
     assert "Columns not mapped (kept as extra columns, unchecked):" in text
@@ -82,11 +85,11 @@ def test_demo_store_and_quarantine(demo_run):
     assert len(store.records) == store.manifest["row_count"]
     entry = store.manifest["changelog"][-1]
     assert (entry["rows_read"], entry["accepted"], entry["rejected"], entry["suspect"]) == \
-        (45, 27, 15, 3)
+        (46, 27, 15, 4)
     quarantined = pd.read_csv(out / "store" / entry["quarantine_file"], dtype=str)
-    assert len(quarantined) == 18 and quarantined["_reasons"].str.len().gt(0).all()
+    assert len(quarantined) == 19 and quarantined["_reasons"].str.len().gt(0).all()
     check = json.loads((out / "check-incoming.json").read_text(encoding="utf-8"))
-    assert check["n_rows"] == 45 and not check["ok"]
+    assert check["n_rows"] == 46 and not check["ok"]
 
 
 def test_demo_fit_publish_apply_compare(demo_run):
@@ -286,7 +289,7 @@ def test_every_help_example_runs_in_the_demo_folder(demo_run, tmp_path, monkeypa
     # what they wrote, re-opened
     board = pd.read_csv(folder / "leaderboard.csv")
     assert list(board.columns)[:2] == ["rank", "candidate"] and len(board) > 5
-    assert json.loads((folder / "problems.json").read_text())["n_rows"] == 45
+    assert json.loads((folder / "problems.json").read_text())["n_rows"] == 46
     assert (folder / "reports" / "linear.html").is_file()
     signed = sorted((folder / "registry" / "map_from_bk_depth").glob("*.json.sig"))
     assert len(signed) == 1

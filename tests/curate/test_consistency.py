@@ -175,3 +175,130 @@ def test_rows_read_equal_accepted_rejected_and_suspect(tmp_path_factory, seed, n
     assert result.rows_read == result.accepted + result.rejected + result.suspect == 15
     held = pd.read_csv(tmp / "s" / result.quarantine_file) if result.quarantine_file else []
     assert len(held) == result.rejected + result.suspect
+
+
+# --- the second reference pair: MAP on CIA-K (CIA-K computed from the oxides) ----------------
+# CIA-K by hand, independent of refit.soil: 100 Al2O3 / (Al2O3 + CaO + Na2O) in moles
+# (Harnois 1988; Sheldon, Retallack & Tanaka 2002, J. Geology 110:687, from memory), molar
+# masses from the IUPAC standard atomic weights: Al2O3 101.96, CaO 56.08, Na2O 61.98 g/mol.
+AL2O3, CAO, NA2O = 101.96, 56.08, 61.98
+
+
+def cia_k_by_hand(al2o3_wt, cao_wt, na2o_wt):
+    al, ca, na = al2o3_wt / AL2O3, cao_wt / CAO, na2o_wt / NA2O
+    return 100 * al / (al + ca + na)
+
+
+def cao_for(cia_k, al2o3_wt=15.0, na2o_wt=1.0):
+    """The CaO [wt%] that gives ``cia_k`` with the other two oxides fixed (the formula
+    above solved for CaO)."""
+    al, na = al2o3_wt / AL2O3, na2o_wt / NA2O
+    return (al * 100 / cia_k - al - na) * CAO
+
+
+def weathered_soils(n, seed, *, start=0, prefix="W"):
+    """Seeded soils on two lines: Bk depth = (MAP - 150) / 3.5 [cm] and
+    CIA-K = (MAP + 600) / 18, each with scatter (invented)."""
+    rng = np.random.default_rng(seed)
+    map_mm = np.round(rng.uniform(200, 700, n), 1)
+    cia = (map_mm + 600) / 18 + rng.normal(0, 2.5, n)
+    return pd.DataFrame({
+        "profile_id": [f"{prefix}-{k}" for k in range(start, start + n)],
+        "latitude": np.round(-40 - rng.uniform(0, 1, n), 5),
+        "longitude": np.round(52 + rng.uniform(0, 1, n), 5), "source": "SIM-2025",
+        "map_mm": map_mm,
+        "bk_depth_cm": np.round((map_mm - 150) / 3.5 + rng.normal(0, 10, n), 1),
+        "bk_thickness_cm": 30.0, "al2o3_wt": 15.0, "cao_wt": np.round(cao_for(cia), 4),
+        "na2o_wt": 1.0})
+
+
+@pytest.fixture
+def two_pair_store(tmp_path):
+    path = tmp_path / "store2"
+    weathered_soils(150, 21).to_csv(tmp_path / "base2.csv", index=False)
+    admit(tmp_path / "base2.csv", path, today=DAY)
+    return path
+
+
+def test_the_pairs_are_declared_with_source_and_threshold():
+    by = {p.label: p for p in cs.REFERENCES}
+    assert set(by) == {"MAP on depth to Bk", "MAP on CIA-K"}
+    assert (by["MAP on CIA-K"].response, by["MAP on CIA-K"].predictor) == ("map_mm", "cia_k")
+    assert "Sheldon" in by["MAP on CIA-K"].source and by["MAP on CIA-K"].threshold == 3.5
+    assert by["MAP on CIA-K"].columns == ("map_mm", "al2o3_wt", "cao_wt", "na2o_wt")
+
+
+def test_cia_k_pair_holds_a_planted_row_with_the_z_of_statsmodels_rlm(tmp_path,
+                                                                      two_pair_store):
+    sm = pytest.importorskip("statsmodels.api")
+    new = weathered_soils(20, 22, start=500)
+    # planted: the oxides say CIA-K 92 (a wet climate, MAP about 1050 mm on the store's
+    # line) but the MAP is dry; its Bk depth agrees with the MAP, so only CIA-K objects
+    new.loc[0, ["map_mm", "bk_depth_cm", "cao_wt", "na2o_wt"]] = [
+        300.0, 43.0, round(cao_for(92.0, na2o_wt=0.3), 4), 0.3]
+    base = pd.read_csv(two_pair_store / "records.csv")  # the store the row is judged against
+    result = admit(write(tmp_path, new), two_pair_store, today=DAY)
+    assert (result.rows_read, result.accepted, result.rejected, result.suspect) == \
+        (20, 19, 0, 1)
+    [held] = result.suspect_rows
+    assert held["pos"] == 0 and held["pair"] == "MAP on CIA-K"
+    # independent: statsmodels RLM (HuberT, t = 1.345, scale_est "mad") on the store's
+    # soils, CIA-K by hand; h = x0' (X'X)^-1 x0 from statsmodels OLS normalized_cov_params
+    x = cia_k_by_hand(base["al2o3_wt"], base["cao_wt"], base["na2o_wt"]).to_numpy()
+    X = sm.add_constant(x)
+    rlm = sm.RLM(base["map_mm"].to_numpy(), X, M=sm.robust.norms.HuberT()).fit()
+    x0 = np.array([1.0, cia_k_by_hand(15.0, new.loc[0, "cao_wt"], 0.3)])
+    h = x0 @ sm.OLS(base["map_mm"].to_numpy(), X).fit().normalized_cov_params @ x0
+    expected = (300.0 - x0 @ rlm.params) / (rlm.scale * np.sqrt(1 + h))
+    assert expected < -3.5  # the plant is beyond the threshold by the reference itself
+    assert held["z"] == pytest.approx(expected, rel=1e-6)
+    assert "reference pair 'MAP on CIA-K'" in held["message"]
+    assert "(from al2o3_wt, cao_wt, na2o_wt)" in held["message"]
+    assert "threshold is |z| 3.5" in held["message"]
+    assert any("reference pair 'MAP on CIA-K'" in n and "Sheldon" in n
+               for n in result.consistency)
+    quarantine = pd.read_csv(two_pair_store / result.quarantine_file, dtype=str)
+    reasons = quarantine.set_index("profile_id").loc["W-500", "_reasons"]
+    assert "MAP on CIA-K" in reasons and "MAP on depth to Bk" not in reasons
+
+
+def test_a_row_suspect_by_both_pairs_counts_once_and_lists_each_pair(tmp_path,
+                                                                     two_pair_store):
+    new = weathered_soils(12, 23, start=600)
+    new.loc[3, "map_mm"] = 2500.0  # far from both its Bk depth and its CIA-K
+    result = admit(write(tmp_path, new), two_pair_store, today=DAY, dry_run=True)
+    assert result.rows_read == result.accepted + result.rejected + result.suspect == 12
+    assert result.suspect == 1
+    assert sorted(s["pair"] for s in result.suspect_rows) == ["MAP on CIA-K",
+                                                             "MAP on depth to Bk"]
+    held = admit(write(tmp_path, new), two_pair_store, today=DAY, accept_suspect=True)
+    assert (held.accepted, held.suspect, held.suspect_accepted) == (12, 0, 1)
+
+
+def test_store_too_small_for_the_cia_k_pair_skips_it_and_says_so(tmp_path):
+    base = weathered_soils(120, 24)
+    base.loc[12:, ["al2o3_wt", "cao_wt", "na2o_wt"]] = np.nan  # oxides on 12 soils only
+    base.to_csv(tmp_path / "b.csv", index=False)
+    admit(tmp_path / "b.csv", tmp_path / "s", today=DAY)
+    new = weathered_soils(10, 25, start=800)
+    new.loc[0, ["map_mm", "bk_depth_cm", "cao_wt", "na2o_wt"]] = [
+        300.0, 43.0, round(cao_for(92.0, na2o_wt=0.3), 4), 0.3]
+    result = admit(write(tmp_path, new), tmp_path / "s", today=DAY)
+    assert result.suspect == 0 and result.accepted == 10
+    skip = [n for n in result.consistency if "skipped" in n]
+    assert skip == [("consistency test of map_mm on cia_k (reference pair 'MAP on CIA-K') "
+                     "skipped: the store has 12 soils with both (at least 20 are needed for a "
+                     "reference line)")]
+    assert any("reference pair 'MAP on depth to Bk'" in n and "skipped" not in n
+               for n in result.consistency)
+
+
+def test_map_in_inches_without_bk_is_seen_against_the_cia_k_line(tmp_path, two_pair_store):
+    new = weathered_soils(20, 26, start=900)
+    new[["bk_depth_cm", "bk_thickness_cm"]] = np.nan  # only the CIA-K pair can judge MAP
+    new["map_mm"] = (new["map_mm"] / 25.4).round(2)  # inches (NIST SP 811: 1 in = 25.4 mm)
+    with pytest.raises(InvalidDataError) as err:
+        admit(write(tmp_path, new), two_pair_store, today=DAY)
+    text = str(err.value)
+    assert "looks like inches" in text and text.count("looks like") == 1
+    assert "against reference pair 'MAP on CIA-K'" in text
