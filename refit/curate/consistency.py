@@ -159,10 +159,13 @@ class Reference:
         return (y - fitted) / (self.scale * np.sqrt(1.0 + h))
 
     def describe(self) -> str:
+        from refit.curate.schema import fields, unit_notation
+
+        unit = unit_notation(fields().get(self.response, {}).get("unit", ""))
         return (f"reference pair {self.label!r}: the store's robust line "
                 f"{self.response} = {self.coef[0]:.4g} + "
                 f"{self.coef[1]:.4g} x {self.predictor} (Huber, {self.n} soils, robust "
-                f"SD {self.scale:.3g})")
+                f"SD {self.scale:.3g}{' ' + unit if unit else ''})")
 
 
 def huber_line(x, y, *, robust: bool = True, c: float = HUBER_C, maxiter: int = 100,

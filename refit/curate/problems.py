@@ -224,10 +224,12 @@ def group_problems(problems: pd.DataFrame, rows_shown: int = GROUP_ROWS_SHOWN) -
     Returns
     -------
     pandas.DataFrame
-        ``severity``, ``rule``, ``column``, ``value``, ``count``, ``rows`` (text: the
-        first ``rows_shown`` file rows, then "and N more"; "" for table-level problems),
-        ``profile_id`` (of a single-row block, else ""), ``message`` (the first one), in the
-        order of the problems table (errors first).
+        ``severity``, ``rule``, ``column``, ``value``, ``count`` (distinct rows; 1 for a
+        table-level problem), ``rows`` (text: the first ``rows_shown`` file rows, then "and
+        N more"; "" for table-level problems), ``profile_id`` (of a single-row block, else
+        ""), ``message`` (the first one; a single row's distinct messages joined, e.g. the
+        same value held by two reference pairs), in the order of the problems table (errors
+        first).
     """
     cols = ["severity", "rule", "column", "value", "count", "rows", "profile_id", "message"]
     if problems.empty:
@@ -241,15 +243,19 @@ def group_problems(problems: pd.DataFrame, rows_shown: int = GROUP_ROWS_SHOWN) -
         ["severity", "rule", "column", "_v", "_k"], sort=False, dropna=False)
     out = []
     for (sev, rule, col, val, _), grp in grouped:
-        rows = grp["row"].dropna().astype("int64").tolist()
+        # a row found by two checks of one rule (e.g. two reference pairs) is one row
+        rows = list(dict.fromkeys(grp["row"].dropna().astype("int64").tolist()))
         text = ", ".join(map(str, rows[:rows_shown]))
         if len(rows) > rows_shown:
             text += f" and {len(rows) - rows_shown} more"
-        pid = grp["profile_id"].iloc[0] if len(grp) == 1 else ""
+        one = len(rows) == 1 or len(grp) == 1
+        pid = grp["profile_id"].iloc[0] if one else ""
+        messages = list(dict.fromkeys(grp["message"].astype(str)))
+        message = " ".join(messages) if len(rows) == 1 else messages[0]
         out.append({"severity": sev, "rule": rule, "column": col, "value": val,
-                    "count": len(grp), "rows": text,
+                    "count": len(rows) or len(grp), "rows": text,
                     "profile_id": "" if pid is None or pid != pid else str(pid),
-                    "message": str(grp["message"].iloc[0]), "_first": grp.index[0]})
+                    "message": message, "_first": grp.index[0]})
     res = pd.DataFrame(out)
     sev_order = (res["severity"] != "error").astype(int)
     res = res.assign(_s=sev_order).sort_values(["_s", "_first"], kind="stable")

@@ -302,3 +302,27 @@ def test_map_in_inches_without_bk_is_seen_against_the_cia_k_line(tmp_path, two_p
     text = str(err.value)
     assert "looks like inches" in text and text.count("looks like") == 1
     assert "against reference pair 'MAP on CIA-K'" in text
+
+
+def test_a_row_held_by_two_reference_pairs_is_one_row_in_its_block():
+    # found by reading the demo's admit: "[suspect-residual] map_mm = '7620': 2 rows 24, 24"
+    # (the same file row held by both pairs); the block now counts distinct rows and says
+    # both pairs' findings, while the problems table keeps one row per finding
+    import pandas as pd
+
+    from refit.curate.problems import group_problems
+
+    probs = pd.DataFrame({
+        "severity": ["suspect", "suspect", "suspect"], "rule": ["suspect-residual"] * 3,
+        "column": ["map_mm"] * 3, "value": ["7620", "7620", "7620"],
+        "row": [24, 24, 30], "profile_id": ["A", "A", "B"],
+        "message": ["against pair 'MAP on depth to Bk'", "against pair 'MAP on CIA-K'",
+                    "against pair 'MAP on depth to Bk'"]})
+    one = group_problems(probs.iloc[:2])
+    assert one.loc[0, "count"] == 1 and one.loc[0, "rows"] == "24"
+    assert one.loc[0, "profile_id"] == "A"
+    assert one.loc[0, "message"] == ("against pair 'MAP on depth to Bk' against pair "
+                                     "'MAP on CIA-K'")
+    two = group_problems(probs)
+    assert two.loc[0, "count"] == 2 and two.loc[0, "rows"] == "24, 30"
+    assert two.loc[0, "profile_id"] == ""
