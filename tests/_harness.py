@@ -251,3 +251,29 @@ def forward_files(tmp_path) -> list[str]:
                          interval_method="analytic", provenance=prov)
         files.append(str(write_record(rec, tmp_path / f"{p}.json")))
     return files
+
+
+def fieller_set(x, y, y0, level: float = 0.95):
+    """The classical-calibration (Fieller) set of a straight line fitted by statsmodels
+    OLS, solved independently of refit: ``{x : (y0 - b0 - b1 x)^2 <= t^2 (s^2 + V00 +
+    2 x V01 + x^2 V11)}``, i.e. ``A x^2 - 2 B x + C <= 0`` (Fieller 1954, JRSS B 16:175;
+    Draper & Smith, Applied Regression Analysis, section 3.2; from memory), with
+    numpy.roots and t from scipy.stats.t.
+
+    Returns
+    -------
+    (coef, roots, estimate, res)
+        ``[A, -2B, C]``; the real parts of the roots, sorted; the point estimate
+        ``(y0 - b0) / b1``; the statsmodels results.
+    """
+    import numpy as np
+    import statsmodels.api as sm
+    from scipy import stats
+
+    res = sm.OLS(y, sm.add_constant(x)).fit()
+    (b0, b1), V, s2 = res.params, res.cov_params(), res.scale
+    t = stats.t.ppf(0.5 + level / 2, len(x) - 2)
+    d = y0 - b0
+    coef = [b1 * b1 - t * t * V[1, 1], -2 * (b1 * d + t * t * V[0, 1]),
+            d * d - t * t * (s2 + V[0, 0])]
+    return coef, np.sort(np.roots(coef).real), d / b1, res

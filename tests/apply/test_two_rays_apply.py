@@ -11,9 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import statsmodels.api as sm
+from _harness import fieller_set
 from click.testing import CliRunner
-from scipy import stats
 
 from refit.apply.estimates import RESULT_COLUMNS
 from refit.cli.apply import apply
@@ -33,13 +32,8 @@ def _weak():
 
 
 def _rays(x, y, y0):
-    res = sm.OLS(y, sm.add_constant(x)).fit()
-    (b0, b1), V, s2 = res.params, res.cov_params(), res.scale
-    t = stats.t.ppf(0.975, len(x) - 2)
-    d = y0 - b0
-    a = b1 * b1 - t * t * V[1, 1]
-    r = np.roots([a, -2 * (b1 * d + t * t * V[0, 1]), d * d - t * t * (s2 + V[0, 0])])
-    return a, np.sort(r.real), d / b1
+    coef, roots, est, _ = fieller_set(x, y, y0)
+    return coef[0], roots, est
 
 
 def test_apply_csv_keeps_the_other_ray_as_fit_predict(tmp_path):

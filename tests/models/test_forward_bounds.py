@@ -19,8 +19,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-import statsmodels.api as sm
-from scipy import stats
+from _harness import fieller_set
 
 from refit.coefficients import fit_record, load, write_record
 from refit.models.fitting import fit
@@ -39,16 +38,10 @@ def _data(slope=-0.01, sd=3.0, seed=3):
 
 
 def _exact(x, y, y0, level=0.95):
-    """(A, roots sorted, estimate): the set is A x^2 - 2 B x + C <= 0 (closed form above)."""
-    res = sm.OLS(y, sm.add_constant(x)).fit()
-    (b0, b1), V, s2 = res.params, res.cov_params(), res.scale
-    t = stats.t.ppf(0.5 + level / 2, len(x) - 2)
-    d = y0 - b0
-    coef = [b1 * b1 - t * t * V[1, 1], -2 * (b1 * d + t * t * V[0, 1]),
-            d * d - t * t * (s2 + V[0, 0])]
-    r = np.roots(coef)
-    assert np.all(np.abs(r.imag) == 0)
-    return coef[0], np.sort(r.real), d / b1, res
+    """(A, roots sorted, estimate, statsmodels results) of the Fieller set."""
+    coef, roots, est, res = fieller_set(x, y, y0, level)
+    assert np.all(np.abs(np.roots(coef).imag) == 0)
+    return coef[0], roots, est, res
 
 
 def _fit(x, y, bounds=None):

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from _harness import fieller_set
 from numpy.polynomial import polynomial as P
 from scipy import stats
 
@@ -125,17 +126,8 @@ def _weak_line():
 
 
 def _exact_rays(x, y, y0, level=0.95):
-    """The exact set {x : (y0 - b0 - b1 x)^2 <= t^2 (s^2 + V00 + 2 x V01 + x^2 V11)},
-    solved as a quadratic inequality with numpy.roots on statsmodels' fit."""
-    res = sm.OLS(y, sm.add_constant(x)).fit()
-    (b0, b1), V, s2 = res.params, res.cov_params(), res.scale
-    t = stats.t.ppf(0.5 + level / 2, len(x) - 2)
-    d = y0 - b0
-    # (b1^2 - t^2 V11) x^2 - 2 (b1 d + t^2 V01) x + (d^2 - t^2 (s2 + V00)) <= 0
-    coef = [b1 * b1 - t * t * V[1, 1], -2 * (b1 * d + t * t * V[0, 1]),
-            d * d - t * t * (s2 + V[0, 0])]
-    r = np.sort(np.roots(coef).real)
-    return coef, r, d / b1, res
+    """The exact Fieller set on statsmodels' fit (see ``_harness.fieller_set``)."""
+    return fieller_set(x, y, y0, level)
 
 
 def test_weak_slope_line_reports_the_ray_holding_the_estimate(tmp_path):
@@ -143,7 +135,7 @@ def test_weak_slope_line_reports_the_ray_holding_the_estimate(tmp_path):
     y0 = 60.0  # far beyond the readings (about 14-27)
     coef, (r1, r2), est, res = _exact_rays(x, y, y0)
     assert res.pvalues[1] > 0.05 and coef[0] < 0  # not significant: A < 0, two rays
-    inside = lambda v: np.polyval(coef, v) <= 0  # noqa: E731
+    inside = lambda v: np.polyval(coef, v) <= 0
     assert inside(r1 - 1) and inside(r2 + 1) and not inside(0.5 * (r1 + r2))
     f = fit(pd.DataFrame({"climate": x, "feature": y}), response="climate",
             predictors="feature", direction="forward")
