@@ -379,17 +379,41 @@ def test_a_non_finite_number_in_place_of_a_null_never_loads(written, data):
     ATTACKS["non-finite"] += 1
 
 
+def _in_string(text: str) -> list[bool]:
+    """Per character of a JSON text: whether it lies inside a string (quotes excluded),
+    escapes followed (RFC 8259 section 7)."""
+    out, inside, escaped = [], False, False
+    for c in text:
+        if inside and not escaped and c == '"':
+            inside = False
+            out.append(False)
+            continue
+        out.append(inside)
+        if inside:
+            escaped = c == "\\" and not escaped
+        elif c == '"':
+            inside = True
+    return out
+
+
+def _in_escape(text: str, i: int) -> bool:
+    """Whether the letter at ``i`` is one of the four hex digits of a ``\\uXXXX``."""
+    return any(text[j:j + 2] == "\\u" and j + 2 <= i < j + 6 for j in range(max(0, i - 5), i))
+
+
 @st.composite
 def respelled(draw, raw: bytes) -> bytes:
     """The same JSON document in other bytes: whitespace, key order or a \\u escape."""
     text = raw.decode("utf-8")
+    inside = _in_string(text)
     how = draw(st.sampled_from(["space", "key order", "escape", "indent", "line ends"]))
-    if how == "space":
-        spots = [i + 1 for i, c in enumerate(text) if c in ",:[{"]
+    if how == "space":   # between tokens only: a space inside a string changes the content
+        spots = [i + 1 for i, c in enumerate(text) if c in ",:[{" and not inside[i]]
         i = draw(st.sampled_from(spots))
         return (text[:i] + draw(st.sampled_from([" ", "\t", "\n", "  "])) + text[i:]).encode()
-    if how == "escape":
-        spots = [i for i, c in enumerate(text) if c.isalpha() and text.count('"', 0, i) % 2]
+    if how == "escape":  # a letter inside a string, not one already part of an escape
+        spots = [i for i, c in enumerate(text) if c.isalpha() and inside[i]
+                 and text[i - 1] != "\\" and not _in_escape(text, i)]
         i = draw(st.sampled_from(spots))
         return (text[:i] + f"\\u{ord(text[i]):04x}" + text[i + 1:]).encode()
     doc = json.loads(text)
