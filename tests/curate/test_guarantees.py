@@ -61,6 +61,22 @@ def test_data_rows_above_the_header_are_read_as_data(tmp_path):
     assert len(open_store(tmp_path / "store").records) == 10
 
 
+def test_rows_above_the_header_stay_data_when_the_ids_below_look_like_numbers(tmp_path):
+    # found by the long fuzzing run (hypothesis): two data rows, the header, one row whose
+    # id is "+2"; the id column looked numeric from the one row below, so "P0" and "P1"
+    # were skipped as notes. A column named like a canonical one takes the schema's type.
+    path = tmp_path / "plus.csv"
+    path.write_text("P0,30.0000,-100.0000,SRC-0,250,20,10\n"
+                    "P1,30.1429,-100.1111,SRC-1,263,23,11\n"
+                    "profile_id,latitude,longitude,source,map_mm,bk_depth_cm,bk_thickness_cm\n"
+                    "+2,30.2857,-100.2222,SRC-2,276,26,12\n", encoding="utf-8")
+    table = read_table(path, as_text=True)
+    assert table.source_rows.tolist() == [1, 2, 4]
+    result = admit(path, tmp_path / "store")
+    assert result.rows_read == 3
+    assert result.accepted + result.rejected + result.suspect == 3
+
+
 def test_a_bad_data_row_above_the_header_is_quarantined_with_its_text(tmp_path):
     bad = "P-above,95.5,-100,SRC-X,300,20,10,grassland"  # latitude 95.5: out of range
     path = tmp_path / "above.csv"
