@@ -103,32 +103,17 @@ def _is_number(text: str) -> bool:
     return True
 
 
-def _header_kinds(header, width: int) -> list[str | None]:
-    """Per column: ``number`` or ``text`` where the header names a canonical column (its
-    schema type), else None."""
-    from refit.curate.schema import fields
-    from refit.curate.units import canonical_for
-
-    known = fields()
-    out = []
-    for j in range(width):
-        name = str(header[j]).strip() if j < len(header) else ""
-        canon = canonical_for(name) if name else None
-        kind = known.get(canon, {}).get("type") if canon else None
-        out.append(None if kind is None else
-                   "number" if kind in ("number", "integer") else "text")
-    return out
-
-
-def data_rows_above(rows: list[list[str]], header_at: int, sample: int = 200) -> list[int]:
+def data_rows_above(rows: list[list[str]], header_at: int, sample: int = 200,
+                    kinds: list | None = None) -> list[int]:
     """0-based indices of the rows above the header that have the shape of data rows.
 
     A row above the header is data (not a title or a note) when it fills at least half as
     many cells as the median data row below the header (and at least two), and every cell it
     fills in a column whose cells below the header are numbers (80 % of them or more) is a
-    number too. A column whose header names a canonical column takes that column's type
-    from the schema (an id column stays text even when the rows below happen to hold ids
-    like ``+2``); other columns are judged by their cells. A title (one cell) or a note row
+    number too. Where ``kinds`` gives a column's type (``number`` or ``text``, from the
+    schema for a header naming a canonical column: an id column stays text even when the
+    rows below happen to hold ids like ``+2``), that type decides; other columns are
+    judged by their cells. A title (one cell) or a note row
     never has that shape; a data row pasted above the header does, and is read as data so
     that every row of the file is accounted for (admitted or quarantined), never skipped.
     """
@@ -139,11 +124,11 @@ def data_rows_above(rows: list[list[str]], header_at: int, sample: int = 200) ->
     if not body:
         return []
     width = max(len(r) for r in body)
-    kinds = _header_kinds(rows[header_at], width)
     numeric = []
     for j in range(width):
         cells = [r[j] for r in body if j < len(r) and r[j]]
-        if kinds[j] == "number" or (kinds[j] is None and cells
+        kind = kinds[j] if kinds is not None and j < len(kinds) else None
+        if kind == "number" or (kind is None and cells
                                     and sum(map(_is_number, cells)) >= 0.8 * len(cells)):
             numeric.append(j)
     filled = sorted(sum(1 for c in r if c) for r in body)

@@ -394,11 +394,28 @@ def find_header(rows: list[list[str]]) -> int:
     return next(i for i, w in enumerate(widths) if w > 0)
 
 
+def header_kinds(header) -> list[str | None]:
+    """Per header cell: ``number`` or ``text`` where it names a canonical column (its
+    schema type), else None."""
+    from refit.curate.schema import fields
+    from refit.curate.units import canonical_for
+
+    known = fields()
+    out = []
+    for cell in header:
+        name = str(cell).strip()
+        canon = canonical_for(name) if name else None
+        kind = known.get(canon, {}).get("type") if canon else None
+        out.append(None if kind is None else
+                   "number" if kind in ("number", "integer") else "text")
+    return out
+
+
 def _table_from_rows(path, rows, as_text, notes, digest, delim=None) -> Table:
     """Rows of text cells (header and title rows included) -> Table; ``delim`` is the
     delimiter of a text file (None for a workbook)."""
     header_at = find_header(rows)
-    above = data_rows_above(rows, header_at)
+    above = data_rows_above(rows, header_at, kinds=header_kinds(rows[header_at]))
     _note_above(notes, rows, header_at, above)
     header = [str(c).strip() for c in rows[header_at]]
     width = max([_effective_width(header)] + [_effective_width(rows[i]) for i in above]
