@@ -36,14 +36,19 @@ def _rays(x, y, y0):
     return coef[0], roots, est
 
 
-def test_apply_csv_keeps_the_other_ray_as_fit_predict(tmp_path):
-    assert {"other_lower", "other_upper"} <= set(RESULT_COLUMNS)
-    x, y = _weak()
+def _forward_file(x, y, tmp_path):
+    """The forward line of Bk depth on MAP, and its coefficient file."""
     f = fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), "map_mm", ["bk_depth_cm"],
             direction="forward")
     rec = fit_record(f, function_id="map_from_bk_depth", provenance=PROV, cv=None,
                      interval_method="analytic", level=0.95)
-    path = write_record(rec, tmp_path / "weak.json")
+    return f, write_record(rec, tmp_path / "weak.json")
+
+
+def test_apply_csv_keeps_the_other_ray_as_fit_predict(tmp_path):
+    assert {"other_lower", "other_upper"} <= set(RESULT_COLUMNS)
+    x, y = _weak()
+    f, path = _forward_file(x, y, tmp_path)
     fossils = tmp_path / "fossils.csv"
     fossils.write_text("paleosol_id,bk_depth_cm\n" + "".join(
         f"P{i},{v}\n" for i, v in enumerate(READINGS)))
@@ -81,11 +86,7 @@ def test_monte_carlo_without_a_physical_estimate_keeps_the_set_inside_the_bounds
     # the other ray r2 .. 12000 mm (closed form above), as Fit.predict gives it
     x, y = _weak()
     x = x - 1000.0
-    f = fit(pd.DataFrame({"map_mm": x, "bk_depth_cm": y}), "map_mm", ["bk_depth_cm"],
-            direction="forward")
-    rec = fit_record(f, function_id="map_from_bk_depth", provenance=PROV, cv=None,
-                     interval_method="analytic", level=0.95)
-    path = write_record(rec, tmp_path / "weak.json")
+    f, path = _forward_file(x, y, tmp_path)
     fossils = tmp_path / "fossils.csv"
     fossils.write_text("paleosol_id,bk_depth_cm,bk_depth_sd_cm\nP,100,2\n")
     out = tmp_path / "est.csv"
