@@ -19,7 +19,11 @@ term, see :class:`refit.models.posterior_terms._Tables`); proxies with one df sh
 is made on blocks of :data:`BLOCK_ROWS` rows that stay in cache; the log density is floored
 :data:`LOG_FLOOR` below each row's peak before exp (subnormal results make numpy's exp about
 fifty times slower); quantiles come from chunk sums (:mod:`refit.models.posterior_grid`),
-never a sort or a full cumulative sum; the HDI from Newton steps.
+never a sort or a full cumulative sum; the HDI from Newton steps, each solved inside the
+cell of the step before where it stays there. Threads run side by side only while numpy
+has released the interpreter lock: the per-row sums are ``numpy.einsum`` loops (a BLAS
+product of a few columns and ``numpy.add.reduceat`` hold a lock), each thread keeps its
+buffers, and ``Posterior.hdi`` is a view built per row only when read.
 
 Consistency of the proxies: each proxy's own likelihood, normalised over its own support
 (:func:`likelihood_grid`: flat over the calibration range widened by its width on either
@@ -33,6 +37,8 @@ standard error. p below :data:`DISAGREE_P` flags ``proxies-disagree``.
 """
 
 from __future__ import annotations
+
+import threading
 
 import numpy as np
 
@@ -63,6 +69,7 @@ from refit.models.posterior_inputs import (  # noqa: F401  (the public names)
     OWN_ROWS,
     SUMMARY_ROWS,
     ForwardProxy,
+    HdiPieces,
     Posterior,
     Prior,
     calibration_hull,
@@ -87,6 +94,7 @@ from refit.models.posterior_terms import (
     _mean_sd,
     _row_moments,
     _Tables,
+    chunk_sums,
 )
 
 
@@ -107,12 +115,11 @@ class _Run:
             self.own = _Even(likelihood_grid(prior, proxies, grid.size))
             self.own_tab = _Tables(proxies, self.own.grid, checked=False)
             self.zero_own = np.zeros(self.own.grid.size)
-        self.floor = np.full(grid.size, LOG_FLOOR)
         nan = lambda: np.full(m, np.nan)
         self.out = {key: nan() for key in ("median", "mode", "mean", "sd", "lower", "upper",
                                            "hdi_lower", "hdi_upper", "edge_lo", "edge_hi")}
         self.proxy_mean, self.proxy_sd = np.full((m, k), np.nan), np.full((m, k), np.nan)
-        self.hdi = [[] for _ in range(m)]
+        self.several: dict = {}      # rows with their own HDI pieces (screened rows)
         self.multimodal = np.zeros(m, dtype=bool)
         self.peaks = np.zeros(m, dtype=np.int64)
         self.dead = np.zeros(m, dtype=bool)
@@ -135,7 +142,7 @@ class _Run:
             y, s_ = self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b]
             t, tmp = scratch["t"][:b - a], scratch["tmp"][:b - a]
             with np.errstate(over="ignore", invalid="ignore"):   # absurd values: inf
-                _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp)
+                _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp, pool=scratch)
             rows = np.arange(b - a)
             k = lp.argmax(axis=1)
             if not np.all(np.isfinite(lp[rows, k])):
@@ -155,11 +162,11 @@ class _Run:
             m0 = lp[rows, i]
             near[0, a:b], near[1, a:b], near[2, a:b] = lp[rows, i - 1] - m0, 0.0, \
                 lp[rows, i + 1] - m0
-            np.subtract(lp, lp[rows, k][:, None], out=lp)
-            np.maximum(lp, self.floor, out=lp)      # exp then never leaves the normals
+            np.subtract(lp.T, lp[rows, k], out=lp.T)    # each row less its peak
+            np.maximum(lp, LOG_FLOOR, out=lp)      # exp then never leaves the normals
             np.exp(lp, out=lp)
             _row_moments(lp, W, M[a:b])
-            np.add.reduceat(lp, self.starts, axis=1, out=sums[a:b])
+            chunk_sums(lp, self.starts, sums[a:b])
             self.peaks[r0 + a:r0 + b] = pg.raw_peak_counts(lp)
         sl = slice(r0, r1)
         self.out["edge_lo"][sl], self.out["edge_hi"][sl] = P[:, 0], P[:, -1]
@@ -225,15 +232,13 @@ class _Run:
                                      (upper[0][one], upper[1][one]))
             where = r0 + one
             o["hdi_lower"][where], o["hdi_upper"][where] = lo, hi
-            for i, a, b in zip(where, lo, hi):
-                self.hdi[i] = [(float(a), float(b))]
         for i in np.flatnonzero(screen):
             row = P[i]
             modes = pg.significant_modes(row, MODE_FRACTION, DIP_FRACTION)
             pieces = pg.hdi_pieces(row, self.grid, lv)
-            g = r0 + i
+            g = r0 + int(i)
             self.multimodal[g] = len(modes) > 1
-            self.hdi[g] = pieces
+            self.several[g] = pieces
             o["hdi_lower"][g], o["hdi_upper"][g] = pieces[0][0], pieces[-1][1]
         if self.density is not None:
             self.density[sl] = P / rows.total[:, None]
@@ -310,13 +315,18 @@ def _compute(run: _Run) -> None:
     if m == 0:
         return
     step = min(SUMMARY_ROWS, m)
+    mine = threading.local()   # each thread's buffers, made once: a fresh block of this
+    # size is new memory from the system every time, and faulting its pages in from two
+    # threads at once serialises them
 
     def block(r0):
         r1 = min(m, r0 + step)
-        P = np.empty((r1 - r0, G))
-        sums = np.empty((r1 - r0, run.starts.size))
-        scratch = {"t": np.empty((BLOCK_ROWS, G)), "tmp": np.empty((BLOCK_ROWS, G))}
-        run.densities(P, sums, r0, r1, scratch)
+        if not hasattr(mine, "P"):
+            mine.P = np.empty((step, G))
+            mine.sums = np.empty((step, run.starts.size))
+            mine.scratch = {"t": np.empty((BLOCK_ROWS, G)), "tmp": np.empty((BLOCK_ROWS, G))}
+        P, sums = mine.P[:r1 - r0], mine.sums[:r1 - r0]
+        run.densities(P, sums, r0, r1, mine.scratch)
         run.summarise(P, sums, r0, r1)
 
     on_threads(block, range(0, m, step))
@@ -354,14 +364,15 @@ def _result(run: _Run, ok, prior, missing, invalid, outside, no_sd) -> Posterior
         run.out[key][run.dead] = np.nan
     run.proxy_mean[run.dead], run.proxy_sd[run.dead] = np.nan, np.nan
     for i in np.flatnonzero(run.dead):
-        run.hdi[i], run.multimodal[i] = [], False
+        run.several.pop(int(i), None)
+        run.multimodal[i] = False
     o = {key: _spread(v, ok) for key, v in run.out.items()}
     pmean, psd = _spread(run.proxy_mean, ok), _spread(run.proxy_sd, ok)
     chi2, dof, p = _consistency(pmean, psd)
     multimodal = _spread(run.multimodal, ok, 0.0) > 0
-    hdi = [[] for _ in range(ok.size)]
-    for i, r in enumerate(np.flatnonzero(ok)):
-        hdi[r] = run.hdi[i]
+    where = np.flatnonzero(ok)
+    hdi = HdiPieces(o["hdi_lower"], o["hdi_upper"],
+                    {int(where[i]): pieces for i, pieces in run.several.items()})
     g0, g1 = float(run.grid[0]), float(run.grid[-1])
     b_lo, b_hi = physical_hull(run.proxies)
     c_lo, c_hi = calibration_hull(run.proxies)

@@ -98,20 +98,24 @@ class GridRows:
         c = np.minimum(np.count_nonzero(F_end < target[:, None], axis=1), F_end.shape[1] - 1)
         first = np.maximum(self.starts[c] - 1, 0)
         off = self.offsets[rows]
-        idx = np.minimum((off + first)[:, None] + self.steps, (off + (G - 1))[:, None])
-        vals = np.take(self.flat, idx)                           # (n, w + 1)
+        # points by rows (the transpose): each step of the running sum then adds two
+        # contiguous vectors
+        idx = np.minimum((off + first)[None, :] + self.steps[:, None], (off + (G - 1))[None, :])
+        vals = np.take(self.flat, idx)                           # (w + 1, n)
         s0 = np.where(c > 0, self.S_end[rows, np.maximum(c - 1, 0)], self.p[rows, 0])
         S = np.empty_like(vals)
-        run = S[:, 1] = vals[:, 1]
-        for k in range(2, vals.shape[1]):
-            run = S[:, k] = run + vals[:, k]
-        S[:, 0] = s0
-        S[:, 1:] += s0[:, None]
-        F = self.h * (S - 0.5 * (self.p[rows, :1] + vals))
-        j = np.clip(np.count_nonzero(F <= target[:, None], axis=1) - 1, 0, self.width - 1)
+        S[0] = s0
+        run = np.add(s0, vals[1], out=S[1])
+        for k in range(2, vals.shape[0]):
+            run = np.add(run, vals[k], out=S[k])
+        half = np.add(self.p[rows, 0], vals)                     # as F_end: h (S - (p_0 + p_i) / 2)
+        half *= 0.5
+        F = np.subtract(S, half, out=S)
+        F *= self.h
+        j = np.clip(np.count_nonzero(F <= target, axis=0) - 1, 0, self.width - 1)
         i = np.minimum(first + j, G - 1)
-        pi, pj = vals[n, j], vals[n, j + 1]
-        u = np.maximum(target - F[n, j], 0.0) / self.h
+        pi, pj = vals[j, n], vals[j + 1, n]
+        u = np.maximum(target - F[j, n], 0.0) / self.h
         # F_i + h (p_i t + d t^2 / 2) = target, stable root t = 2u / (p_i + sqrt(p_i^2 + 2 d u))
         disc = np.sqrt(np.maximum(pi * pi + 2.0 * (pj - pi) * u, 0.0))
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -119,6 +123,32 @@ class GridRows:
         last = i >= G - 1
         t = np.where(last, 0.0, np.clip(t, 0.0, 1.0))
         return i, t
+
+    def quantile_near(self, target: np.ndarray, i: np.ndarray, t: np.ndarray,
+                      known: np.ndarray, rows: np.ndarray):
+        """:meth:`quantile_index` of ``target`` for ``rows`` whose distribution function
+        is known to equal ``known`` at ``x_i + t h`` (a previous answer): where the target
+        lies in that same cell, the cell's quadratic is solved from its two densities
+        alone (no chunk is read); elsewhere :meth:`quantile_index`. Near a root the
+        Newton steps of :func:`hdi_unimodal` move within a cell."""
+        G = self.p.shape[1]
+        h = self.h
+        ic = np.minimum(i, G - 2)
+        pi, pj = self.p[rows, ic], self.p[rows, ic + 1]
+        d = pj - pi
+        F_i = known - h * (pi * t + 0.5 * d * t * t)             # F at the cell's left end
+        F_next = F_i + 0.5 * h * (pi + pj)
+        same = (i < G - 1) & (target >= F_i) & (target <= F_next)
+        out_i, out_t = np.array(i, copy=True), np.empty_like(t)
+        u = np.maximum(target - F_i, 0.0) / h
+        disc = np.sqrt(np.maximum(pi * pi + 2.0 * d * u, 0.0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tt = np.where(pi + disc > 0, 2.0 * u / (pi + disc), 0.0)
+        out_t[same] = np.clip(tt[same], 0.0, 1.0)
+        other = np.flatnonzero(~same)
+        if other.size:
+            out_i[other], out_t[other] = self.quantile_index(target[other], rows[other])
+        return out_i, out_t
 
     def quantile(self, prob, x0: float):
         """x at cumulative probability ``prob`` (scalar or per row) [climate unit]."""
@@ -174,10 +204,12 @@ def hdi_unimodal(rows: GridRows, level: float, x0: float, sel: np.ndarray,
             slope = Z[k] * (sa / pa - sb / pb)
         return pa - pb, slope, (ia, ta, ib, tb)
 
-    def at(u, k):
-        ia, ta = rows.quantile_index(u * Z[k], sel[k])
-        ib, tb = rows.quantile_index((u + level) * Z[k], sel[k])
-        return gap(k, ia, ta, ib, tb)
+    def at(un, k):
+        """gap at ``un`` for rows k, starting from their current ends (ia, ta, ib, tb) at u[k]."""
+        za, zb = un * Z[k], (un + level) * Z[k]
+        ja, sa = rows.quantile_near(za, ia[k], ta[k], u[k] * Z[k], sel[k])
+        jb, sb = rows.quantile_near(zb, ib[k], tb[k], (u[k] + level) * Z[k], sel[k])
+        return gap(k, ja, sa, jb, sb)
 
     n = sel.size
     allk = np.arange(n)
@@ -280,7 +312,11 @@ def raw_peak_counts(p: np.ndarray) -> np.ndarray:
     is none): a cheap screen; rows with more than one are examined by
     :func:`significant_modes`."""
     up = p[:, 1:] > p[:, :-1]
-    inner = (up[:, :-1] > up[:, 1:]).sum(axis=1)                  # rising, then not
+    turn = up[:, :-1] > up[:, 1:]                                  # rising, then not
+    # counted as bytes in a 16-bit sum where the row is short enough (numpy's count
+    # along an axis is several times slower)
+    wide = np.uint16 if p.shape[1] < 65_535 else np.int64
+    inner = np.add.reduce(turn.view(np.uint8), axis=1, dtype=wide).astype(np.int64)
     return inner + (p[:, 0] > p[:, 1]) + up[:, -1]
 
 

@@ -2,7 +2,7 @@
 
 :class:`_Tables` holds what depends on the grid alone (computed once per run);
 :func:`_log_likelihoods` adds the proxies' Student t (or normal) log densities of a block
-of rows; :func:`_row_moments` the trapezoid moments in BLAS products of fixed size. Used
+of rows; :func:`_row_moments` the trapezoid moments row by row. Used
 by :mod:`refit.models.posterior`; every row's numbers depend on that row alone.
 """
 
@@ -42,9 +42,10 @@ class _Tables:
         self._cache: dict = {}
         self._tiles: dict = {}
 
-    def parts(self, j: int, V: np.ndarray):
-        """(d or c, the value-free part of the term) of proxy j for total variance V."""
-        logV = np.log(V)
+    def parts(self, j: int, V: np.ndarray, logV: np.ndarray | None = None):
+        """(d or c, the value-free part of the term) of proxy j for total variance V
+        (overwritten; ``logV`` a buffer of V's shape for the second, or None)."""
+        logV = np.log(V, out=logV)
         if self.a[j] is None:
             np.multiply(logV, -0.5, out=logV)
             return np.divide(0.5, V, out=V), logV
@@ -71,15 +72,30 @@ class _Tables:
 
 def _residual_sq(tab, j, yj, present, out):
     """``out = (f_j(x) - y_j)^2`` (rows without a value: 0)."""
-    np.subtract(tab.tiled(tab.loc, j, out.shape[0]),
-                np.where(present, yj, 0.0)[:, None], out=out)
+    # on the transposes: numpy subtracts a row from every row of an array side by side on
+    # threads, a column from every column not (and at half the speed)
+    np.subtract(tab.tiled(tab.loc, j, out.shape[0]).T, np.where(present, yj, 0.0),
+                out=out.T)
     np.square(out, out=out)
 
 
-def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None) -> None:
+def _scratch(pool, key, n: int, G: int) -> np.ndarray:
+    """An (n, G) buffer kept in ``pool`` (a dict of one thread's) under ``key``; a fresh
+    array when ``pool`` is None."""
+    if pool is None:
+        return np.empty((n, G))
+    got = pool.get(key)
+    if got is None or got.shape[0] < n or got.shape[1] != G:
+        got = pool[key] = np.empty((max(n, BLOCK_ROWS), G))
+    return got[:n]
+
+
+def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None, pool=None) -> None:
     """``lp = base + Σ_k log t_k`` (up to constants) for the rows of ``y``, ``s`` ((n, K),
     model scale; NaN: proxy not measured, its term left out) over the proxies ``which``
-    (default all). ``base`` (G,) is the log prior (or 0); ``t``, ``tmp`` (n, G) scratch.
+    (default all). ``base`` (G,) is the log prior (or 0); ``t``, ``tmp`` (n, G) scratch;
+    ``pool`` a dict of the calling thread's where further scratch is kept between calls
+    (a proxy whose SD changes from row to row needs two more arrays of the block's size).
 
     The value-free parts are summed onto ``base`` in proxy order (0 for a row without the
     proxy), then each group of proxies with one df adds ``-a log Π (r^2 + d)`` (factor 1
@@ -99,7 +115,10 @@ def _log_likelihoods(tab: _Tables, y, s, base, lp, t, tmp, which=None) -> None:
             scale, part = tab.constants(j, float(sj[0]))
             B = B + part if pj.all() else B + np.where(pj[:, None], part, 0.0)
         else:
-            scale, part = tab.parts(j, tab.tiled(tab.var, j, sj.size) + (sj * sj)[:, None])
+            G = tab.var[j].size
+            V = _scratch(pool, ("V", j), sj.size, G)
+            np.add(tab.tiled(tab.var, j, sj.size).T, sj * sj, out=V.T)   # v_j(x) + s^2
+            scale, part = tab.parts(j, V, _scratch(pool, ("logV", j), sj.size, G))
             if not pj.all():
                 part[~pj] = 0.0
             B = np.add(part, B, out=part)
@@ -143,19 +162,28 @@ def _log_likelihoods_apart(tab: _Tables, y, s, base, lp, t, tmp) -> None:
 
 
 def _row_moments(p, W, out=None):
-    """``p @ W`` in products of exactly :data:`BLOCK_ROWS` rows (the last one padded with
-    zero rows): a BLAS product of a row can depend on how many rows share the call, and a
-    row's numbers must depend on that row alone."""
-    n = p.shape[0]
-    out = np.empty((n, W.shape[1])) if out is None else out
-    for a in range(0, n, BLOCK_ROWS):
-        b = min(n, a + BLOCK_ROWS)
-        if b - a == BLOCK_ROWS:
-            np.matmul(p[a:b], W, out=out[a:b])
-        else:
-            pad = np.zeros((BLOCK_ROWS, p.shape[1]))
-            pad[:b - a] = p[a:b]
-            out[a:b] = (pad @ W)[:b - a]
+    """``p @ W`` row by row (``numpy.einsum``'s own loops: each row's moments are sums
+    over that row alone, and the loops release the interpreter lock, so row blocks on
+    threads run side by side; a BLAS product of a few columns serialises threads on
+    OpenBLAS's buffer lock and can depend on how many rows share the call)."""
+    out = np.empty((p.shape[0], W.shape[1])) if out is None else out
+    Wt = W.T if W.T.flags.c_contiguous else np.ascontiguousarray(W.T)
+    np.einsum("ij,kj->ik", p, Wt, out=out)
+    return out
+
+
+def chunk_sums(p, starts, out):
+    """``numpy.add.reduceat(p, starts, axis=1)`` for chunks of equal width (the last may be
+    shorter): the full chunks summed over a reshaped view by ``numpy.einsum`` (a sum over
+    a short last axis is slow in ``numpy.sum``; reduceat holds the interpreter lock)."""
+    n, G = p.shape
+    w = int(starts[1] - starts[0]) if starts.size > 1 else G
+    k = G // w
+    full = k * w
+    if k:
+        np.einsum("ijk->ij", p[:, :full].reshape(n, k, w), out=out[:, :k])
+    if full < G:
+        np.sum(p[:, full:], axis=1, out=out[:, k])
     return out
 
 
@@ -174,5 +202,6 @@ class _Even:
         self.xc = grid - self.centre
         self.wts = np.full(grid.size, self.h)
         self.wts[[0, -1]] *= 0.5
-        self.moment_weights = np.column_stack([self.wts, self.wts * self.xc,
-                                               self.wts * self.xc * self.xc])
+        # (G, 3) in column order: its transpose, read by :func:`_row_moments`, is contiguous
+        self.moment_weights = np.asfortranarray(np.column_stack(
+            [self.wts, self.wts * self.xc, self.wts * self.xc * self.xc]))
