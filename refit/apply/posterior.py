@@ -174,6 +174,8 @@ def add_posteriors(results: pd.DataFrame, equations, inputs, sds_for, *, prior=N
                            problems, posterior_from_records)
     if combined:
         out = pd.concat([out, pd.DataFrame(combined)], ignore_index=True)
+    # a count: whole numbers, empty where no posterior was read (not 1.0 / NaN)
+    out["posterior_hdi_pieces"] = pd.to_numeric(out["posterior_hdi_pieces"]).astype("Int64")
     return out, records, problems
 
 

@@ -7,6 +7,9 @@ Calibrations and fossils are a seeded simulation (invented data), as the rules a
 
 from __future__ import annotations
 
+import csv
+import io
+
 import json
 import math
 
@@ -192,6 +195,9 @@ def test_cli_posterior_writes_columns_and_json(files, tmp_path):
     assert res.exit_code == 0, res.output
     got = pd.read_csv(out)
     assert set(COLS) <= set(got.columns) and (got["function_id"] == "posterior").sum() == 2
+    # the number of HDI pieces is written as a whole number (1, not 1.0) on every row
+    rows = list(csv.DictReader(io.StringIO(out.read_text())))
+    assert {r["posterior_hdi_pieces"] for r in rows[:2]} == {"1"}
     meta = json.loads((tmp_path / "est.csv.posterior.json").read_text())
     assert meta["posteriors"][-1]["prior"] == {"kind": "normal", "mean": 700.0, "sd": 300.0}
     for bad in (["--prior", "beta:1:2", "--posterior"], ["--prior", "uniform:1:2"]):
