@@ -96,7 +96,8 @@ def fit_label(r) -> str:
     """Short row label: a literature equation by its short citation and what it is of
     ("Retallack 1994, from bk_depth"; the part of its function id after ``_from_``, so a
     paper with several equations names each), a refit by function id, version and
-    candidate, the combined posterior by its proxies. A named variant
+    candidate (a run's candidate never published: "unpublished" in place of its placeholder
+    version), the combined posterior by its proxies. A named variant
     (:func:`refit.coefficients.format.variant_of`; not the unnamed default) follows the
     version ("map_from_bk_depth 1.1.0 mixed linear__mixed__inverse__analytic"), so two
     variants at one version stay apart."""
@@ -118,8 +119,12 @@ def fit_label(r) -> str:
         return "" if missing else str(value).strip()
 
     what = text(getattr(r, "candidate", "")) or text(r.status)
+    from refit.coefficients.format import CANDIDATE_VERSION
+
+    # a run's candidate that was never published carries a placeholder version: say so
+    version = "unpublished" if text(r.version) == CANDIDATE_VERSION else text(r.version)
     # a missing part leaves no double space
-    return " ".join(p for p in (text(r.function_id), text(r.version), variant, what) if p)
+    return " ".join(p for p in (text(r.function_id), version, variant, what) if p)
 
 
 def variant_label(value) -> str:

@@ -147,13 +147,13 @@ def test_paler_bars_are_explained_only_when_drawn():
 
 
 def test_long_fit_labels_are_shown_whole_and_the_page_title_clears_them():
-    # the longest label a run candidate gets: function id, '0.0.0-candidate' and the
+    # a long label a run candidate gets: function id, 'unpublished' and the
     # candidate name; the figure is drawn and each text's box measured by the renderer
     import matplotlib.pyplot as plt
 
     from refit.apply.compare import comparison_figure
 
-    long = "map_from_bk_depth 0.0.0-candidate quadratic__huber__inverse__split-conformal"
+    long = "map_from_bk_depth unpublished quadratic__huber__inverse__split-conformal"
     table = pd.concat([_rows([long, "Retallack 1994, from bk_depth"], ["refit", "literature"],
                              ["map_from_bk_depth"] * 2, pid=p) for p in ("P1", "P2")])
     fig = comparison_figure(table, title="page 1 of 2")

@@ -87,7 +87,7 @@ def test_comparison_table_and_labels_name_the_variant(files):
     assert by_file.loc[files["huber"], "fit"] == f"map_from_bk_depth 1.0.0 huber {CANDIDATE}"
     # no variant, or the default one: the label as it always was
     assert by_file.loc[files["candidate"], "fit"] == \
-        f"map_from_bk_depth 0.0.0-candidate {CANDIDATE}"
+        f"map_from_bk_depth unpublished {CANDIDATE}"
     assert by_file.loc[RETALLACK, "fit"] == "Retallack 1994, from bk_depth"
     assert table["fit"].nunique() == 4
 
