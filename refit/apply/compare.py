@@ -20,6 +20,7 @@ import textwrap
 import numpy as np
 import pandas as pd
 
+from refit._util.numbers import reading_texts
 from refit.errors import UsageError
 
 TABLE_COLUMNS = [
@@ -371,8 +372,8 @@ def _note(r) -> str:
     if r.origin == "posterior":
         note = "posterior (Bayesian), proxies multiplied"
     elif post is not None:
-        note += (f"\nposterior {_fmt(post[0])} [{_fmt(post[1])}, {_fmt(post[2])}] "
-                 "(hatched)")
+        med, lo, hi = reading_texts(*post)
+        note += f"\nposterior {med} [{lo}, {hi}] (hatched)"
     if r.flags:
         note += "\nflags: " + str(r.flags).replace(";", ", ")
     if r.problem:
@@ -454,10 +455,6 @@ def _posterior_of(r):
     except (AttributeError, TypeError, ValueError):
         return None
     return (med, lo, hi) if np.isfinite(med) else None
-
-
-def _fmt(v: float) -> str:
-    return f"{v:.4g}" if np.isfinite(v) else "?"
 
 
 def _posterior_bar(ax, y, lo, med, hi, height) -> None:

@@ -128,6 +128,7 @@ def print_results(results, console) -> None:
     from rich.table import Table
     from rich.text import Text
 
+    from refit._util.numbers import reading_texts
     from refit.apply.compare import fit_label
     from refit.curate.schema import unit_notation
 
@@ -143,7 +144,7 @@ def print_results(results, console) -> None:
             r.cv_coverage == r.cv_coverage else "-"
         mc = "yes" if str(r.propagation).startswith("monte-carlo") else ""
         note = Text(r.problem, style="red") if r.problem else Text(str(r.flags))
-        interval = f"[{fmt_number(r.lower)}, {fmt_number(r.upper)}] {unit_notation(r.unit)}"
-        table.add_row(str(r.paleosol_id), fit, fmt_number(r.estimate), interval, level, mc,
-                      cov, note)
+        est, lo, hi = reading_texts(r.estimate, r.lower, r.upper)
+        interval = f"[{lo}, {hi}] {unit_notation(r.unit)}"
+        table.add_row(str(r.paleosol_id), fit, est, interval, level, mc, cov, note)
     console.print(table)

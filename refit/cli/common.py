@@ -744,6 +744,7 @@ def print_comparison(table, console, indent: str = "") -> None:
     line after ``indent``)."""
     from rich.text import Text
 
+    from refit._util.numbers import reading_texts
     from refit.apply.compare import coverage_text
     from refit.curate.schema import unit_notation
 
@@ -754,8 +755,8 @@ def print_comparison(table, console, indent: str = "") -> None:
             if r.problem:
                 line.append(f"not evaluated ({r.problem})", style="red")
             else:
-                line.append(f"{fmt_number(r.estimate)} [{fmt_number(r.lower)}, "
-                            f"{fmt_number(r.upper)}] {unit_notation(r.unit)}; "
+                est, lo, hi = reading_texts(r.estimate, r.lower, r.upper)
+                line.append(f"{est} [{lo}, {hi}] {unit_notation(r.unit)}; "
                             + coverage_text(r.cv_coverage, r.cv_scheme, r.level, r.interval))
                 if r.flags:
                     line.append(f"; flags: {str(r.flags).replace(';', ', ')}",
