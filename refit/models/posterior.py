@@ -163,7 +163,8 @@ class _Run:
             near[0, a:b], near[1, a:b], near[2, a:b] = lp[rows, i - 1] - m0, 0.0, \
                 lp[rows, i + 1] - m0
             np.subtract(lp.T, lp[rows, k], out=lp.T)    # each row less its peak
-            np.maximum(lp, LOG_FLOOR, out=lp)      # exp then never leaves the normals
+            if lp.min() < LOG_FLOOR:     # (a Student t's tails rarely fall that far)
+                np.maximum(lp, LOG_FLOOR, out=lp)  # exp then never leaves the normals
             np.exp(lp, out=lp)
             _row_moments(lp, W, M[a:b])
             chunk_sums(lp, self.starts, sums[a:b])
