@@ -31,7 +31,8 @@ def init(data, out, force, sheet) -> None:
     An xlsx workbook is read on its first visible sheet, or on the sheet --sheet names;
     the recipe names the sheet it read ([data] sheet = "NAME"; the other sheets are
     ignored) when --sheet is given or the workbook has several visible sheets, so a
-    later change of the workbook's sheet order cannot change the data a fit reads.
+    later change of the workbook's sheet order cannot change the data a fit reads
+    (e.g. `refit init field_book.xlsx --sheet Data`).
 
     \b
     Exit codes: 0 written, 1 nothing to fit (no climate or no feature column with
@@ -42,7 +43,6 @@ def init(data, out, force, sheet) -> None:
     Examples:
       refit init store --out my-recipe.toml
       refit init incoming_soils.csv --out incoming.toml --force
-      refit init field_book.xlsx --sheet Data --out field.toml
     """
     from pathlib import Path
 

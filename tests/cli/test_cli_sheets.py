@@ -81,13 +81,15 @@ def _recipe(folder, data: str) -> None:
 
 
 @pytest.mark.parametrize("data, words", [
-    ('store = "store"\nsheet = "Data"', "r.toml, line 3: [data] sheet = 'Data' names a "
-                                        "worksheet of an xlsx table, but the data are a store"),
-    ('table = "soils.csv"\nsheet = "Data"', "r.toml, line 3: [data] sheet = 'Data' names a "
-                                            "worksheet, but table 'soils.csv' is not an xlsx"),
-    ('table = "book.xlsx"\nsheet = "Dta"', "r.toml, line 3: [data] sheet = 'Dta': workbook "
-                                           "'book.xlsx' has no such worksheet; its sheets are "
-                                           "'Notes', 'Data'"),
+    ('store = "store"\nsheet = "Data"', ("r.toml, line 3: [data] sheet = 'Data' names a "
+                                         "worksheet of an xlsx table, but the data are a "
+                                         "store")),
+    ('table = "soils.csv"\nsheet = "Data"', ("r.toml, line 3: [data] sheet = 'Data' names "
+                                             "a worksheet, but table 'soils.csv' is not an "
+                                             "xlsx")),
+    ('table = "book.xlsx"\nsheet = "Dta"', ("r.toml, line 3: [data] sheet = 'Dta': "
+                                            "workbook 'book.xlsx' has no such worksheet; its "
+                                            "sheets are 'Notes', 'Data'")),
 ])
 def test_fit_refuses_a_misplaced_or_unknown_sheet(book, data, words):
     folder, frame = book
@@ -102,10 +104,11 @@ def test_fit_refuses_a_misplaced_or_unknown_sheet(book, data, words):
 
 
 @pytest.mark.parametrize("args, words", [
-    (["init", "soils.csv", "--sheet", "Data"], "--sheet 'Data': soils.csv is a .csv file, "
-                                               "not an xlsx workbook"),
-    (["init", "book.xlsx", "--sheet", "Nope"], "book.xlsx: --sheet 'Nope': no such "
-                                               "worksheet; the workbook has 'Notes', 'Data'"),
+    (["init", "soils.csv", "--sheet", "Data"], ("--sheet 'Data': soils.csv is a .csv file, "
+                                                "not an xlsx workbook")),
+    (["init", "book.xlsx", "--sheet", "Nope"], ("book.xlsx: --sheet 'Nope': no such "
+                                                "worksheet; the workbook has 'Notes', "
+                                                "'Data'")),
 ])
 def test_init_refuses_a_sheet_of_a_csv_or_an_unknown_sheet(book, args, words):
     folder, frame = book

@@ -148,7 +148,7 @@ def test_scaffold_names_the_first_visible_of_several_sheets(tmp_path):
 
 
 def test_scaffold_refuses_a_sheet_of_a_csv_or_an_unknown_sheet(book):
-    path, rows = book
+    path, _ = book
     (path.parent / "soils.csv").write_text(",".join(HEADER) + "\n", encoding="utf-8")
     with pytest.raises(UsageError, match=r"--sheet 'Data': .*soils.csv is a .csv file, not "
                                          r"an xlsx workbook"):
