@@ -72,6 +72,10 @@ def test_init_sheet_then_fit_reads_the_data_sheet(book):
     ref = sm.OLS(frame["map_mm"], sm.add_constant(frame["bk_depth_cm"])).fit().params
     assert rec["coefficients"] == pytest.approx(list(ref), rel=1e-9)
     assert rec["coefficients"][1] == pytest.approx(ref["bk_depth_cm"], rel=1e-9)
+    # the report rebuilds the data from run.json: the same sheet, the same 30 rows
+    res = _run("report", "run", "--out", "report.html", "-q")
+    assert res.exit_code == 0, res.output
+    assert (folder / "report.html").stat().st_size > 0
 
 
 def _recipe(folder, data: str) -> None:
