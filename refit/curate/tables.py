@@ -147,6 +147,26 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
     )
 
 
+def is_workbook(path) -> bool:
+    """Whether ``path`` names an xlsx workbook (by its extension, as :func:`read_table`)."""
+    return Path(path).suffix.lower() in EXCEL_SUFFIXES
+
+
+def workbook_sheets(path) -> tuple[list[str], list[str]]:
+    """The worksheet names of an xlsx workbook, in order, and the visible ones.
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is missing or is not a readable xlsx workbook.
+    """
+    from refit.curate.workbooks import sheet_names
+
+    path = Path(path)
+    _check_exists(path)
+    return sheet_names(path)
+
+
 def _check_exists(path: Path) -> None:
     import stat
 

@@ -51,6 +51,33 @@ def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]
     return rows, notes, sha256_file(path)
 
 
+def sheet_names(path: Path) -> tuple[list[str], list[str]]:
+    """Every worksheet name of an xlsx workbook, in order, and the visible ones.
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is not a readable xlsx workbook.
+    """
+    import zipfile
+
+    from openpyxl import load_workbook
+    from openpyxl.utils.exceptions import InvalidFileException
+
+    try:
+        book = load_workbook(path, read_only=True, data_only=True)
+    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as exc:
+        raise UnreadableInputError(
+            f"{path}: not a readable xlsx workbook ({type(exc).__name__}: {exc}); open it in a "
+            "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
+        ) from None
+    try:
+        return (list(book.sheetnames),
+                [ws.title for ws in book.worksheets if ws.sheet_state == "visible"])
+    finally:
+        book.close()
+
+
 def _pick_sheet(book, sheet, path: Path):
     """The worksheet asked for (name or 0-based index); by default the first visible one."""
     names = book.sheetnames

@@ -172,9 +172,13 @@ def load_run(run_dir, *, candidate: str | None = None, store=None) -> ReportInpu
 
 def _recorded_dataset(run: dict, record: dict) -> dict:
     """The record's ``provenance.dataset`` with the run's path to the data (coefficient
-    records leave the path out; run.json keeps it)."""
+    records leave the path out; run.json keeps it), and the worksheet of an xlsx table
+    (``sheet``, kept by run.json only)."""
     ds = dict((record.get("provenance") or {}).get("dataset") or run.get("dataset") or {})
     path = (run.get("dataset") or {}).get("path")
     if path and not ds.get("path"):
         ds["path"] = path
+    sheet = (run.get("dataset") or {}).get("sheet")
+    if sheet is not None and "sheet" not in ds:
+        ds["sheet"] = sheet
     return ds

@@ -53,6 +53,9 @@ class DataSource:
         The store version's records hash, or the table file's hash.
     rows : int
         Records in the data set (before the subset).
+    sheet : str or None
+        The worksheet of an xlsx table that was read, when a recipe's ``[data] sheet``
+        named it (None: a store, a csv/parquet table, or a workbook's first visible sheet).
     """
 
     kind: str
@@ -61,18 +64,22 @@ class DataSource:
     version: int | None
     sha256: str
     rows: int
+    sheet: str | None = None
 
     def describe(self) -> str:
         """``store 'demo' (version 2)`` or ``table 'soils.csv'``, for messages."""
         if self.kind == "store":
             return f"store {self.name!r} (version {self.version})"
-        return f"table {self.name!r}"
+        return f"table {self.name!r}" + (f" (sheet {self.sheet!r})" if self.sheet else "")
 
     def to_dict(self) -> dict:
         """The provenance a run records (``kind``, ``path``, ``name``, ``version``,
-        ``sha256``, ``rows``)."""
-        return {"kind": self.kind, "path": str(self.path), "name": self.name,
-                "version": self.version, "sha256": self.sha256, "rows": int(self.rows)}
+        ``sha256``, ``rows``; and ``sheet`` when a worksheet was named)."""
+        out = {"kind": self.kind, "path": str(self.path), "name": self.name,
+               "version": self.version, "sha256": self.sha256, "rows": int(self.rows)}
+        if self.sheet is not None:
+            out["sheet"] = self.sheet
+        return out
 
 
 @dataclass
@@ -148,14 +155,28 @@ def _open_store(path: Path, where: str, fix: str):
     return open_store(path)
 
 
-def _checked_table(path: Path, where: str):
-    """The table's checked frame and row count; refused when the check finds errors."""
+def _checked_table(path: Path, where: str, sheet: str | None = None,
+                   sheet_where: str | None = None):
+    """The table's checked frame and row count; refused when the check finds errors.
+
+    ``sheet`` names the worksheet of an xlsx table (default the first visible one); an
+    unknown name is refused listing the workbook's sheets.
+    """
     from refit.curate.checks import check_file
 
     if not path.is_file():
         raise UnreadableInputError(f"{where}table {str(path)!r} is not found: no such file; "
                                    "check the path")
-    report = check_file(path)
+    if sheet is not None:
+        from refit.curate.tables import workbook_sheets
+
+        names, _ = workbook_sheets(path)
+        if sheet not in names:
+            raise UnreadableInputError(
+                f"{where if sheet_where is None else sheet_where}sheet = {sheet!r}: workbook {path.name!r} has no such worksheet; its "
+                f"sheets are {', '.join(map(repr, names))}{suggest(sheet, names)}: name one "
+                "of them")
+    report = check_file(path, sheet=sheet)
     if not report.ok:
         raise InvalidDataError(
             f"{where}table {str(path)!r} has {len(report.errors)} error(s) in "
@@ -207,9 +228,10 @@ def open_recipe_data(recipe: Recipe):
     if recipe.store is not None:
         return _store_at(recipe)
     where = f"{recipe.where('data.table')}: [data] "
-    frame, rows = _checked_table(recipe.table, where)
+    frame, rows = _checked_table(recipe.table, where, recipe.sheet,
+                                 f"{recipe.where('data.sheet')}: [data] ")
     source = DataSource("table", recipe.table, recipe.table.name, None,
-                        sha256_file(recipe.table), rows)
+                        sha256_file(recipe.table), rows, sheet=recipe.sheet)
     return frame, source
 
 
@@ -256,8 +278,12 @@ def _recorded_table(ds: dict, path: Path):
     found = sha256_file(path)
     if found != ds["sha256"]:
         raise _sha_mismatch(f"table {str(path)!r}", found, ds["sha256"])
-    frame, rows = _checked_table(path, "")
-    return frame, DataSource("table", path, path.name, None, found, rows)
+    sheet = ds.get("sheet")
+    if sheet is not None and (not isinstance(sheet, str) or not sheet):
+        raise InvalidDataError(f"provenance.dataset.sheet is {sheet!r}; a worksheet name "
+                               "(text) or none is needed to rebuild the data")
+    frame, rows = _checked_table(path, "", sheet)
+    return frame, DataSource("table", path, path.name, None, found, rows, sheet=sheet)
 
 
 def open_recorded_data(ds: dict, location=None):

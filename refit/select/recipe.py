@@ -5,6 +5,7 @@ A recipe has these sections (every key is optional unless marked *required*)::
 
     [data]          table = "soils.csv"  or  store = "path/to/store"    (one of them, required)
                     version (a store's dataset version; default the latest)
+                    sheet (a worksheet name of an xlsx table; default the first visible)
     [subset]        <column> = "value" | ["value", ...] | { min = ..., max = ... }
     [function]      id (required), response (required), predictors (required),
                     weights (wls), x_sd and y_sd (york)
@@ -44,7 +45,7 @@ from refit.select.schemes import ALIASES, NEEDS_GROUP_COLUMN, SCHEMES, canonical
 from refit.select.subsets import Filter, parse_filter
 
 SECTIONS = {
-    "data": ("table", "store", "version"),
+    "data": ("table", "store", "version", "sheet"),
     "subset": None,  # any column name
     "function": ("id", "response", "predictors", "weights", "x_sd", "y_sd"),
     "candidates": ("forms", "estimators", "directions", "random_slope"),
@@ -101,6 +102,7 @@ class Recipe:
     y_sd: str | None = None
     random_slope: bool = False
     block_km: float | None = None
+    sheet: str | None = None
     lines: dict = field(default_factory=dict, compare=False, repr=False)
     defaults: tuple[str, ...] = field(default=(), compare=False)
 
@@ -252,6 +254,7 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
     v = Values(path, lines)
     data = doc.get("data", {})
     table, store = _data_paths(data, path, lines) if given is None else _given_paths(given)
+    sheet = _sheet(data, table, store, path, lines)
     fn = doc.get("function", {})
     for key in ("id", "response", "predictors"):
         if key not in fn:
@@ -309,7 +312,7 @@ def parse_recipe(doc: dict, *, path: Path, text: str = "", sha256: str = "",
         groups=groups,
         seed=v.integer("validation.seed", val.get("seed", 0), minimum=0, maximum=MAX_SEED),
         level=v.level("intervals.level", ivl.get("level", 0.95)),
-        methods=methods, lines=lines, defaults=tuple(notes),
+        methods=methods, lines=lines, defaults=tuple(notes), sheet=sheet,
         **_extras(v, doc, scheme, store, path, lines),
     )
 
@@ -422,6 +425,33 @@ def _data_paths(data: dict, path: Path, lines: dict):
             "recipe may only name data inside its own folder. Name data elsewhere on the "
             f"command line instead: refit fit {path.name} --{key} PATH")
     return (full, None) if key == "table" else (None, full)
+
+
+def _sheet(data: dict, table, store, path: Path, lines: dict) -> str | None:
+    """``[data] sheet``: a worksheet name, only beside an xlsx ``table``.
+
+    A name, never a 0-based position: a position silently names other data once the
+    workbook's sheets are reordered. Checked for its type first, then against the data
+    (also when ``--table``/``--store`` on the command line replaced the recipe's path).
+    """
+    from refit.curate.tables import is_workbook
+
+    if "sheet" not in data:
+        return None
+    value = data["sheet"]
+    at = _where(path, lines, "data.sheet")
+    if not isinstance(value, str) or not value.strip():
+        raise UsageError(f"{at}: [data] sheet must be a worksheet name in quotes, e.g. sheet = "
+                         f"\"Data\" (a name, not a position); got {value!r}")
+    if store is not None:
+        raise UsageError(f"{at}: [data] sheet = {value!r} names a worksheet of an xlsx table, "
+                         "but the data are a store, which has no sheets; remove the key (or "
+                         "name the workbook with table = \"book.xlsx\")")
+    if not is_workbook(table):
+        raise UsageError(f"{at}: [data] sheet = {value!r} names a worksheet, but table "
+                         f"{Path(table).name!r} is not an xlsx workbook; remove the key (only "
+                         "an .xlsx table has sheets)")
+    return value
 
 
 def _check_groups(scheme: str, groups, path: Path, lines: dict) -> None:

@@ -62,6 +62,11 @@ class Survey:
         Errors the check found in a table (``refit fit`` refuses such a table).
     version : int or None
         A store's dataset version.
+    sheet : str or None
+        The worksheet of an xlsx table that was read and that the recipe names: the one
+        asked for, or the first visible one of a workbook with several visible sheets.
+    sheets : list of str
+        Every worksheet name of an xlsx table (empty for other data).
     """
 
     kind: str
@@ -72,6 +77,8 @@ class Survey:
     unmapped: list = field(default_factory=list)
     n_errors: int = 0
     version: int | None = None
+    sheet: str | None = None
+    sheets: list = field(default_factory=list)
 
 
 @dataclass
@@ -82,17 +89,36 @@ class Choice:
     reason: str
 
 
-def survey(path) -> Survey:
+def survey(path, sheet: str | None = None) -> Survey:
     """Read a calibration table (csv/tsv/xlsx/parquet) or a store folder.
+
+    Parameters
+    ----------
+    path : str or Path
+        The table or the store folder.
+    sheet : str, optional
+        Worksheet of an xlsx table (a name); default the first visible one. A workbook
+        with several visible sheets gets the sheet read named in ``Survey.sheet`` either
+        way, so a later change of the workbook's sheet order cannot change the data.
 
     Raises
     ------
     UnreadableInputError
-        Missing or unreadable file, or a folder that is not a refit store.
+        Missing or unreadable file, a folder that is not a refit store, or no worksheet
+        ``sheet`` in the workbook (its sheets are listed).
+    UsageError
+        ``sheet`` with a store or with a table that is not an xlsx workbook.
     """
-    from refit.errors import UnreadableInputError
+    from refit.errors import UnreadableInputError, UsageError
 
     path = Path(path)
+    if sheet is not None and (path.is_dir() or path.exists()):
+        from refit.curate.tables import is_workbook
+
+        if path.is_dir() or not is_workbook(path):
+            what = "a store folder" if path.is_dir() else f"a {path.suffix or 'text'} file"
+            raise UsageError(f"--sheet {sheet!r}: {path} is {what}, not an xlsx workbook; "
+                             "only an .xlsx table has sheets (leave out --sheet)")
     if path.is_dir():
         from refit.select.dataset import _open_store
 
@@ -107,14 +133,23 @@ def survey(path) -> Survey:
         raise UnreadableInputError(f"{path}: no such file or folder; give a calibration table "
                                    "(csv, xlsx, parquet) or a store folder")
     from refit.curate.checks import check_file
+    from refit.curate.tables import is_workbook, workbook_sheets
 
-    report = check_file(path)
+    names: list = []
+    if is_workbook(path):
+        names, visible = workbook_sheets(path)
+        if sheet is not None and sheet not in names:
+            raise UnreadableInputError(f"{path}: --sheet {sheet!r}: no such worksheet; the "
+                                       f"workbook has {', '.join(map(repr, names))}")
+        if sheet is None and len(visible) > 1:
+            sheet = visible[0]
+    report = check_file(path, sheet=sheet)
     unmapped = report.problems[report.problems["rule"] == "unmapped-column"]
     return Survey("table", path, report.frame, int(report.n_rows),
                   mapped=[n for n in report.notes if n.startswith("column ")],
                   unmapped=[{"column": r.column, "how": _how(r.message)}
                             for r in unmapped.itertuples(index=False)],
-                  n_errors=len(report.errors))
+                  n_errors=len(report.errors), sheet=sheet, sheets=list(names))
 
 
 def _how(message: str) -> str:
@@ -266,6 +301,12 @@ def _data_lines(sv: Survey, recipe_dir: Path) -> list[str]:
     if sv.kind == "store":
         out.append(f"# version = {sv.version}   # a dataset version of the store; default "
                    "the latest")
+    if sv.sheet is not None:
+        others = [n for n in sv.sheets if n != sv.sheet]
+        out += _wrap(f"sheet: the worksheet of {sv.path.name} that is read; "
+                     + (f"its other sheets ({', '.join(map(repr, others))}) are ignored"
+                        if others else "the workbook has no other sheet"))
+        out.append(f"sheet = {toml_string(sv.sheet)}")
     return out + [""]
 
 
@@ -416,7 +457,8 @@ def _interval_lines(resolved: dict, notes: dict, left_out: str | None = None) ->
 
 def _header(sv: Survey, pick: dict) -> list[str]:
     what = (f"store '{sv.path.name}' (dataset version {sv.version})" if sv.kind == "store"
-            else f"table '{sv.path.name}'")
+            else f"table '{sv.path.name}'"
+            + (f" (sheet '{sv.sheet}')" if sv.sheet is not None else ""))
     out = [f"# A first recipe for the {_comment(what)}, written by `refit init`: edit it, then",
            "#   refit fit THIS_FILE --out run",
            "# Every key and its default are in the README's recipe reference.",
@@ -490,14 +532,15 @@ def _self_check(text: str, recipe_path) -> None:
             raise RuntimeError(f"refit init wrote a recipe that does not load: {exc}") from None
 
 
-def scaffold(path, recipe_path) -> tuple[str, Survey, dict]:
-    """Survey ``path`` (table or store) and the recipe text for ``recipe_path``.
+def scaffold(path, recipe_path, sheet: str | None = None) -> tuple[str, Survey, dict]:
+    """Survey ``path`` (table or store; ``sheet``: worksheet of an xlsx table, see
+    :func:`survey`) and the recipe text for ``recipe_path``.
 
     Returns
     -------
     (str, Survey, dict)
         The TOML text, the survey and the choices (:func:`suggest`).
     """
-    sv = survey(path)
+    sv = survey(path, sheet)
     pick = suggest(sv)
     return render(sv, pick, recipe_path), sv, pick

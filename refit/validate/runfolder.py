@@ -39,8 +39,10 @@ OOF_COLUMNS = ("candidate", "scheme", "row", "profile_id", "repeat", "fold", "ob
 def shareable(dataset: dict) -> dict:
     """The dataset's provenance without this machine's path: coefficient files get
     published and shared, so they name the data by name, version and hash only (the run's
-    own run.json keeps the path, for `refit report`)."""
-    return {k: v for k, v in dataset.items() if k != "path"}
+    own run.json keeps the path, for `refit report`). The worksheet of an xlsx table
+    (``sheet``) stays in run.json too: coefficient-file schema 1.3.0 has no member for it,
+    and adding one is a schema version of its own."""
+    return {k: v for k, v in dataset.items() if k not in ("path", "sheet")}
 
 
 def fit_filename(label: str) -> str:
