@@ -101,7 +101,8 @@ def read_table(path, *, as_text: bool = False, sheet: str | int | None = None,
     as_text : bool
         Keep every cell as its original string (``""`` when empty) instead of inferring types.
     sheet : str or int, optional
-        Worksheet of an xlsx file (name or 0-based index); default the first visible sheet (hidden sheets are passed over).
+        Worksheet of an xlsx file (name or 0-based index); default the first visible
+        sheet (hidden sheets are passed over).
     digest : bool
         Compute the file's SHA-256 (``Table.sha256``). A caller that records no provenance
         (``refit check``) can skip it on csv files: ``sha256`` is then ``""``.
