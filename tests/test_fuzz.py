@@ -18,15 +18,16 @@ import json
 import math
 import os
 import shutil
+import sys
 import tempfile
 from pathlib import Path
 
 import pytest
+from _harness import LINEAR, make_fits
 from click.testing import CliRunner
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from _harness import LINEAR, make_fits
 from refit._util.resources import demo_dir
 from refit.cli import main
 
@@ -341,6 +342,17 @@ def test_the_property_catches_a_traceback():
 # reads as the same document must still be refused, because load() checks the exact bytes.
 ATTACKS = {"non-finite": 0, "respelled": 0, "nested": 0, "recipe sizes": 0,
            "rows above the header": 0, "encodings and ids": 0, "manifest edits": 0}
+#: the property that counts each kind of attack (a run of some properties only, with -k,
+#: leaves the others' counts at 0)
+COUNTED_BY = {
+    "non-finite": "test_a_non_finite_number_in_place_of_a_null_never_loads",
+    "respelled": "test_the_same_content_in_other_bytes_never_loads",
+    "nested": "test_deeply_nested_json_is_a_clear_error",
+    "recipe sizes": "test_fit_refuses_recipe_sizes_beyond_the_limits_at_once",
+    "rows above the header": "test_every_data_row_is_accounted_for_whatever_its_place_or_encoding",
+    "encodings and ids": "test_every_data_row_is_accounted_for_whatever_its_place_or_encoding",
+    "manifest edits": "test_a_manifest_of_the_wrong_shape_is_a_clear_error",
+}
 
 
 def _null_offsets(raw: bytes) -> list[int]:
@@ -578,8 +590,14 @@ def test_a_manifest_of_the_wrong_shape_is_a_clear_error(edits, top):
     ATTACKS["manifest edits"] += 1
 
 
-def test_zz_report_attack_counts():
-    # runs last in file order: how many attacks of each kind ran (-s shows the line)
+def test_zz_report_attack_counts(request):
+    # runs last in file order: how many attacks of each kind ran (-s shows the line); every
+    # kind whose property ran in this session was tried at least once
     print("attacks run:", ", ".join(f"{k} {v}" for k, v in ATTACKS.items()))
+    ran = {item.originalname for item in request.session.items}
+    assert set(COUNTED_BY.values()) <= {name for name in dir(sys.modules[__name__])
+                                        if name.startswith("test_")}
     if not os.environ.get("PYTEST_XDIST_WORKER"):
-        assert all(v > 0 for v in ATTACKS.values()) or not any(ATTACKS.values())
+        missing = [kind for kind, test in COUNTED_BY.items()
+                   if test in ran and ATTACKS[kind] == 0]
+        assert not missing, f"no attack of kind {missing} ran"
