@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from refit.cli.common import finish, guarded, say
+from refit.errors import UsageError
 
 
 @click.command("verify", short_help="Check a coefficient file or registry; refit from a store.")
@@ -12,6 +13,11 @@ from refit.cli.common import finish, guarded, say
 @click.option("--store", default=None, metavar="STORE", type=click.Path(path_type=str),
               help=("Calibration store, or the table file a table-based fit was made on: refit "
                     "from the recorded dataset version and compare."))
+@click.option("--sheet", default=None, metavar="NAME",
+              help=("With --store and a workbook: read this worksheet instead of the one the "
+                    "file records (provenance.dataset.sheet), e.g. for a schema 1.3.0 file "
+                    "fitted on a named sheet. Default: the recorded sheet, else the first "
+                    "visible one."))
 @click.option("--tolerance", type=click.FloatRange(min=0), default=1e-9, show_default=True,
               help="Largest difference allowed when refitting (relative above 1).")
 @click.option("--trust", "trust", multiple=True, metavar="PUBKEYFILE",
@@ -21,14 +27,15 @@ from refit.cli.common import finish, guarded, say
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text",
               show_default=True, help="Report for people (text) or programs (json).")
 @guarded
-def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, ...],
-           fmt: str) -> None:
+def verify(target: str, store: str | None, sheet: str | None, tolerance: float,
+           trust: tuple[str, ...], fmt: str) -> None:
     """Check TARGET: a coefficient file, or a registry folder (every file and its index).
 
     A file must carry the sha256 of its content, be byte for byte as refit writes it and
     match the coefficient-file schema. With --store, the recorded dataset version is rebuilt
     from the store, the recorded subset and recipe settings are applied, the same equation
-    is refitted and cross-validated again, and every fitted number, the valid domain and
+    is refitted and cross-validated again (a fit made on a workbook rereads the worksheet
+    the file records, or --sheet), and every fitted number, the valid domain and
     the cross-validated skill must agree within the tolerance. For a registry, index.json
     must agree with the files (versions, hashes) and each file with its own hash; what
     disagrees is named. With --trust, each file must also carry a signature
@@ -51,6 +58,10 @@ def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, .
 
     keys = trusted_keys(trust) if trust else None
     path = Path(target)
+    if sheet is not None and (store is None or path.is_dir()):
+        raise UsageError("--sheet names the worksheet to refit one file from: give it with "
+                         "--store WORKBOOK.xlsx and a coefficient file, not "
+                         + ("a registry folder" if store is not None else "without --store"))
     if path.is_dir():
         from refit.publish.registry import open_registry
 
@@ -58,7 +69,7 @@ def verify(target: str, store: str | None, tolerance: float, trust: tuple[str, .
             say(f"Note: {message}.", err=True)
         report = verify_registry(path, store=store, tol=tolerance, trust=keys)
     else:
-        report = verify_file(path, store=store, tol=tolerance, trust=keys)
+        report = verify_file(path, store=store, tol=tolerance, trust=keys, sheet=sheet)
     if fmt == "json":
         click.echo(json.dumps(report.to_dict(), indent=2, ensure_ascii=False))
     else:

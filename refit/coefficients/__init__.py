@@ -7,11 +7,11 @@ evaluates a file without pandas, statsmodels or scikit-learn.
 """
 
 from refit.coefficients.format import (  # noqa: F401  (the public names of the format)
-    CANDIDATE_VERSION, CAUTION, DEFAULT_VARIANT, SCHEMA_VERSION, VARIANT_NAME, Equation,
-    Prediction, canonical_bytes,
+    CANDIDATE_VERSION, CAUTION, DEFAULT_VARIANT, SCHEMA_VERSION, SHEET_SCHEMA, VARIANT_NAME,
+    Equation, Prediction, canonical_bytes,
     check_content_hash, check_schema, check_schema_version, content_sha256, dumps, json_path,
-    load, parse_bytes, plain, read_bytes, read_file, read_record, schema, schema_problems,
-    validate, variant_name, variant_of, with_hash, write_record,
+    load, parse_bytes, plain, read_bytes, read_file, read_record, recorded_sheet, schema,
+    schema_problems, schema_version_for, validate, variant_name, variant_of, with_hash, write_record,
 )
 
 

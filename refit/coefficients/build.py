@@ -32,7 +32,8 @@ import datetime as _dt
 
 import numpy as np
 
-from refit.coefficients.format import CAUTION, CANDIDATE_VERSION, SCHEMA_VERSION, validate, with_hash
+from refit.coefficients.format import (CAUTION, CANDIDATE_VERSION, schema_version_for, validate,
+                                       with_hash)
 
 APPROX_BOOTSTRAP = (
     "approximation: the in-memory bootstrap draws resampled fits and residuals with a "
@@ -304,8 +305,11 @@ def build_record(fit, *, function_id, provenance, cv, interval_method, level, se
     interval = interval_record(fit, interval_method, level, seed, folds=folds)
     if interval.get("reason"):
         cautions = [*cautions, interval["reason"]]
+    # the lowest schema version that describes the record: 1.4.0 with a worksheet in the
+    # provenance, else 1.3.0, so fits from a store or a csv keep their bytes and hash
+    schema_version = schema_version_for({"provenance": provenance})
     return {
-        "schema_version": SCHEMA_VERSION, "function_id": function_id, "version": version,
+        "schema_version": schema_version, "function_id": function_id, "version": version,
         "status": status, "created": created, "candidate": candidate,
         "response": {"name": fit.response, "unit": units.get(fit.response)},
         "predictors": [{"name": p, "unit": units.get(p), "valid_min": fit.ranges[p][0],

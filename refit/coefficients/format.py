@@ -36,7 +36,7 @@ import numpy as np
 
 from refit.errors import InvalidDataError, UnreadableInputError, UsageError
 
-SCHEMA_VERSION = "1.3.0"
+SCHEMA_VERSION = "1.4.0"
 CANDIDATE_VERSION = "0.0.0-candidate"
 SCHEMA_FILE = "coefficients.schema.json"
 CAUTION = ("An estimate from a transfer function carries a wide interval; use it for "
@@ -50,6 +50,28 @@ VARIANT_NAME = re.compile(r"^[a-z][a-z0-9_-]{0,39}$")
 DEFAULT_VARIANT = "default"
 #: The schema version that introduced ``$.variant``.
 VARIANT_SCHEMA = "1.3.0"
+#: The schema version that introduced ``$.provenance.dataset.sheet`` (the worksheet of an
+#: xlsx table a fit was made on).
+SHEET_SCHEMA = "1.4.0"
+#: The schema version written when the content needs nothing newer: files without a
+#: sheet keep the bytes and the hash they had before the sheet member existed.
+BASE_WRITE_SCHEMA = "1.3.0"
+
+
+def recorded_sheet(content: dict) -> str | None:
+    """``$.provenance.dataset.sheet``: the worksheet of an xlsx table the fit was made on,
+    or ``None`` (a store, a csv/parquet table, a literature equation, or a file written
+    before schema 1.4.0)."""
+    ds = (content.get("provenance") or {}).get("dataset") if isinstance(content, dict) else None
+    sheet = ds.get("sheet") if isinstance(ds, dict) else None
+    return sheet if isinstance(sheet, str) else None
+
+
+def schema_version_for(content: dict) -> str:
+    """The lowest schema version that describes ``content``: :data:`SHEET_SCHEMA` when
+    the provenance records a worksheet, else :data:`BASE_WRITE_SCHEMA` (so a fit from a
+    store or a csv table is written byte for byte as before schema 1.4.0)."""
+    return SHEET_SCHEMA if recorded_sheet(content) is not None else BASE_WRITE_SCHEMA
 
 
 # ----------------------------------------------------------------------------- variants
@@ -293,10 +315,24 @@ def _check_consistency(c: dict, where: str) -> None:
             raise InvalidDataError(f"{where}: {path} must be {p} x {p} (one row and "
                                    "column per term)")
     _check_group_interval(c.get("interval") or {}, p, where)
+    if recorded_sheet(c) is not None and _version_tuple(c["schema_version"]) < \
+            _version_tuple(SHEET_SCHEMA):
+        raise InvalidDataError(f"{where}: $.provenance.dataset.sheet is set, but "
+                               f"$.schema_version is {c['schema_version']!r}; the sheet "
+                               f"member exists from schema {SHEET_SCHEMA} on: take the file "
+                               "again from its registry or run")
     for name in c["equation"]["x"]:
         if not any(name in t for t in c["terms"]):
             raise InvalidDataError(f"{where}: $.equation.x names {name!r}, which no term "
                                    "uses")
+
+
+def _version_tuple(text) -> tuple:
+    """``"1.3.0"`` -> ``(1, 3, 0)``; text that is not one sorts first."""
+    try:
+        return tuple(int(p) for p in str(text).split("."))
+    except ValueError:
+        return (0,)
 
 
 def _check_group_interval(iv: dict, p: int, where: str) -> None:

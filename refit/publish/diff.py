@@ -121,6 +121,7 @@ def provenance_rows(a: dict, b: dict) -> list[dict]:
 
     items = [
         ("dataset", lambda c: get(c, "provenance", "dataset", "name")),
+        ("dataset sheet", lambda c: get(c, "provenance", "dataset", "sheet")),
         ("dataset version", lambda c: get(c, "provenance", "dataset", "version")),
         ("dataset sha256", lambda c: get(c, "provenance", "dataset", "sha256")),
         ("subset filters", _filters),
@@ -132,7 +133,10 @@ def provenance_rows(a: dict, b: dict) -> list[dict]:
         ("interval level", lambda c: get(c, "interval", "level")),
         ("software", lambda c: get(c, "provenance", "software", "refit")),
     ]
-    return [_row("item", name, fn(a), fn(b)) for name, fn in items]
+    rows = [_row("item", name, fn(a), fn(b)) for name, fn in items]
+    # the worksheet of a workbook (schema 1.4.0) only when either file records one
+    return [r for r, (name, fn) in zip(rows, items)
+            if name != "dataset sheet" or fn(a) is not None or fn(b) is not None]
 
 
 # ----------------------------------------------------------------------------- predictions

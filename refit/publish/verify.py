@@ -43,7 +43,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from refit.errors import InvalidDataError, RefitError
+from refit.errors import InvalidDataError, RefitError, UsageError
 
 TOLERANCE = 1e-9
 #: Top-level fitted numbers compared on reproduction.
@@ -83,8 +83,13 @@ class VerifyReport:
 
 
 # ----------------------------------------------------------------------------- one file
-def verify_file(path, *, store=None, tol: float = TOLERANCE, trust=None) -> VerifyReport:
+def verify_file(path, *, store=None, tol: float = TOLERANCE, trust=None,
+                sheet: str | None = None) -> VerifyReport:
     """Check a coefficient file (see the module docstring).
+
+    ``sheet`` (with ``store``, a workbook) reads that worksheet instead of the one the file
+    records in ``provenance.dataset.sheet`` (default: the recorded one; a file without it,
+    the first visible sheet).
 
     Raises
     ------
@@ -100,7 +105,8 @@ def verify_file(path, *, store=None, tol: float = TOLERANCE, trust=None) -> Veri
     if trust is not None:
         report.checks.append(signature_check(path, raw, trust))
     if store is not None and report.ok:
-        report.checks.append(reproduce_check(content, store, tol=tol, name=str(path)))
+        report.checks.append(reproduce_check(content, store, tol=tol, name=str(path),
+                                             sheet=sheet))
     return report
 
 
@@ -154,10 +160,11 @@ def trusted_keys(paths) -> list:
 
 
 # ----------------------------------------------------------------------------- reproduce
-def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str = "") -> Check:
+def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str = "",
+                    sheet: str | None = None) -> Check:
     """Refit the file from ``store`` and compare (a failing :class:`Check` on mismatch)."""
     try:
-        diffs, data = reproduce(content, store, tol=tol, details=True)
+        diffs, data = reproduce(content, store, tol=tol, details=True, sheet=sheet)
     except InvalidDataError as exc:
         return Check("reproduce", False, str(exc), name)
     if diffs:
@@ -165,13 +172,28 @@ def reproduce_check(content: dict, store, *, tol: float = TOLERANCE, name: str =
         more = f" and {len(diffs) - 6} more" if len(diffs) > 6 else ""
         return Check("reproduce", False, f"{name}: the refit does not reproduce the file "
                      f"(tolerance {tol:g}): {shown}{more}", name)
-    return Check("reproduce", True, f"refitted from {data.source.describe()} "
+    return Check("reproduce", True, f"refitted from {data.source.describe()}"
+                 f"{_sheet_note(content, sheet)} "
                  f"({len(data.frame)} rows after the subset): every fitted number, the valid "
                  f"domain and the cross-validated skill "
                  f"agree within {tol:g}", name)
 
 
-def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool = False):
+def _sheet_note(content: dict, sheet: str | None) -> str:
+    """`` (given by --sheet; the file records ...)`` when ``sheet`` overrides the file's."""
+    from refit.coefficients.format import recorded_sheet
+
+    if sheet is None:
+        return ""
+    recorded = recorded_sheet(content)
+    if recorded == sheet:
+        return ""
+    return (f" (given by --sheet; the file records sheet {recorded!r})" if recorded
+            else " (given by --sheet; the file records no sheet)")
+
+
+def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool = False,
+              sheet: str | None = None):
     """Refit a coefficient file's content from its data; returns (differences, rows).
 
     ``store_dir`` is where the recorded data are now: the store folder, or the table file
@@ -180,6 +202,8 @@ def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool
     report's) and the candidate refitted by :func:`refit.validate.refits.refit_record`.
     ``differences`` lists ``(field, in the file, refitted)`` beyond ``tol``; with
     ``details`` the second item is the rebuilt :class:`refit.select.dataset.Dataset`.
+    The worksheet of a workbook is the one ``provenance.dataset.sheet`` records (schema
+    1.4.0), or ``sheet`` when given (e.g. a 1.3.0 file fitted on a named sheet).
 
     Raises
     ------
@@ -191,7 +215,16 @@ def reproduce(content: dict, store_dir, *, tol: float = TOLERANCE, details: bool
     """
     from refit.validate.refits import refit_record
 
-    data, fit = refit_record(content, store_dir)
+    dataset = None
+    if sheet is not None:
+        ds = (content.get("provenance") or {}).get("dataset")
+        if not isinstance(ds, dict) or ds.get("kind") != "table":
+            name = ds.get("name") if isinstance(ds, dict) else None
+            raise UsageError(f"--sheet {sheet!r} names a worksheet of a workbook, but the "
+                             f"fit was made on store {name!r}, which has no sheets; "
+                             "drop --sheet")
+        dataset = {**ds, "sheet": sheet}
+    data, fit = refit_record(content, store_dir, dataset=dataset)
     numbers = refitted_numbers(fit, content, data.recipe)
     numbers.update(recomputed_domain_and_skill(content, data, fit))
     diffs = compare(content, numbers, tol)

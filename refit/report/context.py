@@ -265,7 +265,10 @@ def build(inp, figures: list[dict], facts: dict, *, report_command: list[str] | 
         "response": rec["response"], "predictors": rec["predictors"],
         "dataset": {"kind": ds.get("kind"), "name": ds.get("name"), "version": ds.get("version"),
                     "sha256": ds.get("sha256"), "rows": ds.get("rows"),
-                    "path": shown_path(ds.get("path"))},
+                    "path": shown_path(ds.get("path")),
+                    # the worksheet read: the coefficient file's (schema 1.4.0), else run.json's
+                    "sheet": (((rec.get("provenance") or {}).get("dataset") or {}).get("sheet")
+                              or ds.get("sheet"))},
         "subset": {"before": sub.get("rows_before"), "after": sub.get("rows_after"),
                    "steps": sub.get("steps") or []},
         "recipe": {"path": recipe_path(inp.run),

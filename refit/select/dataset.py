@@ -275,15 +275,35 @@ def _recorded_table(ds: dict, path: Path):
     if not path.is_file():
         raise UnreadableInputError(f"table {str(path)!r} is not found: no such file; "
                                    f"{WHERE_HINT}")
-    found = sha256_file(path)
-    if found != ds["sha256"]:
-        raise _sha_mismatch(f"table {str(path)!r}", found, ds["sha256"])
     sheet = ds.get("sheet")
     if sheet is not None and (not isinstance(sheet, str) or not sheet):
         raise InvalidDataError(f"provenance.dataset.sheet is {sheet!r}; a worksheet name "
                                "(text) or none is needed to rebuild the data")
+    if sheet is not None:       # before the hash: the wrong kind of file is a usage error
+        _recorded_sheet_there(path, sheet, ds.get("name"))
+    found = sha256_file(path)
+    if found != ds["sha256"]:
+        raise _sha_mismatch(f"table {str(path)!r}", found, ds["sha256"])
     frame, rows = _checked_table(path, "", sheet)
     return frame, DataSource("table", path, path.name, None, found, rows, sheet=sheet)
+
+
+def _recorded_sheet_there(path: Path, sheet: str, name) -> None:
+    """Refuse (exit 2) a table that is not a workbook, or a workbook without ``sheet``,
+    for a fit that records the worksheet it was made on."""
+    made_on = f"the fit was made on sheet {sheet!r} of workbook {name!r}"
+    if path.suffix.lower() != ".xlsx":
+        raise UnreadableInputError(f"{made_on} (provenance.dataset.sheet), but {str(path)!r} "
+                                   "is not an xlsx workbook, so it has no sheets; give the "
+                                   "workbook the fit was made on")
+    from refit.curate.tables import workbook_sheets
+
+    names, _ = workbook_sheets(path)
+    if sheet not in names:
+        raise UnreadableInputError(f"{made_on} (provenance.dataset.sheet), but workbook "
+                                   f"{str(path)!r} has no such worksheet; its sheets are "
+                                   f"{', '.join(map(repr, names))}{suggest(sheet, names)}; "
+                                   "give the workbook the fit was made on")
 
 
 def open_recorded_data(ds: dict, location=None):

@@ -40,9 +40,10 @@ def shareable(dataset: dict) -> dict:
     """The dataset's provenance without this machine's path: coefficient files get
     published and shared, so they name the data by name, version and hash only (the run's
     own run.json keeps the path, for `refit report`). The worksheet of an xlsx table
-    (``sheet``) stays in run.json too: coefficient-file schema 1.3.0 has no member for it,
-    and adding one is a schema version of its own."""
-    return {k: v for k, v in dataset.items() if k not in ("path", "sheet")}
+    (``sheet``) is kept when one was read (coefficient-file schema 1.4.0), so `refit verify
+    --store BOOK.xlsx` rereads that sheet; it is absent otherwise."""
+    return {k: v for k, v in dataset.items()
+            if k != "path" and not (k == "sheet" and v is None)}
 
 
 def fit_filename(label: str) -> str:
