@@ -180,6 +180,15 @@ def _surely_passes(values: pd.Series, field: dict, keys: list[str]) -> bool:
     return True
 
 
+def _rounded(values: np.ndarray, decimals: int) -> np.ndarray:
+    """``values`` rounded to ``decimals`` (no float noise such as ...00001 in a message);
+    a value too large to scale by 10**decimals is kept as it is (it has no decimals to
+    round), never turned into inf with an overflow warning."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        out = np.round(values, decimals)
+    return np.where(np.isfinite(out), out, values)
+
+
 def check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
     """Rule ``oxide-total``: the ``*_wt`` oxide columns of ``desc`` present in ``work`` add
     up to more than the descriptor's ``oxide_total_max_wt`` (default 101 wt%) in a row."""
@@ -193,7 +202,7 @@ def check_oxide_total(work: pd.DataFrame, probs: Problems, desc: dict) -> None:
     total = pd.Series(total, index=work.index)
     pos = np.flatnonzero((total > limit).to_numpy())
     if len(pos):
-        shown = fmt_values(total.iloc[pos].round(6))  # no float noise such as ...00001
+        shown = fmt_values(_rounded(total.iloc[pos].to_numpy(), 6))
         probs.add("error", "oxide-total", pos, "+".join(oxides), shown,
                   "the oxides add up to " + shown
                   + f" wt% (more than {limit:g}); check for a value in ppm or a "

@@ -352,3 +352,19 @@ def test_an_admit_refused_for_several_reasons_says_so_on_one_line(tmp_path):
     line = one_error_line(res)
     assert "(1) required column 'profile_id'" in line and "(5) no climate column" in line
     assert not (tmp_path / "s").exists()
+
+
+def test_an_absurd_oxide_total_is_shown_as_read_without_a_warning(tmp_path):
+    # found by the long fuzzing run: an oxide of 1e308 made the oxide-total message round
+    # 1e308 * 10**6 (overflow: inf, and a numpy RuntimeWarning on stderr)
+    import subprocess
+    import sys
+
+    table = tmp_path / "ox.csv"
+    table.write_text("profile_id,latitude,longitude,source,map_mm,sio2_wt,al2o3_wt\n"
+                     "A,10,10,S1,500,1e308,10\n", encoding="utf-8")
+    run = subprocess.run([sys.executable, "-m", "refit", "check", str(table)],
+                         capture_output=True, text=True, timeout=120)
+    assert run.returncode == 1
+    assert run.stderr == ""
+    assert "the oxides add up to 1e+308 wt%" in run.stdout
