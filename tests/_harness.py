@@ -206,6 +206,41 @@ def invented_soils(n: int, seed: int, offsets, *, forest_every: int | None = Non
         "age_ka": rng.uniform(1, 50, n).round(1)})
 
 
+#: the columns of the invented soils of a workbook sheet
+SHEET_HEADER = ["profile_id", "latitude", "longitude", "source", "map_mm", "bk_depth_cm"]
+
+
+def sheet_soils(n: int, seed: int, *, prefix: str, source: str, where=(-31.0, 141.0),
+                depth=(20.0, 150.0), line=(140.0, 3.1), sd: float = 55.0,
+                sources: int = 4) -> list[list]:
+    """Rows (under :data:`SHEET_HEADER`) of ``n`` invented soils of an invented basin for a
+    workbook sheet: Bk depth uniform in ``depth`` [cm], MAP = line[0] + line[1] x depth plus
+    normal noise of SD ``sd`` [mm], rounded as typed; ids ``PREFIX-001``...; ``sources``
+    sources named ``SOURCE-k``; coordinates within 2 degrees of ``where``."""
+    import numpy as np
+
+    rng = np.random.default_rng(seed)
+    d = rng.uniform(*depth, n).round(1)
+    mapmm = (line[0] + line[1] * d + rng.normal(0.0, sd, n)).round(1)
+    return [[f"{prefix}-{i + 1:03d}", round(where[0] - rng.uniform(0, 2), 4),
+             round(where[1] + rng.uniform(0, 2), 4), f"{source}-{i % sources}",
+             float(mapmm[i]), float(d[i])] for i in range(n)]
+
+
+def write_workbook(path, sheets: dict) -> None:
+    """An xlsx file (openpyxl) with one worksheet per item of ``sheets``: title -> rows of
+    cells, in order."""
+    from openpyxl import Workbook
+
+    book = Workbook()
+    book.remove(book.active)
+    for title, rows in sheets.items():
+        ws = book.create_sheet(title)
+        for row in rows:
+            ws.append(row)
+    book.save(path)
+
+
 def nist_strd(name: str):
     """Data block of a NIST StRD file in tests/data/nist (y first, then x...), read via the
     line range its header states."""

@@ -17,27 +17,38 @@ import pandas as pd
 from refit.curate.headers import blank_columns, refuse_repeated
 from refit.errors import UnreadableInputError
 
-
 # ---------------------------------------------------------------------------------------
 # workbooks
 
 
-def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]:
-    """Rows of one worksheet as display text, the reader's notes and the file's sha256."""
+def open_workbook(path: Path):
+    """The workbook at ``path`` opened read-only with its saved cell values (openpyxl);
+    close it when done.
+
+    Raises
+    ------
+    UnreadableInputError
+        The file is not a readable xlsx workbook.
+    """
     import zipfile
 
     from openpyxl import load_workbook
     from openpyxl.utils.exceptions import InvalidFileException
 
-    from refit._util.atomic import sha256_file
-
     try:
-        book = load_workbook(path, read_only=True, data_only=True)
+        return load_workbook(path, read_only=True, data_only=True)
     except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as exc:
         raise UnreadableInputError(
             f"{path}: not a readable xlsx workbook ({type(exc).__name__}: {exc}); open it in a "
             "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
         ) from None
+
+
+def read_excel_rows(path: Path, sheet) -> tuple[list[list[str]], list[str], str]:
+    """Rows of one worksheet as display text, the reader's notes and the file's sha256."""
+    from refit._util.atomic import sha256_file
+
+    book = open_workbook(path)
     try:
         ws, note = _pick_sheet(book, sheet, path)
         rows = [[_cell_text(v) for v in row] for row in ws.iter_rows(values_only=True)]
@@ -59,18 +70,7 @@ def sheet_names(path: Path) -> tuple[list[str], list[str]]:
     UnreadableInputError
         The file is not a readable xlsx workbook.
     """
-    import zipfile
-
-    from openpyxl import load_workbook
-    from openpyxl.utils.exceptions import InvalidFileException
-
-    try:
-        book = load_workbook(path, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as exc:
-        raise UnreadableInputError(
-            f"{path}: not a readable xlsx workbook ({type(exc).__name__}: {exc}); open it in a "
-            "spreadsheet program and save it again as .xlsx, or export the sheet as CSV"
-        ) from None
+    book = open_workbook(path)
     try:
         return (list(book.sheetnames),
                 [ws.title for ws in book.worksheets if ws.sheet_state == "visible"])

@@ -14,15 +14,15 @@ from __future__ import annotations
 import hashlib
 import json
 
-import numpy as np
 import pandas as pd
 import pytest
+from _harness import SHEET_HEADER, sheet_soils, write_workbook
 from click.testing import CliRunner
 
 from refit.cli import main
 
 N_SOILS = 30
-HEADER = ["profile_id", "latitude", "longitude", "source", "map_mm", "bk_depth_cm"]
+HEADER = SHEET_HEADER
 FIT = "linear__ols__inverse__analytic.json"
 
 
@@ -31,24 +31,11 @@ def _run(*args):
 
 
 def _rows():
-    rng = np.random.default_rng(41)
-    depth = rng.uniform(25.0, 160.0, N_SOILS).round(1)
-    mapmm = (150.0 + 3.1 * depth + rng.normal(0.0, 55.0, N_SOILS)).round(1)
-    return [[f"TQ-{i + 1:03d}", round(-31.0 - rng.uniform(0, 2), 4),
-             round(141.0 + rng.uniform(0, 2), 4), f"Tarrow Quay-{i % 5}", float(mapmm[i]),
-             float(depth[i])] for i in range(N_SOILS)]
+    return sheet_soils(N_SOILS, 41, prefix="TQ", source="Tarrow Quay", depth=(25.0, 160.0),
+                       line=(150.0, 3.1), sources=5)
 
 
-def _workbook(path, sheets: dict) -> None:
-    from openpyxl import Workbook
-
-    wb = Workbook()
-    wb.remove(wb.active)
-    for name, rows in sheets.items():
-        ws = wb.create_sheet(name)
-        for row in rows:
-            ws.append(row)
-    wb.save(path)
+_workbook = write_workbook
 
 
 @pytest.fixture

@@ -11,15 +11,15 @@ from __future__ import annotations
 
 import json
 
-import numpy as np
 import pandas as pd
 import pytest
+from _harness import SHEET_HEADER, sheet_soils, write_workbook
 from click.testing import CliRunner
 
 from refit.cli import main
 
 N_SOILS = 30
-HEADER = ["profile_id", "latitude", "longitude", "source", "map_mm", "bk_depth_cm"]
+HEADER = SHEET_HEADER
 
 
 def _run(*args):
@@ -29,23 +29,12 @@ def _run(*args):
 @pytest.fixture
 def book(tmp_path, monkeypatch):
     """book.xlsx in a fresh folder (the cwd): sheet "Notes", then sheet "Data"."""
-    from openpyxl import Workbook
-
-    rng = np.random.default_rng(23)
-    depth = rng.uniform(25.0, 160.0, N_SOILS).round(1)
-    mapmm = (120.0 + 3.4 * depth + rng.normal(0.0, 60.0, N_SOILS)).round(1)
-    rows = [[f"MB-{i + 1:03d}", round(-28.0 - rng.uniform(0, 2), 4),
-             round(137.0 + rng.uniform(0, 2), 4), f"Harrowfield-{i % 5}", float(mapmm[i]),
-             float(depth[i])] for i in range(N_SOILS)]
-    wb = Workbook()
-    notes = wb.active
-    notes.title = "Notes"
-    notes.append(["Marrow Bench soil survey (invented), field notes"])
-    notes.append(["The table is on the sheet Data."])
-    data = wb.create_sheet("Data")
-    for row in [HEADER, *rows]:
-        data.append(row)
-    wb.save(tmp_path / "book.xlsx")
+    rows = sheet_soils(N_SOILS, 23, prefix="MB", source="Harrowfield", where=(-28.0, 137.0),
+                       depth=(25.0, 160.0), line=(120.0, 3.4), sd=60.0, sources=5)
+    write_workbook(tmp_path / "book.xlsx",
+                   {"Notes": [["Marrow Bench soil survey (invented), field notes"],
+                              ["The table is on the sheet Data."]],
+                    "Data": [HEADER, *rows]})
     monkeypatch.chdir(tmp_path)
     return tmp_path, pd.DataFrame(rows, columns=HEADER)
 

@@ -11,8 +11,8 @@ from __future__ import annotations
 
 import tomllib
 
-import numpy as np
 import pytest
+from _harness import SHEET_HEADER, sheet_soils, write_workbook
 
 from refit.errors import UnreadableInputError, UsageError
 from refit.select.dataset import dataset_from_recipe, open_recorded_data
@@ -20,30 +20,15 @@ from refit.select.recipe import read_recipe
 from refit.select.scaffold import scaffold
 
 N_SOILS = 30
-HEADER = ["profile_id", "latitude", "longitude", "source", "map_mm", "bk_depth_cm"]
+HEADER = SHEET_HEADER
 
 
 def soils(seed: int = 11, n: int = N_SOILS) -> list[list]:
     """Invented soils of an invented basin: MAP rises with Bk depth, plus noise."""
-    rng = np.random.default_rng(seed)
-    depth = rng.uniform(20.0, 150.0, n).round(1)
-    mapmm = (140.0 + 3.1 * depth + rng.normal(0.0, 55.0, n)).round(1)
-    return [[f"QV-{i + 1:03d}", round(-31.0 - rng.uniform(0, 2), 4),
-             round(141.0 + rng.uniform(0, 2), 4), f"Tessary-{i % 4}", float(mapmm[i]),
-             float(depth[i])] for i in range(n)]
+    return sheet_soils(n, seed, prefix="QV", source="Tessary")
 
 
-def workbook(path, sheets: dict) -> None:
-    """An xlsx file with one worksheet per item: rows of cells, in order."""
-    from openpyxl import Workbook
-
-    book = Workbook()
-    book.remove(book.active)
-    for title, rows in sheets.items():
-        ws = book.create_sheet(title)
-        for row in rows:
-            ws.append(row)
-    book.save(path)
+workbook = write_workbook
 
 
 NOTES = [["Field book of the Quillan Vale campaign (invented)"], ["text only, no table"]]
