@@ -137,8 +137,8 @@ def _check_and_admit(out: Path, result: DemoResult, say) -> None:
 
 
 def _fit(out: Path, result: DemoResult, say, progress) -> None:
-    from refit.validate.candidates import run_recipe
     from refit.select.recipe import read_recipe
+    from refit.validate.candidates import run_recipe
     from refit.validate.runfolder import write_run
 
     recipe_path = out / "recipe.toml"  # its [data] store = "store" now names the copy
@@ -237,11 +237,13 @@ def _apply_and_compare(out: Path, result: DemoResult, say) -> None:
 
 def _say_posterior(results, say) -> None:
     """One line per paleosol with two proxies: the combined posterior and the test."""
+    from refit._util.numbers import reading_texts
+
     both = results[results["function_id"] == "posterior"]
     for r in both.itertuples(index=False):
         verdict = "DISAGREE" if "proxies-disagree" in str(r.flags) else "agree"
-        say(f"   {r.paleosol_id}: posterior median {r.posterior_median:.0f} mm "
-            f"[{r.posterior_lower:.0f}, {r.posterior_upper:.0f}]; "
+        med, lo, hi = reading_texts(r.posterior_median, r.posterior_lower, r.posterior_upper)
+        say(f"   {r.paleosol_id}: posterior median {med} mm [{lo}, {hi}]; "
             f"consistency chi2 {r.proxy_chi2:.2f}, p {r.proxy_chi2_p:.2f}: {verdict}")
 
 
@@ -264,8 +266,12 @@ def section_rows(results, published):
 
 
 def _section(out: Path, result: DemoResult, say) -> None:
-    from refit.apply.section import section_table, layout_notes, resolution_notes
-    from refit.apply.section import SectionResult
+    from refit.apply.section import (
+        SectionResult,
+        layout_notes,
+        resolution_notes,
+        section_table,
+    )
     from refit.report.section_plot import write_section
 
     say("[bold]7. Section[/bold]: the climate up each section from the published fit, the "

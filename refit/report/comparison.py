@@ -135,12 +135,18 @@ def figure(table, folder=None) -> dict | None:
     return {**pages[0], "pages": pages, "panels": panels, "of": panels}
 
 
-def _interval(r) -> str:
-    from refit.report.context import num
+def _reading(*values) -> list[str]:
+    """An estimate and its interval ends at one resolution, as the report writes numbers
+    (blank when missing, ∞ when unbounded)."""
+    from refit._util.numbers import reading_texts
 
+    return reading_texts(*values, missing="", infinity="∞")
+
+
+def _interval(r) -> str:
     if r.problem:
         return ""
-    lo, hi = num(r.lower), num(r.upper)
+    _, lo, hi = _reading(r.estimate, r.lower, r.upper)
     return f"{lo} to {hi}" if (lo or hi) else "none"
 
 
@@ -157,11 +163,10 @@ def _beside(r) -> str:
 def _posterior(r) -> str:
     """The posterior median and interval of a row ('' without one): a forward file's own,
     or the combined posterior row's."""
-    from refit.report.context import num
-
     if r.problem or r.posterior_median != r.posterior_median:
         return ""
-    text = f"{num(r.posterior_median)} ({num(r.posterior_lower)} to {num(r.posterior_upper)})"
+    med, lo, hi = _reading(r.posterior_median, r.posterior_lower, r.posterior_upper)
+    text = f"{med} ({lo} to {hi})"
     return text + (f"; {r.posterior_flags.replace(';', ', ')}" if r.posterior_flags else "")
 
 
@@ -175,10 +180,11 @@ def rows(table) -> list[list[str]]:
     kind), the posterior median and interval beside it where apply produced one, unit,
     level, and what is beside it."""
     from refit.curate.schema import unit_notation
-    from refit.report.context import num, pct
+    from refit.report.context import pct
 
-    return [[r.paleosol_id, r.fit, num(r.estimate), _interval(r), _kind(r), _posterior(r),
-             unit_notation(r.unit), pct(r.level, 0) if r.level == r.level else "", _beside(r)]
+    return [[r.paleosol_id, r.fit, _reading(r.estimate, r.lower, r.upper)[0], _interval(r),
+             _kind(r), _posterior(r), unit_notation(r.unit),
+             pct(r.level, 0) if r.level == r.level else "", _beside(r)]
             for r in table.itertuples(index=False)]
 
 

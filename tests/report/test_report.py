@@ -16,9 +16,10 @@ from html.parser import HTMLParser
 import numpy as np
 import pandas as pd
 import pytest
+from _harness import copy_demo_store, recipe_toml
 from click.testing import CliRunner
 
-from _harness import copy_demo_store, recipe_toml
+from refit._util.numbers import reading_texts
 from refit.cli.fit import fit as fit_cmd
 from refit.cli.report import report
 from refit.report.context import num
@@ -235,8 +236,9 @@ def test_report_embeds_the_comparison_when_given(run_dir, compared, tmp_path):
     assert f"The comparison table ({len(table)} rows" in body
     for r in table.dropna(subset=["estimate"]).itertuples():
         # no posterior in this comparison: the posterior cell stays empty
-        assert f"{r.paleosol_id} {r.fit} {num(r.estimate)} {num(r.lower)} to " \
-               f"{num(r.upper)} frequentist {r.unit}" in body
+        # estimate and interval at one resolution (tests/util/test_reading_numbers.py)
+        est, lo, hi = reading_texts(r.estimate, r.lower, r.upper, missing="", infinity="∞")
+        assert f"{r.paleosol_id} {r.fit} {est} {lo} to {hi} frequentist {r.unit}" in body
     assert "Fits compared." in body and "research use" in body
     assert f"{table['paleosol_id'].nunique()} paleosol(s)" in body
     assert f"--compare {compared}" in body          # the command that rewrites it

@@ -24,13 +24,15 @@ from refit._util.numbers import reading_texts
     ((12345.6, 10000.2, 15000.0), ["12346", "10000", "15000"]),         # no 1.235e+04
     ((math.nan, math.nan, math.nan), ["-", "-", "-"]),
     ((0.0, 0.0, 0.0), ["0", "0", "0"]),
+    ((650.0, 400.0, 900.0), ["650", "400", "900"]),                    # whole numbers all
+    ((650.0, 400.4, 900.0), ["650.0", "400.4", "900.0"]),               # ... or none
 ])
 def test_readings_share_the_resolution_of_their_largest_number(values, want):
     assert reading_texts(*values) == want
 
 
 def test_the_resolution_is_four_significant_digits_of_the_largest():
-    for top in (0.01234, 0.9, 1.0, 9.99, 10.0, 123.4, 999.9, 1000.0, 5e6):
+    for top in (0.01234, 0.9, 9.99, 123.4, 999.9, 1234.5, 5e6 + 0.5):
         decimals = max(0, 3 - math.floor(math.log10(top)))
         assert reading_texts(top, top / 3) == [format(top, f".{decimals}f"),
                                               format(top / 3, f".{decimals}f")]
