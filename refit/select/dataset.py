@@ -291,16 +291,18 @@ def _recorded_table(ds: dict, path: Path):
 def _recorded_sheet_there(path: Path, sheet: str, name) -> None:
     """Refuse (exit 2) a table that is not a workbook, or a workbook without ``sheet``,
     for a fit that records the worksheet it was made on."""
-    made_on = f"the fit was made on sheet {sheet!r} of workbook {name!r}"
+    # the sheet is the file's (provenance.dataset.sheet) or one given with verify --sheet
+    made_on = (f"the fit is rebuilt from sheet {sheet!r} of workbook {name!r} (recorded in "
+               "the file, or given with --sheet)")
     if path.suffix.lower() != ".xlsx":
-        raise UnreadableInputError(f"{made_on} (provenance.dataset.sheet), but {str(path)!r} "
+        raise UnreadableInputError(f"{made_on}, but {str(path)!r} "
                                    "is not an xlsx workbook, so it has no sheets; give the "
                                    "workbook the fit was made on")
     from refit.curate.tables import workbook_sheets
 
     names, _ = workbook_sheets(path)
     if sheet not in names:
-        raise UnreadableInputError(f"{made_on} (provenance.dataset.sheet), but workbook "
+        raise UnreadableInputError(f"{made_on}, but workbook "
                                    f"{str(path)!r} has no such worksheet; its sheets are "
                                    f"{', '.join(map(repr, names))}{suggest(sheet, names)}; "
                                    "give the workbook the fit was made on")

@@ -142,6 +142,13 @@ def test_verify_sheet_option_reads_a_sheet_the_file_does_not_record(book):
     res = _run("verify", "old.json", "--store", "book.xlsx", "--sheet", "Data")
     assert res.exit_code == 0, res.output
     assert "(sheet 'Data') (given by --sheet; the file records no sheet)" in res.output
+    # a sheet given with --sheet that the workbook lacks: the message does not claim the
+    # file recorded it
+    res = _run("verify", "old.json", "--store", "book.xlsx", "--sheet", "Dat")
+    assert res.exit_code == 2, res.output
+    _one_error_line(res, "rebuilt from sheet 'Dat'", "or given with --sheet",
+                    "its sheets are 'Notes', 'Data'")
+    assert "the fit was made on sheet" not in res.output
     res = _run("verify", "old.json", "--sheet", "Data")
     assert res.exit_code == 2, res.output
     _one_error_line(res, "--sheet", "without --store")
