@@ -453,9 +453,11 @@ def _table_from_rows(path, rows, as_text, notes, digest, delim=None) -> Table:
     refuse_repeated(header, path, header_at + 1)
     blank = blank_columns(header, body, path, header_at + 1, numbers)
     if not body:
+        # a workbook: which sheet was read, and the sheets left unread (--sheet names one)
+        sheet = next((n for n in notes if delim is None and n.startswith("sheet ")), "")
         raise UnreadableInputError(
-            f"{path} has a header (row {header_at + 1}) but no data rows; add the soil profiles "
-            "below the header"
+            f"{path}{', ' + sheet + ',' if sheet else ''} has a header (row {header_at + 1}) "
+            "but no data rows; add the soil profiles below the header"
         )
     notes.append(f"header on row {header_at + 1}")
     if blank:

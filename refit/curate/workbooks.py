@@ -87,9 +87,10 @@ def _pick_sheet(book, sheet, path: Path):
             raise UnreadableInputError(f"{path}: every worksheet is hidden; name one with "
                                        f"--sheet (the workbook has {', '.join(map(repr, names))})")
         ws = visible[0]
-        hidden = [w.title for w in book.worksheets[: book.worksheets.index(ws)]]
-        note = (f" (the first visible sheet; hidden sheet(s) {', '.join(map(repr, hidden))} "
-                "not read: name one with --sheet)") if hidden else ""
+        others = [repr(w.title) + ("" if w.sheet_state == "visible" else " (hidden)")
+                  for w in book.worksheets if w is not ws]
+        note = (f" (the first visible sheet; not read: {', '.join(others)}; name another "
+                "with --sheet NAME)") if others else ""
         return ws, note
     if isinstance(sheet, int) and 0 <= sheet < len(names):
         return book.worksheets[sheet], ""

@@ -126,12 +126,34 @@ def test_a_hidden_first_sheet_is_passed_over_and_sheet_names_one(tmp_path):
                      hidden_first=True)
     table = read_table(path, as_text=True)
     assert table.frame["profile_id"].tolist() == ["P1"]
-    assert any("first visible sheet" in n and "'notes'" in n for n in table.notes)
+    assert any("first visible sheet" in n and "'notes' (hidden)" in n for n in table.notes)
     ok = cli("admit", path, "--into", tmp_path / "s", "--sheet", "data", "--dry-run")
     assert ok.exit_code == 0, ok.output
     assert "Rows read 1" in ok.output
     res = cli("check", path, "--sheet", "nope")
     assert res.exit_code == 2 and "no worksheet 'nope'" in one_error_line(res)
+
+
+def test_the_first_sheet_read_names_the_sheets_left_unread(tmp_path):
+    # a workbook whose table is on its second sheet: `refit check` without --sheet reads the
+    # notes on the first one and fails; its printout names the sheet left unread and --sheet
+    from _harness import SHEET_HEADER, sheet_soils, write_workbook
+
+    path = tmp_path / "survey.xlsx"
+    write_workbook(path, {"README": [["Field notes (invented)"]],
+                          "Soils": [SHEET_HEADER, *sheet_soils(5, 3, prefix="RV",
+                                                               source="Rivet")]})
+    res = cli("check", path)
+    assert res.exit_code == 2
+    assert ("sheet 'README' (the first visible sheet; not read: 'Soils'; name another with "
+            "--sheet NAME), has a header (row 1) but no data rows") in one_error_line(res)
+    assert cli("check", path, "--sheet", "Soils").exit_code == 0
+    # notes of a few lines above: the sheet is read, and its note names the unread one
+    write_workbook(path, {"README": [["Field notes (invented)"], ["x", "y"], ["1", "2"]],
+                          "Soils": [SHEET_HEADER]})
+    res = cli("check", path)
+    assert "sheet 'README' (the first visible sheet; not read: 'Soils'; name another with " \
+           "--sheet NAME)" in res.output
 
 
 # --- item 6: encodings, identifiers, formulas, float32 ---------------------------------
