@@ -155,27 +155,17 @@ def _open_store(path: Path, where: str, fix: str):
     return open_store(path)
 
 
-def _checked_table(path: Path, where: str, sheet: str | None = None,
-                   sheet_where: str | None = None):
+def _checked_table(path: Path, where: str, sheet: str | None = None):
     """The table's checked frame and row count; refused when the check finds errors.
 
-    ``sheet`` names the worksheet of an xlsx table (default the first visible one); an
-    unknown name is refused listing the workbook's sheets.
+    ``sheet`` names the worksheet of an xlsx table (default the first visible one; the
+    callers have made sure the workbook has it).
     """
     from refit.curate.checks import check_file
 
     if not path.is_file():
         raise UnreadableInputError(f"{where}table {str(path)!r} is not found: no such file; "
                                    "check the path")
-    if sheet is not None:
-        from refit.curate.tables import workbook_sheets
-
-        names, _ = workbook_sheets(path)
-        if sheet not in names:
-            raise UnreadableInputError(
-                f"{where if sheet_where is None else sheet_where}sheet = {sheet!r}: workbook {path.name!r} has no such worksheet; its "
-                f"sheets are {', '.join(map(repr, names))}{suggest(sheet, names)}: name one "
-                "of them")
     report = check_file(path, sheet=sheet)
     if not report.ok:
         raise InvalidDataError(
@@ -207,6 +197,19 @@ def _store_at(recipe: Recipe):
                              entry["records_sha256"], int(len(frame)))
 
 
+def _sheet_missing(path: Path, sheet: str, shown: str | None = None) -> str:
+    """"" when the xlsx workbook at ``path`` has a worksheet named ``sheet``; else why not,
+    with the workbook's sheets and the nearest name (for the caller's message; the
+    workbook named as ``shown``, default its file name)."""
+    from refit.curate.tables import workbook_sheets
+
+    names, _ = workbook_sheets(path)
+    if sheet in names:
+        return ""
+    return (f"workbook {(shown or path.name)!r} has no such worksheet; its sheets are "
+            f"{', '.join(map(repr, names))}{suggest(sheet, names)}")
+
+
 def open_recipe_data(recipe: Recipe):
     """The records a recipe names and their :class:`DataSource`.
 
@@ -228,8 +231,12 @@ def open_recipe_data(recipe: Recipe):
     if recipe.store is not None:
         return _store_at(recipe)
     where = f"{recipe.where('data.table')}: [data] "
-    frame, rows = _checked_table(recipe.table, where, recipe.sheet,
-                                 f"{recipe.where('data.sheet')}: [data] ")
+    if recipe.sheet is not None and recipe.table.is_file():
+        why = _sheet_missing(recipe.table, recipe.sheet)
+        if why:
+            raise UnreadableInputError(f"{recipe.where('data.sheet')}: [data] sheet = "
+                                       f"{recipe.sheet!r}: {why}: name one of them")
+    frame, rows = _checked_table(recipe.table, where, recipe.sheet)
     source = DataSource("table", recipe.table, recipe.table.name, None,
                         sha256_file(recipe.table), rows, sheet=recipe.sheet)
     return frame, source
@@ -294,18 +301,16 @@ def _recorded_sheet_there(path: Path, sheet: str, name) -> None:
     # the sheet is the file's (provenance.dataset.sheet) or one given with verify --sheet
     made_on = (f"the fit is rebuilt from sheet {sheet!r} of workbook {name!r} (recorded in "
                "the file, or given with --sheet)")
-    if path.suffix.lower() != ".xlsx":
+    from refit.curate.tables import is_workbook
+
+    if not is_workbook(path):
         raise UnreadableInputError(f"{made_on}, but {str(path)!r} "
                                    "is not an xlsx workbook, so it has no sheets; give the "
                                    "workbook the fit was made on")
-    from refit.curate.tables import workbook_sheets
-
-    names, _ = workbook_sheets(path)
-    if sheet not in names:
-        raise UnreadableInputError(f"{made_on}, but workbook "
-                                   f"{str(path)!r} has no such worksheet; its sheets are "
-                                   f"{', '.join(map(repr, names))}{suggest(sheet, names)}; "
-                                   "give the workbook the fit was made on")
+    why = _sheet_missing(path, sheet, str(path))
+    if why:
+        raise UnreadableInputError(f"{made_on}, but {why}; give the workbook the fit was "
+                                   "made on")
 
 
 def open_recorded_data(ds: dict, location=None):
