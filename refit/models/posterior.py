@@ -93,6 +93,7 @@ from refit.models.posterior_terms import (
     _log_likelihoods_apart,
     _mean_sd,
     _row_moments,
+    _scratch,
     _Tables,
     chunk_sums,
 )
@@ -140,7 +141,7 @@ class _Run:
             b = min(n_all, a + BLOCK_ROWS)
             lp = P[a:b]
             y, s_ = self.y[r0 + a:r0 + b], self.s[r0 + a:r0 + b]
-            t, tmp = scratch["t"][:b - a], scratch["tmp"][:b - a]
+            t, tmp = (_scratch(scratch, key, b - a, lp.shape[1]) for key in ("t", "tmp"))
             with np.errstate(over="ignore", invalid="ignore"):   # absurd values: inf
                 _log_likelihoods(self.tab, y, s_, self.lprior, lp, t, tmp, pool=scratch)
             rows = np.arange(b - a)
@@ -325,7 +326,7 @@ def _compute(run: _Run) -> None:
         if not hasattr(mine, "P"):
             mine.P = np.empty((step, G))
             mine.sums = np.empty((step, run.starts.size))
-            mine.scratch = {"t": np.empty((BLOCK_ROWS, G)), "tmp": np.empty((BLOCK_ROWS, G))}
+            mine.scratch = {}        # the density blocks' scratch (_scratch keeps it)
         P, sums = mine.P[:r1 - r0], mine.sums[:r1 - r0]
         run.densities(P, sums, r0, r1, mine.scratch)
         run.summarise(P, sums, r0, r1)
