@@ -102,6 +102,8 @@ def fit_label(r) -> str:
     (:func:`refit.coefficients.format.variant_of`; not the unnamed default) follows the
     version ("map_from_bk_depth 1.1.0 mixed linear__mixed__inverse__analytic"), so two
     variants at one version stay apart."""
+    from refit.coefficients.format import CANDIDATE_VERSION
+
     if str(r.function_id) == "posterior":
         used = getattr(r, "predictors_used", "")
         used = used if isinstance(used, str) else ""
@@ -120,8 +122,6 @@ def fit_label(r) -> str:
         return "" if missing else str(value).strip()
 
     what = text(getattr(r, "candidate", "")) or text(r.status)
-    from refit.coefficients.format import CANDIDATE_VERSION
-
     # a run's candidate that was never published carries a placeholder version: say so
     version = "unpublished" if text(r.version) == CANDIDATE_VERSION else text(r.version)
     # a missing part leaves no double space
